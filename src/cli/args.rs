@@ -1,0 +1,48 @@
+//! Command-line arguments: one clap definition drives parsing, help and
+//! shell completions.
+
+use clap::{Parser, Subcommand};
+use std::path::PathBuf;
+
+/// Step the reverse sweep of a recorded trace and find where a bad gradient was born.
+#[derive(Debug, Parser)]
+#[command(name = "ebb", version, about, long_about = None, after_help = "Examples:\n  ebb                           check the built-in demo trace\n  ebb check traces/teaching.ron report gradients and flags\n  ebb sweep traces/teaching.ron list every step of the sweep")]
+pub struct Cli {
+    /// What to do; without one, Ebb works on its built-in demo trace.
+    #[command(subcommand)]
+    pub command: Option<Command>,
+}
+
+/// The subcommands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Load a trace, sweep it to the end, report gradients and flags.
+    ///
+    /// Exit status: 0 when nothing is flagged, 1 when something is, 2 on bad input.
+    #[command(after_help = "Examples:\n  ebb check traces/teaching.ron\n  ebb check run-1234.json --json | jq '.flags[0]'")]
+    Check {
+        /// The trace file (.ron or .json).
+        trace: PathBuf,
+        /// Print the report as JSON (stable field names, for CI scripts).
+        #[arg(long)]
+        json: bool,
+    },
+    /// Print the sweep step by step: each node, its adjoint, each contribution.
+    #[command(after_help = "Examples:\n  ebb sweep traces/teaching.ron\n  ebb sweep big.json --steps 20")]
+    Sweep {
+        /// The trace file (.ron or .json).
+        trace: PathBuf,
+        /// Stop after this many steps.
+        #[arg(long, value_name = "N")]
+        steps: Option<usize>,
+    },
+    /// List the op catalog: names, inputs, required attributes.
+    #[command(after_help = "Example:\n  ebb ops")]
+    Ops,
+    /// Print a shell completion script.
+    #[command(after_help = "Example:\n  ebb completions bash > ~/.local/share/bash-completion/completions/ebb")]
+    Completions {
+        /// The shell.
+        shell: clap_complete::Shell,
+    },
+}

@@ -1,0 +1,98 @@
+//! The command-line layer: parses arguments, calls the library, prints.
+//! Nothing here computes; exit codes are chosen in `main`.
+
+mod args;
+
+pub use args::{Cli, Command};
+
+use anyhow::{Context, Result};
+use clap::CommandFactory;
+use ebb::listing::list_steps;
+use ebb::ops::{CATALOG, Rule};
+use ebb::report::Report;
+use ebb::sweep::{LedgerMode, Sweep};
+use ebb::trace::{self, Encoding, LoadError, Trace};
+use std::io::Write;
+use std::path::Path;
+
+/// The demo trace built into the binary.
+pub const DEMO_NAME: &str = "(built-in demo: traces/teaching.ron)";
+const DEMO_TEXT: &str = include_str!("../../traces/teaching.ron");
+
+/// How a command ended, for the exit status.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Outcome {
+    /// Nothing to report.
+    Clean,
+    /// Something was flagged.
+    Flagged,
+}
+
+/// A failure with the input, reported in one line and exit status 2.
+#[derive(Debug, thiserror::Error)]
+#[error(transparent)]
+pub struct BadInput(#[from] pub LoadError);
+
+/// Runs a parsed command line, writing to `out`.
+pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
+    match cli.command {
+        None => check(DEMO_NAME, &load_demo()?, false, out),
+        Some(Command::Check { trace, json }) => check(&trace.display().to_string(), &load(&trace)?, json, out),
+        Some(Command::Sweep { trace, steps }) => sweep(&load(&trace)?, steps, out),
+        Some(Command::Ops) => ops(out),
+        Some(Command::Completions { shell }) => {
+            let mut command = Cli::command();
+            clap_complete::generate(shell, &mut command, "ebb", out);
+            Ok(Outcome::Clean)
+        }
+    }
+}
+
+fn load(path: &Path) -> Result<Trace> {
+    trace::load(path).map_err(|error| BadInput(error).into())
+}
+
+/// Loads the demo embedded in the binary.
+pub fn load_demo() -> Result<Trace> {
+    trace::load_str(DEMO_TEXT, Encoding::Ron, Path::new("traces/teaching.ron")).map_err(|error| BadInput(error).into())
+}
+
+fn check(path: &str, trace: &Trace, json: bool, out: &mut dyn Write) -> Result<Outcome> {
+    let mut sweep = Sweep::new(trace, LedgerMode::Off);
+    sweep.run_to_end();
+    let report = Report::new(path, &sweep);
+    let text = if json { report.to_json() + "\n" } else { report.to_text() };
+    out.write_all(text.as_bytes()).context("writing the report")?;
+    Ok(if report.clean { Outcome::Clean } else { Outcome::Flagged })
+}
+
+fn sweep(trace: &Trace, steps: Option<usize>, out: &mut dyn Write) -> Result<Outcome> {
+    let mut sweep = Sweep::new(trace, LedgerMode::On);
+    let text = list_steps(&mut sweep, steps.unwrap_or(usize::MAX));
+    out.write_all(text.as_bytes()).context("writing the sweep")?;
+    Ok(if sweep.flags().is_empty() { Outcome::Clean } else { Outcome::Flagged })
+}
+
+fn ops(out: &mut dyn Write) -> Result<Outcome> {
+    let mut text = String::from("op             inputs  attributes     derivative  what it computes\n");
+    for row in CATALOG {
+        let required: Vec<&str> = row.required.iter().map(|attr| attr.as_str()).collect();
+        let derivative = match row.rule {
+            Rule::Leaf => "—",
+            Rule::Unary(_) | Rule::Binary(_) => "diagonal",
+            Rule::Structured(_) => "vjp rule",
+            Rule::Custom => "recorded",
+        };
+        text.push_str(&format!(
+            "{:<14} {:<7} {:<14} {:<11} {}\n",
+            row.name,
+            row.arity.to_string().replace(" inputs", "").replace(" input", ""),
+            required.join(", "),
+            derivative,
+            row.summary
+        ));
+    }
+    text.push_str("any other name: a custom op; it must record a partial on every input edge\n");
+    out.write_all(text.as_bytes()).context("writing the catalog")?;
+    Ok(Outcome::Clean)
+}

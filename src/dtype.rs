@@ -1,0 +1,175 @@
+//! The floating-point formats a recorded run can use, and rounding into them.
+//!
+//! Every value the engine computes is held as an `f64` and rounded into the
+//! trace's dtype after each arithmetic operation. For f32, f16 and bf16 this
+//! gives exactly the result the narrower format would have produced for
+//! `+ - * /` and `sqrt`, because f64 carries more than twice their precision
+//! plus two bits, so rounding twice cannot differ from rounding once
+//! (Goldberg, "What Every Computer Scientist Should Know About Floating-Point
+//! Arithmetic", ACM Computing Surveys 23(1), 1991, discussion of double rounding;
+//! Figueroa, "When is double rounding innocuous?", SIGNUM Newsletter 30(3), 1995).
+
+use serde::{Deserialize, Serialize};
+use std::fmt;
+
+/// The dtype of a recorded run.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize, Default)]
+#[serde(rename_all = "lowercase")]
+pub enum Dtype {
+    /// IEEE 754 binary16.
+    F16,
+    /// bfloat16: f32's exponent range with an 8-bit significand.
+    Bf16,
+    /// IEEE 754 binary32.
+    F32,
+    /// IEEE 754 binary64.
+    #[default]
+    F64,
+}
+
+/// Parameters of a binary floating-point format.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FormatLimits {
+    /// Significand bits including the implicit leading bit.
+    pub precision: i32,
+    /// Exponent of the smallest normal number.
+    pub min_exponent: i32,
+    /// Exponent of the largest finite number.
+    pub max_exponent: i32,
+}
+
+impl FormatLimits {
+    /// The largest finite value: (2 − 2^(1−p)) · 2^emax.
+    pub fn max_finite(&self) -> f64 {
+        (2.0 - pow2(1 - self.precision)) * pow2(self.max_exponent)
+    }
+
+    /// The smallest positive normal value: 2^emin.
+    pub fn min_normal(&self) -> f64 {
+        pow2(self.min_exponent)
+    }
+
+    /// The smallest positive subnormal value: 2^(emin − p + 1).
+    pub fn min_subnormal(&self) -> f64 {
+        pow2(self.min_exponent - self.precision + 1)
+    }
+}
+
+impl Dtype {
+    /// All dtypes, narrowest first.
+    pub const ALL: [Dtype; 4] = [Dtype::F16, Dtype::Bf16, Dtype::F32, Dtype::F64];
+
+    /// The format's precision and exponent range (IEEE 754-2019 table 3.5;
+    /// bfloat16 from Intel, "BFLOAT16 – Hardware Numerics Definition", 2018).
+    pub fn limits(self) -> FormatLimits {
+        match self {
+            Dtype::F16 => FormatLimits { precision: 11, min_exponent: -14, max_exponent: 15 },
+            Dtype::Bf16 => FormatLimits { precision: 8, min_exponent: -126, max_exponent: 127 },
+            Dtype::F32 => FormatLimits { precision: 24, min_exponent: -126, max_exponent: 127 },
+            Dtype::F64 => FormatLimits { precision: 53, min_exponent: -1022, max_exponent: 1023 },
+        }
+    }
+
+    /// The name used in trace files and reports.
+    pub fn name(self) -> &'static str {
+        match self {
+            Dtype::F16 => "f16",
+            Dtype::Bf16 => "bf16",
+            Dtype::F32 => "f32",
+            Dtype::F64 => "f64",
+        }
+    }
+
+    /// Rounds `x` to the nearest value of this format, ties to even, with
+    /// gradual underflow and overflow to infinity.
+    #[inline]
+    pub fn round(self, x: f64) -> f64 {
+        match self {
+            Dtype::F64 => x,
+            Dtype::F32 => x as f32 as f64,
+            Dtype::F16 | Dtype::Bf16 => round_to_format(x, self.limits()),
+        }
+    }
+}
+
+impl fmt::Display for Dtype {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+/// 2^e for exponents within f64's normal range.
+fn pow2(e: i32) -> f64 {
+    f64::from_bits(((e + 1023) as u64) << 52)
+}
+
+/// The unbiased exponent of a finite, non-zero, normal f64.
+fn exponent_of(a: f64) -> i32 {
+    ((a.to_bits() >> 52) & 0x7ff) as i32 - 1023
+}
+
+/// Correctly rounded conversion of an f64 into a narrower binary format.
+///
+/// Scaling by a power of two is exact, so `a / ulp` is exact and
+/// `round_ties_even` does the one rounding; the product back is exact too.
+fn round_to_format(x: f64, limits: FormatLimits) -> f64 {
+    if !x.is_finite() || x == 0.0 {
+        return x;
+    }
+    let magnitude = x.abs();
+    // Below f64's normal range every narrower format rounds to zero.
+    if magnitude < f64::MIN_POSITIVE {
+        return 0.0f64.copysign(x);
+    }
+    let exponent = exponent_of(magnitude).max(limits.min_exponent);
+    let ulp = pow2(exponent - (limits.precision - 1));
+    let rounded = (magnitude / ulp).round_ties_even() * ulp;
+    let result = if rounded > limits.max_finite() { f64::INFINITY } else { rounded };
+    result.copysign(x)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // Limits from IEEE 754-2019, table 3.5 (binary16, binary32) and Intel's
+    // bfloat16 definition (2018); decimal forms are the exact binary values.
+    #[test]
+    fn limits_match_ieee_754() {
+        assert_eq!(Dtype::F16.limits().max_finite(), 65504.0);
+        assert_eq!(Dtype::F16.limits().min_normal(), 2f64.powi(-14));
+        assert_eq!(Dtype::F16.limits().min_subnormal(), 2f64.powi(-24));
+        assert_eq!(Dtype::F32.limits().max_finite(), 3.4028234663852886e38);
+        assert_eq!(Dtype::F32.limits().max_finite(), f32::MAX as f64);
+        assert_eq!(Dtype::F32.limits().min_normal(), 1.1754943508222875e-38);
+        assert_eq!(Dtype::Bf16.limits().max_finite(), 3.3895313892515355e38);
+        assert_eq!(Dtype::F64.limits().max_finite(), f64::MAX);
+    }
+
+    // Rounding probes follow from round-to-nearest-even (IEEE 754-2019 §4.3.1).
+    #[test]
+    fn f16_rounding_probes() {
+        assert_eq!(Dtype::F16.round(65519.0), 65504.0);
+        assert_eq!(Dtype::F16.round(65520.0), f64::INFINITY);
+        assert_eq!(Dtype::F16.round(-65520.0), f64::NEG_INFINITY);
+        assert_eq!(Dtype::F16.round(2f64.powi(-25)), 0.0, "tie between 0 and 2^-24 goes to even (0)");
+        assert_eq!(Dtype::F16.round(2f64.powi(-25) * 1.5), 2f64.powi(-24));
+        assert_eq!(Dtype::F16.round(2f64.powi(-24)), 2f64.powi(-24));
+        assert_eq!(Dtype::F16.round(1.0 + 2f64.powi(-11) + 2f64.powi(-40)), 1.0 + 2f64.powi(-10));
+        assert_eq!(Dtype::F16.round(1.0 + 2f64.powi(-11)), 1.0, "tie to even");
+    }
+
+    #[test]
+    fn f32_rounding_is_hardware_rounding() {
+        let x = 0.1f64;
+        assert_eq!(Dtype::F32.round(x), 0.1f32 as f64);
+        assert_eq!(Dtype::F32.round(1e39), f64::INFINITY);
+    }
+
+    #[test]
+    fn bf16_rounding_probes() {
+        assert_eq!(Dtype::Bf16.round(1.0 + 2f64.powi(-8)), 1.0, "tie to even");
+        assert_eq!(Dtype::Bf16.round(1.0 + 3.0 * 2f64.powi(-8)), 1.0 + 2f64.powi(-6));
+        assert_eq!(Dtype::Bf16.round(3.4e38), f64::INFINITY);
+    }
+}

@@ -1,0 +1,14 @@
+//! Ebb: load a recorded trace of one training or evaluation step, replay its
+//! reverse sweep node by node, and point at where a bad gradient was born.
+
+pub mod demos;
+pub mod dtype;
+pub mod format;
+pub mod listing;
+pub mod ops;
+pub mod record;
+pub mod report;
+pub mod stats;
+pub mod sweep;
+pub mod tensor;
+pub mod trace;

@@ -1,0 +1,252 @@
+//! Matrix product (batched, with broadcast batch axes), transpose and reshape.
+
+use super::{Attrs, StructuredRule, VjpArgs};
+use crate::dtype::Dtype;
+use crate::format::shape as show;
+use crate::tensor::{Value, broadcast_shapes, broadcast_source_indices, numel, strides};
+
+/// `a @ b` over the last two axes; leading axes broadcast as batch axes.
+pub static MATMUL: StructuredRule = StructuredRule { shape: matmul_shape, forward: matmul_forward, vjp: matmul_vjp };
+
+/// Axis permutation.
+pub static TRANSPOSE: StructuredRule = StructuredRule { shape: transpose_shape, forward: transpose_forward, vjp: transpose_vjp };
+
+/// Same elements under a new shape.
+pub static RESHAPE: StructuredRule = StructuredRule { shape: reshape_shape, forward: reshape_forward, vjp: reshape_vjp };
+
+/// Shapes of a batched product: batch axes, m, k, n.
+struct MatmulDims {
+    batch: Vec<usize>,
+    m: usize,
+    k: usize,
+    n: usize,
+}
+
+fn matmul_dims(a: &[usize], b: &[usize]) -> Result<MatmulDims, String> {
+    if a.len() < 2 || b.len() < 2 {
+        return Err(format!(
+            "matmul needs operands of rank 2 or more, got {} and {}; reshape a vector to [1, n] or [n, 1]",
+            show(a),
+            show(b)
+        ));
+    }
+    let (m, k) = (a[a.len() - 2], a[a.len() - 1]);
+    let (k2, n) = (b[b.len() - 2], b[b.len() - 1]);
+    if k != k2 {
+        return Err(format!("matmul inner dimensions differ: {} @ {} ({k} vs {k2})", show(a), show(b)));
+    }
+    let batch = broadcast_shapes(&a[..a.len() - 2], &b[..b.len() - 2])
+        .ok_or_else(|| format!("matmul batch axes of {} and {} do not broadcast", show(a), show(b)))?;
+    Ok(MatmulDims { batch, m, k, n })
+}
+
+fn matmul_shape(inputs: &[&[usize]], _: &Attrs) -> Result<Vec<usize>, String> {
+    let dims = matmul_dims(inputs[0], inputs[1])?;
+    let mut shape = dims.batch;
+    shape.extend([dims.m, dims.n]);
+    Ok(shape)
+}
+
+/// For each output batch, the batch index read from `a` and from `b`.
+fn batch_sources(a: &[usize], b: &[usize], batch: &[usize]) -> (Vec<usize>, Vec<usize>) {
+    (broadcast_source_indices(&a[..a.len() - 2], batch), broadcast_source_indices(&b[..b.len() - 2], batch))
+}
+
+fn matmul_forward(inputs: &[&Value], _: &Attrs, dtype: Dtype) -> Value {
+    let (a, b) = (inputs[0], inputs[1]);
+    let dims = matmul_dims(a.shape(), b.shape()).expect("shapes checked by the validator");
+    let MatmulDims { m, k, n, .. } = dims;
+    let (a_batches, b_batches) = batch_sources(a.shape(), b.shape(), &dims.batch);
+    let mut out = vec![0.0; a_batches.len() * m * n];
+    for (batch, (&ab, &bb)) in a_batches.iter().zip(&b_batches).enumerate() {
+        let (a_block, b_block) = (&a.data()[ab * m * k..][..m * k], &b.data()[bb * k * n..][..k * n]);
+        let out_block = &mut out[batch * m * n..][..m * n];
+        for i in 0..m {
+            for j in 0..n {
+                out_block[i * n + j] = dot(dtype, (0..k).map(|p| (a_block[i * k + p], b_block[p * n + j])));
+            }
+        }
+    }
+    let mut shape = dims.batch;
+    shape.extend([m, n]);
+    Value::from_parts(shape, out)
+}
+
+/// A dot product with every product and partial sum rounded into `dtype`.
+fn dot(dtype: Dtype, pairs: impl Iterator<Item = (f64, f64)>) -> f64 {
+    let mut sum: Option<f64> = None;
+    for (x, y) in pairs {
+        let product = dtype.round(x * y);
+        sum = Some(match sum {
+            None => product,
+            Some(s) => dtype.round(s + product),
+        });
+    }
+    sum.unwrap_or(0.0)
+}
+
+/// ∂L/∂A = Ḡ Bᵀ and ∂L/∂B = Aᵀ Ḡ per batch, summed over broadcast batches.
+fn matmul_vjp(args: &VjpArgs) -> Value {
+    let (a, b, adjoint, dtype) = (args.inputs[0], args.inputs[1], args.adjoint, args.dtype);
+    let dims = matmul_dims(a.shape(), b.shape()).expect("shapes checked by the validator");
+    let MatmulDims { m, k, n, .. } = dims;
+    let (a_batches, b_batches) = batch_sources(a.shape(), b.shape(), &dims.batch);
+    let target = args.inputs[args.slot];
+    let mut contribution = vec![0.0; target.len()];
+    let mut touched = vec![false; target.len()];
+    let mut add = |index: usize, x: f64| {
+        contribution[index] = if touched[index] { dtype.round(contribution[index] + x) } else { x };
+        touched[index] = true;
+    };
+    for (batch, (&ab, &bb)) in a_batches.iter().zip(&b_batches).enumerate() {
+        let g = &adjoint.data()[batch * m * n..][..m * n];
+        let (a_block, b_block) = (&a.data()[ab * m * k..][..m * k], &b.data()[bb * k * n..][..k * n]);
+        if args.slot == 0 {
+            for i in 0..m {
+                for p in 0..k {
+                    add(ab * m * k + i * k + p, dot(dtype, (0..n).map(|j| (g[i * n + j], b_block[p * n + j]))));
+                }
+            }
+        } else {
+            for p in 0..k {
+                for j in 0..n {
+                    add(bb * k * n + p * n + j, dot(dtype, (0..m).map(|i| (a_block[i * k + p], g[i * n + j]))));
+                }
+            }
+        }
+    }
+    Value::from_parts(target.shape().to_vec(), contribution)
+}
+
+/// The permutation in force: the attribute, or a swap of the last two axes.
+fn permutation(rank: usize, attrs: &Attrs) -> Vec<usize> {
+    match &attrs.perm {
+        Some(perm) => perm.clone(),
+        None => {
+            let mut perm: Vec<usize> = (0..rank).collect();
+            if rank >= 2 {
+                perm.swap(rank - 2, rank - 1);
+            }
+            perm
+        }
+    }
+}
+
+fn transpose_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String> {
+    let input = inputs[0];
+    let perm = permutation(input.len(), attrs);
+    let mut seen = vec![false; input.len()];
+    let valid = perm.len() == input.len() && perm.iter().all(|&axis| axis < input.len() && !std::mem::replace(&mut seen[axis], true));
+    if !valid {
+        return Err(format!("perm {perm:?} is not a permutation of the {} axes of {}", input.len(), show(input)));
+    }
+    Ok(perm.iter().map(|&axis| input[axis]).collect())
+}
+
+/// Moves the elements of `value` so that output axis k is input axis `perm[k]`.
+fn permute(value: &Value, perm: &[usize]) -> Value {
+    let in_shape = value.shape();
+    let out_shape: Vec<usize> = perm.iter().map(|&axis| in_shape[axis]).collect();
+    let in_strides = strides(in_shape);
+    let step: Vec<usize> = perm.iter().map(|&axis| in_strides[axis]).collect();
+    let total = numel(&out_shape);
+    let mut out = Vec::with_capacity(total);
+    let mut counter = vec![0usize; out_shape.len()];
+    let mut source = 0usize;
+    for _ in 0..total {
+        out.push(value.data()[source]);
+        for k in (0..out_shape.len()).rev() {
+            counter[k] += 1;
+            source += step[k];
+            if counter[k] < out_shape[k] {
+                break;
+            }
+            source -= step[k] * counter[k];
+            counter[k] = 0;
+        }
+    }
+    Value::from_parts(out_shape, out)
+}
+
+fn transpose_forward(inputs: &[&Value], attrs: &Attrs, _: Dtype) -> Value {
+    permute(inputs[0], &permutation(inputs[0].shape().len(), attrs))
+}
+
+fn transpose_vjp(args: &VjpArgs) -> Value {
+    let perm = permutation(args.inputs[0].shape().len(), args.attrs);
+    let mut inverse = vec![0; perm.len()];
+    for (k, &axis) in perm.iter().enumerate() {
+        inverse[axis] = k;
+    }
+    permute(args.adjoint, &inverse)
+}
+
+fn reshape_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String> {
+    let target = attrs.shape.clone().unwrap_or_default();
+    if numel(&target) != numel(inputs[0]) {
+        return Err(format!(
+            "cannot reshape {} ({} elements) to {} ({} elements)",
+            show(inputs[0]),
+            numel(inputs[0]),
+            show(&target),
+            numel(&target)
+        ));
+    }
+    Ok(target)
+}
+
+fn reshape_forward(inputs: &[&Value], attrs: &Attrs, _: Dtype) -> Value {
+    inputs[0].reshaped(attrs.shape.as_deref().unwrap_or(&[]))
+}
+
+fn reshape_vjp(args: &VjpArgs) -> Value {
+    args.adjoint.reshaped(args.inputs[0].shape())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn tensor(shape: &[usize], data: &[f64]) -> Value {
+        Value::from_parts(shape.to_vec(), data.to_vec())
+    }
+
+    #[test]
+    fn matmul_of_small_matrices() {
+        // [[1,2],[3,4]] @ [[5,6],[7,8]] = [[19,22],[43,50]] (hand computation).
+        let a = tensor(&[2, 2], &[1.0, 2.0, 3.0, 4.0]);
+        let b = tensor(&[2, 2], &[5.0, 6.0, 7.0, 8.0]);
+        let y = matmul_forward(&[&a, &b], &Attrs::default(), Dtype::F64);
+        assert_eq!(y, tensor(&[2, 2], &[19.0, 22.0, 43.0, 50.0]));
+    }
+
+    #[test]
+    fn matmul_batch_broadcast_sums_weight_gradient() {
+        // x: [3, 1, 2] batches against a shared w: [2, 2]; w's contribution sums the batches.
+        let x = tensor(&[3, 1, 2], &[1.0, 0.0, 0.0, 1.0, 1.0, 1.0]);
+        let w = tensor(&[2, 2], &[1.0, 2.0, 3.0, 4.0]);
+        let y = matmul_forward(&[&x, &w], &Attrs::default(), Dtype::F64);
+        assert_eq!(y.shape(), &[3, 1, 2]);
+        let g = Value::filled(&[3, 1, 2], 1.0);
+        let args = VjpArgs { slot: 1, inputs: &[&x, &w], output: &y, adjoint: &g, attrs: &Attrs::default(), dtype: Dtype::F64 };
+        // Σ_batches xᵀ·1 = rows [2, 2] for both columns.
+        assert_eq!(matmul_vjp(&args), tensor(&[2, 2], &[2.0, 2.0, 2.0, 2.0]));
+    }
+
+    #[test]
+    fn transpose_round_trips_through_its_vjp() {
+        let x = tensor(&[2, 3], &[1.0, 2.0, 3.0, 4.0, 5.0, 6.0]);
+        let y = transpose_forward(&[&x], &Attrs::default(), Dtype::F64);
+        assert_eq!(y, tensor(&[3, 2], &[1.0, 4.0, 2.0, 5.0, 3.0, 6.0]));
+        let args = VjpArgs { slot: 0, inputs: &[&x], output: &y, adjoint: &y, attrs: &Attrs::default(), dtype: Dtype::F64 };
+        assert_eq!(transpose_vjp(&args), x);
+    }
+
+    #[test]
+    fn bad_shapes_are_explained() {
+        assert!(matmul_shape(&[&[2, 3], &[4, 5]], &Attrs::default()).unwrap_err().contains("inner dimensions"));
+        assert!(matmul_shape(&[&[3], &[3, 1]], &Attrs::default()).unwrap_err().contains("rank 2"));
+        let perm = Attrs { perm: Some(vec![0, 0]), ..Attrs::default() };
+        assert!(transpose_shape(&[&[2, 3]], &perm).is_err());
+    }
+}

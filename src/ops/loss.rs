@@ -1,0 +1,121 @@
+//! Loss functions: cross-entropy from logits against class indices, and mean
+//! squared error.
+
+use super::reduce::{logsumexp_of, softmax_of};
+use super::{Attrs, StructuredRule, VjpArgs};
+use crate::dtype::Dtype;
+use crate::format::shape as show;
+use crate::tensor::Value;
+
+/// mean over rows of logsumexp(zₙ) − zₙ[tₙ].
+pub static CROSS_ENTROPY: StructuredRule =
+    StructuredRule { shape: cross_entropy_shape, forward: cross_entropy_forward, vjp: cross_entropy_vjp };
+
+/// mean((p − t)²) over all elements.
+pub static MSE: StructuredRule = StructuredRule { shape: mse_shape, forward: mse_forward, vjp: mse_vjp };
+
+/// Rows and classes of logits shaped [C] or [N, C].
+fn rows_and_classes(shape: &[usize]) -> Option<(usize, usize)> {
+    match shape {
+        [classes] => Some((1, *classes)),
+        [rows, classes] => Some((*rows, *classes)),
+        _ => None,
+    }
+}
+
+fn cross_entropy_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String> {
+    let logits = inputs[0];
+    let (rows, classes) =
+        rows_and_classes(logits).ok_or_else(|| format!("cross_entropy needs logits of shape [C] or [N, C], got {}", show(logits)))?;
+    let targets = attrs.targets.as_deref().unwrap_or_default();
+    if targets.len() != rows {
+        return Err(format!("cross_entropy has {} target indices for {rows} rows of logits", targets.len()));
+    }
+    if let Some(bad) = targets.iter().find(|&&t| t >= classes) {
+        return Err(format!("target class {bad} is out of range for {classes} classes"));
+    }
+    Ok(Vec::new())
+}
+
+fn rows(logits: &Value) -> impl Iterator<Item = &[f64]> {
+    let (_, classes) = rows_and_classes(logits.shape()).expect("shape checked by the validator");
+    logits.data().chunks(classes.max(1))
+}
+
+fn targets(attrs: &Attrs) -> &[usize] {
+    attrs.targets.as_deref().unwrap_or_default()
+}
+
+fn cross_entropy_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
+    let logits = inputs[0];
+    let mut total: Option<f64> = None;
+    let mut count = 0.0;
+    for (row, &target) in rows(logits).zip(targets(attrs)) {
+        let loss = dtype.round(logsumexp_of(dtype, row) - row[target]);
+        total = Some(total.map_or(loss, |t| dtype.round(t + loss)));
+        count += 1.0;
+    }
+    Value::Scalar(dtype.round(total.unwrap_or(0.0) / count))
+}
+
+/// z̄ₙ = ḡ · (softmax(zₙ) − onehot(tₙ)) / N.
+fn cross_entropy_vjp(args: &VjpArgs) -> Value {
+    let (logits, dtype) = (args.inputs[0], args.dtype);
+    let adjoint = args.adjoint.data()[0];
+    let count = targets(args.attrs).len() as f64;
+    let mut out = Vec::with_capacity(logits.len());
+    for (row, &target) in rows(logits).zip(targets(args.attrs)) {
+        for (class, p) in softmax_of(dtype, row).into_iter().enumerate() {
+            let indicator = if class == target { 1.0 } else { 0.0 };
+            out.push(dtype.round(adjoint * dtype.round(dtype.round(p - indicator) / count)));
+        }
+    }
+    Value::from_parts(logits.shape().to_vec(), out)
+}
+
+fn mse_shape(inputs: &[&[usize]], _: &Attrs) -> Result<Vec<usize>, String> {
+    if inputs[0] != inputs[1] {
+        return Err(format!("mse needs prediction and target of one shape, got {} and {}", show(inputs[0]), show(inputs[1])));
+    }
+    Ok(Vec::new())
+}
+
+fn mse_forward(inputs: &[&Value], _: &Attrs, dtype: Dtype) -> Value {
+    let (prediction, target) = (inputs[0], inputs[1]);
+    let mut total: Option<f64> = None;
+    for (&p, &t) in prediction.data().iter().zip(target.data()) {
+        let difference = dtype.round(p - t);
+        let square = dtype.round(difference * difference);
+        total = Some(total.map_or(square, |s| dtype.round(s + square)));
+    }
+    Value::Scalar(dtype.round(total.unwrap_or(0.0) / prediction.len() as f64))
+}
+
+/// p̄ = ḡ · 2(p − t)/n; the target receives the negation.
+fn mse_vjp(args: &VjpArgs) -> Value {
+    let (prediction, target, dtype) = (args.inputs[0], args.inputs[1], args.dtype);
+    let adjoint = args.adjoint.data()[0];
+    let scale = dtype.round(2.0 / prediction.len() as f64);
+    let sign = if args.slot == 0 { 1.0 } else { -1.0 };
+    let data = prediction
+        .data()
+        .iter()
+        .zip(target.data())
+        .map(|(&p, &t)| sign * dtype.round(adjoint * dtype.round(scale * dtype.round(p - t))))
+        .collect();
+    Value::from_parts(prediction.shape().to_vec(), data)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn targets_must_fit_the_logits() {
+        let attrs = Attrs { targets: Some(vec![3]), ..Attrs::default() };
+        assert!(cross_entropy_shape(&[&[3]], &attrs).unwrap_err().contains("out of range"));
+        let attrs = Attrs { targets: Some(vec![0]), ..Attrs::default() };
+        assert!(cross_entropy_shape(&[&[2, 3]], &attrs).unwrap_err().contains("1 target indices for 2 rows"));
+        assert!(mse_shape(&[&[2], &[3]], &Attrs::default()).is_err());
+    }
+}

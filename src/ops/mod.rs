@@ -1,0 +1,436 @@
+//! The op catalog: one table entry per op with its forward rule and its
+//! derivative rule. This is the single place where an op's derivative is
+//! written; the sweep engine, the recorder and the checks all call through it.
+
+mod attrs;
+mod elementwise;
+mod linalg;
+mod loss;
+mod reduce;
+
+pub use attrs::{AttrName, Attrs};
+
+use crate::dtype::Dtype;
+use crate::tensor::{Value, broadcast_shapes, broadcast_source_indices, numel};
+
+/// Every op Ebb knows, plus `Custom` for ops that carry their own partials.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[allow(missing_docs)]
+pub enum Op {
+    Input,
+    Param,
+    Const,
+    Add,
+    Sub,
+    Mul,
+    Div,
+    Neg,
+    Pow,
+    Exp,
+    Log,
+    Sqrt,
+    Abs,
+    Sin,
+    Cos,
+    Tanh,
+    Sigmoid,
+    Relu,
+    LeakyRelu,
+    Matmul,
+    Transpose,
+    Reshape,
+    Sum,
+    Mean,
+    Max,
+    Softmax,
+    LogSoftmax,
+    Logsumexp,
+    CrossEntropy,
+    Mse,
+    /// An op outside the catalog; its node names it and records every partial.
+    Custom,
+}
+
+/// How many inputs an op takes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Arity {
+    /// Exactly this many.
+    Exactly(usize),
+    /// Any number, at least this many.
+    AtLeast(usize),
+}
+
+impl Arity {
+    /// Whether `n` inputs fit.
+    pub fn accepts(self, n: usize) -> bool {
+        match self {
+            Arity::Exactly(k) => n == k,
+            Arity::AtLeast(k) => n >= k,
+        }
+    }
+}
+
+impl std::fmt::Display for Arity {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Arity::Exactly(1) => write!(f, "1 input"),
+            Arity::Exactly(k) => write!(f, "{k} inputs"),
+            Arity::AtLeast(k) => write!(f, "at least {k} inputs"),
+        }
+    }
+}
+
+/// An elementwise op of one input: `y = value(x)`, `∂y/∂x = partial(x, y)`.
+pub struct UnaryRule {
+    /// Forward rule.
+    pub value: fn(x: f64, attrs: &Attrs) -> f64,
+    /// Local partial ∂y/∂x given the input and the output.
+    pub partial: fn(x: f64, y: f64, attrs: &Attrs) -> f64,
+}
+
+/// An elementwise op of two broadcast inputs.
+pub struct BinaryRule {
+    /// Forward rule.
+    pub value: fn(a: f64, b: f64) -> f64,
+    /// Local partials ∂y/∂a and ∂y/∂b given both inputs and the output.
+    pub partials: [fn(a: f64, b: f64, y: f64) -> f64; 2],
+}
+
+/// Everything a vector-Jacobian product needs.
+pub struct VjpArgs<'a> {
+    /// Which input the contribution goes to.
+    pub slot: usize,
+    /// The recorded forward values of the inputs.
+    pub inputs: &'a [&'a Value],
+    /// The recorded forward value of the node.
+    pub output: &'a Value,
+    /// The node's adjoint (shape of `output`).
+    pub adjoint: &'a Value,
+    /// The node's attributes.
+    pub attrs: &'a Attrs,
+    /// Arithmetic format.
+    pub dtype: Dtype,
+}
+
+/// A shape rule: the output shape for the input shapes, or why they do not fit.
+pub type ShapeRule = fn(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String>;
+
+/// An op whose Jacobian is not diagonal: shape rule, forward rule and
+/// vector-Jacobian product written directly.
+pub struct StructuredRule {
+    /// The output shape for the given input shapes, or why they do not fit.
+    pub shape: ShapeRule,
+    /// Forward rule.
+    pub forward: fn(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value,
+    /// The contribution to input `slot`: the adjoint pulled back through the
+    /// op's Jacobian, in the input's shape.
+    pub vjp: fn(args: &VjpArgs) -> Value,
+}
+
+/// The derivative rule of an op.
+pub enum Rule {
+    /// input, param, const: no inputs, nothing to pull back.
+    Leaf,
+    /// Elementwise of one input.
+    Unary(&'static UnaryRule),
+    /// Elementwise of two broadcast inputs.
+    Binary(&'static BinaryRule),
+    /// Anything else from the catalog.
+    Structured(&'static StructuredRule),
+    /// A custom op: partials come from the trace.
+    Custom,
+}
+
+/// One row of the catalog.
+pub struct OpSpec {
+    /// The op.
+    pub op: Op,
+    /// Its name in trace files.
+    pub name: &'static str,
+    /// Its number of inputs.
+    pub arity: Arity,
+    /// Attributes that must be present.
+    pub required: &'static [AttrName],
+    /// One line for help and reports.
+    pub summary: &'static str,
+    /// Forward and derivative rules.
+    pub rule: Rule,
+}
+
+/// The catalog, in the order help lists it.
+pub static CATALOG: &[OpSpec] = &[
+    leaf(Op::Input, "input", "a value fed to the step (data)"),
+    leaf(Op::Param, "param", "a trainable parameter: its adjoint is the gradient"),
+    leaf(Op::Const, "const", "a constant"),
+    binary(Op::Add, "add", "a + b, broadcast", &elementwise::ADD),
+    binary(Op::Sub, "sub", "a − b, broadcast", &elementwise::SUB),
+    binary(Op::Mul, "mul", "a · b, broadcast", &elementwise::MUL),
+    binary(Op::Div, "div", "a / b, broadcast", &elementwise::DIV),
+    unary(Op::Neg, "neg", "−x", &elementwise::NEG, &[]),
+    unary(Op::Pow, "pow", "x^p for a constant exponent p", &elementwise::POW, &[AttrName::Exponent]),
+    unary(Op::Exp, "exp", "eˣ", &elementwise::EXP, &[]),
+    unary(Op::Log, "log", "natural logarithm", &elementwise::LOG, &[]),
+    unary(Op::Sqrt, "sqrt", "square root", &elementwise::SQRT, &[]),
+    unary(Op::Abs, "abs", "|x| (partial 0 at the kink)", &elementwise::ABS, &[]),
+    unary(Op::Sin, "sin", "sine", &elementwise::SIN, &[]),
+    unary(Op::Cos, "cos", "cosine", &elementwise::COS, &[]),
+    unary(Op::Tanh, "tanh", "hyperbolic tangent", &elementwise::TANH, &[]),
+    unary(Op::Sigmoid, "sigmoid", "1 / (1 + e⁻ˣ)", &elementwise::SIGMOID, &[]),
+    unary(Op::Relu, "relu", "max(x, 0) (partial 0 at the kink)", &elementwise::RELU, &[]),
+    unary(Op::LeakyRelu, "leaky_relu", "x if x > 0 else slope·x", &elementwise::LEAKY_RELU, &[AttrName::Slope]),
+    structured(Op::Matmul, "matmul", 2, &[], "matrix product, batched over leading axes", &linalg::MATMUL),
+    structured(Op::Transpose, "transpose", 1, &[], "permute axes (default: swap the last two)", &linalg::TRANSPOSE),
+    structured(Op::Reshape, "reshape", 1, &[AttrName::Shape], "same elements, new shape", &linalg::RESHAPE),
+    structured(Op::Sum, "sum", 1, &[], "sum of all elements, or along axis", &reduce::SUM),
+    structured(Op::Mean, "mean", 1, &[], "mean of all elements, or along axis", &reduce::MEAN),
+    structured(Op::Max, "max", 1, &[AttrName::Axis], "maximum along axis (ties: first)", &reduce::MAX),
+    structured(Op::Softmax, "softmax", 1, &[], "softmax along axis (default −1)", &reduce::SOFTMAX),
+    structured(Op::LogSoftmax, "log_softmax", 1, &[], "log of softmax along axis (default −1)", &reduce::LOG_SOFTMAX),
+    structured(Op::Logsumexp, "logsumexp", 1, &[], "log Σ eˣ of all elements, or along axis", &reduce::LOGSUMEXP),
+    structured(
+        Op::CrossEntropy,
+        "cross_entropy",
+        1,
+        &[AttrName::Targets],
+        "mean cross-entropy of logits [N, C] against class indices",
+        &loss::CROSS_ENTROPY,
+    ),
+    structured(Op::Mse, "mse", 2, &[], "mean squared error of prediction against target", &loss::MSE),
+];
+
+/// The catalog row standing in for custom ops.
+static CUSTOM: OpSpec = OpSpec {
+    op: Op::Custom,
+    name: "custom",
+    arity: Arity::AtLeast(1),
+    required: &[],
+    summary: "an op outside the catalog, with recorded partials on every edge",
+    rule: Rule::Custom,
+};
+
+const fn leaf(op: Op, name: &'static str, summary: &'static str) -> OpSpec {
+    OpSpec { op, name, arity: Arity::Exactly(0), required: &[], summary, rule: Rule::Leaf }
+}
+
+const fn unary(op: Op, name: &'static str, summary: &'static str, rule: &'static UnaryRule, required: &'static [AttrName]) -> OpSpec {
+    OpSpec { op, name, arity: Arity::Exactly(1), required, summary, rule: Rule::Unary(rule) }
+}
+
+const fn binary(op: Op, name: &'static str, summary: &'static str, rule: &'static BinaryRule) -> OpSpec {
+    OpSpec { op, name, arity: Arity::Exactly(2), required: &[], summary, rule: Rule::Binary(rule) }
+}
+
+const fn structured(
+    op: Op,
+    name: &'static str,
+    arity: usize,
+    required: &'static [AttrName],
+    summary: &'static str,
+    rule: &'static StructuredRule,
+) -> OpSpec {
+    OpSpec { op, name, arity: Arity::Exactly(arity), required, summary, rule: Rule::Structured(rule) }
+}
+
+impl Op {
+    /// The catalog row of this op.
+    pub fn spec(self) -> &'static OpSpec {
+        if self == Op::Custom {
+            return &CUSTOM;
+        }
+        let row = &CATALOG[self as usize];
+        debug_assert_eq!(row.op, self, "catalog order must follow the enum");
+        row
+    }
+
+    /// The op of a catalog name; `None` for a name outside the catalog.
+    pub fn from_name(name: &str) -> Option<Op> {
+        CATALOG.iter().find(|row| row.name == name).map(|row| row.op)
+    }
+
+    /// The name in trace files.
+    pub fn name(self) -> &'static str {
+        self.spec().name
+    }
+
+    /// True for input, param and const.
+    pub fn is_leaf(self) -> bool {
+        matches!(self, Op::Input | Op::Param | Op::Const)
+    }
+
+    /// True for elementwise ops, whose partial on each edge is diagonal.
+    pub fn is_elementwise(self) -> bool {
+        matches!(self.spec().rule, Rule::Unary(_) | Rule::Binary(_))
+    }
+
+    /// The catalog name closest to `name` by edit distance, for hints.
+    pub fn closest_name(name: &str) -> Option<&'static str> {
+        CATALOG
+            .iter()
+            .map(|row| (edit_distance(name, row.name), row.name))
+            .filter(|(distance, _)| *distance <= 2)
+            .min_by_key(|(distance, _)| *distance)
+            .map(|(_, name)| name)
+    }
+}
+
+fn edit_distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut previous: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut current = vec![i + 1; b.len() + 1];
+        for (j, cb) in b.iter().enumerate() {
+            let substitution = previous[j] + usize::from(ca != *cb);
+            current[j + 1] = substitution.min(previous[j + 1] + 1).min(current[j] + 1);
+        }
+        previous = current;
+    }
+    previous[b.len()]
+}
+
+/// The output shape of `op` for the given input shapes, or why they do not fit.
+/// Leaves and custom ops have no rule: their recorded shape stands.
+pub fn infer_shape(op: Op, inputs: &[&[usize]], attrs: &Attrs) -> Result<Option<Vec<usize>>, String> {
+    match &op.spec().rule {
+        Rule::Leaf | Rule::Custom => Ok(None),
+        Rule::Unary(_) => Ok(Some(inputs[0].to_vec())),
+        Rule::Binary(_) => broadcast_shapes(inputs[0], inputs[1])
+            .map(Some)
+            .ok_or_else(|| format!("shapes {} and {} do not broadcast", crate::format::shape(inputs[0]), crate::format::shape(inputs[1]))),
+        Rule::Structured(rule) => (rule.shape)(inputs, attrs).map(Some),
+    }
+}
+
+/// Evaluates `op` on forward values, rounding every result into `dtype`.
+///
+/// # Panics
+/// For leaves and custom ops, which have no forward rule, and for inputs whose
+/// shapes [`infer_shape`] rejects.
+pub fn forward(op: Op, inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
+    match &op.spec().rule {
+        Rule::Leaf | Rule::Custom => panic!("{} has no forward rule", op.name()),
+        Rule::Unary(rule) => inputs[0].map(|x| dtype.round((rule.value)(x, attrs))),
+        Rule::Binary(rule) => {
+            let (a, b) = (inputs[0], inputs[1]);
+            if let (Value::Scalar(x), Value::Scalar(y)) = (a, b) {
+                return Value::Scalar(dtype.round((rule.value)(*x, *y)));
+            }
+            let shape = broadcast_shapes(a.shape(), b.shape()).expect("shapes checked by the validator");
+            let (ia, ib) = (broadcast_source_indices(a.shape(), &shape), broadcast_source_indices(b.shape(), &shape));
+            let data = ia.iter().zip(&ib).map(|(&i, &j)| dtype.round((rule.value)(a.data()[i], b.data()[j]))).collect();
+            Value::from_parts(shape, data)
+        }
+        Rule::Structured(rule) => (rule.forward)(inputs, attrs, dtype),
+    }
+}
+
+/// The local partial of an elementwise op on edge `slot`, one entry per
+/// output element (the diagonal of the Jacobian), rounded into `dtype`.
+/// `None` for ops whose Jacobian is not diagonal.
+pub fn elementwise_partial(op: Op, slot: usize, inputs: &[&Value], output: &Value, attrs: &Attrs, dtype: Dtype) -> Option<Value> {
+    match &op.spec().rule {
+        Rule::Unary(rule) => {
+            let x = inputs[0];
+            let data = x.data().iter().zip(output.data()).map(|(&xi, &yi)| dtype.round((rule.partial)(xi, yi, attrs))).collect();
+            Some(Value::from_parts(output.shape().to_vec(), data))
+        }
+        Rule::Binary(rule) => {
+            let (a, b) = (inputs[0], inputs[1]);
+            let shape = output.shape();
+            let (ia, ib) = (broadcast_source_indices(a.shape(), shape), broadcast_source_indices(b.shape(), shape));
+            let partial = rule.partials[slot];
+            let data =
+                ia.iter().zip(&ib).zip(output.data()).map(|((&i, &j), &y)| dtype.round(partial(a.data()[i], b.data()[j], y))).collect();
+            Some(Value::from_parts(shape.to_vec(), data))
+        }
+        _ => None,
+    }
+}
+
+/// The scalar local partial of an elementwise op whose inputs are all scalars.
+/// The engine's fast path for scalar traces; same rule as [`elementwise_partial`].
+#[inline]
+pub fn scalar_partial(op: Op, slot: usize, inputs: &[f64], output: f64, attrs: &Attrs, dtype: Dtype) -> Option<f64> {
+    match &op.spec().rule {
+        Rule::Unary(rule) => Some(dtype.round((rule.partial)(inputs[0], output, attrs))),
+        Rule::Binary(rule) => Some(dtype.round((rule.partials[slot])(inputs[0], inputs[1], output))),
+        _ => None,
+    }
+}
+
+/// The contribution to input `slot` of a catalog op: the adjoint pulled back
+/// through the op's Jacobian (a vector-Jacobian product), in the input's shape.
+/// Elementwise ops multiply by their diagonal partial and sum over broadcast axes.
+///
+/// # Panics
+/// For leaves and custom ops.
+pub fn vjp(op: Op, args: &VjpArgs) -> Value {
+    match &op.spec().rule {
+        Rule::Leaf | Rule::Custom => panic!("{} has no derivative rule", op.name()),
+        Rule::Unary(_) | Rule::Binary(_) => {
+            let partial = elementwise_partial(op, args.slot, args.inputs, args.output, args.attrs, args.dtype)
+                .expect("elementwise ops have a diagonal partial");
+            scale_and_reduce(args.adjoint, &partial, args.inputs[args.slot].shape(), args.dtype)
+        }
+        Rule::Structured(rule) => (rule.vjp)(args),
+    }
+}
+
+/// `adjoint ⊙ partial` (both of the output's shape, or a scalar partial), then
+/// summed over the axes along which the input was broadcast.
+pub fn scale_and_reduce(adjoint: &Value, partial: &Value, input_shape: &[usize], dtype: Dtype) -> Value {
+    let product: Vec<f64> = if partial.len() == 1 {
+        let p = partial.data()[0];
+        adjoint.data().iter().map(|&a| dtype.round(a * p)).collect()
+    } else {
+        adjoint.data().iter().zip(partial.data()).map(|(&a, &p)| dtype.round(a * p)).collect()
+    };
+    reduce_to_shape(&product, adjoint.shape(), input_shape, dtype)
+}
+
+/// Sums a value of `from_shape` down to `to_shape`, undoing a broadcast.
+pub fn reduce_to_shape(data: &[f64], from_shape: &[usize], to_shape: &[usize], dtype: Dtype) -> Value {
+    if from_shape == to_shape {
+        return Value::from_parts(to_shape.to_vec(), data.to_vec());
+    }
+    let targets = broadcast_source_indices(to_shape, from_shape);
+    let mut reduced = vec![0.0; numel(to_shape)];
+    let mut touched = vec![false; reduced.len()];
+    for (&target, &x) in targets.iter().zip(data) {
+        // The first term is taken as is so that −0 survives, as a framework's sum would keep it.
+        reduced[target] = if touched[target] { dtype.round(reduced[target] + x) } else { x };
+        touched[target] = true;
+    }
+    Value::from_parts(to_shape.to_vec(), reduced)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn catalog_rows_follow_the_enum_order() {
+        for (index, row) in CATALOG.iter().enumerate() {
+            assert_eq!(row.op as usize, index, "{} is out of place", row.name);
+            assert_eq!(Op::from_name(row.name), Some(row.op));
+        }
+        assert_eq!(Op::from_name("gelu_custom"), None);
+    }
+
+    #[test]
+    fn closest_name_suggests_typos() {
+        assert_eq!(Op::closest_name("mull"), Some("mul"));
+        assert_eq!(Op::closest_name("softmx"), Some("softmax"));
+        assert_eq!(Op::closest_name("completely_new"), None);
+    }
+
+    #[test]
+    fn broadcast_vjp_sums_over_broadcast_axes() {
+        // y = a + b with a: [2, 3], b: [3]; ∂L/∂b sums the adjoint over rows.
+        let a = Value::from_parts(vec![2, 3], vec![1.0; 6]);
+        let b = Value::from_parts(vec![3], vec![1.0; 3]);
+        let y = forward(Op::Add, &[&a, &b], &Attrs::default(), Dtype::F64);
+        let adjoint = Value::from_parts(vec![2, 3], vec![1.0, 2.0, 3.0, 4.0, 5.0, 6.0]);
+        let args = VjpArgs { slot: 1, inputs: &[&a, &b], output: &y, adjoint: &adjoint, attrs: &Attrs::default(), dtype: Dtype::F64 };
+        assert_eq!(vjp(Op::Add, &args), Value::from_parts(vec![3], vec![5.0, 7.0, 9.0]));
+    }
+}

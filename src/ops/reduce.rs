@@ -1,0 +1,334 @@
+//! Reductions and normalisations along an axis: sum, mean, max, softmax,
+//! log_softmax and logsumexp.
+
+use super::{Attrs, StructuredRule, VjpArgs};
+use crate::dtype::Dtype;
+use crate::format::shape as show;
+use crate::tensor::{Value, resolve_axis, split_at_axis};
+
+/// Σ of all elements, or along `axis`.
+pub static SUM: StructuredRule = StructuredRule { shape: reduced_shape, forward: sum_forward, vjp: sum_vjp };
+/// Mean of all elements, or along `axis`.
+pub static MEAN: StructuredRule = StructuredRule { shape: reduced_shape, forward: mean_forward, vjp: mean_vjp };
+/// Maximum along `axis`; the first maximum receives the adjoint.
+pub static MAX: StructuredRule = StructuredRule { shape: reduced_shape, forward: max_forward, vjp: max_vjp };
+/// Softmax along `axis` (default −1).
+pub static SOFTMAX: StructuredRule = StructuredRule { shape: same_shape_with_axis, forward: softmax_forward, vjp: softmax_vjp };
+/// Log-softmax along `axis` (default −1).
+pub static LOG_SOFTMAX: StructuredRule = StructuredRule { shape: same_shape_with_axis, forward: log_softmax_forward, vjp: log_softmax_vjp };
+/// log Σ eˣ of all elements, or along `axis`.
+pub static LOGSUMEXP: StructuredRule = StructuredRule { shape: reduced_shape, forward: logsumexp_forward, vjp: logsumexp_vjp };
+
+/// The lanes a reduction runs along: `outer × inner` lanes of `length`
+/// elements each, `stride` apart.
+#[derive(Clone, Copy)]
+struct Lanes {
+    outer: usize,
+    length: usize,
+    inner: usize,
+}
+
+impl Lanes {
+    fn of(shape: &[usize], axis: Option<usize>) -> Lanes {
+        match axis {
+            None => Lanes { outer: 1, length: shape.iter().product(), inner: 1 },
+            Some(axis) => {
+                let (outer, length, inner) = split_at_axis(shape, axis);
+                Lanes { outer, length, inner }
+            }
+        }
+    }
+
+    fn count(self) -> usize {
+        self.outer * self.inner
+    }
+
+    /// Flat indices of the elements of lane `lane`.
+    fn indices(self, lane: usize) -> impl Iterator<Item = usize> {
+        let (o, i) = (lane / self.inner, lane % self.inner);
+        let base = o * self.length * self.inner + i;
+        (0..self.length).map(move |k| base + k * self.inner)
+    }
+}
+
+/// The axis in force: the attribute resolved against `rank`, or `default`.
+fn axis_of(attrs: &Attrs, rank: usize, default: Option<i64>) -> Result<Option<usize>, String> {
+    match attrs.axis.or(default) {
+        None => Ok(None),
+        Some(axis) => resolve_axis(axis, rank).map(Some).ok_or_else(|| format!("axis {axis} is out of range for rank {rank}")),
+    }
+}
+
+fn checked_axis(attrs: &Attrs, rank: usize, default: Option<i64>) -> Option<usize> {
+    axis_of(attrs, rank, default).expect("axis checked by the validator")
+}
+
+fn reduced_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String> {
+    let input = inputs[0];
+    match axis_of(attrs, input.len(), None)? {
+        None => Ok(Vec::new()),
+        Some(axis) => {
+            let mut shape = input.to_vec();
+            if attrs.keepdims {
+                shape[axis] = 1;
+            } else {
+                shape.remove(axis);
+            }
+            Ok(shape)
+        }
+    }
+}
+
+fn same_shape_with_axis(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String> {
+    let input = inputs[0];
+    if input.is_empty() {
+        return Err(format!("softmax needs a tensor, got shape {}", show(input)));
+    }
+    axis_of(attrs, input.len(), Some(-1))?;
+    Ok(input.to_vec())
+}
+
+/// Applies `reduce` to every lane and shapes the result like the reduction's output.
+fn reduce_lanes(x: &Value, attrs: &Attrs, reduce: impl Fn(&mut dyn Iterator<Item = f64>) -> f64) -> Value {
+    let axis = checked_axis(attrs, x.shape().len(), None);
+    let lanes = Lanes::of(x.shape(), axis);
+    let data: Vec<f64> = (0..lanes.count()).map(|lane| reduce(&mut lanes.indices(lane).map(|index| x.data()[index]))).collect();
+    let shape = reduced_shape(&[x.shape()], attrs).expect("axis checked by the validator");
+    Value::from_parts(shape, data)
+}
+
+/// A sequential sum rounded into `dtype` after every addition.
+fn rounded_sum(dtype: Dtype, values: &mut dyn Iterator<Item = f64>) -> f64 {
+    let mut sum = match values.next() {
+        Some(first) => first,
+        None => return 0.0,
+    };
+    for x in values {
+        sum = dtype.round(sum + x);
+    }
+    sum
+}
+
+/// Spreads a reduction's adjoint back over its lanes: element k of a lane gets
+/// `each(lane adjoint, k, lane)`.
+fn spread(args: &VjpArgs, default_axis: Option<i64>, each: impl Fn(f64, usize, &[usize]) -> f64) -> Value {
+    let x = args.inputs[0];
+    let axis = checked_axis(args.attrs, x.shape().len(), default_axis);
+    let lanes = Lanes::of(x.shape(), axis);
+    let mut out = vec![0.0; x.len()];
+    for lane in 0..lanes.count() {
+        let indices: Vec<usize> = lanes.indices(lane).collect();
+        for (k, &index) in indices.iter().enumerate() {
+            out[index] = each(args.adjoint.data()[lane], k, &indices);
+        }
+    }
+    Value::from_parts(x.shape().to_vec(), out)
+}
+
+fn sum_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
+    reduce_lanes(inputs[0], attrs, |lane| rounded_sum(dtype, lane))
+}
+
+fn sum_vjp(args: &VjpArgs) -> Value {
+    spread(args, None, |adjoint, _, _| adjoint)
+}
+
+fn lane_length(x: &Value, attrs: &Attrs) -> f64 {
+    Lanes::of(x.shape(), checked_axis(attrs, x.shape().len(), None)).length as f64
+}
+
+fn mean_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
+    let n = lane_length(inputs[0], attrs);
+    reduce_lanes(inputs[0], attrs, |lane| dtype.round(rounded_sum(dtype, lane) / n))
+}
+
+fn mean_vjp(args: &VjpArgs) -> Value {
+    let n = lane_length(args.inputs[0], args.attrs);
+    spread(args, None, |adjoint, _, _| args.dtype.round(adjoint / n))
+}
+
+/// NaN-propagating maximum and the position of its first occurrence.
+fn first_max(values: impl Iterator<Item = f64>) -> (f64, usize) {
+    let mut best = (f64::NEG_INFINITY, 0);
+    for (k, x) in values.enumerate() {
+        if x.is_nan() {
+            return (x, k);
+        }
+        if k == 0 || x > best.0 {
+            best = (x, k);
+        }
+    }
+    best
+}
+
+fn max_forward(inputs: &[&Value], attrs: &Attrs, _: Dtype) -> Value {
+    reduce_lanes(inputs[0], attrs, |lane| first_max(lane).0)
+}
+
+fn max_vjp(args: &VjpArgs) -> Value {
+    let x = args.inputs[0];
+    spread(args, None, |adjoint, k, lane| {
+        let (_, winner) = first_max(lane.iter().map(|&index| x.data()[index]));
+        if k == winner { adjoint } else { 0.0 }
+    })
+}
+
+/// Softmax of one lane, stabilised by subtracting the lane maximum.
+fn softmax_lane(dtype: Dtype, lane: &[f64]) -> Vec<f64> {
+    let (m, _) = first_max(lane.iter().copied());
+    let shift = if m.is_finite() { m } else { 0.0 };
+    let exps: Vec<f64> = lane.iter().map(|&x| dtype.round(dtype.round(x - shift).exp())).collect();
+    let total = rounded_sum(dtype, &mut exps.iter().copied());
+    exps.iter().map(|&e| dtype.round(e / total)).collect()
+}
+
+/// log Σ eˣ of one lane, stabilised by the lane maximum.
+fn logsumexp_lane(dtype: Dtype, lane: &[f64]) -> f64 {
+    let (m, _) = first_max(lane.iter().copied());
+    if !m.is_finite() {
+        // All −inf gives −inf; any +inf or NaN dominates.
+        return m;
+    }
+    let total = rounded_sum(dtype, &mut lane.iter().map(|&x| dtype.round(dtype.round(x - m).exp())));
+    dtype.round(m + dtype.round(total.ln()))
+}
+
+/// Maps every lane along `axis` (default −1) through `f`, keeping the shape.
+fn map_lanes(x: &Value, attrs: &Attrs, f: impl Fn(&[f64]) -> Vec<f64>) -> Value {
+    let axis = checked_axis(attrs, x.shape().len(), Some(-1));
+    let lanes = Lanes::of(x.shape(), axis);
+    let mut out = vec![0.0; x.len()];
+    for lane in 0..lanes.count() {
+        let indices: Vec<usize> = lanes.indices(lane).collect();
+        let values: Vec<f64> = indices.iter().map(|&index| x.data()[index]).collect();
+        for (&index, y) in indices.iter().zip(f(&values)) {
+            out[index] = y;
+        }
+    }
+    Value::from_parts(x.shape().to_vec(), out)
+}
+
+fn softmax_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
+    map_lanes(inputs[0], attrs, |lane| softmax_lane(dtype, lane))
+}
+
+/// x̄ₖ = yₖ (ḡₖ − Σⱼ ḡⱼ yⱼ) along each lane.
+fn softmax_vjp(args: &VjpArgs) -> Value {
+    let (y, g, dtype) = (args.output, args.adjoint, args.dtype);
+    let lanes = Lanes::of(y.shape(), checked_axis(args.attrs, y.shape().len(), Some(-1)));
+    let mut out = vec![0.0; y.len()];
+    for lane in 0..lanes.count() {
+        let indices: Vec<usize> = lanes.indices(lane).collect();
+        let weighted = rounded_sum(dtype, &mut indices.iter().map(|&i| dtype.round(g.data()[i] * y.data()[i])));
+        for &i in &indices {
+            out[i] = dtype.round(y.data()[i] * dtype.round(g.data()[i] - weighted));
+        }
+    }
+    Value::from_parts(y.shape().to_vec(), out)
+}
+
+fn log_softmax_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
+    map_lanes(inputs[0], attrs, |lane| {
+        let normaliser = logsumexp_lane(dtype, lane);
+        lane.iter().map(|&x| dtype.round(x - normaliser)).collect()
+    })
+}
+
+/// x̄ₖ = ḡₖ − softmax(x)ₖ Σⱼ ḡⱼ, with softmax(x) = exp(y).
+fn log_softmax_vjp(args: &VjpArgs) -> Value {
+    let (y, g, dtype) = (args.output, args.adjoint, args.dtype);
+    let lanes = Lanes::of(y.shape(), checked_axis(args.attrs, y.shape().len(), Some(-1)));
+    let mut out = vec![0.0; y.len()];
+    for lane in 0..lanes.count() {
+        let indices: Vec<usize> = lanes.indices(lane).collect();
+        let total = rounded_sum(dtype, &mut indices.iter().map(|&i| g.data()[i]));
+        for &i in &indices {
+            let probability = dtype.round(y.data()[i].exp());
+            out[i] = dtype.round(g.data()[i] - dtype.round(probability * total));
+        }
+    }
+    Value::from_parts(y.shape().to_vec(), out)
+}
+
+fn logsumexp_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
+    reduce_lanes(inputs[0], attrs, |lane| logsumexp_lane(dtype, &lane.collect::<Vec<_>>()))
+}
+
+/// x̄ₖ = ḡ · exp(xₖ − y): the adjoint spread by the lane's softmax.
+fn logsumexp_vjp(args: &VjpArgs) -> Value {
+    let (x, y, dtype) = (args.inputs[0], args.output, args.dtype);
+    let lanes = Lanes::of(x.shape(), checked_axis(args.attrs, x.shape().len(), None));
+    let mut out = vec![0.0; x.len()];
+    for lane in 0..lanes.count() {
+        let (adjoint, total) = (args.adjoint.data()[lane], y.data()[lane]);
+        for i in lanes.indices(lane) {
+            out[i] = dtype.round(adjoint * dtype.round(dtype.round(x.data()[i] - total).exp()));
+        }
+    }
+    Value::from_parts(x.shape().to_vec(), out)
+}
+
+/// Softmax of one lane for the loss rules, sharing this module's stabilisation.
+pub(super) fn softmax_of(dtype: Dtype, lane: &[f64]) -> Vec<f64> {
+    softmax_lane(dtype, lane)
+}
+
+/// logsumexp of one lane for the loss rules.
+pub(super) fn logsumexp_of(dtype: Dtype, lane: &[f64]) -> f64 {
+    logsumexp_lane(dtype, lane)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn tensor(shape: &[usize], data: &[f64]) -> Value {
+        Value::from_parts(shape.to_vec(), data.to_vec())
+    }
+
+    fn axis(axis: i64) -> Attrs {
+        Attrs { axis: Some(axis), ..Attrs::default() }
+    }
+
+    #[test]
+    fn sum_along_an_axis_and_back() {
+        let x = tensor(&[2, 3], &[1.0, 2.0, 3.0, 4.0, 5.0, 6.0]);
+        assert_eq!(sum_forward(&[&x], &axis(0), Dtype::F64), tensor(&[3], &[5.0, 7.0, 9.0]));
+        assert_eq!(sum_forward(&[&x], &axis(1), Dtype::F64), tensor(&[2], &[6.0, 15.0]));
+        assert_eq!(sum_forward(&[&x], &Attrs::default(), Dtype::F64), Value::Scalar(21.0));
+        let y = sum_forward(&[&x], &axis(1), Dtype::F64);
+        let g = tensor(&[2], &[1.0, 10.0]);
+        let args = VjpArgs { slot: 0, inputs: &[&x], output: &y, adjoint: &g, attrs: &axis(1), dtype: Dtype::F64 };
+        assert_eq!(sum_vjp(&args), tensor(&[2, 3], &[1.0, 1.0, 1.0, 10.0, 10.0, 10.0]));
+    }
+
+    #[test]
+    fn max_sends_the_adjoint_to_the_first_maximum() {
+        let x = tensor(&[2, 3], &[1.0, 5.0, 5.0, 7.0, 0.0, -1.0]);
+        let y = max_forward(&[&x], &axis(1), Dtype::F64);
+        assert_eq!(y, tensor(&[2], &[5.0, 7.0]));
+        let g = tensor(&[2], &[2.0, 3.0]);
+        let args = VjpArgs { slot: 0, inputs: &[&x], output: &y, adjoint: &g, attrs: &axis(1), dtype: Dtype::F64 };
+        assert_eq!(max_vjp(&args), tensor(&[2, 3], &[0.0, 2.0, 0.0, 3.0, 0.0, 0.0]));
+    }
+
+    #[test]
+    fn softmax_lanes_sum_to_one_and_log_softmax_agrees() {
+        let x = tensor(&[2, 3], &[1.0, 2.0, 3.0, 1000.0, 1000.0, 1000.0]);
+        let y = softmax_forward(&[&x], &Attrs::default(), Dtype::F64);
+        assert!((y.data()[..3].iter().sum::<f64>() - 1.0).abs() < 1e-15);
+        assert!((y.data()[3] - 1.0 / 3.0).abs() < 1e-15, "stable at large logits");
+        let log_y = log_softmax_forward(&[&x], &Attrs::default(), Dtype::F64);
+        for (p, lp) in y.data().iter().zip(log_y.data()) {
+            assert!((p.ln() - lp).abs() < 1e-12, "x − logsumexp cancels to about ulp(1000)");
+        }
+    }
+
+    #[test]
+    fn logsumexp_handles_infinite_lanes() {
+        let x = tensor(&[2], &[f64::NEG_INFINITY, f64::NEG_INFINITY]);
+        assert_eq!(logsumexp_forward(&[&x], &Attrs::default(), Dtype::F64), Value::Scalar(f64::NEG_INFINITY));
+        let x = tensor(&[2], &[0.0, 0.0]);
+        assert_eq!(logsumexp_forward(&[&x], &Attrs::default(), Dtype::F64), Value::Scalar(2f64.ln()));
+    }
+}

@@ -1,0 +1,281 @@
+//! The recorder: a tape that Rust code drives to compute one step and record
+//! it as a trace. Forward values come from the op table, the same rules the
+//! engine and the checks use.
+
+use crate::dtype::Dtype;
+use crate::ops::{self, Attrs, Op};
+use crate::tensor::Value;
+use crate::trace::{FORMAT_VERSION, NodeFile, NodeId, PartialRepr, TraceFile, ValueRepr};
+use std::panic::Location;
+
+/// A handle to a recorded node.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub struct Var(usize);
+
+impl Var {
+    /// The node's position in recording order.
+    pub fn index(self) -> usize {
+        self.0
+    }
+}
+
+/// Why an op could not be recorded.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("cannot record {op} at {site}: {message}")]
+pub struct RecordError {
+    /// The op's name.
+    pub op: String,
+    /// Where it was called.
+    pub site: String,
+    /// What did not fit.
+    pub message: String,
+}
+
+/// What a node carries besides its op, inputs and value.
+#[derive(Debug, Clone, Default)]
+struct Extras {
+    attrs: Attrs,
+    partials: Vec<PartialRepr>,
+}
+
+/// A recording of one step.
+#[derive(Debug, Clone)]
+pub struct Tape {
+    title: String,
+    description: String,
+    dtype: Dtype,
+    nodes: Vec<NodeFile>,
+    values: Vec<Value>,
+    scopes: Vec<String>,
+}
+
+/// Converts a value into its schema form.
+pub fn value_repr(value: &Value) -> ValueRepr {
+    match value {
+        Value::Scalar(x) => ValueRepr::Scalar(*x),
+        Value::Tensor(t) => ValueRepr::Tensor { shape: t.shape().to_vec(), data: t.data().to_vec() },
+    }
+}
+
+fn site(location: &Location) -> String {
+    format!("{}:{}", location.file(), location.line())
+}
+
+impl Tape {
+    /// An empty tape computing in `dtype`.
+    pub fn new(title: &str, dtype: Dtype) -> Tape {
+        Tape { title: title.to_string(), description: String::new(), dtype, nodes: Vec::new(), values: Vec::new(), scopes: Vec::new() }
+    }
+
+    /// Sets the trace's description.
+    pub fn describe(&mut self, description: &str) {
+        self.description = description.to_string();
+    }
+
+    /// The dtype values are rounded into.
+    pub fn dtype(&self) -> Dtype {
+        self.dtype
+    }
+
+    /// Enters a scope: nodes recorded until the matching [`Tape::pop_scope`]
+    /// get the group `outer/.../name`.
+    pub fn push_scope(&mut self, name: &str) {
+        self.scopes.push(name.to_string());
+    }
+
+    /// Leaves the innermost scope.
+    pub fn pop_scope(&mut self) {
+        self.scopes.pop();
+    }
+
+    /// Records nodes inside a scope for the duration of `body`.
+    pub fn scoped<T>(&mut self, name: &str, body: impl FnOnce(&mut Tape) -> T) -> T {
+        self.push_scope(name);
+        let result = body(self);
+        self.pop_scope();
+        result
+    }
+
+    /// The recorded forward value of `var`.
+    pub fn value(&self, var: Var) -> &Value {
+        &self.values[var.0]
+    }
+
+    /// The id `var` was recorded under.
+    pub fn id(&self, var: Var) -> &str {
+        &self.nodes[var.0].id.0
+    }
+
+    /// Gives `var` a readable id in place of the generated one. Consumers
+    /// recorded after this see the new id; earlier references are updated.
+    pub fn rename(&mut self, var: Var, id: &str) -> Var {
+        let old = std::mem::replace(&mut self.nodes[var.0].id, NodeId(id.to_string()));
+        for node in &mut self.nodes[var.0 + 1..] {
+            for input in &mut node.inputs {
+                if *input == old {
+                    *input = NodeId(id.to_string());
+                }
+            }
+        }
+        var
+    }
+
+    /// Number of nodes recorded.
+    pub fn len(&self) -> usize {
+        self.nodes.len()
+    }
+
+    /// True before anything is recorded.
+    pub fn is_empty(&self) -> bool {
+        self.nodes.is_empty()
+    }
+
+    fn push(&mut self, id: Option<&str>, op: &str, inputs: &[Var], value: Value, extras: Extras, location: &Location) -> Var {
+        let Extras { attrs, partials } = extras;
+        let index = self.nodes.len();
+        let id = id.map_or_else(|| format!("{op}_{index}"), str::to_string);
+        self.nodes.push(NodeFile {
+            id: NodeId(id),
+            op: op.to_string(),
+            inputs: inputs.iter().map(|input| self.nodes[input.0].id.clone()).collect(),
+            group: self.scopes.join("/"),
+            site: Some(site(location)),
+            value: value_repr(&value),
+            attrs,
+            partials,
+            reported: None,
+        });
+        self.values.push(value);
+        Var(index)
+    }
+
+    fn leaf(&mut self, op: Op, name: &str, value: Value, location: &Location) -> Var {
+        let value = value.map(|x| self.dtype.round(x));
+        self.push(Some(name), op.name(), &[], value, Extras::default(), location)
+    }
+
+    /// Records data fed to the step.
+    #[track_caller]
+    pub fn input(&mut self, name: &str, value: impl Into<Value>) -> Var {
+        self.leaf(Op::Input, name, value.into(), Location::caller())
+    }
+
+    /// Records a trainable parameter.
+    #[track_caller]
+    pub fn param(&mut self, name: &str, value: impl Into<Value>) -> Var {
+        self.leaf(Op::Param, name, value.into(), Location::caller())
+    }
+
+    /// Records a constant.
+    #[track_caller]
+    pub fn constant(&mut self, name: &str, value: impl Into<Value>) -> Var {
+        self.leaf(Op::Const, name, value.into(), Location::caller())
+    }
+
+    /// Records a catalog op, computing its value with the op table.
+    #[track_caller]
+    pub fn apply(&mut self, op: Op, inputs: &[Var], attrs: Attrs) -> Result<Var, RecordError> {
+        self.apply_at(op, inputs, attrs, Location::caller())
+    }
+
+    fn apply_at(&mut self, op: Op, inputs: &[Var], attrs: Attrs, location: &Location) -> Result<Var, RecordError> {
+        let error = |message: String| RecordError { op: op.name().to_string(), site: site(location), message };
+        if op.is_leaf() || op == Op::Custom {
+            return Err(error("use input, param, constant or custom to record this node".to_string()));
+        }
+        let spec = op.spec();
+        if !spec.arity.accepts(inputs.len()) {
+            return Err(error(format!("takes {}, got {}", spec.arity, inputs.len())));
+        }
+        if let Some(missing) = spec.required.iter().find(|attr| !attr.is_set(&attrs)) {
+            return Err(error(format!("needs the attribute `{}`", missing.as_str())));
+        }
+        let values: Vec<&Value> = inputs.iter().map(|input| &self.values[input.0]).collect();
+        let shapes: Vec<&[usize]> = values.iter().map(|value| value.shape()).collect();
+        ops::infer_shape(op, &shapes, &attrs).map_err(error)?;
+        let value = ops::forward(op, &values, &attrs, self.dtype);
+        Ok(self.push(None, op.name(), inputs, value, Extras { attrs, partials: Vec::new() }, location))
+    }
+
+    /// Records an op outside the catalog, with the forward value and the
+    /// partial on every input edge computed by the caller.
+    #[track_caller]
+    pub fn custom(&mut self, name: &str, inputs: &[Var], value: impl Into<Value>, partials: Vec<PartialRepr>) -> Result<Var, RecordError> {
+        let location = Location::caller();
+        if Op::from_name(name).is_some() {
+            return Err(RecordError { op: name.to_string(), site: site(location), message: "is a catalog op; use apply".to_string() });
+        }
+        if partials.len() != inputs.len() || partials.contains(&PartialRepr::Absent) {
+            return Err(RecordError {
+                op: name.to_string(),
+                site: site(location),
+                message: "a custom op needs a partial on every input edge".to_string(),
+            });
+        }
+        let value = value.into().map(|x| self.dtype.round(x));
+        Ok(self.push(None, name, inputs, value, Extras { attrs: Attrs::default(), partials }, location))
+    }
+
+    /// Finishes the recording with `output` as the seeded node.
+    pub fn finish(self, output: Var) -> TraceFile {
+        TraceFile {
+            format: FORMAT_VERSION,
+            title: self.title,
+            description: self.description,
+            dtype: self.dtype,
+            output: self.nodes[output.0].id.clone(),
+            seed: None,
+            nodes: self.nodes,
+        }
+    }
+}
+
+macro_rules! op_methods {
+    ($($(#[$doc:meta])* $method:ident => $op:ident ( $($arg:ident),* );)*) => {
+        impl Tape {
+            $(
+                $(#[$doc])*
+                #[track_caller]
+                pub fn $method(&mut self, $($arg: Var),*) -> Var {
+                    let location = Location::caller();
+                    self.apply_at(Op::$op, &[$($arg),*], Attrs::default(), location).unwrap_or_else(|error| panic!("{error}"))
+                }
+            )*
+        }
+    };
+}
+
+op_methods! {
+    /// a + b (broadcast). Panics if the shapes do not broadcast.
+    add => Add(a, b);
+    /// a − b (broadcast).
+    sub => Sub(a, b);
+    /// a · b (broadcast).
+    mul => Mul(a, b);
+    /// a / b (broadcast).
+    div => Div(a, b);
+    /// −x.
+    neg => Neg(x);
+    /// eˣ.
+    exp => Exp(x);
+    /// ln x.
+    log => Log(x);
+    /// √x.
+    sqrt => Sqrt(x);
+    /// |x|.
+    abs => Abs(x);
+    /// sin x.
+    sin => Sin(x);
+    /// cos x.
+    cos => Cos(x);
+    /// tanh x.
+    tanh => Tanh(x);
+    /// σ(x).
+    sigmoid => Sigmoid(x);
+    /// max(x, 0).
+    relu => Relu(x);
+    /// a @ b.
+    matmul => Matmul(a, b);
+    /// Mean squared error.
+    mse => Mse(prediction, target);
+}

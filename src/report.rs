@@ -1,0 +1,268 @@
+//! The check report: counts, every parameter's gradient and the flags of a
+//! finished sweep, as text for people and as JSON for CI scripts.
+//!
+//! JSON fields (stable; documented in README): `report` (schema version, 1),
+//! `trace` {`path`, `title`, `dtype`}, `counts` {`nodes`, `edges`, `groups`,
+//! `params`, `swept`, `unreached`}, `gradients` [{`id`, `group`, `shape`,
+//! `norm`, `min`, `max`, `non_finite`, `reaches_output`}], `flags` [{`step`,
+//! `node`, `op`, `kind`, `value`, `element`, `count`, `slot`, `from`,
+//! `first`}], `clean`. Non-finite numbers are the strings "NaN", "inf", "-inf".
+
+use crate::format::{compact, shape as show};
+use crate::stats::Summary;
+use crate::sweep::{Flag, FlagKind, Sweep};
+use crate::trace::{Num, Trace};
+use serde::Serialize;
+
+/// Version of the JSON report's schema.
+pub const REPORT_VERSION: u32 = 1;
+
+/// Everything `ebb check` reports.
+#[derive(Debug, Clone, Serialize)]
+pub struct Report {
+    /// Schema version of this report.
+    pub report: u32,
+    /// Which trace.
+    pub trace: TraceInfo,
+    /// Sizes.
+    pub counts: Counts,
+    /// One entry per parameter, in recording order.
+    pub gradients: Vec<Gradient>,
+    /// Flags in sweep order; the first is marked.
+    pub flags: Vec<FlagEntry>,
+    /// True when nothing was flagged.
+    pub clean: bool,
+}
+
+/// The trace's header.
+#[derive(Debug, Clone, Serialize)]
+pub struct TraceInfo {
+    /// The path as given.
+    pub path: String,
+    /// Title.
+    pub title: String,
+    /// dtype of the run.
+    pub dtype: String,
+}
+
+/// Sizes of the trace and the sweep.
+#[derive(Debug, Clone, Serialize)]
+pub struct Counts {
+    /// Nodes.
+    pub nodes: usize,
+    /// Edges.
+    pub edges: usize,
+    /// Distinct groups.
+    pub groups: usize,
+    /// Parameters.
+    pub params: usize,
+    /// Nodes the sweep processed (those reaching the output).
+    pub swept: usize,
+    /// Nodes that do not reach the output.
+    pub unreached: usize,
+}
+
+/// One parameter's gradient.
+#[derive(Debug, Clone, Serialize)]
+pub struct Gradient {
+    /// Node id.
+    pub id: String,
+    /// Group.
+    pub group: String,
+    /// Shape.
+    pub shape: Vec<usize>,
+    /// L2 norm.
+    pub norm: Num,
+    /// Smallest finite entry.
+    pub min: Num,
+    /// Largest finite entry.
+    pub max: Num,
+    /// NaN and ±inf entries.
+    pub non_finite: usize,
+    /// False when the parameter does not reach the output (no gradient).
+    pub reaches_output: bool,
+}
+
+/// One flag.
+#[derive(Debug, Clone, Serialize)]
+pub struct FlagEntry {
+    /// 1-based step.
+    pub step: usize,
+    /// Node id.
+    pub node: String,
+    /// The node's op name.
+    pub op: String,
+    /// What was found.
+    pub kind: FlagKind,
+    /// First offending value.
+    pub value: Num,
+    /// Its flat index.
+    pub element: usize,
+    /// Offending elements.
+    pub count: usize,
+    /// Input slot of the edge, where one is involved.
+    pub slot: Option<usize>,
+    /// For an adjoint, the consumer whose contribution made it non-finite.
+    pub from: Option<String>,
+    /// True for the first flag of the sweep.
+    pub first: bool,
+}
+
+impl Report {
+    /// Builds the report of `sweep` (normally run to the end) of the trace at `path`.
+    pub fn new(path: &str, sweep: &Sweep) -> Report {
+        let trace = sweep.trace();
+        let dtype = trace.dtype();
+        let gradients = trace
+            .params()
+            .map(|node| {
+                let recorded = trace.node(node);
+                let shape = recorded.value.shape().to_vec();
+                match sweep.adjoint(node) {
+                    Some(adjoint) => {
+                        let summary = Summary::of(adjoint.data(), dtype);
+                        Gradient {
+                            id: recorded.id.clone(),
+                            group: recorded.group.clone(),
+                            shape,
+                            norm: Num(summary.norm),
+                            min: Num(summary.min),
+                            max: Num(summary.max),
+                            non_finite: summary.non_finite(),
+                            reaches_output: true,
+                        }
+                    }
+                    None => Gradient {
+                        id: recorded.id.clone(),
+                        group: recorded.group.clone(),
+                        shape,
+                        norm: Num(0.0),
+                        min: Num(0.0),
+                        max: Num(0.0),
+                        non_finite: 0,
+                        reaches_output: false,
+                    },
+                }
+            })
+            .collect();
+        let flags: Vec<FlagEntry> = sweep.flags().iter().enumerate().map(|(k, flag)| flag_entry(trace, flag, k == 0)).collect();
+        Report {
+            report: REPORT_VERSION,
+            trace: TraceInfo { path: path.to_string(), title: trace.title().to_string(), dtype: dtype.name().to_string() },
+            counts: Counts {
+                nodes: trace.nodes().len(),
+                edges: trace.edge_count(),
+                groups: trace.groups().len(),
+                params: trace.params().count(),
+                swept: sweep.cursor(),
+                unreached: trace.unreached().count(),
+            },
+            gradients,
+            clean: flags.is_empty(),
+            flags,
+        }
+    }
+
+    /// The report as pretty JSON.
+    pub fn to_json(&self) -> String {
+        serde_json::to_string_pretty(self).expect("a report always serialises")
+    }
+
+    /// The report as text.
+    pub fn to_text(&self) -> String {
+        let mut out = String::new();
+        let c = &self.counts;
+        out.push_str(&format!("trace    {}  \"{}\"  ({})\n", self.trace.path, self.trace.title, self.trace.dtype));
+        out.push_str(&format!(
+            "counts   {} nodes, {} edges, {} groups, {} params; swept {} of {} nodes",
+            c.nodes, c.edges, c.groups, c.params, c.swept, c.nodes
+        ));
+        if c.unreached > 0 {
+            out.push_str(&format!(" ({} do not reach the output)", c.unreached));
+        }
+        out.push('\n');
+        out.push_str(&self.gradients_text());
+        out.push_str(&self.flags_text());
+        out
+    }
+
+    fn gradients_text(&self) -> String {
+        if self.gradients.is_empty() {
+            return "gradients  none (the trace has no param nodes)\n".to_string();
+        }
+        let rows: Vec<[String; 6]> = self
+            .gradients
+            .iter()
+            .map(|g| {
+                if !g.reaches_output {
+                    return [g.id.clone(), show(&g.shape), "—".into(), "—".into(), "—".into(), "does not reach the output".into()];
+                }
+                [g.id.clone(), show(&g.shape), compact(g.norm.0), compact(g.min.0), compact(g.max.0), g.non_finite.to_string()]
+            })
+            .collect();
+        table("gradients", ["param", "shape", "L2 norm", "min", "max", "non-finite"], &rows)
+    }
+
+    fn flags_text(&self) -> String {
+        if self.flags.is_empty() {
+            return "flags    none: every value, partial and adjoint is finite\n".to_string();
+        }
+        let mut out = format!("flags    {} in sweep order (* first)\n", self.flags.len());
+        for flag in &self.flags {
+            let marker = if flag.first { '*' } else { ' ' };
+            out.push_str(&format!("  {marker} step {:<5} {:<12} {}\n", flag.step, format!("'{}'", flag.node), describe(flag)));
+        }
+        out
+    }
+}
+
+/// One line saying what a flag found.
+fn describe(flag: &FlagEntry) -> String {
+    let place = if flag.count > 1 { format!(" ({} elements; first at element {})", flag.count, flag.element) } else { String::new() };
+    match flag.kind {
+        FlagKind::NonFiniteValue => format!("({}) forward value is {}{place}", flag.op, compact(flag.value.0)),
+        FlagKind::NonFinitePartial => {
+            format!("({}) partial on input edge {} is {}", flag.op, flag.slot.unwrap_or(0), compact(flag.value.0))
+        }
+        FlagKind::NonFiniteAdjoint => match &flag.from {
+            Some(from) => format!("({}) adjoint became {} from the contribution of '{from}'{place}", flag.op, compact(flag.value.0)),
+            None => format!("({}) seed is {}{place}", flag.op, compact(flag.value.0)),
+        },
+    }
+}
+
+fn flag_entry(trace: &Trace, flag: &Flag, first: bool) -> FlagEntry {
+    let node = trace.node(flag.node);
+    FlagEntry {
+        step: flag.step + 1,
+        node: node.id.clone(),
+        op: node.op_name.clone(),
+        kind: flag.kind,
+        value: Num(flag.value),
+        element: flag.element,
+        count: flag.count,
+        slot: flag.slot,
+        from: flag.from.map(|from| trace.node(from).id.clone()),
+        first,
+    }
+}
+
+/// A titled, left-aligned text table.
+fn table<const N: usize>(title: &str, header: [&str; N], rows: &[[String; N]]) -> String {
+    let mut widths = header.map(str::len);
+    for row in rows {
+        for (width, cell) in widths.iter_mut().zip(row) {
+            *width = (*width).max(cell.chars().count());
+        }
+    }
+    let line = |cells: Vec<&str>| {
+        let padded: Vec<String> = cells.iter().zip(&widths).map(|(cell, &width)| format!("{cell:<width$}")).collect();
+        format!("  {}\n", padded.join("  ").trim_end())
+    };
+    let mut out = format!("{title}\n");
+    out.push_str(&line(header.to_vec()));
+    for row in rows {
+        out.push_str(&line(row.iter().map(String::as_str).collect()));
+    }
+    out
+}

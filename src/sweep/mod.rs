@@ -1,0 +1,247 @@
+//! The reverse sweep as a steppable state machine: `step` processes the next
+//! node of the reverse topological order, `back` undoes it bit-exactly, and
+//! the adjoints, the ledger and the flags can be read at any point.
+
+mod flags;
+mod ledger;
+mod pullback;
+
+pub use flags::{Flag, FlagKind};
+pub use ledger::{Contribution, Ledger};
+pub use pullback::{Pulled, accumulate, pull_back};
+
+use crate::tensor::Value;
+use crate::trace::Trace;
+
+/// Whether the sweep keeps its ledger.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum LedgerMode {
+    /// Keep every contribution; `back` pops the ledger.
+    On,
+    /// Keep nothing for a fast full sweep; `back` replays from the start.
+    Off,
+}
+
+/// The state of one reverse sweep over a trace.
+#[derive(Debug, Clone)]
+pub struct Sweep<'t> {
+    trace: &'t Trace,
+    /// Number of steps done; `trace.sweep_order()[cursor]` is next.
+    cursor: usize,
+    adjoints: Vec<Option<Value>>,
+    ledger: Option<Ledger>,
+    flags: Vec<Flag>,
+    /// Flags raised by the seed itself, before any step; never undone.
+    seed_flags: usize,
+}
+
+impl<'t> Sweep<'t> {
+    /// A sweep at its start: only the output holds an adjoint, the seed.
+    pub fn new(trace: &'t Trace, mode: LedgerMode) -> Sweep<'t> {
+        let mut adjoints = vec![None; trace.nodes().len()];
+        adjoints[trace.output()] = Some(trace.seed().clone());
+        let ledger = (mode == LedgerMode::On).then(|| Ledger::new(trace.nodes().len()));
+        let flags: Vec<Flag> = Flag::for_value(0, trace.output(), FlagKind::NonFiniteAdjoint, trace.seed()).into_iter().collect();
+        Sweep { trace, cursor: 0, adjoints, ledger, seed_flags: flags.len(), flags }
+    }
+
+    /// The trace being swept.
+    pub fn trace(&self) -> &'t Trace {
+        self.trace
+    }
+
+    /// Steps done so far.
+    pub fn cursor(&self) -> usize {
+        self.cursor
+    }
+
+    /// Total steps: the number of nodes that reach the output.
+    pub fn len(&self) -> usize {
+        self.trace.sweep_order().len()
+    }
+
+    /// True when the trace has no step (never: the output itself is one).
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// True when every step is done.
+    pub fn is_done(&self) -> bool {
+        self.cursor == self.len()
+    }
+
+    /// The node the next step will process.
+    pub fn current(&self) -> Option<usize> {
+        self.trace.sweep_order().get(self.cursor).copied()
+    }
+
+    /// The node the last step processed.
+    pub fn last_done(&self) -> Option<usize> {
+        self.cursor.checked_sub(1).map(|step| self.trace.sweep_order()[step])
+    }
+
+    /// True when `node` has been processed: its adjoint is final and has been pulled back.
+    pub fn is_finished(&self, node: usize) -> bool {
+        self.trace.sweep_rank(node).is_some_and(|rank| rank < self.cursor)
+    }
+
+    /// The adjoint of `node` so far; `None` before its first contribution.
+    pub fn adjoint(&self, node: usize) -> Option<&Value> {
+        self.adjoints[node].as_ref()
+    }
+
+    /// The ledger, when on.
+    pub fn ledger(&self) -> Option<&Ledger> {
+        self.ledger.as_ref()
+    }
+
+    /// The flags raised so far, in the order raised.
+    pub fn flags(&self) -> &[Flag] {
+        &self.flags
+    }
+
+    /// The consumers of `node` that reach the output and have not been
+    /// processed yet: the contributions still to come, in sweep order.
+    pub fn pending_consumers(&self, node: usize) -> Vec<(usize, usize)> {
+        let mut pending: Vec<(usize, usize)> = self
+            .trace
+            .consumers(node)
+            .into_iter()
+            .filter(|&(consumer, _)| self.trace.sweep_rank(consumer).is_some_and(|rank| rank >= self.cursor))
+            .collect();
+        pending.sort_by_key(|&(consumer, _)| self.trace.sweep_rank(consumer));
+        pending
+    }
+
+    /// Processes the next node: pulls its adjoint back along every input edge
+    /// and adds each contribution to that input's adjoint. Returns the node,
+    /// or `None` when the sweep is done.
+    pub fn step(&mut self) -> Option<usize> {
+        let node = self.current()?;
+        let step = self.cursor;
+        let trace = self.trace;
+        let dtype = trace.dtype();
+        let recorded = trace.node(node);
+        if let Some(flag) = Flag::for_value(step, node, FlagKind::NonFiniteValue, &recorded.value) {
+            self.flags.push(flag);
+        }
+        if let Some(ledger) = &mut self.ledger {
+            ledger.begin_step();
+        }
+        let adjoint = self.adjoints[node].take().expect("a node's consumers are swept before it, so it holds an adjoint");
+        for (slot, &input) in recorded.inputs.iter().enumerate() {
+            let pulled = pull_back(trace, node, slot, &adjoint);
+            if let Some(bad) = pulled.bad_partial {
+                self.flags.push(Flag {
+                    step,
+                    node,
+                    kind: FlagKind::NonFinitePartial,
+                    slot: Some(slot),
+                    from: None,
+                    element: 0,
+                    value: bad,
+                    count: 1,
+                });
+            }
+            let before = self.adjoints[input].take();
+            let after = accumulate(before.as_ref(), &pulled.contribution, dtype);
+            if before.as_ref().is_none_or(Value::is_finite)
+                && let Some(mut flag) = Flag::for_value(step, input, FlagKind::NonFiniteAdjoint, &after)
+            {
+                flag.slot = Some(slot);
+                flag.from = Some(node);
+                self.flags.push(flag);
+            }
+            match &mut self.ledger {
+                Some(ledger) => {
+                    self.adjoints[input] = Some(after.clone());
+                    ledger.record(Contribution {
+                        step,
+                        consumer: node,
+                        input,
+                        slot,
+                        value: pulled.contribution,
+                        before,
+                        after,
+                        previous: 0,
+                    });
+                }
+                None => self.adjoints[input] = Some(after),
+            }
+        }
+        self.adjoints[node] = Some(adjoint);
+        self.cursor += 1;
+        Some(node)
+    }
+
+    /// Undoes the last step bit-exactly. Returns false at the start.
+    pub fn back(&mut self) -> bool {
+        if self.cursor == 0 {
+            return false;
+        }
+        let target = self.cursor - 1;
+        match &mut self.ledger {
+            Some(ledger) => {
+                let adjoints = &mut self.adjoints;
+                ledger.pop_step(|entry| adjoints[entry.input] = entry.before);
+                self.cursor = target;
+                while self.flags.len() > self.seed_flags && self.flags.last().is_some_and(|flag| flag.step >= target) {
+                    self.flags.pop();
+                }
+            }
+            None => {
+                self.restart();
+                self.run_steps(target);
+            }
+        }
+        true
+    }
+
+    /// Returns to the start, keeping the ledger mode.
+    pub fn restart(&mut self) {
+        let mode = if self.ledger.is_some() { LedgerMode::On } else { LedgerMode::Off };
+        *self = Sweep::new(self.trace, mode);
+    }
+
+    /// Takes up to `count` steps; returns how many were taken.
+    pub fn run_steps(&mut self, count: usize) -> usize {
+        (0..count).take_while(|_| self.step().is_some()).count()
+    }
+
+    /// Steps until `stop` holds after a step, or the sweep ends. Returns the
+    /// number of steps taken.
+    pub fn run_to(&mut self, mut stop: impl FnMut(&Sweep) -> bool) -> usize {
+        let mut taken = 0;
+        while self.step().is_some() {
+            taken += 1;
+            if stop(self) {
+                break;
+            }
+        }
+        taken
+    }
+
+    /// Steps until a new flag is raised or the sweep ends.
+    pub fn run_to_next_flag(&mut self) -> usize {
+        let seen = self.flags.len();
+        self.run_to(|sweep| sweep.flags.len() > seen)
+    }
+
+    /// Runs every remaining step.
+    pub fn run_to_end(&mut self) -> usize {
+        self.run_to(|_| false)
+    }
+
+    /// Goes back or forward to exactly `cursor` steps done.
+    pub fn seek(&mut self, cursor: usize) {
+        let cursor = cursor.min(self.len());
+        if self.ledger.is_some() {
+            while self.cursor > cursor {
+                self.back();
+            }
+        } else if self.cursor > cursor {
+            self.restart();
+        }
+        self.run_steps(cursor - self.cursor);
+    }
+}

@@ -1,0 +1,111 @@
+//! Forming one contribution: a node's adjoint pulled back through the partial
+//! on one input edge, recorded or derived from the op table.
+
+use crate::ops::{self, VjpArgs};
+use crate::tensor::Value;
+use crate::trace::{Partial, Trace};
+
+/// A contribution and what it revealed about the edge's partial.
+pub struct Pulled {
+    /// The value added to the input's adjoint, in the input's shape.
+    pub contribution: Value,
+    /// The first non-finite entry of the edge's local partial, if any.
+    pub bad_partial: Option<f64>,
+}
+
+/// Pulls `adjoint` (the adjoint of `node`) back along input edge `slot`.
+pub fn pull_back(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
+    let dtype = trace.dtype();
+    let recorded = &trace.node(node);
+    let input_shape = trace.node(recorded.inputs[slot]).value.shape();
+    match &recorded.partials[slot] {
+        Some(Partial::Scalar(s)) => Pulled {
+            contribution: ops::scale_and_reduce(adjoint, &Value::Scalar(*s), input_shape, dtype),
+            bad_partial: (!s.is_finite()).then_some(*s),
+        },
+        Some(Partial::Diagonal(diagonal)) => Pulled {
+            contribution: ops::scale_and_reduce(adjoint, diagonal, input_shape, dtype),
+            bad_partial: diagonal.first_non_finite().map(|(_, x)| x),
+        },
+        Some(Partial::Jacobian { rows, cols, data }) => Pulled {
+            contribution: jacobian_transpose_product(adjoint, *rows, *cols, data, input_shape, dtype),
+            bad_partial: data.iter().copied().find(|x| !x.is_finite()),
+        },
+        None => derived(trace, node, slot, adjoint),
+    }
+}
+
+/// x̄ⱼ = Σᵢ ḡᵢ Jᵢⱼ, rounded after every product and sum.
+fn jacobian_transpose_product(
+    adjoint: &Value,
+    rows: usize,
+    cols: usize,
+    data: &[f64],
+    shape: &[usize],
+    dtype: crate::dtype::Dtype,
+) -> Value {
+    let g = adjoint.data();
+    let mut out = vec![0.0; cols];
+    for (j, slot) in out.iter_mut().enumerate() {
+        let mut sum: Option<f64> = None;
+        for i in 0..rows {
+            let product = dtype.round(g[i] * data[i * cols + j]);
+            sum = Some(sum.map_or(product, |s| dtype.round(s + product)));
+        }
+        *slot = sum.unwrap_or(0.0);
+    }
+    Value::from_parts(shape.to_vec(), out)
+}
+
+/// The contribution from the op's own rule.
+fn derived(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
+    let dtype = trace.dtype();
+    let recorded = trace.node(node);
+    // Scalar fast path: no allocation for scalar traces.
+    if let Value::Scalar(g) = adjoint
+        && recorded.inputs.len() <= 2
+    {
+        let mut scalars = [0.0f64; 2];
+        let all_scalar = recorded.inputs.iter().zip(scalars.iter_mut()).all(|(&input, out)| match trace.node(input).value {
+            Value::Scalar(x) => {
+                *out = x;
+                true
+            }
+            Value::Tensor(_) => false,
+        });
+        if all_scalar
+            && let Value::Scalar(y) = recorded.value
+            && let Some(partial) = ops::scalar_partial(recorded.op, slot, &scalars, y, &recorded.attrs, dtype)
+        {
+            return Pulled {
+                contribution: Value::Scalar(dtype.round(g * partial)),
+                bad_partial: (!partial.is_finite()).then_some(partial),
+            };
+        }
+    }
+    let inputs: Vec<&Value> = recorded.inputs.iter().map(|&input| &trace.node(input).value).collect();
+    if let Some(partial) = ops::elementwise_partial(recorded.op, slot, &inputs, &recorded.value, &recorded.attrs, dtype) {
+        let input_shape = inputs[slot].shape();
+        return Pulled {
+            contribution: ops::scale_and_reduce(adjoint, &partial, input_shape, dtype),
+            bad_partial: partial.first_non_finite().map(|(_, x)| x),
+        };
+    }
+    let args = VjpArgs { slot, inputs: &inputs, output: &recorded.value, adjoint, attrs: &recorded.attrs, dtype };
+    // A structured op's partials are its recorded forward values, checked as values.
+    Pulled { contribution: ops::vjp(recorded.op, &args), bad_partial: None }
+}
+
+/// Adds a contribution to an adjoint, rounding into the dtype. The first
+/// contribution becomes the adjoint as it is, as frameworks assign the first
+/// gradient rather than adding it to zero (which would turn −0 into +0).
+pub fn accumulate(before: Option<&Value>, contribution: &Value, dtype: crate::dtype::Dtype) -> Value {
+    match (before, contribution) {
+        (None, _) => contribution.clone(),
+        (Some(Value::Scalar(a)), Value::Scalar(c)) => Value::Scalar(dtype.round(a + c)),
+        (Some(before), _) => {
+            let data = before.data().iter().zip(contribution.data()).map(|(&a, &c)| dtype.round(a + c)).collect();
+            Value::from_parts(before.shape().to_vec(), data)
+        }
+    }
+}

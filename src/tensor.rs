@@ -1,0 +1,294 @@
+//! Values held by nodes, partials and adjoints: a scalar or a row-major tensor,
+//! plus the shape arithmetic (NumPy broadcasting, axes) the op rules share.
+
+use std::fmt;
+
+/// A scalar or a dense row-major tensor of `f64`s.
+///
+/// A rank-0 value is always `Scalar`: scalar traces, the common case for
+/// teaching and for million-node chains, never allocate.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Value {
+    /// A rank-0 value.
+    Scalar(f64),
+    /// A tensor of rank one or more (boxed, so a `Value` is two words).
+    Tensor(Box<Tensor>),
+}
+
+/// A dense tensor of rank one or more, row-major.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Tensor {
+    shape: Vec<usize>,
+    data: Vec<f64>,
+}
+
+impl Tensor {
+    /// The tensor's shape.
+    pub fn shape(&self) -> &[usize] {
+        &self.shape
+    }
+
+    /// The elements in row-major order.
+    pub fn data(&self) -> &[f64] {
+        &self.data
+    }
+}
+
+impl Value {
+    /// Builds a value from a shape and row-major data; an empty shape gives a scalar.
+    ///
+    /// # Panics
+    /// If `data.len()` differs from the product of `shape` (callers validate first).
+    pub fn from_parts(shape: Vec<usize>, data: Vec<f64>) -> Value {
+        assert_eq!(numel(&shape), data.len(), "data length must match shape");
+        if shape.is_empty() { Value::Scalar(data[0]) } else { Value::Tensor(Box::new(Tensor { shape, data })) }
+    }
+
+    /// A value of `shape` with every element equal to `x`.
+    pub fn filled(shape: &[usize], x: f64) -> Value {
+        if shape.is_empty() { Value::Scalar(x) } else { Value::from_parts(shape.to_vec(), vec![x; numel(shape)]) }
+    }
+
+    /// The shape; empty for a scalar.
+    pub fn shape(&self) -> &[usize] {
+        match self {
+            Value::Scalar(_) => &[],
+            Value::Tensor(t) => &t.shape,
+        }
+    }
+
+    /// The elements in row-major order (one for a scalar).
+    pub fn data(&self) -> &[f64] {
+        match self {
+            Value::Scalar(x) => std::slice::from_ref(x),
+            Value::Tensor(t) => &t.data,
+        }
+    }
+
+    /// Mutable access to the elements.
+    pub fn data_mut(&mut self) -> &mut [f64] {
+        match self {
+            Value::Scalar(x) => std::slice::from_mut(x),
+            Value::Tensor(t) => &mut t.data,
+        }
+    }
+
+    /// Number of elements.
+    pub fn len(&self) -> usize {
+        self.data().len()
+    }
+
+    /// True when the value has no elements (a tensor with a zero dimension).
+    pub fn is_empty(&self) -> bool {
+        self.data().is_empty()
+    }
+
+    /// The single element of a scalar, or of a one-element tensor.
+    pub fn as_scalar(&self) -> Option<f64> {
+        match self.data() {
+            [x] => Some(*x),
+            _ => None,
+        }
+    }
+
+    /// Applies `f` to every element, keeping the shape.
+    pub fn map(&self, f: impl Fn(f64) -> f64) -> Value {
+        match self {
+            Value::Scalar(x) => Value::Scalar(f(*x)),
+            Value::Tensor(t) => Value::Tensor(Box::new(Tensor { shape: t.shape.clone(), data: t.data.iter().map(|&x| f(x)).collect() })),
+        }
+    }
+
+    /// The same elements under another shape of equal size.
+    pub fn reshaped(&self, shape: &[usize]) -> Value {
+        Value::from_parts(shape.to_vec(), self.data().to_vec())
+    }
+
+    /// True when every element is finite.
+    pub fn is_finite(&self) -> bool {
+        self.data().iter().all(|x| x.is_finite())
+    }
+
+    /// The first non-finite element, if any, with its flat index.
+    pub fn first_non_finite(&self) -> Option<(usize, f64)> {
+        self.data().iter().copied().enumerate().find(|(_, x)| !x.is_finite())
+    }
+
+    /// Euclidean norm of all elements, computed in f64 with scaling so that it
+    /// does not overflow for large finite entries.
+    pub fn l2_norm(&self) -> f64 {
+        l2_norm(self.data())
+    }
+}
+
+impl From<f64> for Value {
+    fn from(x: f64) -> Value {
+        Value::Scalar(x)
+    }
+}
+
+/// Euclidean norm with a running scale (the method of LAPACK's `dnrm2`,
+/// Anderson et al., LAPACK Users' Guide, 3rd ed., SIAM 1999), so squares of
+/// large entries cannot overflow. NaN propagates; an infinite entry gives inf.
+pub fn l2_norm(data: &[f64]) -> f64 {
+    let mut scale = 0.0f64;
+    let mut sum_sq = 1.0f64;
+    for &x in data {
+        if x.is_nan() {
+            return f64::NAN;
+        }
+        if x.is_infinite() {
+            return f64::INFINITY;
+        }
+        if x != 0.0 {
+            let a = x.abs();
+            if scale < a {
+                sum_sq = 1.0 + sum_sq * (scale / a) * (scale / a);
+                scale = a;
+            } else {
+                sum_sq += (a / scale) * (a / scale);
+            }
+        }
+    }
+    scale * sum_sq.sqrt()
+}
+
+impl fmt::Display for Value {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Value::Scalar(x) => write!(f, "{}", crate::format::number(*x)),
+            Value::Tensor(t) => write!(f, "tensor{}", crate::format::shape(&t.shape)),
+        }
+    }
+}
+
+/// Product of the dimensions (1 for a scalar).
+pub fn numel(shape: &[usize]) -> usize {
+    shape.iter().product()
+}
+
+/// The NumPy broadcast of two shapes, or `None` when they do not fit.
+pub fn broadcast_shapes(a: &[usize], b: &[usize]) -> Option<Vec<usize>> {
+    let rank = a.len().max(b.len());
+    let mut out = vec![0; rank];
+    for (k, slot) in out.iter_mut().enumerate() {
+        let da = dim_from_right(a, rank - 1 - k);
+        let db = dim_from_right(b, rank - 1 - k);
+        *slot = match (da, db) {
+            (x, y) if x == y => x,
+            (1, y) => y,
+            (x, 1) => x,
+            _ => return None,
+        };
+    }
+    Some(out)
+}
+
+fn dim_from_right(shape: &[usize], from_right: usize) -> usize {
+    if from_right < shape.len() { shape[shape.len() - 1 - from_right] } else { 1 }
+}
+
+/// Row-major strides of `shape`.
+pub fn strides(shape: &[usize]) -> Vec<usize> {
+    let mut strides = vec![1; shape.len()];
+    for k in (0..shape.len().saturating_sub(1)).rev() {
+        strides[k] = strides[k + 1] * shape[k + 1];
+    }
+    strides
+}
+
+/// For every flat index of `out_shape`, the flat index of the element of a
+/// value of `in_shape` that NumPy broadcasting reads there.
+///
+/// `in_shape` must broadcast to `out_shape`.
+pub fn broadcast_source_indices(in_shape: &[usize], out_shape: &[usize]) -> Vec<usize> {
+    let total = numel(out_shape);
+    if in_shape == out_shape {
+        return (0..total).collect();
+    }
+    if numel(in_shape) == 1 {
+        return vec![0; total];
+    }
+    let rank = out_shape.len();
+    let in_strides = strides(in_shape);
+    // Stride of the input along each output axis; 0 where the input broadcasts.
+    let mut step = vec![0usize; rank];
+    for k in 0..rank {
+        let offset = rank - in_shape.len();
+        if k >= offset && in_shape[k - offset] != 1 {
+            step[k] = in_strides[k - offset];
+        }
+    }
+    let mut indices = Vec::with_capacity(total);
+    let mut counter = vec![0usize; rank];
+    let mut source = 0usize;
+    for _ in 0..total {
+        indices.push(source);
+        // Odometer increment over the output shape.
+        for k in (0..rank).rev() {
+            counter[k] += 1;
+            source += step[k];
+            if counter[k] < out_shape[k] {
+                break;
+            }
+            source -= step[k] * counter[k];
+            counter[k] = 0;
+        }
+    }
+    indices
+}
+
+/// Resolves a possibly negative axis against a rank, NumPy style.
+pub fn resolve_axis(axis: i64, rank: usize) -> Option<usize> {
+    let rank = rank as i64;
+    let resolved = if axis < 0 { axis + rank } else { axis };
+    (0..rank).contains(&resolved).then_some(resolved as usize)
+}
+
+/// Splits `shape` around `axis` into (outer, length, inner) counts, so the
+/// element at (o, k, i) has flat index `(o * length + k) * inner + i`.
+pub fn split_at_axis(shape: &[usize], axis: usize) -> (usize, usize, usize) {
+    (numel(&shape[..axis]), shape[axis], numel(&shape[axis + 1..]))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // Broadcasting rules: NumPy documentation, "Broadcasting" (numpy.org, user guide).
+    #[test]
+    fn broadcast_shapes_follow_numpy_rules() {
+        assert_eq!(broadcast_shapes(&[8, 1, 6, 1], &[7, 1, 5]), Some(vec![8, 7, 6, 5]));
+        assert_eq!(broadcast_shapes(&[5, 4], &[1]), Some(vec![5, 4]));
+        assert_eq!(broadcast_shapes(&[15, 3, 5], &[3, 1]), Some(vec![15, 3, 5]));
+        assert_eq!(broadcast_shapes(&[3], &[4]), None);
+        assert_eq!(broadcast_shapes(&[2, 1], &[8, 4, 3]), None);
+        assert_eq!(broadcast_shapes(&[], &[2, 3]), Some(vec![2, 3]));
+    }
+
+    #[test]
+    fn source_indices_repeat_broadcast_axes() {
+        assert_eq!(broadcast_source_indices(&[3], &[2, 3]), vec![0, 1, 2, 0, 1, 2]);
+        assert_eq!(broadcast_source_indices(&[2, 1], &[2, 3]), vec![0, 0, 0, 1, 1, 1]);
+        assert_eq!(broadcast_source_indices(&[], &[2, 2]), vec![0, 0, 0, 0]);
+        assert_eq!(broadcast_source_indices(&[1, 3], &[2, 1, 3]).len(), 6);
+        assert_eq!(broadcast_source_indices(&[2, 1, 2], &[2, 3, 2]), vec![0, 1, 0, 1, 0, 1, 2, 3, 2, 3, 2, 3]);
+    }
+
+    #[test]
+    fn axes_resolve_like_numpy() {
+        assert_eq!(resolve_axis(-1, 3), Some(2));
+        assert_eq!(resolve_axis(3, 3), None);
+        assert_eq!(resolve_axis(-4, 3), None);
+        assert_eq!(split_at_axis(&[2, 3, 4], 1), (2, 3, 4));
+    }
+
+    #[test]
+    fn l2_norm_does_not_overflow() {
+        assert_eq!(l2_norm(&[3.0, 4.0]), 5.0);
+        assert!((l2_norm(&[1e300, 1e300]) - 1e300 * 2f64.sqrt()).abs() < 1e286);
+        assert!(l2_norm(&[1.0, f64::NAN]).is_nan());
+        assert_eq!(l2_norm(&[1.0, f64::NEG_INFINITY]), f64::INFINITY);
+        assert_eq!(l2_norm(&[]), 0.0);
+    }
+}

@@ -1,0 +1,101 @@
+//! Errors of reading and validating a trace: every problem one line, naming
+//! the file, the place and what to do.
+
+use std::fmt;
+use std::path::PathBuf;
+
+/// One thing wrong with a trace.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Problem {
+    /// The node at fault, if the problem belongs to one.
+    pub node: Option<String>,
+    /// 1-based line and column in the file, where known.
+    pub position: Option<(usize, usize)>,
+    /// What is wrong.
+    pub message: String,
+    /// What to do about it.
+    pub hint: String,
+}
+
+impl Problem {
+    /// A problem of the trace as a whole.
+    pub fn general(message: impl Into<String>, hint: impl Into<String>) -> Problem {
+        Problem { node: None, position: None, message: message.into(), hint: hint.into() }
+    }
+
+    /// A problem of one node.
+    pub fn at_node(node: &str, message: impl Into<String>, hint: impl Into<String>) -> Problem {
+        Problem { node: Some(node.to_string()), position: None, message: message.into(), hint: hint.into() }
+    }
+}
+
+impl fmt::Display for Problem {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        if let Some((line, column)) = self.position {
+            write!(f, "{line}:{column}: ")?;
+        }
+        if let Some(node) = &self.node {
+            write!(f, "node '{node}': ")?;
+        }
+        write!(f, "{}", self.message)?;
+        if !self.hint.is_empty() {
+            write!(f, " (hint: {})", self.hint)?;
+        }
+        Ok(())
+    }
+}
+
+/// Why a trace could not be loaded.
+#[derive(Debug, thiserror::Error)]
+pub enum LoadError {
+    /// The file could not be read.
+    #[error("{}: cannot read the trace: {source} (hint: check the path and permissions)", path.display())]
+    Io {
+        /// The file.
+        path: PathBuf,
+        /// The I/O error.
+        #[source]
+        source: std::io::Error,
+    },
+    /// The text is not valid RON or JSON of the trace schema.
+    #[error("{}:{line}:{column}: {message} (hint: see traces/FORMAT.md for the schema)", path.display())]
+    Syntax {
+        /// The file.
+        path: PathBuf,
+        /// 1-based line.
+        line: usize,
+        /// 1-based column.
+        column: usize,
+        /// The parser's message.
+        message: String,
+    },
+    /// The file parsed but describes an invalid trace.
+    #[error("{}", render_problems(path, problems))]
+    Invalid {
+        /// The file.
+        path: PathBuf,
+        /// Every problem found, in file order.
+        problems: Vec<Problem>,
+    },
+}
+
+impl LoadError {
+    /// The problems of an invalid trace (empty for other errors).
+    pub fn problems(&self) -> &[Problem] {
+        match self {
+            LoadError::Invalid { problems, .. } => problems,
+            _ => &[],
+        }
+    }
+}
+
+fn render_problems(path: &std::path::Path, problems: &[Problem]) -> String {
+    let lines: Vec<String> = problems
+        .iter()
+        .map(|problem| match problem.position {
+            Some(_) => format!("{}:{problem}", path.display()),
+            None => format!("{}: {problem}", path.display()),
+        })
+        .collect();
+    lines.join("\n")
+}

@@ -1,0 +1,162 @@
+//! Reading and writing trace files: choosing the encoding, parsing RON or
+//! JSON into the schema types, and attaching file positions to problems.
+
+use super::error::{LoadError, Problem};
+use super::model::Trace;
+use super::schema::TraceFile;
+use super::validate::validate;
+use std::path::Path;
+
+/// The two text encodings of the schema.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Encoding {
+    /// Rusty Object Notation.
+    Ron,
+    /// JSON, with non-finite numbers as strings.
+    Json,
+}
+
+impl Encoding {
+    /// The encoding named by a path's extension, if any.
+    pub fn from_path(path: &Path) -> Option<Encoding> {
+        match path.extension()?.to_str()?.to_ascii_lowercase().as_str() {
+            "ron" => Some(Encoding::Ron),
+            "json" => Some(Encoding::Json),
+            _ => None,
+        }
+    }
+
+    /// Guesses from the first significant character: `{` is JSON, anything
+    /// else (`(`, `#![enable(..)]`, comments) RON.
+    pub fn sniff(text: &str) -> Encoding {
+        match text.trim_start().chars().next() {
+            Some('{') => Encoding::Json,
+            _ => Encoding::Ron,
+        }
+    }
+}
+
+/// The RON options Ebb reads and writes with: `implicit_some`, so optional
+/// fields are written bare (`seed: 2.0`, not `seed: Some(2.0)`).
+fn ron_options() -> ron::Options {
+    ron::Options::default().with_default_extension(ron::extensions::Extensions::IMPLICIT_SOME)
+}
+
+/// A syntax error: 1-based line and column, and the parser's message.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct SyntaxError {
+    /// 1-based line.
+    pub line: usize,
+    /// 1-based column.
+    pub column: usize,
+    /// What the parser said.
+    pub message: String,
+}
+
+/// Parses trace text in the given encoding into the schema types.
+pub fn parse(text: &str, encoding: Encoding) -> Result<TraceFile, SyntaxError> {
+    match encoding {
+        Encoding::Ron => ron_options().from_str(text).map_err(|error| SyntaxError {
+            line: error.span.start.line,
+            column: error.span.start.col,
+            message: error.code.to_string(),
+        }),
+        Encoding::Json => serde_json::from_str(text).map_err(|error| {
+            let message = error.to_string();
+            // serde_json appends " at line L column C"; the position is reported separately.
+            let message = message.split(" at line ").next().unwrap_or(&message).to_string();
+            SyntaxError { line: error.line(), column: error.column(), message }
+        }),
+    }
+}
+
+/// Serialises a trace file in the given encoding.
+pub fn to_text(file: &TraceFile, encoding: Encoding) -> String {
+    match encoding {
+        Encoding::Ron => {
+            let pretty = ron::ser::PrettyConfig::new()
+                .extensions(ron::extensions::Extensions::IMPLICIT_SOME)
+                .compact_arrays(true)
+                .indentor("  ".to_string());
+            ron_options().to_string_pretty(file, pretty).expect("the schema types always serialise")
+        }
+        Encoding::Json => serde_json::to_string_pretty(file).expect("the schema types always serialise"),
+    }
+}
+
+/// Parses and validates trace text; `path` only labels errors.
+pub fn load_str(text: &str, encoding: Encoding, path: &Path) -> Result<Trace, LoadError> {
+    let file = parse(text, encoding).map_err(|error| LoadError::Syntax {
+        path: path.to_path_buf(),
+        line: error.line,
+        column: error.column,
+        message: error.message,
+    })?;
+    validate(file).map_err(|mut problems| {
+        for problem in &mut problems {
+            if let Some(node) = &problem.node {
+                problem.position = locate_node(text, node);
+            }
+        }
+        LoadError::Invalid { path: path.to_path_buf(), problems }
+    })
+}
+
+/// Reads, parses and validates a trace file. The encoding comes from the
+/// extension, or from the content when the extension names none.
+pub fn load(path: &Path) -> Result<Trace, LoadError> {
+    let text = std::fs::read_to_string(path).map_err(|source| LoadError::Io { path: path.to_path_buf(), source })?;
+    let encoding = Encoding::from_path(path).unwrap_or_else(|| Encoding::sniff(&text));
+    load_str(&text, encoding, path)
+}
+
+/// The 1-based line and column where node `id` is declared, found by looking
+/// for its `id` field in either encoding. Only used to place error messages.
+fn locate_node(text: &str, id: &str) -> Option<(usize, usize)> {
+    let quoted = format!("\"{id}\"");
+    let mut from = 0;
+    while let Some(found) = text[from..].find(&quoted) {
+        let at = from + found;
+        let before = text[..at].trim_end();
+        if let Some(rest) = before.strip_suffix(':') {
+            let key = rest.trim_end();
+            if key.ends_with("\"id\"") || key.ends_with("(id") || key.ends_with(" id") || key.ends_with("\tid") || key.ends_with("\nid") {
+                let line = text[..at].matches('\n').count() + 1;
+                let line_start = text[..at].rfind('\n').map_or(0, |newline| newline + 1);
+                let key_start = key.rfind(|c: char| c == '"' || c == '(' || c.is_whitespace()).map_or(0, |p| p + 1);
+                let key_start = if key.ends_with("\"id\"") { key.len() - 4 } else { key_start };
+                let column = text[line_start..key_start.max(line_start)].chars().count() + 1;
+                return Some((line, column));
+            }
+        }
+        from = at + quoted.len();
+    }
+    None
+}
+
+/// Problems of a trace that parsed, rendered one per line with the file name.
+pub fn render(path: &Path, problems: &[Problem]) -> String {
+    LoadError::Invalid { path: path.to_path_buf(), problems: problems.to_vec() }.to_string()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn node_positions_are_found_in_both_encodings() {
+        let ron = "(\n  nodes: [\n    (id: \"a\", op: \"input\"),\n    (id: \"b\", op: \"neg\"),\n  ],\n)";
+        assert_eq!(locate_node(ron, "b"), Some((4, 6)));
+        let json = "{\n  \"nodes\": [\n    {\"id\": \"a\"},\n    {\"id\": \"b\"}\n  ]\n}";
+        assert_eq!(locate_node(json, "b"), Some((4, 6)));
+        assert_eq!(locate_node(json, "zz"), None);
+    }
+
+    #[test]
+    fn encodings_are_chosen_by_extension_then_content() {
+        assert_eq!(Encoding::from_path(Path::new("t.JSON")), Some(Encoding::Json));
+        assert_eq!(Encoding::from_path(Path::new("t.trace")), None);
+        assert_eq!(Encoding::sniff("  {\"format\": 1}"), Encoding::Json);
+        assert_eq!(Encoding::sniff("#![enable(implicit_some)]\n("), Encoding::Ron);
+    }
+}

@@ -1,0 +1,167 @@
+//! The checked trace: nodes with resolved inputs, the petgraph graph of the
+//! computation, and the reverse topological order of the nodes that reach the
+//! output. Only the validator builds one, so every invariant below holds.
+
+use crate::dtype::Dtype;
+use crate::ops::{Attrs, Op};
+use crate::tensor::Value;
+use petgraph::Direction;
+use petgraph::graph::{DiGraph, NodeIndex};
+use petgraph::visit::EdgeRef;
+use std::collections::HashMap;
+
+/// A recorded partial on one edge, checked against the edge's shapes.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Partial {
+    /// The same partial for every element.
+    Scalar(f64),
+    /// The Jacobian's diagonal, one entry per output element, in the output's shape.
+    Diagonal(Value),
+    /// A dense Jacobian, `rows` output elements by `cols` input elements, row-major.
+    Jacobian {
+        /// Output elements.
+        rows: usize,
+        /// Input elements.
+        cols: usize,
+        /// Entries, row-major.
+        data: Vec<f64>,
+    },
+}
+
+/// One checked node.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Node {
+    /// Unique id from the file.
+    pub id: String,
+    /// The op; `Op::Custom` for names outside the catalog.
+    pub op: Op,
+    /// The op's name as written (the custom name for custom ops).
+    pub op_name: String,
+    /// Input nodes by index, in argument order; each is earlier in the trace.
+    pub inputs: Vec<usize>,
+    /// Scope path, possibly empty.
+    pub group: String,
+    /// Recording site, `file:line`.
+    pub site: Option<String>,
+    /// Forward value.
+    pub value: Value,
+    /// Attributes.
+    pub attrs: Attrs,
+    /// Recorded partial per input edge, `None` where the op's rule applies.
+    pub partials: Vec<Option<Partial>>,
+    /// The gradient the original framework reported.
+    pub reported: Option<Value>,
+}
+
+/// A validated trace.
+#[derive(Debug, Clone)]
+pub struct Trace {
+    pub(super) title: String,
+    pub(super) description: String,
+    pub(super) dtype: Dtype,
+    pub(super) nodes: Vec<Node>,
+    pub(super) output: usize,
+    pub(super) seed: Value,
+    pub(super) index: HashMap<String, usize>,
+    /// Edges run from input to consumer; edge weight is the input slot.
+    pub(super) graph: DiGraph<(), u32>,
+    pub(super) order: Vec<usize>,
+    pub(super) rank: Vec<u32>,
+}
+
+/// Rank of nodes that do not reach the output.
+pub(super) const UNREACHED: u32 = u32::MAX;
+
+impl Trace {
+    /// The title from the header.
+    pub fn title(&self) -> &str {
+        &self.title
+    }
+
+    /// The free description from the header.
+    pub fn description(&self) -> &str {
+        &self.description
+    }
+
+    /// The dtype of the recorded run.
+    pub fn dtype(&self) -> Dtype {
+        self.dtype
+    }
+
+    /// All nodes in recording order.
+    pub fn nodes(&self) -> &[Node] {
+        &self.nodes
+    }
+
+    /// One node by index.
+    pub fn node(&self, node: usize) -> &Node {
+        &self.nodes[node]
+    }
+
+    /// The output node.
+    pub fn output(&self) -> usize {
+        self.output
+    }
+
+    /// The seed of the output's adjoint.
+    pub fn seed(&self) -> &Value {
+        &self.seed
+    }
+
+    /// The index of a node id.
+    pub fn find(&self, id: &str) -> Option<usize> {
+        self.index.get(id).copied()
+    }
+
+    /// The petgraph graph: one graph node per trace node (same index), edges
+    /// from input to consumer weighted by the input slot.
+    pub fn graph(&self) -> &DiGraph<(), u32> {
+        &self.graph
+    }
+
+    /// Number of edges.
+    pub fn edge_count(&self) -> usize {
+        self.graph.edge_count()
+    }
+
+    /// The nodes that reach the output in reverse topological order: the order
+    /// the reverse sweep visits them. It is the recording order reversed,
+    /// restricted to those nodes, so the output comes first.
+    pub fn sweep_order(&self) -> &[usize] {
+        &self.order
+    }
+
+    /// The position of `node` in [`Trace::sweep_order`], or `None` when it does
+    /// not reach the output (it receives no adjoint).
+    pub fn sweep_rank(&self, node: usize) -> Option<usize> {
+        let rank = self.rank[node];
+        (rank != UNREACHED).then_some(rank as usize)
+    }
+
+    /// Nodes that do not reach the output, in recording order.
+    pub fn unreached(&self) -> impl Iterator<Item = usize> + '_ {
+        (0..self.nodes.len()).filter(|&node| self.rank[node] == UNREACHED)
+    }
+
+    /// The consumers of `node` as (consumer, input slot) pairs, in recording order.
+    pub fn consumers(&self, node: usize) -> Vec<(usize, usize)> {
+        let mut consumers: Vec<(usize, usize)> = self
+            .graph
+            .edges_directed(NodeIndex::new(node), Direction::Outgoing)
+            .map(|edge| (edge.target().index(), *edge.weight() as usize))
+            .collect();
+        consumers.sort_unstable();
+        consumers
+    }
+
+    /// The parameter nodes, in recording order.
+    pub fn params(&self) -> impl Iterator<Item = usize> + '_ {
+        (0..self.nodes.len()).filter(|&node| self.nodes[node].op == Op::Param)
+    }
+
+    /// The distinct groups in order of first appearance (the empty group included).
+    pub fn groups(&self) -> Vec<&str> {
+        let mut seen = std::collections::HashSet::new();
+        self.nodes.iter().map(|node| node.group.as_str()).filter(|group| seen.insert(*group)).collect()
+    }
+}

@@ -1,0 +1,355 @@
+//! Turns a parsed [`TraceFile`] into a checked [`Trace`], collecting every
+//! problem instead of stopping at the first.
+
+use super::error::Problem;
+use super::model::{Node, Partial, Trace, UNREACHED};
+use super::schema::{FORMAT_VERSION, NodeFile, PartialRepr, TraceFile, ValueRepr};
+use crate::format::shape as show;
+use crate::ops::{self, Op};
+use crate::tensor::{Value, broadcast_shapes, numel};
+use petgraph::graph::{DiGraph, NodeIndex};
+use petgraph::visit::{Bfs, Reversed};
+use std::collections::HashMap;
+
+impl TryFrom<TraceFile> for Trace {
+    type Error = Vec<Problem>;
+
+    fn try_from(file: TraceFile) -> Result<Trace, Vec<Problem>> {
+        validate(file)
+    }
+}
+
+/// Checks a parsed trace file and builds the [`Trace`]; on failure returns
+/// every problem found, in file order.
+pub fn validate(file: TraceFile) -> Result<Trace, Vec<Problem>> {
+    let mut problems = Vec::new();
+    if file.format != FORMAT_VERSION {
+        problems.push(Problem::general(
+            format!("unsupported format version {} (this build reads version {FORMAT_VERSION})", file.format),
+            "re-record the trace, or convert it with a matching release of ebb",
+        ));
+    }
+    let index = index_ids(&file.nodes, &mut problems);
+    let mut nodes: Vec<Option<Node>> = Vec::with_capacity(file.nodes.len());
+    // Every resolvable edge, forward ones included, so a cycle can be named.
+    let mut edges = Vec::new();
+    let mut forward_edges = false;
+    for (position, raw) in file.nodes.into_iter().enumerate() {
+        let inputs = resolve_inputs(&raw, position, &index, &mut problems, &mut edges, &mut forward_edges);
+        let checked = inputs.and_then(|inputs| check_node(raw, inputs, &nodes, &mut problems));
+        nodes.push(checked);
+    }
+    let output = resolve_output(&file.output.0, &index, &mut problems);
+    if forward_edges {
+        report_cycles(&nodes, &index, &edges, &mut problems);
+    }
+    if !problems.is_empty() {
+        return Err(problems);
+    }
+    let nodes: Vec<Node> = nodes.into_iter().map(|node| node.expect("a node without problems is checked")).collect();
+    let output = output.expect("output resolved");
+    let seed = match file.seed {
+        None => Value::filled(nodes[output].value.shape(), 1.0),
+        Some(raw) => match checked_value(&raw) {
+            Ok(seed) if seed.shape() == nodes[output].value.shape() => seed,
+            Ok(seed) => {
+                return Err(vec![Problem::general(
+                    format!(
+                        "seed has shape {} but output '{}' has shape {}",
+                        show(seed.shape()),
+                        nodes[output].id,
+                        show(nodes[output].value.shape())
+                    ),
+                    "give a seed of the output's shape, or omit it for ones",
+                )]);
+            }
+            Err(message) => return Err(vec![Problem::general(format!("seed: {message}"), "fix the seed's shape or data")]),
+        },
+    };
+    Ok(build(file.title, file.description, file.dtype, nodes, output, seed, index))
+}
+
+fn index_ids(nodes: &[NodeFile], problems: &mut Vec<Problem>) -> HashMap<String, usize> {
+    let mut index = HashMap::with_capacity(nodes.len());
+    for (position, node) in nodes.iter().enumerate() {
+        if let Some(first) = index.insert(node.id.0.clone(), position) {
+            index.insert(node.id.0.clone(), first);
+            problems.push(Problem::at_node(
+                &node.id.0,
+                format!("duplicate id (node #{position} repeats the id of node #{first})"),
+                "give every node a unique id",
+            ));
+        }
+    }
+    index
+}
+
+fn resolve_inputs(
+    node: &NodeFile,
+    position: usize,
+    index: &HashMap<String, usize>,
+    problems: &mut Vec<Problem>,
+    edges: &mut Vec<(usize, usize)>,
+    forward_edges: &mut bool,
+) -> Option<Vec<usize>> {
+    let mut inputs = Vec::with_capacity(node.inputs.len());
+    let mut ok = true;
+    for input in &node.inputs {
+        let source = index.get(&input.0).copied();
+        if let Some(source) = source {
+            edges.push((source, position));
+        }
+        match source.as_ref() {
+            None => {
+                problems.push(Problem::at_node(
+                    &node.id.0,
+                    format!("unknown input id '{input}'"),
+                    "every input must be the id of a node in this trace",
+                ));
+                ok = false;
+            }
+            Some(&source) if source >= position => {
+                *forward_edges = true;
+                let what = if source == position { "itself".to_string() } else { format!("'{input}', recorded later (node #{source})") };
+                problems.push(Problem::at_node(
+                    &node.id.0,
+                    format!("input refers forward to {what}"),
+                    "list nodes in recording order: each node after all of its inputs",
+                ));
+                ok = false;
+            }
+            Some(&source) => inputs.push(source),
+        }
+    }
+    ok.then_some(inputs)
+}
+
+fn resolve_output(id: &str, index: &HashMap<String, usize>, problems: &mut Vec<Problem>) -> Option<usize> {
+    if id.is_empty() {
+        problems.push(Problem::general("the header names no output node", "set `output` to the id of the loss node"));
+        return None;
+    }
+    let found = index.get(id).copied();
+    if found.is_none() {
+        problems.push(Problem::general(format!("output node '{id}' is not in the trace"), "set `output` to the id of the loss node"));
+    }
+    found
+}
+
+/// A value's data must fill its shape.
+fn checked_value(raw: &ValueRepr) -> Result<Value, String> {
+    match raw {
+        ValueRepr::Scalar(x) => Ok(Value::Scalar(*x)),
+        ValueRepr::Tensor { shape, data } => {
+            let expected = shape.iter().try_fold(1usize, |acc, &d| acc.checked_mul(d));
+            match expected {
+                Some(expected) if expected == data.len() => Ok(Value::from_parts(shape.clone(), data.clone())),
+                Some(expected) => Err(format!("data has {} elements but shape {} needs {expected}", data.len(), show(shape))),
+                None => Err(format!("shape {} is too large", show(shape))),
+            }
+        }
+    }
+}
+
+/// Checks one node whose inputs resolved; `earlier` holds the checked nodes
+/// before it (`None` where those had problems).
+fn check_node(raw: NodeFile, inputs: Vec<usize>, earlier: &[Option<Node>], problems: &mut Vec<Problem>) -> Option<Node> {
+    let id = raw.id.0.clone();
+    let before = problems.len();
+    let op = Op::from_name(&raw.op).unwrap_or(Op::Custom);
+    let spec = op.spec();
+    if !spec.arity.accepts(inputs.len()) && raw.inputs.len() == inputs.len() {
+        let hint = if op == Op::Custom { "use input, param or const for a leaf" } else { "give the op its inputs in argument order" };
+        problems.push(Problem::at_node(&id, format!("{} takes {}, got {}", raw.op, spec.arity, inputs.len()), hint));
+    }
+    if op == Op::Custom {
+        check_custom_partials(&raw, problems);
+    }
+    for attr in spec.required {
+        if !attr.is_set(&raw.attrs) {
+            problems.push(Problem::at_node(
+                &id,
+                format!("{} needs the attribute `{}`", raw.op, attr.as_str()),
+                format!("add attrs: ({}: ..)", attr.as_str()),
+            ));
+        }
+    }
+    if raw.partials.len() > raw.inputs.len() {
+        problems.push(Problem::at_node(
+            &id,
+            format!("{} partials recorded for {} input edges", raw.partials.len(), raw.inputs.len()),
+            "record at most one partial per input, in input order",
+        ));
+    }
+    let value = match checked_value(&raw.value) {
+        Ok(value) => Some(value),
+        Err(message) => {
+            problems.push(Problem::at_node(&id, format!("value: {message}"), "the data length must equal the product of the shape"));
+            None
+        }
+    };
+    let reported = raw.reported.as_ref().map(checked_value).transpose().unwrap_or_else(|message| {
+        problems.push(Problem::at_node(
+            &id,
+            format!("reported gradient: {message}"),
+            "the data length must equal the product of the shape",
+        ));
+        None
+    });
+    let input_values: Option<Vec<&Value>> = inputs.iter().map(|&input| earlier[input].as_ref().map(|node| &node.value)).collect();
+    let (Some(value), Some(input_values)) = (value, input_values) else {
+        // Shapes cannot be checked against inputs that are themselves broken.
+        return None;
+    };
+    if problems.len() > before {
+        return None;
+    }
+    let input_shapes: Vec<&[usize]> = input_values.iter().map(|value| value.shape()).collect();
+    match ops::infer_shape(op, &input_shapes, &raw.attrs) {
+        Err(message) => problems.push(Problem::at_node(&id, message, "check the shapes of the inputs against the op")),
+        Ok(Some(expected)) if expected != value.shape() => problems.push(Problem::at_node(
+            &id,
+            format!("recorded value has shape {} but {} of these inputs gives {}", show(value.shape()), raw.op, show(&expected)),
+            "record the value the op produced",
+        )),
+        Ok(_) => {}
+    }
+    if let Some(reported) = &reported
+        && reported.shape() != value.shape()
+    {
+        problems.push(Problem::at_node(
+            &id,
+            format!("reported gradient has shape {} but the value has shape {}", show(reported.shape()), show(value.shape())),
+            "a gradient has the shape of its node's value",
+        ));
+    }
+    let mut partials = Vec::with_capacity(inputs.len());
+    for (slot, input_shape) in input_shapes.iter().enumerate() {
+        let raw_partial = raw.partials.get(slot).unwrap_or(&PartialRepr::Absent);
+        match check_partial(raw_partial, value.shape(), input_shape) {
+            Ok(partial) => partials.push(partial),
+            Err(message) => problems.push(Problem::at_node(
+                &id,
+                format!("partial on edge {slot} (from '{}'): {message}", raw.inputs[slot]),
+                "see traces/FORMAT.md, partials",
+            )),
+        }
+    }
+    if problems.len() > before {
+        return None;
+    }
+    let op_name = raw.op;
+    Some(Node { id, op, op_name, inputs, group: raw.group, site: raw.site, value, attrs: raw.attrs, partials, reported })
+}
+
+fn check_custom_partials(raw: &NodeFile, problems: &mut Vec<Problem>) {
+    let missing: Vec<usize> =
+        (0..raw.inputs.len()).filter(|&slot| matches!(raw.partials.get(slot), None | Some(PartialRepr::Absent))).collect();
+    if missing.is_empty() {
+        return;
+    }
+    let suggestion = Op::closest_name(&raw.op).map(|name| format!("did you mean the catalog op '{name}'? ")).unwrap_or_default();
+    let edges: Vec<String> = missing.iter().map(|slot| slot.to_string()).collect();
+    problems.push(Problem::at_node(
+        &raw.id.0,
+        format!("'{}' is not a catalog op, so it is a custom op, and it has no recorded partial on edge {}", raw.op, edges.join(", ")),
+        format!("{suggestion}a custom op must record a partial on every input edge"),
+    ));
+}
+
+/// Checks a recorded partial against its edge: the node's output shape and the input's shape.
+fn check_partial(raw: &PartialRepr, output: &[usize], input: &[usize]) -> Result<Option<Partial>, String> {
+    let broadcasts = || broadcast_shapes(input, output).is_some_and(|shape| shape == output);
+    match raw {
+        PartialRepr::Absent => Ok(None),
+        PartialRepr::Scalar(x) if broadcasts() => Ok(Some(Partial::Scalar(*x))),
+        PartialRepr::Diagonal(data) if data.len() != numel(output) => {
+            Err(format!("a diagonal partial needs {} entries (the output's {}), got {}", numel(output), show(output), data.len()))
+        }
+        PartialRepr::Diagonal(data) if broadcasts() => Ok(Some(Partial::Diagonal(Value::from_parts(output.to_vec(), data.clone())))),
+        PartialRepr::Scalar(_) | PartialRepr::Diagonal(_) => Err(format!(
+            "an elementwise partial needs an input that broadcasts to the output {}, but the input is {}; record a jacobian",
+            show(output),
+            show(input)
+        )),
+        PartialRepr::Jacobian(rows) => {
+            let cols = numel(input);
+            if rows.len() != numel(output) {
+                return Err(format!("a jacobian needs {} rows (output elements), got {}", numel(output), rows.len()));
+            }
+            if let Some((row, bad)) = rows.iter().enumerate().find(|(_, row)| row.len() != cols) {
+                return Err(format!("jacobian row {row} has {} entries but the input has {cols} elements", bad.len()));
+            }
+            Ok(Some(Partial::Jacobian { rows: rows.len(), cols, data: rows.concat() }))
+        }
+    }
+}
+
+/// Names each cycle among the edges, found as strongly connected components
+/// with petgraph (Kosaraju's algorithm, iterative).
+fn report_cycles(nodes: &[Option<Node>], index: &HashMap<String, usize>, edges: &[(usize, usize)], problems: &mut Vec<Problem>) {
+    let mut graph = DiGraph::<(), ()>::with_capacity(nodes.len(), edges.len());
+    for _ in nodes {
+        graph.add_node(());
+    }
+    for &(source, target) in edges {
+        graph.add_edge(NodeIndex::new(source), NodeIndex::new(target), ());
+    }
+    let mut ids = vec![""; nodes.len()];
+    for (id, &position) in index {
+        ids[position] = id;
+    }
+    for component in petgraph::algo::kosaraju_scc(&graph) {
+        let looped = component.len() > 1 || graph.contains_edge(component[0], component[0]);
+        if !looped {
+            continue;
+        }
+        let mut members: Vec<usize> = component.iter().map(|node| node.index()).collect();
+        members.sort_unstable();
+        let mut names: Vec<String> = members.iter().take(6).map(|&node| format!("'{}'", ids[node])).collect();
+        if members.len() > 6 {
+            names.push(format!("and {} more", members.len() - 6));
+        }
+        problems.push(Problem::at_node(
+            ids[members[0]],
+            format!("cycle through {}", names.join(", ")),
+            "a trace records one forward pass: no node may depend on itself",
+        ));
+    }
+}
+
+fn build(
+    title: String,
+    description: String,
+    dtype: crate::dtype::Dtype,
+    nodes: Vec<Node>,
+    output: usize,
+    seed: Value,
+    index: HashMap<String, usize>,
+) -> Trace {
+    let edge_total: usize = nodes.iter().map(|node| node.inputs.len()).sum();
+    let mut graph = DiGraph::<(), u32>::with_capacity(nodes.len(), edge_total);
+    for _ in &nodes {
+        graph.add_node(());
+    }
+    for (consumer, node) in nodes.iter().enumerate() {
+        for (slot, &input) in node.inputs.iter().enumerate() {
+            graph.add_edge(NodeIndex::new(input), NodeIndex::new(consumer), slot as u32);
+        }
+    }
+    // Breadth-first search against the edges marks everything that reaches the output.
+    let mut reaches = vec![false; nodes.len()];
+    let reversed = Reversed(&graph);
+    let mut search = Bfs::new(reversed, NodeIndex::new(output));
+    while let Some(found) = search.next(reversed) {
+        reaches[found.index()] = true;
+    }
+    // Inputs always precede their consumers, so reversed recording order is a
+    // reverse topological order: a node comes after every consumer.
+    let order: Vec<usize> = (0..nodes.len()).rev().filter(|&node| reaches[node]).collect();
+    let mut rank = vec![UNREACHED; nodes.len()];
+    for (position, &node) in order.iter().enumerate() {
+        rank[node] = position as u32;
+    }
+    Trace { title, description, dtype, nodes, output, seed, index, graph, order, rank }
+}
