@@ -12,3 +12,4 @@ pub mod stats;
 pub mod sweep;
 pub mod tensor;
 pub mod trace;
+pub mod eval;

@@ -1,0 +1,72 @@
+//! Helpers shared by the integration tests: recording, validating and sweeping.
+#![allow(dead_code)]
+
+use ebb::record::Tape;
+use ebb::sweep::{LedgerMode, Sweep};
+use ebb::tensor::Value;
+use ebb::trace::{Trace, TraceFile};
+
+/// Validates a recorded trace file, panicking with every problem.
+pub fn checked(file: TraceFile) -> Trace {
+    Trace::try_from(file).unwrap_or_else(|problems| panic!("invalid trace: {problems:?}"))
+}
+
+/// Finishes a tape at `output` and validates it.
+pub fn finish(tape: Tape, output: ebb::record::Var) -> Trace {
+    checked(tape.finish(output))
+}
+
+/// Sweeps a trace to the end with the ledger on.
+pub fn swept(trace: &Trace) -> Sweep<'_> {
+    let mut sweep = Sweep::new(trace, LedgerMode::On);
+    sweep.run_to_end();
+    sweep
+}
+
+/// The adjoint of node `id` in a sweep.
+pub fn adjoint<'a>(sweep: &'a Sweep, id: &str) -> &'a Value {
+    let node = sweep.trace().find(id).unwrap_or_else(|| panic!("no node {id}"));
+    sweep.adjoint(node).unwrap_or_else(|| panic!("node {id} has no adjoint"))
+}
+
+/// The scalar adjoint of node `id`.
+pub fn scalar_adjoint(sweep: &Sweep, id: &str) -> f64 {
+    adjoint(sweep, id).as_scalar().expect("a scalar adjoint")
+}
+
+/// Asserts `actual` is within `tolerance` relative error of `expected`.
+#[track_caller]
+pub fn assert_close(actual: f64, expected: f64, tolerance: f64) {
+    let scale = expected.abs().max(1e-300);
+    assert!((actual - expected).abs() <= tolerance * scale.max(1.0), "got {actual}, expected {expected} (tolerance {tolerance})");
+}
+
+/// A small seeded generator (xorshift64*, Marsaglia 2003 / Vigna 2016) for
+/// reproducible test data.
+pub struct Rng(pub u64);
+
+impl Rng {
+    /// Next raw 64 bits.
+    pub fn next_u64(&mut self) -> u64 {
+        self.0 ^= self.0 >> 12;
+        self.0 ^= self.0 << 25;
+        self.0 ^= self.0 >> 27;
+        self.0.wrapping_mul(0x2545_F491_4F6C_DD1D)
+    }
+
+    /// Uniform in [lo, hi).
+    pub fn uniform(&mut self, lo: f64, hi: f64) -> f64 {
+        lo + (hi - lo) * ((self.next_u64() >> 11) as f64 / (1u64 << 53) as f64)
+    }
+
+    /// Uniform integer in [0, n).
+    pub fn below(&mut self, n: usize) -> usize {
+        (self.next_u64() % n as u64) as usize
+    }
+
+    /// A tensor of uniform entries.
+    pub fn tensor(&mut self, shape: &[usize], lo: f64, hi: f64) -> Value {
+        let n = shape.iter().product();
+        Value::from_parts(shape.to_vec(), (0..n).map(|_| self.uniform(lo, hi)).collect())
+    }
+}
