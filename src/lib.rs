@@ -3,6 +3,7 @@
 
 pub mod demos;
 pub mod dtype;
+pub mod eval;
 pub mod format;
 pub mod listing;
 pub mod ops;
@@ -12,4 +13,3 @@ pub mod stats;
 pub mod sweep;
 pub mod tensor;
 pub mod trace;
-pub mod eval;

@@ -38,11 +38,10 @@ struct Graph {
 fn random_graph(seed: u64, params: usize, depth: usize, fan: usize) -> Graph {
     let mut rng = Rng(seed | 1);
     let params: Vec<f64> = (0..params).map(|_| rng.uniform(-1.5, 1.5)).collect();
-    let mut count = params.len();
     let mut steps = Vec::new();
-    for _ in 0..depth {
+    for count in params.len()..params.len() + depth {
         // Pick inputs among the most recent `fan` nodes, so fan-out and depth both grow.
-        let mut pick = |rng: &mut Rng| count - 1 - rng.below(fan.min(count));
+        let pick = |rng: &mut Rng| count - 1 - rng.below(fan.min(count));
         let step = match rng.below(13) {
             0 => Step::Binary(Op::Add, pick(&mut rng), pick(&mut rng)),
             1 => Step::Binary(Op::Sub, pick(&mut rng), pick(&mut rng)),
@@ -58,7 +57,6 @@ fn random_graph(seed: u64, params: usize, depth: usize, fan: usize) -> Graph {
             _ => Step::Unary(Op::Exp, pick(&mut rng)),
         };
         steps.push(step);
-        count += 1;
     }
     Graph { params, steps }
 }
@@ -176,5 +174,3 @@ proptest! {
         check_graph(&random_graph(seed, params, depth, fan))?;
     }
 }
-
-

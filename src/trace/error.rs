@@ -9,6 +9,9 @@ use std::path::PathBuf;
 pub struct Problem {
     /// The node at fault, if the problem belongs to one.
     pub node: Option<String>,
+    /// Which declaration of the node's id the problem is about (0 = the
+    /// first); only duplicates have more than one.
+    pub occurrence: usize,
     /// 1-based line and column in the file, where known.
     pub position: Option<(usize, usize)>,
     /// What is wrong.
@@ -20,12 +23,12 @@ pub struct Problem {
 impl Problem {
     /// A problem of the trace as a whole.
     pub fn general(message: impl Into<String>, hint: impl Into<String>) -> Problem {
-        Problem { node: None, position: None, message: message.into(), hint: hint.into() }
+        Problem { node: None, occurrence: 0, position: None, message: message.into(), hint: hint.into() }
     }
 
     /// A problem of one node.
     pub fn at_node(node: &str, message: impl Into<String>, hint: impl Into<String>) -> Problem {
-        Problem { node: Some(node.to_string()), position: None, message: message.into(), hint: hint.into() }
+        Problem { node: Some(node.to_string()), occurrence: 0, position: None, message: message.into(), hint: hint.into() }
     }
 }
 

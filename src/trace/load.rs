@@ -95,7 +95,7 @@ pub fn load_str(text: &str, encoding: Encoding, path: &Path) -> Result<Trace, Lo
     validate(file).map_err(|mut problems| {
         for problem in &mut problems {
             if let Some(node) = &problem.node {
-                problem.position = locate_node(text, node);
+                problem.position = locate_node(text, node, problem.occurrence);
             }
         }
         LoadError::Invalid { path: path.to_path_buf(), problems }
@@ -110,17 +110,23 @@ pub fn load(path: &Path) -> Result<Trace, LoadError> {
     load_str(&text, encoding, path)
 }
 
-/// The 1-based line and column where node `id` is declared, found by looking
-/// for its `id` field in either encoding. Only used to place error messages.
-fn locate_node(text: &str, id: &str) -> Option<(usize, usize)> {
+/// The 1-based line and column where node `id` is declared (its
+/// `occurrence`-th declaration), found by looking for its `id` field in either
+/// encoding. Only used to place error messages.
+fn locate_node(text: &str, id: &str, occurrence: usize) -> Option<(usize, usize)> {
     let quoted = format!("\"{id}\"");
+    let mut skip = occurrence;
     let mut from = 0;
     while let Some(found) = text[from..].find(&quoted) {
         let at = from + found;
         let before = text[..at].trim_end();
         if let Some(rest) = before.strip_suffix(':') {
             let key = rest.trim_end();
-            if key.ends_with("\"id\"") || key.ends_with("(id") || key.ends_with(" id") || key.ends_with("\tid") || key.ends_with("\nid") {
+            let is_id_key =
+                key.ends_with("\"id\"") || key.ends_with("(id") || key.ends_with(" id") || key.ends_with("\tid") || key.ends_with("\nid");
+            if is_id_key && skip > 0 {
+                skip -= 1;
+            } else if is_id_key {
                 let line = text[..at].matches('\n').count() + 1;
                 let line_start = text[..at].rfind('\n').map_or(0, |newline| newline + 1);
                 let key_start = key.rfind(|c: char| c == '"' || c == '(' || c.is_whitespace()).map_or(0, |p| p + 1);
@@ -146,10 +152,12 @@ mod tests {
     #[test]
     fn node_positions_are_found_in_both_encodings() {
         let ron = "(\n  nodes: [\n    (id: \"a\", op: \"input\"),\n    (id: \"b\", op: \"neg\"),\n  ],\n)";
-        assert_eq!(locate_node(ron, "b"), Some((4, 6)));
+        assert_eq!(locate_node(ron, "b", 0), Some((4, 6)));
         let json = "{\n  \"nodes\": [\n    {\"id\": \"a\"},\n    {\"id\": \"b\"}\n  ]\n}";
-        assert_eq!(locate_node(json, "b"), Some((4, 6)));
-        assert_eq!(locate_node(json, "zz"), None);
+        assert_eq!(locate_node(json, "b", 0), Some((4, 6)));
+        assert_eq!(locate_node(json, "zz", 0), None);
+        let twice = "[(id: \"a\"),\n (id: \"a\")]";
+        assert_eq!(locate_node(twice, "a", 1), Some((2, 3)));
     }
 
     #[test]

@@ -74,11 +74,13 @@ fn index_ids(nodes: &[NodeFile], problems: &mut Vec<Problem>) -> HashMap<String,
     for (position, node) in nodes.iter().enumerate() {
         if let Some(first) = index.insert(node.id.0.clone(), position) {
             index.insert(node.id.0.clone(), first);
-            problems.push(Problem::at_node(
+            let mut problem = Problem::at_node(
                 &node.id.0,
                 format!("duplicate id (node #{position} repeats the id of node #{first})"),
                 "give every node a unique id",
-            ));
+            );
+            problem.occurrence = nodes[..position].iter().filter(|earlier| earlier.id == node.id).count();
+            problems.push(problem);
         }
     }
     index

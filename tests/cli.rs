@@ -1,0 +1,143 @@
+//! The `ebb` binary end to end: reports, exit statuses, errors and help.
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+fn ebb(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_ebb")).args(args).current_dir(env!("CARGO_MANIFEST_DIR")).output().expect("the binary runs")
+}
+
+fn stdout(output: &Output) -> String {
+    String::from_utf8_lossy(&output.stdout).into_owned()
+}
+
+fn stderr(output: &Output) -> String {
+    String::from_utf8_lossy(&output.stderr).into_owned()
+}
+
+fn write_temp(dir: &Path, name: &str, text: &str) -> PathBuf {
+    let path = dir.join(name);
+    std::fs::write(&path, text).unwrap();
+    path
+}
+
+/// A trace whose loss takes the log of an exact zero.
+const LOG_ZERO: &str = r#"(format: 1, title: "log of zero", dtype: f32, output: "loss", nodes: [
+  (id: "p", op: "param", value: [0.0, 0.5]),
+  (id: "logp", op: "log", inputs: ["p"], value: [-inf, -0.6931471824645996]),
+  (id: "loss", op: "sum", inputs: ["logp"], value: -inf),
+])"#;
+
+#[test]
+fn no_arguments_checks_the_built_in_demo() {
+    let output = ebb(&[]);
+    assert_eq!(output.status.code(), Some(0), "{}", stderr(&output));
+    let text = stdout(&output);
+    assert!(text.contains("market stall"), "{text}");
+    assert!(text.contains("price") && text.contains("0.157979"), "{text}");
+}
+
+#[test]
+fn check_reports_gradients_and_exits_zero_when_clean() {
+    let output = ebb(&["check", "traces/teaching.ron"]);
+    assert_eq!(output.status.code(), Some(0));
+    let text = stdout(&output);
+    assert!(text.contains("12 nodes, 14 edges, 3 groups, 2 params"), "{text}");
+    assert!(text.contains("sensitivity") && text.contains("-1.31188"), "{text}");
+    assert!(text.contains("flags    none"), "{text}");
+}
+
+#[test]
+fn check_flags_a_log_of_zero_and_exits_one() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = write_temp(dir.path(), "log_zero.ron", LOG_ZERO);
+    let before = std::fs::read(&path).unwrap();
+    let output = ebb(&["check", path.to_str().unwrap()]);
+    assert_eq!(output.status.code(), Some(1), "{}", stderr(&output));
+    let text = stdout(&output);
+    let first = text.lines().find(|line| line.contains(" * ")).expect("the first flag is marked");
+    assert!(first.contains("'loss'") && first.contains("forward value is -inf"), "{text}");
+    assert!(text.contains("'logp'") && text.contains("(log)"), "{text}");
+    assert_eq!(std::fs::read(&path).unwrap(), before, "ebb never writes to a trace it reads");
+
+    let output = ebb(&["check", path.to_str().unwrap(), "--json"]);
+    assert_eq!(output.status.code(), Some(1));
+    let report: serde_json::Value = serde_json::from_slice(&output.stdout).expect("valid JSON");
+    assert_eq!(report["report"], 1);
+    assert_eq!(report["clean"], false);
+    assert_eq!(report["trace"]["dtype"], "f32");
+    assert_eq!(report["counts"]["nodes"], 3);
+    let flags = report["flags"].as_array().unwrap();
+    assert_eq!(flags[0]["first"], true);
+    assert_eq!(flags[0]["node"], "loss");
+    assert_eq!(flags[0]["kind"], "non_finite_value");
+    assert_eq!(flags[0]["value"], "-inf");
+    let gradient = &report["gradients"][0];
+    assert_eq!(gradient["id"], "p");
+    assert_eq!(gradient["shape"], serde_json::json!([2]));
+    assert!(gradient["non_finite"].as_u64().unwrap() >= 1);
+}
+
+#[test]
+fn sweep_lists_steps_and_stops_early() {
+    let output = ebb(&["sweep", "traces/teaching.ron", "--steps", "3"]);
+    assert_eq!(output.status.code(), Some(0));
+    let text = stdout(&output);
+    assert_eq!(text.lines().filter(|line| line.starts_with("step ")).count(), 3, "{text}");
+    assert!(text.starts_with("step 1/12  profit (sub)"), "{text}");
+    // demand_sq = demand·demand: both contributions go to `demand`, the second on top of the first.
+    assert!(text.contains("-> demand (input 0)  contribution -0.036787944117144235  adjoint none -> -0.036787944117144235"), "{text}");
+    assert!(
+        text.contains("-> demand (input 1)  contribution -0.036787944117144235  adjoint -0.036787944117144235 -> -0.07357588823428847"),
+        "{text}"
+    );
+}
+
+#[test]
+fn bad_input_is_one_line_with_exit_two() {
+    let dir = tempfile::tempdir().unwrap();
+    let missing = dir.path().join("nope.ron");
+    let output = ebb(&["check", missing.to_str().unwrap()]);
+    assert_eq!(output.status.code(), Some(2));
+    assert!(stdout(&output).is_empty(), "no half-written output");
+    let message = stderr(&output);
+    assert_eq!(message.lines().count(), 1, "{message}");
+    assert!(message.contains("nope.ron") && message.contains("cannot read"), "{message}");
+
+    let path = write_temp(dir.path(), "broken.json", "{\"format\": 1,\n  \"title\": \"x\",\n  \"dtype\": \"f64\" \"output\": 1}");
+    let output = ebb(&["check", path.to_str().unwrap()]);
+    assert_eq!(output.status.code(), Some(2));
+    let message = stderr(&output);
+    assert!(message.contains("broken.json:3:"), "{message}");
+    assert_eq!(message.lines().count(), 1, "{message}");
+
+    let path = write_temp(dir.path(), "invalid.ron", &LOG_ZERO.replace("[\"logp\"]", "[\"nowhere\"]"));
+    let output = ebb(&["sweep", path.to_str().unwrap()]);
+    assert_eq!(output.status.code(), Some(2));
+    let message = stderr(&output);
+    assert!(message.contains("invalid.ron:4:4: node 'loss': unknown input id 'nowhere'"), "{message}");
+}
+
+#[test]
+fn usage_errors_exit_two() {
+    assert_eq!(ebb(&["check"]).status.code(), Some(2));
+    assert_eq!(ebb(&["frobnicate"]).status.code(), Some(2));
+    assert_eq!(ebb(&["sweep", "traces/teaching.ron", "--steps", "many"]).status.code(), Some(2));
+}
+
+#[test]
+fn help_version_completions_and_catalog() {
+    for command in [&["--help"][..], &["check", "--help"], &["sweep", "--help"], &["ops", "--help"], &["completions", "--help"]] {
+        let output = ebb(command);
+        assert_eq!(output.status.code(), Some(0));
+        assert!(stdout(&output).contains("Example"), "{command:?} help has an example");
+    }
+    let version = stdout(&ebb(&["--version"]));
+    assert!(version.starts_with("ebb ") && version.contains(env!("CARGO_PKG_VERSION")));
+    let completions = stdout(&ebb(&["completions", "bash"]));
+    assert!(completions.contains("_ebb()") && completions.contains("check"));
+    let catalog = stdout(&ebb(&["ops"]));
+    for name in ["matmul", "cross_entropy", "leaky_relu", "logsumexp"] {
+        assert!(catalog.contains(name), "{catalog}");
+    }
+}
