@@ -27,7 +27,7 @@ fn weighted_loss(tape: &mut Tape, out: Var, rng: &mut Rng) -> Var {
 
 /// Compares every parameter entry's adjoint with a central difference.
 fn check(name: &str, build: impl Fn(&mut Tape, &mut Rng) -> Var) {
-    let mut rng = Rng(0x5EED_0000 ^ name.len() as u64 * 7919);
+    let mut rng = Rng(0x5EED_0000 ^ (name.len() as u64 * 7919));
     let mut tape = Tape::new(name, Dtype::F64);
     let out = build(&mut tape, &mut rng);
     let loss = if tape.value(out).shape().is_empty() { out } else { weighted_loss(&mut tape, out, &mut rng) };
