@@ -10,8 +10,10 @@ pub use flags::{Flag, FlagKind};
 pub use ledger::{Contribution, Ledger};
 pub use pullback::{Pulled, accumulate, pull_back};
 
+use crate::ops;
 use crate::tensor::Value;
 use crate::trace::Trace;
+use crate::trace::compact::NO_ATTRS;
 
 /// Whether the sweep keeps its ledger.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -118,40 +120,73 @@ impl<'t> Sweep<'t> {
     /// or `None` when the sweep is done.
     pub fn step(&mut self) -> Option<usize> {
         let node = self.current()?;
-        let step = self.cursor;
-        let trace = self.trace;
+        if let Some(ledger) = &mut self.ledger {
+            ledger.begin_step();
+        }
+        match self.adjoints[node] {
+            Some(Value::Scalar(adjoint)) if self.trace.compact().fast[node] => self.step_scalar(node, adjoint),
+            _ => self.step_general(node),
+        }
+        self.cursor += 1;
+        Some(node)
+    }
+
+    /// The fast path for a scalar node of an elementwise op: reads only the
+    /// trace's compact arrays and allocates nothing (but the ledger entries).
+    fn step_scalar(&mut self, node: usize, adjoint: f64) {
+        let (step, trace) = (self.cursor, self.trace);
+        let (compact, dtype) = (trace.compact(), trace.dtype());
+        let output = compact.scalars[node];
+        if !output.is_finite() {
+            self.flags.extend(Flag::for_value(step, node, FlagKind::NonFiniteValue, &Value::Scalar(output)));
+        }
+        let inputs = compact.inputs_of(node);
+        let mut input_values = [0.0f64; 2];
+        for (value, &input) in input_values.iter_mut().zip(inputs) {
+            *value = compact.scalars[input as usize];
+        }
+        let input_values = &input_values[..inputs.len()];
+        let attrs = if compact.reads_attrs[node] { &trace.node(node).attrs } else { &NO_ATTRS };
+        let op = compact.ops[node];
+        for (slot, &input) in inputs.iter().enumerate() {
+            let partial = ops::scalar_partial(op, slot, input_values, output, attrs, dtype).expect("fast-path nodes are elementwise");
+            let contribution = dtype.round(adjoint * partial);
+            if !partial.is_finite() {
+                self.flag_partial(step, node, slot, partial);
+            }
+            let input = input as usize;
+            let before = self.adjoints[input].take();
+            let after = match &before {
+                None => contribution,
+                Some(Value::Scalar(sum)) => dtype.round(sum + contribution),
+                Some(Value::Tensor(_)) => unreachable!("a scalar input holds a scalar adjoint"),
+            };
+            self.note_adjoint(step, node, slot, input, before.as_ref(), &Value::Scalar(after));
+            self.adjoints[input] = Some(Value::Scalar(after));
+            if let Some(ledger) = &mut self.ledger {
+                let value = Value::Scalar(contribution);
+                ledger.record(Contribution { step, consumer: node, input, slot, value, before, after: Value::Scalar(after), previous: 0 });
+            }
+        }
+    }
+
+    /// Any node: recorded partials, tensors, structured ops.
+    fn step_general(&mut self, node: usize) {
+        let (step, trace) = (self.cursor, self.trace);
         let dtype = trace.dtype();
         let recorded = trace.node(node);
         if let Some(flag) = Flag::for_value(step, node, FlagKind::NonFiniteValue, &recorded.value) {
             self.flags.push(flag);
         }
-        if let Some(ledger) = &mut self.ledger {
-            ledger.begin_step();
-        }
         let adjoint = self.adjoints[node].take().expect("a node's consumers are swept before it, so it holds an adjoint");
         for (slot, &input) in recorded.inputs.iter().enumerate() {
             let pulled = pull_back(trace, node, slot, &adjoint);
             if let Some(bad) = pulled.bad_partial {
-                self.flags.push(Flag {
-                    step,
-                    node,
-                    kind: FlagKind::NonFinitePartial,
-                    slot: Some(slot),
-                    from: None,
-                    element: 0,
-                    value: bad,
-                    count: 1,
-                });
+                self.flag_partial(step, node, slot, bad);
             }
             let before = self.adjoints[input].take();
             let after = accumulate(before.as_ref(), &pulled.contribution, dtype);
-            if before.as_ref().is_none_or(Value::is_finite)
-                && let Some(mut flag) = Flag::for_value(step, input, FlagKind::NonFiniteAdjoint, &after)
-            {
-                flag.slot = Some(slot);
-                flag.from = Some(node);
-                self.flags.push(flag);
-            }
+            self.note_adjoint(step, node, slot, input, before.as_ref(), &after);
             match &mut self.ledger {
                 Some(ledger) => {
                     self.adjoints[input] = Some(after.clone());
@@ -170,8 +205,22 @@ impl<'t> Sweep<'t> {
             }
         }
         self.adjoints[node] = Some(adjoint);
-        self.cursor += 1;
-        Some(node)
+    }
+
+    fn flag_partial(&mut self, step: usize, node: usize, slot: usize, value: f64) {
+        self.flags.push(Flag { step, node, kind: FlagKind::NonFinitePartial, slot: Some(slot), from: None, element: 0, value, count: 1 });
+    }
+
+    /// Flags an adjoint that a contribution from `consumer` made non-finite.
+    fn note_adjoint(&mut self, step: usize, consumer: usize, slot: usize, input: usize, before: Option<&Value>, after: &Value) {
+        if after.is_finite() || !before.is_none_or(Value::is_finite) {
+            return;
+        }
+        if let Some(mut flag) = Flag::for_value(step, input, FlagKind::NonFiniteAdjoint, after) {
+            flag.slot = Some(slot);
+            flag.from = Some(consumer);
+            self.flags.push(flag);
+        }
     }
 
     /// Undoes the last step bit-exactly. Returns false at the start.

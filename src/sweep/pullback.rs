@@ -61,28 +61,6 @@ fn jacobian_transpose_product(
 fn derived(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
     let dtype = trace.dtype();
     let recorded = trace.node(node);
-    // Scalar fast path: no allocation for scalar traces.
-    if let Value::Scalar(g) = adjoint
-        && recorded.inputs.len() <= 2
-    {
-        let mut scalars = [0.0f64; 2];
-        let all_scalar = recorded.inputs.iter().zip(scalars.iter_mut()).all(|(&input, out)| match trace.node(input).value {
-            Value::Scalar(x) => {
-                *out = x;
-                true
-            }
-            Value::Tensor(_) => false,
-        });
-        if all_scalar
-            && let Value::Scalar(y) = recorded.value
-            && let Some(partial) = ops::scalar_partial(recorded.op, slot, &scalars, y, &recorded.attrs, dtype)
-        {
-            return Pulled {
-                contribution: Value::Scalar(dtype.round(g * partial)),
-                bad_partial: (!partial.is_finite()).then_some(partial),
-            };
-        }
-    }
     let inputs: Vec<&Value> = recorded.inputs.iter().map(|&input| &trace.node(input).value).collect();
     if let Some(partial) = ops::elementwise_partial(recorded.op, slot, &inputs, &recorded.value, &recorded.attrs, dtype) {
         let input_shape = inputs[slot].shape();

@@ -1,6 +1,7 @@
 //! Traces: the file schema, loading and saving, and validation into a checked
 //! [`Trace`].
 
+pub(crate) mod compact;
 mod error;
 mod load;
 mod model;

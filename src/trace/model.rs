@@ -67,12 +67,18 @@ pub struct Trace {
     pub(super) graph: DiGraph<(), u32>,
     pub(super) order: Vec<usize>,
     pub(super) rank: Vec<u32>,
+    pub(super) compact: super::compact::Compact,
 }
 
 /// Rank of nodes that do not reach the output.
 pub(super) const UNREACHED: u32 = u32::MAX;
 
 impl Trace {
+    /// The compact hot-path arrays the sweep reads.
+    pub(crate) fn compact(&self) -> &super::compact::Compact {
+        &self.compact
+    }
+
     /// The title from the header.
     pub fn title(&self) -> &str {
         &self.title

@@ -353,5 +353,6 @@ fn build(
     for (position, &node) in order.iter().enumerate() {
         rank[node] = position as u32;
     }
-    Trace { title, description, dtype, nodes, output, seed, index, graph, order, rank }
+    let compact = super::compact::Compact::new(&nodes);
+    Trace { title, description, dtype, nodes, output, seed, index, graph, order, rank, compact }
 }
