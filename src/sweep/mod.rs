@@ -155,17 +155,19 @@ impl<'t> Sweep<'t> {
                 self.flag_partial(step, node, slot, partial);
             }
             let input = input as usize;
-            let before = self.adjoints[input].take();
-            let after = match &before {
-                None => contribution,
-                Some(Value::Scalar(sum)) => dtype.round(sum + contribution),
+            let before = match &self.adjoints[input] {
+                None => None,
+                Some(Value::Scalar(sum)) => Some(*sum),
                 Some(Value::Tensor(_)) => unreachable!("a scalar input holds a scalar adjoint"),
             };
-            self.note_adjoint(step, node, slot, input, before.as_ref(), &Value::Scalar(after));
+            let after = before.map_or(contribution, |sum| dtype.round(sum + contribution));
+            if !after.is_finite() {
+                self.note_adjoint(step, node, slot, input, before.map(Value::Scalar).as_ref(), &Value::Scalar(after));
+            }
             self.adjoints[input] = Some(Value::Scalar(after));
             if let Some(ledger) = &mut self.ledger {
-                let value = Value::Scalar(contribution);
-                ledger.record(Contribution { step, consumer: node, input, slot, value, before, after: Value::Scalar(after), previous: 0 });
+                let (value, before, after) = (Value::Scalar(contribution), before.map(Value::Scalar), Value::Scalar(after));
+                ledger.record(Contribution { step, consumer: node, input, slot, value, before, after, previous: 0 });
             }
         }
     }
@@ -278,6 +280,12 @@ impl<'t> Sweep<'t> {
 
     /// Runs every remaining step.
     pub fn run_to_end(&mut self) -> usize {
+        if let Some(ledger) = &mut self.ledger {
+            // One allocation instead of repeated doubling (and copying) of a large ledger.
+            let remaining = self.trace.sweep_order().len() - self.cursor;
+            let contributions = self.trace.edge_count().saturating_sub(ledger.entries().len());
+            ledger.reserve(remaining, contributions);
+        }
         self.run_to(|_| false)
     }
 
