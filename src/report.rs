@@ -174,8 +174,13 @@ impl Report {
         let c = &self.counts;
         out.push_str(&format!("trace    {}  \"{}\"  ({})\n", self.trace.path, self.trace.title, self.trace.dtype));
         out.push_str(&format!(
-            "counts   {} nodes, {} edges, {} groups, {} params; swept {} of {} nodes",
-            c.nodes, c.edges, c.groups, c.params, c.swept, c.nodes
+            "counts   {}, {}, {}, {}; swept {} of {}",
+            plural(c.nodes, "node"),
+            plural(c.edges, "edge"),
+            plural(c.groups, "group"),
+            plural(c.params, "param"),
+            c.swept,
+            plural(c.nodes, "node")
         ));
         if c.unreached > 0 {
             out.push_str(&format!(" ({} do not reach the output)", c.unreached));
@@ -245,6 +250,11 @@ fn flag_entry(trace: &Trace, flag: &Flag, first: bool) -> FlagEntry {
         from: flag.from.map(|from| trace.node(from).id.clone()),
         first,
     }
+}
+
+/// `1 node`, `2 nodes`.
+fn plural(count: usize, noun: &str) -> String {
+    if count == 1 { format!("1 {noun}") } else { format!("{count} {noun}s") }
 }
 
 /// A titled, left-aligned text table.
