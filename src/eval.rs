@@ -2,21 +2,15 @@
 //! check of the sweep (finite differences) perturbs a parameter and runs the
 //! recorded computation again through the op table.
 
+use crate::dtype::Dtype;
 use crate::ops;
+use crate::sweep::push_forward;
 use crate::tensor::Value;
 use crate::trace::Trace;
 
 /// Why a trace cannot be re-evaluated.
 #[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
 pub enum EvalError {
-    /// A custom op has no forward rule, so a perturbation cannot pass through it.
-    #[error("node '{node}' is the custom op '{op}', which has no forward rule to re-evaluate")]
-    Custom {
-        /// Node id.
-        node: String,
-        /// Custom op name.
-        op: String,
-    },
     /// A replacement does not have the leaf's shape.
     #[error("replacement for node '{node}' has the wrong shape")]
     Shape {
@@ -25,10 +19,14 @@ pub enum EvalError {
     },
 }
 
-/// Recomputes every node's forward value in recording order, with the values
-/// of the leaves in `replace` (node index, new value) swapped in. Nodes that
-/// depend on nothing replaced keep their recorded value.
-pub fn reevaluate(trace: &Trace, replace: &[(usize, Value)]) -> Result<Vec<Value>, EvalError> {
+/// Recomputes every node's forward value in recording order, in `dtype`, with
+/// the values of the leaves in `replace` (node index, new value) swapped in.
+/// Nodes that depend on nothing replaced keep their recorded value.
+///
+/// A custom op has no forward rule; it is linearised with its recorded
+/// partials, y ≈ y₀ + Σ J·(x − x₀), so a finite difference through it tests
+/// the rest of the trace against those partials.
+pub fn reevaluate(trace: &Trace, replace: &[(usize, Value)], dtype: Dtype) -> Result<Vec<Value>, EvalError> {
     let mut values: Vec<Value> = Vec::with_capacity(trace.nodes().len());
     let mut changed = vec![false; trace.nodes().len()];
     for (index, node) in trace.nodes().iter().enumerate() {
@@ -44,13 +42,31 @@ pub fn reevaluate(trace: &Trace, replace: &[(usize, Value)]) -> Result<Vec<Value
             values.push(node.value.clone());
             continue;
         }
-        if node.op == ops::Op::Custom {
-            return Err(EvalError::Custom { node: node.id.clone(), op: node.op_name.clone() });
-        }
-        let inputs: Vec<&Value> = node.inputs.iter().map(|&input| &values[input]).collect();
-        let value = ops::forward(node.op, &inputs, &node.attrs, trace.dtype());
+        let value = if node.op == ops::Op::Custom {
+            linearised(trace, index, &values, dtype)
+        } else {
+            let inputs: Vec<&Value> = node.inputs.iter().map(|&input| &values[input]).collect();
+            ops::forward(node.op, &inputs, &node.attrs, dtype)
+        };
         values.push(value);
         changed[index] = true;
     }
     Ok(values)
+}
+
+/// y₀ + Σ J·(x − x₀) over a custom node's edges.
+fn linearised(trace: &Trace, node: usize, values: &[Value], dtype: Dtype) -> Value {
+    let recorded = trace.node(node);
+    let shape = recorded.value.shape();
+    let mut total = recorded.value.clone();
+    for (slot, &input) in recorded.inputs.iter().enumerate() {
+        let partial = recorded.partials[slot].as_ref().expect("custom ops carry every partial");
+        let before = &trace.node(input).value;
+        let delta = Value::from_parts(
+            before.shape().to_vec(),
+            values[input].data().iter().zip(before.data()).map(|(&now, &then)| dtype.round(now - then)).collect(),
+        );
+        total = ops::add_rounded(&total, &push_forward(partial, &delta, shape, dtype), dtype);
+    }
+    total
 }

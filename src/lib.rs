@@ -13,3 +13,5 @@ pub mod stats;
 pub mod sweep;
 pub mod tensor;
 pub mod trace;
+pub mod verify;
+pub mod random;

@@ -36,7 +36,7 @@ struct Graph {
 }
 
 fn random_graph(seed: u64, params: usize, depth: usize, fan: usize) -> Graph {
-    let mut rng = Rng(seed | 1);
+    let mut rng = Rng::new(seed | 1);
     let params: Vec<f64> = (0..params).map(|_| rng.uniform(-1.5, 1.5)).collect();
     let mut steps = Vec::new();
     for count in params.len()..params.len() + depth {

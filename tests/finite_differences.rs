@@ -9,7 +9,7 @@
 
 mod common;
 
-use common::{Rng, checked, swept};
+use common::{Rng, checked, random_tensor, swept};
 use ebb::dtype::Dtype;
 use ebb::eval::reevaluate;
 use ebb::ops::{Attrs, Op};
@@ -20,14 +20,14 @@ use ebb::tensor::Value;
 /// the op's output gets a different adjoint.
 fn weighted_loss(tape: &mut Tape, out: Var, rng: &mut Rng) -> Var {
     let shape = tape.value(out).shape().to_vec();
-    let weights = tape.constant("weights", rng.tensor(&shape, -1.0, 1.0));
+    let weights = tape.constant("weights", random_tensor(rng, &shape, -1.0, 1.0));
     let weighted = tape.mul(out, weights);
     tape.apply(Op::Sum, &[weighted], Attrs::default()).unwrap()
 }
 
 /// Compares every parameter entry's adjoint with a central difference.
 fn check(name: &str, build: impl Fn(&mut Tape, &mut Rng) -> Var) {
-    let mut rng = Rng(0x5EED_0000 ^ (name.len() as u64 * 7919));
+    let mut rng = Rng::new(0x5EED_0000 ^ (name.len() as u64 * 7919));
     let mut tape = Tape::new(name, Dtype::F64);
     let out = build(&mut tape, &mut rng);
     let loss = if tape.value(out).shape().is_empty() { out } else { weighted_loss(&mut tape, out, &mut rng) };
@@ -44,7 +44,7 @@ fn check(name: &str, build: impl Fn(&mut Tape, &mut Rng) -> Var) {
             let evaluate = |shift: f64| {
                 let mut moved = value.clone();
                 moved.data_mut()[k] = x + shift;
-                let values = reevaluate(&trace, &[(param, moved)]).unwrap();
+                let values = reevaluate(&trace, &[(param, moved)], Dtype::F64).unwrap();
                 values[trace.output()].as_scalar().unwrap()
             };
             let central = (evaluate(h) - evaluate(-h)) / (2.0 * h);
@@ -58,7 +58,7 @@ fn check(name: &str, build: impl Fn(&mut Tape, &mut Rng) -> Var) {
 }
 
 fn param(tape: &mut Tape, rng: &mut Rng, name: &str, shape: &[usize], lo: f64, hi: f64) -> Var {
-    let value = rng.tensor(shape, lo, hi);
+    let value = random_tensor(rng, shape, lo, hi);
     tape.param(name, value)
 }
 
@@ -164,10 +164,10 @@ fn random_small_networks() {
     // Seeded two-layer networks with a random activation and loss.
     for seed in 1..=12u64 {
         check(&format!("network {seed}"), move |tape, _| {
-            let mut rng = Rng(seed * 0x9E37_79B9);
+            let mut rng = Rng::new(seed * 0x9E37_79B9);
             let batch = 1 + rng.below(3);
             let (width_in, width_hidden, classes) = (1 + rng.below(3), 2 + rng.below(3), 2 + rng.below(2));
-            let x = tape.input("x", rng.tensor(&[batch, width_in], -1.0, 1.0));
+            let x = tape.input("x", random_tensor(&mut rng, &[batch, width_in], -1.0, 1.0));
             let w1 = param(tape, &mut rng, "w1", &[width_in, width_hidden], -1.0, 1.0);
             let b1 = param(tape, &mut rng, "b1", &[width_hidden], -0.5, 0.5);
             let w2 = param(tape, &mut rng, "w2", &[width_hidden, classes], -1.0, 1.0);
@@ -181,7 +181,7 @@ fn random_small_networks() {
                 tape.apply(Op::CrossEntropy, &[logits], Attrs { targets: Some(targets), ..Attrs::default() }).unwrap()
             } else {
                 let probabilities = tape.apply(Op::Softmax, &[logits], Attrs::default()).unwrap();
-                let target = tape.constant("target", rng.tensor(&[batch, classes], 0.0, 1.0));
+                let target = tape.constant("target", random_tensor(&mut rng, &[batch, classes], 0.0, 1.0));
                 tape.mse(probabilities, target)
             }
         });

@@ -2,7 +2,7 @@
 
 mod common;
 
-use common::{Rng, checked};
+use common::{Rng, checked, random_tensor};
 use ebb::dtype::Dtype;
 use ebb::ops::{Attrs, Op};
 use ebb::record::Tape;
@@ -36,11 +36,11 @@ fn snapshot(sweep: &Sweep) -> String {
 
 /// A small network with tensors, broadcasting and a log of zero, so flags are raised mid-sweep.
 fn tensor_trace(seed: u64) -> Trace {
-    let mut rng = Rng(seed);
+    let mut rng = Rng::new(seed);
     let mut tape = Tape::new("undo network", Dtype::F32);
-    let x = tape.input("x", rng.tensor(&[3, 2], -1.0, 1.0));
-    let w = tape.param("w", rng.tensor(&[2, 4], -1.0, 1.0));
-    let b = tape.param("b", rng.tensor(&[4], -1.0, 1.0));
+    let x = tape.input("x", random_tensor(&mut rng, &[3, 2], -1.0, 1.0));
+    let w = tape.param("w", random_tensor(&mut rng, &[2, 4], -1.0, 1.0));
+    let b = tape.param("b", random_tensor(&mut rng, &[4], -1.0, 1.0));
     let hidden = tape.matmul(x, w);
     let hidden = tape.add(hidden, b);
     let hidden = tape.relu(hidden);
@@ -72,7 +72,7 @@ fn check_undo(trace: &Trace, mode: LedgerMode, rng: &mut Rng) {
 
 #[test]
 fn step_then_back_restores_adjoints_flags_and_ledger_bit_exactly() {
-    let mut rng = Rng(77);
+    let mut rng = Rng::new(77);
     let demo = checked(ebb::demos::teaching());
     for seed in 1..=5 {
         let trace = tensor_trace(seed);

@@ -1,18 +1,18 @@
 //! Matrix product (batched, with broadcast batch axes), transpose and reshape.
 
-use super::{Attrs, StructuredRule, VjpArgs};
+use super::{Attrs, JvpArgs, StructuredRule, VjpArgs};
 use crate::dtype::Dtype;
 use crate::format::shape as show;
 use crate::tensor::{Value, broadcast_shapes, broadcast_source_indices, numel, strides};
 
 /// `a @ b` over the last two axes; leading axes broadcast as batch axes.
-pub static MATMUL: StructuredRule = StructuredRule { shape: matmul_shape, forward: matmul_forward, vjp: matmul_vjp };
+pub static MATMUL: StructuredRule = StructuredRule { shape: matmul_shape, forward: matmul_forward, vjp: matmul_vjp, jvp: matmul_jvp };
 
 /// Axis permutation.
-pub static TRANSPOSE: StructuredRule = StructuredRule { shape: transpose_shape, forward: transpose_forward, vjp: transpose_vjp };
+pub static TRANSPOSE: StructuredRule = StructuredRule { shape: transpose_shape, forward: transpose_forward, vjp: transpose_vjp, jvp: transpose_jvp };
 
 /// Same elements under a new shape.
-pub static RESHAPE: StructuredRule = StructuredRule { shape: reshape_shape, forward: reshape_forward, vjp: reshape_vjp };
+pub static RESHAPE: StructuredRule = StructuredRule { shape: reshape_shape, forward: reshape_forward, vjp: reshape_vjp, jvp: reshape_jvp };
 
 /// Shapes of a batched product: batch axes, m, k, n.
 struct MatmulDims {
@@ -118,6 +118,20 @@ fn matmul_vjp(args: &VjpArgs) -> Value {
     Value::from_parts(target.shape().to_vec(), contribution)
 }
 
+/// Elementwise sum of two values of one shape, rounded into `dtype`.
+pub fn add_rounded(a: &Value, b: &Value, dtype: Dtype) -> Value {
+    let data = a.data().iter().zip(b.data()).map(|(&x, &y)| dtype.round(x + y)).collect();
+    Value::from_parts(a.shape().to_vec(), data)
+}
+
+/// The product is bilinear: ṫ = Ȧ B + A Ḃ.
+fn matmul_jvp(args: &JvpArgs) -> Value {
+    let (a, b, dtype) = (args.inputs[0], args.inputs[1], args.dtype);
+    let first = matmul_forward(&[args.tangents[0], b], args.attrs, dtype);
+    let second = matmul_forward(&[a, args.tangents[1]], args.attrs, dtype);
+    add_rounded(&first, &second, dtype)
+}
+
 /// The permutation in force: the attribute, or a swap of the last two axes.
 fn permutation(rank: usize, attrs: &Attrs) -> Vec<usize> {
     match &attrs.perm {
@@ -181,6 +195,11 @@ fn transpose_vjp(args: &VjpArgs) -> Value {
     permute(args.adjoint, &inverse)
 }
 
+/// Linear: the tangent is permuted like the value.
+fn transpose_jvp(args: &JvpArgs) -> Value {
+    transpose_forward(args.tangents, args.attrs, args.dtype)
+}
+
 fn reshape_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String> {
     let target = attrs.shape.clone().unwrap_or_default();
     if numel(&target) != numel(inputs[0]) {
@@ -201,6 +220,11 @@ fn reshape_forward(inputs: &[&Value], attrs: &Attrs, _: Dtype) -> Value {
 
 fn reshape_vjp(args: &VjpArgs) -> Value {
     args.adjoint.reshaped(args.inputs[0].shape())
+}
+
+/// Linear: the tangent is reshaped like the value.
+fn reshape_jvp(args: &JvpArgs) -> Value {
+    args.tangents[0].reshaped(args.output.shape())
 }
 
 #[cfg(test)]

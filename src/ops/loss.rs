@@ -2,17 +2,17 @@
 //! squared error.
 
 use super::reduce::{logsumexp_of, softmax_of};
-use super::{Attrs, StructuredRule, VjpArgs};
+use super::{Attrs, JvpArgs, StructuredRule, VjpArgs};
 use crate::dtype::Dtype;
 use crate::format::shape as show;
 use crate::tensor::Value;
 
 /// mean over rows of logsumexp(zₙ) − zₙ[tₙ].
 pub static CROSS_ENTROPY: StructuredRule =
-    StructuredRule { shape: cross_entropy_shape, forward: cross_entropy_forward, vjp: cross_entropy_vjp };
+    StructuredRule { shape: cross_entropy_shape, forward: cross_entropy_forward, vjp: cross_entropy_vjp, jvp: cross_entropy_jvp };
 
 /// mean((p − t)²) over all elements.
-pub static MSE: StructuredRule = StructuredRule { shape: mse_shape, forward: mse_forward, vjp: mse_vjp };
+pub static MSE: StructuredRule = StructuredRule { shape: mse_shape, forward: mse_forward, vjp: mse_vjp, jvp: mse_jvp };
 
 /// Rows and classes of logits shaped [C] or [N, C].
 fn rows_and_classes(shape: &[usize]) -> Option<(usize, usize)> {
@@ -73,6 +73,21 @@ fn cross_entropy_vjp(args: &VjpArgs) -> Value {
     Value::from_parts(logits.shape().to_vec(), out)
 }
 
+/// ẏ = (1/N) Σₙ Σ_c (softmax(zₙ) − onehot(tₙ))_c żₙ_c.
+fn cross_entropy_jvp(args: &JvpArgs) -> Value {
+    let (logits, tangent, dtype) = (args.inputs[0], args.tangents[0], args.dtype);
+    let count = targets(args.attrs).len() as f64;
+    let mut total: Option<f64> = None;
+    for ((row, tangent_row), &target) in rows(logits).zip(rows(tangent)).zip(targets(args.attrs)) {
+        for (class, (p, &t)) in softmax_of(dtype, row).into_iter().zip(tangent_row).enumerate() {
+            let indicator = if class == target { 1.0 } else { 0.0 };
+            let term = dtype.round(dtype.round(p - indicator) * t);
+            total = Some(total.map_or(term, |s| dtype.round(s + term)));
+        }
+    }
+    Value::Scalar(dtype.round(total.unwrap_or(0.0) / count))
+}
+
 fn mse_shape(inputs: &[&[usize]], _: &Attrs) -> Result<Vec<usize>, String> {
     if inputs[0] != inputs[1] {
         return Err(format!("mse needs prediction and target of one shape, got {} and {}", show(inputs[0]), show(inputs[1])));
@@ -104,6 +119,21 @@ fn mse_vjp(args: &VjpArgs) -> Value {
         .map(|(&p, &t)| sign * dtype.round(adjoint * dtype.round(scale * dtype.round(p - t))))
         .collect();
     Value::from_parts(prediction.shape().to_vec(), data)
+}
+
+/// ẏ = (2/n) Σ (p − t)(ṗ − ṫ).
+fn mse_jvp(args: &JvpArgs) -> Value {
+    let (prediction, target, dtype) = (args.inputs[0], args.inputs[1], args.dtype);
+    let (prediction_tangent, target_tangent) = (args.tangents[0], args.tangents[1]);
+    let scale = dtype.round(2.0 / prediction.len() as f64);
+    let mut total: Option<f64> = None;
+    for k in 0..prediction.len() {
+        let difference = dtype.round(prediction.data()[k] - target.data()[k]);
+        let tangent = dtype.round(prediction_tangent.data()[k] - target_tangent.data()[k]);
+        let term = dtype.round(difference * tangent);
+        total = Some(total.map_or(term, |s| dtype.round(s + term)));
+    }
+    Value::Scalar(dtype.round(scale * total.unwrap_or(0.0)))
 }
 
 #[cfg(test)]

@@ -13,6 +13,8 @@ pub use attrs::{AttrName, Attrs};
 use crate::dtype::Dtype;
 use crate::tensor::{Value, broadcast_shapes, broadcast_source_indices, numel};
 
+pub use linalg::add_rounded;
+
 /// Every op Ebb knows, plus `Custom` for ops that carry their own partials.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[allow(missing_docs)]
@@ -112,6 +114,20 @@ pub struct VjpArgs<'a> {
     pub dtype: Dtype,
 }
 
+/// Everything a Jacobian-vector product (tangent) needs.
+pub struct JvpArgs<'a> {
+    /// The recorded forward values of the inputs.
+    pub inputs: &'a [&'a Value],
+    /// The recorded forward value of the node.
+    pub output: &'a Value,
+    /// One tangent per input, each of its input's shape.
+    pub tangents: &'a [&'a Value],
+    /// The node's attributes.
+    pub attrs: &'a Attrs,
+    /// Arithmetic format.
+    pub dtype: Dtype,
+}
+
 /// A shape rule: the output shape for the input shapes, or why they do not fit.
 pub type ShapeRule = fn(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String>;
 
@@ -125,6 +141,9 @@ pub struct StructuredRule {
     /// The contribution to input `slot`: the adjoint pulled back through the
     /// op's Jacobian, in the input's shape.
     pub vjp: fn(args: &VjpArgs) -> Value,
+    /// The tangent of the output: the op's Jacobian applied to the inputs'
+    /// tangents (forward mode), in the output's shape.
+    pub jvp: fn(args: &JvpArgs) -> Value,
 }
 
 /// The derivative rule of an op.
@@ -373,6 +392,52 @@ pub fn vjp(op: Op, args: &VjpArgs) -> Value {
         }
         Rule::Structured(rule) => (rule.vjp)(args),
     }
+}
+
+/// The tangent of a catalog op's output given its inputs' tangents: the
+/// Jacobian-vector product, the forward-mode counterpart of [`vjp`].
+/// Elementwise ops sum each input's broadcast tangent times its diagonal partial.
+///
+/// # Panics
+/// For leaves and custom ops.
+pub fn jvp(op: Op, args: &JvpArgs) -> Value {
+    match &op.spec().rule {
+        Rule::Leaf | Rule::Custom => panic!("{} has no derivative rule", op.name()),
+        Rule::Unary(_) | Rule::Binary(_) => {
+            let shape = args.output.shape();
+            let mut total: Option<Vec<f64>> = None;
+            for (slot, tangent) in args.tangents.iter().enumerate() {
+                let partial = elementwise_partial(op, slot, args.inputs, args.output, args.attrs, args.dtype)
+                    .expect("elementwise ops have a diagonal partial");
+                let sources = broadcast_source_indices(tangent.shape(), shape);
+                let term = sources.iter().zip(partial.data()).map(|(&k, &p)| args.dtype.round(p * tangent.data()[k]));
+                total = Some(match total {
+                    None => term.collect(),
+                    Some(sum) => sum.iter().zip(term).map(|(&s, t)| args.dtype.round(s + t)).collect(),
+                });
+            }
+            Value::from_parts(shape.to_vec(), total.unwrap_or_else(|| vec![0.0; numel(shape)]))
+        }
+        Rule::Structured(rule) => (rule.jvp)(args),
+    }
+}
+
+/// Where an op is not differentiable everywhere, which side of each kink its
+/// inputs are on: per element −1, 0 or +1 for relu, leaky_relu and abs (0 is
+/// on the kink); per lane of max, the first maximum's position plus one,
+/// negated when the maximum is tied (on the kink). `None` for smooth ops.
+/// Two states that differ mean a change of the inputs crossed a kink.
+pub fn kink_state(op: Op, inputs: &[&Value], attrs: &Attrs) -> Option<Vec<i64>> {
+    match op {
+        Op::Relu | Op::LeakyRelu | Op::Abs => Some(inputs[0].data().iter().map(|&x| if x > 0.0 { 1 } else if x < 0.0 { -1 } else { 0 }).collect()),
+        Op::Max => Some(reduce::max_kink_state(inputs[0], attrs)),
+        _ => None,
+    }
+}
+
+/// True when a [`kink_state`] puts some element exactly on a kink.
+pub fn on_kink(state: &[i64]) -> bool {
+    state.iter().any(|&side| side <= 0)
 }
 
 /// `adjoint ⊙ partial` (both of the output's shape, or a scalar partial), then

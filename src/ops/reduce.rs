@@ -1,23 +1,23 @@
 //! Reductions and normalisations along an axis: sum, mean, max, softmax,
 //! log_softmax and logsumexp.
 
-use super::{Attrs, StructuredRule, VjpArgs};
+use super::{Attrs, JvpArgs, StructuredRule, VjpArgs};
 use crate::dtype::Dtype;
 use crate::format::shape as show;
 use crate::tensor::{Value, resolve_axis, split_at_axis};
 
 /// Σ of all elements, or along `axis`.
-pub static SUM: StructuredRule = StructuredRule { shape: reduced_shape, forward: sum_forward, vjp: sum_vjp };
+pub static SUM: StructuredRule = StructuredRule { shape: reduced_shape, forward: sum_forward, vjp: sum_vjp, jvp: sum_jvp };
 /// Mean of all elements, or along `axis`.
-pub static MEAN: StructuredRule = StructuredRule { shape: reduced_shape, forward: mean_forward, vjp: mean_vjp };
+pub static MEAN: StructuredRule = StructuredRule { shape: reduced_shape, forward: mean_forward, vjp: mean_vjp, jvp: mean_jvp };
 /// Maximum along `axis`; the first maximum receives the adjoint.
-pub static MAX: StructuredRule = StructuredRule { shape: reduced_shape, forward: max_forward, vjp: max_vjp };
+pub static MAX: StructuredRule = StructuredRule { shape: reduced_shape, forward: max_forward, vjp: max_vjp, jvp: max_jvp };
 /// Softmax along `axis` (default −1).
-pub static SOFTMAX: StructuredRule = StructuredRule { shape: same_shape_with_axis, forward: softmax_forward, vjp: softmax_vjp };
+pub static SOFTMAX: StructuredRule = StructuredRule { shape: same_shape_with_axis, forward: softmax_forward, vjp: softmax_vjp, jvp: softmax_jvp };
 /// Log-softmax along `axis` (default −1).
-pub static LOG_SOFTMAX: StructuredRule = StructuredRule { shape: same_shape_with_axis, forward: log_softmax_forward, vjp: log_softmax_vjp };
+pub static LOG_SOFTMAX: StructuredRule = StructuredRule { shape: same_shape_with_axis, forward: log_softmax_forward, vjp: log_softmax_vjp, jvp: log_softmax_jvp };
 /// log Σ eˣ of all elements, or along `axis`.
-pub static LOGSUMEXP: StructuredRule = StructuredRule { shape: reduced_shape, forward: logsumexp_forward, vjp: logsumexp_vjp };
+pub static LOGSUMEXP: StructuredRule = StructuredRule { shape: reduced_shape, forward: logsumexp_forward, vjp: logsumexp_vjp, jvp: logsumexp_jvp };
 
 /// The lanes a reduction runs along: `outer × inner` lanes of `length`
 /// elements each, `stride` apart.
@@ -266,6 +266,97 @@ fn logsumexp_vjp(args: &VjpArgs) -> Value {
         }
     }
     Value::from_parts(x.shape().to_vec(), out)
+}
+
+fn sum_jvp(args: &JvpArgs) -> Value {
+    sum_forward(args.tangents, args.attrs, args.dtype)
+}
+
+fn mean_jvp(args: &JvpArgs) -> Value {
+    mean_forward(args.tangents, args.attrs, args.dtype)
+}
+
+/// The tangent of the first maximum of each lane.
+fn max_jvp(args: &JvpArgs) -> Value {
+    let (x, tangent) = (args.inputs[0], args.tangents[0]);
+    let lanes = Lanes::of(x.shape(), checked_axis(args.attrs, x.shape().len(), None));
+    let data = (0..lanes.count())
+        .map(|lane| {
+            let indices: Vec<usize> = lanes.indices(lane).collect();
+            let (_, winner) = first_max(indices.iter().map(|&i| x.data()[i]));
+            tangent.data()[indices[winner]]
+        })
+        .collect();
+    Value::from_parts(args.output.shape().to_vec(), data)
+}
+
+/// Applies `per_lane(values, tangents, outputs)` along each lane of the node's axis.
+fn jvp_lanes(args: &JvpArgs, default_axis: Option<i64>, per_lane: impl Fn(&[f64], &[f64], &[f64]) -> Vec<f64>) -> Value {
+    let (x, tangent, y) = (args.inputs[0], args.tangents[0], args.output);
+    let lanes = Lanes::of(x.shape(), checked_axis(args.attrs, x.shape().len(), default_axis));
+    let same_shape = y.shape() == x.shape();
+    let mut out = vec![0.0; y.len()];
+    for lane in 0..lanes.count() {
+        let indices: Vec<usize> = lanes.indices(lane).collect();
+        let values: Vec<f64> = indices.iter().map(|&i| x.data()[i]).collect();
+        let tangents: Vec<f64> = indices.iter().map(|&i| tangent.data()[i]).collect();
+        if same_shape {
+            let outputs: Vec<f64> = indices.iter().map(|&i| y.data()[i]).collect();
+            for (&i, result) in indices.iter().zip(per_lane(&values, &tangents, &outputs)) {
+                out[i] = result;
+            }
+        } else {
+            out[lane] = per_lane(&values, &tangents, &[y.data()[lane]])[0];
+        }
+    }
+    Value::from_parts(y.shape().to_vec(), out)
+}
+
+/// Σₖ aₖ bₖ rounded into `dtype`.
+fn rounded_dot(dtype: Dtype, a: &[f64], b: &[f64]) -> f64 {
+    rounded_sum(dtype, &mut a.iter().zip(b).map(|(&x, &y)| dtype.round(x * y)))
+}
+
+/// ẏₖ = yₖ (ẋₖ − Σⱼ yⱼ ẋⱼ).
+fn softmax_jvp(args: &JvpArgs) -> Value {
+    let dtype = args.dtype;
+    jvp_lanes(args, Some(-1), |_, tangents, outputs| {
+        let weighted = rounded_dot(dtype, outputs, tangents);
+        outputs.iter().zip(tangents).map(|(&y, &t)| dtype.round(y * dtype.round(t - weighted))).collect()
+    })
+}
+
+/// ẏₖ = ẋₖ − Σⱼ softmax(x)ⱼ ẋⱼ, with softmax(x) = exp(y).
+fn log_softmax_jvp(args: &JvpArgs) -> Value {
+    let dtype = args.dtype;
+    jvp_lanes(args, Some(-1), |_, tangents, outputs| {
+        let probabilities: Vec<f64> = outputs.iter().map(|&y| dtype.round(y.exp())).collect();
+        let weighted = rounded_dot(dtype, &probabilities, tangents);
+        tangents.iter().map(|&t| dtype.round(t - weighted)).collect()
+    })
+}
+
+/// ẏ = Σₖ exp(xₖ − y) ẋₖ.
+fn logsumexp_jvp(args: &JvpArgs) -> Value {
+    let dtype = args.dtype;
+    jvp_lanes(args, None, |values, tangents, outputs| {
+        let weights: Vec<f64> = values.iter().map(|&x| dtype.round(dtype.round(x - outputs[0]).exp())).collect();
+        vec![rounded_dot(dtype, &weights, tangents)]
+    })
+}
+
+/// Per lane: the first maximum's position plus one, negated when tied.
+pub(super) fn max_kink_state(x: &Value, attrs: &Attrs) -> Vec<i64> {
+    let lanes = Lanes::of(x.shape(), checked_axis(attrs, x.shape().len(), None));
+    (0..lanes.count())
+        .map(|lane| {
+            let values: Vec<f64> = lanes.indices(lane).map(|i| x.data()[i]).collect();
+            let (best, winner) = first_max(values.iter().copied());
+            let tied = values.iter().filter(|&&v| v == best).count() > 1;
+            let position = winner as i64 + 1;
+            if tied { -position } else { position }
+        })
+        .collect()
 }
 
 /// Softmax of one lane for the loss rules, sharing this module's stabilisation.

@@ -8,7 +8,7 @@ mod pullback;
 
 pub use flags::{Flag, FlagKind};
 pub use ledger::{Contribution, Ledger};
-pub use pullback::{Pulled, accumulate, pull_back};
+pub use pullback::{Pulled, accumulate, pull_back, push_forward};
 
 use crate::ops;
 use crate::tensor::Value;

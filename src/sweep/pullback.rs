@@ -1,6 +1,7 @@
 //! Forming one contribution: a node's adjoint pulled back through the partial
 //! on one input edge, recorded or derived from the op table.
 
+use crate::dtype::Dtype;
 use crate::ops::{self, VjpArgs};
 use crate::tensor::Value;
 use crate::trace::{Partial, Trace};
@@ -77,13 +78,44 @@ fn derived(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
 /// Adds a contribution to an adjoint, rounding into the dtype. The first
 /// contribution becomes the adjoint as it is, as frameworks assign the first
 /// gradient rather than adding it to zero (which would turn −0 into +0).
-pub fn accumulate(before: Option<&Value>, contribution: &Value, dtype: crate::dtype::Dtype) -> Value {
+pub fn accumulate(before: Option<&Value>, contribution: &Value, dtype: Dtype) -> Value {
     match (before, contribution) {
         (None, _) => contribution.clone(),
         (Some(Value::Scalar(a)), Value::Scalar(c)) => Value::Scalar(dtype.round(a + c)),
         (Some(before), _) => {
             let data = before.data().iter().zip(contribution.data()).map(|(&a, &c)| dtype.round(a + c)).collect();
             Value::from_parts(before.shape().to_vec(), data)
+        }
+    }
+}
+
+/// A recorded partial applied forward: the Jacobian times an input's tangent
+/// (or small change), in the output's shape. The forward-mode twin of the
+/// pull-back above, for custom ops in tangent sweeps and linearised re-evaluation.
+pub fn push_forward(partial: &Partial, tangent: &Value, output_shape: &[usize], dtype: Dtype) -> Value {
+    match partial {
+        Partial::Scalar(s) => {
+            let sources = crate::tensor::broadcast_source_indices(tangent.shape(), output_shape);
+            Value::from_parts(output_shape.to_vec(), sources.iter().map(|&k| dtype.round(s * tangent.data()[k])).collect())
+        }
+        Partial::Diagonal(diagonal) => {
+            let sources = crate::tensor::broadcast_source_indices(tangent.shape(), output_shape);
+            let data = sources.iter().zip(diagonal.data()).map(|(&k, &d)| dtype.round(d * tangent.data()[k])).collect();
+            Value::from_parts(output_shape.to_vec(), data)
+        }
+        Partial::Jacobian { rows, cols, data } => {
+            let t = tangent.data();
+            let out = (0..*rows)
+                .map(|i| {
+                    let mut sum: Option<f64> = None;
+                    for j in 0..*cols {
+                        let product = dtype.round(data[i * cols + j] * t[j]);
+                        sum = Some(sum.map_or(product, |s| dtype.round(s + product)));
+                    }
+                    sum.unwrap_or(0.0)
+                })
+                .collect();
+            Value::from_parts(output_shape.to_vec(), out)
         }
     }
 }

@@ -41,32 +41,10 @@ pub fn assert_close(actual: f64, expected: f64, tolerance: f64) {
     assert!((actual - expected).abs() <= tolerance * scale.max(1.0), "got {actual}, expected {expected} (tolerance {tolerance})");
 }
 
-/// A small seeded generator (xorshift64*, Marsaglia 2003 / Vigna 2016) for
-/// reproducible test data.
-pub struct Rng(pub u64);
+pub use ebb::random::Rng;
 
-impl Rng {
-    /// Next raw 64 bits.
-    pub fn next_u64(&mut self) -> u64 {
-        self.0 ^= self.0 >> 12;
-        self.0 ^= self.0 << 25;
-        self.0 ^= self.0 >> 27;
-        self.0.wrapping_mul(0x2545_F491_4F6C_DD1D)
-    }
-
-    /// Uniform in [lo, hi).
-    pub fn uniform(&mut self, lo: f64, hi: f64) -> f64 {
-        lo + (hi - lo) * ((self.next_u64() >> 11) as f64 / (1u64 << 53) as f64)
-    }
-
-    /// Uniform integer in [0, n).
-    pub fn below(&mut self, n: usize) -> usize {
-        (self.next_u64() % n as u64) as usize
-    }
-
-    /// A tensor of uniform entries.
-    pub fn tensor(&mut self, shape: &[usize], lo: f64, hi: f64) -> Value {
-        let n = shape.iter().product();
-        Value::from_parts(shape.to_vec(), (0..n).map(|_| self.uniform(lo, hi)).collect())
-    }
+/// A tensor of entries uniform in [lo, hi).
+pub fn random_tensor(rng: &mut Rng, shape: &[usize], lo: f64, hi: f64) -> Value {
+    let n = shape.iter().product();
+    Value::from_parts(shape.to_vec(), (0..n).map(|_| rng.uniform(lo, hi)).collect())
 }

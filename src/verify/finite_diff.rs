@@ -1,0 +1,148 @@
+//! The finite-difference check: perturb parameter entries, re-evaluate the
+//! forward computation, and compare central differences with the sweep's
+//! adjoints.
+//!
+//! Step rule: h = ε^(1/3)·max(|x|, 1) with ε the f64 machine epsilon (the
+//! re-evaluation runs in f64 whatever the trace's dtype), the step that
+//! balances truncation and rounding error for central differences (Press,
+//! Teukolsky, Vetterling & Flannery, "Numerical Recipes", 3rd ed., CUP 2007,
+//! §5.7).
+
+use super::compare::{Band, relative_error};
+use crate::dtype::Dtype;
+use crate::eval::reevaluate;
+use crate::ops::{self, Op};
+use crate::sweep::Sweep;
+use crate::tensor::Value;
+use crate::trace::Trace;
+use serde::Serialize;
+
+/// One checked entry of a parameter.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct DifferenceEntry {
+    /// Flat index in the parameter.
+    pub element: usize,
+    /// The step h used.
+    pub step: f64,
+    /// (f(x + h) − f(x − h)) / 2h.
+    pub central: f64,
+    /// The sweep's adjoint.
+    pub reverse: f64,
+    /// Relative error of the two.
+    pub relative: f64,
+}
+
+/// The check of one parameter.
+#[derive(Debug, Clone, Serialize)]
+pub struct DifferenceCheck {
+    /// The parameter node.
+    pub param: usize,
+    /// Every checked entry.
+    pub entries: Vec<DifferenceEntry>,
+    /// Nodes with a kink at the evaluated point or crossed by a step: the
+    /// difference there is not a derivative, which explains a disagreement.
+    pub kinks: Vec<usize>,
+    /// Custom nodes on the way to the output, evaluated through their
+    /// recorded partials (their partials are trusted, not tested, here).
+    pub linearised: Vec<usize>,
+}
+
+impl DifferenceCheck {
+    /// The entry with the largest relative error.
+    pub fn worst(&self) -> Option<&DifferenceEntry> {
+        self.entries.iter().max_by(|a, b| a.relative.total_cmp(&b.relative))
+    }
+
+    /// The band of the worst entry.
+    pub fn band(&self) -> Band {
+        self.worst().map_or(Band::Good, |worst| Band::of(worst.relative))
+    }
+}
+
+/// A reproducible choice of `count` distinct entries out of `len`.
+fn sample(len: usize, count: usize, seed: u64) -> Vec<usize> {
+    if len <= count {
+        return (0..len).collect();
+    }
+    let mut rng = crate::random::Rng::new(seed);
+    let mut chosen = std::collections::BTreeSet::new();
+    while chosen.len() < count {
+        chosen.insert(rng.below(len));
+    }
+    chosen.into_iter().collect()
+}
+
+/// ⟨seed, output⟩: the scalar whose gradient the sweep computes.
+fn objective(values: &[Value], trace: &Trace) -> f64 {
+    let output = &values[trace.output()];
+    output.data().iter().zip(trace.seed().data()).map(|(&y, &s)| y * s).sum()
+}
+
+/// Which nodes depend on `source`.
+fn downstream(trace: &Trace, source: usize) -> Vec<bool> {
+    let mut depends = vec![false; trace.nodes().len()];
+    depends[source] = true;
+    for (node, recorded) in trace.nodes().iter().enumerate().skip(source + 1) {
+        depends[node] = recorded.inputs.iter().any(|&input| depends[input]);
+    }
+    depends
+}
+
+/// Checks up to `samples` entries of every parameter that reaches the output
+/// against central differences. `sweep` must have run to the end.
+pub fn check_finite_differences(sweep: &Sweep, samples: usize, seed: u64) -> Vec<DifferenceCheck> {
+    let trace = sweep.trace();
+    let mut checks = Vec::new();
+    for param in trace.params() {
+        let Some(adjoint) = sweep.adjoint(param) else { continue };
+        let depends = downstream(trace, param);
+        let on_path: Vec<usize> = (0..trace.nodes().len()).filter(|&n| depends[n] && trace.sweep_rank(n).is_some()).collect();
+        let linearised = on_path.iter().copied().filter(|&n| trace.node(n).op == Op::Custom).collect();
+        let mut kinks: Vec<usize> = on_path.iter().copied().filter(|&n| kink_at(trace, n)).collect();
+        let value = &trace.node(param).value;
+        let mut entries = Vec::new();
+        for element in sample(value.len(), samples, seed ^ (param as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15)) {
+            let x = value.data()[element];
+            let step = f64::EPSILON.cbrt() * x.abs().max(1.0);
+            let evaluate = |shift: f64| {
+                let mut moved = value.clone();
+                moved.data_mut()[element] = x + shift;
+                reevaluate(trace, &[(param, moved)], Dtype::F64).expect("a parameter keeps its shape")
+            };
+            let (plus, minus) = (evaluate(step), evaluate(-step));
+            for &node in &on_path {
+                if !kinks.contains(&node) && crossed_kink(trace, node, &plus, &minus) {
+                    kinks.push(node);
+                }
+            }
+            let central = (objective(&plus, trace) - objective(&minus, trace)) / (2.0 * step);
+            let reverse = adjoint.data()[element];
+            entries.push(DifferenceEntry { element, step, central, reverse, relative: relative_error(reverse, central) });
+        }
+        kinks.sort_unstable();
+        checks.push(DifferenceCheck { param, entries, kinks, linearised });
+    }
+    checks
+}
+
+fn kink_state<'v>(trace: &Trace, node: usize, value_of: impl Fn(usize) -> &'v Value) -> Option<Vec<i64>> {
+    let recorded = trace.node(node);
+    if !matches!(recorded.op, Op::Relu | Op::LeakyRelu | Op::Abs | Op::Max) {
+        return None;
+    }
+    let inputs: Vec<&Value> = recorded.inputs.iter().map(|&input| value_of(input)).collect();
+    ops::kink_state(recorded.op, &inputs, &recorded.attrs)
+}
+
+/// A kink exactly at the recorded point.
+fn kink_at(trace: &Trace, node: usize) -> bool {
+    kink_state(trace, node, |input| &trace.node(input).value).is_some_and(|state| ops::on_kink(&state))
+}
+
+/// The two evaluations lie on different sides of a kink.
+fn crossed_kink(trace: &Trace, node: usize, plus: &[Value], minus: &[Value]) -> bool {
+    match (kink_state(trace, node, |input| &plus[input]), kink_state(trace, node, |input| &minus[input])) {
+        (Some(a), Some(b)) => a != b,
+        _ => false,
+    }
+}

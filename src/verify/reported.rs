@@ -1,0 +1,64 @@
+//! The recorded-gradient check: compare the gradients the original framework
+//! reported with Ebb's sweep, and walk from the first disagreeing parameter
+//! towards the output to the node whose backward is the suspect.
+
+use super::compare::Worst;
+use crate::sweep::Sweep;
+use serde::Serialize;
+
+/// One node's reported gradient against the sweep's adjoint.
+#[derive(Debug, Clone, Serialize)]
+pub struct ReportedComparison {
+    /// The node.
+    pub node: usize,
+    /// Sweep adjoint (`actual`) against the reported gradient (`expected`).
+    pub worst: Worst,
+}
+
+/// The result of the walk.
+#[derive(Debug, Clone, Serialize)]
+pub struct Walk {
+    /// The first parameter (recording order) whose gradient disagrees.
+    pub param: usize,
+    /// The nodes walked, from the parameter to the last one that disagrees.
+    pub path: Vec<usize>,
+    /// Consumers of the last disagreeing node that agree (or report nothing):
+    /// one of their backwards sent the wrong contribution.
+    pub suspects: Vec<usize>,
+}
+
+/// Compares every reported gradient with the sweep (which must have run to
+/// the end) and walks from the first disagreeing parameter.
+pub fn check_reported(sweep: &Sweep, tolerance: f64) -> (Vec<ReportedComparison>, Option<Walk>) {
+    let trace = sweep.trace();
+    let comparisons: Vec<ReportedComparison> = trace
+        .nodes()
+        .iter()
+        .enumerate()
+        .filter_map(|(node, recorded)| {
+            let reported = recorded.reported.as_ref()?;
+            let adjoint = sweep.adjoint(node).cloned().unwrap_or_else(|| crate::tensor::Value::filled(reported.shape(), 0.0));
+            Some(ReportedComparison { node, worst: Worst::of(adjoint.data(), reported.data())? })
+        })
+        .collect();
+    let disagrees = |node: usize| comparisons.iter().any(|c| c.node == node && c.worst.relative > tolerance);
+    let Some(param) = trace.params().find(|&p| disagrees(p)) else { return (comparisons, None) };
+    // Walk towards the output while some consumer already disagrees: the
+    // error entered below the last disagreeing node.
+    let mut path = vec![param];
+    let mut current = param;
+    loop {
+        let consumers: Vec<usize> = trace.consumers(current).into_iter().map(|(c, _)| c).filter(|&c| trace.sweep_rank(c).is_some()).collect();
+        match consumers.iter().copied().filter(|&c| disagrees(c)).min_by_key(|&c| trace.sweep_rank(c)) {
+            Some(next) => {
+                path.push(next);
+                current = next;
+            }
+            None => {
+                let mut suspects = consumers;
+                suspects.dedup();
+                return (comparisons, Some(Walk { param, path, suspects }));
+            }
+        }
+    }
+}
