@@ -141,3 +141,29 @@ fn help_version_completions_and_catalog() {
         assert!(catalog.contains(name), "{catalog}");
     }
 }
+
+#[test]
+fn verify_agrees_on_the_demo_and_names_a_wrong_partial() {
+    let output = ebb(&["verify", "traces/teaching.ron"]);
+    assert_eq!(output.status.code(), Some(0), "{}", stdout(&output));
+    assert!(stdout(&output).contains("every check agrees"));
+
+    // exp's partial is its output; recording −e instead is a sign error.
+    let dir = tempfile::tempdir().unwrap();
+    let text = r#"(format: 1, title: "wrong exp partial", dtype: f64, output: "y", nodes: [
+      (id: "x", op: "param", value: 1.0),
+      (id: "y", op: "exp", inputs: ["x"], value: 2.718281828459045, partials: [-2.718281828459045]),
+    ])"#;
+    let path = write_temp(dir.path(), "wrong.ron", text);
+    let output = ebb(&["verify", path.to_str().unwrap()]);
+    assert_eq!(output.status.code(), Some(1));
+    let report = stdout(&output);
+    let first = report.lines().find(|line| line.starts_with("  1. ")).expect("a ranked suspect");
+    assert!(first.contains("'y' (exp)") && first.contains("probably wrong"), "{report}");
+    let output = ebb(&["verify", path.to_str().unwrap(), "--json"]);
+    let json: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap();
+    assert_eq!(json["agrees"], false);
+    assert_eq!(json["suspects"][0]["node"], "y");
+    assert_eq!(json["suspects"][0]["evidence"], "recorded_partial");
+    assert_eq!(ebb(&["verify", path.to_str().unwrap(), "--direction", "nowhere"]).status.code(), Some(2));
+}

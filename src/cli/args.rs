@@ -36,6 +36,30 @@ pub enum Command {
         #[arg(long, value_name = "N")]
         steps: Option<usize>,
     },
+    /// Look for a wrong derivative: recorded partials against the op table,
+    /// finite differences, reported gradients and the tangent sweep.
+    ///
+    /// Exit status: 0 when every check agrees, 1 when a mismatch is found, 2 on bad input.
+    #[command(after_help = "Examples:\n  ebb verify traces/teaching.ron\n  ebb verify layer.json --samples 32 --tolerance 1e-6 --json")]
+    Verify {
+        /// The trace file (.ron or .json).
+        trace: PathBuf,
+        /// Print the result as JSON.
+        #[arg(long)]
+        json: bool,
+        /// Relative error above which a check counts as a mismatch.
+        #[arg(long, value_name = "X", default_value_t = 1e-4)]
+        tolerance: f64,
+        /// Entries of each parameter checked by finite differences.
+        #[arg(long, value_name = "N", default_value_t = 8)]
+        samples: usize,
+        /// Seed of the sampled entries and of the random tangent direction.
+        #[arg(long, value_name = "S", default_value_t = 0xEBB)]
+        seed: u64,
+        /// Tangent direction: the unit vector of NODE's element K (default: a seeded random direction over all params).
+        #[arg(long, value_name = "NODE[:K]")]
+        direction: Option<String>,
+    },
     /// List the op catalog: names, inputs, required attributes.
     #[command(after_help = "Example:\n  ebb ops")]
     Ops,

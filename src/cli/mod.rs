@@ -12,6 +12,7 @@ use ebb::ops::{CATALOG, Rule};
 use ebb::report::Report;
 use ebb::sweep::{LedgerMode, Sweep};
 use ebb::trace::{self, Encoding, LoadError, Trace};
+use ebb::verify::{Direction, VerifyOptions, verify};
 use std::io::Write;
 use std::path::Path;
 
@@ -39,6 +40,12 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
         None => check(DEMO_NAME, &load_demo()?, false, out),
         Some(Command::Check { trace, json }) => check(&trace.display().to_string(), &load(&trace)?, json, out),
         Some(Command::Sweep { trace, steps }) => sweep(&load(&trace)?, steps, out),
+        Some(Command::Verify { trace, json, tolerance, samples, seed, direction }) => {
+            let loaded = load(&trace)?;
+            let direction = direction.map(|text| parse_direction(&loaded, &text)).transpose()?;
+            let options = VerifyOptions { tolerance, samples, seed, direction };
+            verify_command(&loaded, &options, json, out)
+        }
         Some(Command::Ops) => ops(out),
         Some(Command::Completions { shell }) => {
             let mut command = Cli::command();
@@ -71,6 +78,26 @@ fn sweep(trace: &Trace, steps: Option<usize>, out: &mut dyn Write) -> Result<Out
     let text = list_steps(&mut sweep, steps.unwrap_or(usize::MAX));
     out.write_all(text.as_bytes()).context("writing the sweep")?;
     Ok(if sweep.flags().is_empty() { Outcome::Clean } else { Outcome::Flagged })
+}
+
+/// `NODE` or `NODE:K`: the unit vector of one leaf element.
+fn parse_direction(trace: &Trace, text: &str) -> Result<Direction> {
+    let (id, element) = match text.rsplit_once(':') {
+        Some((id, element)) => (id, element.parse::<usize>().with_context(|| format!("--direction {text}: K must be an element index"))?),
+        None => (text, 0),
+    };
+    let node = trace.find(id).with_context(|| format!("--direction {text}: no node '{id}' in the trace"))?;
+    let len = trace.node(node).value.len();
+    anyhow::ensure!(trace.node(node).op.is_leaf(), "--direction {text}: '{id}' is not a leaf (input, param or const)");
+    anyhow::ensure!(element < len, "--direction {text}: '{id}' has {len} elements");
+    Ok(Direction::Unit { node, element })
+}
+
+fn verify_command(trace: &Trace, options: &VerifyOptions, json: bool, out: &mut dyn Write) -> Result<Outcome> {
+    let verification = verify(trace, options);
+    let text = if json { verification.to_json(trace) + "\n" } else { verification.to_text(trace) };
+    out.write_all(text.as_bytes()).context("writing the verification")?;
+    Ok(if verification.agrees() { Outcome::Clean } else { Outcome::Flagged })
 }
 
 fn ops(out: &mut dyn Write) -> Result<Outcome> {

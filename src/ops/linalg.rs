@@ -9,7 +9,8 @@ use crate::tensor::{Value, broadcast_shapes, broadcast_source_indices, numel, st
 pub static MATMUL: StructuredRule = StructuredRule { shape: matmul_shape, forward: matmul_forward, vjp: matmul_vjp, jvp: matmul_jvp };
 
 /// Axis permutation.
-pub static TRANSPOSE: StructuredRule = StructuredRule { shape: transpose_shape, forward: transpose_forward, vjp: transpose_vjp, jvp: transpose_jvp };
+pub static TRANSPOSE: StructuredRule =
+    StructuredRule { shape: transpose_shape, forward: transpose_forward, vjp: transpose_vjp, jvp: transpose_jvp };
 
 /// Same elements under a new shape.
 pub static RESHAPE: StructuredRule = StructuredRule { shape: reshape_shape, forward: reshape_forward, vjp: reshape_vjp, jvp: reshape_jvp };

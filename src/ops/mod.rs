@@ -429,7 +429,21 @@ pub fn jvp(op: Op, args: &JvpArgs) -> Value {
 /// Two states that differ mean a change of the inputs crossed a kink.
 pub fn kink_state(op: Op, inputs: &[&Value], attrs: &Attrs) -> Option<Vec<i64>> {
     match op {
-        Op::Relu | Op::LeakyRelu | Op::Abs => Some(inputs[0].data().iter().map(|&x| if x > 0.0 { 1 } else if x < 0.0 { -1 } else { 0 }).collect()),
+        Op::Relu | Op::LeakyRelu | Op::Abs => Some(
+            inputs[0]
+                .data()
+                .iter()
+                .map(|&x| {
+                    if x > 0.0 {
+                        1
+                    } else if x < 0.0 {
+                        -1
+                    } else {
+                        0
+                    }
+                })
+                .collect(),
+        ),
         Op::Max => Some(reduce::max_kink_state(inputs[0], attrs)),
         _ => None,
     }

@@ -13,11 +13,14 @@ pub static MEAN: StructuredRule = StructuredRule { shape: reduced_shape, forward
 /// Maximum along `axis`; the first maximum receives the adjoint.
 pub static MAX: StructuredRule = StructuredRule { shape: reduced_shape, forward: max_forward, vjp: max_vjp, jvp: max_jvp };
 /// Softmax along `axis` (default −1).
-pub static SOFTMAX: StructuredRule = StructuredRule { shape: same_shape_with_axis, forward: softmax_forward, vjp: softmax_vjp, jvp: softmax_jvp };
+pub static SOFTMAX: StructuredRule =
+    StructuredRule { shape: same_shape_with_axis, forward: softmax_forward, vjp: softmax_vjp, jvp: softmax_jvp };
 /// Log-softmax along `axis` (default −1).
-pub static LOG_SOFTMAX: StructuredRule = StructuredRule { shape: same_shape_with_axis, forward: log_softmax_forward, vjp: log_softmax_vjp, jvp: log_softmax_jvp };
+pub static LOG_SOFTMAX: StructuredRule =
+    StructuredRule { shape: same_shape_with_axis, forward: log_softmax_forward, vjp: log_softmax_vjp, jvp: log_softmax_jvp };
 /// log Σ eˣ of all elements, or along `axis`.
-pub static LOGSUMEXP: StructuredRule = StructuredRule { shape: reduced_shape, forward: logsumexp_forward, vjp: logsumexp_vjp, jvp: logsumexp_jvp };
+pub static LOGSUMEXP: StructuredRule =
+    StructuredRule { shape: reduced_shape, forward: logsumexp_forward, vjp: logsumexp_vjp, jvp: logsumexp_jvp };
 
 /// The lanes a reduction runs along: `outer × inner` lanes of `length`
 /// elements each, `stride` apart.

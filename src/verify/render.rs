@@ -35,9 +35,10 @@ impl Verification {
         for check in &self.differences {
             let Some(worst) = check.worst() else { continue };
             let mut line = format!(
-                "  '{}'  {} entries  worst relative error {} ({})",
+                "  '{}'  {} {}  worst relative error {} ({})",
                 id(check.param),
                 check.entries.len(),
+                if check.entries.len() == 1 { "entry" } else { "entries" },
                 compact(worst.relative),
                 check.band().name()
             );

@@ -48,7 +48,8 @@ pub fn check_reported(sweep: &Sweep, tolerance: f64) -> (Vec<ReportedComparison>
     let mut path = vec![param];
     let mut current = param;
     loop {
-        let consumers: Vec<usize> = trace.consumers(current).into_iter().map(|(c, _)| c).filter(|&c| trace.sweep_rank(c).is_some()).collect();
+        let consumers: Vec<usize> =
+            trace.consumers(current).into_iter().map(|(c, _)| c).filter(|&c| trace.sweep_rank(c).is_some()).collect();
         match consumers.iter().copied().filter(|&c| disagrees(c)).min_by_key(|&c| trace.sweep_rank(c)) {
             Some(next) => {
                 path.push(next);

@@ -23,6 +23,8 @@ pub enum Direction {
         /// Seed of the generator.
         seed: u64,
     },
+    /// Explicit tangents for some leaves (node, tangent of its shape).
+    Given(Vec<(usize, Value)>),
 }
 
 /// A tangent sweep in progress.
@@ -38,20 +40,25 @@ impl<'t> TangentSweep<'t> {
     /// A tangent sweep at its start.
     pub fn new(trace: &'t Trace, direction: &Direction) -> TangentSweep<'t> {
         let mut seeds: Vec<Option<Value>> = vec![None; trace.nodes().len()];
-        match *direction {
-            Direction::Unit { node, element } => {
+        match direction {
+            &Direction::Unit { node, element } => {
                 let mut unit = Value::filled(trace.node(node).value.shape(), 0.0);
                 if let Some(entry) = unit.data_mut().get_mut(element) {
                     *entry = 1.0;
                 }
                 seeds[node] = Some(unit);
             }
-            Direction::Random { seed } => {
+            &Direction::Random { seed } => {
                 let mut rng = crate::random::Rng::new(seed);
                 for param in trace.params() {
                     let shape = trace.node(param).value.shape().to_vec();
                     let data = (0..crate::tensor::numel(&shape)).map(|_| rng.uniform(-1.0, 1.0)).collect();
                     seeds[param] = Some(Value::from_parts(shape, data));
+                }
+            }
+            Direction::Given(tangents) => {
+                for (node, tangent) in tangents {
+                    seeds[*node] = Some(tangent.clone());
                 }
             }
         }
@@ -113,7 +120,8 @@ impl<'t> TangentSweep<'t> {
         let (trace, dtype) = (self.trace, self.trace.dtype());
         let recorded = trace.node(node);
         let zeros: Vec<Value> = recorded.inputs.iter().map(|&input| Value::filled(trace.node(input).value.shape(), 0.0)).collect();
-        let tangents: Vec<&Value> = recorded.inputs.iter().zip(&zeros).map(|(&input, zero)| self.tangents[input].as_ref().unwrap_or(zero)).collect();
+        let tangents: Vec<&Value> =
+            recorded.inputs.iter().zip(&zeros).map(|(&input, zero)| self.tangents[input].as_ref().unwrap_or(zero)).collect();
         let has_recorded = recorded.partials.iter().any(Option::is_some);
         if recorded.op == Op::Custom || has_recorded {
             // Recorded partials are what the reverse sweep uses, so the tangent uses them too.

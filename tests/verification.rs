@@ -1,0 +1,242 @@
+//! `ebb::verify`: the tangent sweep against published dual-number examples,
+//! finite differences against their known error terms, and the checks finding
+//! an injected wrong partial.
+
+mod common;
+
+use common::{Rng, checked, random_tensor, swept};
+use ebb::dtype::Dtype;
+use ebb::eval::reevaluate;
+use ebb::ops::{self, Attrs, Op, VjpArgs};
+use ebb::record::Tape;
+use ebb::tensor::Value;
+use ebb::trace::{PartialRepr, TraceFile, ValueRepr};
+use ebb::verify::{Band, Direction, Evidence, TangentSweep, VerifyOptions, verify};
+
+#[test]
+fn dual_number_product() {
+    // (3 + 2ε)(5 + 7ε) = 15 + (3·7 + 2·5)ε = 15 + 31ε, since ε² = 0: the
+    // product rule in dual numbers (common practice).
+    let mut tape = Tape::new("dual product", Dtype::F64);
+    let (a, b) = (tape.input("a", 3.0), tape.input("b", 5.0));
+    let product = tape.mul(a, b);
+    let trace = checked(tape.finish(product));
+    let direction = Direction::Given(vec![(0, Value::Scalar(2.0)), (1, Value::Scalar(7.0))]);
+    let mut tangent = TangentSweep::new(&trace, &direction);
+    tangent.run_to_end();
+    assert_eq!(trace.node(trace.output()).value, Value::Scalar(15.0));
+    assert_eq!(tangent.directional_derivative(), Some(31.0));
+}
+
+#[test]
+fn baydin_forward_mode_trace() {
+    // Baydin, Pearlmutter, Radul & Siskind, "Automatic Differentiation in
+    // Machine Learning: a Survey", JMLR 18 (2018), forward-mode evaluation
+    // trace of f(x1, x2) = ln x1 + x1·x2 − sin x2 at (2, 5): seeding x1 gives
+    // 11.652071455223084 + 5.5ε; seeding x2 gives the tangent 1.7163378145367738.
+    let mut tape = Tape::new("Baydin forward mode", Dtype::F64);
+    let (x1, x2) = (tape.input("x1", 2.0), tape.input("x2", 5.0));
+    let v1 = tape.log(x1);
+    let v2 = tape.mul(x1, x2);
+    let v3 = tape.sin(x2);
+    let v4 = tape.add(v1, v2);
+    let v5 = tape.sub(v4, v3);
+    let trace = checked(tape.finish(v5));
+    assert_eq!(trace.node(trace.output()).value, Value::Scalar(11.652071455223084));
+    let mut tangent = TangentSweep::new(&trace, &Direction::Unit { node: 0, element: 0 });
+    // Step it node by node as a teacher would: x1's tangent is 1, x2's is 0 (zero tangents stay unset).
+    tangent.step();
+    assert_eq!(tangent.tangent(0), Some(&Value::Scalar(1.0)));
+    tangent.step();
+    assert_eq!(tangent.tangent(1), None);
+    tangent.step();
+    assert_eq!(tangent.tangent(2), Some(&Value::Scalar(0.5)), "v̇1 = ẋ1 / x1");
+    tangent.run_to_end();
+    assert_eq!(tangent.directional_derivative(), Some(5.5));
+    assert!(tangent.back());
+    assert_eq!(tangent.directional_derivative(), None);
+
+    let mut tangent = TangentSweep::new(&trace, &Direction::Unit { node: 1, element: 0 });
+    tangent.run_to_end();
+    let derivative = tangent.directional_derivative().unwrap();
+    assert!((derivative - 1.7163378145367738).abs() < 1e-15, "{derivative}");
+    // The dot-product identity against the reverse sweep.
+    let sweep = swept(&trace);
+    assert!((tangent.reverse_counterpart(&sweep) - derivative).abs() < 1e-15);
+}
+
+#[test]
+fn central_differences_of_a_cube_have_error_h_squared() {
+    // f(x) = x³ at 1 (common practice, exact arithmetic): the central difference
+    // is 3 + h², so its error is h² (1e-4 at h = 1e-2); the forward difference
+    // errs by 3h + h².
+    let mut tape = Tape::new("cube", Dtype::F64);
+    let x = tape.param("x", 1.0);
+    let cube = tape.apply(Op::Pow, &[x], Attrs { exponent: Some(3.0), ..Attrs::default() }).unwrap();
+    let trace = checked(tape.finish(cube));
+    let at = |x: f64| reevaluate(&trace, &[(0, Value::Scalar(x))], Dtype::F64).unwrap()[1].as_scalar().unwrap();
+    let h = 1e-2;
+    let central = (at(1.0 + h) - at(1.0 - h)) / (2.0 * h);
+    assert!((central - 3.0 - h * h).abs() < 1e-12, "central error {}", central - 3.0);
+    let forward = (at(1.0 + h) - at(1.0)) / h;
+    assert!((forward - 3.0 - (3.0 * h + h * h)).abs() < 1e-12, "forward error {}", forward - 3.0);
+}
+
+/// Records every edge's partial from the op table, as a framework with
+/// hand-written backward passes would, so that one can then be corrupted.
+fn with_recorded_partials(file: TraceFile) -> TraceFile {
+    let trace = checked(file.clone());
+    let mut file = file;
+    for (index, node) in trace.nodes().iter().enumerate() {
+        if node.op.is_leaf() {
+            continue;
+        }
+        let inputs: Vec<&Value> = node.inputs.iter().map(|&i| &trace.node(i).value).collect();
+        let partials = (0..inputs.len())
+            .map(|slot| match ops::elementwise_partial(node.op, slot, &inputs, &node.value, &node.attrs, trace.dtype()) {
+                Some(diagonal) => PartialRepr::Diagonal(diagonal.data().to_vec()),
+                None => {
+                    let rows = (0..node.value.len())
+                        .map(|row| {
+                            let mut unit = Value::filled(node.value.shape(), 0.0);
+                            unit.data_mut()[row] = 1.0;
+                            let args = VjpArgs {
+                                slot,
+                                inputs: &inputs,
+                                output: &node.value,
+                                adjoint: &unit,
+                                attrs: &node.attrs,
+                                dtype: trace.dtype(),
+                            };
+                            ops::vjp(node.op, &args).data().to_vec()
+                        })
+                        .collect();
+                    PartialRepr::Jacobian(rows)
+                }
+            })
+            .collect();
+        file.nodes[index].partials = partials;
+    }
+    file
+}
+
+/// A small random network of tensor ops.
+fn random_network(seed: u64) -> TraceFile {
+    let mut rng = Rng::new(seed);
+    let mut tape = Tape::new("random network", Dtype::F64);
+    let x = tape.input("x", random_tensor(&mut rng, &[2, 3], -1.0, 1.0));
+    let w = tape.param("w", random_tensor(&mut rng, &[3, 3], -1.0, 1.0));
+    let b = tape.param("b", random_tensor(&mut rng, &[3], -0.5, 0.5));
+    let hidden = tape.matmul(x, w);
+    let hidden = tape.add(hidden, b);
+    let activation = [Op::Tanh, Op::Sigmoid, Op::Sin, Op::Exp][rng.below(4)];
+    let hidden = tape.apply(activation, &[hidden], Attrs::default()).unwrap();
+    let scaled = tape.mul(hidden, b);
+    let probabilities = tape.apply(Op::Softmax, &[scaled], Attrs::default()).unwrap();
+    let target = tape.constant("target", random_tensor(&mut rng, &[2, 3], 0.0, 1.0));
+    let loss = tape.mse(probabilities, target);
+    tape.finish(loss)
+}
+
+#[test]
+fn on_random_networks_every_check_agrees() {
+    for seed in 1..=6 {
+        let file = with_recorded_partials(random_network(seed));
+        let trace = checked(file);
+        let verification = verify(&trace, &VerifyOptions::default());
+        assert!(verification.agrees(), "seed {seed}: {}", verification.to_text(&trace));
+        assert!(!verification.partials.is_empty());
+        for check in &verification.partials {
+            assert!(check.worst.relative < 1e-12, "recorded partials came from the same rule");
+        }
+        for check in &verification.differences {
+            assert!(check.band() <= Band::Acceptable, "seed {seed}: {:?}", check.worst());
+        }
+        assert!(verification.tangent.unwrap().relative < 1e-12);
+    }
+}
+
+#[test]
+fn an_injected_sign_flip_is_found_at_its_node() {
+    for seed in 1..=6 {
+        let file = with_recorded_partials(random_network(seed));
+        let candidates: Vec<usize> = (0..file.nodes.len()).filter(|&k| !file.nodes[k].partials.is_empty()).collect();
+        for &flipped in &candidates {
+            let mut corrupted = file.clone();
+            let partial = &mut corrupted.nodes[flipped].partials[0];
+            *partial = match partial.clone() {
+                PartialRepr::Diagonal(d) => PartialRepr::Diagonal(d.iter().map(|x| -x).collect()),
+                PartialRepr::Jacobian(rows) => PartialRepr::Jacobian(rows.iter().map(|r| r.iter().map(|x| -x).collect()).collect()),
+                other => other,
+            };
+            let trace = checked(corrupted);
+            let verification = verify(&trace, &VerifyOptions::default());
+            let partial_suspects: Vec<usize> =
+                verification.suspects.iter().filter(|s| s.evidence == Evidence::RecordedPartial).map(|s| s.node).collect();
+            if trace.node(flipped).partials[0]
+                .as_ref()
+                .is_some_and(|p| matches!(p, ebb::trace::Partial::Diagonal(d) if d.data().iter().all(|&x| x == 0.0)))
+            {
+                continue;
+            }
+            assert_eq!(
+                partial_suspects,
+                vec![flipped],
+                "seed {seed}: flipped {}:\n{}",
+                file.nodes[flipped].id,
+                verification.to_text(&trace)
+            );
+            assert_eq!(verification.suspects[0].band, Band::ProbablyWrong);
+        }
+    }
+}
+
+#[test]
+fn reported_gradients_lead_to_the_node_with_the_wrong_backward() {
+    // A custom op y = x² recorded with the partial −2x (a sign error). The
+    // framework's reported gradients are the true ones; the walk from the
+    // parameter ends at the custom node.
+    let mut tape = Tape::new("reported", Dtype::F64);
+    let w = tape.param("w", Value::from_parts(vec![3], vec![0.5, -1.0, 2.0]));
+    let scale = tape.constant("scale", 3.0);
+    let h = tape.mul(w, scale);
+    let h_value = tape.value(h).data().to_vec();
+    let squared: Vec<f64> = h_value.iter().map(|x| x * x).collect();
+    let wrong: Vec<f64> = h_value.iter().map(|x| -2.0 * x).collect();
+    let custom = tape.custom("square_custom", &[h], Value::from_parts(vec![3], squared), vec![PartialRepr::Diagonal(wrong)]).unwrap();
+    let loss = tape.apply(Op::Sum, &[custom], Attrs::default()).unwrap();
+    let mut file = tape.finish(loss);
+    // True gradients: ∂L/∂y = 1, ∂L/∂h = 2h, ∂L/∂w = 3·2h.
+    let true_h: Vec<f64> = h_value.iter().map(|x| 2.0 * x).collect();
+    let true_w: Vec<f64> = true_h.iter().map(|g| 3.0 * g).collect();
+    file.nodes[0].reported = Some(ValueRepr::Tensor { shape: vec![3], data: true_w });
+    file.nodes[2].reported = Some(ValueRepr::Tensor { shape: vec![3], data: true_h });
+    file.nodes[3].reported = Some(ValueRepr::Tensor { shape: vec![3], data: vec![1.0; 3] });
+    let trace = checked(file);
+    let verification = verify(&trace, &VerifyOptions::default());
+    assert_eq!(verification.suspects.len(), 1, "{}", verification.to_text(&trace));
+    let suspect = &verification.suspects[0];
+    assert_eq!(trace.node(suspect.node).id, trace.node(3).id);
+    assert_eq!(suspect.evidence, Evidence::ReportedGradient);
+    assert_eq!(suspect.band, Band::ProbablyWrong);
+    let walk = verification.walk.as_ref().unwrap();
+    assert_eq!(walk.path, vec![0, 2]);
+}
+
+#[test]
+fn kinks_are_named_when_a_step_crosses_them() {
+    // relu at exactly 0: the central difference straddles the kink.
+    let mut tape = Tape::new("kink", Dtype::F64);
+    let w = tape.param("w", Value::from_parts(vec![2], vec![0.0, 1.0]));
+    let r = tape.relu(w);
+    let loss = tape.apply(Op::Sum, &[r], Attrs::default()).unwrap();
+    let trace = checked(tape.finish(loss));
+    let verification = verify(&trace, &VerifyOptions::default());
+    let check = &verification.differences[0];
+    assert_eq!(check.kinks, vec![1], "the relu node is named");
+    let at_kink = check.entries.iter().find(|e| e.element == 0).unwrap();
+    assert_eq!(at_kink.reverse, 0.0, "the subgradient at the kink is 0");
+    assert!((at_kink.central - 0.5).abs() < 1e-9, "the difference averages both sides");
+    let suspect = verification.suspects.iter().find(|s| s.evidence == Evidence::FiniteDifference).unwrap();
+    assert!(suspect.detail.contains("kinks at"), "{}", suspect.detail);
+}
