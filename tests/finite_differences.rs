@@ -1,5 +1,6 @@
 //! Every op's derivative rule, broadcasting included, against central finite
-//! differences of the forward rules on small tensor graphs.
+//! differences of the forward rules on small tensor graphs; and every op's
+//! tangent rule against its reverse rule.
 //!
 //! Step rule: h = ε^(1/3)·max(|x|, 1), the choice that balances truncation
 //! error O(h²) against rounding error O(ε/h) for central differences (Press,
@@ -55,6 +56,14 @@ fn check(name: &str, build: impl Fn(&mut Tape, &mut Rng) -> Var) {
         }
     }
     assert!(checked_entries > 0, "{name}: no parameter checked");
+
+    // The op's tangent rule against its reverse rule: ⟨v, ∇f⟩ = ∂f/∂v for a
+    // random direction v (the dot-product identity of forward and reverse mode).
+    let mut tangent = ebb::verify::TangentSweep::new(&trace, &ebb::verify::Direction::Random { seed: 0x7A9 });
+    tangent.run_to_end();
+    let forward = tangent.directional_derivative().expect("the output has a tangent");
+    let reverse = tangent.reverse_counterpart(&sweep);
+    assert!((forward - reverse).abs() <= 1e-12 * reverse.abs().max(1.0), "{name}: tangent {forward} vs reverse {reverse}");
 }
 
 fn param(tape: &mut Tape, rng: &mut Rng, name: &str, shape: &[usize], lo: f64, hi: f64) -> Var {
