@@ -1,7 +1,7 @@
 //! Reading and writing trace files: choosing the encoding, parsing RON or
 //! JSON into the schema types, and attaching file positions to problems.
 
-use super::error::{LoadError, Problem};
+use super::error::LoadError;
 use super::model::Trace;
 use super::schema::TraceFile;
 use super::validate::validate;
@@ -138,11 +138,6 @@ fn locate_node(text: &str, id: &str, occurrence: usize) -> Option<(usize, usize)
         from = at + quoted.len();
     }
     None
-}
-
-/// Problems of a trace that parsed, rendered one per line with the file name.
-pub fn render(path: &Path, problems: &[Problem]) -> String {
-    LoadError::Invalid { path: path.to_path_buf(), problems: problems.to_vec() }.to_string()
 }
 
 #[cfg(test)]
