@@ -6,16 +6,30 @@ use std::path::PathBuf;
 
 /// Step the reverse sweep of a recorded trace and find where a bad gradient was born.
 #[derive(Debug, Parser)]
-#[command(name = "ebb", version, about, long_about = None, after_help = "Examples:\n  ebb                           check the built-in demo trace\n  ebb check traces/teaching.ron report gradients and flags\n  ebb sweep traces/teaching.ron list every step of the sweep")]
+#[command(name = "ebb", version, about, long_about = None, after_help = "Examples:\n  ebb                           step the built-in demo trace in the view (its report when not a terminal)\n  ebb open traces/teaching.ron  step a trace in the full-screen view\n  ebb check traces/teaching.ron report gradients and flags\n  ebb sweep traces/teaching.ron list every step of the sweep")]
 pub struct Cli {
     /// What to do; without one, Ebb works on its built-in demo trace.
     #[command(subcommand)]
     pub command: Option<Command>,
+    /// Theme of the view on the built-in demo: a shipped name (dark, light, contrast, colorblind) or a path to a .ron theme.
+    #[arg(long, value_name = "NAME|PATH")]
+    pub theme: Option<String>,
 }
 
 /// The subcommands.
 #[derive(Debug, Subcommand)]
 pub enum Command {
+    /// Step a trace's reverse sweep in the full-screen terminal view.
+    ///
+    /// Needs a terminal; `ebb check` and `ebb sweep` give text output. NO_COLOR is honoured.
+    #[command(after_help = "Examples:\n  ebb open traces/teaching.ron\n  ebb open run.json --theme colorblind\n  ebb open run.json --theme my-theme.ron\n\nKeys: ? in the view lists them all.")]
+    Open {
+        /// The trace file (.ron or .json).
+        trace: PathBuf,
+        /// A shipped theme (dark, light, contrast, colorblind) or a path to a .ron theme.
+        #[arg(long, value_name = "NAME|PATH")]
+        theme: Option<String>,
+    },
     /// Load a trace, sweep it to the end, report gradients and flags.
     ///
     /// Exit status: 0 when nothing is flagged, 1 when something is, 2 on bad input.

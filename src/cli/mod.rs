@@ -12,8 +12,9 @@ use ebb::ops::{CATALOG, Rule};
 use ebb::report::Report;
 use ebb::sweep::{LedgerMode, Sweep};
 use ebb::trace::{self, Encoding, LoadError, Trace};
+use ebb::tui::{self, Theme, ViewError};
 use ebb::verify::{Direction, VerifyOptions, verify};
-use std::io::Write;
+use std::io::{IsTerminal, Write};
 use std::path::Path;
 
 /// The demo trace built into the binary.
@@ -37,7 +38,9 @@ pub struct BadInput(#[from] pub LoadError);
 /// Runs a parsed command line, writing to `out`.
 pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
     match cli.command {
+        None if std::io::stdout().is_terminal() => view(&load_demo()?, DEMO_NAME, cli.theme.as_deref()),
         None => check(DEMO_NAME, &load_demo()?, false, out),
+        Some(Command::Open { trace, theme }) => open(&trace, theme.as_deref()),
         Some(Command::Check { trace, json }) => check(&trace.display().to_string(), &load(&trace)?, json, out),
         Some(Command::Sweep { trace, steps }) => sweep(&load(&trace)?, steps, out),
         Some(Command::Verify { trace, json, tolerance, samples, seed, direction }) => {
@@ -52,6 +55,38 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
             clap_complete::generate(shell, &mut command, "ebb", out);
             Ok(Outcome::Clean)
         }
+    }
+}
+
+/// Standard output is not a terminal, so the view cannot open.
+#[derive(Debug, thiserror::Error)]
+#[error("`ebb open` needs a terminal, and standard output is not one (hint: use `ebb check {0}` for a report or `ebb sweep {0}` for a step-by-step listing)")]
+pub struct NeedsTerminal(String);
+
+fn themes(theme: Option<&str>) -> Result<Vec<Theme>> {
+    let first = theme.map(Theme::resolve).transpose()?;
+    Ok(Theme::cycle(first, tui::no_color_requested()))
+}
+
+fn open(path: &Path, theme: Option<&str>) -> Result<Outcome> {
+    if !std::io::stdout().is_terminal() {
+        return Err(NeedsTerminal(path.display().to_string()).into());
+    }
+    let themes = themes(theme)?;
+    tui::open(path, themes).map_err(view_error)?;
+    Ok(Outcome::Clean)
+}
+
+fn view(trace: &Trace, label: &str, theme: Option<&str>) -> Result<Outcome> {
+    let themes = themes(theme)?;
+    tui::view(trace, label, themes).map_err(view_error)?;
+    Ok(Outcome::Clean)
+}
+
+fn view_error(error: ViewError) -> anyhow::Error {
+    match error {
+        ViewError::Load(error) => BadInput(error).into(),
+        other => other.into(),
     }
 }
 

@@ -1,0 +1,162 @@
+//! Node: the selected node's op, attributes, group, call site, shape, forward
+//! value (with a summary for tensors), the partial on each input edge, its
+//! adjoint so far, its flags, and a scrollable view of a tensor's elements.
+
+use super::{Move, Pane, fit, value_text};
+use crate::format::{compact, number, shape};
+use crate::ops::Attrs;
+use crate::stats::Summary;
+use crate::tui::action::PaneId;
+use crate::tui::app::App;
+use crate::tui::neighbours::Side;
+use crate::tui::symbols::{self, CURRENT, DONE, PENDING};
+use ratatui::buffer::Buffer;
+use ratatui::layout::Rect;
+use ratatui::style::Style;
+use ratatui::text::{Line, Span};
+use ratatui::widgets::{Paragraph, Widget};
+
+/// The node detail pane.
+pub struct NodePane;
+
+const LABEL: usize = 9;
+
+fn labelled<'a>(label: &str, value: String, label_style: Style, value_style: Style) -> Line<'a> {
+    Line::from(vec![Span::styled(fit(label, LABEL), label_style), Span::styled(value, value_style)])
+}
+
+fn attrs_text(attrs: &Attrs) -> String {
+    let mut parts = Vec::new();
+    if let Some(axis) = attrs.axis {
+        parts.push(format!("axis={axis}"));
+    }
+    if attrs.keepdims {
+        parts.push("keepdims".to_string());
+    }
+    if let Some(exponent) = attrs.exponent {
+        parts.push(format!("exponent={}", number(exponent)));
+    }
+    if let Some(slope) = attrs.slope {
+        parts.push(format!("slope={}", number(slope)));
+    }
+    if let Some(targets) = &attrs.targets {
+        parts.push(format!("targets={targets:?}"));
+    }
+    if let Some(perm) = &attrs.perm {
+        parts.push(format!("perm={perm:?}"));
+    }
+    if let Some(target) = &attrs.shape {
+        parts.push(format!("shape={target:?}"));
+    }
+    if parts.is_empty() { "—".to_string() } else { parts.join(" ") }
+}
+
+fn summary_lines<'a>(label: &str, summary: &Summary, app: &App) -> [Line<'a>; 2] {
+    let theme = app.theme();
+    let first = format!(
+        "‖·‖ {}  min {}  max {}  mean {}",
+        compact(summary.norm),
+        compact(summary.min),
+        compact(summary.max),
+        compact(summary.mean)
+    );
+    let second = format!(
+        "NaN {}  +inf {}  −inf {}  zeros {}  subnormal {}  of {}",
+        summary.nan, summary.pos_inf, summary.neg_inf, summary.zeros, summary.subnormal, summary.len
+    );
+    let counts_style = if summary.non_finite() > 0 { theme.flag_value } else { theme.text };
+    [labelled(label, first, theme.muted, theme.text), labelled("", second, theme.muted, counts_style)]
+}
+
+impl Pane for NodePane {
+    fn id(&self) -> PaneId {
+        PaneId::Node
+    }
+
+    fn title_detail(&self, app: &App) -> String {
+        app.trace.node(app.selected).id.clone()
+    }
+
+    fn draw(&self, app: &App, area: Rect, buf: &mut Buffer) {
+        let theme = app.theme();
+        let trace = app.trace;
+        let node = app.selected;
+        let recorded = trace.node(node);
+        let width = area.width as usize;
+        let value_width = width.saturating_sub(LABEL);
+        let mut lines: Vec<Line> = Vec::new();
+        let group = if recorded.group.is_empty() { "(no group)" } else { recorded.group.as_str() };
+        lines.push(Line::from(vec![
+            Span::styled(fit("node", LABEL), theme.muted),
+            Span::styled(recorded.id.clone(), theme.title),
+            Span::styled(format!("  {}  in {group}", recorded.op_name), theme.text),
+        ]));
+        let (state, state_style) = match trace.sweep_rank(node) {
+            None => ("does not reach the output: no adjoint".to_string(), theme.muted),
+            Some(rank) if rank < app.sweep.cursor() => (format!("{DONE} done at step {}", rank + 1), theme.done),
+            Some(rank) if rank == app.sweep.cursor() => (format!("{CURRENT} current: step {} processes it", rank + 1), theme.current),
+            Some(rank) => (format!("{PENDING} pending: step {}", rank + 1), theme.pending),
+        };
+        lines.push(labelled("state", state, theme.muted, state_style));
+        lines.push(labelled("site", recorded.site.clone().unwrap_or_else(|| "(not recorded)".to_string()), theme.muted, theme.text));
+        let shape_text = if recorded.value.shape().is_empty() { "scalar".to_string() } else { shape(recorded.value.shape()) };
+        lines.push(labelled("shape", format!("{shape_text} {}   attrs {}", trace.dtype(), attrs_text(&recorded.attrs)), theme.muted, theme.text));
+        match &app.selection.value {
+            Some(summary) => lines.extend(summary_lines("value", summary, app)),
+            None => lines.push(labelled("value", value_text(&recorded.value, value_width), theme.muted, theme.text)),
+        }
+        let pending = app.sweep.pending_consumers(node).len();
+        let adjoint = app.sweep.adjoint(node);
+        let adjoint_note = match (adjoint, pending) {
+            (None, _) if trace.sweep_rank(node).is_none() => String::new(),
+            (None, _) => "none yet".to_string(),
+            (Some(_), 0) => "  (final)".to_string(),
+            (Some(_), more) => format!("  (so far; {more} to come)"),
+        };
+        match (&app.selection.adjoint, adjoint) {
+            (Some(summary), _) => {
+                lines.extend(summary_lines("adjoint", summary, app));
+                lines.push(labelled("", adjoint_note.trim().to_string(), theme.muted, theme.muted));
+            }
+            (None, Some(value)) => {
+                let text = value_text(value, value_width.saturating_sub(adjoint_note.len()));
+                let style = if value.is_finite() { theme.text } else { theme.flag_adjoint };
+                lines.push(Line::from(vec![
+                    Span::styled(fit("adjoint", LABEL), theme.muted),
+                    Span::styled(text, style.add_modifier(ratatui::style::Modifier::BOLD)),
+                    Span::styled(adjoint_note, theme.muted),
+                ]));
+            }
+            (None, None) => lines.push(labelled("adjoint", adjoint_note, theme.muted, theme.muted)),
+        }
+        for edge in app.selection.edges.iter().filter(|edge| edge.side == Side::Input) {
+            let input = &trace.node(edge.node).id;
+            lines.push(labelled(&format!("∂ in {}", edge.slot), format!("← {input}  {}", edge.partial), theme.muted, theme.text));
+        }
+        if recorded.inputs.is_empty() {
+            lines.push(labelled("∂", "a leaf: no input edges".to_string(), theme.muted, theme.muted));
+        }
+        let flags: Vec<&crate::sweep::Flag> = app.sweep.flags().iter().filter(|flag| flag.node == node).collect();
+        for flag in flags {
+            let style = symbols::flag_style(theme, flag.kind);
+            let text = format!("{} {} {} at step {} ({} element(s))", symbols::flag_symbol(flag.kind), flag.kind.name(), number(flag.value), flag.step + 1, flag.count);
+            lines.push(labelled("flag", text, theme.muted, style));
+        }
+        if let crate::tensor::Value::Tensor(tensor) = &recorded.value {
+            lines.push(Line::styled(format!("{:>8}  {:<24}{}", "element", "value", "adjoint"), theme.muted));
+            let shown = (area.height as usize).saturating_sub(lines.len());
+            let adjoint_data = adjoint.map(|value| value.data());
+            for index in app.node_scroll..tensor.data().len().min(app.node_scroll + shown) {
+                let value = fit(&number(tensor.data()[index]), 23);
+                let adjoint = adjoint_data.and_then(|data| data.get(index)).map_or("—".to_string(), |&x| number(x));
+                lines.push(Line::styled(format!("{index:>8}  {value} {adjoint}"), theme.text));
+            }
+        }
+        Paragraph::new(lines).render(area, buf);
+    }
+
+    fn move_cursor(&self, app: &mut App, motion: Move) {
+        let len = app.trace.node(app.selected).value.len();
+        app.node_scroll = motion.apply(app.node_scroll, len);
+    }
+}

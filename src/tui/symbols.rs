@@ -1,0 +1,79 @@
+//! The symbols that carry meaning without colour: sweep states and flag kinds.
+
+use super::theme::Theme;
+use crate::sweep::FlagKind;
+use ratatui::style::Style;
+
+/// Marker of a processed node.
+pub const DONE: &str = "✓";
+/// Marker of the node the next step processes.
+pub const CURRENT: &str = "▶";
+/// Marker of a node still to come.
+pub const PENDING: &str = "·";
+
+/// Each flag kind's symbol: different shapes, so no meaning rests on colour.
+pub fn flag_symbol(kind: FlagKind) -> &'static str {
+    match kind {
+        FlagKind::NonFiniteValue => "✗",
+        FlagKind::NonFinitePartial => "∂",
+        FlagKind::NonFiniteAdjoint => "!",
+    }
+}
+
+/// Each flag kind's theme role.
+pub fn flag_style(theme: &Theme, kind: FlagKind) -> Style {
+    match kind {
+        FlagKind::NonFiniteValue => theme.flag_value,
+        FlagKind::NonFinitePartial => theme.flag_partial,
+        FlagKind::NonFiniteAdjoint => theme.flag_adjoint,
+    }
+}
+
+/// Every flag kind, for the legend in the help.
+pub const FLAG_KINDS: [FlagKind; 3] = [FlagKind::NonFiniteValue, FlagKind::NonFinitePartial, FlagKind::NonFiniteAdjoint];
+
+/// A log-scale bar of `width` cells for a norm: one cell per two decades
+/// from 1e-8 (empty) to 1e8 (full), with eighth-cell steps. Non-finite
+/// norms fill the bar with `!`.
+pub fn magnitude_bar(norm: Option<f64>, width: usize) -> String {
+    const EIGHTHS: [&str; 8] = ["", "▏", "▎", "▍", "▌", "▋", "▊", "▉"];
+    let Some(norm) = norm else { return " ".repeat(width) };
+    if !norm.is_finite() {
+        return "!".repeat(width);
+    }
+    let decades = if norm > 0.0 { norm.log10() } else { f64::NEG_INFINITY };
+    let fraction = ((decades + 8.0) / 16.0).clamp(0.0, 1.0);
+    let eighths = (fraction * (width * 8) as f64).round() as usize;
+    let mut bar = "█".repeat(eighths / 8);
+    bar.push_str(EIGHTHS[eighths % 8]);
+    let used = eighths / 8 + usize::from(eighths % 8 > 0);
+    bar.push_str(&" ".repeat(width - used));
+    bar
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ratatui::text::Span;
+
+    #[test]
+    fn bars_grow_two_decades_per_cell() {
+        assert_eq!(magnitude_bar(Some(1.0), 8), "████    ");
+        assert_eq!(magnitude_bar(Some(1e8), 8), "████████");
+        assert_eq!(magnitude_bar(Some(0.0), 8), "        ");
+        assert_eq!(magnitude_bar(Some(10.0), 8), "████▌   ");
+        assert_eq!(magnitude_bar(Some(f64::NAN), 4), "!!!!");
+        for norm in [1e-9, 3e-3, 0.5, 7.0, 2e5] {
+            assert_eq!(Span::raw(magnitude_bar(Some(norm), 8)).width(), 8);
+        }
+    }
+
+    #[test]
+    fn flag_symbols_differ() {
+        let symbols: Vec<&str> = FLAG_KINDS.iter().map(|&kind| flag_symbol(kind)).collect();
+        let mut unique = symbols.clone();
+        unique.dedup();
+        assert_eq!(unique.len(), symbols.len());
+        assert!(![DONE, CURRENT, PENDING].iter().any(|marker| symbols.contains(marker)));
+    }
+}

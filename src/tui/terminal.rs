@@ -1,0 +1,127 @@
+//! The terminal's lifecycle and the event loop: raw mode and the alternate
+//! screen through `ratatui::try_init` (whose panic hook restores them), mouse
+//! capture on top, and the terminal restored on every way out.
+
+use super::action::Action;
+use super::app::App;
+use super::keymap::Key;
+use super::layout;
+use super::theme::Theme;
+use crate::trace::{self, LoadError, Trace};
+use ratatui::DefaultTerminal;
+use ratatui::crossterm::event::{self, DisableMouseCapture, EnableMouseCapture, Event, KeyEventKind, MouseButton, MouseEventKind};
+use ratatui::crossterm::execute;
+use ratatui::layout::{Constraint, Flex, Layout};
+use ratatui::text::Line;
+use ratatui::widgets::{Block, Gauge, Widget};
+use std::io;
+use std::path::Path;
+use std::time::{Duration, Instant};
+
+/// Files above this size load behind a progress gauge.
+const LARGE_FILE: u64 = 4 * 1024 * 1024;
+
+/// Why the view could not run.
+#[derive(Debug, thiserror::Error)]
+pub enum ViewError {
+    /// The trace could not be loaded.
+    #[error(transparent)]
+    Load(#[from] LoadError),
+    /// The terminal failed.
+    #[error("terminal: {0} (hint: run in an interactive terminal, or use `ebb check` / `ebb sweep`)")]
+    Terminal(#[from] io::Error),
+}
+
+/// Enters the full-screen view, restoring the terminal on drop (also on an
+/// early return or an unwinding panic).
+struct Session {
+    terminal: DefaultTerminal,
+}
+
+impl Session {
+    fn start() -> io::Result<Session> {
+        let terminal = ratatui::try_init()?;
+        // ratatui's hook restores raw mode and the screen; mouse capture is ours to undo.
+        let previous = std::panic::take_hook();
+        std::panic::set_hook(Box::new(move |info| {
+            let _ = execute!(io::stdout(), DisableMouseCapture);
+            previous(info);
+        }));
+        if let Err(error) = execute!(io::stdout(), EnableMouseCapture) {
+            ratatui::restore();
+            return Err(error);
+        }
+        Ok(Session { terminal })
+    }
+}
+
+impl Drop for Session {
+    fn drop(&mut self) {
+        let _ = execute!(io::stdout(), DisableMouseCapture);
+        ratatui::restore();
+    }
+}
+
+/// Opens the view on an already loaded trace.
+pub fn view(trace: &Trace, label: &str, themes: Vec<Theme>) -> Result<(), ViewError> {
+    let mut session = Session::start()?;
+    run(&mut session.terminal, trace, label, themes)
+}
+
+/// Loads `path` and opens the view on it. A large file loads on a worker
+/// thread behind a gauge; q or Ctrl-C abandons the load.
+pub fn open(path: &Path, themes: Vec<Theme>) -> Result<(), ViewError> {
+    let size = std::fs::metadata(path).map(|meta| meta.len()).unwrap_or(0);
+    let label = path.display().to_string();
+    if size <= LARGE_FILE {
+        let trace = trace::load(path)?;
+        return view(&trace, &label, themes);
+    }
+    let mut session = Session::start()?;
+    let owned = path.to_path_buf();
+    let worker = std::thread::spawn(move || trace::load(&owned));
+    let started = Instant::now();
+    while !worker.is_finished() {
+        let elapsed = started.elapsed().as_secs_f64();
+        session.terminal.draw(|frame| {
+            let area = frame.area();
+            let [middle] = area.layout(&Layout::vertical([Constraint::Length(3)]).flex(Flex::Center));
+            // The loader reports no progress, so the gauge sweeps to show it is alive.
+            let ratio = (elapsed / 2.0).fract();
+            let text = format!("loading {label} ({:.1} MB) … {elapsed:.1} s   q cancels", size as f64 / 1e6);
+            Gauge::default().block(Block::bordered().title(Line::raw(" Ebb "))).ratio(ratio).label(text).render(middle, frame.buffer_mut());
+        })?;
+        if event::poll(Duration::from_millis(100))?
+            && let Event::Key(key) = event::read()?
+            && key.kind == KeyEventKind::Press
+            && matches!(super::keymap::KeyMap::default().lookup(Key::from_event(&key), super::action::PaneId::Order, false), Some(Action::Quit))
+        {
+            return Ok(());
+        }
+    }
+    let trace = worker.join().map_err(|_| io::Error::other("the loader thread panicked"))??;
+    run(&mut session.terminal, &trace, &label, themes)
+}
+
+fn run(terminal: &mut DefaultTerminal, trace: &Trace, label: &str, themes: Vec<Theme>) -> Result<(), ViewError> {
+    let mut app = App::new(trace, label, themes);
+    while !app.quit {
+        app.resize(terminal.size()?.into());
+        terminal.draw(|frame| frame.render_widget(&app, frame.area()))?;
+        match event::read()? {
+            Event::Key(key) if key.kind == KeyEventKind::Press => app.key(Key::from_event(&key)),
+            Event::Mouse(mouse) => {
+                let Some((pane, row)) = layout::hit(&app, mouse.column, mouse.row) else { continue };
+                match mouse.kind {
+                    MouseEventKind::Down(MouseButton::Left) => app.update(Action::Click(pane, row)),
+                    MouseEventKind::ScrollDown => app.update(Action::Scroll(pane, 3)),
+                    MouseEventKind::ScrollUp => app.update(Action::Scroll(pane, -3)),
+                    _ => {}
+                }
+            }
+            // A resize redraws on the next turn of the loop.
+            _ => {}
+        }
+    }
+    Ok(())
+}
