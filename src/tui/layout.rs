@@ -48,7 +48,7 @@ pub fn arrange(area: Rect, focus: PaneId, side: PaneId, zoomed: bool) -> Screen 
     }
     let panes = if area.width >= WIDE {
         let [left, middle, right] =
-            body.layout(&Layout::horizontal([Constraint::Percentage(36), Constraint::Percentage(32), Constraint::Percentage(32)]));
+            body.layout(&Layout::horizontal([Constraint::Percentage(32), Constraint::Percentage(38), Constraint::Percentage(30)]));
         let [order, flags] = left.layout(&Layout::vertical([Constraint::Percentage(72), Constraint::Percentage(28)]));
         let [node, inflow] = middle.layout(&Layout::vertical([Constraint::Percentage(55), Constraint::Percentage(45)]));
         let [edges, trend] = right.layout(&Layout::vertical([Constraint::Percentage(60), Constraint::Percentage(40)]));

@@ -78,7 +78,9 @@ fn status_line(app: &App, area: Rect, buf: &mut Buffer) {
         Some(node) => format!("next {} ({})", app.trace.node(node).id, app.trace.node(node).op_name),
         None => "sweep done".to_string(),
     };
-    let left = format!(" ebb │ {} │ {} │ step {}/{} │ {next} ", app.trace.title(), app.trace.dtype(), sweep.cursor(), sweep.len());
+    // The title only where there is room: at 80 columns the hints matter more.
+    let title = if area.width >= layout::WIDE { format!(" {} │", app.trace.title()) } else { String::new() };
+    let left = format!(" ebb │{title} {} │ step {}/{} │ {next} ", app.trace.dtype(), sweep.cursor(), sweep.len());
     let mut spans = vec![Span::styled(left, theme.status)];
     match &app.message {
         Some(message) => spans.push(Span::styled(format!(" {message}"), theme.key)),

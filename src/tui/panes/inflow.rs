@@ -29,8 +29,8 @@ impl Pane for InflowPane {
         let width = area.width as usize;
         let received = app.sweep.ledger().map(|ledger| ledger.received(node)).unwrap_or_default();
         let pending = app.sweep.pending_consumers(node);
-        let from_width = (width / 4).clamp(6, 18);
-        let number_width = width.saturating_sub(5 + from_width + 5 + 2) / 2;
+        let from_width = (width / 5).clamp(6, 14);
+        let number_width = width.saturating_sub(5 + from_width + 1 + 4 + 1) / 2;
         let mut lines: Vec<Line> = Vec::new();
         if node == trace.output() {
             lines.push(Line::from(vec![
@@ -46,7 +46,7 @@ impl Pane for InflowPane {
         }
         if !received.is_empty() {
             lines.push(Line::styled(
-                format!("{:>4} {} {:>4} {} {}", "step", fit("from", from_width), "slot", fit("contribution", number_width), "adjoint after"),
+                format!("{:>4} {} {:>3} {} {}", "step", fit("from", from_width), "in", fit("contribution", number_width), "adjoint after"),
                 theme.muted,
             ));
         }
@@ -56,8 +56,8 @@ impl Pane for InflowPane {
                 Line::from(vec![
                     Span::styled(format!("{:>4} ", entry.step + 1), theme.muted),
                     Span::styled(fit(&trace.node(entry.consumer).id, from_width) + " ", theme.done),
-                    Span::styled(format!("{:>4} ", entry.slot), theme.muted),
-                    Span::styled(fit(&format!("+{}", value_text(&entry.value, number_width - 1)), number_width) + " ", theme.text),
+                    Span::styled(format!("{:>3} ", entry.slot), theme.muted),
+                    Span::styled(fit(&value_text(&entry.value, number_width), number_width) + " ", theme.text),
                     Span::styled(value_text(&entry.after, number_width), theme.text.add_modifier(ratatui::style::Modifier::BOLD)),
                 ])
             })
@@ -74,7 +74,7 @@ impl Pane for InflowPane {
                     lines.push(Line::from(vec![
                         Span::styled(format!("{rank:>4} "), theme.muted),
                         Span::styled(fit(&trace.node(*consumer).id, from_width) + " ", theme.pending),
-                        Span::styled(format!("{slot:>4}"), theme.muted),
+                        Span::styled(format!("{slot:>3}"), theme.muted),
                     ]));
                 }
             }

@@ -14,8 +14,6 @@ use ratatui::text::{Line, Span};
 /// The sweep order pane.
 pub struct OrderPane;
 
-/// Width of the magnitude bar.
-const BAR: usize = 8;
 
 /// The first step shown, so that the selection is in view with `rows` rows.
 fn offset(app: &App, rows: usize) -> usize {
@@ -48,8 +46,10 @@ impl Pane for OrderPane {
         let order = app.trace.sweep_order();
         let width = area.width as usize;
         let step_width = order.len().to_string().len();
-        let fixed = 2 + step_width + 1 + 10 + 1 + BAR + 1 + 3;
-        let op_width = 9.min(width.saturating_sub(fixed + 6));
+        // Narrow panes keep the id readable: a shorter bar and no op column.
+        let bar_width = if width >= 48 { 8 } else { 4 };
+        let fixed = 2 + step_width + 1 + 10 + 1 + bar_width + 1 + 3;
+        let op_width = if width >= 52 { 9 } else { 0 };
         let rest = width.saturating_sub(fixed + op_width + 1);
         let group_width = if width >= 64 { rest * 2 / 5 } else { 0 };
         let id_width = rest - group_width;
@@ -88,7 +88,7 @@ impl Pane for OrderPane {
             }
             spans.push(Span::styled(format!("{norm_text:>10} "), theme.text));
             let bar_style = if norm.is_some_and(|n| !n.is_finite()) { theme.flag_adjoint } else { theme.chart };
-            spans.push(Span::styled(magnitude_bar(norm, BAR) + " ", bar_style));
+            spans.push(Span::styled(magnitude_bar(norm, bar_width) + " ", bar_style));
             for &kind in app.tally.flags_at(node) {
                 spans.push(Span::styled(symbols::flag_symbol(kind), symbols::flag_style(theme, kind)));
             }
