@@ -1,0 +1,191 @@
+//! The built binary in a real pseudo-terminal (portable-pty), its output fed
+//! to a terminal emulator (vt100): step the teaching demo, watch a branch
+//! node's adjoint before and after each contribution and after stepping
+//! back, then quit and find the terminal restored. Needs no controlling
+//! terminal, so it runs in CI.
+
+use portable_pty::{CommandBuilder, NativePtySystem, PtySize, PtySystem};
+use std::io::{Read, Write};
+use std::process::Command;
+use std::sync::{Arc, Mutex};
+use std::time::{Duration, Instant};
+
+// Closed form for the teaching demo (see tests/view_render.rs): q = e⁻¹ and the
+// adjoint of demand collects −kq, −kq, then p − c, with k = 0.1 and p − c = 1.5.
+const Q: f64 = 0.36787944117144233;
+
+struct Screen {
+    parser: Arc<Mutex<vt100::Parser>>,
+    keys: Box<dyn Write + Send>,
+    child: Box<dyn portable_pty::Child + Send + Sync>,
+}
+
+impl Screen {
+    fn open(rows: u16, cols: u16, args: &[&str]) -> Screen {
+        let pair = NativePtySystem::default().openpty(PtySize { rows, cols, pixel_width: 0, pixel_height: 0 }).unwrap();
+        let mut command = CommandBuilder::new(env!("CARGO_BIN_EXE_ebb"));
+        command.args(args);
+        command.cwd(env!("CARGO_MANIFEST_DIR"));
+        command.env("TERM", "xterm-256color");
+        command.env_remove("NO_COLOR");
+        let child = pair.slave.spawn_command(command).unwrap();
+        drop(pair.slave);
+        let parser = Arc::new(Mutex::new(vt100::Parser::new(rows.try_into().unwrap(), cols.try_into().unwrap(), 0)));
+        let (sink, mut reader) = (parser.clone(), pair.master.try_clone_reader().unwrap());
+        std::thread::spawn(move || {
+            let mut buf = [0u8; 8192];
+            while let Ok(n) = reader.read(&mut buf) {
+                if n == 0 {
+                    break;
+                }
+                sink.lock().unwrap().process(&buf[..n]);
+            }
+        });
+        let keys = pair.master.take_writer().unwrap();
+        // Keep the master alive as long as the writer: dropping it would hang up the child.
+        std::mem::forget(pair.master);
+        Screen { parser, keys, child }
+    }
+
+    fn send(&mut self, keys: &str) {
+        // One key at a time, as a person types: an Esc followed at once by a
+        // character would read as Alt+character.
+        for key in keys.chars() {
+            self.keys.write_all(key.to_string().as_bytes()).unwrap();
+            self.keys.flush().unwrap();
+            std::thread::sleep(Duration::from_millis(30));
+        }
+    }
+
+    #[track_caller]
+    fn wait_for(&self, needle: &str) -> String {
+        let deadline = Instant::now() + Duration::from_secs(20);
+        loop {
+            let screen = self.parser.lock().unwrap().screen().contents();
+            if screen.contains(needle) {
+                return screen;
+            }
+            assert!(Instant::now() < deadline, "never saw {needle:?}; screen was:\n{screen}");
+            std::thread::sleep(Duration::from_millis(20));
+        }
+    }
+
+    /// The number shown after `label` once `needle` is on screen.
+    #[track_caller]
+    fn number_after(&self, needle: &str, label: &str) -> f64 {
+        let screen = self.wait_for(needle);
+        let line = screen.lines().find(|line| line.contains(label)).unwrap_or_else(|| panic!("no {label:?} in\n{screen}"));
+        let rest = line.split(label).nth(1).unwrap();
+        rest.split_whitespace().next().and_then(|word| word.parse().ok()).unwrap_or_else(|| panic!("no number after {label:?} in {line}"))
+    }
+
+    fn wait_exit(&mut self) -> portable_pty::ExitStatus {
+        let deadline = Instant::now() + Duration::from_secs(20);
+        loop {
+            if let Some(status) = self.child.try_wait().unwrap() {
+                // Let the reader thread drain the last bytes.
+                std::thread::sleep(Duration::from_millis(200));
+                return status;
+            }
+            assert!(Instant::now() < deadline, "ebb did not exit");
+            std::thread::sleep(Duration::from_millis(20));
+        }
+    }
+}
+
+#[track_caller]
+fn near(shown: f64, expected: f64) {
+    assert!((shown - expected).abs() < 1e-15, "shown {shown}, closed form {expected}");
+}
+
+#[test]
+fn stepping_the_teaching_demo_in_a_real_terminal() {
+    let mut screen = Screen::open(50, 200, &["open", "traces/teaching.ron"]);
+    screen.wait_for("step 0/12 │ next profit (sub)");
+    assert!(screen.parser.lock().unwrap().screen().alternate_screen(), "the view runs on the alternate screen");
+    screen.send(":demand\r");
+    screen.wait_for("Inflow · demand");
+    screen.wait_for("adjoint  none yet");
+    screen.send("ss");
+    screen.wait_for("step 2/12");
+    screen.wait_for("adjoint  none yet");
+    // Step 3 processes demand_sq = q·q: two contributions of −kq each.
+    screen.send("s");
+    near(screen.number_after("step 3/12", "adjoint  "), -0.2 * Q);
+    near(screen.number_after("step 3/12", "   3 demand_sq        1 "), -0.1 * Q);
+    // Step 4 processes gross = (p − c)·q: the last contribution, p − c.
+    screen.send("s");
+    near(screen.number_after("step 4/12", "adjoint  "), 1.5 - 0.2 * Q);
+    screen.wait_for("complete: 3 contribution(s), the adjoint is final");
+    // Back over step 4: the adjoint is −2kq again and gross is still to come.
+    screen.send("b");
+    near(screen.number_after("step 3/12", "adjoint  "), -0.2 * Q);
+    screen.wait_for("to come (1):");
+    screen.send("b");
+    screen.wait_for("step 2/12");
+    screen.wait_for("adjoint  none yet");
+    // Help, a theme change and the run to the end keep working.
+    screen.send("?");
+    screen.wait_for("Keys (? or Esc closes");
+    screen.send("?t");
+    screen.wait_for("theme: light");
+    screen.send("e");
+    screen.wait_for("sweep done");
+    screen.send("q");
+    let status = screen.wait_exit();
+    assert!(status.success(), "{status:?}");
+    let parser = screen.parser.lock().unwrap();
+    assert!(!parser.screen().alternate_screen(), "the alternate screen was left");
+    assert!(!parser.screen().hide_cursor(), "the cursor is shown again");
+}
+
+#[test]
+fn ctrl_c_quits_and_restores_at_80_by_24() {
+    let mut screen = Screen::open(24, 80, &["open", "traces/teaching.ron"]);
+    screen.wait_for("1 Order");
+    screen.send("s");
+    screen.wait_for("step 1/12");
+    screen.send("\u{3}");
+    assert!(screen.wait_exit().success());
+    assert!(!screen.parser.lock().unwrap().screen().alternate_screen());
+}
+
+#[test]
+fn a_bad_trace_is_one_line_and_exit_2_without_entering_the_view() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("broken.ron");
+    std::fs::write(&path, "(format: 1, title: \"x\",").unwrap();
+    let mut screen = Screen::open(24, 80, &["open", path.to_str().unwrap()]);
+    let status = screen.wait_exit();
+    assert_eq!(status.exit_code(), 2);
+    let parser = screen.parser.lock().unwrap();
+    assert!(!parser.screen().alternate_screen());
+    let text = parser.screen().contents();
+    assert!(text.contains("broken.ron:1:"), "{text}");
+}
+
+#[test]
+fn without_a_terminal_open_points_to_check_and_sweep() {
+    let output = Command::new(env!("CARGO_BIN_EXE_ebb")).args(["open", "traces/teaching.ron"]).current_dir(env!("CARGO_MANIFEST_DIR")).output().unwrap();
+    assert_eq!(output.status.code(), Some(2));
+    let stderr = String::from_utf8(output.stderr).unwrap();
+    assert_eq!(stderr.lines().count(), 1, "{stderr}");
+    assert!(stderr.contains("needs a terminal") && stderr.contains("ebb check traces/teaching.ron") && stderr.contains("ebb sweep"), "{stderr}");
+    assert!(output.stdout.is_empty());
+    // With no arguments and no terminal, ebb keeps printing the demo's report.
+    let output = Command::new(env!("CARGO_BIN_EXE_ebb")).output().unwrap();
+    assert_eq!(output.status.code(), Some(0));
+    assert!(String::from_utf8(output.stdout).unwrap().contains("market stall"));
+}
+
+#[test]
+fn a_bad_theme_is_one_line_with_its_position() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("mine.ron");
+    std::fs::write(&path, "(\n  name: \"mine\",\n  text: (fg: \"no-such-colour\"),\n)").unwrap();
+    let mut screen = Screen::open(24, 80, &["open", "traces/teaching.ron", "--theme", path.to_str().unwrap()]);
+    assert_eq!(screen.wait_exit().exit_code(), 2);
+    let text = screen.parser.lock().unwrap().screen().contents();
+    assert!(text.contains("mine.ron:3:"), "{text}");
+    assert!(text.contains("is not a colour"), "{text}");
+}
