@@ -13,6 +13,6 @@ pub mod report;
 pub mod stats;
 pub mod sweep;
 pub mod tensor;
-pub mod tui;
 pub mod trace;
+pub mod tui;
 pub mod verify;

@@ -21,7 +21,9 @@ fn chain(nodes: usize) -> ebb::trace::Trace {
 }
 
 fn adjoint_bits(sweep: &Sweep) -> Vec<Option<Vec<u64>>> {
-    (0..sweep.trace().nodes().len()).map(|node| sweep.adjoint(node).map(|value| value.data().iter().map(|x| x.to_bits()).collect())).collect()
+    (0..sweep.trace().nodes().len())
+        .map(|node| sweep.adjoint(node).map(|value| value.data().iter().map(|x| x.to_bits()).collect()))
+        .collect()
 }
 
 #[test]

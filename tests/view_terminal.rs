@@ -166,11 +166,18 @@ fn a_bad_trace_is_one_line_and_exit_2_without_entering_the_view() {
 
 #[test]
 fn without_a_terminal_open_points_to_check_and_sweep() {
-    let output = Command::new(env!("CARGO_BIN_EXE_ebb")).args(["open", "traces/teaching.ron"]).current_dir(env!("CARGO_MANIFEST_DIR")).output().unwrap();
+    let output = Command::new(env!("CARGO_BIN_EXE_ebb"))
+        .args(["open", "traces/teaching.ron"])
+        .current_dir(env!("CARGO_MANIFEST_DIR"))
+        .output()
+        .unwrap();
     assert_eq!(output.status.code(), Some(2));
     let stderr = String::from_utf8(output.stderr).unwrap();
     assert_eq!(stderr.lines().count(), 1, "{stderr}");
-    assert!(stderr.contains("needs a terminal") && stderr.contains("ebb check traces/teaching.ron") && stderr.contains("ebb sweep"), "{stderr}");
+    assert!(
+        stderr.contains("needs a terminal") && stderr.contains("ebb check traces/teaching.ron") && stderr.contains("ebb sweep"),
+        "{stderr}"
+    );
     assert!(output.stdout.is_empty());
     // With no arguments and no terminal, ebb keeps printing the demo's report.
     let output = Command::new(env!("CARGO_BIN_EXE_ebb")).output().unwrap();

@@ -22,7 +22,9 @@ pub enum Command {
     /// Step a trace's reverse sweep in the full-screen terminal view.
     ///
     /// Needs a terminal; `ebb check` and `ebb sweep` give text output. NO_COLOR is honoured.
-    #[command(after_help = "Examples:\n  ebb open traces/teaching.ron\n  ebb open run.json --theme colorblind\n  ebb open run.json --theme my-theme.ron\n\nKeys: ? in the view lists them all.")]
+    #[command(
+        after_help = "Examples:\n  ebb open traces/teaching.ron\n  ebb open run.json --theme colorblind\n  ebb open run.json --theme my-theme.ron\n\nKeys: ? in the view lists them all."
+    )]
     Open {
         /// The trace file (.ron or .json).
         trace: PathBuf,

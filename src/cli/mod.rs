@@ -60,7 +60,9 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
 
 /// Standard output is not a terminal, so the view cannot open.
 #[derive(Debug, thiserror::Error)]
-#[error("`ebb open` needs a terminal, and standard output is not one (hint: use `ebb check {0}` for a report or `ebb sweep {0}` for a step-by-step listing)")]
+#[error(
+    "`ebb open` needs a terminal, and standard output is not one (hint: use `ebb check {0}` for a report or `ebb sweep {0}` for a step-by-step listing)"
+)]
 pub struct NeedsTerminal(String);
 
 fn themes(theme: Option<&str>) -> Result<Vec<Theme>> {

@@ -363,7 +363,9 @@ impl<'t> App<'t> {
         let order = self.trace.sweep_order();
         let start = self.trace.sweep_rank(self.selected).unwrap_or(0);
         let len = order.len();
-        let found = (1..=len).map(|offset| if forward { (start + offset) % len } else { (start + len - offset) % len }).find(|&rank| matches(self.trace, order[rank], &query));
+        let found = (1..=len)
+            .map(|offset| if forward { (start + offset) % len } else { (start + len - offset) % len })
+            .find(|&rank| matches(self.trace, order[rank], &query));
         match found {
             Some(rank) => {
                 self.jump(order[rank]);
@@ -384,7 +386,9 @@ impl<'t> App<'t> {
         if self.selection.node != Some(node) {
             let value = &self.trace.node(node).value;
             self.selection.value = match value {
-                Value::Tensor(_) => Some(*self.value_summaries.entry(node).or_insert_with(|| Summary::of(value.data(), self.trace.dtype()))),
+                Value::Tensor(_) => {
+                    Some(*self.value_summaries.entry(node).or_insert_with(|| Summary::of(value.data(), self.trace.dtype())))
+                }
                 Value::Scalar(_) => None,
             };
             self.selection.edges = edges(self.trace, node);

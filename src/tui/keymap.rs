@@ -100,7 +100,8 @@ pub struct KeyMap {
 }
 
 /// Actions shown in the status line whatever has focus.
-const GLOBAL_HINTS: &[Action] = &[Action::Step, Action::Back, Action::RunToFlag, Action::OpenJump, Action::FocusNext, Action::Help, Action::Quit];
+const GLOBAL_HINTS: &[Action] =
+    &[Action::Step, Action::Back, Action::RunToFlag, Action::OpenJump, Action::FocusNext, Action::Help, Action::Quit];
 
 impl Default for KeyMap {
     fn default() -> KeyMap {
@@ -197,7 +198,11 @@ impl KeyMap {
 
     /// The keys bound to `action` in `scope`, as written in help.
     pub fn keys_for(&self, scope: Scope, action: Action) -> Vec<String> {
-        self.bindings.iter().filter(|binding| binding.scope == scope && binding.action == action).map(|binding| binding.key.label()).collect()
+        self.bindings
+            .iter()
+            .filter(|binding| binding.scope == scope && binding.action == action)
+            .map(|binding| binding.key.label())
+            .collect()
     }
 
     /// The help: one section per scope, one row per action with all its keys.
@@ -230,7 +235,8 @@ impl KeyMap {
                         .filter(|other| other.scope == scope && std::mem::discriminant(&other.action) == std::mem::discriminant(&action))
                         .map(|other| other.key.label())
                         .collect();
-                    let keys = if matches!(action, Action::Focus(_)) { format!("{}-{}", keys[0], keys[keys.len() - 1]) } else { keys.join(" ") };
+                    let keys =
+                        if matches!(action, Action::Focus(_)) { format!("{}-{}", keys[0], keys[keys.len() - 1]) } else { keys.join(" ") };
                     rows.push((keys, action.describe()));
                 }
                 (scope.heading(), rows)

@@ -46,7 +46,7 @@ pub fn magnitude_bar(norm: Option<f64>, width: usize) -> String {
     let eighths = (fraction * (width * 8) as f64).round() as usize;
     let mut bar = "█".repeat(eighths / 8);
     bar.push_str(EIGHTHS[eighths % 8]);
-    let used = eighths / 8 + usize::from(eighths % 8 > 0);
+    let used = eighths / 8 + usize::from(!eighths.is_multiple_of(8));
     bar.push_str(&" ".repeat(width - used));
     bar
 }

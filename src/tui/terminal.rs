@@ -94,7 +94,10 @@ pub fn open(path: &Path, themes: Vec<Theme>) -> Result<(), ViewError> {
         if event::poll(Duration::from_millis(100))?
             && let Event::Key(key) = event::read()?
             && key.kind == KeyEventKind::Press
-            && matches!(super::keymap::KeyMap::default().lookup(Key::from_event(&key), super::action::PaneId::Order, false), Some(Action::Quit))
+            && matches!(
+                super::keymap::KeyMap::default().lookup(Key::from_event(&key), super::action::PaneId::Order, false),
+                Some(Action::Quit)
+            )
         {
             return Ok(());
         }

@@ -22,9 +22,9 @@ struct ThemeColor(Color);
 impl<'de> Deserialize<'de> for ThemeColor {
     fn deserialize<D: serde::Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
         let text = String::deserialize(deserializer)?;
-        Color::from_str(&text)
-            .map(ThemeColor)
-            .map_err(|_| serde::de::Error::custom(format!("`{text}` is not a colour (use a name like \"red\", an index like \"208\" or \"#rrggbb\")")))
+        Color::from_str(&text).map(ThemeColor).map_err(|_| {
+            serde::de::Error::custom(format!("`{text}` is not a colour (use a name like \"red\", an index like \"208\" or \"#rrggbb\")"))
+        })
     }
 }
 

@@ -97,7 +97,10 @@ fn status_line(app: &App, area: Rect, buf: &mut Buffer) {
 fn too_small(app: &App, area: Rect, buf: &mut Buffer) {
     let theme = app.theme();
     let text = vec![
-        Line::styled(format!("Ebb needs a terminal of at least {MIN_WIDTH}×{MIN_HEIGHT}; this one is {}×{}.", area.width, area.height), theme.title),
+        Line::styled(
+            format!("Ebb needs a terminal of at least {MIN_WIDTH}×{MIN_HEIGHT}; this one is {}×{}.", area.width, area.height),
+            theme.title,
+        ),
         Line::styled("Enlarge the window, or use `ebb sweep TRACE` or `ebb check TRACE` for text output.", theme.text),
         Line::styled("q quits.", theme.muted),
     ];

@@ -30,7 +30,11 @@ impl Pane for FlagsPane {
         let theme = app.theme();
         let flags = app.sweep.flags();
         if flags.is_empty() {
-            let text = if app.sweep.is_done() { "none: every value, partial and adjoint is finite" } else { "none so far (f runs to the next flag)" };
+            let text = if app.sweep.is_done() {
+                "none: every value, partial and adjoint is finite"
+            } else {
+                "none so far (f runs to the next flag)"
+            };
             buf.set_stringn(area.x, area.y, text, area.width as usize, theme.muted);
             return;
         }

@@ -97,6 +97,3 @@ pub fn fit(text: &str, width: usize) -> String {
         format!("{cut}…")
     }
 }
-
-#[cfg(test)]
-pub(crate) mod testing;

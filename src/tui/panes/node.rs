@@ -100,7 +100,12 @@ impl Pane for NodePane {
         lines.push(labelled("state", state, theme.muted, state_style));
         lines.push(labelled("site", recorded.site.clone().unwrap_or_else(|| "(not recorded)".to_string()), theme.muted, theme.text));
         let shape_text = if recorded.value.shape().is_empty() { "scalar".to_string() } else { shape(recorded.value.shape()) };
-        lines.push(labelled("shape", format!("{shape_text} {}   attrs {}", trace.dtype(), attrs_text(&recorded.attrs)), theme.muted, theme.text));
+        lines.push(labelled(
+            "shape",
+            format!("{shape_text} {}   attrs {}", trace.dtype(), attrs_text(&recorded.attrs)),
+            theme.muted,
+            theme.text,
+        ));
         match &app.selection.value {
             Some(summary) => lines.extend(summary_lines("value", summary, app)),
             None => lines.push(labelled("value", value_text(&recorded.value, value_width), theme.muted, theme.text)),
@@ -139,7 +144,14 @@ impl Pane for NodePane {
         let flags: Vec<&crate::sweep::Flag> = app.sweep.flags().iter().filter(|flag| flag.node == node).collect();
         for flag in flags {
             let style = symbols::flag_style(theme, flag.kind);
-            let text = format!("{} {} {} at step {} ({} element(s))", symbols::flag_symbol(flag.kind), flag.kind.name(), number(flag.value), flag.step + 1, flag.count);
+            let text = format!(
+                "{} {} {} at step {} ({} element(s))",
+                symbols::flag_symbol(flag.kind),
+                flag.kind.name(),
+                number(flag.value),
+                flag.step + 1,
+                flag.count
+            );
             lines.push(labelled("flag", text, theme.muted, style));
         }
         if let crate::tensor::Value::Tensor(tensor) = &recorded.value {

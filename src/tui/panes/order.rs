@@ -14,7 +14,6 @@ use ratatui::text::{Line, Span};
 /// The sweep order pane.
 pub struct OrderPane;
 
-
 /// The first step shown, so that the selection is in view with `rows` rows.
 fn offset(app: &App, rows: usize) -> usize {
     let len = app.trace.sweep_order().len();

@@ -25,8 +25,9 @@ pub fn series(app: &App, columns: usize) -> Vec<(f64, f64)> {
     for start in (0..done).step_by(bucket) {
         let mut low: Option<(f64, f64)> = None;
         let mut high: Option<(f64, f64)> = None;
-        for step in start..(start + bucket).min(done) {
-            let Some(norm) = app.tally.norm(order[step]) else { continue };
+        let end = (start + bucket).min(done);
+        for (step, &node) in order.iter().enumerate().take(end).skip(start) {
+            let Some(norm) = app.tally.norm(node) else { continue };
             if !(norm.is_finite() && norm > 0.0) {
                 continue;
             }
@@ -64,7 +65,10 @@ impl Pane for TrendPane {
             let high = points.iter().map(|p| p.1).fold(f64::NEG_INFINITY, f64::max).ceil().max(low + 1.0);
             let steps = app.sweep.cursor().max(1) as f64;
             let dataset = Dataset::default().marker(Marker::Braille).graph_type(GraphType::Line).style(theme.chart).data(&points);
-            let x_axis = Axis::default().style(theme.muted).bounds([1.0, steps.max(2.0)]).labels(["1".to_string(), format!("step {}", app.sweep.cursor())]);
+            let x_axis = Axis::default()
+                .style(theme.muted)
+                .bounds([1.0, steps.max(2.0)])
+                .labels(["1".to_string(), format!("step {}", app.sweep.cursor())]);
             let y_axis = Axis::default().style(theme.muted).bounds([low, high]).labels([format!("1e{low}"), format!("1e{high}")]);
             Chart::new(vec![dataset]).x_axis(x_axis).y_axis(y_axis).style(theme.text).render(chart_area, buf);
         }
