@@ -2,7 +2,7 @@
 //! looks wrong.
 
 use crate::dtype::Dtype;
-use crate::tensor::l2_norm;
+use crate::tensor::NormAccumulator;
 
 /// Summary of a value's elements.
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
@@ -32,35 +32,93 @@ pub struct Summary {
 impl Summary {
     /// Summarises `data` as values of `dtype`.
     pub fn of(data: &[f64], dtype: Dtype) -> Summary {
-        let min_normal = dtype.limits().min_normal();
-        let (mut min, mut max, mut sum, mut finite) = (f64::INFINITY, f64::NEG_INFINITY, 0.0, 0usize);
-        let (mut nan, mut pos_inf, mut neg_inf, mut zeros, mut subnormal) = (0, 0, 0, 0, 0);
-        for &x in data {
-            if x.is_nan() {
-                nan += 1;
-            } else if x == f64::INFINITY {
-                pos_inf += 1;
-            } else if x == f64::NEG_INFINITY {
-                neg_inf += 1;
-            } else {
-                finite += 1;
-                min = min.min(x);
-                max = max.max(x);
-                sum += x;
-                if x == 0.0 {
-                    zeros += 1;
-                } else if x.abs() < min_normal {
-                    subnormal += 1;
-                }
-            }
+        let mut builder = Summary::builder(dtype);
+        data.iter().for_each(|&x| builder.push(x));
+        builder.finish()
+    }
+
+    /// A summary built one element at a time (one pass, no buffer).
+    pub fn builder(dtype: Dtype) -> SummaryBuilder {
+        SummaryBuilder {
+            min_normal: dtype.limits().min_normal(),
+            norm: NormAccumulator::default(),
+            len: 0,
+            finite: 0,
+            min: f64::INFINITY,
+            max: f64::NEG_INFINITY,
+            sum: 0.0,
+            nan: 0,
+            pos_inf: 0,
+            neg_inf: 0,
+            zeros: 0,
+            subnormal: 0,
         }
-        let (min, max, mean) = if finite == 0 { (f64::NAN, f64::NAN, f64::NAN) } else { (min, max, sum / finite as f64) };
-        Summary { len: data.len(), norm: l2_norm(data), min, max, mean, nan, pos_inf, neg_inf, zeros, subnormal }
     }
 
     /// Count of NaN and ±inf elements.
     pub fn non_finite(&self) -> usize {
         self.nan + self.pos_inf + self.neg_inf
+    }
+}
+
+/// The running state of a [`Summary`].
+#[derive(Debug, Clone)]
+pub struct SummaryBuilder {
+    min_normal: f64,
+    norm: NormAccumulator,
+    len: usize,
+    finite: usize,
+    min: f64,
+    max: f64,
+    sum: f64,
+    nan: usize,
+    pos_inf: usize,
+    neg_inf: usize,
+    zeros: usize,
+    subnormal: usize,
+}
+
+impl SummaryBuilder {
+    /// Adds one element.
+    #[inline]
+    pub fn push(&mut self, x: f64) {
+        self.len += 1;
+        self.norm.push(x);
+        if x.is_nan() {
+            self.nan += 1;
+        } else if x == f64::INFINITY {
+            self.pos_inf += 1;
+        } else if x == f64::NEG_INFINITY {
+            self.neg_inf += 1;
+        } else {
+            self.finite += 1;
+            self.min = self.min.min(x);
+            self.max = self.max.max(x);
+            self.sum += x;
+            if x == 0.0 {
+                self.zeros += 1;
+            } else if x.abs() < self.min_normal {
+                self.subnormal += 1;
+            }
+        }
+    }
+
+    /// The summary of the elements pushed so far.
+    pub fn finish(&self) -> Summary {
+        let (min, max, mean) =
+            if self.finite == 0 { (f64::NAN, f64::NAN, f64::NAN) } else { (self.min, self.max, self.sum / self.finite as f64) };
+        Summary {
+            len: self.len,
+            norm: self.norm.finish(),
+            min,
+            max,
+            mean,
+            nan: self.nan,
+            pos_inf: self.pos_inf,
+            neg_inf: self.neg_inf,
+            zeros: self.zeros,
+            subnormal: self.subnormal,
+        }
     }
 }
 

@@ -72,6 +72,20 @@ pub enum LoadError {
         /// The parser's message.
         message: String,
     },
+    /// A binary-backed trace whose sidecar is missing, truncated or does not
+    /// match its header. Nothing of the sidecar was read beyond its length
+    /// and preamble.
+    #[error("{}: {}{message} (hint: {hint})", path.display(), node.as_ref().map(|node| format!("node '{node}': ")).unwrap_or_default())]
+    Sidecar {
+        /// The header file.
+        path: PathBuf,
+        /// The node whose data reference is at fault, if one is.
+        node: Option<String>,
+        /// What is wrong.
+        message: String,
+        /// What to do.
+        hint: String,
+    },
     /// The file parsed but describes an invalid trace.
     #[error("{}", render_problems(path, problems))]
     Invalid {
@@ -101,4 +115,32 @@ fn render_problems(path: &std::path::Path, problems: &[Problem]) -> String {
         })
         .collect();
     lines.join("\n")
+}
+
+/// Why a trace could not be written.
+#[derive(Debug, thiserror::Error)]
+pub enum SaveError {
+    /// Writing, flushing or renaming failed; the target is left as it was.
+    #[error("{}: cannot write the trace: {source} (hint: check the directory exists and is writable)", path.display())]
+    Io {
+        /// The file being written.
+        path: PathBuf,
+        /// The I/O error.
+        #[source]
+        source: std::io::Error,
+    },
+    /// The extension names no trace format.
+    #[error("{}: unknown trace extension (hint: use .ron or .json for text, .tape for a binary-backed trace)", path.display())]
+    UnknownExtension {
+        /// The path given.
+        path: PathBuf,
+    },
+    /// The trace to write still refers to a sidecar instead of holding its data.
+    #[error("{}: node '{node}' refers to a sidecar; read the trace with its data inline before writing it", path.display())]
+    NotInline {
+        /// The file being written.
+        path: PathBuf,
+        /// The first node whose value is a sidecar reference.
+        node: String,
+    },
 }

@@ -1,10 +1,13 @@
 //! Reading and writing trace files: choosing the encoding, parsing RON or
 //! JSON into the schema types, and attaching file positions to problems.
 
-use super::error::LoadError;
+use super::error::{LoadError, Problem};
 use super::model::Trace;
+use super::progress::{self, Progress, Silent};
 use super::schema::TraceFile;
 use super::validate::validate;
+use serde::Serialize;
+use serde::de::DeserializeOwned;
 use std::path::Path;
 
 /// The two text encodings of the schema.
@@ -55,6 +58,11 @@ pub struct SyntaxError {
 
 /// Parses trace text in the given encoding into the schema types.
 pub fn parse(text: &str, encoding: Encoding) -> Result<TraceFile, SyntaxError> {
+    parse_as(text, encoding)
+}
+
+/// Parses any serde type with the options and error positions of [`parse`].
+pub(crate) fn parse_as<T: DeserializeOwned>(text: &str, encoding: Encoding) -> Result<T, SyntaxError> {
     match encoding {
         Encoding::Ron => ron_options().from_str(text).map_err(|error| SyntaxError {
             line: error.span.start.line,
@@ -72,6 +80,11 @@ pub fn parse(text: &str, encoding: Encoding) -> Result<TraceFile, SyntaxError> {
 
 /// Serialises a trace file in the given encoding.
 pub fn to_text(file: &TraceFile, encoding: Encoding) -> String {
+    text_of(file, encoding)
+}
+
+/// Serialises any serde type the way [`to_text`] writes traces.
+pub(crate) fn text_of<T: Serialize>(file: &T, encoding: Encoding) -> String {
     match encoding {
         Encoding::Ron => {
             let pretty = ron::ser::PrettyConfig::new()
@@ -86,34 +99,54 @@ pub fn to_text(file: &TraceFile, encoding: Encoding) -> String {
 
 /// Parses and validates trace text; `path` only labels errors.
 pub fn load_str(text: &str, encoding: Encoding, path: &Path) -> Result<Trace, LoadError> {
-    let file = parse(text, encoding).map_err(|error| LoadError::Syntax {
-        path: path.to_path_buf(),
-        line: error.line,
-        column: error.column,
-        message: error.message,
-    })?;
-    validate(file).map_err(|mut problems| {
-        for problem in &mut problems {
-            if let Some(node) = &problem.node {
-                problem.position = locate_node(text, node, problem.occurrence);
-            }
+    load_str_with(text, encoding, path, &mut Silent)
+}
+
+fn load_str_with(text: &str, encoding: Encoding, path: &Path, progress: &mut dyn Progress) -> Result<Trace, LoadError> {
+    progress.stage("parsing", None);
+    let file = parse(text, encoding).map_err(|error| syntax_error(path, error))?;
+    progress.stage("checking", None);
+    validate(file).map_err(|problems| placed(text, path, problems))
+}
+
+/// A syntax error of the file at `path`.
+pub(crate) fn syntax_error(path: &Path, error: SyntaxError) -> LoadError {
+    LoadError::Syntax { path: path.to_path_buf(), line: error.line, column: error.column, message: error.message }
+}
+
+/// Validation problems with the line and column of their nodes in `text`.
+pub(crate) fn placed(text: &str, path: &Path, mut problems: Vec<Problem>) -> LoadError {
+    for problem in &mut problems {
+        if let Some(node) = &problem.node {
+            problem.position = locate_node(text, node, problem.occurrence);
         }
-        LoadError::Invalid { path: path.to_path_buf(), problems }
-    })
+    }
+    LoadError::Invalid { path: path.to_path_buf(), problems }
 }
 
 /// Reads, parses and validates a trace file. The encoding comes from the
-/// extension, or from the content when the extension names none.
+/// extension, or from the content when the extension names none; a `.tape`
+/// path opens a binary-backed trace.
 pub fn load(path: &Path) -> Result<Trace, LoadError> {
-    let text = std::fs::read_to_string(path).map_err(|source| LoadError::Io { path: path.to_path_buf(), source })?;
+    load_with(path, &mut Silent)
+}
+
+/// [`load`], reporting progress.
+pub fn load_with(path: &Path, progress: &mut dyn Progress) -> Result<Trace, LoadError> {
+    if super::store::Format::from_path(path) == Some(super::store::Format::Tape) {
+        return super::binary::load(path, progress);
+    }
+    let text = progress::read_text(path, progress).map_err(|source| LoadError::Io { path: path.to_path_buf(), source })?;
     let encoding = Encoding::from_path(path).unwrap_or_else(|| Encoding::sniff(&text));
-    load_str(&text, encoding, path)
+    let trace = load_str_with(&text, encoding, path, progress);
+    progress.finish();
+    trace
 }
 
 /// The 1-based line and column where node `id` is declared (its
 /// `occurrence`-th declaration), found by looking for its `id` field in either
 /// encoding. Only used to place error messages.
-fn locate_node(text: &str, id: &str, occurrence: usize) -> Option<(usize, usize)> {
+pub(crate) fn locate_node(text: &str, id: &str, occurrence: usize) -> Option<(usize, usize)> {
     let quoted = format!("\"{id}\"");
     let mut skip = occurrence;
     let mut from = 0;

@@ -2,14 +2,19 @@
 //! [`Trace`].
 
 pub(crate) mod compact;
+pub mod binary;
 mod error;
 mod load;
 mod model;
+mod progress;
 pub mod schema;
+mod store;
 mod validate;
 
-pub use error::{LoadError, Problem};
-pub use load::{Encoding, SyntaxError, load, load_str, parse, to_text};
+pub use error::{LoadError, Problem, SaveError};
+pub use load::{Encoding, SyntaxError, load, load_str, load_with, parse, to_text};
+pub use progress::{Progress, Silent};
+pub use store::{Format, read_file, save, save_with};
 pub use model::{Node, Partial, Trace};
 pub use schema::{FORMAT_VERSION, NodeFile, NodeId, Num, PartialRepr, TraceFile, ValueRepr};
 pub use validate::validate;

@@ -196,6 +196,14 @@ pub enum ValueRepr {
         /// Elements, row-major.
         data: Vec<f64>,
     },
+    /// A tensor whose elements live in the binary sidecar of a binary-backed
+    /// trace, written `(shape: [..], offset: N)`; see traces/FORMAT.md.
+    Stored {
+        /// Dimensions.
+        shape: Vec<usize>,
+        /// Byte offset of the first element in the sidecar.
+        offset: u64,
+    },
 }
 
 /// Wraps a slice of f64 so that non-finite elements serialise as strings.
@@ -215,6 +223,12 @@ impl Serialize for ValueRepr {
                 let mut s = serializer.serialize_struct("Tensor", 2)?;
                 s.serialize_field("shape", shape)?;
                 s.serialize_field("data", &NumSlice(data))?;
+                s.end()
+            }
+            ValueRepr::Stored { shape, offset } => {
+                let mut s = serializer.serialize_struct("Tensor", 2)?;
+                s.serialize_field("shape", shape)?;
+                s.serialize_field("offset", offset)?;
                 s.end()
             }
         }
@@ -248,7 +262,7 @@ impl<'de> Deserialize<'de> for Numbers {
     }
 }
 
-const VALUE_EXPECTED: &str = "a number, a list of numbers, or (shape: [..], data: [..])";
+const VALUE_EXPECTED: &str = "a number, a list of numbers, (shape: [..], data: [..]), or (shape: [..], offset: N) in a binary-backed trace";
 
 impl<'de> Deserialize<'de> for ValueRepr {
     fn deserialize<D: Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
@@ -275,17 +289,22 @@ impl<'de> Deserialize<'de> for ValueRepr {
                 Ok(ValueRepr::Tensor { shape: vec![data.len()], data })
             }
             fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> Result<ValueRepr, A::Error> {
-                let (mut shape, mut data) = (None, None);
+                let (mut shape, mut data, mut offset) = (None, None, None);
                 while let Some(key) = map.next_key::<String>()? {
                     match key.as_str() {
                         "shape" => shape = Some(map.next_value::<Vec<usize>>()?),
                         "data" => data = Some(map.next_value::<Numbers>()?.0),
-                        other => return Err(de::Error::unknown_field(other, &["shape", "data"])),
+                        "offset" => offset = Some(map.next_value::<u64>()?),
+                        other => return Err(de::Error::unknown_field(other, &["shape", "data", "offset"])),
                     }
                 }
                 let shape = shape.ok_or_else(|| de::Error::missing_field("shape"))?;
-                let data = data.ok_or_else(|| de::Error::missing_field("data"))?;
-                Ok(ValueRepr::Tensor { shape, data })
+                match (data, offset) {
+                    (Some(data), None) => Ok(ValueRepr::Tensor { shape, data }),
+                    (None, Some(offset)) => Ok(ValueRepr::Stored { shape, offset }),
+                    (None, None) => Err(de::Error::missing_field("data")),
+                    (Some(_), Some(_)) => Err(de::Error::custom("a tensor has either `data` or a sidecar `offset`, not both")),
+                }
             }
         }
         deserializer.deserialize_any(ValueVisitor)

@@ -19,9 +19,22 @@ impl TryFrom<TraceFile> for Trace {
     }
 }
 
+/// Turns a sidecar reference (shape, byte offset) into a value. The binary
+/// loader supplies one backed by its mapping; plain text traces have none.
+pub(crate) type Resolver<'a> = &'a dyn Fn(&[usize], u64) -> Result<Value, String>;
+
+fn no_sidecar(_: &[usize], _: u64) -> Result<Value, String> {
+    Err("refers to a binary sidecar, but this trace is not binary-backed (open its .tape header instead)".to_string())
+}
+
 /// Checks a parsed trace file and builds the [`Trace`]; on failure returns
 /// every problem found, in file order.
 pub fn validate(file: TraceFile) -> Result<Trace, Vec<Problem>> {
+    validate_with(file, &no_sidecar)
+}
+
+/// [`validate`], resolving sidecar references with `resolve`.
+pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace, Vec<Problem>> {
     let mut problems = Vec::new();
     if file.format != FORMAT_VERSION {
         problems.push(Problem::general(
@@ -36,7 +49,7 @@ pub fn validate(file: TraceFile) -> Result<Trace, Vec<Problem>> {
     let mut forward_edges = false;
     for (position, raw) in file.nodes.into_iter().enumerate() {
         let inputs = resolve_inputs(&raw, position, &index, &mut problems, &mut edges, &mut forward_edges);
-        let checked = inputs.and_then(|inputs| check_node(raw, inputs, &nodes, &mut problems));
+        let checked = inputs.and_then(|inputs| check_node(raw, inputs, &nodes, &mut problems, resolve));
         nodes.push(checked);
     }
     let output = resolve_output(&file.output.0, &index, &mut problems);
@@ -50,7 +63,7 @@ pub fn validate(file: TraceFile) -> Result<Trace, Vec<Problem>> {
     let output = output.expect("output resolved");
     let seed = match file.seed {
         None => Value::filled(nodes[output].value.shape(), 1.0),
-        Some(raw) => match checked_value(&raw) {
+        Some(raw) => match checked_value(raw, resolve) {
             Ok(seed) if seed.shape() == nodes[output].value.shape() => seed,
             Ok(seed) => {
                 return Err(vec![Problem::general(
@@ -138,24 +151,26 @@ fn resolve_output(id: &str, index: &HashMap<String, usize>, problems: &mut Vec<P
     found
 }
 
-/// A value's data must fill its shape.
-fn checked_value(raw: &ValueRepr) -> Result<Value, String> {
+/// A value's data must fill its shape. Takes the data by value so that a
+/// big trace is not held twice while it is checked.
+fn checked_value(raw: ValueRepr, resolve: Resolver) -> Result<Value, String> {
     match raw {
-        ValueRepr::Scalar(x) => Ok(Value::Scalar(*x)),
+        ValueRepr::Scalar(x) => Ok(Value::Scalar(x)),
         ValueRepr::Tensor { shape, data } => {
             let expected = shape.iter().try_fold(1usize, |acc, &d| acc.checked_mul(d));
             match expected {
-                Some(expected) if expected == data.len() => Ok(Value::from_parts(shape.clone(), data.clone())),
-                Some(expected) => Err(format!("data has {} elements but shape {} needs {expected}", data.len(), show(shape))),
-                None => Err(format!("shape {} is too large", show(shape))),
+                Some(expected) if expected == data.len() => Ok(Value::from_parts(shape, data)),
+                Some(expected) => Err(format!("data has {} elements but shape {} needs {expected}", data.len(), show(&shape))),
+                None => Err(format!("shape {} is too large", show(&shape))),
             }
         }
+        ValueRepr::Stored { shape, offset } => resolve(&shape, offset),
     }
 }
 
 /// Checks one node whose inputs resolved; `earlier` holds the checked nodes
 /// before it (`None` where those had problems).
-fn check_node(raw: NodeFile, inputs: Vec<usize>, earlier: &[Option<Node>], problems: &mut Vec<Problem>) -> Option<Node> {
+fn check_node(mut raw: NodeFile, inputs: Vec<usize>, earlier: &[Option<Node>], problems: &mut Vec<Problem>, resolve: Resolver) -> Option<Node> {
     let id = raw.id.0.clone();
     let before = problems.len();
     let op = Op::from_name(&raw.op).unwrap_or(Op::Custom);
@@ -183,14 +198,14 @@ fn check_node(raw: NodeFile, inputs: Vec<usize>, earlier: &[Option<Node>], probl
             "record at most one partial per input, in input order",
         ));
     }
-    let value = match checked_value(&raw.value) {
+    let value = match checked_value(std::mem::replace(&mut raw.value, ValueRepr::Scalar(0.0)), resolve) {
         Ok(value) => Some(value),
         Err(message) => {
             problems.push(Problem::at_node(&id, format!("value: {message}"), "the data length must equal the product of the shape"));
             None
         }
     };
-    let reported = raw.reported.as_ref().map(checked_value).transpose().unwrap_or_else(|message| {
+    let reported = raw.reported.take().map(|reported| checked_value(reported, resolve)).transpose().unwrap_or_else(|message| {
         problems.push(Problem::at_node(
             &id,
             format!("reported gradient: {message}"),

@@ -1,7 +1,15 @@
 //! Values held by nodes, partials and adjoints: a scalar or a row-major tensor,
 //! plus the shape arithmetic (NumPy broadcasting, axes) the op rules share.
 
+mod storage;
+
+pub use storage::{Element, Mapped};
+
+use crate::dtype::Dtype;
+use crate::stats::Summary;
 use std::fmt;
+use std::sync::OnceLock;
+use storage::Storage;
 
 /// A scalar or a dense row-major tensor of `f64`s.
 ///
@@ -16,13 +24,22 @@ pub enum Value {
 }
 
 /// A dense tensor of rank one or more, row-major.
-#[derive(Debug, Clone, PartialEq)]
+///
+/// Its elements are owned, or a range of a memory-mapped binary sidecar
+/// (see [`Mapped`]); either way [`Tensor::data`] gives them as `f64`s.
+#[derive(Clone)]
 pub struct Tensor {
     shape: Vec<usize>,
-    data: Vec<f64>,
+    storage: Storage,
+    /// The summary, computed on first request for the dtype it was asked in.
+    summary: OnceLock<(Dtype, Summary)>,
 }
 
 impl Tensor {
+    fn owned(shape: Vec<usize>, data: Vec<f64>) -> Tensor {
+        Tensor { shape, storage: Storage::Owned(data), summary: OnceLock::new() }
+    }
+
     /// The tensor's shape.
     pub fn shape(&self) -> &[usize] {
         &self.shape
@@ -30,7 +47,42 @@ impl Tensor {
 
     /// The elements in row-major order.
     pub fn data(&self) -> &[f64] {
-        &self.data
+        self.storage.data()
+    }
+
+    /// True when the elements live in a mapped sidecar rather than in memory.
+    pub fn is_mapped(&self) -> bool {
+        self.storage.is_mapped()
+    }
+
+    /// Summary statistics as values of `dtype`: computed once and cached, so
+    /// views and reports may ask every frame. A mapped f32 tensor is
+    /// summarised without widening it to f64.
+    pub fn summary(&self, dtype: Dtype) -> Summary {
+        if let Some((cached_dtype, summary)) = self.summary.get()
+            && *cached_dtype == dtype
+        {
+            return *summary;
+        }
+        let mut builder = Summary::builder(dtype);
+        self.storage.for_each(|x| builder.push(x));
+        let summary = builder.finish();
+        // Keeps the first dtype asked for; another dtype is computed afresh.
+        let _ = self.summary.set((dtype, summary));
+        summary
+    }
+}
+
+impl fmt::Debug for Tensor {
+    /// The same text for owned and mapped storage, so debug comparisons do not depend on it.
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.debug_struct("Tensor").field("shape", &self.shape).field("data", &self.data()).finish()
+    }
+}
+
+impl PartialEq for Tensor {
+    fn eq(&self, other: &Tensor) -> bool {
+        self.shape == other.shape && self.data() == other.data()
     }
 }
 
@@ -41,7 +93,16 @@ impl Value {
     /// If `data.len()` differs from the product of `shape` (callers validate first).
     pub fn from_parts(shape: Vec<usize>, data: Vec<f64>) -> Value {
         assert_eq!(numel(&shape), data.len(), "data length must match shape");
-        if shape.is_empty() { Value::Scalar(data[0]) } else { Value::Tensor(Box::new(Tensor { shape, data })) }
+        if shape.is_empty() { Value::Scalar(data[0]) } else { Value::Tensor(Box::new(Tensor::owned(shape, data))) }
+    }
+
+    /// A tensor whose elements are a checked range of a mapped sidecar.
+    ///
+    /// # Panics
+    /// If `shape` is empty or its size differs from the range's length.
+    pub fn from_mapped(shape: Vec<usize>, mapped: Mapped) -> Value {
+        assert!(!shape.is_empty() && numel(&shape) == mapped.len(), "a mapped tensor's shape must match its range");
+        Value::Tensor(Box::new(Tensor { shape, storage: Storage::Mapped(mapped), summary: OnceLock::new() }))
     }
 
     /// A value of `shape` with every element equal to `x`.
@@ -61,15 +122,27 @@ impl Value {
     pub fn data(&self) -> &[f64] {
         match self {
             Value::Scalar(x) => std::slice::from_ref(x),
-            Value::Tensor(t) => &t.data,
+            Value::Tensor(t) => t.data(),
         }
     }
 
-    /// Mutable access to the elements.
+    /// Mutable access to the elements. A mapped tensor is copied into memory
+    /// first; the cached summary is dropped.
     pub fn data_mut(&mut self) -> &mut [f64] {
         match self {
             Value::Scalar(x) => std::slice::from_mut(x),
-            Value::Tensor(t) => &mut t.data,
+            Value::Tensor(t) => {
+                t.summary = OnceLock::new();
+                t.storage.make_owned()
+            }
+        }
+    }
+
+    /// Summary statistics as values of `dtype`; cached for tensors (see [`Tensor::summary`]).
+    pub fn summary(&self, dtype: Dtype) -> Summary {
+        match self {
+            Value::Scalar(x) => Summary::of(std::slice::from_ref(x), dtype),
+            Value::Tensor(t) => t.summary(dtype),
         }
     }
 
@@ -95,7 +168,7 @@ impl Value {
     pub fn map(&self, f: impl Fn(f64) -> f64) -> Value {
         match self {
             Value::Scalar(x) => Value::Scalar(f(*x)),
-            Value::Tensor(t) => Value::Tensor(Box::new(Tensor { shape: t.shape.clone(), data: t.data.iter().map(|&x| f(x)).collect() })),
+            Value::Tensor(t) => Value::Tensor(Box::new(Tensor::owned(t.shape.clone(), t.data().iter().map(|&x| f(x)).collect()))),
         }
     }
 
@@ -131,26 +204,55 @@ impl From<f64> for Value {
 /// Anderson et al., LAPACK Users' Guide, 3rd ed., SIAM 1999), so squares of
 /// large entries cannot overflow. NaN propagates; an infinite entry gives inf.
 pub fn l2_norm(data: &[f64]) -> f64 {
-    let mut scale = 0.0f64;
-    let mut sum_sq = 1.0f64;
-    for &x in data {
+    let mut norm = NormAccumulator::default();
+    data.iter().for_each(|&x| norm.push(x));
+    norm.finish()
+}
+
+/// The running state of [`l2_norm`], for callers that visit elements one by one.
+#[derive(Debug, Clone, Copy)]
+pub struct NormAccumulator {
+    scale: f64,
+    sum_sq: f64,
+    nan: bool,
+    inf: bool,
+}
+
+impl Default for NormAccumulator {
+    fn default() -> NormAccumulator {
+        NormAccumulator { scale: 0.0, sum_sq: 1.0, nan: false, inf: false }
+    }
+}
+
+impl NormAccumulator {
+    /// Adds one element.
+    #[inline]
+    pub fn push(&mut self, x: f64) {
         if x.is_nan() {
-            return f64::NAN;
-        }
-        if x.is_infinite() {
-            return f64::INFINITY;
-        }
-        if x != 0.0 {
+            self.nan = true;
+        } else if x.is_infinite() {
+            self.inf = true;
+        } else if x != 0.0 {
             let a = x.abs();
-            if scale < a {
-                sum_sq = 1.0 + sum_sq * (scale / a) * (scale / a);
-                scale = a;
+            if self.scale < a {
+                self.sum_sq = 1.0 + self.sum_sq * (self.scale / a) * (self.scale / a);
+                self.scale = a;
             } else {
-                sum_sq += (a / scale) * (a / scale);
+                self.sum_sq += (a / self.scale) * (a / self.scale);
             }
         }
     }
-    scale * sum_sq.sqrt()
+
+    /// The norm of the elements pushed so far.
+    pub fn finish(&self) -> f64 {
+        if self.nan {
+            f64::NAN
+        } else if self.inf {
+            f64::INFINITY
+        } else {
+            self.scale * self.sum_sq.sqrt()
+        }
+    }
 }
 
 impl fmt::Display for Value {
