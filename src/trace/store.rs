@@ -105,7 +105,13 @@ pub(crate) fn stage(path: &Path, write: impl FnOnce(&mut dyn Write) -> std::io::
         Some(dir) if !dir.as_os_str().is_empty() => dir,
         _ => Path::new("."),
     };
-    let temp = tempfile::NamedTempFile::new_in(dir).map_err(io)?;
+    let mut builder = tempfile::Builder::new();
+    builder.prefix(".ebb-").suffix(".tmp");
+    // A temporary file is private by default; the finished trace gets the
+    // usual permissions of a new file (subject to the umask).
+    #[cfg(unix)]
+    builder.permissions(std::os::unix::fs::PermissionsExt::from_mode(0o644));
+    let temp = builder.tempfile_in(dir).map_err(io)?;
     let mut out = std::io::BufWriter::with_capacity(1 << 20, temp.as_file());
     write(&mut out).map_err(io)?;
     out.flush().map_err(io)?;

@@ -1,6 +1,12 @@
 //! The recorder: a tape that Rust code drives to compute one step and record
 //! it as a trace. Forward values come from the op table, the same rules the
-//! engine and the checks use.
+//! engine and the checks use, rounded into the tape's dtype exactly as the
+//! engine rounds them; the recorder never computes a number of its own.
+//!
+//! The catalog's ops are methods (in `methods.rs`); scopes set each node's group;
+//! every node remembers the line of the caller's code that recorded it.
+
+mod methods;
 
 use crate::dtype::Dtype;
 use crate::ops::{self, Attrs, Op};
@@ -178,6 +184,11 @@ impl Tape {
         self.apply_at(op, inputs, attrs, Location::caller())
     }
 
+    /// Records a catalog op, panicking with the caller's site when it does not fit.
+    fn op_at(&mut self, op: Op, inputs: &[Var], attrs: Attrs, location: &'static Location<'static>) -> Var {
+        self.apply_at(op, inputs, attrs, location).unwrap_or_else(|error| panic!("{error}"))
+    }
+
     fn apply_at(&mut self, op: Op, inputs: &[Var], attrs: Attrs, location: &Location) -> Result<Var, RecordError> {
         let error = |message: String| RecordError { op: op.name().to_string(), site: site(location), message };
         if op.is_leaf() || op == Op::Custom {
@@ -216,66 +227,35 @@ impl Tape {
         Ok(self.push(None, name, inputs, value, Extras { attrs: Attrs::default(), partials }, location))
     }
 
-    /// Finishes the recording with `output` as the seeded node.
+    /// Attaches the gradient the original framework reported for `var`, so
+    /// that checks can compare it with Ebb's sweep. Rounded into the dtype.
+    pub fn report(&mut self, var: Var, gradient: impl Into<Value>) {
+        let gradient = gradient.into().map(|x| self.dtype.round(x));
+        self.nodes[var.0].reported = Some(value_repr(&gradient));
+    }
+
+    /// Finishes the recording with `output` as the seeded node and the
+    /// default seed (1, or ones of the output's shape).
     pub fn finish(self, output: Var) -> TraceFile {
+        self.finish_with_seed(output, None)
+    }
+
+    /// Finishes the recording with `output` seeded by `seed` (a scalar, or a
+    /// tensor of the output's shape): the vector of a vector-Jacobian product.
+    pub fn finish_seeded(self, output: Var, seed: impl Into<Value>) -> TraceFile {
+        let seed = seed.into().map(|x| self.dtype.round(x));
+        self.finish_with_seed(output, Some(value_repr(&seed)))
+    }
+
+    fn finish_with_seed(self, output: Var, seed: Option<ValueRepr>) -> TraceFile {
         TraceFile {
             format: FORMAT_VERSION,
             title: self.title,
             description: self.description,
             dtype: self.dtype,
             output: self.nodes[output.0].id.clone(),
-            seed: None,
+            seed,
             nodes: self.nodes,
         }
     }
-}
-
-macro_rules! op_methods {
-    ($($(#[$doc:meta])* $method:ident => $op:ident ( $($arg:ident),* );)*) => {
-        impl Tape {
-            $(
-                $(#[$doc])*
-                #[track_caller]
-                pub fn $method(&mut self, $($arg: Var),*) -> Var {
-                    let location = Location::caller();
-                    self.apply_at(Op::$op, &[$($arg),*], Attrs::default(), location).unwrap_or_else(|error| panic!("{error}"))
-                }
-            )*
-        }
-    };
-}
-
-op_methods! {
-    /// a + b (broadcast). Panics if the shapes do not broadcast.
-    add => Add(a, b);
-    /// a − b (broadcast).
-    sub => Sub(a, b);
-    /// a · b (broadcast).
-    mul => Mul(a, b);
-    /// a / b (broadcast).
-    div => Div(a, b);
-    /// −x.
-    neg => Neg(x);
-    /// eˣ.
-    exp => Exp(x);
-    /// ln x.
-    log => Log(x);
-    /// √x.
-    sqrt => Sqrt(x);
-    /// |x|.
-    abs => Abs(x);
-    /// sin x.
-    sin => Sin(x);
-    /// cos x.
-    cos => Cos(x);
-    /// tanh x.
-    tanh => Tanh(x);
-    /// σ(x).
-    sigmoid => Sigmoid(x);
-    /// max(x, 0).
-    relu => Relu(x);
-    /// a @ b.
-    matmul => Matmul(a, b);
-    /// Mean squared error.
-    mse => Mse(prediction, target);
 }
