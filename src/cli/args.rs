@@ -37,7 +37,7 @@ pub enum Command {
     /// Exit status: 0 when nothing is flagged, 1 when something is, 2 on bad input.
     #[command(after_help = "Examples:\n  ebb check traces/teaching.ron\n  ebb check run-1234.json --json | jq '.flags[0]'")]
     Check {
-        /// The trace file (.ron or .json).
+        /// The trace file (.ron, .json or .tape).
         trace: PathBuf,
         /// Print the report as JSON (stable field names, for CI scripts).
         #[arg(long)]
@@ -46,7 +46,7 @@ pub enum Command {
     /// Print the sweep step by step: each node, its adjoint, each contribution.
     #[command(after_help = "Examples:\n  ebb sweep traces/teaching.ron\n  ebb sweep big.json --steps 20")]
     Sweep {
-        /// The trace file (.ron or .json).
+        /// The trace file (.ron, .json or .tape).
         trace: PathBuf,
         /// Stop after this many steps.
         #[arg(long, value_name = "N")]
@@ -75,6 +75,17 @@ pub enum Command {
         /// Tangent direction: the unit vector of NODE's element K (default: a seeded random direction over all params).
         #[arg(long, value_name = "NODE[:K]")]
         direction: Option<String>,
+    },
+    /// Rewrite a trace in another form: .ron, .json, or .tape (binary-backed:
+    /// a RON header plus a .bin sidecar), chosen by OUT's extension.
+    ///
+    /// Never writes over its input; writes a temporary file and renames it.
+    #[command(after_help = "Examples:\n  ebb convert run.json run.tape    binary-backed: run.tape + run.bin\n  ebb convert run.tape run.ron     back to text")]
+    Convert {
+        /// The trace to read (.ron, .json or .tape).
+        input: PathBuf,
+        /// Where to write; the extension picks the form.
+        output: PathBuf,
     },
     /// List the op catalog: names, inputs, required attributes.
     #[command(after_help = "Example:\n  ebb ops")]

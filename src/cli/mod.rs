@@ -2,6 +2,8 @@
 //! Nothing here computes; exit codes are chosen in `main`.
 
 mod args;
+mod convert;
+mod progress;
 
 pub use args::{Cli, Command};
 
@@ -50,6 +52,7 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
             verify_command(&loaded, &options, json, out)
         }
         Some(Command::Ops) => ops(out),
+        Some(Command::Convert { input, output }) => convert::convert(&input, &output, out),
         Some(Command::Completions { shell }) => {
             let mut command = Cli::command();
             clap_complete::generate(shell, &mut command, "ebb", out);
@@ -93,7 +96,7 @@ fn view_error(error: ViewError) -> anyhow::Error {
 }
 
 fn load(path: &Path) -> Result<Trace> {
-    trace::load(path).map_err(|error| BadInput(error).into())
+    trace::load_with(path, progress::for_trace(path).as_mut()).map_err(|error| BadInput(error).into())
 }
 
 /// Loads the demo embedded in the binary.

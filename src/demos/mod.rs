@@ -74,6 +74,7 @@ pub fn all() -> Vec<(&'static str, TraceFile)> {
 }
 
 /// A parameter tensor of `shape` drawn uniform in [−limit, limit).
+#[track_caller]
 fn param_tensor(tape: &mut Tape, rng: &mut SplitMix64, name: &str, shape: &[usize], limit: f64) -> Var {
     let data = rng.fill(shape.iter().product(), limit);
     tape.param(name, Value::from_parts(shape.to_vec(), data))
@@ -81,6 +82,7 @@ fn param_tensor(tape: &mut Tape, rng: &mut SplitMix64, name: &str, shape: &[usiz
 
 /// A dense layer `x @ w + b` with Glorot-uniform weights and zero-centred
 /// small biases, recorded in the current scope under readable ids.
+#[track_caller]
 fn dense(tape: &mut Tape, rng: &mut SplitMix64, prefix: &str, x: Var, fan_in: usize, fan_out: usize) -> Var {
     let limit = glorot_limit(fan_in, fan_out);
     let w = param_tensor(tape, rng, &format!("{prefix}.w"), &[fan_in, fan_out], limit);

@@ -1,0 +1,57 @@
+//! `ebb convert IN OUT`: rewrite a trace in another form, chosen by OUT's
+//! extension. Never writes over its input; the library writes through a
+//! temporary file and a rename.
+
+use super::{BadInput, Outcome, progress};
+use anyhow::{Context, Result, bail};
+use ebb::trace::{self, Format, LoadError};
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+/// The absolute form of a path that may not exist yet (its directory must).
+fn resolved(path: &Path) -> Option<PathBuf> {
+    if let Ok(path) = path.canonicalize() {
+        return Some(path);
+    }
+    let dir = match path.parent() {
+        Some(dir) if !dir.as_os_str().is_empty() => dir,
+        _ => Path::new("."),
+    };
+    Some(dir.canonicalize().ok()?.join(path.file_name()?))
+}
+
+fn name(format: Option<Format>) -> &'static str {
+    match format {
+        Some(Format::Ron) => "RON",
+        Some(Format::Json) => "JSON",
+        Some(Format::Tape) => "binary-backed",
+        None => "text",
+    }
+}
+
+/// Runs the conversion and reports it on `out`.
+pub fn convert(input: &Path, output: &Path, out: &mut dyn Write) -> Result<Outcome> {
+    let Some(target) = Format::from_path(output) else {
+        bail!("{}: unknown trace extension (hint: use .ron, .json, or .tape for a binary-backed trace)", output.display());
+    };
+    let source = Format::from_path(input);
+    let reads = source.map_or_else(|| vec![input.to_path_buf()], |format| format.files(input));
+    for written in target.files(output) {
+        let clash = reads.iter().find(|read| resolved(read).is_some_and(|read| Some(read) == resolved(&written)));
+        if let Some(read) = clash {
+            bail!(
+                "{}: would overwrite the input {} (hint: ebb never writes to a trace it reads; choose another output name)",
+                written.display(),
+                read.display()
+            );
+        }
+    }
+    let file = trace::read_file(input, progress::for_trace(input).as_mut()).map_err(BadInput)?;
+    let nodes = file.nodes.len();
+    trace::validate(file.clone()).map_err(|problems| BadInput(LoadError::Invalid { path: input.to_path_buf(), problems }))?;
+    trace::save_with(&file, output, progress::for_trace(input).as_mut())?;
+    let written: Vec<String> = target.files(output).iter().map(|path| path.display().to_string()).collect();
+    writeln!(out, "converted {} ({}) to {} ({}), {nodes} nodes", input.display(), name(source), written.join(" + "), name(Some(target)))
+        .context("writing the summary")?;
+    Ok(Outcome::Clean)
+}
