@@ -58,19 +58,114 @@ fn every_demo_has_a_one_line_story() {
 }
 
 #[test]
-fn scratch_print() {
-    for name in ["nan_hunt.ron", "vanishing.ron", "exploding.ron", "underflow_f16.ron", "wrong_partial.ron", "medium.tape"] {
-        let trace = open(name);
-        let sweep = swept(&trace);
-        eprintln!("== {name}: {} nodes, {} flags", trace.nodes().len(), sweep.flags().len());
-        for flag in sweep.flags().iter().take(6) {
-            eprintln!("  {:?} {}", flag.kind, trace.node(flag.node).id);
-        }
-        for p in trace.params() {
-            let g = sweep.adjoint(p).map(|a| a.data().to_vec()).unwrap_or_default();
-            let zeros = g.iter().filter(|x| **x == 0.0).count();
-            eprintln!("  {:<12} max|g| {:e} zeros {zeros}/{}", trace.node(p).id, max_abs(&g), g.len());
+fn nan_hunt_takes_the_log_of_an_exact_zero() {
+    let trace = open("nan_hunt.ron");
+    let ln_p = trace.find("ln_p").unwrap();
+    // IEEE 754-2019 §9.2.1: log(±0) is −inf (divideByZero).
+    let predicted = trace.node(trace.find("predicted").unwrap()).value.data();
+    let zero = predicted.iter().position(|&p| p == 0.0).expect("one prediction is exactly 0");
+    assert_eq!(trace.node(ln_p).value.data()[zero], f64::NEG_INFINITY);
+    let sweep = swept(&trace);
+    assert!(sweep.flags().iter().any(|f| f.node == ln_p && f.kind == FlagKind::NonFiniteValue));
+    assert!(sweep.flags().iter().any(|f| f.node == ln_p && f.kind == FlagKind::NonFinitePartial), "d ln p / dp = 1/0 = inf");
+    assert!(gradient(&trace, &sweep, "hidden.w").iter().any(|g| g.is_nan()), "0 × inf at the sigmoid makes NaN upstream");
+}
+
+#[test]
+fn vanishing_first_layers_get_gradients_below_1e_8() {
+    let trace = open("vanishing.ron");
+    let sweep = swept(&trace);
+    for layer in 1..=4 {
+        let g = max_abs(gradient(&trace, &sweep, &format!("layer{layer:02}.w")));
+        assert!(g > 0.0 && g < 1e-8, "layer {layer}: {g:e}");
+    }
+    let last = max_abs(gradient(&trace, &sweep, "layer16.w"));
+    assert!(last > 1e-3, "the last layer learns: {last:e}");
+    // Each sigmoid passes back at most 1/4 of its adjoint (σ' ≤ 1/4, closed form),
+    // so 16 layers shrink the adjoint by far more than the 0.25^16 ≈ 2.3e-10 bound alone.
+    assert!(max_abs(gradient(&trace, &sweep, "layer01.w")) / last < 0.25f64.powi(8));
+}
+
+#[test]
+fn exploding_adjoints_grow_by_the_recurrent_gain_per_step() {
+    let trace = open("exploding.ron");
+    let sweep = swept(&trace);
+    let norm = |id: &str| ebb::tensor::l2_norm(gradient(&trace, &sweep, id));
+    // h_{t-1} receives ā_t Wᵀ, and W = 1.2·(a rotation), so the norm grows by
+    // exactly 1.2 per step back (orthogonal matrices preserve the norm).
+    let growth = norm("h01") / norm("h50");
+    let expected = demos::exploding::GAIN.powi(49);
+    assert!((growth / expected - 1.0).abs() < 1e-4, "growth {growth:e}, expected {expected:e}");
+    assert!(growth > 7e3);
+}
+
+#[test]
+fn f16_gradients_flush_to_zero_where_f32_keeps_them() {
+    let half = trace::validate(demos::underflow_in(Dtype::F16)).unwrap();
+    let single = trace::validate(demos::underflow_in(Dtype::F32)).unwrap();
+    let (half_sweep, single_sweep) = (swept(&half), swept(&single));
+    let g16 = gradient(&half, &half_sweep, "hidden.w");
+    let g32 = gradient(&single, &single_sweep, "hidden.w");
+    // f16's smallest subnormal is 2^-24 (IEEE 754-2019 table 3.5); below half of it
+    // a value rounds to 0.
+    let flushed = g16.iter().zip(g32).filter(|(h, s)| **h == 0.0 && **s != 0.0).count();
+    assert!(flushed >= 8, "only {flushed} entries flushed");
+    let nonzero = |g: &[f64]| g.iter().filter(|x| **x != 0.0).count();
+    assert!(nonzero(g32) >= nonzero(g16) + 8, "f32 keeps the entries f16 loses");
+    assert!(max_abs(g32) < 2f64.powi(-14), "the first layer's gradients are below f16's smallest normal");
+}
+
+#[test]
+fn wrong_partial_disagrees_with_the_reference_only_upstream_of_the_gate() {
+    let trace = open("wrong_partial.ron");
+    let sweep = swept(&trace);
+    let gate = trace.find("gated").unwrap();
+    assert_eq!(trace.node(gate).op_name, demos::GATE);
+    let disagrees = |id: &str| {
+        let node = trace.find(id).unwrap();
+        let reported = trace.node(node).reported.as_ref().expect("every node carries the reference gradient");
+        let ours = sweep.adjoint(node).unwrap();
+        ours.data().iter().zip(reported.data()).any(|(a, b)| (a - b).abs() > 1e-9 * (1.0 + b.abs()))
+    };
+    for id in ["loss", "out.w", "out.b", "gated"] {
+        assert!(!disagrees(id), "{id} is downstream of the gate and agrees");
+    }
+    for id in ["hidden.pre", "hidden.w", "hidden.b"] {
+        assert!(disagrees(id), "{id} is upstream of the wrong partial");
+    }
+}
+
+#[test]
+fn medium_network_is_binary_backed_f32_and_small() {
+    let dir = traces_dir();
+    let sidecar = std::fs::metadata(dir.join("medium.bin")).unwrap().len();
+    let header = std::fs::metadata(dir.join("medium.tape")).unwrap().len();
+    assert!(sidecar < 2 << 20 && header < 16 << 10, "sidecar {sidecar} B, header {header} B");
+    let trace = open("medium.tape");
+    assert_eq!(trace.dtype(), Dtype::F32);
+    let elements: usize = trace.nodes().iter().map(|node| node.value.len()).sum();
+    // 4 bytes per element plus alignment and the 16-byte preamble.
+    assert!(sidecar as usize >= 4 * elements && (sidecar as usize) < 4 * elements + 8 * trace.nodes().len() + 16);
+    for (id, shape) in [("layer1.w", [64, 256]), ("layer2.w", [256, 256]), ("layer3.w", [256, 256]), ("layer3.relu", [64, 256])] {
+        assert_eq!(trace.node(trace.find(id).unwrap()).value.shape(), shape);
+    }
+}
+
+#[test]
+fn ebb_check_gives_each_demo_its_expected_status() {
+    for (name, _) in demos::all() {
+        let output = std::process::Command::new(env!("CARGO_BIN_EXE_ebb"))
+            .args(["check", "--json", traces_dir().join(name).to_str().unwrap()])
+            .output()
+            .unwrap();
+        let report: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap_or_else(|e| panic!("{name}: {e}"));
+        let flagged: Vec<&str> = report["flags"].as_array().unwrap().iter().map(|f| f["node"].as_str().unwrap()).collect();
+        let expected = if name == "nan_hunt.ron" { 1 } else { 0 };
+        assert_eq!(output.status.code(), Some(expected), "{name}: {flagged:?}");
+        if name == "nan_hunt.ron" {
+            let ln_p = report["flags"].as_array().unwrap().iter().find(|f| f["node"] == "ln_p").expect("ln_p is flagged");
+            assert_eq!(ln_p["kind"], "non_finite_value");
+            assert_eq!(ln_p["value"], "-inf");
         }
     }
-    let _ = (Dtype::F32, FlagKind::NonFiniteValue, gradient);
 }

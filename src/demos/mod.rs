@@ -3,7 +3,7 @@
 //! Each scenario is our own invention and carries a one-line story in its
 //! description.
 
-mod exploding;
+pub mod exploding;
 mod medium;
 mod nan_hunt;
 mod rng;
@@ -17,7 +17,7 @@ pub use nan_hunt::nan_hunt;
 pub use rng::{SplitMix64, glorot_limit};
 pub use underflow::{underflow, underflow_in};
 pub use vanishing::vanishing;
-pub use wrong_partial::{wrong_partial, wrong_partial_with};
+pub use wrong_partial::{GATE, wrong_partial, wrong_partial_with};
 
 use crate::dtype::Dtype;
 use crate::record::{Tape, Var};
