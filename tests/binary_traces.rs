@@ -23,11 +23,14 @@ fn special_trace(dtype: Dtype) -> TraceFile {
 
 /// Everything a trace holds, as text in which NaN equals NaN and −0 differs from 0.
 fn fingerprint(trace: &Trace) -> String {
-    let bits = |value: &Value| value.data().iter().map(|x| format!("{:x}", if x.is_nan() { 0x7ff8 } else { x.to_bits() })).collect::<Vec<_>>();
+    let bits =
+        |value: &Value| value.data().iter().map(|x| format!("{:x}", if x.is_nan() { 0x7ff8 } else { x.to_bits() })).collect::<Vec<_>>();
     let nodes: Vec<String> = trace
         .nodes()
         .iter()
-        .map(|node| format!("{} {} {:?} {:?} {:?}", node.id, node.op_name, node.value.shape(), bits(&node.value), node.reported.as_ref().map(bits)))
+        .map(|node| {
+            format!("{} {} {:?} {:?} {:?}", node.id, node.op_name, node.value.shape(), bits(&node.value), node.reported.as_ref().map(bits))
+        })
         .collect();
     format!("{} {} {:?} {:?}", trace.title(), trace.dtype(), bits(trace.seed()), nodes)
 }
@@ -117,7 +120,11 @@ fn edit_header(header: &Path, from: &str, to: &str) {
 fn lying_headers_give_one_clear_line() {
     let cases: [(&str, &str, &str); 6] = [
         ("offset: 16400,", "offset: 1214400,", "node 'layer1.w': data of shape [64, 256] at bytes 1214400..1279936 lies past the end"),
-        ("shape: [64, 256],\n        offset: 16400,", "shape: [4000000000, 4000000000],\n        offset: 16400,", "node 'layer1.w': shape [4000000000, 4000000000] is too large"),
+        (
+            "shape: [64, 256],\n        offset: 16400,",
+            "shape: [4000000000, 4000000000],\n        offset: 16400,",
+            "node 'layer1.w': shape [4000000000, 4000000000] is too large",
+        ),
         ("offset: 16400,", "offset: 16402,", "node 'layer1.w': offset 16402 is not a multiple of the 4-byte element width"),
         ("offset: 16,", "offset: 4,", "node 'spectra': offset 4 lies inside the 16-byte preamble"),
         ("element: f32,", "element: f64,", "stores 4-byte elements but the header declares f64"),
@@ -152,7 +159,11 @@ fn a_sidecar_of_another_length_or_kind_is_refused() {
 
 fn ebb(args: &[&str]) -> (i32, String, String) {
     let output = Command::new(env!("CARGO_BIN_EXE_ebb")).args(args).output().unwrap();
-    (output.status.code().unwrap_or(-1), String::from_utf8_lossy(&output.stdout).into_owned(), String::from_utf8_lossy(&output.stderr).into_owned())
+    (
+        output.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&output.stdout).into_owned(),
+        String::from_utf8_lossy(&output.stderr).into_owned(),
+    )
 }
 
 #[test]
@@ -189,7 +200,11 @@ fn convert_round_trips_and_never_overwrites_its_input() {
     let (status, _, stderr) = ebb(&["convert", header.to_str().unwrap(), dir.path().join("medium.tape").to_str().unwrap()]);
     assert_eq!(status, 2, "{stderr}");
     assert_eq!(std::fs::read(&json).unwrap(), before);
-    let leftovers: Vec<_> = std::fs::read_dir(dir.path()).unwrap().filter_map(|e| e.ok()).filter(|e| e.file_name().to_string_lossy().ends_with(".tmp")).collect();
+    let leftovers: Vec<_> = std::fs::read_dir(dir.path())
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .filter(|e| e.file_name().to_string_lossy().ends_with(".tmp"))
+        .collect();
     assert!(leftovers.is_empty(), "no temporary files are left behind");
     let (status, _, stderr) = ebb(&["convert", json.to_str().unwrap(), dir.path().join("m.txt").to_str().unwrap()]);
     assert_eq!(status, 2);

@@ -66,5 +66,8 @@ fn readme_carries_the_example_verbatim() {
     let end = source.find("    // README:end").expect("end marker");
     let example: String = source[begin..end].lines().map(|line| format!("{}\n", line.strip_prefix("    ").unwrap_or(line))).collect();
     let readme = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/README.md")).expect("README.md");
-    assert!(readme.contains(&example), "README.md's \"Recording a trace\" example differs from tests/readme_recording.rs; copy it over:\n{example}");
+    assert!(
+        readme.contains(&example),
+        "README.md's \"Recording a trace\" example differs from tests/readme_recording.rs; copy it over:\n{example}"
+    );
 }

@@ -46,7 +46,8 @@ fn by_hand() -> (Vec<f64>, Vec<f64>, Vec<f64>) {
     }
     let dw2: Vec<f64> = (0..4).map(|j| (0..3).map(|n| h[n][j] * dy[n]).sum()).collect();
     let dpre: Vec<[f64; 4]> = (0..3).map(|n| std::array::from_fn(|j| dy[n] * W2[j] * (1.0 - h[n][j] * h[n][j]))).collect();
-    let dw1: Vec<f64> = (0..2).flat_map(|i| (0..4).map(move |j| (i, j))).map(|(i, j)| (0..3).map(|n| X[2 * n + i] * dpre[n][j]).sum()).collect();
+    let dw1: Vec<f64> =
+        (0..2).flat_map(|i| (0..4).map(move |j| (i, j))).map(|(i, j)| (0..3).map(|n| X[2 * n + i] * dpre[n][j]).sum()).collect();
     let db1: Vec<f64> = (0..4).map(|j| (0..3).map(|n| dpre[n][j]).sum()).collect();
     (dw1, db1, dw2)
 }

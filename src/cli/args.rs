@@ -80,7 +80,9 @@ pub enum Command {
     /// a RON header plus a .bin sidecar), chosen by OUT's extension.
     ///
     /// Never writes over its input; writes a temporary file and renames it.
-    #[command(after_help = "Examples:\n  ebb convert run.json run.tape    binary-backed: run.tape + run.bin\n  ebb convert run.tape run.ron     back to text")]
+    #[command(
+        after_help = "Examples:\n  ebb convert run.json run.tape    binary-backed: run.tape + run.bin\n  ebb convert run.tape run.ron     back to text"
+    )]
     Convert {
         /// The trace to read (.ron, .json or .tape).
         input: PathBuf,

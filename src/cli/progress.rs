@@ -22,7 +22,9 @@ impl Progress for Bar {
                 self.0.disable_steady_tick();
                 self.0.set_length(total);
                 self.0.set_style(
-                    ProgressStyle::with_template("{msg:>9} [{bar:30}] {bytes}/{total_bytes} {elapsed}").expect("a valid template").progress_chars("=> "),
+                    ProgressStyle::with_template("{msg:>9} [{bar:30}] {bytes}/{total_bytes} {elapsed}")
+                        .expect("a valid template")
+                        .progress_chars("=> "),
                 );
             }
             None => {

@@ -19,7 +19,7 @@ pub fn medium() -> TraceFile {
     tape.describe(
         "A bird-call classifier (64 spectral features, three relu layers of width 256, 10 species) on a batch of 64 recordings: a healthy step of realistic size, stored binary-backed.",
     );
-    let mut rng = SplitMix64::new(0xB1_2D_CA11);
+    let mut rng = SplitMix64::new(0xB12D_CA11);
     let (spectra, species) = tape.scoped("calls", |tape| {
         let spectra = tape.input("spectra", Value::from_parts(vec![BATCH, FEATURES], rng.fill(BATCH * FEATURES, 1.0)));
         let species: Vec<usize> = (0..BATCH).map(|_| rng.below(SPECIES)).collect();

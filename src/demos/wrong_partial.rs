@@ -56,7 +56,7 @@ pub fn wrong_partial_with(sign_error: bool) -> TraceFile {
     tape.describe(
         "A delivery-time model with a hand-written smooth_gate layer (x * sigmoid(x)) whose recorded partial flips the sign of one term; reported gradients come from the reference implementation.",
     );
-    let mut rng = SplitMix64::new(0xB4E_3A_75);
+    let mut rng = SplitMix64::new(0x0B4E_3A75);
     let routes = tape.scoped("routes", |tape| tape.input("route_features", Value::from_parts(vec![4, 3], rng.fill(12, 1.5))));
     let minutes = tape.scoped("model", |tape| {
         let pre = tape.scoped("hidden", |tape| dense(tape, &mut rng, "hidden", routes, 3, 5));

@@ -79,7 +79,8 @@ pub fn element_for(file: &TraceFile) -> Element {
         ValueRepr::Tensor { data, .. } => data.iter().all(exact),
         ValueRepr::Scalar(_) | ValueRepr::Stored { .. } => true,
     };
-    let all = file.seed.as_ref().is_none_or(fits) && file.nodes.iter().all(|node| fits(&node.value) && node.reported.as_ref().is_none_or(fits));
+    let all =
+        file.seed.as_ref().is_none_or(fits) && file.nodes.iter().all(|node| fits(&node.value) && node.reported.as_ref().is_none_or(fits));
     if all { Element::F32 } else { Element::F64 }
 }
 
@@ -191,7 +192,8 @@ fn sidecar_error(header: &Path, node: Option<&str>, message: String, hint: &str)
     LoadError::Sidecar { path: header.to_path_buf(), node: node.map(str::to_string), message, hint: hint.to_string() }
 }
 
-const REGENERATE: &str = "the header and its sidecar no longer belong together; regenerate both, e.g. with `ebb convert` from the original trace";
+const REGENERATE: &str =
+    "the header and its sidecar no longer belong together; regenerate both, e.g. with `ebb convert` from the original trace";
 
 /// Reads and parses the header.
 fn read_header(header: &Path, progress: &mut dyn Progress) -> Result<(HeaderFile, String), LoadError> {
@@ -258,23 +260,39 @@ fn open_sidecar(header: &Path, parsed: &HeaderFile) -> Result<Sidecar, LoadError
     let path = header.parent().unwrap_or(Path::new("")).join(&info.file);
     let opened = std::fs::File::open(&path).and_then(|file| file.metadata().map(|meta| (file, meta.len())));
     let (file, len) = opened.map_err(|error| {
-        sidecar_error(header, None, format!("cannot open its sidecar {}: {error}", path.display()), "keep the .bin sidecar beside its .tape header")
+        sidecar_error(
+            header,
+            None,
+            format!("cannot open its sidecar {}: {error}", path.display()),
+            "keep the .bin sidecar beside its .tape header",
+        )
     })?;
     let name = info.file.clone();
     if len < info.bytes {
         // Name the first node whose data is cut off.
         let cut = references(&parsed.trace).find(|(_, shape, offset)| checked_range(shape, *offset, info.element, len, &name).is_err());
         let message = format!("sidecar {name} is truncated: {len} bytes, but the header declares {}", info.bytes);
-        return Err(sidecar_error(header, cut.map(|(node, _, _)| node), message, "the sidecar was cut short (an interrupted copy?); copy or regenerate it"));
+        return Err(sidecar_error(
+            header,
+            cut.map(|(node, _, _)| node),
+            message,
+            "the sidecar was cut short (an interrupted copy?); copy or regenerate it",
+        ));
     }
     if len > info.bytes {
-        return Err(sidecar_error(header, None, format!("sidecar {name} is {len} bytes, but the header declares {}", info.bytes), REGENERATE));
+        return Err(sidecar_error(
+            header,
+            None,
+            format!("sidecar {name} is {len} bytes, but the header declares {}", info.bytes),
+            REGENERATE,
+        ));
     }
     // SAFETY: the file is opened read-only and the mapping is never written;
     // another process truncating or rewriting it while open is the usual
     // caveat of memory maps, documented in traces/FORMAT.md.
-    let map = unsafe { Mmap::map(&file) }
-        .map_err(|error| sidecar_error(header, None, format!("cannot map its sidecar {}: {error}", path.display()), "check the file is readable"))?;
+    let map = unsafe { Mmap::map(&file) }.map_err(|error| {
+        sidecar_error(header, None, format!("cannot map its sidecar {}: {error}", path.display()), "check the file is readable")
+    })?;
     if map.len() < PREAMBLE as usize || &map[..8] != MAGIC {
         return Err(sidecar_error(header, None, format!("{name} is not an Ebb sidecar (it does not start with `ebb-side`)"), REGENERATE));
     }

@@ -13,8 +13,8 @@ mod validate;
 
 pub use error::{LoadError, Problem, SaveError};
 pub use load::{Encoding, SyntaxError, load, load_str, load_with, parse, to_text};
-pub use progress::{Progress, Silent};
-pub use store::{Format, read_file, save, save_with};
 pub use model::{Node, Partial, Trace};
+pub use progress::{Progress, Silent};
 pub use schema::{FORMAT_VERSION, NodeFile, NodeId, Num, PartialRepr, TraceFile, ValueRepr};
+pub use store::{Format, read_file, save, save_with};
 pub use validate::validate;

@@ -170,8 +170,14 @@ fn checked_value(raw: ValueRepr, resolve: Resolver) -> Result<Value, String> {
 
 /// Checks one node whose inputs resolved; `earlier` holds the checked nodes
 /// before it (`None` where those had problems).
-fn check_node(mut raw: NodeFile, inputs: Vec<usize>, earlier: &[Option<Node>], problems: &mut Vec<Problem>, resolve: Resolver) -> Option<Node> {
-    let id = raw.id.0.clone();
+fn check_node(
+    mut raw: NodeFile,
+    inputs: Vec<usize>,
+    earlier: &[Option<Node>],
+    problems: &mut Vec<Problem>,
+    resolve: Resolver,
+) -> Option<Node> {
+    let id = std::mem::take(&mut raw.id.0);
     let before = problems.len();
     let op = Op::from_name(&raw.op).unwrap_or(Op::Custom);
     let spec = op.spec();
@@ -180,7 +186,7 @@ fn check_node(mut raw: NodeFile, inputs: Vec<usize>, earlier: &[Option<Node>], p
         problems.push(Problem::at_node(&id, format!("{} takes {}, got {}", raw.op, spec.arity, inputs.len()), hint));
     }
     if op == Op::Custom {
-        check_custom_partials(&raw, problems);
+        check_custom_partials(&id, &raw, problems);
     }
     for attr in spec.required {
         if !attr.is_set(&raw.attrs) {
@@ -259,7 +265,7 @@ fn check_node(mut raw: NodeFile, inputs: Vec<usize>, earlier: &[Option<Node>], p
     Some(Node { id, op, op_name, inputs, group: raw.group, site: raw.site, value, attrs: raw.attrs, partials, reported })
 }
 
-fn check_custom_partials(raw: &NodeFile, problems: &mut Vec<Problem>) {
+fn check_custom_partials(id: &str, raw: &NodeFile, problems: &mut Vec<Problem>) {
     let missing: Vec<usize> =
         (0..raw.inputs.len()).filter(|&slot| matches!(raw.partials.get(slot), None | Some(PartialRepr::Absent))).collect();
     if missing.is_empty() {
@@ -268,7 +274,7 @@ fn check_custom_partials(raw: &NodeFile, problems: &mut Vec<Problem>) {
     let suggestion = Op::closest_name(&raw.op).map(|name| format!("did you mean the catalog op '{name}'? ")).unwrap_or_default();
     let edges: Vec<String> = missing.iter().map(|slot| slot.to_string()).collect();
     problems.push(Problem::at_node(
-        &raw.id.0,
+        id,
         format!("'{}' is not a catalog op, so it is a custom op, and it has no recorded partial on edge {}", raw.op, edges.join(", ")),
         format!("{suggestion}a custom op must record a partial on every input edge"),
     ));
