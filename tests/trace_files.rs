@@ -1,7 +1,7 @@
 //! Every trace shipped in traces/ loads, and the examples in traces/FORMAT.md
 //! load and agree with each other.
 
-use ebb::trace::{Encoding, load, load_str};
+use ebb::trace::{Encoding, Format, load, load_str};
 use std::path::Path;
 
 #[test]
@@ -10,7 +10,7 @@ fn every_shipped_trace_loads() {
     let mut loaded = 0;
     for entry in std::fs::read_dir(&dir).unwrap() {
         let path = entry.unwrap().path();
-        if Encoding::from_path(&path).is_some() {
+        if Format::from_path(&path).is_some() {
             load(&path).unwrap_or_else(|error| panic!("{error}"));
             loaded += 1;
         }

@@ -1,8 +1,8 @@
 //! Traces: the file schema, loading and saving, and validation into a checked
 //! [`Trace`].
 
-pub(crate) mod compact;
 pub mod binary;
+pub(crate) mod compact;
 mod error;
 mod load;
 mod model;
