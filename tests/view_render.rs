@@ -169,7 +169,7 @@ fn node_shows_value_partials_and_state() {
     let buf = draw(&mut app, 200, 50);
     assert!(contains(&buf, "node     demand  exp  in demand"));
     assert!(contains(&buf, "state    ✓ done at step 6"));
-    assert!(contains(&buf, "site     src/demos.rs:"));
+    assert!(contains(&buf, "site     src/demos/"));
     assert!(contains(&buf, "value    0.36787944117144233"));
     // d/dx eˣ = eˣ (closed form): the partial on the input edge is q itself.
     assert!(contains(&buf, "∂ in 0   ← minus_sp  0.36787944117144233"));
