@@ -240,3 +240,28 @@ fn kinks_are_named_when_a_step_crosses_them() {
     let suspect = verification.suspects.iter().find(|s| s.evidence == Evidence::FiniteDifference).unwrap();
     assert!(suspect.detail.contains("kinks at"), "{}", suspect.detail);
 }
+
+#[test]
+fn the_wrong_partial_demo_names_exactly_its_custom_node() {
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("traces/wrong_partial.ron");
+    let trace = ebb::trace::load(&path).unwrap();
+    let verification = verify(&trace, &VerifyOptions::default());
+    let named: Vec<&str> = verification.suspects.iter().map(|s| trace.node(s.node).id.as_str()).collect();
+    assert_eq!(named, vec!["gated"], "{}", verification.to_text(&trace));
+    let suspect = &verification.suspects[0];
+    assert_eq!(suspect.band, Band::ProbablyWrong);
+    assert!(suspect.relative > 1e-2);
+    assert_eq!(trace.node(suspect.node).op, Op::Custom);
+    // The finite differences go through the custom op's own (wrong) partials, so they cannot see it.
+    assert!(verification.differences.iter().all(|check| check.band() <= Band::Acceptable));
+}
+
+#[test]
+fn the_other_demos_verify_clean() {
+    for name in ["teaching.ron", "vanishing.ron", "exploding.ron"] {
+        let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("traces").join(name);
+        let trace = ebb::trace::load(&path).unwrap();
+        let verification = verify(&trace, &VerifyOptions::default());
+        assert!(verification.agrees(), "{name}: {}", verification.to_text(&trace));
+    }
+}

@@ -30,6 +30,22 @@ pub struct DifferenceEntry {
     pub reverse: f64,
     /// Relative error of the two.
     pub relative: f64,
+    /// The rounding-error floor of the difference, 10·ε·|f|/h (Press et al.
+    /// 2007, §5.7): gradients this small cannot be resolved by the difference.
+    pub floor: f64,
+}
+
+impl DifferenceEntry {
+    /// True when the two agree to within the difference's rounding floor: a
+    /// vanishing gradient that the difference cannot resolve is no mismatch.
+    pub fn within_floor(&self) -> bool {
+        (self.reverse - self.central).abs() <= self.floor
+    }
+
+    /// The relative error that counts: zero within the floor.
+    pub fn counted(&self) -> f64 {
+        if self.within_floor() { 0.0 } else { self.relative }
+    }
 }
 
 /// The check of one parameter.
@@ -48,14 +64,19 @@ pub struct DifferenceCheck {
 }
 
 impl DifferenceCheck {
-    /// The entry with the largest relative error.
+    /// The entry with the largest counted relative error.
     pub fn worst(&self) -> Option<&DifferenceEntry> {
-        self.entries.iter().max_by(|a, b| a.relative.total_cmp(&b.relative))
+        self.entries.iter().max_by(|a, b| a.counted().total_cmp(&b.counted()).then(a.relative.total_cmp(&b.relative)))
     }
 
     /// The band of the worst entry.
     pub fn band(&self) -> Band {
-        self.worst().map_or(Band::Good, |worst| Band::of(worst.relative))
+        self.worst().map_or(Band::Good, |worst| Band::of(worst.counted()))
+    }
+
+    /// Entries too small for the difference to resolve.
+    pub fn below_floor(&self) -> usize {
+        self.entries.iter().filter(|entry| entry.within_floor() && entry.relative > 0.0).count()
     }
 }
 
@@ -115,9 +136,11 @@ pub fn check_finite_differences(sweep: &Sweep, samples: usize, seed: u64) -> Vec
                     kinks.push(node);
                 }
             }
-            let central = (objective(&plus, trace) - objective(&minus, trace)) / (2.0 * step);
+            let (above, below) = (objective(&plus, trace), objective(&minus, trace));
+            let central = (above - below) / (2.0 * step);
+            let floor = 10.0 * f64::EPSILON * above.abs().max(below.abs()) / step;
             let reverse = adjoint.data()[element];
-            entries.push(DifferenceEntry { element, step, central, reverse, relative: relative_error(reverse, central) });
+            entries.push(DifferenceEntry { element, step, central, reverse, relative: relative_error(reverse, central), floor });
         }
         kinks.sort_unstable();
         checks.push(DifferenceCheck { param, entries, kinks, linearised });

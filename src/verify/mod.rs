@@ -98,6 +98,9 @@ pub struct Verification {
     pub tangent: Option<TangentCheck>,
     /// Ranked suspects, worst first.
     pub suspects: Vec<Suspect>,
+    /// Flags the reverse sweep raised: where values are NaN or infinite, the
+    /// checks compare non-finite numbers and cannot judge a derivative.
+    pub sweep_flags: usize,
 }
 
 impl Verification {
@@ -121,8 +124,18 @@ pub fn verify(trace: &Trace, options: &VerifyOptions) -> Verification {
         let reverse = tangent_sweep.reverse_counterpart(&sweep);
         TangentCheck { tangent, reverse, relative: relative_error(tangent, reverse) }
     });
-    let mut verification =
-        Verification { tolerance: options.tolerance, partials, unchecked, differences, reported, walk, tangent, suspects: Vec::new() };
+    let sweep_flags = sweep.flags().len();
+    let mut verification = Verification {
+        tolerance: options.tolerance,
+        partials,
+        unchecked,
+        differences,
+        reported,
+        walk,
+        tangent,
+        suspects: Vec::new(),
+        sweep_flags,
+    };
     verification.suspects = rank(trace, &verification);
     verification
 }
@@ -171,7 +184,7 @@ fn rank(trace: &Trace, found: &Verification) -> Vec<Suspect> {
     }
     for check in &found.differences {
         let Some(worst) = check.worst() else { continue };
-        if worst.relative <= tolerance {
+        if worst.counted() <= tolerance {
             continue;
         }
         let explained = if check.kinks.is_empty() {
@@ -183,8 +196,8 @@ fn rank(trace: &Trace, found: &Verification) -> Vec<Suspect> {
         suspects.push(Suspect {
             node: check.param,
             evidence: Evidence::FiniteDifference,
-            relative: worst.relative,
-            band: Band::of(worst.relative),
+            relative: worst.counted(),
+            band: Band::of(worst.counted()),
             detail: format!(
                 "gradient entry {} is {} but central differences give {}{explained}",
                 worst.element, worst.reverse, worst.central

@@ -10,7 +10,15 @@ impl Verification {
     pub fn to_text(&self, trace: &Trace) -> String {
         let id = |node: usize| trace.node(node).id.clone();
         let mut out = String::new();
-        if self.suspects.is_empty() {
+        if self.sweep_flags > 0 {
+            out.push_str(&format!(
+                "warning  the reverse sweep is not finite ({} flags): where values are NaN or infinite the checks cannot judge a derivative; `ebb check` finds where it started\n",
+                self.sweep_flags
+            ));
+        }
+        if self.suspects.is_empty() && self.sweep_flags > 0 {
+            out.push_str(&format!("verdict  no mismatch beyond {} where the numbers are finite\n", self.tolerance));
+        } else if self.suspects.is_empty() {
             out.push_str(&format!("verdict  every check agrees within {}\n", self.tolerance));
         } else {
             out.push_str(&format!("suspects {} (worst first, tolerance {})\n", self.suspects.len(), self.tolerance));
@@ -39,9 +47,13 @@ impl Verification {
                 id(check.param),
                 check.entries.len(),
                 if check.entries.len() == 1 { "entry" } else { "entries" },
-                compact(worst.relative),
+                compact(worst.counted()),
                 check.band().name()
             );
+            let below = check.below_floor();
+            if below > 0 {
+                line.push_str(&format!("  {below} below the difference's resolution"));
+            }
             if !check.kinks.is_empty() {
                 let names: Vec<String> = check.kinks.iter().map(|&n| id(n)).collect();
                 line.push_str(&format!("  kinks: {}", names.join(", ")));
@@ -76,6 +88,7 @@ impl Verification {
             "verify": 1,
             "tolerance": self.tolerance,
             "agrees": self.agrees(),
+            "sweep_flags": self.sweep_flags,
             "suspects": self.suspects.iter().map(|s| json!({
                 "node": id(s.node), "op": trace.node(s.node).op_name, "evidence": s.evidence,
                 "relative": Num(s.relative), "band": s.band, "detail": s.detail,
@@ -89,6 +102,7 @@ impl Verification {
                 "param": id(c.param), "band": c.band(),
                 "entries": c.entries.iter().map(|e| json!({
                     "element": e.element, "step": Num(e.step), "central": Num(e.central), "reverse": Num(e.reverse), "relative": Num(e.relative),
+                    "floor": Num(e.floor), "within_floor": e.within_floor(),
                 })).collect::<Vec<_>>(),
                 "kinks": c.kinks.iter().map(|&n| id(n)).collect::<Vec<_>>(),
                 "linearised": c.linearised.iter().map(|&n| id(n)).collect::<Vec<_>>(),
