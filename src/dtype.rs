@@ -27,6 +27,18 @@ pub enum Dtype {
     F64,
 }
 
+/// What a format does with results below its smallest normal magnitude.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize, Default)]
+#[serde(rename_all = "lowercase")]
+pub enum Subnormals {
+    /// Gradual underflow, as IEEE 754 requires.
+    #[default]
+    Keep,
+    /// Subnormal results become zero of the same sign, as hardware running
+    /// in flush-to-zero mode does.
+    Flush,
+}
+
 /// Parameters of a binary floating-point format.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct FormatLimits {
@@ -89,6 +101,30 @@ impl Dtype {
             Dtype::F32 => x as f32 as f64,
             Dtype::F16 | Dtype::Bf16 => round_to_format(x, self.limits()),
         }
+    }
+
+    /// Rounds `x` like [`Dtype::round`], then flushes a subnormal result to
+    /// zero when `subnormals` says so (the tininess test is made after
+    /// rounding, so a value that rounds up to the smallest normal survives).
+    #[inline]
+    pub fn round_with(self, x: f64, subnormals: Subnormals) -> f64 {
+        let rounded = self.round(x);
+        match subnormals {
+            Subnormals::Keep => rounded,
+            Subnormals::Flush => self.flush(rounded),
+        }
+    }
+
+    /// `x` with a subnormal magnitude of this format replaced by zero of the same sign.
+    #[inline]
+    pub fn flush(self, x: f64) -> f64 {
+        if self.is_subnormal(x) { 0.0f64.copysign(x) } else { x }
+    }
+
+    /// True for a non-zero `x` below this format's smallest normal magnitude.
+    #[inline]
+    pub fn is_subnormal(self, x: f64) -> bool {
+        x != 0.0 && x.abs() < self.limits().min_normal()
     }
 }
 
@@ -164,6 +200,21 @@ mod tests {
         let x = 0.1f64;
         assert_eq!(Dtype::F32.round(x), 0.1f32 as f64);
         assert_eq!(Dtype::F32.round(1e39), f64::INFINITY);
+    }
+
+    // Flush-to-zero replaces subnormal results by a signed zero (IEEE 754-2019
+    // leaves it outside the standard; the behaviour is the common hardware mode).
+    #[test]
+    fn flushing_zeroes_subnormal_results_only() {
+        let tiny = 2f64.powi(-24);
+        assert_eq!(Dtype::F16.round_with(tiny, Subnormals::Keep), tiny);
+        assert_eq!(Dtype::F16.round_with(tiny, Subnormals::Flush), 0.0);
+        assert!(Dtype::F16.round_with(-tiny, Subnormals::Flush).is_sign_negative());
+        assert_eq!(Dtype::F16.round_with(2f64.powi(-14), Subnormals::Flush), 2f64.powi(-14));
+        // Just below 2^-14 by less than half an ulp rounds up to the smallest normal and survives.
+        assert_eq!(Dtype::F16.round_with(2f64.powi(-14) - 2f64.powi(-30), Subnormals::Flush), 2f64.powi(-14));
+        assert!(Dtype::F32.is_subnormal(1e-40));
+        assert!(!Dtype::F32.is_subnormal(0.0));
     }
 
     #[test]

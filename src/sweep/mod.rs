@@ -10,6 +10,7 @@ pub use flags::{Flag, FlagKind};
 pub use ledger::{Contribution, Ledger};
 pub use pullback::{Pulled, accumulate, pull_back, push_forward};
 
+use crate::dtype::Subnormals;
 use crate::ops;
 use crate::tensor::Value;
 use crate::trace::Trace;
@@ -148,9 +149,14 @@ impl<'t> Sweep<'t> {
         let input_values = &input_values[..inputs.len()];
         let attrs = if compact.reads_attrs[node] { &trace.node(node).attrs } else { &NO_ATTRS };
         let op = compact.ops[node];
+        // Flush-to-zero applies to every stored result: the contribution and the sum.
+        let flush = trace.subnormals() == Subnormals::Flush;
         for (slot, &input) in inputs.iter().enumerate() {
             let partial = ops::scalar_partial(op, slot, input_values, output, attrs, dtype).expect("fast-path nodes are elementwise");
-            let contribution = dtype.round(adjoint * partial);
+            let mut contribution = dtype.round(adjoint * partial);
+            if flush {
+                contribution = dtype.flush(contribution);
+            }
             if !partial.is_finite() {
                 self.flag_partial(step, node, slot, partial);
             }
@@ -160,7 +166,10 @@ impl<'t> Sweep<'t> {
                 Some(Value::Scalar(sum)) => Some(*sum),
                 Some(Value::Tensor(_)) => unreachable!("a scalar input holds a scalar adjoint"),
             };
-            let after = before.map_or(contribution, |sum| dtype.round(sum + contribution));
+            let mut after = before.map_or(contribution, |sum| dtype.round(sum + contribution));
+            if flush {
+                after = dtype.flush(after);
+            }
             if !after.is_finite() {
                 self.note_adjoint(step, node, slot, input, before.map(Value::Scalar).as_ref(), &Value::Scalar(after));
             }
@@ -181,13 +190,20 @@ impl<'t> Sweep<'t> {
             self.flags.push(flag);
         }
         let adjoint = self.adjoints[node].take().expect("a node's consumers are swept before it, so it holds an adjoint");
+        let flush = trace.subnormals() == Subnormals::Flush;
         for (slot, &input) in recorded.inputs.iter().enumerate() {
-            let pulled = pull_back(trace, node, slot, &adjoint);
+            let mut pulled = pull_back(trace, node, slot, &adjoint);
+            if flush {
+                pulled.contribution.data_mut().iter_mut().for_each(|x| *x = dtype.flush(*x));
+            }
             if let Some(bad) = pulled.bad_partial {
                 self.flag_partial(step, node, slot, bad);
             }
             let before = self.adjoints[input].take();
-            let after = accumulate(before.as_ref(), &pulled.contribution, dtype);
+            let mut after = accumulate(before.as_ref(), &pulled.contribution, dtype);
+            if flush {
+                after.data_mut().iter_mut().for_each(|x| *x = dtype.flush(*x));
+            }
             self.note_adjoint(step, node, slot, input, before.as_ref(), &after);
             match &mut self.ledger {
                 Some(ledger) => {

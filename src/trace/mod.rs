@@ -7,6 +7,7 @@ mod error;
 mod load;
 mod model;
 mod progress;
+mod retype;
 pub mod schema;
 mod store;
 mod validate;

@@ -2,7 +2,7 @@
 //! computation, and the reverse topological order of the nodes that reach the
 //! output. Only the validator builds one, so every invariant below holds.
 
-use crate::dtype::Dtype;
+use crate::dtype::{Dtype, Subnormals};
 use crate::ops::{Attrs, Op};
 use crate::tensor::Value;
 use petgraph::Direction;
@@ -59,6 +59,7 @@ pub struct Trace {
     pub(super) title: String,
     pub(super) description: String,
     pub(super) dtype: Dtype,
+    pub(super) subnormals: Subnormals,
     pub(super) nodes: Vec<Node>,
     pub(super) output: usize,
     pub(super) seed: Value,
@@ -92,6 +93,12 @@ impl Trace {
     /// The dtype of the recorded run.
     pub fn dtype(&self) -> Dtype {
         self.dtype
+    }
+
+    /// Whether the sweep keeps subnormal results or flushes them to zero
+    /// (`Keep` for every loaded trace; see [`Trace::retyped`]).
+    pub fn subnormals(&self) -> Subnormals {
+        self.subnormals
     }
 
     /// All nodes in recording order.

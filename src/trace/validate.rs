@@ -375,5 +375,5 @@ fn build(
         rank[node] = position as u32;
     }
     let compact = super::compact::Compact::new(&nodes);
-    Trace { title, description, dtype, nodes, output, seed, index, graph, order, rank, compact }
+    Trace { title, description, dtype, subnormals: crate::dtype::Subnormals::Keep, nodes, output, seed, index, graph, order, rank, compact }
 }

@@ -1,0 +1,93 @@
+//! A trace re-typed into another dtype, so the same recorded step can be swept
+//! in f16, bf16, f32 and f64 side by side.
+
+use super::model::{Partial, Trace};
+use crate::dtype::{Dtype, Subnormals};
+use crate::tensor::Value;
+
+impl Trace {
+    /// A copy of this trace whose sweep computes in `dtype`, keeping or
+    /// flushing subnormal results as `subnormals` says.
+    ///
+    /// The forward pass is not recomputed: every recorded value, recorded
+    /// partial and the seed is rounded into `dtype` once, which is what a
+    /// forward pass would store for a value it computed exactly. The graph,
+    /// ids and sweep order are shared unchanged.
+    pub fn retyped(&self, dtype: Dtype, subnormals: Subnormals) -> Trace {
+        let round = |value: &Value| value.map(|x| dtype.round_with(x, subnormals));
+        let mut retyped = self.clone();
+        retyped.dtype = dtype;
+        retyped.subnormals = subnormals;
+        retyped.seed = round(&self.seed);
+        for node in &mut retyped.nodes {
+            node.value = round(&node.value);
+            for partial in node.partials.iter_mut().flatten() {
+                match partial {
+                    Partial::Scalar(s) => *s = dtype.round_with(*s, subnormals),
+                    Partial::Diagonal(diagonal) => *diagonal = round(diagonal),
+                    Partial::Jacobian { data, .. } => data.iter_mut().for_each(|x| *x = dtype.round_with(*x, subnormals)),
+                }
+            }
+        }
+        // The sweep's fast path reads the compact copy of the values: rebuild it from the rounded ones.
+        retyped.compact = super::compact::Compact::new(&retyped.nodes);
+        retyped
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use crate::dtype::{Dtype, Subnormals};
+    use crate::record::Tape;
+    use crate::trace::Trace;
+
+    #[test]
+    fn retyping_rounds_values_and_keeps_the_graph() {
+        let mut tape = Tape::new("retype", Dtype::F64);
+        let x = tape.param("x", 70000.0);
+        let tiny = tape.input("tiny", 1e-6);
+        let y = tape.mul(x, tiny);
+        let trace = Trace::try_from(tape.finish(y)).unwrap();
+        let half = trace.retyped(Dtype::F16, Subnormals::Flush);
+        assert_eq!(half.dtype(), Dtype::F16);
+        assert_eq!(half.subnormals(), Subnormals::Flush);
+        // 70000 is beyond f16's largest finite value 65504 (IEEE 754-2019 table 3.5).
+        assert_eq!(half.node(0).value.as_scalar(), Some(f64::INFINITY));
+        // 1e-6 is subnormal in f16 (below 2^-14), so flushing makes it zero.
+        assert_eq!(half.node(1).value.as_scalar(), Some(0.0));
+        assert_eq!(half.sweep_order(), trace.sweep_order());
+        assert_eq!(trace.dtype(), Dtype::F64, "the original is untouched");
+    }
+
+    /// A product's partials are its inputs, so a trace recorded in f32 and one
+    /// recorded in f64 and re-typed to f32 must give bit-identical adjoints,
+    /// on the scalar fast path as on the general one.
+    #[test]
+    fn retyped_sweeps_match_a_native_recording() {
+        let record = |dtype: Dtype| {
+            let mut tape = Tape::new("native", dtype);
+            let a = tape.param("a", 0.1);
+            let b = tape.param("b", 0.3);
+            let three = tape.input("three", 3.0);
+            let product = tape.mul(a, b);
+            let scaled = tape.mul(three, product);
+            Trace::try_from(tape.finish(scaled)).unwrap()
+        };
+        let native = record(Dtype::F32);
+        let retyped = record(Dtype::F64).retyped(Dtype::F32, Subnormals::Keep);
+        let sweep = |trace: &Trace| {
+            let mut sweep = crate::sweep::Sweep::new(trace, crate::sweep::LedgerMode::Off);
+            sweep.run_to_end();
+            (sweep.adjoint(0).cloned(), sweep.adjoint(1).cloned())
+        };
+        let (a, b) = sweep(&retyped);
+        assert_eq!((a.clone(), b), sweep(&native));
+        assert_ne!(a, Some(crate::tensor::Value::Scalar(0.9)), "the adjoint of a is 3·f32(0.3), not the f64 product");
+        // The fast path reads the compact copy: it must hold the rounded values.
+        for (node, recorded) in retyped.nodes().iter().enumerate() {
+            if let crate::tensor::Value::Scalar(x) = recorded.value {
+                assert_eq!(retyped.compact().scalars[node].to_bits(), x.to_bits(), "node {node}");
+            }
+        }
+    }
+}
