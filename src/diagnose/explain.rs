@@ -1,0 +1,105 @@
+//! One sentence per origin, in the trade's words, with the numbers involved.
+
+use super::origin::{Origin, OriginClass};
+use crate::format::compact;
+use crate::ops::Op;
+use crate::trace::Trace;
+
+/// The sentence for a non-finite seed.
+pub(super) fn seed(trace: &Trace, bad: f64) -> String {
+    format!("the seed of the output '{}' is {}, so every adjoint it reaches is too", trace.node(trace.output()).id, compact(bad))
+}
+
+/// The sentence for an origin.
+pub(super) fn origin(trace: &Trace, origin: &Origin) -> String {
+    let node = trace.node(origin.node);
+    let id = &node.id;
+    let op = node.op_name.as_str();
+    let max = compact(trace.dtype().limits().max_finite());
+    let dtype = trace.dtype();
+    let operand = |k: usize| origin.operands.get(k).copied().map_or("?".to_string(), compact);
+    match origin.class {
+        OriginClass::NonFiniteValue => forward(trace, origin),
+        OriginClass::NonFinitePartial => {
+            let at = operand(0);
+            let partial = compact(*origin.operands.last().unwrap_or(&f64::NAN));
+            let why = match node.op {
+                Op::Sqrt => "the derivative of sqrt, 1/(2√x), is infinite at 0".to_string(),
+                Op::Pow => format!("the derivative of x^{}, infinite at 0 for an exponent between 0 and 1", node.attrs.exponent.map_or("p".into(), compact)),
+                Op::Log => "the derivative of log, 1/x, is infinite at 0".to_string(),
+                Op::Div => "the derivative of a division by 0".to_string(),
+                _ if node.partials.iter().any(Option::is_some) => "a recorded partial".to_string(),
+                _ => format!("the derivative of {op}"),
+            };
+            format!("'{id}' ({op}) has the finite value it should at {at}, but its partial is {partial}: {why}")
+        }
+        OriginClass::ProductOverflow => match origin.operands.as_slice() {
+            [g, p] => format!(
+                "pulling back through '{id}' ({op}) multiplied the adjoint {} by the partial {} and overflowed {dtype}'s largest finite value {max}",
+                compact(*g),
+                compact(*p)
+            ),
+            _ => format!("pulling back through '{id}' ({op}) multiplied finite numbers whose product overflowed {dtype}'s largest finite value {max}"),
+        },
+        OriginClass::SumOverflow => {
+            let from = origin.edge.map_or("?".to_string(), |(consumer, _)| trace.node(consumer).id.clone());
+            format!(
+                "at the branch point '{id}', adding the contribution {} from '{from}' to the adjoint {} overflowed {dtype}'s largest finite value {max}",
+                operand(1),
+                operand(0)
+            )
+        }
+        OriginClass::NanFromInfinity => {
+            let input = origin.edge.map_or("?".to_string(), |(_, slot)| trace.node(node.inputs[slot]).id.clone());
+            if origin.operands.len() == 2 && origin.operands[0] == 0.0 {
+                format!(
+                    "the adjoint of '{id}' ({op}) is 0 but its partial towards '{input}' is {}, and 0 × inf is NaN: a branch that does not count still passes back an infinite derivative",
+                    operand(1)
+                )
+            } else {
+                format!("pulling back through '{id}' ({op}) to '{input}', terms that overflowed to +inf and −inf cancelled into NaN (inf − inf)")
+            }
+        }
+        OriginClass::NonFiniteSeed => seed(trace, origin.result),
+    }
+}
+
+/// The sentence for a non-finite forward value: which op, which inputs.
+fn forward(trace: &Trace, origin: &Origin) -> String {
+    let node = trace.node(origin.node);
+    let id = &node.id;
+    let op = node.op_name.as_str();
+    let result = compact(origin.result);
+    let max = compact(trace.dtype().limits().max_finite());
+    let dtype = trace.dtype();
+    let inputs = &origin.operands;
+    let x = inputs.first().copied().unwrap_or(f64::NAN);
+    let y = inputs.get(1).copied().unwrap_or(f64::NAN);
+    let what = match node.op {
+        Op::Input | Op::Param | Op::Const => return format!("the recorded value of '{id}' ({op}) already holds {result}: the data fed to the step is bad"),
+        Op::Log if x == 0.0 => "log of 0 is −inf".to_string(),
+        Op::Log if x < 0.0 => format!("log of a negative number ({}) is NaN", compact(x)),
+        Op::Sqrt if x < 0.0 => format!("sqrt of a negative number ({}) is NaN", compact(x)),
+        Op::Div if x == 0.0 && y == 0.0 => "0/0 is NaN".to_string(),
+        Op::Div if y == 0.0 => format!("{} divided by 0 is {result}", compact(x)),
+        Op::Div => format!("{} / {} overflowed {dtype}'s largest finite value {max}", compact(x), compact(y)),
+        Op::Exp => format!("exp({}) overflowed {dtype}'s largest finite value {max}", compact(x)),
+        Op::Pow if x < 0.0 => format!("a negative number ({}) to a fractional power is NaN", compact(x)),
+        Op::Pow if x == 0.0 => "0 to a negative power is inf".to_string(),
+        Op::Pow => format!("{} to the power {} overflowed {dtype}'s largest finite value {max}", compact(x), node.attrs.exponent.map_or("?".into(), compact)),
+        Op::Mul | Op::Add | Op::Sub => {
+            let sign = match node.op {
+                Op::Mul => "×",
+                Op::Add => "+",
+                _ => "−",
+            };
+            format!("{} {sign} {} overflowed {dtype}'s largest finite value {max}", compact(x), compact(y))
+        }
+        _ if inputs.is_empty() => format!("it produced {result} from finite inputs"),
+        _ => {
+            let shown: Vec<String> = inputs.iter().map(|&v| compact(v)).collect();
+            format!("it produced {result} from the finite inputs {}", shown.join(", "))
+        }
+    };
+    format!("the forward value of '{id}' ({op}) is {result}: {what}")
+}

@@ -1,0 +1,74 @@
+//! Per-group adjoint norms ordered by depth, and the ratio between
+//! neighbouring groups: the table of where the signal grows or decays.
+
+use crate::sweep::Sweep;
+use crate::tensor::{Value, l2_norm};
+use serde::Serialize;
+
+/// The adjoints of one group.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct GroupNorm {
+    /// The group's scope path (empty for nodes recorded outside any scope).
+    pub group: String,
+    /// Fewest hops from the output to any node of the group.
+    pub depth: usize,
+    /// Swept nodes in the group.
+    pub nodes: usize,
+    /// L2 norm of all the group's adjoints together.
+    pub adjoint_norm: f64,
+    /// L2 norm of the group's parameter gradients, when it has parameters.
+    pub param_norm: Option<f64>,
+    /// This group's adjoint norm over the previous (shallower) group's; `None` for the first.
+    pub ratio: Option<f64>,
+}
+
+/// Fewest hops from the output to every node (`usize::MAX` for unreached nodes), in one pass in sweep order.
+pub fn depths(sweep: &Sweep) -> Vec<usize> {
+    let trace = sweep.trace();
+    let mut depth = vec![usize::MAX; trace.nodes().len()];
+    depth[trace.output()] = 0;
+    for &node in trace.sweep_order() {
+        let here = depth[node];
+        for &input in &trace.node(node).inputs {
+            depth[input] = depth[input].min(here.saturating_add(1));
+        }
+    }
+    depth
+}
+
+/// The norms of every group with a swept node, shallowest first (ties in order of first appearance).
+pub fn group_norms(sweep: &Sweep) -> Vec<GroupNorm> {
+    let trace = sweep.trace();
+    let depth = depths(sweep);
+    let names = trace.groups();
+    let index_of = |group: &str| names.iter().position(|name| *name == group).expect("every node's group is listed");
+    let mut adjoint_norms: Vec<Vec<f64>> = vec![Vec::new(); names.len()];
+    let mut param_norms: Vec<Vec<f64>> = vec![Vec::new(); names.len()];
+    let mut group_depth = vec![usize::MAX; names.len()];
+    for &node in trace.sweep_order() {
+        let recorded = trace.node(node);
+        let group = index_of(&recorded.group);
+        let norm = sweep.adjoint(node).map_or(0.0, Value::l2_norm);
+        adjoint_norms[group].push(norm);
+        if recorded.op == crate::ops::Op::Param {
+            param_norms[group].push(norm);
+        }
+        group_depth[group] = group_depth[group].min(depth[node]);
+    }
+    let mut groups: Vec<GroupNorm> = (0..names.len())
+        .filter(|&group| !adjoint_norms[group].is_empty())
+        .map(|group| GroupNorm {
+            group: names[group].to_string(),
+            depth: group_depth[group],
+            nodes: adjoint_norms[group].len(),
+            adjoint_norm: l2_norm(&adjoint_norms[group]),
+            param_norm: (!param_norms[group].is_empty()).then(|| l2_norm(&param_norms[group])),
+            ratio: None,
+        })
+        .collect();
+    groups.sort_by_key(|group| group.depth);
+    for k in 1..groups.len() {
+        groups[k].ratio = Some(groups[k].adjoint_norm / groups[k - 1].adjoint_norm);
+    }
+    groups
+}

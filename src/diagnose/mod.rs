@@ -1,0 +1,351 @@
+//! Diagnosis of a reverse sweep: which rules fire, where each non-finite
+//! adjoint was born and how it travelled, which paths carry the gradient to
+//! each parameter, how the adjoint norm changes group by group, what the
+//! same step does in f16, bf16, f32 and f64, and what to do about it.
+//!
+//! Everything here is an analysis over a finished sweep and its ledger, so
+//! `Sweep::step` pays nothing when no diagnosis is asked for. Results refer
+//! to nodes by index into the trace; nothing here knows about terminals.
+//!
+//! ```
+//! use ebb::diagnose::{Settings, diagnose};
+//! use ebb::dtype::Dtype;
+//! use ebb::record::Tape;
+//! use ebb::trace::Trace;
+//!
+//! let mut tape = Tape::new("log at zero", Dtype::F64);
+//! let w = tape.param("w", 0.0);
+//! let y = tape.log(w);
+//! let trace = Trace::try_from(tape.finish(y)).unwrap();
+//! let diagnosis = diagnose(&trace, &Settings::default());
+//! let origin = diagnosis.first_origin().unwrap();
+//! assert_eq!(trace.node(origin.node).id, "log_1");
+//! ```
+
+pub mod advice;
+mod explain;
+pub mod groups;
+pub mod origin;
+pub mod paths;
+pub mod replay;
+pub mod rules;
+pub mod settings;
+
+pub use advice::{Advice, ClipPreview, LossScale, Topic, loss_scale};
+pub use groups::{GroupNorm, group_norms};
+pub use origin::{Origin, OriginClass};
+pub use paths::{DominantPath, Hop, dominant_paths, edge_gains};
+pub use replay::{LostContribution, ReplayGradient, ReplayRun, replay};
+pub use rules::{Finding, Measure, Rule, Site};
+pub use settings::{Settings, SettingsError};
+
+use crate::dtype::{Dtype, Subnormals};
+use crate::format::compact;
+use crate::sweep::{LedgerMode, Sweep};
+use crate::trace::Trace;
+use origin::RootCauses;
+
+/// Findings and root causes of one sweep.
+struct SweepAnalysis {
+    pub findings: Vec<Finding>,
+    pub causes: RootCauses,
+}
+
+/// Runs the rules and the root-cause search over a finished sweep, and ties them together:
+/// non-finite adjoint findings carry their origin's class, and a product that overflowed is an overflow.
+fn analyse(sweep: &Sweep, reference: Option<&Sweep>, settings: &Settings) -> SweepAnalysis {
+    let mut findings = rules::evaluate(&rules::RuleInput { sweep, reference, settings });
+    let causes = origin::trace_back(sweep);
+    for finding in &mut findings {
+        if finding.rule == Rule::NonFinite && finding.site == Site::Adjoint {
+            finding.class = causes.origin_of(finding.node).map(|index| causes.origins[index].class);
+        }
+    }
+    if settings.is_on(Rule::Overflow) {
+        let max = sweep.trace().dtype().limits().max_finite();
+        for origin in causes.origins.iter().filter(|origin| origin.class == OriginClass::ProductOverflow) {
+            let Some((via, slot)) = origin.edge else { continue };
+            let site = Site::Contribution { slot, to: origin.first_adjoint };
+            if !findings.iter().any(|finding| finding.rule == Rule::Overflow && finding.node == via && finding.site == site) {
+                findings.push(Finding {
+                    rule: Rule::Overflow,
+                    node: via,
+                    step: origin.step,
+                    site,
+                    measure: Measure::Element,
+                    value: origin.result,
+                    threshold: max,
+                    element: 0,
+                    count: 1,
+                    class: Some(OriginClass::ProductOverflow),
+                });
+            }
+        }
+        findings.sort_by_key(|finding| (finding.step, finding.rule));
+    }
+    SweepAnalysis { findings, causes }
+}
+
+/// The whole diagnosis of one trace.
+#[derive(Debug, Clone)]
+pub struct Diagnosis {
+    /// The settings it was made with.
+    pub settings: Settings,
+    /// The dtype of the diagnosed sweep (the trace's).
+    pub dtype: Dtype,
+    /// Every rule's findings in the trace's own dtype, in sweep order.
+    pub findings: Vec<Finding>,
+    /// Root causes of the non-finite adjoints, in the order they were born.
+    pub origins: Vec<Origin>,
+    /// The dominant path of every parameter with one.
+    pub paths: Vec<DominantPath>,
+    /// Per-group adjoint norms, shallowest first.
+    pub groups: Vec<GroupNorm>,
+    /// One replay per dtype in the settings.
+    pub replays: Vec<ReplayRun>,
+    /// Loss-scale advice for f16, from the f64 reference adjoints.
+    pub loss_scale: Option<LossScale>,
+    /// The clipping preview of the parameter gradients.
+    pub clipping: ClipPreview,
+    /// What to do, most pressing first.
+    pub advice: Vec<Advice>,
+    causes: RootCauses,
+}
+
+impl Diagnosis {
+    /// True when no rule fired in the trace's own dtype.
+    pub fn is_clean(&self) -> bool {
+        self.findings.is_empty()
+    }
+
+    /// The earliest origin of a non-finite adjoint.
+    pub fn first_origin(&self) -> Option<&Origin> {
+        self.origins.iter().min_by_key(|origin| origin.step)
+    }
+
+    /// The origin behind `node`'s non-finite adjoint, if it has one.
+    pub fn origin_of(&self, node: usize) -> Option<&Origin> {
+        self.causes.origin_of(node).map(|index| &self.causes.origins[index])
+    }
+
+    /// The chain of nodes from the origin of `node`'s non-finite adjoint to
+    /// `node`, in sweep order; empty when its adjoint is finite.
+    pub fn chain_to(&self, node: usize) -> Vec<usize> {
+        self.causes.chain(node)
+    }
+
+    /// The findings at `node`.
+    pub fn findings_at(&self, node: usize) -> impl Iterator<Item = &Finding> + '_ {
+        self.findings.iter().filter(move |finding| finding.node == node)
+    }
+
+    /// The dominant path to parameter `param`.
+    pub fn path_to(&self, param: usize) -> Option<&DominantPath> {
+        self.paths.iter().find(|path| path.param == param)
+    }
+
+    /// The replay in `dtype`, if it was run.
+    pub fn replay_in(&self, dtype: Dtype) -> Option<&ReplayRun> {
+        self.replays.iter().find(|run| run.dtype == dtype)
+    }
+
+    /// One sentence on why `node`'s adjoint is non-finite, for a node detail pane.
+    pub fn explain(&self, trace: &Trace, node: usize) -> Option<String> {
+        let origin = self.origin_of(node)?;
+        let hops = self.chain_to(node).len().saturating_sub(1);
+        if origin.node == node || hops == 0 {
+            return Some(format!("Origin ({}): {}.", origin.class.letter(), origin.explanation));
+        }
+        Some(format!(
+            "Non-finite because of '{}' {hops} hops up the sweep ({}): {}.",
+            trace.node(origin.node).id,
+            origin.class.letter(),
+            origin.explanation
+        ))
+    }
+}
+
+/// Diagnoses `trace`: sweeps it in its own dtype, in f64 as the reference and
+/// in every replay dtype, and analyses the results.
+pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
+    let flushed;
+    let own = if settings.subnormals == Subnormals::Flush {
+        flushed = trace.retyped(trace.dtype(), Subnormals::Flush);
+        &flushed
+    } else {
+        trace
+    };
+    let mut sweep = Sweep::new(own, LedgerMode::On);
+    sweep.run_to_end();
+    let is_reference = trace.dtype() == Dtype::F64 && settings.subnormals == Subnormals::Keep;
+    let reference_trace;
+    let mut reference_sweep = None;
+    if !is_reference {
+        reference_trace = trace.retyped(Dtype::F64, Subnormals::Keep);
+        let mut reference = Sweep::new(&reference_trace, LedgerMode::On);
+        reference.run_to_end();
+        reference_sweep = Some(reference);
+    }
+    let reference = reference_sweep.as_ref().unwrap_or(&sweep);
+    let SweepAnalysis { findings, causes } = analyse(&sweep, reference_sweep.as_ref(), settings);
+    let gains = edge_gains(&sweep);
+    let paths = dominant_paths(&sweep, &gains);
+    let groups = group_norms(&sweep);
+    let replays: Vec<ReplayRun> = settings.replay.iter().map(|&dtype| replay(trace, dtype, settings, reference)).collect();
+    let entries: Vec<f64> = trace.sweep_order().iter().filter_map(|&node| reference.adjoint(node)).flat_map(|adjoint| adjoint.data().to_vec()).collect();
+    let loss_scale = loss_scale(&entries, settings.subnormals);
+    let gradients: Vec<&[f64]> = trace.params().filter_map(|param| sweep.adjoint(param)).map(|adjoint| adjoint.data()).collect();
+    let clipping = ClipPreview::new(&gradients, settings.clip_norm);
+    let mut diagnosis = Diagnosis {
+        settings: settings.clone(),
+        dtype: trace.dtype(),
+        findings,
+        origins: causes.origins.clone(),
+        paths,
+        groups,
+        replays,
+        loss_scale,
+        clipping,
+        advice: Vec::new(),
+        causes,
+    };
+    diagnosis.advice = advise(trace, &diagnosis);
+    diagnosis
+}
+
+/// The advice, most pressing first.
+fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
+    let id = |node: usize| trace.node(node).id.as_str();
+    let mut advice = Vec::new();
+    if let Some(origin) = diagnosis.first_origin() {
+        advice.push(Advice { topic: Topic::Origin, node: Some(origin.node), text: origin_advice(trace, origin) });
+    }
+    let clip = &diagnosis.clipping;
+    if let Some(finding) = diagnosis.findings.iter().find(|finding| finding.rule == Rule::Exploding) {
+        let hop = diagnosis.path_to(finding.node).and_then(DominantPath::strongest);
+        let along = hop.map_or(String::new(), |hop| format!("; the largest gain on its dominant path is {} at '{}' → '{}'", compact(hop.gain), id(hop.from), id(hop.to)));
+        advice.push(Advice {
+            topic: Topic::Exploding,
+            node: Some(finding.node),
+            text: format!(
+                "The gradient of '{}' is exploding (norm {}){along}. Clipping the global norm {} at {} would scale every gradient by {}.",
+                id(finding.node),
+                compact(finding.value),
+                compact(clip.norm),
+                compact(clip.threshold),
+                compact(clip.factor)
+            ),
+        });
+    }
+    if let Some(finding) = diagnosis.findings.iter().find(|finding| finding.rule == Rule::Vanishing) {
+        let path = diagnosis.path_to(finding.node);
+        let along = path.and_then(|path| path.weakest().map(|hop| (path, hop))).map_or(String::new(), |(path, hop)| {
+            format!(
+                "; along its dominant path of {} hops the gains multiply to 1e{:.1}, the weakest hop being '{}' → '{}' with gain {}",
+                path.hops.len(),
+                path.log10_gain,
+                id(hop.from),
+                id(hop.to),
+                compact(hop.gain)
+            )
+        });
+        advice.push(Advice {
+            topic: Topic::Vanishing,
+            node: Some(finding.node),
+            text: format!(
+                "The gradient of '{}' is vanishing (norm {}){along}. Shorten that path (a skip connection), or use an activation or initialisation whose gains stay near 1.",
+                id(finding.node),
+                compact(diagnosis.findings.iter().find(|f| f.node == finding.node && f.measure == Measure::Norm).map_or(finding.value, |f| f.value))
+            ),
+        });
+    }
+    let half = diagnosis.replay_in(Dtype::F16);
+    if let (Some(scale), Some(run)) = (&diagnosis.loss_scale, half)
+        && (run.first_underflow().is_some() || diagnosis.dtype == Dtype::F16)
+    {
+        advice.push(Advice {
+            topic: Topic::LossScale,
+            node: run.first_underflow().map(|finding| finding.node),
+            text: format!(
+                "In f16, {:.1}% of the non-zero adjoint entries round to zero. Scale the loss by S = 2^{} = {} (the largest power of two keeping max |adjoint| {} · S below 65504) and divide the gradients by S before the update: then {:.1}% round to zero.",
+                100.0 * scale.underflow_unscaled,
+                scale.exponent,
+                compact(scale.scale),
+                compact(scale.max_abs),
+                100.0 * scale.underflow_scaled
+            ),
+        });
+    }
+    for run in &diagnosis.replays {
+        if run.dtype.limits().precision >= diagnosis.dtype.limits().precision && run.dtype != Dtype::F16 {
+            continue;
+        }
+        if let Some(finding) = run.first_overflow()
+            && !diagnosis.findings.iter().any(|own| own.rule == Rule::NonFinite || own.rule == Rule::Overflow)
+        {
+            advice.push(Advice {
+                topic: Topic::Overflow,
+                node: Some(finding.node),
+                text: format!(
+                    "In {}, the sweep first overflows at '{}' (step {}). Keep that node's adjoint in range: a smaller loss scale, clipping, or bf16, which has f32's exponent range.",
+                    run.dtype,
+                    id(finding.node),
+                    finding.step + 1
+                ),
+            });
+        }
+        if let Some(lost) = run.first_lost()
+            && run.dtype != diagnosis.dtype
+        {
+            advice.push(Advice {
+                topic: Topic::LostPrecision,
+                node: Some(lost.node),
+                text: format!(
+                    "In {}, {} contributions are swamped by the adjoint they are added to, first at '{}' (step {}: {} + {} gave {}). Accumulate adjoints in f32.",
+                    run.dtype,
+                    run.lost_total,
+                    id(lost.node),
+                    lost.step + 1,
+                    compact(lost.before),
+                    compact(lost.contribution),
+                    compact(lost.after)
+                ),
+            });
+        }
+    }
+    advice
+}
+
+/// The advice for the first origin, by class and op.
+fn origin_advice(trace: &Trace, origin: &Origin) -> String {
+    use crate::ops::Op;
+    let node = trace.node(origin.node);
+    let id = &node.id;
+    let x = origin.operands.first().copied().unwrap_or(f64::NAN);
+    match origin.class {
+        OriginClass::NonFiniteValue => match node.op {
+            Op::Input | Op::Param | Op::Const => format!("'{id}' holds a non-finite number as recorded: check the data or the parameter update that produced it."),
+            Op::Log => format!("Keep the argument of '{id}' away from 0 (log(max(x, ε))), or compute log-probabilities directly with log_softmax."),
+            Op::Sqrt => format!("The input of '{id}' went negative: clamp it at 0, or find why (a variance computed as E[x²] − E[x]² can dip below 0 by rounding)."),
+            Op::Div if x == 0.0 => format!("Guard the division at '{id}': add ε to the denominator or mask the 0/0 case."),
+            Op::Div => format!("Guard the division at '{id}': add ε to the denominator."),
+            Op::Exp => format!("Shift the argument of '{id}' by its maximum before exp (the log-sum-exp shift), or clamp it."),
+            _ => format!("Guard the inputs of '{id}' ({}) so that it stays finite.", node.op_name),
+        },
+        OriginClass::NonFinitePartial => format!(
+            "The value of '{id}' is fine but its derivative is infinite there: add ε inside ({}(x + ε)) or keep its input away from that point.",
+            node.op_name
+        ),
+        OriginClass::ProductOverflow => format!(
+            "The adjoint overflowed while being pulled back through '{id}': clip the gradient, rescale the inputs of '{id}', or in f16 lower the loss scale."
+        ),
+        OriginClass::SumOverflow => format!(
+            "Each contribution to '{id}' is finite but their sum is not: rescale, clip, or accumulate the adjoints in a wider dtype."
+        ),
+        OriginClass::NanFromInfinity if origin.operands.first() == Some(&0.0) => format!(
+            "Make the input of '{id}' safe before the op (e.g. replace it by 1 where the branch is masked out) instead of masking the output: a zero adjoint times an infinite partial is NaN."
+        ),
+        OriginClass::NanFromInfinity => format!("Terms overflowed before they cancelled at '{id}': rescale its inputs or accumulate in a wider dtype."),
+        OriginClass::NonFiniteSeed => "Seed the output with a finite adjoint.".to_string(),
+    }
+}

@@ -1,0 +1,295 @@
+//! Root causes of non-finite adjoints: for every node whose adjoint became
+//! NaN or ±inf, the contribution that first made it so is found in the
+//! ledger and followed back, iteratively, to the earliest origin, which is
+//! then classified.
+
+use super::explain;
+use crate::ops;
+use crate::sweep::{FlagKind, Sweep};
+use crate::tensor::{Value, broadcast_source_indices};
+use crate::trace::{Partial, Trace};
+use serde::Serialize;
+use std::collections::HashMap;
+
+/// How a non-finite adjoint was born.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum OriginClass {
+    /// (a) A forward value is non-finite (log of 0, sqrt of a negative, 0/0, exp overflow).
+    NonFiniteValue,
+    /// (b) A partial is non-finite where the value is finite (sqrt at 0, x^p with 0 < p < 1 at 0).
+    NonFinitePartial,
+    /// (c) An adjoint times a partial, both finite, overflowed.
+    ProductOverflow,
+    /// (d) Finite contributions summed past the largest finite value at a branch.
+    SumOverflow,
+    /// (e) NaN from 0 × inf or inf − inf while pulling back or accumulating.
+    NanFromInfinity,
+    /// The seed itself is non-finite.
+    NonFiniteSeed,
+}
+
+impl OriginClass {
+    /// The letter used in the design: a–e (and `seed`).
+    pub fn letter(self) -> &'static str {
+        match self {
+            OriginClass::NonFiniteValue => "a",
+            OriginClass::NonFinitePartial => "b",
+            OriginClass::ProductOverflow => "c",
+            OriginClass::SumOverflow => "d",
+            OriginClass::NanFromInfinity => "e",
+            OriginClass::NonFiniteSeed => "seed",
+        }
+    }
+
+    /// A short name for reports.
+    pub fn title(self) -> &'static str {
+        match self {
+            OriginClass::NonFiniteValue => "non-finite forward value",
+            OriginClass::NonFinitePartial => "non-finite partial at a finite value",
+            OriginClass::ProductOverflow => "product of finite numbers overflowed",
+            OriginClass::SumOverflow => "sum of finite contributions overflowed at a branch",
+            OriginClass::NanFromInfinity => "NaN from 0 × inf or inf − inf",
+            OriginClass::NonFiniteSeed => "non-finite seed",
+        }
+    }
+}
+
+/// The earliest origin of one or more non-finite adjoints.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Origin {
+    /// How it was born.
+    pub class: OriginClass,
+    /// Where: the node with the non-finite value (a), the node whose pull-back
+    /// went bad (b, c, e), the branch point whose sum overflowed (d), the output (seed).
+    pub node: usize,
+    /// The sweep step (0-based) at which the first non-finite adjoint appeared.
+    pub step: usize,
+    /// The node whose adjoint became non-finite first.
+    pub first_adjoint: usize,
+    /// For a pull-back: the node pulled back and the input slot of the edge.
+    pub edge: Option<(usize, usize)>,
+    /// The numbers involved: the op's input elements (a); the input and the
+    /// partial (b); the adjoint and the partial (c, e); the adjoint before and
+    /// the contribution (d).
+    pub operands: Vec<f64>,
+    /// The offending result.
+    pub result: f64,
+    /// One sentence saying what happened.
+    pub explanation: String,
+    /// The parameters whose gradient it made non-finite, in recording order.
+    pub reached: Vec<usize>,
+}
+
+/// Why a node's adjoint is non-finite.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(super) enum Cause {
+    /// Finite adjoint.
+    Finite,
+    /// Born here: index into the origins.
+    Origin(usize),
+    /// Carried in by the contribution of this consumer.
+    From(usize),
+}
+
+/// Origins and the cause pointer of every node.
+#[derive(Debug, Clone)]
+pub(super) struct RootCauses {
+    pub origins: Vec<Origin>,
+    pub causes: Vec<Cause>,
+}
+
+impl RootCauses {
+    /// The chain of nodes from the origin to `node`, in sweep order; empty when `node`'s adjoint is finite.
+    pub fn chain(&self, node: usize) -> Vec<usize> {
+        let mut chain = Vec::new();
+        let mut cursor = node;
+        loop {
+            match self.causes[cursor] {
+                Cause::Finite => return Vec::new(),
+                Cause::From(consumer) => {
+                    chain.push(cursor);
+                    cursor = consumer;
+                }
+                Cause::Origin(index) => {
+                    chain.push(cursor);
+                    let origin = &self.origins[index];
+                    if let Some((via, _)) = origin.edge
+                        && via != cursor
+                    {
+                        chain.push(via);
+                    }
+                    if *chain.last().expect("pushed above") != origin.node {
+                        chain.push(origin.node);
+                    }
+                    chain.reverse();
+                    return chain;
+                }
+            }
+        }
+    }
+
+    /// The origin behind `node`'s non-finite adjoint.
+    pub fn origin_of(&self, node: usize) -> Option<usize> {
+        let mut cursor = node;
+        loop {
+            match self.causes[cursor] {
+                Cause::Finite => return None,
+                Cause::From(consumer) => cursor = consumer,
+                Cause::Origin(index) => return Some(index),
+            }
+        }
+    }
+}
+
+/// The local partial on an edge as a value of the node's shape, when it is
+/// elementwise: recorded, or derived from the op table.
+pub(super) fn edge_partial(trace: &Trace, node: usize, slot: usize) -> Option<Value> {
+    let recorded = trace.node(node);
+    match &recorded.partials[slot] {
+        Some(Partial::Scalar(s)) => Some(Value::Scalar(*s)),
+        Some(Partial::Diagonal(diagonal)) => Some(diagonal.clone()),
+        Some(Partial::Jacobian { .. }) => None,
+        None => {
+            let inputs: Vec<&Value> = recorded.inputs.iter().map(|&input| &trace.node(input).value).collect();
+            ops::elementwise_partial(recorded.op, slot, &inputs, &recorded.value, &recorded.attrs, trace.dtype())
+        }
+    }
+}
+
+/// Element `index` of a value, reading a one-element value as broadcast.
+fn element(value: &Value, index: usize) -> f64 {
+    let data = value.data();
+    if data.len() == 1 { data[0] } else { data.get(index).copied().unwrap_or(f64::NAN) }
+}
+
+/// Follows non-finite forward values from `node` back to the first node whose
+/// inputs are all finite.
+fn forward_origin(trace: &Trace, node: usize) -> usize {
+    let mut cursor = node;
+    while let Some(&input) = trace.node(cursor).inputs.iter().find(|&&input| !trace.node(input).value.is_finite()) {
+        cursor = input;
+    }
+    cursor
+}
+
+/// The input elements that produced element `index` of an elementwise node.
+fn input_elements(trace: &Trace, node: usize, index: usize) -> Vec<f64> {
+    let recorded = trace.node(node);
+    if !recorded.op.is_elementwise() {
+        return Vec::new();
+    }
+    recorded
+        .inputs
+        .iter()
+        .map(|&input| {
+            let value = &trace.node(input).value;
+            let sources = broadcast_source_indices(value.shape(), recorded.value.shape());
+            sources.get(index).map_or(f64::NAN, |&source| value.data()[source])
+        })
+        .collect()
+}
+
+/// Finds the root cause of every non-finite adjoint of a finished sweep with its ledger.
+pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
+    let trace = sweep.trace();
+    let ledger = sweep.ledger().expect("root causes need the ledger");
+    let mut causes = vec![Cause::Finite; trace.nodes().len()];
+    let mut origins: Vec<Origin> = Vec::new();
+    let mut by_place: HashMap<(usize, OriginClass), usize> = HashMap::new();
+    let bad_partials: HashMap<(usize, usize), f64> = sweep
+        .flags()
+        .iter()
+        .filter(|flag| flag.kind == FlagKind::NonFinitePartial)
+        .map(|flag| ((flag.node, flag.slot.unwrap_or(0)), flag.value))
+        .collect();
+    let mut add_origin = |origin: Origin, origins: &mut Vec<Origin>| -> usize {
+        *by_place.entry((origin.node, origin.class)).or_insert_with(|| {
+            origins.push(origin);
+            origins.len() - 1
+        })
+    };
+    let output = trace.output();
+    if let Some((_, bad)) = trace.seed().first_non_finite() {
+        let explanation = explain::seed(trace, bad);
+        let origin = Origin {
+            class: OriginClass::NonFiniteSeed,
+            node: output,
+            step: 0,
+            first_adjoint: output,
+            edge: None,
+            operands: Vec::new(),
+            result: bad,
+            explanation,
+            reached: Vec::new(),
+        };
+        causes[output] = Cause::Origin(add_origin(origin, &mut origins));
+    }
+    for entry in ledger.entries() {
+        if causes[entry.input] != Cause::Finite || entry.after.is_finite() || !entry.before.as_ref().is_none_or(Value::is_finite) {
+            continue;
+        }
+        let (x, u, slot) = (entry.input, entry.consumer, entry.slot);
+        let adjoint = sweep.adjoint(u).expect("a processed node holds its adjoint");
+        if !entry.value.is_finite() && !adjoint.is_finite() {
+            causes[x] = Cause::From(u);
+            continue;
+        }
+        let (index, result) = entry.after.first_non_finite().expect("after is not finite");
+        let mut origin = Origin {
+            class: OriginClass::SumOverflow,
+            node: x,
+            step: entry.step,
+            first_adjoint: x,
+            edge: Some((u, slot)),
+            operands: Vec::new(),
+            result,
+            explanation: String::new(),
+            reached: Vec::new(),
+        };
+        if entry.value.is_finite() {
+            // Finite before, finite contribution, non-finite sum: overflow at a branch.
+            let before = entry.before.as_ref().map_or(0.0, |before| element(before, index));
+            origin.operands = vec![before, element(&entry.value, index)];
+        } else {
+            let (index, result) = entry.value.first_non_finite().expect("the contribution is not finite");
+            origin.result = result;
+            origin.node = u;
+            let recorded = trace.node(u);
+            let forward_bad = !recorded.value.is_finite() || recorded.inputs.iter().any(|&input| !trace.node(input).value.is_finite());
+            let partial = edge_partial(trace, u, slot);
+            let partial_element = partial.as_ref().map(|partial| element(partial, index));
+            let g = element(adjoint, index);
+            if forward_bad {
+                let born = forward_origin(trace, u);
+                origin.class = OriginClass::NonFiniteValue;
+                origin.node = born;
+                let bad_index = trace.node(born).value.first_non_finite().map_or(0, |(at, _)| at);
+                origin.result = trace.node(born).value.first_non_finite().map_or(result, |(_, x)| x);
+                origin.operands = input_elements(trace, born, bad_index);
+            } else if let Some(&bad) = bad_partials.get(&(u, slot)) {
+                let p = partial_element.filter(|p| !p.is_finite()).unwrap_or(bad);
+                let zero_times_inf = result.is_nan() && p.is_infinite() && adjoint.data().contains(&0.0);
+                origin.class = if zero_times_inf { OriginClass::NanFromInfinity } else { OriginClass::NonFinitePartial };
+                let mut operands = input_elements(trace, u, index);
+                operands.push(p);
+                origin.operands = if zero_times_inf { vec![0.0, p] } else { operands };
+            } else {
+                origin.class = if result.is_nan() { OriginClass::NanFromInfinity } else { OriginClass::ProductOverflow };
+                origin.operands = match partial_element {
+                    Some(p) => vec![g, p],
+                    None => vec![adjoint.l2_norm()],
+                };
+            }
+        }
+        origin.explanation = explain::origin(trace, &origin);
+        causes[x] = Cause::Origin(add_origin(origin, &mut origins));
+    }
+    let mut causes = RootCauses { origins, causes };
+    for param in trace.params() {
+        if let Some(index) = causes.origin_of(param) {
+            causes.origins[index].reached.push(param);
+        }
+    }
+    causes
+}

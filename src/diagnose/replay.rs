@@ -1,0 +1,157 @@
+//! Precision replay: the same recorded step swept again in another dtype and
+//! compared, contribution by contribution, with a sweep in f64.
+
+use super::rules::{Finding, Rule};
+use super::{SweepAnalysis, analyse};
+use super::settings::Settings;
+use crate::dtype::{Dtype, Subnormals};
+use crate::sweep::{LedgerMode, Sweep};
+use crate::tensor::Value;
+use crate::trace::Trace;
+use serde::Serialize;
+use std::collections::HashSet;
+
+/// A contribution that was small against the adjoint it was added to, and
+/// lost at least the configured fraction of itself in the rounded sum.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct LostContribution {
+    /// The sweep step (0-based).
+    pub step: usize,
+    /// The node whose adjoint received it.
+    pub node: usize,
+    /// The node that sent it.
+    pub from: usize,
+    /// Flat index of the first element that lost it.
+    pub element: usize,
+    /// The contribution's element.
+    pub contribution: f64,
+    /// The adjoint's element before.
+    pub before: f64,
+    /// The adjoint's element after.
+    pub after: f64,
+    /// The fraction of the contribution missing from the sum (1 when absorbed entirely).
+    pub lost: f64,
+}
+
+/// One parameter's gradient in a replay, against the f64 reference.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct ReplayGradient {
+    /// The parameter.
+    pub param: usize,
+    /// L2 norm in this dtype.
+    pub norm: f64,
+    /// L2 norm in the f64 reference.
+    pub reference_norm: f64,
+    /// Largest elementwise |here − reference| / max(|reference|), over the gradient.
+    pub relative_error: f64,
+}
+
+/// One dtype's replay.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ReplayRun {
+    /// The dtype swept in.
+    pub dtype: Dtype,
+    /// Whether subnormal results were kept.
+    pub subnormals: Subnormals,
+    /// The rules' findings in this dtype, in sweep order.
+    pub findings: Vec<Finding>,
+    /// Root causes of non-finite adjoints in this dtype.
+    pub origins: Vec<super::origin::Origin>,
+    /// The first lost contribution at each receiving node, in sweep order.
+    pub lost: Vec<LostContribution>,
+    /// How many contributions lost at least the configured fraction, over all nodes.
+    pub lost_total: usize,
+    /// Every parameter's gradient, in recording order.
+    pub gradients: Vec<ReplayGradient>,
+}
+
+impl ReplayRun {
+    /// The first finding of `rule` in this dtype.
+    pub fn first(&self, rule: Rule) -> Option<&Finding> {
+        self.findings.iter().find(|finding| finding.rule == rule)
+    }
+
+    /// Where this dtype first overflows: the first overflow, or the first non-finite number, whichever comes first.
+    pub fn first_overflow(&self) -> Option<&Finding> {
+        self.findings.iter().find(|finding| finding.rule == Rule::Overflow || finding.rule == Rule::NonFinite)
+    }
+
+    /// Where this dtype first underflows.
+    pub fn first_underflow(&self) -> Option<&Finding> {
+        self.first(Rule::Underflow)
+    }
+
+    /// Where this dtype first loses a contribution.
+    pub fn first_lost(&self) -> Option<&LostContribution> {
+        self.lost.first()
+    }
+
+    /// Everything this replay found at `node`.
+    pub fn at_node(&self, node: usize) -> impl Iterator<Item = &Finding> + '_ {
+        self.findings.iter().filter(move |finding| finding.node == node)
+    }
+}
+
+/// Sweeps `trace` re-typed into `dtype` and compares it with the f64 `reference` sweep.
+pub fn replay(trace: &Trace, dtype: Dtype, settings: &Settings, reference: &Sweep) -> ReplayRun {
+    let retyped = trace.retyped(dtype, settings.subnormals);
+    let mut sweep = Sweep::new(&retyped, LedgerMode::On);
+    sweep.run_to_end();
+    let SweepAnalysis { findings, causes } = analyse(&sweep, Some(reference), settings);
+    let (lost, lost_total) = lost_contributions(&sweep, settings.lost_fraction);
+    let gradients = trace
+        .params()
+        .filter_map(|param| {
+            let here = sweep.adjoint(param)?;
+            let there = reference.adjoint(param)?;
+            let scale = there.data().iter().fold(0.0f64, |acc, x| acc.max(x.abs()));
+            let error = here.data().iter().zip(there.data()).fold(0.0f64, |acc, (a, b)| acc.max((a - b).abs()));
+            let relative_error = if scale > 0.0 { error / scale } else { error };
+            Some(ReplayGradient { param, norm: here.l2_norm(), reference_norm: there.l2_norm(), relative_error })
+        })
+        .collect();
+    ReplayRun { dtype, subnormals: settings.subnormals, findings, origins: causes.origins, lost, lost_total, gradients }
+}
+
+/// Contributions at least `fraction` of which went missing from the rounded sum.
+pub fn lost_contributions(sweep: &Sweep, fraction: f64) -> (Vec<LostContribution>, usize) {
+    let ledger = sweep.ledger().expect("the replay keeps the ledger");
+    let mut seen = HashSet::new();
+    let mut first = Vec::new();
+    let mut total = 0;
+    for entry in ledger.entries() {
+        let Some(before) = entry.before.as_ref() else { continue };
+        let hit = lost_element(before, &entry.value, &entry.after, fraction);
+        if let Some((element, lost)) = hit {
+            total += 1;
+            if seen.insert(entry.input) {
+                let at = |value: &Value| if value.len() == 1 { value.data()[0] } else { value.data()[element] };
+                first.push(LostContribution {
+                    step: entry.step,
+                    node: entry.input,
+                    from: entry.consumer,
+                    element,
+                    contribution: at(&entry.value),
+                    before: at(before),
+                    after: at(&entry.after),
+                    lost,
+                });
+            }
+        }
+    }
+    (first, total)
+}
+
+/// The first element where the sum `after = before + contribution` is missing
+/// at least `fraction` of a non-zero finite contribution.
+fn lost_element(before: &Value, contribution: &Value, after: &Value, fraction: f64) -> Option<(usize, f64)> {
+    let (b, c, a) = (before.data(), contribution.data(), after.data());
+    (0..a.len()).find_map(|k| {
+        let (b, c, a) = (b[k.min(b.len() - 1)], c[k.min(c.len() - 1)], a[k]);
+        if c == 0.0 || !(b.is_finite() && c.is_finite() && a.is_finite()) {
+            return None;
+        }
+        let lost = ((a - b) - c).abs() / c.abs();
+        (lost >= fraction).then_some((k, lost.min(1.0)))
+    })
+}

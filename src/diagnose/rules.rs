@@ -1,0 +1,344 @@
+//! The flag rules, run as an analysis over a finished sweep and its ledger, so
+//! that `Sweep::step` stays as fast as before when no diagnosis is asked for.
+//!
+//! Each rule looks at forward values, partials, contributions and adjoints in
+//! the sweep's dtype, and every finding records the node, the step, the
+//! rule, the offending number and the threshold it crossed.
+
+use super::settings::Settings;
+use super::origin::OriginClass;
+use crate::dtype::Dtype;
+use crate::sweep::{FlagKind, Sweep};
+use crate::tensor::{Value, l2_norm};
+use serde::{Deserialize, Serialize};
+
+/// A flag rule.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Rule {
+    /// NaN, +inf or −inf in a value, a partial, a contribution or an adjoint.
+    NonFinite,
+    /// A magnitude beyond the dtype's largest finite value (or rounded to infinity from finite operands).
+    Overflow,
+    /// A finite magnitude within the warning band below the largest finite value.
+    NearOverflow,
+    /// A non-zero number that is subnormal in the dtype or was flushed to zero.
+    Underflow,
+    /// A parameter gradient norm below a threshold.
+    Vanishing,
+    /// A parameter gradient norm above a threshold.
+    Exploding,
+    /// A node whose outgoing contributions are far larger or smaller than its adjoint.
+    Gain,
+}
+
+impl Rule {
+    /// Every rule, in report order.
+    pub const ALL: [Rule; 7] =
+        [Rule::NonFinite, Rule::Overflow, Rule::NearOverflow, Rule::Underflow, Rule::Vanishing, Rule::Exploding, Rule::Gain];
+
+    /// The rule's name in settings and JSON.
+    pub fn name(self) -> &'static str {
+        match self {
+            Rule::NonFinite => "non_finite",
+            Rule::Overflow => "overflow",
+            Rule::NearOverflow => "near_overflow",
+            Rule::Underflow => "underflow",
+            Rule::Vanishing => "vanishing",
+            Rule::Exploding => "exploding",
+            Rule::Gain => "gain",
+        }
+    }
+}
+
+/// Where in the sweep a finding was made.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case", tag = "at")]
+pub enum Site {
+    /// The node's recorded forward value.
+    Value,
+    /// The local partial on input edge `slot` of the node.
+    Partial {
+        /// Input slot.
+        slot: usize,
+    },
+    /// The contribution the node sent along input edge `slot` to node `to`.
+    Contribution {
+        /// Input slot.
+        slot: usize,
+        /// The receiving node.
+        to: usize,
+    },
+    /// The node's adjoint (for a parameter, its gradient).
+    Adjoint,
+    /// All contributions the node sent, against its adjoint.
+    Outgoing,
+}
+
+/// What number a finding compares with its threshold.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Measure {
+    /// One element's value.
+    Element,
+    /// One element that is subnormal in the dtype.
+    Subnormal,
+    /// One element that is zero here but non-zero in the f64 reference sweep (`value` holds the reference).
+    FlushedToZero,
+    /// An L2 norm.
+    Norm,
+    /// An L2 norm divided by the seed's norm.
+    NormToSeed,
+    /// An L2 norm divided by the median parameter gradient norm.
+    NormToMedian,
+    /// Outgoing contributions' norm divided by the adjoint's norm.
+    Gain,
+}
+
+/// One flag raised by a rule.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Finding {
+    /// The rule.
+    pub rule: Rule,
+    /// The node.
+    pub node: usize,
+    /// The sweep step (0-based) at which it happened.
+    pub step: usize,
+    /// Where.
+    pub site: Site,
+    /// What was measured.
+    pub measure: Measure,
+    /// The offending number.
+    pub value: f64,
+    /// The threshold it crossed (for non-finite numbers, the largest finite value).
+    pub threshold: f64,
+    /// Flat index of the first offending element.
+    pub element: usize,
+    /// Offending elements.
+    pub count: usize,
+    /// For a non-finite adjoint, the class of its root cause.
+    pub class: Option<OriginClass>,
+}
+
+/// What the rules read: the sweep and the f64 reference it is compared with.
+pub(super) struct RuleInput<'a, 's> {
+    pub sweep: &'a Sweep<'s>,
+    /// The same trace swept in f64 with gradual underflow; `None` when the sweep is that reference.
+    pub reference: Option<&'a Sweep<'s>>,
+    pub settings: &'a Settings,
+}
+
+/// The first element of `data` for which `bad` holds, and how many do.
+fn first_where(data: &[f64], bad: impl Fn(usize, f64) -> bool) -> Option<(usize, f64, usize)> {
+    let mut first = None;
+    let mut count = 0;
+    for (index, &x) in data.iter().enumerate() {
+        if bad(index, x) {
+            count += 1;
+            first.get_or_insert((index, x));
+        }
+    }
+    first.map(|(index, x)| (index, x, count))
+}
+
+/// Collects findings for one sweep.
+struct Collector<'a> {
+    settings: &'a Settings,
+    dtype: Dtype,
+    findings: Vec<Finding>,
+}
+
+impl Collector<'_> {
+    #[allow(clippy::too_many_arguments)]
+    fn push(&mut self, rule: Rule, node: usize, step: usize, site: Site, measure: Measure, hit: (usize, f64, usize), threshold: f64) {
+        if self.settings.is_on(rule) {
+            let (element, value, count) = hit;
+            self.findings.push(Finding { rule, node, step, site, measure, value, threshold, element, count, class: None });
+        }
+    }
+
+    /// Magnitude rules for a value: overflow beyond the largest finite value,
+    /// the warning band, and subnormals; non-finite numbers when `non_finite`.
+    fn magnitudes(&mut self, node: usize, step: usize, site: Site, data: &[f64], non_finite: bool) {
+        let limits = self.dtype.limits();
+        let max = limits.max_finite();
+        if non_finite && let Some(hit) = first_where(data, |_, x| !x.is_finite()) {
+            self.push(Rule::NonFinite, node, step, site, Measure::Element, hit, max);
+        }
+        if let Some(hit) = first_where(data, |_, x| x.is_finite() && x.abs() > max) {
+            self.push(Rule::Overflow, node, step, site, Measure::Element, hit, max);
+        }
+        let band = max / self.settings.overflow_band;
+        if let Some(hit) = first_where(data, |_, x| x.is_finite() && x.abs() > band && x.abs() <= max) {
+            self.push(Rule::NearOverflow, node, step, site, Measure::Element, hit, band);
+        }
+        if let Some(hit) = first_where(data, |_, x| self.dtype.is_subnormal(x)) {
+            self.push(Rule::Underflow, node, step, site, Measure::Subnormal, hit, limits.min_normal());
+        }
+    }
+
+    /// Elements that are infinite here but finite in the reference: an overflow of this dtype.
+    fn overflowed(&mut self, node: usize, step: usize, site: Site, data: &[f64], reference: &[f64]) {
+        if data.len() != reference.len() {
+            return;
+        }
+        if let Some((element, _, count)) = first_where(data, |index, x| x.is_infinite() && reference[index].is_finite()) {
+            let hit = (element, reference[element], count);
+            self.push(Rule::Overflow, node, step, site, Measure::Element, hit, self.dtype.limits().max_finite());
+        }
+    }
+
+    /// Elements that are zero here but not in the reference.
+    fn flushed(&mut self, node: usize, step: usize, site: Site, data: &[f64], reference: &[f64]) {
+        if data.len() != reference.len() {
+            return;
+        }
+        if let Some((element, _, count)) = first_where(data, |index, x| x == 0.0 && reference[index] != 0.0 && reference[index].is_finite()) {
+            let hit = (element, reference[element], count);
+            self.push(Rule::Underflow, node, step, site, Measure::FlushedToZero, hit, self.dtype.limits().min_subnormal());
+        }
+    }
+}
+
+/// Runs every rule that is on over a finished sweep (with its ledger).
+pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
+    let sweep = input.sweep;
+    let trace = sweep.trace();
+    let ledger = sweep.ledger().expect("the rules read the ledger");
+    let reference_ledger = input.reference.and_then(|reference| reference.ledger()).filter(|other| other.entries().len() == ledger.entries().len());
+    let mut collector = Collector { settings: input.settings, dtype: trace.dtype(), findings: Vec::new() };
+    let max = trace.dtype().limits().max_finite();
+    let partial_flags: Vec<_> = sweep.flags().iter().filter(|flag| flag.kind == FlagKind::NonFinitePartial).collect();
+    let adjoint_norms: Vec<f64> = (0..trace.nodes().len()).map(|node| sweep.adjoint(node).map_or(0.0, Value::l2_norm)).collect();
+    let mut entries = ledger.entries().iter().enumerate().peekable();
+    for (step, &node) in trace.sweep_order().iter().enumerate() {
+        let recorded = trace.node(node);
+        collector.magnitudes(node, step, Site::Value, recorded.value.data(), true);
+        if let Some(reference) = input.reference {
+            let reference_value = reference.trace().node(node).value.data();
+            collector.flushed(node, step, Site::Value, recorded.value.data(), reference_value);
+            collector.overflowed(node, step, Site::Value, recorded.value.data(), reference_value);
+        }
+        for flag in partial_flags.iter().filter(|flag| flag.step == step) {
+            let hit = (flag.element, flag.value, flag.count);
+            collector.push(Rule::NonFinite, node, step, Site::Partial { slot: flag.slot.unwrap_or(0) }, Measure::Element, hit, max);
+        }
+        let adjoint_finite = sweep.adjoint(node).is_some_and(Value::is_finite);
+        let mut outgoing = Vec::new();
+        while let Some((index, entry)) = entries.next_if(|(_, entry)| entry.step == step) {
+            let site = Site::Contribution { slot: entry.slot, to: entry.input };
+            let data = entry.value.data();
+            // A non-finite contribution is flagged where it is born, not at every edge it passes on.
+            collector.magnitudes(node, step, site, data, adjoint_finite);
+            if let Some(reference) = reference_ledger {
+                let reference_value = reference.entries()[index].value.data();
+                collector.flushed(node, step, site, data, reference_value);
+                if adjoint_finite {
+                    collector.overflowed(node, step, site, data, reference_value);
+                }
+            }
+            let before_finite = entry.before.as_ref().is_none_or(Value::is_finite);
+            if before_finite && entry.value.is_finite() && !entry.after.is_finite() {
+                // Finite contributions summing past the largest finite value at a branch.
+                let hit = first_where(entry.after.data(), |_, x| !x.is_finite()).expect("after is not finite");
+                collector.push(Rule::Overflow, entry.input, step, Site::Adjoint, Measure::Element, hit, max);
+            }
+            if before_finite && let Some(hit) = first_where(entry.after.data(), |_, x| !x.is_finite()) {
+                collector.push(Rule::NonFinite, entry.input, step, Site::Adjoint, Measure::Element, hit, max);
+            }
+            outgoing.push(entry.value.l2_norm());
+        }
+        // Final adjoint of this node (it is final once the node is processed).
+        if let Some(adjoint) = sweep.adjoint(node) {
+            let data = adjoint.data();
+            let limits = trace.dtype().limits();
+            if let Some(hit) = first_where(data, |_, x| trace.dtype().is_subnormal(x)) {
+                collector.push(Rule::Underflow, node, step, Site::Adjoint, Measure::Subnormal, hit, limits.min_normal());
+            }
+            if let Some(reference) = input.reference.and_then(|reference| reference.adjoint(node)) {
+                collector.flushed(node, step, Site::Adjoint, data, reference.data());
+            }
+        }
+        gain(&mut collector, node, step, adjoint_norms[node], &outgoing);
+    }
+    gradient_norms(&mut collector, sweep);
+    collector.findings.sort_by_key(|finding| (finding.step, finding.rule));
+    collector.findings
+}
+
+/// The gain rule: outgoing contributions' norm over the adjoint's norm.
+fn gain(collector: &mut Collector, node: usize, step: usize, adjoint_norm: f64, outgoing: &[f64]) {
+    if outgoing.is_empty() || !(adjoint_norm > 0.0 && adjoint_norm.is_finite()) {
+        return;
+    }
+    let ratio = l2_norm(outgoing) / adjoint_norm;
+    if !ratio.is_finite() {
+        return;
+    }
+    let settings = collector.settings;
+    if ratio > settings.gain_above {
+        collector.push(Rule::Gain, node, step, Site::Outgoing, Measure::Gain, (0, ratio, 1), settings.gain_above);
+    } else if ratio < settings.gain_below {
+        collector.push(Rule::Gain, node, step, Site::Outgoing, Measure::Gain, (0, ratio, 1), settings.gain_below);
+    }
+}
+
+/// The vanishing and exploding rules on parameter gradients: absolute, relative
+/// to the seed and relative to the median parameter gradient norm.
+fn gradient_norms(collector: &mut Collector, sweep: &Sweep) {
+    let trace = sweep.trace();
+    let norms: Vec<(usize, f64)> =
+        trace.params().filter_map(|param| sweep.adjoint(param).map(|adjoint| (param, adjoint.l2_norm()))).filter(|(_, norm)| norm.is_finite()).collect();
+    let median = median(norms.iter().map(|&(_, norm)| norm).collect());
+    let seed = trace.seed().l2_norm();
+    let settings = collector.settings;
+    for &(param, norm) in &norms {
+        let step = trace.sweep_rank(param).expect("a param with an adjoint is swept");
+        let mut check = |measure: Measure, value: f64, below: f64, above: f64| {
+            if !value.is_finite() {
+                return;
+            }
+            if value < below {
+                collector.push(Rule::Vanishing, param, step, Site::Adjoint, measure, (0, value, 1), below);
+            } else if value > above {
+                collector.push(Rule::Exploding, param, step, Site::Adjoint, measure, (0, value, 1), above);
+            }
+        };
+        check(Measure::Norm, norm, settings.vanishing_below, settings.exploding_above);
+        if seed > 0.0 {
+            check(Measure::NormToSeed, norm / seed, settings.vanishing_vs_seed, settings.exploding_vs_seed);
+        }
+        if norms.len() > 1 && median > 0.0 {
+            check(Measure::NormToMedian, norm / median, settings.vanishing_vs_median, settings.exploding_vs_median);
+        }
+    }
+}
+
+/// The median of a list (mean of the middle two for an even count); 0 when empty.
+pub fn median(mut values: Vec<f64>) -> f64 {
+    if values.is_empty() {
+        return 0.0;
+    }
+    values.sort_by(f64::total_cmp);
+    let middle = values.len() / 2;
+    if values.len() % 2 == 1 { values[middle] } else { (values[middle - 1] + values[middle]) / 2.0 }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn median_of_odd_and_even_counts() {
+        assert_eq!(median(vec![3.0, 1.0, 2.0]), 2.0);
+        assert_eq!(median(vec![4.0, 1.0, 3.0, 2.0]), 2.5);
+        assert_eq!(median(Vec::new()), 0.0);
+    }
+
+    #[test]
+    fn rule_names_match_their_serde_names() {
+        for rule in Rule::ALL {
+            assert_eq!(serde_json::to_string(&rule).unwrap(), format!("\"{}\"", rule.name()));
+        }
+    }
+}
