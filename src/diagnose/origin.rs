@@ -114,8 +114,11 @@ impl RootCauses {
                 Cause::Origin(index) => {
                     chain.push(cursor);
                     let origin = &self.origins[index];
+                    // A pull-back's origin enters the sweep through the node pulled back;
+                    // an overflowing sum is born at the branch point itself.
                     if let Some((via, _)) = origin.edge
                         && via != cursor
+                        && origin.class != OriginClass::SumOverflow
                     {
                         chain.push(via);
                     }
