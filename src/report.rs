@@ -6,8 +6,16 @@
 //! `params`, `swept`, `unreached`}, `gradients` [{`id`, `group`, `shape`,
 //! `norm`, `min`, `max`, `non_finite`, `reaches_output`}], `flags` [{`step`,
 //! `node`, `op`, `kind`, `value`, `element`, `count`, `slot`, `from`,
-//! `first`}], `clean`. Non-finite numbers are the strings "NaN", "inf", "-inf".
+//! `first`, `class`}], `clean`, `diagnosis` (see [`diagnosis`]). Non-finite
+//! numbers are the strings "NaN", "inf", "-inf". `class` (the root-cause
+//! letter of a non-finite adjoint) and `diagnosis` were added to schema 1
+//! without changing any earlier field; both are absent when no diagnosis ran.
 
+pub mod diagnosis;
+
+pub use diagnosis::DiagnosisReport;
+
+use crate::diagnose::Diagnosis;
 use crate::format::{compact, shape as show};
 use crate::stats::Summary;
 use crate::sweep::{Flag, FlagKind, Sweep};
@@ -32,6 +40,9 @@ pub struct Report {
     pub flags: Vec<FlagEntry>,
     /// True when nothing was flagged.
     pub clean: bool,
+    /// The diagnosis, when one was made.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub diagnosis: Option<DiagnosisReport>,
 }
 
 /// The trace's header.
@@ -106,6 +117,9 @@ pub struct FlagEntry {
     pub from: Option<String>,
     /// True for the first flag of the sweep.
     pub first: bool,
+    /// For a non-finite adjoint, the letter of its root-cause class (a–e, or `seed`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub class: Option<&'static str>,
 }
 
 impl Report {
@@ -160,7 +174,23 @@ impl Report {
             gradients,
             clean: flags.is_empty(),
             flags,
+            diagnosis: None,
         }
+    }
+
+    /// Adds the diagnosis: its section, the root-cause class of each
+    /// non-finite adjoint flag, and its findings in `clean`.
+    pub fn with_diagnosis(mut self, trace: &Trace, diagnosis: &Diagnosis) -> Report {
+        for flag in &mut self.flags {
+            if flag.kind == FlagKind::NonFiniteAdjoint
+                && let Some(node) = trace.find(&flag.node)
+            {
+                flag.class = diagnosis.origin_of(node).map(|origin| origin.class.letter());
+            }
+        }
+        self.clean = self.clean && diagnosis.is_clean();
+        self.diagnosis = Some(DiagnosisReport::new(trace, diagnosis));
+        self
     }
 
     /// The report as pretty JSON.
@@ -168,9 +198,14 @@ impl Report {
         serde_json::to_string_pretty(self).expect("a report always serialises")
     }
 
-    /// The report as text.
+    /// The report as text: the short diagnosis first, then the counts,
+    /// gradients and flags, then the diagnosis's details.
     pub fn to_text(&self) -> String {
         let mut out = String::new();
+        if let Some(diagnosis) = &self.diagnosis {
+            out.push_str(&diagnosis.summary_text(&self.trace.dtype));
+            out.push('\n');
+        }
         let c = &self.counts;
         out.push_str(&format!("trace    {}  \"{}\"  ({})\n", self.trace.path, self.trace.title, self.trace.dtype));
         out.push_str(&format!(
@@ -188,6 +223,9 @@ impl Report {
         out.push('\n');
         out.push_str(&self.gradients_text());
         out.push_str(&self.flags_text());
+        if let Some(diagnosis) = &self.diagnosis {
+            out.push_str(&diagnosis.details_text());
+        }
         out
     }
 
@@ -249,6 +287,7 @@ fn flag_entry(trace: &Trace, flag: &Flag, first: bool) -> FlagEntry {
         slot: flag.slot,
         from: flag.from.map(|from| trace.node(from).id.clone()),
         first,
+        class: None,
     }
 }
 

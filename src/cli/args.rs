@@ -35,13 +35,21 @@ pub enum Command {
     /// Load a trace, sweep it to the end, report gradients and flags.
     ///
     /// Exit status: 0 when nothing is flagged, 1 when something is, 2 on bad input.
-    #[command(after_help = "Examples:\n  ebb check traces/teaching.ron\n  ebb check run-1234.json --json | jq '.flags[0]'")]
+    #[command(after_help = "Examples:\n  ebb check traces/teaching.ron\n  ebb check run-1234.json --json | jq '.diagnosis.first_origin'\n  ebb check run.ron --rules rules.ron --set gain_above=50 --set 'replay=[f16, bf16]'")]
     Check {
         /// The trace file (.ron, .json or .tape).
         trace: PathBuf,
         /// Print the report as JSON (stable field names, for CI scripts).
         #[arg(long)]
         json: bool,
+        /// A RON settings file with rule thresholds and replay options, e.g. `(gain_above: 50.0, subnormals: flush)`.
+        #[arg(long, value_name = "FILE")]
+        rules: Option<PathBuf>,
+        /// Override one setting, written as in a settings file; repeatable. Names: overflow_band,
+        /// vanishing_below, exploding_above, vanishing_vs_seed, exploding_vs_seed, vanishing_vs_median,
+        /// exploding_vs_median, gain_above, gain_below, subnormals, replay, lost_fraction, clip_norm, off.
+        #[arg(long = "set", value_name = "NAME=VALUE")]
+        set: Vec<String>,
     },
     /// Print the sweep step by step: each node, its adjoint, each contribution.
     #[command(after_help = "Examples:\n  ebb sweep traces/teaching.ron\n  ebb sweep big.json --steps 20")]

@@ -9,6 +9,8 @@ pub use args::{Cli, Command};
 
 use anyhow::{Context, Result};
 use clap::CommandFactory;
+use ebb::diagnose::{Settings, diagnose};
+use ebb::dtype::Subnormals;
 use ebb::listing::list_steps;
 use ebb::ops::{CATALOG, Rule};
 use ebb::report::Report;
@@ -41,9 +43,12 @@ pub struct BadInput(#[from] pub LoadError);
 pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
     match cli.command {
         None if std::io::stdout().is_terminal() => view(&load_demo()?, DEMO_NAME, cli.theme.as_deref()),
-        None => check(DEMO_NAME, &load_demo()?, false, out),
+        None => check(DEMO_NAME, &load_demo()?, false, &Settings::default(), out),
         Some(Command::Open { trace, theme }) => open(&trace, theme.as_deref()),
-        Some(Command::Check { trace, json }) => check(&trace.display().to_string(), &load(&trace)?, json, out),
+        Some(Command::Check { trace, json, rules, set }) => {
+            let settings = settings(rules.as_deref(), &set)?;
+            check(&trace.display().to_string(), &load(&trace)?, json, &settings, out)
+        }
         Some(Command::Sweep { trace, steps }) => sweep(&load(&trace)?, steps, out),
         Some(Command::Verify { trace, json, tolerance, samples, seed, direction }) => {
             let loaded = load(&trace)?;
@@ -104,10 +109,30 @@ pub fn load_demo() -> Result<Trace> {
     trace::load_str(DEMO_TEXT, Encoding::Ron, Path::new("traces/teaching.ron")).map_err(|error| BadInput(error).into())
 }
 
-fn check(path: &str, trace: &Trace, json: bool, out: &mut dyn Write) -> Result<Outcome> {
-    let mut sweep = Sweep::new(trace, LedgerMode::Off);
+/// The settings: defaults, then the file, then each `--set` in order.
+fn settings(rules: Option<&Path>, set: &[String]) -> Result<Settings> {
+    let mut settings = match rules {
+        Some(path) => Settings::load(path)?,
+        None => Settings::default(),
+    };
+    for text in set {
+        settings.apply(text)?;
+    }
+    Ok(settings)
+}
+
+fn check(path: &str, trace: &Trace, json: bool, settings: &Settings, out: &mut dyn Write) -> Result<Outcome> {
+    let flushed;
+    let own = if settings.subnormals == Subnormals::Flush {
+        flushed = trace.retyped(trace.dtype(), Subnormals::Flush);
+        &flushed
+    } else {
+        trace
+    };
+    let mut sweep = Sweep::new(own, LedgerMode::Off);
     sweep.run_to_end();
-    let report = Report::new(path, &sweep);
+    let diagnosis = diagnose(trace, settings);
+    let report = Report::new(path, &sweep).with_diagnosis(trace, &diagnosis);
     let text = if json { report.to_json() + "\n" } else { report.to_text() };
     out.write_all(text.as_bytes()).context("writing the report")?;
     Ok(if report.clean { Outcome::Clean } else { Outcome::Flagged })

@@ -188,10 +188,14 @@ pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
     }
     let reference = reference_sweep.as_ref().unwrap_or(&sweep);
     let SweepAnalysis { findings, causes } = analyse(&sweep, reference_sweep.as_ref(), settings);
+    let reference_findings = match &reference_sweep {
+        Some(reference) => analyse(reference, None, settings).findings,
+        None => findings.clone(),
+    };
     let gains = edge_gains(&sweep);
     let paths = dominant_paths(&sweep, &gains);
     let groups = group_norms(&sweep);
-    let replays: Vec<ReplayRun> = settings.replay.iter().map(|&dtype| replay(trace, dtype, settings, reference)).collect();
+    let replays: Vec<ReplayRun> = settings.replay.iter().map(|&dtype| replay(trace, dtype, settings, reference, &reference_findings)).collect();
     let entries: Vec<f64> = trace.sweep_order().iter().filter_map(|&node| reference.adjoint(node)).flat_map(|adjoint| adjoint.data().to_vec()).collect();
     let loss_scale = loss_scale(&entries, settings.subnormals);
     let gradients: Vec<&[f64]> = trace.params().filter_map(|param| sweep.adjoint(param)).map(|adjoint| adjoint.data()).collect();

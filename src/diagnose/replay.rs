@@ -1,7 +1,7 @@
 //! Precision replay: the same recorded step swept again in another dtype and
 //! compared, contribution by contribution, with a sweep in f64.
 
-use super::rules::{Finding, Rule};
+use super::rules::{Finding, Measure, Rule, Site};
 use super::{SweepAnalysis, analyse};
 use super::settings::Settings;
 use crate::dtype::{Dtype, Subnormals};
@@ -53,8 +53,11 @@ pub struct ReplayRun {
     pub dtype: Dtype,
     /// Whether subnormal results were kept.
     pub subnormals: Subnormals,
-    /// The rules' findings in this dtype, in sweep order.
+    /// The rules' findings in this dtype that the f64 reference sweep does not
+    /// have (what reduced precision changes), in sweep order.
     pub findings: Vec<Finding>,
+    /// All findings in this dtype, shared ones included.
+    pub findings_total: usize,
     /// Root causes of non-finite adjoints in this dtype.
     pub origins: Vec<super::origin::Origin>,
     /// The first lost contribution at each receiving node, in sweep order.
@@ -71,12 +74,13 @@ impl ReplayRun {
         self.findings.iter().find(|finding| finding.rule == rule)
     }
 
-    /// Where this dtype first overflows: the first overflow, or the first non-finite number, whichever comes first.
+    /// Where this dtype first overflows where f64 does not: the first overflow,
+    /// or the first non-finite number, whichever comes first.
     pub fn first_overflow(&self) -> Option<&Finding> {
         self.findings.iter().find(|finding| finding.rule == Rule::Overflow || finding.rule == Rule::NonFinite)
     }
 
-    /// Where this dtype first underflows.
+    /// Where this dtype first underflows where f64 does not.
     pub fn first_underflow(&self) -> Option<&Finding> {
         self.first(Rule::Underflow)
     }
@@ -92,12 +96,21 @@ impl ReplayRun {
     }
 }
 
-/// Sweeps `trace` re-typed into `dtype` and compares it with the f64 `reference` sweep.
-pub fn replay(trace: &Trace, dtype: Dtype, settings: &Settings, reference: &Sweep) -> ReplayRun {
+/// What makes two findings the same for the comparison with the reference.
+fn key(finding: &Finding) -> (Rule, usize, Site, Measure) {
+    (finding.rule, finding.node, finding.site, finding.measure)
+}
+
+/// Sweeps `trace` re-typed into `dtype` and compares it with the f64
+/// `reference` sweep, whose own findings are `reference_findings`.
+pub fn replay(trace: &Trace, dtype: Dtype, settings: &Settings, reference: &Sweep, reference_findings: &[Finding]) -> ReplayRun {
     let retyped = trace.retyped(dtype, settings.subnormals);
     let mut sweep = Sweep::new(&retyped, LedgerMode::On);
     sweep.run_to_end();
     let SweepAnalysis { findings, causes } = analyse(&sweep, Some(reference), settings);
+    let shared: HashSet<_> = reference_findings.iter().map(key).collect();
+    let findings_total = findings.len();
+    let findings: Vec<Finding> = findings.into_iter().filter(|finding| !shared.contains(&key(finding))).collect();
     let (lost, lost_total) = lost_contributions(&sweep, settings.lost_fraction);
     let gradients = trace
         .params()
@@ -110,7 +123,7 @@ pub fn replay(trace: &Trace, dtype: Dtype, settings: &Settings, reference: &Swee
             Some(ReplayGradient { param, norm: here.l2_norm(), reference_norm: there.l2_norm(), relative_error })
         })
         .collect();
-    ReplayRun { dtype, subnormals: settings.subnormals, findings, origins: causes.origins, lost, lost_total, gradients }
+    ReplayRun { dtype, subnormals: settings.subnormals, findings, findings_total, origins: causes.origins, lost, lost_total, gradients }
 }
 
 /// Contributions at least `fraction` of which went missing from the rounded sum.

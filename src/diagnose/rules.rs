@@ -52,7 +52,7 @@ impl Rule {
 }
 
 /// Where in the sweep a finding was made.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
 #[serde(rename_all = "snake_case", tag = "at")]
 pub enum Site {
     /// The node's recorded forward value.
@@ -76,7 +76,7 @@ pub enum Site {
 }
 
 /// What number a finding compares with its threshold.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Measure {
     /// One element's value.

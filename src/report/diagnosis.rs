@@ -1,0 +1,621 @@
+//! The diagnosis section of the check report: the library's index-based
+//! results turned into node ids, 1-based steps and JSON-safe numbers, and
+//! the text `ebb check` prints.
+//!
+//! JSON fields (additive to report schema 1): `diagnosis` {`clean`,
+//! `settings`, `first_origin`, `origins` [{`class`, `letter`, `title`,
+//! `node`, `op`, `step`, `first_adjoint`, `from`, `slot`, `operands`,
+//! `result`, `explanation`, `reached` [{`param`, `chain`, `length`,
+//! `omitted`}]}], `findings` [{`rule`, `node`, `op`, `step`, `site`, `slot`,
+//! `to`, `measure`, `value`, `threshold`, `element`, `count`, `class`}],
+//! `dominant_paths` [{`param`, `log10_gain`, `length`, `omitted`, `hops`
+//! [{`from`, `to`, `slot`, `gain`}]}], `groups` [{`group`, `depth`, `nodes`,
+//! `adjoint_norm`, `param_norm`, `ratio`}], `replay` [{`dtype`,
+//! `subnormals`, `findings`, `findings_total`, `first_overflow`, `first_underflow`,
+//! `first_lost`, `lost_total`, `origins`, `gradients` [{`param`, `norm`,
+//! `reference_norm`, `relative_error`}]}], `loss_scale` {`max_abs`,
+//! `exponent`, `scale`, `nonzero`, `underflow_unscaled`,
+//! `underflow_scaled`}, `clipping` {`norm`, `threshold`, `factor`, `clips`},
+//! `advice` [{`topic`, `node`, `text`}]}.
+
+use crate::diagnose::{Advice, Diagnosis, Finding, LostContribution, Measure, Origin, Rule, Settings, Site, Topic};
+use crate::format::compact;
+use crate::trace::{Num, Trace};
+use serde::Serialize;
+use std::fmt::Write;
+
+/// Longest chain or path written out in full; longer ones keep both ends.
+pub const CHAIN_LIMIT: usize = 64;
+
+/// The diagnosis section.
+#[derive(Debug, Clone, Serialize)]
+pub struct DiagnosisReport {
+    /// True when no rule fired in the trace's own dtype.
+    pub clean: bool,
+    /// The thresholds and options used.
+    pub settings: Settings,
+    /// The earliest origin of a non-finite adjoint.
+    pub first_origin: Option<OriginEntry>,
+    /// Every origin, in the order born.
+    pub origins: Vec<OriginEntry>,
+    /// Every rule's findings, in sweep order.
+    pub findings: Vec<FindingEntry>,
+    /// Each parameter's dominant path.
+    pub dominant_paths: Vec<PathEntry>,
+    /// Per-group adjoint norms, shallowest first.
+    pub groups: Vec<GroupEntry>,
+    /// One entry per replay dtype.
+    pub replay: Vec<ReplayEntry>,
+    /// Loss-scale advice for f16.
+    pub loss_scale: Option<crate::diagnose::LossScale>,
+    /// The clipping preview.
+    pub clipping: ClipEntry,
+    /// What to do, most pressing first.
+    pub advice: Vec<AdviceEntry>,
+}
+
+/// A chain of node ids, both ends kept when long.
+#[derive(Debug, Clone, Serialize)]
+pub struct ChainEntry {
+    /// The parameter at its end.
+    pub param: String,
+    /// Node ids from the origin to the parameter.
+    pub chain: Vec<String>,
+    /// Nodes in the whole chain.
+    pub length: usize,
+    /// Nodes left out of `chain` in its middle.
+    pub omitted: usize,
+}
+
+/// One origin.
+#[derive(Debug, Clone, Serialize)]
+pub struct OriginEntry {
+    /// Class name.
+    pub class: crate::diagnose::OriginClass,
+    /// Class letter a–e (or `seed`).
+    pub letter: &'static str,
+    /// Class title.
+    pub title: &'static str,
+    /// Node id where it was born.
+    pub node: String,
+    /// That node's op.
+    pub op: String,
+    /// 1-based step at which the first non-finite adjoint appeared.
+    pub step: usize,
+    /// The node whose adjoint became non-finite first.
+    pub first_adjoint: String,
+    /// The node pulled back, for an edge.
+    pub from: Option<String>,
+    /// The edge's input slot.
+    pub slot: Option<usize>,
+    /// The numbers involved.
+    pub operands: Vec<Num>,
+    /// The offending result.
+    pub result: Num,
+    /// One sentence.
+    pub explanation: String,
+    /// Each parameter reached, with its chain.
+    pub reached: Vec<ChainEntry>,
+}
+
+/// One finding.
+#[derive(Debug, Clone, Serialize)]
+pub struct FindingEntry {
+    /// The rule.
+    pub rule: Rule,
+    /// Node id.
+    pub node: String,
+    /// Its op.
+    pub op: String,
+    /// 1-based step.
+    pub step: usize,
+    /// `value`, `partial`, `contribution`, `adjoint` or `outgoing`.
+    pub site: &'static str,
+    /// Input slot, for a partial or contribution.
+    pub slot: Option<usize>,
+    /// Receiving node, for a contribution.
+    pub to: Option<String>,
+    /// What was measured.
+    pub measure: Measure,
+    /// The offending number.
+    pub value: Num,
+    /// The threshold.
+    pub threshold: Num,
+    /// First offending element.
+    pub element: usize,
+    /// Offending elements.
+    pub count: usize,
+    /// Root-cause class letter, for a non-finite adjoint.
+    pub class: Option<&'static str>,
+}
+
+/// One hop of a dominant path.
+#[derive(Debug, Clone, Serialize)]
+pub struct HopEntry {
+    /// Node pulled back.
+    pub from: String,
+    /// Node receiving.
+    pub to: String,
+    /// Input slot.
+    pub slot: usize,
+    /// The hop's gain.
+    pub gain: Num,
+}
+
+/// One dominant path.
+#[derive(Debug, Clone, Serialize)]
+pub struct PathEntry {
+    /// The parameter.
+    pub param: String,
+    /// log10 of the product of gains.
+    pub log10_gain: Num,
+    /// Hops in the whole path.
+    pub length: usize,
+    /// Hops left out in the middle.
+    pub omitted: usize,
+    /// The hops from the output, both ends kept when long.
+    pub hops: Vec<HopEntry>,
+}
+
+/// One group's norms.
+#[derive(Debug, Clone, Serialize)]
+pub struct GroupEntry {
+    /// Scope path.
+    pub group: String,
+    /// Fewest hops from the output.
+    pub depth: usize,
+    /// Swept nodes.
+    pub nodes: usize,
+    /// L2 norm of the group's adjoints.
+    pub adjoint_norm: Num,
+    /// L2 norm of its parameter gradients.
+    pub param_norm: Option<Num>,
+    /// Over the previous group's adjoint norm.
+    pub ratio: Option<Num>,
+}
+
+/// One lost contribution.
+#[derive(Debug, Clone, Serialize)]
+pub struct LostEntry {
+    /// 1-based step.
+    pub step: usize,
+    /// Receiving node.
+    pub node: String,
+    /// Sending node.
+    pub from: String,
+    /// Element.
+    pub element: usize,
+    /// The contribution.
+    pub contribution: Num,
+    /// Adjoint before.
+    pub before: Num,
+    /// Adjoint after.
+    pub after: Num,
+    /// Fraction lost.
+    pub lost: Num,
+}
+
+/// One parameter's gradient in a replay.
+#[derive(Debug, Clone, Serialize)]
+pub struct ReplayGradientEntry {
+    /// The parameter.
+    pub param: String,
+    /// Norm in the replay dtype.
+    pub norm: Num,
+    /// Norm in f64.
+    pub reference_norm: Num,
+    /// Largest elementwise error relative to the largest reference entry.
+    pub relative_error: Num,
+}
+
+/// One replay.
+#[derive(Debug, Clone, Serialize)]
+pub struct ReplayEntry {
+    /// The dtype.
+    pub dtype: crate::dtype::Dtype,
+    /// Kept or flushed subnormals.
+    pub subnormals: crate::dtype::Subnormals,
+    /// Findings in this dtype that f64 does not have.
+    pub findings: usize,
+    /// All findings in this dtype.
+    pub findings_total: usize,
+    /// Where it first overflows.
+    pub first_overflow: Option<FindingEntry>,
+    /// Where it first underflows.
+    pub first_underflow: Option<FindingEntry>,
+    /// Where it first loses a contribution.
+    pub first_lost: Option<LostEntry>,
+    /// Contributions lost in all.
+    pub lost_total: usize,
+    /// Root causes in this dtype.
+    pub origins: Vec<OriginEntry>,
+    /// Parameter gradients side by side with f64.
+    pub gradients: Vec<ReplayGradientEntry>,
+}
+
+/// The clipping preview.
+#[derive(Debug, Clone, Serialize)]
+pub struct ClipEntry {
+    /// Global gradient norm.
+    pub norm: Num,
+    /// Threshold.
+    pub threshold: Num,
+    /// Factor clipping applies.
+    pub factor: Num,
+    /// Whether it clips.
+    pub clips: bool,
+}
+
+/// One piece of advice.
+#[derive(Debug, Clone, Serialize)]
+pub struct AdviceEntry {
+    /// What it is about.
+    pub topic: Topic,
+    /// The node it points at.
+    pub node: Option<String>,
+    /// What to do.
+    pub text: String,
+}
+
+/// Keeps both ends of a long list.
+fn ends<T: Clone>(items: &[T]) -> (Vec<T>, usize) {
+    if items.len() <= CHAIN_LIMIT {
+        return (items.to_vec(), 0);
+    }
+    let head = CHAIN_LIMIT / 2;
+    let tail = CHAIN_LIMIT - head;
+    let mut kept = items[..head].to_vec();
+    kept.extend_from_slice(&items[items.len() - tail..]);
+    (kept, items.len() - CHAIN_LIMIT)
+}
+
+fn site_name(site: Site) -> (&'static str, Option<usize>, Option<usize>) {
+    match site {
+        Site::Value => ("value", None, None),
+        Site::Partial { slot } => ("partial", Some(slot), None),
+        Site::Contribution { slot, to } => ("contribution", Some(slot), Some(to)),
+        Site::Adjoint => ("adjoint", None, None),
+        Site::Outgoing => ("outgoing", None, None),
+    }
+}
+
+fn finding_entry(trace: &Trace, finding: &Finding) -> FindingEntry {
+    let node = trace.node(finding.node);
+    let (site, slot, to) = site_name(finding.site);
+    FindingEntry {
+        rule: finding.rule,
+        node: node.id.clone(),
+        op: node.op_name.clone(),
+        step: finding.step + 1,
+        site,
+        slot,
+        to: to.map(|to| trace.node(to).id.clone()),
+        measure: finding.measure,
+        value: Num(finding.value),
+        threshold: Num(finding.threshold),
+        element: finding.element,
+        count: finding.count,
+        class: finding.class.map(|class| class.letter()),
+    }
+}
+
+fn origin_entry(trace: &Trace, origin: &Origin, chain_of: &dyn Fn(usize) -> Vec<usize>) -> OriginEntry {
+    let id = |node: usize| trace.node(node).id.clone();
+    OriginEntry {
+        class: origin.class,
+        letter: origin.class.letter(),
+        title: origin.class.title(),
+        node: id(origin.node),
+        op: trace.node(origin.node).op_name.clone(),
+        step: origin.step + 1,
+        first_adjoint: id(origin.first_adjoint),
+        from: origin.edge.map(|(from, _)| id(from)),
+        slot: origin.edge.map(|(_, slot)| slot),
+        operands: origin.operands.iter().map(|&x| Num(x)).collect(),
+        result: Num(origin.result),
+        explanation: origin.explanation.clone(),
+        reached: origin
+            .reached
+            .iter()
+            .map(|&param| {
+                let chain = chain_of(param);
+                let (kept, omitted) = ends(&chain);
+                ChainEntry { param: id(param), chain: kept.into_iter().map(id).collect(), length: chain.len(), omitted }
+            })
+            .collect(),
+    }
+}
+
+fn lost_entry(trace: &Trace, lost: &LostContribution) -> LostEntry {
+    LostEntry {
+        step: lost.step + 1,
+        node: trace.node(lost.node).id.clone(),
+        from: trace.node(lost.from).id.clone(),
+        element: lost.element,
+        contribution: Num(lost.contribution),
+        before: Num(lost.before),
+        after: Num(lost.after),
+        lost: Num(lost.lost),
+    }
+}
+
+fn advice_entry(trace: &Trace, advice: &Advice) -> AdviceEntry {
+    AdviceEntry { topic: advice.topic, node: advice.node.map(|node| trace.node(node).id.clone()), text: advice.text.clone() }
+}
+
+impl DiagnosisReport {
+    /// The section for `diagnosis` of `trace`.
+    pub fn new(trace: &Trace, diagnosis: &Diagnosis) -> DiagnosisReport {
+        let id = |node: usize| trace.node(node).id.clone();
+        let chain_of = |node: usize| diagnosis.chain_to(node);
+        let origins: Vec<OriginEntry> = diagnosis.origins.iter().map(|origin| origin_entry(trace, origin, &chain_of)).collect();
+        let first_origin = diagnosis.first_origin().map(|origin| origin_entry(trace, origin, &chain_of));
+        let dominant_paths = diagnosis
+            .paths
+            .iter()
+            .map(|path| {
+                let (hops, omitted) = ends(&path.hops);
+                PathEntry {
+                    param: id(path.param),
+                    log10_gain: Num(path.log10_gain),
+                    length: path.hops.len(),
+                    omitted,
+                    hops: hops.iter().map(|hop| HopEntry { from: id(hop.from), to: id(hop.to), slot: hop.slot, gain: Num(hop.gain) }).collect(),
+                }
+            })
+            .collect();
+        let groups = diagnosis
+            .groups
+            .iter()
+            .map(|group| GroupEntry {
+                group: group.group.clone(),
+                depth: group.depth,
+                nodes: group.nodes,
+                adjoint_norm: Num(group.adjoint_norm),
+                param_norm: group.param_norm.map(Num),
+                ratio: group.ratio.map(Num),
+            })
+            .collect();
+        let replay = diagnosis
+            .replays
+            .iter()
+            .map(|run| ReplayEntry {
+                dtype: run.dtype,
+                subnormals: run.subnormals,
+                findings: run.findings.len(),
+                findings_total: run.findings_total,
+                first_overflow: run.first_overflow().map(|finding| finding_entry(trace, finding)),
+                first_underflow: run.first_underflow().map(|finding| finding_entry(trace, finding)),
+                first_lost: run.first_lost().map(|lost| lost_entry(trace, lost)),
+                lost_total: run.lost_total,
+                // Chains are the main sweep's business; a replay names its origins only.
+                origins: run.origins.iter().map(|origin| origin_entry(trace, origin, &|_| Vec::new())).collect(),
+                gradients: run
+                    .gradients
+                    .iter()
+                    .map(|g| ReplayGradientEntry {
+                        param: id(g.param),
+                        norm: Num(g.norm),
+                        reference_norm: Num(g.reference_norm),
+                        relative_error: Num(g.relative_error),
+                    })
+                    .collect(),
+            })
+            .collect();
+        let clip = &diagnosis.clipping;
+        DiagnosisReport {
+            clean: diagnosis.is_clean(),
+            settings: diagnosis.settings.clone(),
+            first_origin,
+            origins,
+            findings: diagnosis.findings.iter().map(|finding| finding_entry(trace, finding)).collect(),
+            dominant_paths,
+            groups,
+            replay,
+            loss_scale: diagnosis.loss_scale,
+            clipping: ClipEntry { norm: Num(clip.norm), threshold: Num(clip.threshold), factor: Num(clip.factor), clips: clip.clips },
+            advice: diagnosis.advice.iter().map(|advice| advice_entry(trace, advice)).collect(),
+        }
+    }
+
+    /// The short diagnosis printed before everything else.
+    pub fn summary_text(&self, dtype: &str) -> String {
+        let mut out = String::new();
+        match &self.first_origin {
+            Some(origin) => {
+                let _ = writeln!(
+                    out,
+                    "diagnosis  origin ({}) {} at '{}' ({}), step {}",
+                    origin.letter, origin.title, origin.node, origin.op, origin.step
+                );
+                let _ = writeln!(out, "           {}", origin.explanation);
+                for reached in origin.reached.iter().take(3) {
+                    let _ = writeln!(out, "  chain    {}", chain_text(reached));
+                }
+                if origin.reached.len() > 3 {
+                    let _ = writeln!(out, "           … and {} more parameters", origin.reached.len() - 3);
+                }
+                if origin.reached.is_empty() {
+                    let _ = writeln!(out, "  chain    reaches no parameter");
+                }
+                if self.origins.len() > 1 {
+                    let _ = writeln!(out, "           {} origins in all (see below)", self.origins.len());
+                }
+            }
+            None if self.clean => {
+                let _ = writeln!(out, "diagnosis  clean: no rule fired in {dtype}");
+            }
+            None => {
+                let rules: Vec<&str> = self.findings.iter().map(|finding| finding.rule_name()).collect::<std::collections::BTreeSet<_>>().into_iter().collect();
+                let _ = writeln!(out, "diagnosis  every adjoint is finite; {} findings ({})", self.findings.len(), rules.join(", "));
+            }
+        }
+        for (k, advice) in self.advice.iter().enumerate() {
+            let label = if k == 0 { "  advice" } else { "" };
+            let _ = writeln!(out, "{label:<11}{}", advice.text);
+        }
+        out
+    }
+
+    /// The details printed after the gradients and flags.
+    pub fn details_text(&self) -> String {
+        let mut out = String::new();
+        out.push_str(&self.findings_text());
+        if self.origins.len() > 1 {
+            let _ = writeln!(out, "origins  {} in the order born", self.origins.len());
+            for origin in &self.origins {
+                let _ = writeln!(out, "  ({}) step {:<5} '{}' ({}): {}", origin.letter, origin.step, origin.node, origin.op, origin.explanation);
+                for reached in &origin.reached {
+                    let _ = writeln!(out, "      {}", chain_text(reached));
+                }
+            }
+        }
+        out.push_str(&self.paths_text());
+        out.push_str(&self.groups_text());
+        out.push_str(&self.replay_text());
+        if let Some(scale) = &self.loss_scale {
+            let _ = writeln!(
+                out,
+                "loss scale (f16)  S = 2^{} = {}; max |adjoint| {}; {:.1}% of {} non-zero entries round to zero unscaled, {:.1}% at S",
+                scale.exponent,
+                compact(scale.scale),
+                compact(scale.max_abs),
+                100.0 * scale.underflow_unscaled,
+                scale.nonzero,
+                100.0 * scale.underflow_scaled
+            );
+        }
+        let clip = &self.clipping;
+        let effect = if !clip.norm.0.is_finite() {
+            "cannot help: the global norm is not finite".to_string()
+        } else if clip.clips {
+            format!("scales every gradient by {}", compact(clip.factor.0))
+        } else {
+            "leaves the gradient unchanged".to_string()
+        };
+        let _ = writeln!(out, "clipping  global norm {}; clipping at {} {effect}", compact(clip.norm.0), compact(clip.threshold.0));
+        out
+    }
+
+    fn findings_text(&self) -> String {
+        if self.findings.is_empty() {
+            return "findings none\n".to_string();
+        }
+        const SHOWN: usize = 40;
+        let mut out = format!("findings {} in sweep order\n", self.findings.len());
+        for finding in self.findings.iter().take(SHOWN) {
+            let place = match (&finding.to, finding.slot) {
+                (Some(to), Some(slot)) => format!("{} to '{to}' (input {slot})", finding.site),
+                (None, Some(slot)) => format!("{} on input {slot}", finding.site),
+                _ => finding.site.to_string(),
+            };
+            let class = finding.class.map_or(String::new(), |letter| format!("  origin ({letter})"));
+            let many = if finding.count > 1 { format!(" ({} elements)", finding.count) } else { String::new() };
+            let _ = writeln!(
+                out,
+                "  step {:<5} {:<12} {:<13} {place}: {} {} (threshold {}){many}{class}",
+                finding.step,
+                format!("'{}'", finding.node),
+                finding.rule_name(),
+                measure_name(finding.measure),
+                compact(finding.value.0),
+                compact(finding.threshold.0)
+            );
+        }
+        if self.findings.len() > SHOWN {
+            let _ = writeln!(out, "  … {} more (all of them in --json)", self.findings.len() - SHOWN);
+        }
+        out
+    }
+
+    fn paths_text(&self) -> String {
+        if self.dominant_paths.is_empty() {
+            return String::new();
+        }
+        let mut out = String::from("dominant paths  (product of per-hop gains, output first)\n");
+        for path in &self.dominant_paths {
+            let _ = write!(out, "  {:<12} gain 1e{:<7} ", path.param, format!("{:.2}", path.log10_gain.0));
+            let mut hops: Vec<String> = path.hops.first().map(|hop| vec![hop.from.clone()]).unwrap_or_default();
+            for (k, hop) in path.hops.iter().enumerate() {
+                if path.omitted > 0 && k == CHAIN_LIMIT / 2 {
+                    hops.push(format!("… {} hops …", path.omitted));
+                }
+                hops.push(format!("{} ×{}", hop.to, compact(hop.gain.0)));
+            }
+            let _ = writeln!(out, "{}", hops.join(" → "));
+        }
+        out
+    }
+
+    fn groups_text(&self) -> String {
+        if self.groups.len() < 2 {
+            return String::new();
+        }
+        let mut out = String::from("groups  by depth from the output\n");
+        let _ = writeln!(out, "  {:<24} {:>5} {:>6} {:>13} {:>13} {:>11}", "group", "depth", "nodes", "adjoint norm", "param norm", "ratio");
+        for group in &self.groups {
+            let name = if group.group.is_empty() { "(no group)" } else { group.group.as_str() };
+            let _ = writeln!(
+                out,
+                "  {:<24} {:>5} {:>6} {:>13} {:>13} {:>11}",
+                name,
+                group.depth,
+                group.nodes,
+                compact(group.adjoint_norm.0),
+                group.param_norm.map_or("—".to_string(), |norm| compact(norm.0)),
+                group.ratio.map_or("—".to_string(), |ratio| compact(ratio.0))
+            );
+        }
+        out
+    }
+
+    fn replay_text(&self) -> String {
+        if self.replay.is_empty() {
+            return String::new();
+        }
+        let mut out = String::from("precision replay  (the same step swept in each dtype, against f64)\n");
+        let first = |finding: &Option<FindingEntry>| finding.as_ref().map_or("—".to_string(), |f| format!("'{}' step {}", f.node, f.step));
+        let _ = writeln!(out, "  {:<6} {:<26} {:<26} {:<26} {}", "dtype", "first overflow", "first underflow", "first lost contribution", "gradient norms");
+        for run in &self.replay {
+            let lost = run.first_lost.as_ref().map_or("—".to_string(), |lost| format!("'{}' step {} ({} in all)", lost.node, lost.step, run.lost_total));
+            let gradients: Vec<String> = run.gradients.iter().take(4).map(|g| format!("{} {}", g.param, compact(g.norm.0))).collect();
+            let more = if run.gradients.len() > 4 { ", …" } else { "" };
+            let _ = writeln!(
+                out,
+                "  {:<6} {:<26} {:<26} {:<26} {}{more}",
+                run.dtype.name(),
+                first(&run.first_overflow),
+                first(&run.first_underflow),
+                lost,
+                gradients.join(", ")
+            );
+        }
+        out
+    }
+}
+
+impl FindingEntry {
+    fn rule_name(&self) -> &'static str {
+        self.rule.name()
+    }
+}
+
+fn measure_name(measure: Measure) -> &'static str {
+    match measure {
+        Measure::Element => "element",
+        Measure::Subnormal => "subnormal",
+        Measure::FlushedToZero => "flushed to zero, was",
+        Measure::Norm => "norm",
+        Measure::NormToSeed => "norm/seed",
+        Measure::NormToMedian => "norm/median",
+        Measure::Gain => "gain",
+    }
+}
+
+fn chain_text(reached: &ChainEntry) -> String {
+    let mut parts: Vec<String> = reached.chain.iter().map(|id| format!("'{id}'")).collect();
+    if reached.omitted > 0 {
+        parts.insert(CHAIN_LIMIT / 2, format!("… {} nodes …", reached.omitted));
+    }
+    format!("{}  ({} hops to '{}')", parts.join(" → "), reached.length.saturating_sub(1), reached.param)
+}
