@@ -319,7 +319,9 @@ fn class_e_infinities_cancelling_in_a_broadcast_sum() {
 #[test]
 fn dominant_path_takes_the_larger_gain_and_gain_rule_fires() {
     let mut tape = Tape::new("diamond", Dtype::F64);
-    let x = tape.param("x", 1.0);
+    let w = tape.param("w", 1.0);
+    let x = tape.neg(w);
+    let x = tape.rename(x, "x");
     let three = tape.input("three", 3.0);
     let big = tape.input("big", 1000.0);
     let a = tape.mul(three, x);
@@ -329,10 +331,10 @@ fn dominant_path_takes_the_larger_gain_and_gain_rule_fires() {
     let loss = tape.add(a, b);
     let trace = build(tape, loss);
     let diagnosis = diagnose(&trace, &Settings::default());
-    let x = trace.find("x").unwrap();
-    let path = diagnosis.path_to(x).unwrap();
+    let w = trace.find("w").unwrap();
+    let path = diagnosis.path_to(w).unwrap();
     let ids: Vec<&str> = path.hops.iter().map(|hop| trace.node(hop.to).id.as_str()).collect();
-    assert_eq!(ids, ["b", "x"]);
+    assert_eq!(ids, ["b", "x", "w"]);
     assert_eq!(path.hops[1].gain, 1000.0);
     assert!((path.log10_gain - 3.0).abs() < 1e-12);
     let b = trace.find("b").unwrap();

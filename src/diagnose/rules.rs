@@ -28,7 +28,7 @@ pub enum Rule {
     Vanishing,
     /// A parameter gradient norm above a threshold.
     Exploding,
-    /// A node whose outgoing contributions are far larger or smaller than its adjoint.
+    /// A node whose contributions to non-leaf inputs are far larger or smaller than its adjoint.
     Gain,
 }
 
@@ -246,7 +246,10 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
             if before_finite && let Some(hit) = first_where(entry.after.data(), |_, x| !x.is_finite()) {
                 collector.push(Rule::NonFinite, entry.input, step, Site::Adjoint, Measure::Element, hit, max);
             }
-            outgoing.push(entry.value.l2_norm());
+            // Contributions to leaves end there; the gain measures what the node passes on.
+            if !trace.node(entry.input).op.is_leaf() {
+                outgoing.push(entry.value.l2_norm());
+            }
         }
         // Final adjoint of this node (it is final once the node is processed).
         if let Some(adjoint) = sweep.adjoint(node) {

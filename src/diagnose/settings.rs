@@ -106,9 +106,9 @@ settings! {
     vanishing_vs_median: f64 = 1e-3,
     /// Exploding when the gradient norm divided by the median parameter gradient norm is above this.
     exploding_vs_median: f64 = 1e3,
-    /// Flag a node whose outgoing contributions' norm over its adjoint's norm is above this.
+    /// Flag a node whose contributions to non-leaf inputs, in norm, over its adjoint's norm are above this.
     gain_above: f64 = 100.0,
-    /// Flag a node whose outgoing contributions' norm over its adjoint's norm is below this.
+    /// Flag a node whose contributions to non-leaf inputs, in norm, over its adjoint's norm are below this.
     gain_below: f64 = 0.01,
     /// `keep` subnormal results (IEEE 754 gradual underflow) or `flush` them to zero, as some hardware does.
     subnormals: Subnormals = Subnormals::Keep,

@@ -535,14 +535,7 @@ impl DiagnosisReport {
         let mut out = String::from("dominant paths  (product of per-hop gains, output first)\n");
         for path in &self.dominant_paths {
             let _ = write!(out, "  {:<12} gain 1e{:<7} ", path.param, format!("{:.2}", path.log10_gain.0));
-            let mut hops: Vec<String> = path.hops.first().map(|hop| vec![hop.from.clone()]).unwrap_or_default();
-            for (k, hop) in path.hops.iter().enumerate() {
-                if path.omitted > 0 && k == CHAIN_LIMIT / 2 {
-                    hops.push(format!("… {} hops …", path.omitted));
-                }
-                hops.push(format!("{} ×{}", hop.to, compact(hop.gain.0)));
-            }
-            let _ = writeln!(out, "{}", hops.join(" → "));
+            let _ = writeln!(out, "{}", hops_text(path));
         }
         out
     }
@@ -610,6 +603,29 @@ fn measure_name(measure: Measure) -> &'static str {
         Measure::NormToMedian => "norm/median",
         Measure::Gain => "gain",
     }
+}
+
+/// A path as `out → a ×g → b ×g …`, with runs of three or more hops of
+/// the same gain folded into one.
+fn hops_text(path: &PathEntry) -> String {
+    let mut parts: Vec<String> = path.hops.first().map(|hop| vec![hop.from.clone()]).unwrap_or_default();
+    let mut k = 0;
+    while k < path.hops.len() {
+        if path.omitted > 0 && k == CHAIN_LIMIT / 2 {
+            parts.push(format!("… {} hops …", path.omitted));
+        }
+        let gain = compact(path.hops[k].gain.0);
+        // A run may not span the gap where hops were left out.
+        let limit = if path.omitted > 0 && k < CHAIN_LIMIT / 2 { CHAIN_LIMIT / 2 - k } else { usize::MAX };
+        let run = path.hops[k..].iter().take_while(|hop| compact(hop.gain.0) == gain).count().min(limit).max(1);
+        if run >= 3 {
+            parts.push(format!("{} … {} ({run} hops ×{gain} each)", path.hops[k].to, path.hops[k + run - 1].to));
+        } else {
+            parts.extend(path.hops[k..k + run].iter().map(|hop| format!("{} ×{}", hop.to, compact(hop.gain.0))));
+        }
+        k += run;
+    }
+    parts.join(" → ")
 }
 
 fn chain_text(reached: &ChainEntry) -> String {
