@@ -188,7 +188,9 @@ fn class_a_log_of_zero() {
     assert_eq!((node.as_str(), class), ("log_p", OriginClass::NonFiniteValue));
     assert_eq!(chain, ["log_p", "product", "w"]);
     assert!(diagnosis.first_origin().unwrap().explanation.contains("log of 0"), "{}", diagnosis.first_origin().unwrap().explanation);
-    assert!(diagnosis.findings.iter().any(|f| f.rule == Rule::NonFinite && f.site == Site::Value && f.node == trace.find("log_p").unwrap()));
+    assert!(
+        diagnosis.findings.iter().any(|f| f.rule == Rule::NonFinite && f.site == Site::Value && f.node == trace.find("log_p").unwrap())
+    );
 }
 
 // (a) exp(800) overflows f64, whose largest finite value is about 1.798e308

@@ -27,9 +27,12 @@ struct Patterns {
     decode: fn(u32) -> f64,
 }
 
-const F16: Patterns = Patterns { dtype: Dtype::F16, max_finite: 0x7bff, min_normal: 0x0400, decode: |p| half::f16::from_bits(p as u16).to_f64() };
-const BF16: Patterns = Patterns { dtype: Dtype::Bf16, max_finite: 0x7f7f, min_normal: 0x0080, decode: |p| half::bf16::from_bits(p as u16).to_f64() };
-const F32: Patterns = Patterns { dtype: Dtype::F32, max_finite: 0x7f7f_ffff, min_normal: 0x0080_0000, decode: |p| f32::from_bits(p) as f64 };
+const F16: Patterns =
+    Patterns { dtype: Dtype::F16, max_finite: 0x7bff, min_normal: 0x0400, decode: |p| half::f16::from_bits(p as u16).to_f64() };
+const BF16: Patterns =
+    Patterns { dtype: Dtype::Bf16, max_finite: 0x7f7f, min_normal: 0x0080, decode: |p| half::bf16::from_bits(p as u16).to_f64() };
+const F32: Patterns =
+    Patterns { dtype: Dtype::F32, max_finite: 0x7f7f_ffff, min_normal: 0x0080_0000, decode: |p| f32::from_bits(p) as f64 };
 
 impl Patterns {
     /// The value one ulp above the largest finite one, where rounding past
@@ -98,11 +101,7 @@ fn check(format: &Patterns, x: f64) -> Result<(), TestCaseError> {
     let got = format.dtype.round(x);
     prop_assert!(got.to_bits() == expected.to_bits(), "{}: round({x:e}) = {got:e}, reference {expected:e}", format.dtype);
     let flushed = format.dtype.round_with(x, Subnormals::Flush);
-    let expected_flushed = if expected != 0.0 && expected.abs() < format.value(format.min_normal) {
-        0.0f64.copysign(x)
-    } else {
-        expected
-    };
+    let expected_flushed = if expected != 0.0 && expected.abs() < format.value(format.min_normal) { 0.0f64.copysign(x) } else { expected };
     prop_assert!(flushed.to_bits() == expected_flushed.to_bits(), "{}: flushed round({x:e}) = {flushed:e}", format.dtype);
     Ok(())
 }

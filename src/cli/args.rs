@@ -35,7 +35,9 @@ pub enum Command {
     /// Load a trace, sweep it to the end, report gradients and flags.
     ///
     /// Exit status: 0 when nothing is flagged, 1 when something is, 2 on bad input.
-    #[command(after_help = "Examples:\n  ebb check traces/teaching.ron\n  ebb check run-1234.json --json | jq '.diagnosis.first_origin'\n  ebb check run.ron --rules rules.ron --set gain_above=50 --set 'replay=[f16, bf16]'")]
+    #[command(
+        after_help = "Examples:\n  ebb check traces/teaching.ron\n  ebb check run-1234.json --json | jq '.diagnosis.first_origin'\n  ebb check run.ron --rules rules.ron --set gain_above=50 --set 'replay=[f16, bf16]'"
+    )]
     Check {
         /// The trace file (.ron, .json or .tape).
         trace: PathBuf,

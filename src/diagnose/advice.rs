@@ -47,7 +47,8 @@ pub fn loss_scale(entries: &[f64], subnormals: Subnormals) -> Option<LossScale> 
         exponent += 1;
     }
     let scale = scale_of(exponent);
-    let underflowing = |s: f64| magnitudes.iter().filter(|&&x| Dtype::F16.round_with(s * x, subnormals) == 0.0).count() as f64 / magnitudes.len() as f64;
+    let underflowing =
+        |s: f64| magnitudes.iter().filter(|&&x| Dtype::F16.round_with(s * x, subnormals) == 0.0).count() as f64 / magnitudes.len() as f64;
     Some(LossScale {
         max_abs,
         exponent,

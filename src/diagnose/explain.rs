@@ -25,7 +25,10 @@ pub(super) fn origin(trace: &Trace, origin: &Origin) -> String {
             let partial = compact(*origin.operands.last().unwrap_or(&f64::NAN));
             let why = match node.op {
                 Op::Sqrt => "the derivative of sqrt, 1/(2√x), is infinite at 0".to_string(),
-                Op::Pow => format!("the derivative of x^{}, infinite at 0 for an exponent between 0 and 1", node.attrs.exponent.map_or("p".into(), compact)),
+                Op::Pow => format!(
+                    "the derivative of x^{}, infinite at 0 for an exponent between 0 and 1",
+                    node.attrs.exponent.map_or("p".into(), compact)
+                ),
                 Op::Log => "the derivative of log, 1/x, is infinite at 0".to_string(),
                 Op::Div => "the derivative of a division by 0".to_string(),
                 _ if node.partials.iter().any(Option::is_some) => "a recorded partial".to_string(),
@@ -39,7 +42,9 @@ pub(super) fn origin(trace: &Trace, origin: &Origin) -> String {
                 compact(*g),
                 compact(*p)
             ),
-            _ => format!("pulling back through '{id}' ({op}) multiplied finite numbers whose product overflowed {dtype}'s largest finite value {max}"),
+            _ => format!(
+                "pulling back through '{id}' ({op}) multiplied finite numbers whose product overflowed {dtype}'s largest finite value {max}"
+            ),
         },
         OriginClass::SumOverflow => {
             let from = origin.edge.map_or("?".to_string(), |(consumer, _)| trace.node(consumer).id.clone());
@@ -57,7 +62,9 @@ pub(super) fn origin(trace: &Trace, origin: &Origin) -> String {
                     operand(1)
                 )
             } else {
-                format!("pulling back through '{id}' ({op}) to '{input}', terms that overflowed to +inf and −inf cancelled into NaN (inf − inf)")
+                format!(
+                    "pulling back through '{id}' ({op}) to '{input}', terms that overflowed to +inf and −inf cancelled into NaN (inf − inf)"
+                )
             }
         }
         OriginClass::NonFiniteSeed => seed(trace, origin.result),
@@ -76,7 +83,9 @@ fn forward(trace: &Trace, origin: &Origin) -> String {
     let x = inputs.first().copied().unwrap_or(f64::NAN);
     let y = inputs.get(1).copied().unwrap_or(f64::NAN);
     let what = match node.op {
-        Op::Input | Op::Param | Op::Const => return format!("the recorded value of '{id}' ({op}) already holds {result}: the data fed to the step is bad"),
+        Op::Input | Op::Param | Op::Const => {
+            return format!("the recorded value of '{id}' ({op}) already holds {result}: the data fed to the step is bad");
+        }
         Op::Log if x == 0.0 => "log of 0 is −inf".to_string(),
         Op::Log if x < 0.0 => format!("log of a negative number ({}) is NaN", compact(x)),
         Op::Sqrt if x < 0.0 => format!("sqrt of a negative number ({}) is NaN", compact(x)),
@@ -86,7 +95,11 @@ fn forward(trace: &Trace, origin: &Origin) -> String {
         Op::Exp => format!("exp({}) overflowed {dtype}'s largest finite value {max}", compact(x)),
         Op::Pow if x < 0.0 => format!("a negative number ({}) to a fractional power is NaN", compact(x)),
         Op::Pow if x == 0.0 => "0 to a negative power is inf".to_string(),
-        Op::Pow => format!("{} to the power {} overflowed {dtype}'s largest finite value {max}", compact(x), node.attrs.exponent.map_or("?".into(), compact)),
+        Op::Pow => format!(
+            "{} to the power {} overflowed {dtype}'s largest finite value {max}",
+            compact(x),
+            node.attrs.exponent.map_or("?".into(), compact)
+        ),
         Op::Mul | Op::Add | Op::Sub => {
             let sign = match node.op {
                 Op::Mul => "×",

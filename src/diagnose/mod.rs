@@ -195,8 +195,10 @@ pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
     let gains = edge_gains(&sweep);
     let paths = dominant_paths(&sweep, &gains);
     let groups = group_norms(&sweep);
-    let replays: Vec<ReplayRun> = settings.replay.iter().map(|&dtype| replay(trace, dtype, settings, reference, &reference_findings)).collect();
-    let entries: Vec<f64> = trace.sweep_order().iter().filter_map(|&node| reference.adjoint(node)).flat_map(|adjoint| adjoint.data().to_vec()).collect();
+    let replays: Vec<ReplayRun> =
+        settings.replay.iter().map(|&dtype| replay(trace, dtype, settings, reference, &reference_findings)).collect();
+    let entries: Vec<f64> =
+        trace.sweep_order().iter().filter_map(|&node| reference.adjoint(node)).flat_map(|adjoint| adjoint.data().to_vec()).collect();
     let loss_scale = loss_scale(&entries, settings.subnormals);
     let gradients: Vec<&[f64]> = trace.params().filter_map(|param| sweep.adjoint(param)).map(|adjoint| adjoint.data()).collect();
     let clipping = ClipPreview::new(&gradients, settings.clip_norm);
@@ -227,7 +229,9 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
     let clip = &diagnosis.clipping;
     if let Some(finding) = diagnosis.findings.iter().find(|finding| finding.rule == Rule::Exploding) {
         let hop = diagnosis.path_to(finding.node).and_then(DominantPath::strongest);
-        let along = hop.map_or(String::new(), |hop| format!("; the largest gain on its dominant path is {} at '{}' → '{}'", compact(hop.gain), id(hop.from), id(hop.to)));
+        let along = hop.map_or(String::new(), |hop| {
+            format!("; the largest gain on its dominant path is {} at '{}' → '{}'", compact(hop.gain), id(hop.from), id(hop.to))
+        });
         advice.push(Advice {
             topic: Topic::Exploding,
             node: Some(finding.node),
@@ -328,9 +332,15 @@ fn origin_advice(trace: &Trace, origin: &Origin) -> String {
     let x = origin.operands.first().copied().unwrap_or(f64::NAN);
     match origin.class {
         OriginClass::NonFiniteValue => match node.op {
-            Op::Input | Op::Param | Op::Const => format!("'{id}' holds a non-finite number as recorded: check the data or the parameter update that produced it."),
-            Op::Log => format!("Keep the argument of '{id}' away from 0 (log(max(x, ε))), or compute log-probabilities directly with log_softmax."),
-            Op::Sqrt => format!("The input of '{id}' went negative: clamp it at 0, or find why (a variance computed as E[x²] − E[x]² can dip below 0 by rounding)."),
+            Op::Input | Op::Param | Op::Const => {
+                format!("'{id}' holds a non-finite number as recorded: check the data or the parameter update that produced it.")
+            }
+            Op::Log => {
+                format!("Keep the argument of '{id}' away from 0 (log(max(x, ε))), or compute log-probabilities directly with log_softmax.")
+            }
+            Op::Sqrt => format!(
+                "The input of '{id}' went negative: clamp it at 0, or find why (a variance computed as E[x²] − E[x]² can dip below 0 by rounding)."
+            ),
             Op::Div if x == 0.0 => format!("Guard the division at '{id}': add ε to the denominator or mask the 0/0 case."),
             Op::Div => format!("Guard the division at '{id}': add ε to the denominator."),
             Op::Exp => format!("Shift the argument of '{id}' by its maximum before exp (the log-sum-exp shift), or clamp it."),
@@ -349,7 +359,9 @@ fn origin_advice(trace: &Trace, origin: &Origin) -> String {
         OriginClass::NanFromInfinity if origin.operands.first() == Some(&0.0) => format!(
             "Make the input of '{id}' safe before the op (e.g. replace it by 1 where the branch is masked out) instead of masking the output: a zero adjoint times an infinite partial is NaN."
         ),
-        OriginClass::NanFromInfinity => format!("Terms overflowed before they cancelled at '{id}': rescale its inputs or accumulate in a wider dtype."),
+        OriginClass::NanFromInfinity => {
+            format!("Terms overflowed before they cancelled at '{id}': rescale its inputs or accumulate in a wider dtype.")
+        }
         OriginClass::NonFiniteSeed => "Seed the output with a finite adjoint.".to_string(),
     }
 }

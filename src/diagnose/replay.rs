@@ -2,8 +2,8 @@
 //! compared, contribution by contribution, with a sweep in f64.
 
 use super::rules::{Finding, Measure, Rule, Site};
-use super::{SweepAnalysis, analyse};
 use super::settings::Settings;
+use super::{SweepAnalysis, analyse};
 use crate::dtype::{Dtype, Subnormals};
 use crate::sweep::{LedgerMode, Sweep};
 use crate::tensor::Value;

@@ -5,8 +5,8 @@
 //! the sweep's dtype, and every finding records the node, the step, the
 //! rule, the offending number and the threshold it crossed.
 
-use super::settings::Settings;
 use super::origin::OriginClass;
+use super::settings::Settings;
 use crate::dtype::Dtype;
 use crate::sweep::{FlagKind, Sweep};
 use crate::tensor::{Value, l2_norm};
@@ -193,7 +193,8 @@ impl Collector<'_> {
         if data.len() != reference.len() {
             return;
         }
-        if let Some((element, _, count)) = first_where(data, |index, x| x == 0.0 && reference[index] != 0.0 && reference[index].is_finite()) {
+        if let Some((element, _, count)) = first_where(data, |index, x| x == 0.0 && reference[index] != 0.0 && reference[index].is_finite())
+        {
             let hit = (element, reference[element], count);
             self.push(Rule::Underflow, node, step, site, Measure::FlushedToZero, hit, self.dtype.limits().min_subnormal());
         }
@@ -205,7 +206,8 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
     let sweep = input.sweep;
     let trace = sweep.trace();
     let ledger = sweep.ledger().expect("the rules read the ledger");
-    let reference_ledger = input.reference.and_then(|reference| reference.ledger()).filter(|other| other.entries().len() == ledger.entries().len());
+    let reference_ledger =
+        input.reference.and_then(|reference| reference.ledger()).filter(|other| other.entries().len() == ledger.entries().len());
     let mut collector = Collector { settings: input.settings, dtype: trace.dtype(), findings: Vec::new() };
     let max = trace.dtype().limits().max_finite();
     let partial_flags: Vec<_> = sweep.flags().iter().filter(|flag| flag.kind == FlagKind::NonFinitePartial).collect();
@@ -290,8 +292,11 @@ fn gain(collector: &mut Collector, node: usize, step: usize, adjoint_norm: f64, 
 /// to the seed and relative to the median parameter gradient norm.
 fn gradient_norms(collector: &mut Collector, sweep: &Sweep) {
     let trace = sweep.trace();
-    let norms: Vec<(usize, f64)> =
-        trace.params().filter_map(|param| sweep.adjoint(param).map(|adjoint| (param, adjoint.l2_norm()))).filter(|(_, norm)| norm.is_finite()).collect();
+    let norms: Vec<(usize, f64)> = trace
+        .params()
+        .filter_map(|param| sweep.adjoint(param).map(|adjoint| (param, adjoint.l2_norm())))
+        .filter(|(_, norm)| norm.is_finite())
+        .collect();
     let median = median(norms.iter().map(|&(_, norm)| norm).collect());
     let seed = trace.seed().l2_norm();
     let settings = collector.settings;

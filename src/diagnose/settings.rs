@@ -145,7 +145,10 @@ impl Settings {
     pub fn apply(&mut self, text: &str) -> Result<(), SettingsError> {
         let error = |message: String, hint: String| SettingsError::Set { text: text.to_string(), message, hint };
         let Some((name, value)) = text.split_once('=') else {
-            return Err(error("expected NAME=VALUE".into(), format!("for example --set gain_above=50; names: {}", Settings::NAMES.join(", "))));
+            return Err(error(
+                "expected NAME=VALUE".into(),
+                format!("for example --set gain_above=50; names: {}", Settings::NAMES.join(", ")),
+            ));
         };
         let name = name.trim();
         match self.set_field(name, value.trim()) {

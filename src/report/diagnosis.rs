@@ -360,7 +360,10 @@ impl DiagnosisReport {
                     log10_gain: Num(path.log10_gain),
                     length: path.hops.len(),
                     omitted,
-                    hops: hops.iter().map(|hop| HopEntry { from: id(hop.from), to: id(hop.to), slot: hop.slot, gain: Num(hop.gain) }).collect(),
+                    hops: hops
+                        .iter()
+                        .map(|hop| HopEntry { from: id(hop.from), to: id(hop.to), slot: hop.slot, gain: Num(hop.gain) })
+                        .collect(),
                 }
             })
             .collect();
@@ -446,7 +449,13 @@ impl DiagnosisReport {
                 let _ = writeln!(out, "diagnosis  clean: no rule fired in {dtype}");
             }
             None => {
-                let rules: Vec<&str> = self.findings.iter().map(|finding| finding.rule_name()).collect::<std::collections::BTreeSet<_>>().into_iter().collect();
+                let rules: Vec<&str> = self
+                    .findings
+                    .iter()
+                    .map(|finding| finding.rule_name())
+                    .collect::<std::collections::BTreeSet<_>>()
+                    .into_iter()
+                    .collect();
                 let _ = writeln!(out, "diagnosis  every adjoint is finite; {} findings ({})", self.findings.len(), rules.join(", "));
             }
         }
@@ -464,7 +473,11 @@ impl DiagnosisReport {
         if self.origins.len() > 1 {
             let _ = writeln!(out, "origins  {} in the order born", self.origins.len());
             for origin in &self.origins {
-                let _ = writeln!(out, "  ({}) step {:<5} '{}' ({}): {}", origin.letter, origin.step, origin.node, origin.op, origin.explanation);
+                let _ = writeln!(
+                    out,
+                    "  ({}) step {:<5} '{}' ({}): {}",
+                    origin.letter, origin.step, origin.node, origin.op, origin.explanation
+                );
                 for reached in &origin.reached {
                     let _ = writeln!(out, "      {}", chain_text(reached));
                 }
@@ -545,7 +558,8 @@ impl DiagnosisReport {
             return String::new();
         }
         let mut out = String::from("groups  by depth from the output\n");
-        let _ = writeln!(out, "  {:<24} {:>5} {:>6} {:>13} {:>13} {:>11}", "group", "depth", "nodes", "adjoint norm", "param norm", "ratio");
+        let _ =
+            writeln!(out, "  {:<24} {:>5} {:>6} {:>13} {:>13} {:>11}", "group", "depth", "nodes", "adjoint norm", "param norm", "ratio");
         for group in &self.groups {
             let name = if group.group.is_empty() { "(no group)" } else { group.group.as_str() };
             let _ = writeln!(
@@ -567,10 +581,18 @@ impl DiagnosisReport {
             return String::new();
         }
         let mut out = String::from("precision replay  (the same step swept in each dtype, against f64)\n");
-        let first = |finding: &Option<FindingEntry>| finding.as_ref().map_or("—".to_string(), |f| format!("'{}' step {}", f.node, f.step));
-        let _ = writeln!(out, "  {:<6} {:<26} {:<26} {:<26} {}", "dtype", "first overflow", "first underflow", "first lost contribution", "gradient norms");
+        let first =
+            |finding: &Option<FindingEntry>| finding.as_ref().map_or("—".to_string(), |f| format!("'{}' step {}", f.node, f.step));
+        let _ = writeln!(
+            out,
+            "  {:<6} {:<26} {:<26} {:<26} gradient norms",
+            "dtype", "first overflow", "first underflow", "first lost contribution"
+        );
         for run in &self.replay {
-            let lost = run.first_lost.as_ref().map_or("—".to_string(), |lost| format!("'{}' step {} ({} in all)", lost.node, lost.step, run.lost_total));
+            let lost = run
+                .first_lost
+                .as_ref()
+                .map_or("—".to_string(), |lost| format!("'{}' step {} ({} in all)", lost.node, lost.step, run.lost_total));
             let gradients: Vec<String> = run.gradients.iter().take(4).map(|g| format!("{} {}", g.param, compact(g.norm.0))).collect();
             let more = if run.gradients.len() > 4 { ", …" } else { "" };
             let _ = writeln!(

@@ -1,0 +1,137 @@
+//! `ebb check` with diagnosis, run as a real process: the short diagnosis
+//! comes first, `--json` carries it, `--rules` and `--set` change the
+//! thresholds, and bad settings exit 2 with one line naming the place.
+
+use ebb::dtype::Dtype;
+use ebb::record::Tape;
+use ebb::trace::{Encoding, to_text};
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+fn ebb(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_ebb")).args(args).output().expect("the binary runs")
+}
+
+/// log(w · x) at x = 0: the forward value of the log is −inf (IEEE 754-2019 §9.2.1).
+fn write_log_of_zero(dir: &Path) -> PathBuf {
+    let mut tape = Tape::new("log of zero", Dtype::F32);
+    let w = tape.param("w", 2.0);
+    let x = tape.input("x", 0.0);
+    let product = tape.mul(w, x);
+    let product = tape.rename(product, "product");
+    let log = tape.log(product);
+    let log = tape.rename(log, "log_p");
+    let path = dir.join("log.ron");
+    std::fs::write(&path, to_text(&tape.finish(log), Encoding::Ron)).unwrap();
+    path
+}
+
+/// y = 1000 · neg(w): the node y passes on a thousand times its adjoint.
+fn write_big_gain(dir: &Path) -> PathBuf {
+    let mut tape = Tape::new("big gain", Dtype::F64);
+    let w = tape.param("w", 1.0);
+    let x = tape.neg(w);
+    let big = tape.input("big", 1000.0);
+    let y = tape.mul(big, x);
+    let path = dir.join("gain.json");
+    std::fs::write(&path, to_text(&tape.finish(y), Encoding::Json)).unwrap();
+    path
+}
+
+fn stdout(output: &Output) -> String {
+    String::from_utf8(output.stdout.clone()).unwrap()
+}
+
+#[test]
+fn text_report_opens_with_origin_class_chain_and_advice() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = write_log_of_zero(dir.path());
+    let output = ebb(&["check", path.to_str().unwrap()]);
+    assert_eq!(output.status.code(), Some(1));
+    let text = stdout(&output);
+    let lines: Vec<&str> = text.lines().collect();
+    assert!(lines[0].starts_with("diagnosis  origin (a) non-finite forward value at 'log_p' (log)"), "{text}");
+    assert!(lines[1].contains("log of 0 is −inf"), "{text}");
+    assert!(lines[2].contains("'log_p' → 'product' → 'w'"), "{text}");
+    assert!(lines[3].starts_with("  advice   Keep the argument of 'log_p' away from 0"), "{text}");
+    assert!(text.contains("\ntrace    "), "the details follow");
+}
+
+#[test]
+fn json_carries_the_diagnosis_and_keeps_the_old_fields() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = write_log_of_zero(dir.path());
+    let output = ebb(&["check", path.to_str().unwrap(), "--json"]);
+    assert_eq!(output.status.code(), Some(1));
+    let json: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap();
+    for field in ["report", "trace", "counts", "gradients", "flags", "clean"] {
+        assert!(json.get(field).is_some(), "{field} is still there");
+    }
+    assert_eq!(json["report"], 1);
+    let origin = &json["diagnosis"]["first_origin"];
+    assert_eq!(origin["letter"], "a");
+    assert_eq!(origin["class"], "non_finite_value");
+    assert_eq!(origin["node"], "log_p");
+    assert_eq!(origin["reached"][0]["chain"], serde_json::json!(["log_p", "product", "w"]));
+    let w_flag = json["flags"].as_array().unwrap().iter().find(|flag| flag["node"] == "w").unwrap();
+    assert_eq!(w_flag["class"], "a");
+    assert_eq!(json["diagnosis"]["replay"].as_array().unwrap().len(), 4);
+    assert!(json["diagnosis"]["advice"][0]["text"].as_str().unwrap().contains("log_softmax"));
+    let finding = &json["diagnosis"]["findings"][0];
+    for field in ["rule", "node", "step", "site", "value", "threshold"] {
+        assert!(finding.get(field).is_some(), "a finding records {field}");
+    }
+}
+
+#[test]
+fn thresholds_come_from_the_rules_file_and_set_options() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = write_big_gain(dir.path());
+    let trace = path.to_str().unwrap();
+    let output = ebb(&["check", trace, "--json"]);
+    assert_eq!(output.status.code(), Some(1), "gain 1000 is above the default 100");
+    let json: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap();
+    assert_eq!(json["diagnosis"]["findings"][0]["rule"], "gain");
+
+    let rules = dir.path().join("rules.ron");
+    std::fs::write(&rules, "// a looser gain band\n(gain_above: 5000.0, replay: [])\n").unwrap();
+    let output = ebb(&["check", trace, "--rules", rules.to_str().unwrap(), "--json"]);
+    assert_eq!(output.status.code(), Some(0), "{}", String::from_utf8_lossy(&output.stderr));
+    let json: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap();
+    assert_eq!(json["diagnosis"]["settings"]["gain_above"], 5000.0);
+    assert_eq!(json["diagnosis"]["replay"].as_array().unwrap().len(), 0);
+
+    let output = ebb(&["check", trace, "--rules", rules.to_str().unwrap(), "--set", "gain_above=500"]);
+    assert_eq!(output.status.code(), Some(1), "--set is applied after the file");
+    let output = ebb(&["check", trace, "--set", "off=[gain]"]);
+    assert_eq!(output.status.code(), Some(0));
+}
+
+#[test]
+fn bad_settings_exit_two_with_the_place() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = write_big_gain(dir.path());
+    let trace = path.to_str().unwrap();
+    let rules = dir.path().join("rules.ron");
+    std::fs::write(&rules, "(\n  gain_above: 50.0,\n  gian_below: 0.1,\n)\n").unwrap();
+    let output = ebb(&["check", trace, "--rules", rules.to_str().unwrap()]);
+    assert_eq!(output.status.code(), Some(2));
+    assert!(output.stdout.is_empty(), "no half-written report");
+    let stderr = String::from_utf8(output.stderr).unwrap();
+    assert_eq!(stderr.lines().count(), 1, "{stderr}");
+    assert!(stderr.contains(&format!("{}:3:", rules.display())), "{stderr}");
+    assert!(stderr.contains("gian_below"), "{stderr}");
+
+    let output = ebb(&["check", trace, "--set", "gain_above=fast"]);
+    assert_eq!(output.status.code(), Some(2));
+    let output = ebb(&["check", trace, "--rules", dir.path().join("missing.ron").to_str().unwrap()]);
+    assert_eq!(output.status.code(), Some(2));
+    assert!(String::from_utf8(output.stderr).unwrap().contains("missing.ron"));
+}
+
+#[test]
+fn the_built_in_demo_is_clean() {
+    let output = ebb(&[]);
+    assert_eq!(output.status.code(), Some(0));
+    assert!(stdout(&output).starts_with("diagnosis  clean: no rule fired in f64"));
+}
