@@ -187,6 +187,8 @@ fn class_a_log_of_zero() {
     let (node, class, chain) = origin_of(&trace, &diagnosis, "w");
     assert_eq!((node.as_str(), class), ("log_p", OriginClass::NonFiniteValue));
     assert_eq!(chain, ["log_p", "product", "w"]);
+    let sentence = diagnosis.explain(&trace, trace.find("w").unwrap()).unwrap();
+    assert!(sentence.starts_with("Non-finite because of 'log_p' 2 hops up the sweep (a): the forward value"), "{sentence}");
     assert!(diagnosis.first_origin().unwrap().explanation.contains("log of 0"), "{}", diagnosis.first_origin().unwrap().explanation);
     assert!(
         diagnosis.findings.iter().any(|f| f.rule == Rule::NonFinite && f.site == Site::Value && f.node == trace.find("log_p").unwrap())
@@ -370,4 +372,28 @@ fn a_clean_trace_has_no_findings() {
     assert!(diagnosis.is_clean(), "{:?}", diagnosis.findings);
     assert!(diagnosis.origins.is_empty());
     assert_eq!(diagnosis.paths.len(), 2);
+}
+
+// Iterative algorithms only: a long chain must not exhaust the stack. The NaN
+// comes from sqrt(−1), NaN by IEEE 754-2019 §7.2 (invalid operation), and its
+// partial 1/(2·NaN) carries the NaN into every adjoint below.
+#[test]
+fn a_long_chain_is_diagnosed_without_recursion() {
+    const LENGTH: usize = 100_000;
+    let mut tape = Tape::new("long chain", Dtype::F64);
+    let w = tape.param("w", 1.0);
+    let mut x = tape.neg(w);
+    for _ in 0..LENGTH {
+        x = tape.neg(x);
+    }
+    let bad = tape.sqrt(x);
+    let trace = build(tape, bad);
+    let settings = Settings { replay: vec![Dtype::F32], ..Settings::default() };
+    let diagnosis = diagnose(&trace, &settings);
+    let w = trace.find("w").unwrap();
+    let origin = diagnosis.origin_of(w).unwrap();
+    assert_eq!(origin.class, OriginClass::NonFiniteValue);
+    assert_eq!(trace.node(origin.node).op, Op::Sqrt);
+    assert_eq!(diagnosis.chain_to(w).len(), LENGTH + 3, "sqrt, every neg, w");
+    assert!(diagnosis.path_to(w).is_none(), "no gain is known past a NaN adjoint");
 }

@@ -116,3 +116,49 @@ fn forward(trace: &Trace, origin: &Origin) -> String {
     };
     format!("the forward value of '{id}' ({op}) is {result}: {what}")
 }
+
+#[cfg(test)]
+mod tests {
+    use crate::diagnose::{OriginClass, Settings, diagnose};
+    use crate::dtype::Dtype;
+    use crate::record::Tape;
+    use crate::trace::Trace;
+
+    fn first_sentence(build: impl FnOnce(&mut Tape) -> crate::record::Var) -> (OriginClass, String) {
+        let mut tape = Tape::new("explain", Dtype::F64);
+        let output = build(&mut tape);
+        let trace = Trace::try_from(tape.finish(output)).unwrap();
+        let diagnosis = diagnose(&trace, &Settings { replay: Vec::new(), ..Settings::default() });
+        let origin = diagnosis.first_origin().expect("an origin");
+        (origin.class, origin.explanation.clone())
+    }
+
+    // 0/0 is NaN and x/0 is ±inf for x ≠ 0 (IEEE 754-2019 §7.2 and §7.3).
+    #[test]
+    fn divisions_by_zero_are_told_apart() {
+        let (class, text) = first_sentence(|tape| {
+            let w = tape.param("w", 0.0);
+            let zero = tape.input("zero", 0.0);
+            tape.div(w, zero)
+        });
+        assert_eq!(class, OriginClass::NonFiniteValue);
+        assert!(text.ends_with("0/0 is NaN"), "{text}");
+        let (_, text) = first_sentence(|tape| {
+            let w = tape.param("w", 3.0);
+            let zero = tape.input("zero", 0.0);
+            tape.div(w, zero)
+        });
+        assert!(text.ends_with("3 divided by 0 is inf"), "{text}");
+    }
+
+    #[test]
+    fn bad_data_is_named_as_such() {
+        let (class, text) = first_sentence(|tape| {
+            let w = tape.param("w", 2.0);
+            let x = tape.input("x", f64::NAN);
+            tape.mul(w, x)
+        });
+        assert_eq!(class, OriginClass::NonFiniteValue);
+        assert!(text.contains("the recorded value of 'x' (input) already holds NaN"), "{text}");
+    }
+}

@@ -4,6 +4,7 @@
 use crate::sweep::Sweep;
 use crate::tensor::{Value, l2_norm};
 use serde::Serialize;
+use std::collections::HashMap;
 
 /// The adjoints of one group.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -41,7 +42,8 @@ pub fn group_norms(sweep: &Sweep) -> Vec<GroupNorm> {
     let trace = sweep.trace();
     let depth = depths(sweep);
     let names = trace.groups();
-    let index_of = |group: &str| names.iter().position(|name| *name == group).expect("every node's group is listed");
+    let positions: HashMap<&str, usize> = names.iter().enumerate().map(|(position, name)| (*name, position)).collect();
+    let index_of = |group: &str| positions[group];
     let mut adjoint_norms: Vec<Vec<f64>> = vec![Vec::new(); names.len()];
     let mut param_norms: Vec<Vec<f64>> = vec![Vec::new(); names.len()];
     let mut group_depth = vec![usize::MAX; names.len()];

@@ -97,6 +97,8 @@ pub(super) enum Cause {
 pub(super) struct RootCauses {
     pub origins: Vec<Origin>,
     pub causes: Vec<Cause>,
+    /// The origin of each node's non-finite adjoint, so lookups need not walk the chain.
+    origin_index: Vec<Option<usize>>,
 }
 
 impl RootCauses {
@@ -134,14 +136,7 @@ impl RootCauses {
 
     /// The origin behind `node`'s non-finite adjoint.
     pub fn origin_of(&self, node: usize) -> Option<usize> {
-        let mut cursor = node;
-        loop {
-            match self.causes[cursor] {
-                Cause::Finite => return None,
-                Cause::From(consumer) => cursor = consumer,
-                Cause::Origin(index) => return Some(index),
-            }
-        }
+        self.origin_index[node]
     }
 }
 
@@ -288,7 +283,23 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
         origin.explanation = explain::origin(trace, &origin);
         causes[x] = Cause::Origin(add_origin(origin, &mut origins));
     }
-    let mut causes = RootCauses { origins, causes };
+    // A consumer's adjoint turns non-finite before it is pulled back, so one
+    // pass in ledger order sees every cause before the causes that point at it.
+    let mut origin_index = vec![None; causes.len()];
+    if let Cause::Origin(index) = causes[output] {
+        origin_index[output] = Some(index);
+    }
+    for entry in ledger.entries() {
+        let x = entry.input;
+        if origin_index[x].is_none() {
+            origin_index[x] = match causes[x] {
+                Cause::Finite => None,
+                Cause::Origin(index) => Some(index),
+                Cause::From(consumer) => origin_index[consumer],
+            };
+        }
+    }
+    let mut causes = RootCauses { origins, causes, origin_index };
     for param in trace.params() {
         if let Some(index) = causes.origin_of(param) {
             causes.origins[index].reached.push(param);

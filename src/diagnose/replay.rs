@@ -104,14 +104,22 @@ fn key(finding: &Finding) -> (Rule, usize, Site, Measure) {
 /// Sweeps `trace` re-typed into `dtype` and compares it with the f64
 /// `reference` sweep, whose own findings are `reference_findings`.
 pub fn replay(trace: &Trace, dtype: Dtype, settings: &Settings, reference: &Sweep, reference_findings: &[Finding]) -> ReplayRun {
-    let retyped = trace.retyped(dtype, settings.subnormals);
-    let mut sweep = Sweep::new(&retyped, LedgerMode::On);
-    sweep.run_to_end();
-    let SweepAnalysis { findings, causes } = analyse(&sweep, Some(reference), settings);
+    let retyped;
+    let mut own = None;
+    // The f64 replay with gradual underflow is the reference itself.
+    let sweep = if dtype == Dtype::F64 && settings.subnormals == Subnormals::Keep {
+        reference
+    } else {
+        retyped = trace.retyped(dtype, settings.subnormals);
+        let mut sweep = Sweep::new(&retyped, LedgerMode::On);
+        sweep.run_to_end();
+        own.insert(sweep)
+    };
+    let SweepAnalysis { findings, causes } = analyse(sweep, Some(reference), settings);
     let shared: HashSet<_> = reference_findings.iter().map(key).collect();
     let findings_total = findings.len();
     let findings: Vec<Finding> = findings.into_iter().filter(|finding| !shared.contains(&key(finding))).collect();
-    let (lost, lost_total) = lost_contributions(&sweep, settings.lost_fraction);
+    let (lost, lost_total) = lost_contributions(sweep, settings.lost_fraction);
     let gradients = trace
         .params()
         .filter_map(|param| {

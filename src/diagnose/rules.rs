@@ -120,6 +120,45 @@ pub struct Finding {
     pub class: Option<OriginClass>,
 }
 
+impl Finding {
+    /// One line for a flags pane: what was found where, against which
+    /// threshold, in `dtype` (the dtype of the sweep that raised it).
+    pub fn describe(&self, trace: &crate::trace::Trace, dtype: Dtype) -> String {
+        use crate::format::compact;
+        let node = trace.node(self.node);
+        let place = match self.site {
+            Site::Value => "the forward value".to_string(),
+            Site::Partial { slot } => format!("the partial on input {slot}"),
+            Site::Contribution { to, .. } => format!("the contribution to '{}'", trace.node(to).id),
+            Site::Adjoint if node.op == crate::ops::Op::Param => "the gradient".to_string(),
+            Site::Adjoint => "the adjoint".to_string(),
+            Site::Outgoing => "what it passes on".to_string(),
+        };
+        let (value, threshold) = (compact(self.value), compact(self.threshold));
+        let what = match (self.rule, self.measure) {
+            (Rule::NonFinite, _) => format!("{place} is {value}"),
+            (Rule::Overflow, _) if !self.value.is_finite() => format!("{place} overflowed {dtype}'s largest finite value {threshold}"),
+            (Rule::Overflow, _) => format!("{place} {value} is beyond {dtype}'s largest finite value {threshold}"),
+            (Rule::NearOverflow, _) => format!("{place} {value} is within the warning band, above {threshold}"),
+            (Rule::Underflow, Measure::FlushedToZero) => format!("{place} is 0 in {dtype} where f64 gives {value}"),
+            (Rule::Underflow, _) => format!("{place} {value} is subnormal in {dtype} (below {threshold})"),
+            (Rule::Vanishing | Rule::Exploding, measure) => {
+                let direction = if self.rule == Rule::Vanishing { "below" } else { "above" };
+                let of = match measure {
+                    Measure::NormToSeed => "norm over the seed's norm",
+                    Measure::NormToMedian => "norm over the median parameter gradient norm",
+                    _ => "norm",
+                };
+                format!("{place}'s {of} {value} is {direction} {threshold}")
+            }
+            (Rule::Gain, _) => format!("passes on {value} times its adjoint's norm (threshold {threshold})"),
+        };
+        let many = if self.count > 1 { format!(" ({} elements, first at {})", self.count, self.element) } else { String::new() };
+        let class = self.class.map_or(String::new(), |class| format!("; origin ({}) {}", class.letter(), class.title()));
+        format!("{}: {what}{many}{class}", self.rule.name())
+    }
+}
+
 /// What the rules read: the sweep and the f64 reference it is compared with.
 pub(super) struct RuleInput<'a, 's> {
     pub sweep: &'a Sweep<'s>,
@@ -210,7 +249,8 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
         input.reference.and_then(|reference| reference.ledger()).filter(|other| other.entries().len() == ledger.entries().len());
     let mut collector = Collector { settings: input.settings, dtype: trace.dtype(), findings: Vec::new() };
     let max = trace.dtype().limits().max_finite();
-    let partial_flags: Vec<_> = sweep.flags().iter().filter(|flag| flag.kind == FlagKind::NonFinitePartial).collect();
+    // The sweep raises flags in step order, so one cursor walks them alongside the steps.
+    let mut partial_flags = sweep.flags().iter().filter(|flag| flag.kind == FlagKind::NonFinitePartial).peekable();
     let adjoint_norms: Vec<f64> = (0..trace.nodes().len()).map(|node| sweep.adjoint(node).map_or(0.0, Value::l2_norm)).collect();
     let mut entries = ledger.entries().iter().enumerate().peekable();
     for (step, &node) in trace.sweep_order().iter().enumerate() {
@@ -221,7 +261,7 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
             collector.flushed(node, step, Site::Value, recorded.value.data(), reference_value);
             collector.overflowed(node, step, Site::Value, recorded.value.data(), reference_value);
         }
-        for flag in partial_flags.iter().filter(|flag| flag.step == step) {
+        while let Some(flag) = partial_flags.next_if(|flag| flag.step == step) {
             let hit = (flag.element, flag.value, flag.count);
             collector.push(Rule::NonFinite, node, step, Site::Partial { slot: flag.slot.unwrap_or(0) }, Measure::Element, hit, max);
         }
@@ -341,6 +381,24 @@ mod tests {
         assert_eq!(median(vec![3.0, 1.0, 2.0]), 2.0);
         assert_eq!(median(vec![4.0, 1.0, 3.0, 2.0]), 2.5);
         assert_eq!(median(Vec::new()), 0.0);
+    }
+
+    // f16's largest finite value is 65504 (IEEE 754-2019 table 3.5).
+    #[test]
+    fn findings_describe_themselves_in_one_line() {
+        use crate::record::Tape;
+        let mut tape = Tape::new("describe", Dtype::F16);
+        let w = tape.param("w", 60000.0);
+        let two = tape.input("two", 2.0);
+        let y = tape.mul(w, two);
+        let trace = crate::trace::Trace::try_from(tape.finish(y)).unwrap();
+        let diagnosis = crate::diagnose::diagnose(&trace, &Settings { replay: Vec::new(), ..Settings::default() });
+        let lines: Vec<String> = diagnosis.findings.iter().map(|finding| finding.describe(&trace, Dtype::F16)).collect();
+        assert!(lines.iter().any(|line| line == "non_finite: the forward value is inf"), "{lines:?}");
+        assert!(
+            lines.iter().any(|line| line.starts_with("near_overflow: the forward value 60000 is within the warning band")),
+            "{lines:?}"
+        );
     }
 
     #[test]
