@@ -397,3 +397,31 @@ fn a_long_chain_is_diagnosed_without_recursion() {
     assert_eq!(diagnosis.chain_to(w).len(), LENGTH + 3, "sqrt, every neg, w");
     assert!(diagnosis.path_to(w).is_none(), "no gain is known past a NaN adjoint");
 }
+
+// inf − inf is NaN (IEEE 754-2019 §7.2): two products that overflow f64 with
+// opposite signs, 1e300·1e300 and 1e300·(−1e300), meet at the branch point x.
+#[test]
+fn opposite_infinities_turn_into_nan_at_a_branch() {
+    let mut tape = Tape::new("nan at a branch", Dtype::F64);
+    let w = tape.param("w", 1e-300);
+    let one = tape.input("one", 1.0);
+    let big = tape.constant("big", 1e300);
+    let minus_big = tape.constant("minus_big", -1e300);
+    let x = tape.mul(w, one);
+    let x = tape.rename(x, "x");
+    let a = tape.mul(x, big);
+    let b = tape.mul(x, minus_big);
+    let a_scaled = tape.mul(a, big);
+    let b_scaled = tape.mul(b, big);
+    let loss = tape.add(a_scaled, b_scaled);
+    let trace = build(tape, loss);
+    let diagnosis = diagnose(&trace, &Settings::default());
+    let (_, class, chain) = origin_of(&trace, &diagnosis, "w");
+    assert_eq!(class, OriginClass::ProductOverflow, "the first infinity is a product that overflowed");
+    assert_eq!(chain.last().map(String::as_str), Some("w"));
+    let x = trace.find("x").unwrap();
+    let birth = diagnosis.nan_births().iter().find(|birth| birth.node == x).expect("x turns NaN");
+    assert!(birth.at_branch);
+    let sentence = diagnosis.explain(&trace, trace.find("w").unwrap()).unwrap();
+    assert!(sentence.contains("turned into NaN at 'x' (inf − inf at a branch"), "{sentence}");
+}

@@ -33,7 +33,7 @@ pub mod settings;
 
 pub use advice::{Advice, ClipPreview, LossScale, Topic, loss_scale};
 pub use groups::{GroupNorm, group_norms};
-pub use origin::{Origin, OriginClass};
+pub use origin::{NanBirth, Origin, OriginClass};
 pub use paths::{DominantPath, Hop, dominant_paths, edge_gains};
 pub use replay::{LostContribution, ReplayGradient, ReplayRun, replay};
 pub use rules::{Finding, Measure, Rule, Site};
@@ -134,6 +134,11 @@ impl Diagnosis {
         self.causes.chain(node)
     }
 
+    /// Where infinite adjoints turned into NaN downstream of their origins, in sweep order.
+    pub fn nan_births(&self) -> &[NanBirth] {
+        &self.causes.nan_births
+    }
+
     /// The findings at `node`.
     pub fn findings_at(&self, node: usize) -> impl Iterator<Item = &Finding> + '_ {
         self.findings.iter().filter(move |finding| finding.node == node)
@@ -152,12 +157,17 @@ impl Diagnosis {
     /// One sentence on why `node`'s adjoint is non-finite, for a node detail pane.
     pub fn explain(&self, trace: &Trace, node: usize) -> Option<String> {
         let origin = self.origin_of(node)?;
-        let hops = self.chain_to(node).len().saturating_sub(1);
+        let chain = self.chain_to(node);
+        let hops = chain.len().saturating_sub(1);
+        let turned = self.causes.nan_births.iter().find(|birth| chain.contains(&birth.node)).map_or(String::new(), |birth| {
+            let how = if birth.at_branch { "inf − inf at a branch" } else { "0 × inf or inf − inf in a pull-back" };
+            format!(" It turned into NaN at '{}' ({how}, from '{}').", trace.node(birth.node).id, trace.node(birth.from).id)
+        });
         if origin.node == node || hops == 0 {
-            return Some(format!("Origin ({}): {}.", origin.class.letter(), origin.explanation));
+            return Some(format!("Origin ({}): {}.{turned}", origin.class.letter(), origin.explanation));
         }
         Some(format!(
-            "Non-finite because of '{}' {hops} hops up the sweep ({}): {}.",
+            "Non-finite because of '{}' {hops} hops up the sweep ({}): {}.{turned}",
             trace.node(origin.node).id,
             origin.class.letter(),
             origin.explanation
@@ -271,18 +281,23 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
     if let (Some(scale), Some(run)) = (&diagnosis.loss_scale, half)
         && (run.first_underflow().is_some() || diagnosis.dtype == Dtype::F16)
     {
-        advice.push(Advice {
-            topic: Topic::LossScale,
-            node: run.first_underflow().map(|finding| finding.node),
-            text: format!(
-                "In f16, {:.1}% of the non-zero adjoint entries round to zero. Scale the loss by S = 2^{} = {} (the largest power of two keeping max |adjoint| {} · S below 65504) and divide the gradients by S before the update: then {:.1}% round to zero.",
-                100.0 * scale.underflow_unscaled,
+        let head = format!("In f16, {:.1}% of the non-zero adjoint entries round to zero.", 100.0 * scale.underflow_unscaled);
+        let text = if scale.underflow_scaled < scale.underflow_unscaled {
+            format!(
+                "{head} Scale the loss by S = 2^{} = {} (the largest power of two keeping max |adjoint| {} · S below 65504) and divide the gradients by S before the update: then {:.1}% round to zero.",
                 scale.exponent,
                 compact(scale.scale),
                 compact(scale.max_abs),
                 100.0 * scale.underflow_scaled
-            ),
-        });
+            )
+        } else {
+            format!(
+                "{head} Loss scaling cannot rescue them: the largest adjoint {} leaves room for S = 2^{} only, and these entries are smaller than 2^-24 by more than that. Keep those adjoints in f32 or bf16.",
+                compact(scale.max_abs),
+                scale.exponent
+            )
+        };
+        advice.push(Advice { topic: Topic::LossScale, node: run.first_underflow().map(|finding| finding.node), text });
     }
     for run in &diagnosis.replays {
         if run.dtype.limits().precision >= diagnosis.dtype.limits().precision && run.dtype != Dtype::F16 {

@@ -81,6 +81,25 @@ pub struct Origin {
     pub reached: Vec<usize>,
 }
 
+/// Where an infinite adjoint turned into NaN downstream of its origin.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+pub struct NanBirth {
+    /// The node whose adjoint became NaN.
+    pub node: usize,
+    /// The sweep step (0-based).
+    pub step: usize,
+    /// The node whose contribution did it.
+    pub from: usize,
+    /// True for inf − inf where the contribution met the adjoint at a branch;
+    /// false when the contribution itself came out NaN (0 × inf or inf − inf
+    /// while pulling an infinite adjoint back through `from`).
+    pub at_branch: bool,
+}
+
+fn has_nan(value: &Value) -> bool {
+    value.data().iter().any(|x| x.is_nan())
+}
+
 /// Why a node's adjoint is non-finite.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub(super) enum Cause {
@@ -99,6 +118,8 @@ pub(super) struct RootCauses {
     pub causes: Vec<Cause>,
     /// The origin of each node's non-finite adjoint, so lookups need not walk the chain.
     origin_index: Vec<Option<usize>>,
+    /// Where infinities turned into NaN, in sweep order.
+    pub nan_births: Vec<NanBirth>,
 }
 
 impl RootCauses {
@@ -289,8 +310,17 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
     if let Cause::Origin(index) = causes[output] {
         origin_index[output] = Some(index);
     }
+    let mut nan_births = Vec::new();
     for entry in ledger.entries() {
         let x = entry.input;
+        let adjoint = sweep.adjoint(entry.consumer).expect("a processed node holds its adjoint");
+        let born_here = entry.before.as_ref().is_none_or(Value::is_finite) && adjoint.is_finite();
+        if has_nan(&entry.after) && !entry.before.as_ref().is_some_and(has_nan) && !born_here {
+            let at_branch = !has_nan(&entry.value);
+            if at_branch || !has_nan(adjoint) {
+                nan_births.push(NanBirth { node: x, step: entry.step, from: entry.consumer, at_branch });
+            }
+        }
         if origin_index[x].is_none() {
             origin_index[x] = match causes[x] {
                 Cause::Finite => None,
@@ -299,7 +329,7 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
             };
         }
     }
-    let mut causes = RootCauses { origins, causes, origin_index };
+    let mut causes = RootCauses { origins, causes, origin_index, nan_births };
     for param in trace.params() {
         if let Some(index) = causes.origin_of(param) {
             causes.origins[index].reached.push(param);

@@ -6,7 +6,7 @@
 //! `settings`, `first_origin`, `origins` [{`class`, `letter`, `title`,
 //! `node`, `op`, `step`, `first_adjoint`, `from`, `slot`, `operands`,
 //! `result`, `explanation`, `reached` [{`param`, `chain`, `length`,
-//! `omitted`}]}], `findings` [{`rule`, `node`, `op`, `step`, `site`, `slot`,
+//! `omitted`}]}], `nan_births` [{`node`, `step`, `from`, `at_branch`}], `findings` [{`rule`, `node`, `op`, `step`, `site`, `slot`,
 //! `to`, `measure`, `value`, `threshold`, `element`, `count`, `class`}],
 //! `dominant_paths` [{`param`, `log10_gain`, `length`, `omitted`, `hops`
 //! [{`from`, `to`, `slot`, `gain`}]}], `groups` [{`group`, `depth`, `nodes`,
@@ -38,6 +38,8 @@ pub struct DiagnosisReport {
     pub first_origin: Option<OriginEntry>,
     /// Every origin, in the order born.
     pub origins: Vec<OriginEntry>,
+    /// Where infinite adjoints turned into NaN downstream of their origins.
+    pub nan_births: Vec<NanBirthEntry>,
     /// Every rule's findings, in sweep order.
     pub findings: Vec<FindingEntry>,
     /// Each parameter's dominant path.
@@ -96,6 +98,19 @@ pub struct OriginEntry {
     pub explanation: String,
     /// Each parameter reached, with its chain.
     pub reached: Vec<ChainEntry>,
+}
+
+/// Where an infinite adjoint turned into NaN.
+#[derive(Debug, Clone, Serialize)]
+pub struct NanBirthEntry {
+    /// The node whose adjoint became NaN.
+    pub node: String,
+    /// 1-based step.
+    pub step: usize,
+    /// The node whose contribution did it.
+    pub from: String,
+    /// True for inf − inf at a branch; false for NaN out of a pull-back.
+    pub at_branch: bool,
 }
 
 /// One finding.
@@ -411,6 +426,11 @@ impl DiagnosisReport {
             settings: diagnosis.settings.clone(),
             first_origin,
             origins,
+            nan_births: diagnosis
+                .nan_births()
+                .iter()
+                .map(|birth| NanBirthEntry { node: id(birth.node), step: birth.step + 1, from: id(birth.from), at_branch: birth.at_branch })
+                .collect(),
             findings: diagnosis.findings.iter().map(|finding| finding_entry(trace, finding)).collect(),
             dominant_paths,
             groups,
@@ -434,6 +454,14 @@ impl DiagnosisReport {
                 let _ = writeln!(out, "           {}", origin.explanation);
                 for reached in origin.reached.iter().take(3) {
                     let _ = writeln!(out, "  chain    {}", chain_text(reached));
+                    if let Some(birth) = self.nan_births.iter().find(|birth| reached.chain.contains(&birth.node)) {
+                        let how = if birth.at_branch { "inf − inf at a branch" } else { "0 × inf or inf − inf pulling back" };
+                        let _ = writeln!(
+                            out,
+                            "           turned into NaN at '{}' (step {}: {how} from '{}')",
+                            birth.node, birth.step, birth.from
+                        );
+                    }
                 }
                 if origin.reached.len() > 3 {
                     let _ = writeln!(out, "           … and {} more parameters", origin.reached.len() - 3);
