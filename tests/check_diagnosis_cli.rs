@@ -53,7 +53,8 @@ fn text_report_opens_with_origin_class_chain_and_advice() {
     assert!(lines[0].starts_with("diagnosis  origin (a) non-finite forward value at 'log_p' (log)"), "{text}");
     assert!(lines[1].contains("log of 0 is −inf"), "{text}");
     assert!(lines[2].contains("'log_p' → 'product' → 'w'"), "{text}");
-    assert!(lines[3].starts_with("  advice   Keep the argument of 'log_p' away from 0"), "{text}");
+    assert!(lines[3].contains("turned into NaN at 'w'"), "log_p's −inf times x = 0 is NaN at w: {text}");
+    assert!(lines[4].starts_with("  advice   Keep the argument of 'log_p' away from 0"), "{text}");
     assert!(text.contains("\ntrace    "), "the details follow");
 }
 
