@@ -136,3 +136,12 @@ fn the_built_in_demo_is_clean() {
     assert_eq!(output.status.code(), Some(0));
     assert!(stdout(&output).starts_with("diagnosis  clean: no rule fired in f64"));
 }
+
+#[test]
+fn the_settings_example_in_the_readme_is_the_defaults() {
+    let readme = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("README.md")).unwrap();
+    let start = readme.find("```ron\n// rules.ron").expect("the README shows a settings file") + "```ron\n".len();
+    let end = start + readme[start..].find("```").unwrap();
+    let settings = ebb::diagnose::Settings::parse(&readme[start..end], Path::new("README.md")).unwrap();
+    assert_eq!(settings, ebb::diagnose::Settings::default());
+}

@@ -167,8 +167,9 @@ impl Diagnosis {
             return Some(format!("Origin ({}): {}.{turned}", origin.class.letter(), origin.explanation));
         }
         Some(format!(
-            "Non-finite because of '{}' {hops} hops up the sweep ({}): {}.{turned}",
+            "Non-finite because of '{}' {hops} {} up the sweep ({}): {}.{turned}",
             trace.node(origin.node).id,
+            if hops == 1 { "hop" } else { "hops" },
             origin.class.letter(),
             origin.explanation
         ))

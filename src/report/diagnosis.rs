@@ -683,5 +683,6 @@ fn chain_text(reached: &ChainEntry) -> String {
     if reached.omitted > 0 {
         parts.insert(CHAIN_LIMIT / 2, format!("… {} nodes …", reached.omitted));
     }
-    format!("{}  ({} hops to '{}')", parts.join(" → "), reached.length.saturating_sub(1), reached.param)
+    let hops = reached.length.saturating_sub(1);
+    format!("{}  ({hops} {} to '{}')", parts.join(" → "), if hops == 1 { "hop" } else { "hops" }, reached.param)
 }
