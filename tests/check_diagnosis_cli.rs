@@ -53,7 +53,7 @@ fn text_report_opens_with_origin_class_chain_and_advice() {
     assert!(lines[0].starts_with("diagnosis  origin (a) non-finite forward value at 'log_p' (log)"), "{text}");
     assert!(lines[1].contains("log of 0 is −inf"), "{text}");
     assert!(lines[2].contains("'log_p' → 'product' → 'w'"), "{text}");
-    assert!(lines[3].contains("turned into NaN at 'w'"), "log_p's −inf times x = 0 is NaN at w: {text}");
+    assert!(lines[3].contains("turned into NaN at 'w'") && lines[3].contains("0 × inf"), "log_p's −inf times x = 0 is NaN at w: {text}");
     assert!(lines[4].starts_with("  advice   Keep the argument of 'log_p' away from 0"), "{text}");
     assert!(text.contains("\ntrace    "), "the details follow");
 }
@@ -144,4 +144,13 @@ fn the_settings_example_in_the_readme_is_the_defaults() {
     let end = start + readme[start..].find("```").unwrap();
     let settings = ebb::diagnose::Settings::parse(&readme[start..end], Path::new("README.md")).unwrap();
     assert_eq!(settings, ebb::diagnose::Settings::default());
+}
+
+#[test]
+fn help_names_every_setting() {
+    let output = ebb(&["check", "--help"]);
+    let help = stdout(&output);
+    for name in ebb::diagnose::Settings::NAMES {
+        assert!(help.contains(name), "--help lists {name}");
+    }
 }

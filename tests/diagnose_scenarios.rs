@@ -421,7 +421,46 @@ fn opposite_infinities_turn_into_nan_at_a_branch() {
     assert_eq!(chain.last().map(String::as_str), Some("w"));
     let x = trace.find("x").unwrap();
     let birth = diagnosis.nan_births().iter().find(|birth| birth.node == x).expect("x turns NaN");
-    assert!(birth.at_branch);
+    assert_eq!(birth.how, ebb::diagnose::NanHow::InfMinusInfAtBranch);
     let sentence = diagnosis.explain(&trace, trace.find("w").unwrap()).unwrap();
     assert!(sentence.contains("turned into NaN at 'x' (inf − inf at a branch"), "{sentence}");
+}
+
+// A NaN seed makes every adjoint it reaches NaN (IEEE 754-2019 §6.2: NaN propagates).
+#[test]
+fn a_non_finite_seed_is_its_own_origin() {
+    let mut tape = Tape::new("seed", Dtype::F64);
+    let w = tape.param("w", 1.0);
+    let y = tape.neg(w);
+    let mut file = tape.finish(y);
+    file.seed = Some(ebb::trace::ValueRepr::Scalar(f64::NAN));
+    let trace = Trace::try_from(file).unwrap();
+    let diagnosis = diagnose(&trace, &Settings::default());
+    let (node, class, chain) = origin_of(&trace, &diagnosis, "w");
+    assert_eq!((node.as_str(), class), ("neg_1", OriginClass::NonFiniteSeed));
+    assert_eq!(chain, ["neg_1", "w"]);
+}
+
+// Every demo trace shipped: whatever its diagnosis, each parameter whose
+// gradient is non-finite has an origin that lists it and explains itself,
+// and a flagged trace gets advice.
+#[test]
+fn every_demo_trace_explains_its_non_finite_gradients() {
+    for (name, file) in ebb::demos::all() {
+        let trace = Trace::try_from(file).unwrap();
+        let diagnosis = diagnose(&trace, &Settings::default());
+        let mut sweep = ebb::sweep::Sweep::new(&trace, ebb::sweep::LedgerMode::Off);
+        sweep.run_to_end();
+        for param in trace.params() {
+            if sweep.adjoint(param).is_some_and(|adjoint| !adjoint.is_finite()) {
+                let origin = diagnosis.origin_of(param).unwrap_or_else(|| panic!("{name}: no origin for {}", trace.node(param).id));
+                assert!(origin.reached.contains(&param), "{name}");
+                assert!(!origin.explanation.is_empty(), "{name}");
+                assert_eq!(diagnosis.chain_to(param).last(), Some(&param), "{name}");
+            }
+        }
+        if diagnosis.first_origin().is_some() {
+            assert!(!diagnosis.advice.is_empty(), "{name}: a non-finite gradient gets advice");
+        }
+    }
 }

@@ -33,7 +33,7 @@ pub mod settings;
 
 pub use advice::{Advice, ClipPreview, LossScale, Topic, loss_scale};
 pub use groups::{GroupNorm, group_norms};
-pub use origin::{NanBirth, Origin, OriginClass};
+pub use origin::{NanBirth, NanHow, Origin, OriginClass};
 pub use paths::{DominantPath, Hop, dominant_paths, edge_gains};
 pub use replay::{LostContribution, ReplayGradient, ReplayRun, replay};
 pub use rules::{Finding, Measure, Rule, Site};
@@ -101,6 +101,8 @@ pub struct Diagnosis {
     pub paths: Vec<DominantPath>,
     /// Per-group adjoint norms, shallowest first.
     pub groups: Vec<GroupNorm>,
+    /// Each swept parameter's gradient norm in the trace's dtype, in recording order.
+    pub gradient_norms: Vec<(usize, f64)>,
     /// One replay per dtype in the settings.
     pub replays: Vec<ReplayRun>,
     /// Loss-scale advice for f16, from the f64 reference adjoints.
@@ -160,8 +162,12 @@ impl Diagnosis {
         let chain = self.chain_to(node);
         let hops = chain.len().saturating_sub(1);
         let turned = self.causes.nan_births.iter().find(|birth| chain.contains(&birth.node)).map_or(String::new(), |birth| {
-            let how = if birth.at_branch { "inf − inf at a branch" } else { "0 × inf or inf − inf in a pull-back" };
-            format!(" It turned into NaN at '{}' ({how}, from '{}').", trace.node(birth.node).id, trace.node(birth.from).id)
+            format!(
+                " It turned into NaN at '{}' ({}, from '{}').",
+                trace.node(birth.node).id,
+                birth.how.phrase(),
+                trace.node(birth.from).id
+            )
         });
         if origin.node == node || hops == 0 {
             return Some(format!("Origin ({}): {}.{turned}", origin.class.letter(), origin.explanation));
@@ -213,6 +219,7 @@ pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
     let loss_scale = loss_scale(&entries, settings.subnormals);
     let gradients: Vec<&[f64]> = trace.params().filter_map(|param| sweep.adjoint(param)).map(|adjoint| adjoint.data()).collect();
     let clipping = ClipPreview::new(&gradients, settings.clip_norm);
+    let gradient_norms = trace.params().filter_map(|param| sweep.adjoint(param).map(|adjoint| (param, adjoint.l2_norm()))).collect();
     let mut diagnosis = Diagnosis {
         settings: settings.clone(),
         dtype: trace.dtype(),
@@ -220,6 +227,7 @@ pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
         origins: causes.origins.clone(),
         paths,
         groups,
+        gradient_norms,
         replays,
         loss_scale,
         clipping,
@@ -238,26 +246,41 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
         advice.push(Advice { topic: Topic::Origin, node: Some(origin.node), text: origin_advice(trace, origin) });
     }
     let clip = &diagnosis.clipping;
-    if let Some(finding) = diagnosis.findings.iter().find(|finding| finding.rule == Rule::Exploding) {
-        let hop = diagnosis.path_to(finding.node).and_then(DominantPath::strongest);
+    let norm_of = |param: usize| diagnosis.gradient_norms.iter().find(|(node, _)| *node == param).map_or(f64::NAN, |&(_, norm)| norm);
+    // Exploding relative to the median alone is not advised on: in a network
+    // whose lower layers vanish, the healthy top looks large against them.
+    let exploding = diagnosis
+        .findings
+        .iter()
+        .filter(|finding| finding.rule == Rule::Exploding && finding.measure != Measure::NormToMedian)
+        .map(|finding| finding.node)
+        .max_by(|&a, &b| norm_of(a).total_cmp(&norm_of(b)));
+    if let Some(param) = exploding {
+        let hop = diagnosis.path_to(param).and_then(DominantPath::strongest);
         let along = hop.map_or(String::new(), |hop| {
             format!("; the largest gain on its dominant path is {} at '{}' → '{}'", compact(hop.gain), id(hop.from), id(hop.to))
         });
         advice.push(Advice {
             topic: Topic::Exploding,
-            node: Some(finding.node),
+            node: Some(param),
             text: format!(
                 "The gradient of '{}' is exploding (norm {}){along}. Clipping the global norm {} at {} would scale every gradient by {}.",
-                id(finding.node),
-                compact(finding.value),
+                id(param),
+                compact(norm_of(param)),
                 compact(clip.norm),
                 compact(clip.threshold),
                 compact(clip.factor)
             ),
         });
     }
-    if let Some(finding) = diagnosis.findings.iter().find(|finding| finding.rule == Rule::Vanishing) {
-        let path = diagnosis.path_to(finding.node);
+    let vanishing = diagnosis
+        .findings
+        .iter()
+        .filter(|finding| finding.rule == Rule::Vanishing)
+        .map(|finding| finding.node)
+        .min_by(|&a, &b| norm_of(a).total_cmp(&norm_of(b)));
+    if let Some(param) = vanishing {
+        let path = diagnosis.path_to(param);
         let along = path.and_then(|path| path.weakest().map(|hop| (path, hop))).map_or(String::new(), |(path, hop)| {
             format!(
                 "; along its dominant path of {} hops the gains multiply to 1e{:.1}, the weakest hop being '{}' → '{}' with gain {}",
@@ -268,13 +291,23 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
                 compact(hop.gain)
             )
         });
+        let steepest =
+            diagnosis.groups.windows(2).filter_map(|pair| pair[1].ratio.map(|ratio| (pair, ratio))).min_by(|a, b| a.1.total_cmp(&b.1));
+        let groups = steepest.filter(|(_, ratio)| *ratio < 1.0).map_or(String::new(), |(pair, ratio)| {
+            format!(
+                " Group by group, the adjoint norm falls fastest from '{}' to '{}' (×{}).",
+                pair[0].group,
+                pair[1].group,
+                compact(ratio)
+            )
+        });
         advice.push(Advice {
             topic: Topic::Vanishing,
-            node: Some(finding.node),
+            node: Some(param),
             text: format!(
-                "The gradient of '{}' is vanishing (norm {}){along}. Shorten that path (a skip connection), or use an activation or initialisation whose gains stay near 1.",
-                id(finding.node),
-                compact(diagnosis.findings.iter().find(|f| f.node == finding.node && f.measure == Measure::Norm).map_or(finding.value, |f| f.value))
+                "The gradient of '{}' is vanishing (norm {}){along}.{groups} Shorten that path (a skip connection), or use an activation or initialisation whose gains stay near 1.",
+                id(param),
+                compact(norm_of(param))
             ),
         });
     }

@@ -90,10 +90,31 @@ pub struct NanBirth {
     pub step: usize,
     /// The node whose contribution did it.
     pub from: usize,
-    /// True for inf − inf where the contribution met the adjoint at a branch;
-    /// false when the contribution itself came out NaN (0 × inf or inf − inf
-    /// while pulling an infinite adjoint back through `from`).
-    pub at_branch: bool,
+    /// Which operation made the NaN.
+    pub how: NanHow,
+}
+
+/// The operation that turned infinities into NaN.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum NanHow {
+    /// An infinite contribution met an adjoint infinite the other way at a branch.
+    InfMinusInfAtBranch,
+    /// An infinite adjoint met a zero partial while being pulled back.
+    ZeroTimesInf,
+    /// Infinite terms of opposite signs cancelled inside one pull-back.
+    InfMinusInfInPullBack,
+}
+
+impl NanHow {
+    /// A short phrase for reports.
+    pub fn phrase(self) -> &'static str {
+        match self {
+            NanHow::InfMinusInfAtBranch => "inf − inf at a branch",
+            NanHow::ZeroTimesInf => "0 × inf: an infinite adjoint times a zero partial",
+            NanHow::InfMinusInfInPullBack => "inf − inf inside a pull-back",
+        }
+    }
 }
 
 fn has_nan(value: &Value) -> bool {
@@ -316,9 +337,12 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
         let adjoint = sweep.adjoint(entry.consumer).expect("a processed node holds its adjoint");
         let born_here = entry.before.as_ref().is_none_or(Value::is_finite) && adjoint.is_finite();
         if has_nan(&entry.after) && !entry.before.as_ref().is_some_and(has_nan) && !born_here {
-            let at_branch = !has_nan(&entry.value);
-            if at_branch || !has_nan(adjoint) {
-                nan_births.push(NanBirth { node: x, step: entry.step, from: entry.consumer, at_branch });
+            if !has_nan(&entry.value) {
+                nan_births.push(NanBirth { node: x, step: entry.step, from: entry.consumer, how: NanHow::InfMinusInfAtBranch });
+            } else if !has_nan(adjoint) {
+                let zero_partial = edge_partial(trace, entry.consumer, entry.slot).is_some_and(|partial| partial.data().contains(&0.0));
+                let how = if zero_partial { NanHow::ZeroTimesInf } else { NanHow::InfMinusInfInPullBack };
+                nan_births.push(NanBirth { node: x, step: entry.step, from: entry.consumer, how });
             }
         }
         if origin_index[x].is_none() {

@@ -6,7 +6,7 @@
 //! `settings`, `first_origin`, `origins` [{`class`, `letter`, `title`,
 //! `node`, `op`, `step`, `first_adjoint`, `from`, `slot`, `operands`,
 //! `result`, `explanation`, `reached` [{`param`, `chain`, `length`,
-//! `omitted`}]}], `nan_births` [{`node`, `step`, `from`, `at_branch`}], `findings` [{`rule`, `node`, `op`, `step`, `site`, `slot`,
+//! `omitted`}]}], `nan_births` [{`node`, `step`, `from`, `how`}], `findings` [{`rule`, `node`, `op`, `step`, `site`, `slot`,
 //! `to`, `measure`, `value`, `threshold`, `element`, `count`, `class`}],
 //! `dominant_paths` [{`param`, `log10_gain`, `length`, `omitted`, `hops`
 //! [{`from`, `to`, `slot`, `gain`}]}], `groups` [{`group`, `depth`, `nodes`,
@@ -109,8 +109,8 @@ pub struct NanBirthEntry {
     pub step: usize,
     /// The node whose contribution did it.
     pub from: String,
-    /// True for inf − inf at a branch; false for NaN out of a pull-back.
-    pub at_branch: bool,
+    /// Which operation made the NaN.
+    pub how: crate::diagnose::NanHow,
 }
 
 /// One finding.
@@ -429,7 +429,7 @@ impl DiagnosisReport {
             nan_births: diagnosis
                 .nan_births()
                 .iter()
-                .map(|birth| NanBirthEntry { node: id(birth.node), step: birth.step + 1, from: id(birth.from), at_branch: birth.at_branch })
+                .map(|birth| NanBirthEntry { node: id(birth.node), step: birth.step + 1, from: id(birth.from), how: birth.how })
                 .collect(),
             findings: diagnosis.findings.iter().map(|finding| finding_entry(trace, finding)).collect(),
             dominant_paths,
@@ -455,11 +455,13 @@ impl DiagnosisReport {
                 for reached in origin.reached.iter().take(3) {
                     let _ = writeln!(out, "  chain    {}", chain_text(reached));
                     if let Some(birth) = self.nan_births.iter().find(|birth| reached.chain.contains(&birth.node)) {
-                        let how = if birth.at_branch { "inf − inf at a branch" } else { "0 × inf or inf − inf pulling back" };
                         let _ = writeln!(
                             out,
-                            "           turned into NaN at '{}' (step {}: {how} from '{}')",
-                            birth.node, birth.step, birth.from
+                            "           turned into NaN at '{}' (step {}, from '{}': {})",
+                            birth.node,
+                            birth.step,
+                            birth.from,
+                            birth.how.phrase()
                         );
                     }
                 }
