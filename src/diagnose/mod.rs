@@ -256,9 +256,17 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
         .map(|finding| finding.node)
         .max_by(|&a, &b| norm_of(a).total_cmp(&norm_of(b)));
     if let Some(param) = exploding {
-        let hop = diagnosis.path_to(param).and_then(DominantPath::strongest);
-        let along = hop.map_or(String::new(), |hop| {
-            format!("; the largest gain on its dominant path is {} at '{}' → '{}'", compact(hop.gain), id(hop.from), id(hop.to))
+        let path = diagnosis.path_to(param);
+        let along = path.and_then(|path| path.strongest().map(|hop| (path, hop))).map_or(String::new(), |(path, hop)| {
+            format!(
+                "; along its dominant path of {} hops the gains multiply to 1e{:.1} (median hop gain {}), the largest being {} at '{}' → '{}'",
+                path.hops.len(),
+                path.log10_gain,
+                compact(path.median_gain()),
+                compact(hop.gain),
+                id(hop.from),
+                id(hop.to)
+            )
         });
         advice.push(Advice {
             topic: Topic::Exploding,
@@ -283,12 +291,13 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
         let path = diagnosis.path_to(param);
         let along = path.and_then(|path| path.weakest().map(|hop| (path, hop))).map_or(String::new(), |(path, hop)| {
             format!(
-                "; along its dominant path of {} hops the gains multiply to 1e{:.1}, the weakest hop being '{}' → '{}' with gain {}",
+                "; along its dominant path of {} hops the gains multiply to 1e{:.1} (median hop gain {}), the weakest being {} at '{}' → '{}'",
                 path.hops.len(),
                 path.log10_gain,
+                compact(path.median_gain()),
+                compact(hop.gain),
                 id(hop.from),
-                id(hop.to),
-                compact(hop.gain)
+                id(hop.to)
             )
         });
         let steepest =

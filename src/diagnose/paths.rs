@@ -38,6 +38,11 @@ impl DominantPath {
         10f64.powf(self.log10_gain)
     }
 
+    /// The median of the hops' gains: the typical factor per hop (0 for an empty path).
+    pub fn median_gain(&self) -> f64 {
+        super::rules::median(self.hops.iter().map(|hop| hop.gain).collect())
+    }
+
     /// The hop with the smallest gain: where a collapse happens.
     pub fn weakest(&self) -> Option<&Hop> {
         self.hops.iter().min_by(|a, b| a.gain.total_cmp(&b.gain))

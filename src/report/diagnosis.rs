@@ -466,7 +466,8 @@ impl DiagnosisReport {
                     }
                 }
                 if origin.reached.len() > 3 {
-                    let _ = writeln!(out, "           … and {} more parameters", origin.reached.len() - 3);
+                    let more = origin.reached.len() - 3;
+                    let _ = writeln!(out, "           … and {more} more {}", if more == 1 { "parameter" } else { "parameters" });
                 }
                 if origin.reached.is_empty() {
                     let _ = writeln!(out, "  chain    reaches no parameter");
