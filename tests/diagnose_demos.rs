@@ -1,21 +1,16 @@
 //! The diagnoses of the shipped demo traces. Each expectation follows from
-//! the story its generator tells (see the generator's doc comment); a demo
-//! file not shipped yet is reported and skipped, the teaching trace always runs.
+//! the story its generator in src/demos/ tells.
 
 use ebb::diagnose::{Diagnosis, NanHow, OriginClass, Rule, Settings, Topic, diagnose};
 use ebb::dtype::Dtype;
 use ebb::trace::Trace;
 use std::path::Path;
 
-fn load(name: &str) -> Option<(Trace, Diagnosis)> {
+fn load(name: &str) -> (Trace, Diagnosis) {
     let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("traces").join(name);
-    if !path.exists() {
-        eprintln!("{name} is not shipped yet: skipped");
-        return None;
-    }
     let trace = ebb::trace::load(&path).unwrap_or_else(|error| panic!("{error}"));
     let diagnosis = diagnose(&trace, &Settings::default());
-    Some((trace, diagnosis))
+    (trace, diagnosis)
 }
 
 fn node(trace: &Trace, id: &str) -> usize {
@@ -24,7 +19,7 @@ fn node(trace: &Trace, id: &str) -> usize {
 
 #[test]
 fn teaching_is_clean() {
-    let (_, diagnosis) = load("teaching.ron").expect("the teaching trace is always shipped");
+    let (_, diagnosis) = load("teaching.ron");
     assert!(diagnosis.is_clean());
     assert!(diagnosis.advice.is_empty());
 }
@@ -33,7 +28,7 @@ fn teaching_is_clean() {
 // p = 0, and 0 × inf is NaN (§7.2).
 #[test]
 fn nan_hunt_names_the_log_and_the_zero_times_infinity() {
-    let Some((trace, diagnosis)) = load("nan_hunt.ron") else { return };
+    let (trace, diagnosis) = load("nan_hunt.ron");
     let origin = diagnosis.first_origin().expect("a non-finite gradient");
     assert_eq!((trace.node(origin.node).id.as_str(), origin.class), ("ln_p", OriginClass::NonFiniteValue));
     for param in ["hidden.w", "out.w"] {
@@ -48,7 +43,7 @@ fn nan_hunt_names_the_log_and_the_zero_times_infinity() {
 // Goodfellow, Bengio & Courville, "Deep Learning", 2016, §6.3.2).
 #[test]
 fn vanishing_points_at_the_deepest_layer() {
-    let Some((trace, diagnosis)) = load("vanishing.ron") else { return };
+    let (trace, diagnosis) = load("vanishing.ron");
     let bottom = node(&trace, "layer01.b");
     assert!(diagnosis.findings.iter().any(|f| f.rule == Rule::Vanishing && f.node == bottom));
     let advice = diagnosis.advice.iter().find(|a| a.topic == Topic::Vanishing).expect("vanishing advice");
@@ -64,7 +59,7 @@ fn vanishing_points_at_the_deepest_layer() {
 // ICML 2013, §2.3); f16 cannot hold what f32 does.
 #[test]
 fn exploding_advises_clipping_and_overflows_f16() {
-    let Some((trace, diagnosis)) = load("exploding.ron") else { return };
+    let (trace, diagnosis) = load("exploding.ron");
     assert!(diagnosis.findings.iter().any(|f| f.rule == Rule::Exploding && f.node == node(&trace, "cell.w")));
     assert!(diagnosis.advice.iter().any(|a| a.topic == Topic::Exploding && a.text.contains("Clipping")));
     assert!(diagnosis.replay_in(Dtype::F16).unwrap().first_overflow().is_some());
@@ -75,7 +70,7 @@ fn exploding_advises_clipping_and_overflows_f16() {
 // largest adjoint 1 (the seed), S = 2^15 keeps S · 1 below 65504.
 #[test]
 fn underflow_in_f16_gets_loss_scale_advice() {
-    let Some((_, diagnosis)) = load("underflow_f16.ron") else { return };
+    let (_, diagnosis) = load("underflow_f16.ron");
     assert_eq!(diagnosis.dtype, Dtype::F16);
     assert!(diagnosis.findings.iter().any(|f| f.rule == Rule::Underflow));
     let scale = diagnosis.loss_scale.expect("loss-scale advice");
