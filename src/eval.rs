@@ -54,6 +54,25 @@ pub fn reevaluate(trace: &Trace, replace: &[(usize, Value)], dtype: Dtype) -> Re
     Ok(values)
 }
 
+/// Recomputes every node's forward value from the recorded leaves, in
+/// `dtype`: the step as it would have run in that dtype (custom ops
+/// linearised around their recorded inputs, as in [`reevaluate`]).
+pub fn forward_pass(trace: &Trace, dtype: Dtype) -> Vec<Value> {
+    let mut values: Vec<Value> = Vec::with_capacity(trace.nodes().len());
+    for (index, node) in trace.nodes().iter().enumerate() {
+        let value = if node.op.is_leaf() {
+            node.value.clone()
+        } else if node.op == ops::Op::Custom {
+            linearised(trace, index, &values, dtype)
+        } else {
+            let inputs: Vec<&Value> = node.inputs.iter().map(|&input| &values[input]).collect();
+            ops::forward(node.op, &inputs, &node.attrs, dtype)
+        };
+        values.push(value);
+    }
+    values
+}
+
 /// y₀ + Σ J·(x − x₀) over a custom node's edges.
 fn linearised(trace: &Trace, node: usize, values: &[Value], dtype: Dtype) -> Value {
     let recorded = trace.node(node);

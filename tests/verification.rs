@@ -258,7 +258,8 @@ fn the_wrong_partial_demo_names_exactly_its_custom_node() {
 
 #[test]
 fn the_other_demos_verify_clean() {
-    for name in ["teaching.ron", "vanishing.ron", "exploding.ron"] {
+    // underflow_f16 is an f16 trace: its derivatives are judged on the forward pass recomputed in f64.
+    for name in ["teaching.ron", "vanishing.ron", "exploding.ron", "underflow_f16.ron", "medium.tape"] {
         let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("traces").join(name);
         let trace = ebb::trace::load(&path).unwrap();
         let verification = verify(&trace, &VerifyOptions::default());

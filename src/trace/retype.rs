@@ -33,6 +33,23 @@ impl Trace {
         retyped.compact = super::compact::Compact::new(&retyped.nodes);
         retyped
     }
+
+    /// A copy with every node's forward value replaced, one per node in
+    /// recording order, each of the node's shape (for a forward pass
+    /// recomputed in another dtype).
+    ///
+    /// # Panics
+    /// If the count or a shape differs.
+    pub fn with_values(&self, values: Vec<Value>) -> Trace {
+        assert_eq!(values.len(), self.nodes.len(), "one value per node");
+        let mut replaced = self.clone();
+        for (node, value) in replaced.nodes.iter_mut().zip(values) {
+            assert_eq!(node.value.shape(), value.shape(), "a replacement keeps the node's shape");
+            node.value = value;
+        }
+        replaced.compact = super::compact::Compact::new(&replaced.nodes);
+        replaced
+    }
 }
 
 #[cfg(test)]

@@ -16,6 +16,7 @@ pub use partials::{MAX_DENSE_ENTRIES, PartialCheck, Unchecked, check_partials};
 pub use reported::{ReportedComparison, Walk, check_reported};
 pub use tangent::{Direction, TangentSweep};
 
+use crate::dtype::{Dtype, Subnormals};
 use crate::sweep::{LedgerMode, Sweep};
 use crate::trace::Trace;
 use serde::Serialize;
@@ -101,6 +102,8 @@ pub struct Verification {
     /// Flags the reverse sweep raised: where values are NaN or infinite, the
     /// checks compare non-finite numbers and cannot judge a derivative.
     pub sweep_flags: usize,
+    /// The dtype finite differences and the tangent sweep ran in.
+    pub derivatives_in: Dtype,
 }
 
 impl Verification {
@@ -111,17 +114,33 @@ impl Verification {
 }
 
 /// Runs every check on `trace`.
+///
+/// Finite differences and the tangent sweep judge derivatives, not rounding:
+/// for a trace recorded in f16, bf16 or f32 they run on a copy whose forward
+/// pass is recomputed in f64 from the recorded leaves, so the sweep and the
+/// differences see one function at one point (the rounding of the narrower
+/// dtype is what `ebb check`'s precision replay reports). Recorded partials
+/// and reported gradients are compared in the trace's own dtype, the one they
+/// were produced in.
 pub fn verify(trace: &Trace, options: &VerifyOptions) -> Verification {
     let mut sweep = Sweep::new(trace, LedgerMode::Off);
     sweep.run_to_end();
     let (partials, unchecked) = check_partials(trace);
-    let differences = check_finite_differences(&sweep, options.samples, options.seed);
     let (reported, walk) = check_reported(&sweep, options.tolerance);
+    let wide = (trace.dtype() != Dtype::F64).then(|| {
+        let retyped = trace.retyped(Dtype::F64, Subnormals::Keep);
+        let values = crate::eval::forward_pass(&retyped, Dtype::F64);
+        retyped.with_values(values)
+    });
+    let exact = wide.as_ref().unwrap_or(trace);
+    let mut exact_sweep = Sweep::new(exact, LedgerMode::Off);
+    exact_sweep.run_to_end();
+    let differences = check_finite_differences(&exact_sweep, options.samples, options.seed);
     let direction = options.direction.clone().unwrap_or(Direction::Random { seed: options.seed });
-    let mut tangent_sweep = TangentSweep::new(trace, &direction);
+    let mut tangent_sweep = TangentSweep::new(exact, &direction);
     tangent_sweep.run_to_end();
     let tangent = tangent_sweep.directional_derivative().map(|tangent| {
-        let reverse = tangent_sweep.reverse_counterpart(&sweep);
+        let reverse = tangent_sweep.reverse_counterpart(&exact_sweep);
         TangentCheck { tangent, reverse, relative: relative_error(tangent, reverse) }
     });
     let sweep_flags = sweep.flags().len();
@@ -135,6 +154,7 @@ pub fn verify(trace: &Trace, options: &VerifyOptions) -> Verification {
         tangent,
         suspects: Vec::new(),
         sweep_flags,
+        derivatives_in: exact.dtype(),
     };
     verification.suspects = rank(trace, &verification);
     verification

@@ -39,7 +39,15 @@ impl Verification {
             out.push_str(&format!(", {} too large to check", self.unchecked.len()));
         }
         out.push('\n');
-        out.push_str("finite differences (central, h = ε^(1/3)·max(|x|, 1))\n");
+        out.push_str(&format!(
+            "finite differences (central, h = ε^(1/3)·max(|x|, 1), in {}{})\n",
+            self.derivatives_in,
+            if self.derivatives_in == trace.dtype() {
+                ""
+            } else {
+                ", forward pass recomputed from the recorded leaves; rounding is ebb check's precision replay"
+            }
+        ));
         for check in &self.differences {
             let Some(worst) = check.worst() else { continue };
             let mut line = format!(
