@@ -79,16 +79,19 @@ pub fn open(path: &Path, themes: Vec<Theme>) -> Result<(), ViewError> {
     }
     let mut session = Session::start()?;
     let owned = path.to_path_buf();
-    let worker = std::thread::spawn(move || trace::load(&owned));
+    let progress = SharedProgress::default();
+    let mut reporter = progress.clone();
+    let worker = std::thread::spawn(move || trace::load_with(&owned, &mut reporter));
     let started = Instant::now();
     while !worker.is_finished() {
         let elapsed = started.elapsed().as_secs_f64();
+        let (stage, fraction) = progress.read();
         session.terminal.draw(|frame| {
             let area = frame.area();
             let [middle] = area.layout(&Layout::vertical([Constraint::Length(3)]).flex(Flex::Center));
-            // The loader reports no progress, so the gauge sweeps to show it is alive.
-            let ratio = (elapsed / 2.0).fract();
-            let text = format!("loading {label} ({:.1} MB) … {elapsed:.1} s   q cancels", size as f64 / 1e6);
+            // Stages that know their size fill the gauge; the others sweep it to show the load is alive.
+            let ratio = fraction.unwrap_or((elapsed / 2.0).fract());
+            let text = format!("{stage} {label} ({:.1} MB) … {elapsed:.1} s   q cancels", size as f64 / 1e6);
             Gauge::default().block(Block::bordered().title(Line::raw(" Ebb "))).ratio(ratio).label(text).render(middle, frame.buffer_mut());
         })?;
         if event::poll(Duration::from_millis(100))?
@@ -104,6 +107,31 @@ pub fn open(path: &Path, themes: Vec<Theme>) -> Result<(), ViewError> {
     }
     let trace = worker.join().map_err(|_| io::Error::other("the loader thread panicked"))??;
     run(&mut session.terminal, &trace, &label, themes)
+}
+
+/// The loader's progress, shared between the loading thread and the gauge.
+#[derive(Debug, Clone, Default)]
+struct SharedProgress {
+    state: std::sync::Arc<std::sync::Mutex<(&'static str, Option<u64>, u64)>>,
+}
+
+impl SharedProgress {
+    /// The current stage and the fraction of it done, when its size is known.
+    fn read(&self) -> (&'static str, Option<f64>) {
+        let (stage, total, done) = *self.state.lock().unwrap_or_else(|poisoned| poisoned.into_inner());
+        let stage = if stage.is_empty() { "loading" } else { stage };
+        (stage, total.filter(|&t| t > 0).map(|t| (done as f64 / t as f64).min(1.0)))
+    }
+}
+
+impl trace::Progress for SharedProgress {
+    fn stage(&mut self, name: &'static str, total: Option<u64>) {
+        *self.state.lock().unwrap_or_else(|poisoned| poisoned.into_inner()) = (name, total, 0);
+    }
+
+    fn advance(&mut self, done: u64) {
+        self.state.lock().unwrap_or_else(|poisoned| poisoned.into_inner()).2 = done;
+    }
 }
 
 fn run(terminal: &mut DefaultTerminal, trace: &Trace, label: &str, themes: Vec<Theme>) -> Result<(), ViewError> {
