@@ -10,7 +10,6 @@ pub use args::{Cli, Command};
 use anyhow::{Context, Result};
 use clap::CommandFactory;
 use ebb::diagnose::{Settings, diagnose};
-use ebb::dtype::Subnormals;
 use ebb::listing::list_steps;
 use ebb::ops::{CATALOG, Rule};
 use ebb::report::Report;
@@ -122,14 +121,8 @@ fn settings(rules: Option<&Path>, set: &[String]) -> Result<Settings> {
 }
 
 fn check(path: &str, trace: &Trace, json: bool, settings: &Settings, out: &mut dyn Write) -> Result<Outcome> {
-    let flushed;
-    let own = if settings.subnormals == Subnormals::Flush {
-        flushed = trace.retyped(trace.dtype(), Subnormals::Flush);
-        &flushed
-    } else {
-        trace
-    };
-    let mut sweep = Sweep::new(own, LedgerMode::Off);
+    let own = settings.swept_trace(trace);
+    let mut sweep = Sweep::new(&own, LedgerMode::Off);
     sweep.run_to_end();
     let diagnosis = diagnose(trace, settings);
     let report = Report::new(path, &sweep).with_diagnosis(trace, &diagnosis);

@@ -185,14 +185,8 @@ impl Diagnosis {
 /// Diagnoses `trace`: sweeps it in its own dtype, in f64 as the reference and
 /// in every replay dtype, and analyses the results.
 pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
-    let flushed;
-    let own = if settings.subnormals == Subnormals::Flush {
-        flushed = trace.retyped(trace.dtype(), Subnormals::Flush);
-        &flushed
-    } else {
-        trace
-    };
-    let mut sweep = Sweep::new(own, LedgerMode::On);
+    let own = settings.swept_trace(trace);
+    let mut sweep = Sweep::new(&own, LedgerMode::On);
     sweep.run_to_end();
     let is_reference = trace.dtype() == Dtype::F64 && settings.subnormals == Subnormals::Keep;
     let reference_trace;

@@ -74,6 +74,15 @@ macro_rules! settings {
         }
 
         impl Settings {
+    /// The trace as these settings sweep it: itself, or a copy flushing
+    /// subnormal results when `subnormals` says so.
+    pub fn swept_trace<'t>(&self, trace: &'t crate::trace::Trace) -> std::borrow::Cow<'t, crate::trace::Trace> {
+        match self.subnormals {
+            Subnormals::Flush => std::borrow::Cow::Owned(trace.retyped(trace.dtype(), Subnormals::Flush)),
+            Subnormals::Keep => std::borrow::Cow::Borrowed(trace),
+        }
+    }
+
             /// Every setting's name, as written in a settings file and after `--set`.
             pub const NAMES: &'static [&'static str] = &[$( stringify!($name) ),*];
 

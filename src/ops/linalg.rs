@@ -3,7 +3,7 @@
 use super::{Attrs, JvpArgs, StructuredRule, VjpArgs};
 use crate::dtype::Dtype;
 use crate::format::shape as show;
-use crate::tensor::{Value, broadcast_shapes, broadcast_source_indices, numel, strides};
+use crate::tensor::{Value, broadcast_shapes, broadcast_source_indices, numel, strided_indices, strides};
 
 /// `a @ b` over the last two axes; leading axes broadcast as batch axes.
 pub static MATMUL: StructuredRule = StructuredRule { shape: matmul_shape, forward: matmul_forward, vjp: matmul_vjp, jvp: matmul_jvp };
@@ -163,23 +163,8 @@ fn permute(value: &Value, perm: &[usize]) -> Value {
     let in_shape = value.shape();
     let out_shape: Vec<usize> = perm.iter().map(|&axis| in_shape[axis]).collect();
     let in_strides = strides(in_shape);
-    let step: Vec<usize> = perm.iter().map(|&axis| in_strides[axis]).collect();
-    let total = numel(&out_shape);
-    let mut out = Vec::with_capacity(total);
-    let mut counter = vec![0usize; out_shape.len()];
-    let mut source = 0usize;
-    for _ in 0..total {
-        out.push(value.data()[source]);
-        for k in (0..out_shape.len()).rev() {
-            counter[k] += 1;
-            source += step[k];
-            if counter[k] < out_shape[k] {
-                break;
-            }
-            source -= step[k] * counter[k];
-            counter[k] = 0;
-        }
-    }
+    let steps: Vec<usize> = perm.iter().map(|&axis| in_strides[axis]).collect();
+    let out = strided_indices(&out_shape, &steps).into_iter().map(|source| value.data()[source]).collect();
     Value::from_parts(out_shape, out)
 }
 

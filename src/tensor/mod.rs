@@ -321,19 +321,27 @@ pub fn broadcast_source_indices(in_shape: &[usize], out_shape: &[usize]) -> Vec<
             step[k] = in_strides[k - offset];
         }
     }
+    strided_indices(out_shape, &step)
+}
+
+/// For every flat index of `out_shape` in row-major order, the source index
+/// reached by moving `steps[k]` elements per step along output axis k (an
+/// odometer over the output shape). Broadcasting (steps of 0) and axis
+/// permutations (permuted strides) are both this walk.
+pub fn strided_indices(out_shape: &[usize], steps: &[usize]) -> Vec<usize> {
+    let total = numel(out_shape);
     let mut indices = Vec::with_capacity(total);
-    let mut counter = vec![0usize; rank];
+    let mut counter = vec![0usize; out_shape.len()];
     let mut source = 0usize;
     for _ in 0..total {
         indices.push(source);
-        // Odometer increment over the output shape.
-        for k in (0..rank).rev() {
+        for k in (0..out_shape.len()).rev() {
             counter[k] += 1;
-            source += step[k];
+            source += steps[k];
             if counter[k] < out_shape[k] {
                 break;
             }
-            source -= step[k] * counter[k];
+            source -= steps[k] * counter[k];
             counter[k] = 0;
         }
     }
