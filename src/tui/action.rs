@@ -16,11 +16,14 @@ pub enum PaneId {
     Trend,
     /// The flags raised so far.
     Flags,
+    /// The suspects of `ebb verify`, and recorded against recomputed partials.
+    Verify,
 }
 
 impl PaneId {
     /// Every pane in focus order.
-    pub const ALL: [PaneId; 6] = [PaneId::Order, PaneId::Node, PaneId::Inflow, PaneId::Edges, PaneId::Trend, PaneId::Flags];
+    pub const ALL: [PaneId; 7] =
+        [PaneId::Order, PaneId::Node, PaneId::Inflow, PaneId::Edges, PaneId::Trend, PaneId::Flags, PaneId::Verify];
 
     /// The pane's name as shown in its title, the help and README.
     pub fn name(self) -> &'static str {
@@ -31,6 +34,7 @@ impl PaneId {
             PaneId::Edges => "Edges",
             PaneId::Trend => "Trend",
             PaneId::Flags => "Flags",
+            PaneId::Verify => "Verify",
         }
     }
 
@@ -109,6 +113,12 @@ pub enum Action {
     Click(PaneId, u16),
     /// Mouse: scroll a pane by some rows (negative: up).
     Scroll(PaneId, i16),
+    /// Run every verification check (again) and show the suspects.
+    Verify,
+    /// Switch between the reverse sweep and the tangent (forward-mode) sweep.
+    ToggleForward,
+    /// Forward mode: switch the direction between the selected leaf and a seeded random one.
+    CycleDirection,
 }
 
 impl Action {
@@ -147,6 +157,9 @@ impl Action {
             Action::Submit => "confirm",
             Action::Click(..) => "select a row",
             Action::Scroll(..) => "scroll",
+            Action::Verify => "verify: run every check and list the suspects",
+            Action::ToggleForward => "switch between the reverse sweep and forward mode (tangent sweep)",
+            Action::CycleDirection => "forward mode: direction along the selected leaf / seeded random",
         }
     }
 
@@ -182,6 +195,9 @@ impl Action {
             Action::Submit => "go",
             Action::Click(..) => "select",
             Action::Scroll(..) => "scroll",
+            Action::Verify => "verify",
+            Action::ToggleForward => "forward mode",
+            Action::CycleDirection => "direction",
         }
     }
 }

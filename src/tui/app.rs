@@ -2,6 +2,8 @@
 //! selected and focused, the overlays, and the caches panes read per frame.
 
 use super::action::{Action, PaneId};
+use super::checks::Checks;
+use super::forward::Forward;
 use super::keymap::{Key, KeyMap};
 use super::layers::Layers;
 use super::layout;
@@ -100,6 +102,12 @@ pub struct App<'t> {
     value_summaries: HashMap<usize, Summary>,
     /// Node indices sorted by id, built on the first jump.
     by_id: Option<Vec<usize>>,
+    /// The pane in the Trend slot of the wide layout: Trend or Verify.
+    pub corner: PaneId,
+    /// The verification checks and the Verify pane's cursor.
+    pub checks: Checks,
+    /// Forward mode's tangent sweep, while it is on.
+    pub forward: Option<Forward<'t>>,
 }
 
 impl<'t> App<'t> {
@@ -135,6 +143,9 @@ impl<'t> App<'t> {
             layers: Layers::of(trace),
             value_summaries: HashMap::new(),
             by_id: None,
+            corner: PaneId::Trend,
+            checks: Checks::default(),
+            forward: None,
             sweep,
         };
         app.refresh();
@@ -180,6 +191,9 @@ impl<'t> App<'t> {
     }
 
     fn pane_action(&mut self, action: Action) {
+        if self.forward_action(action) {
+            return;
+        }
         match action {
             Action::Step => {
                 if !self.advance() {
@@ -236,6 +250,16 @@ impl<'t> App<'t> {
             }
             Action::Scroll(pane, rows) => panes::pane(pane).move_cursor(self, Move::By(rows as isize)),
             Action::Type(_) | Action::Erase | Action::Complete | Action::Submit => {}
+            Action::Verify => {
+                // Focusing the pane runs the checks the first time; the key reruns them after that.
+                let rerun = self.checks.verification.is_some();
+                self.set_focus(PaneId::Verify);
+                if rerun {
+                    self.request_verification();
+                }
+            }
+            Action::ToggleForward => self.toggle_forward(),
+            Action::CycleDirection => self.cycle_direction(),
         }
     }
 
@@ -344,6 +368,13 @@ impl<'t> App<'t> {
         if layout::shares_slot(pane) {
             self.side = pane;
         }
+        if layout::takes_corner(pane) {
+            self.corner = pane;
+        }
+        // The checks run once, when their pane is first shown.
+        if pane == PaneId::Verify && self.checks.verification.is_none() && !self.checks.requested {
+            self.request_verification();
+        }
     }
 
     fn move_focused(&mut self, motion: Move) {
@@ -379,7 +410,11 @@ impl<'t> App<'t> {
     /// depends on the selected node or on the sweep's position.
     fn refresh(&mut self) {
         if self.follow {
-            self.selected = self.sweep.current().or(self.sweep.last_done()).unwrap_or(self.trace.output());
+            self.selected = match &self.forward {
+                Some(forward) => forward.current().or(forward.last_done()),
+                None => self.sweep.current().or(self.sweep.last_done()),
+            }
+            .unwrap_or(self.trace.output());
         }
         let node = self.selected;
         let cursor = self.sweep.cursor();
@@ -408,7 +443,7 @@ impl<'t> App<'t> {
     /// Scrolls Order so the selected node (or the current one) is in view.
     fn keep_order_visible(&mut self) {
         let rows = layout::pane_area(self, PaneId::Order).map_or(10, |area| area.height.saturating_sub(3).max(1) as usize);
-        let Some(rank) = self.trace.sweep_rank(self.selected) else { return };
+        let Some(rank) = self.order_rank(self.selected) else { return };
         if rank < self.order_offset {
             self.order_offset = rank;
         } else if rank >= self.order_offset + rows {

@@ -128,6 +128,10 @@ impl Default for KeyMap {
             (Key::char('4'), Focus(PaneId::Edges)),
             (Key::char('5'), Focus(PaneId::Trend)),
             (Key::char('6'), Focus(PaneId::Flags)),
+            (Key::char('7'), Focus(PaneId::Verify)),
+            (Key::char('v'), Verify),
+            (Key::char('m'), ToggleForward),
+            (Key::char('d'), CycleDirection),
             (Key::char('z'), Zoom),
             (Key::char('t'), CycleTheme),
             (Key::char('?'), Help),
@@ -169,6 +173,7 @@ impl Default for KeyMap {
         bindings.extend(edges.map(|(key, action)| Binding { key, scope: Scope::Pane(PaneId::Edges), action }));
         bindings.push(Binding { key: Key::plain(K::Enter), scope: Scope::Pane(PaneId::Flags), action: Enter });
         bindings.push(Binding { key: Key::plain(K::Enter), scope: Scope::Pane(PaneId::Order), action: Enter });
+        bindings.push(Binding { key: Key::plain(K::Enter), scope: Scope::Pane(PaneId::Verify), action: Enter });
         bindings.extend(global.map(|(key, action)| Binding { key, scope: Scope::Global, action }));
         KeyMap { bindings }
     }

@@ -28,17 +28,35 @@ pub enum Screen {
 
 /// True for the panes that share one slot in the narrow layout.
 pub fn shares_slot(pane: PaneId) -> bool {
-    matches!(pane, PaneId::Inflow | PaneId::Edges | PaneId::Trend)
+    matches!(pane, PaneId::Inflow | PaneId::Edges | PaneId::Trend | PaneId::Verify)
+}
+
+/// True for the panes that take turns in the Trend slot of the wide layout.
+pub fn takes_corner(pane: PaneId) -> bool {
+    matches!(pane, PaneId::Trend | PaneId::Verify)
+}
+
+/// The panes taking turns in `pane`'s slot, named as tabs in its title
+/// (empty when the slot is the pane's alone).
+pub fn slot_tabs(pane: PaneId, narrow: bool) -> &'static [PaneId] {
+    const NARROW: [PaneId; 4] = [PaneId::Inflow, PaneId::Edges, PaneId::Trend, PaneId::Verify];
+    const CORNER: [PaneId; 2] = [PaneId::Trend, PaneId::Verify];
+    match (narrow, shares_slot(pane), takes_corner(pane)) {
+        (true, true, _) => &NARROW,
+        (false, _, true) => &CORNER,
+        _ => &[],
+    }
 }
 
 /// The arrangement for `app`'s terminal size and state.
 pub fn screen(app: &App) -> Screen {
-    arrange(app.area, app.focus, app.side, app.zoomed)
+    arrange(app.area, app.focus, app.side, app.corner, app.zoomed)
 }
 
 /// The arrangement of an `area` with `focus` focused, `side` in the shared
-/// slot of the narrow layout, the focused pane alone when `zoomed`.
-pub fn arrange(area: Rect, focus: PaneId, side: PaneId, zoomed: bool) -> Screen {
+/// slot of the narrow layout, `corner` in the Trend slot of the wide one, the
+/// focused pane alone when `zoomed`.
+pub fn arrange(area: Rect, focus: PaneId, side: PaneId, corner: PaneId, zoomed: bool) -> Screen {
     if area.width < MIN_WIDTH || area.height < MIN_HEIGHT {
         return Screen::TooSmall;
     }
@@ -57,7 +75,7 @@ pub fn arrange(area: Rect, focus: PaneId, side: PaneId, zoomed: bool) -> Screen 
             (PaneId::Node, node),
             (PaneId::Inflow, inflow),
             (PaneId::Edges, edges),
-            (PaneId::Trend, trend),
+            (corner, trend),
             (PaneId::Flags, flags),
         ]
     } else {
@@ -91,18 +109,28 @@ mod tests {
 
     #[test]
     fn narrow_terminals_share_one_slot_and_small_ones_get_none() {
-        assert_eq!(arrange(Rect::new(0, 0, 79, 24), PaneId::Order, PaneId::Inflow, false), Screen::TooSmall);
-        assert_eq!(arrange(Rect::new(0, 0, 80, 23), PaneId::Order, PaneId::Inflow, false), Screen::TooSmall);
-        let Screen::Panes { panes, status } = arrange(Rect::new(0, 0, 80, 24), PaneId::Order, PaneId::Edges, false) else { panic!() };
+        assert_eq!(arrange(Rect::new(0, 0, 79, 24), PaneId::Order, PaneId::Inflow, PaneId::Trend, false), Screen::TooSmall);
+        assert_eq!(arrange(Rect::new(0, 0, 80, 23), PaneId::Order, PaneId::Inflow, PaneId::Trend, false), Screen::TooSmall);
+        let Screen::Panes { panes, status } = arrange(Rect::new(0, 0, 80, 24), PaneId::Order, PaneId::Edges, PaneId::Trend, false) else { panic!() };
         let shown: Vec<PaneId> = panes.iter().map(|(pane, _)| *pane).collect();
         assert_eq!(shown, [PaneId::Order, PaneId::Node, PaneId::Edges, PaneId::Flags]);
         assert_eq!(status, Rect::new(0, 23, 80, 1));
-        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Trend, PaneId::Inflow, false) else { panic!() };
+        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Trend, PaneId::Inflow, PaneId::Trend, false) else { panic!() };
         assert_eq!(panes.len(), 6);
         // Panes tile the body without overlapping.
         let cells: u32 = panes.iter().map(|(_, area)| area.area()).sum();
         assert_eq!(cells, 200 * 49);
-        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Trend, PaneId::Inflow, true) else { panic!() };
+        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Trend, PaneId::Inflow, PaneId::Trend, true) else { panic!() };
         assert_eq!(panes, [(PaneId::Trend, Rect::new(0, 0, 200, 49))]);
+        // Verify takes Trend's place in the wide layout, and joins the shared slot in the narrow one.
+        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Verify, PaneId::Inflow, PaneId::Verify, false) else {
+            panic!()
+        };
+        let shown: Vec<PaneId> = panes.iter().map(|(pane, _)| *pane).collect();
+        assert!(shown.contains(&PaneId::Verify) && !shown.contains(&PaneId::Trend) && shown.len() == 6);
+        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 80, 24), PaneId::Verify, PaneId::Verify, PaneId::Trend, false) else {
+            panic!()
+        };
+        assert_eq!(panes[2].0, PaneId::Verify);
     }
 }

@@ -5,6 +5,8 @@
 
 mod action;
 mod app;
+mod checks;
+mod forward;
 mod keymap;
 mod layers;
 mod layout;

@@ -2,6 +2,7 @@
 
 use super::theme::Theme;
 use crate::sweep::FlagKind;
+use crate::verify::Band;
 use ratatui::style::Style;
 
 /// Marker of a processed node.
@@ -26,6 +27,31 @@ pub fn flag_style(theme: &Theme, kind: FlagKind) -> Style {
         FlagKind::NonFiniteValue => theme.flag_value,
         FlagKind::NonFinitePartial => theme.flag_partial,
         FlagKind::NonFiniteAdjoint => theme.flag_adjoint,
+    }
+}
+
+/// Marker of a recorded partial's element that differs from the op rule's.
+pub const DIFFERS: &str = "≠";
+/// Marker of an element that agrees.
+pub const AGREES: &str = "=";
+
+/// Each verification band's symbol: a shape per band, so no meaning rests on colour.
+pub fn band_symbol(band: Band) -> &'static str {
+    match band {
+        Band::ProbablyWrong => "▲",
+        Band::Doubtful => "△",
+        Band::Acceptable => "≈",
+        Band::Good => "=",
+    }
+}
+
+/// Each verification band's theme role.
+pub fn band_style(theme: &Theme, band: Band) -> Style {
+    match band {
+        Band::ProbablyWrong => theme.flag_value,
+        Band::Doubtful => theme.current,
+        Band::Acceptable => theme.muted,
+        Band::Good => theme.done,
     }
 }
 
@@ -75,5 +101,8 @@ mod tests {
         unique.dedup();
         assert_eq!(unique.len(), symbols.len());
         assert!(![DONE, CURRENT, PENDING].iter().any(|marker| symbols.contains(marker)));
+        let bands: Vec<&str> = [Band::ProbablyWrong, Band::Doubtful, Band::Acceptable, Band::Good].map(band_symbol).to_vec();
+        assert!(bands.iter().enumerate().all(|(at, band)| !bands[at + 1..].contains(band) && !symbols.contains(band)));
+        assert_ne!(DIFFERS, AGREES);
     }
 }

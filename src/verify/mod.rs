@@ -12,7 +12,7 @@ mod tangent;
 
 pub use compare::{Band, Worst, relative_error};
 pub use finite_diff::{DifferenceCheck, DifferenceEntry, check_finite_differences};
-pub use partials::{MAX_DENSE_ENTRIES, PartialCheck, Unchecked, check_partials};
+pub use partials::{MAX_DENSE_ENTRIES, PartialCheck, Unchecked, check_partials, partial_pair};
 pub use reported::{ReportedComparison, Walk, check_reported};
 pub use tangent::{Direction, TangentSweep};
 

@@ -56,6 +56,21 @@ pub fn check_partials(trace: &Trace) -> (Vec<PartialCheck>, Vec<Unchecked>) {
     (checked, unchecked)
 }
 
+/// The recorded partial of edge `slot` of `node` and the op table's, side by
+/// side: both dense Jacobians in row-major order (output elements × input
+/// elements), or both diagonals when the op is elementwise. An error says why
+/// the edge cannot be compared (no recorded partial, a custom op, too large).
+pub fn partial_pair(trace: &Trace, node: usize, slot: usize) -> Result<(Vec<f64>, Vec<f64>), String> {
+    let recorded = trace.node(node);
+    if recorded.op.is_leaf() || recorded.op == ops::Op::Custom {
+        return Err(format!("'{}' is a {} node: the op table has no rule to compare with", recorded.id, recorded.op_name));
+    }
+    match recorded.partials.get(slot) {
+        Some(Some(partial)) => dense_pair(trace, node, slot, partial),
+        _ => Err(format!("edge {slot} of '{}' carries no recorded partial", recorded.id)),
+    }
+}
+
 /// The recorded and the recomputed partial of one edge, both as dense
 /// Jacobians (output elements × input elements), or diagonals when both are.
 fn dense_pair(trace: &Trace, node: usize, slot: usize, partial: &Partial) -> Result<(Vec<f64>, Vec<f64>), String> {

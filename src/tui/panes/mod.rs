@@ -9,6 +9,7 @@ mod inflow;
 mod node;
 mod order;
 mod trend;
+mod verify;
 
 use super::action::PaneId;
 use super::app::App;
@@ -67,6 +68,7 @@ pub fn pane(id: PaneId) -> &'static dyn Pane {
         PaneId::Edges => &edges::EdgesPane,
         PaneId::Trend => &trend::TrendPane,
         PaneId::Flags => &flags::FlagsPane,
+        PaneId::Verify => &verify::VerifyPane,
     }
 }
 
