@@ -127,7 +127,7 @@ impl<'t> App<'t> {
         let verification = self.checks.verification.as_ref().expect("just run");
         let took = format!("{:.2} s", self.checks.seconds);
         self.message = Some(match verification.suspects.len() {
-            0 => format!("verified in {took}: every check agrees within {}", verification.tolerance),
+            0 => format!("verified in {took}: every check agrees within {:e}", verification.tolerance),
             count => format!("verified in {took}: {count} suspect(s), worst first in the Verify pane (Enter there selects the node)"),
         });
     }

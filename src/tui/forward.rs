@@ -115,23 +115,32 @@ impl<'t> Forward<'t> {
         node < self.sweep.cursor()
     }
 
-    /// The tangent of a processed node (zero when nothing it depends on moves
-    /// along v); `None` while pending.
-    pub fn tangent(&self, node: usize) -> Option<Value> {
-        if !self.is_done(node) {
-            return None;
-        }
-        Some(self.sweep.tangent(node).cloned().unwrap_or_else(|| Value::filled(self.trace.node(node).value.shape(), 0.0)))
+    /// The tangent of a processed node: `Some(None)` when it is zero (nothing
+    /// it depends on moves along v), `None` while pending.
+    pub fn tangent(&self, node: usize) -> Option<Option<&Value>> {
+        self.is_done(node).then(|| self.sweep.tangent(node))
     }
 
-    /// The dual number of a scalar node as `(value, tangent)`, the tangent `—` while pending.
+    /// A node's tangent in at most `width` columns: exact when it fits, tensors by norm, `—` while pending.
+    pub fn tangent_text(&self, node: usize, width: usize) -> String {
+        match self.tangent(node) {
+            None => "—".to_string(),
+            Some(None) => "0".to_string(),
+            Some(Some(Value::Scalar(t))) => super::panes::fit_number(*t, width),
+            Some(Some(tangent)) => format!("‖·‖ {}", crate::format::compact(tangent.l2_norm())),
+        }
+    }
+
+    /// The dual number of a scalar node as `(value, tangent)`, exact; the tangent `—` while pending.
     pub fn dual_text(&self, node: usize) -> String {
         let value = &self.trace.node(node).value;
-        let tangent = self.tangent(node);
-        match (value, &tangent) {
-            (Value::Scalar(x), Some(t)) => format!("({}, {})", number(*x), number(t.as_scalar().unwrap_or(0.0))),
+        match (value, self.tangent(node)) {
+            (Value::Scalar(x), Some(tangent)) => format!("({}, {})", number(*x), number(tangent.and_then(Value::as_scalar).unwrap_or(0.0))),
             (Value::Scalar(x), None) => format!("({}, —)", number(*x)),
-            (_, Some(t)) => format!("tangent {} ‖·‖ {}", crate::format::shape(t.shape()), crate::format::compact(t.l2_norm())),
+            (_, Some(tangent)) => {
+                let norm = tangent.map_or(0.0, Value::l2_norm);
+                format!("tangent {} ‖·‖ {}", crate::format::shape(value.shape()), crate::format::compact(norm))
+            }
             (_, None) => "tangent — (pending)".to_string(),
         }
     }
@@ -225,7 +234,7 @@ impl<'t> App<'t> {
         let Some(comparison) = self.forward.as_ref().and_then(Forward::comparison) else { return };
         let verdict = if comparison.agrees(VerifyOptions::default().tolerance) { "they agree" } else { "they DISAGREE" };
         self.message = Some(format!(
-            "∂f/∂v = {} by the tangent sweep, ⟨v, ∇f⟩ = {} by the reverse sweep: {verdict}",
+            "∂f/∂v = {} (tangent) · ⟨v, ∇f⟩ = {} (reverse): {verdict}",
             number(comparison.tangent),
             number(comparison.reverse)
         ));

@@ -139,6 +139,11 @@ fn run(terminal: &mut DefaultTerminal, trace: &Trace, label: &str, themes: Vec<T
     while !app.quit {
         app.resize(terminal.size()?.into());
         terminal.draw(|frame| frame.render_widget(&app, frame.area()))?;
+        // Long work (verifying a big trace) runs once its message is on screen.
+        if app.has_pending() {
+            app.run_pending();
+            continue;
+        }
         match event::read()? {
             Event::Key(key) if key.kind == KeyEventKind::Press => app.key(Key::from_event(&key)),
             Event::Mouse(mouse) => {

@@ -8,6 +8,7 @@ mod flags;
 mod inflow;
 mod node;
 mod order;
+mod order_forward;
 mod trend;
 mod verify;
 

@@ -98,6 +98,9 @@ impl Pane for NodePane {
             Some(rank) => (format!("{PENDING} pending: step {}", rank + 1), theme.pending),
         };
         lines.push(labelled("state", state, theme.muted, state_style));
+        if let Some(forward) = &app.forward {
+            lines.extend(super::order_forward::node_lines(app, forward, node, width));
+        }
         lines.push(labelled("site", recorded.site.clone().unwrap_or_else(|| "(not recorded)".to_string()), theme.muted, theme.text));
         let shape_text = if recorded.value.shape().is_empty() { "scalar".to_string() } else { shape(recorded.value.shape()) };
         lines.push(labelled(
@@ -155,12 +158,19 @@ impl Pane for NodePane {
             lines.push(labelled("flag", text, theme.muted, style));
         }
         if let crate::tensor::Value::Tensor(tensor) = &recorded.value {
-            lines.push(Line::styled(format!("{:>8}  {:<24}{}", "element", "value", "adjoint"), theme.muted));
+            // In forward mode the tangent takes the adjoint's column.
+            let tangent = app.forward.as_ref().map(|forward| forward.tangent(node));
+            let column = if tangent.is_some() { "tangent" } else { "adjoint" };
+            lines.push(Line::styled(format!("{:>8}  {:<24}{}", "element", "value", column), theme.muted));
             let shown = (area.height as usize).saturating_sub(lines.len());
-            let adjoint_data = adjoint.map(|value| value.data());
+            let adjoint_data = match tangent {
+                Some(tangent) => tangent.map(|tangent| tangent.map_or(&[][..], |t| t.data())),
+                None => adjoint.map(|value| value.data()),
+            };
             for index in app.node_scroll..tensor.data().len().min(app.node_scroll + shown) {
                 let value = fit(&number(tensor.data()[index]), 23);
-                let adjoint = adjoint_data.and_then(|data| data.get(index)).map_or("—".to_string(), |&x| number(x));
+                let zero = matches!(tangent, Some(Some(None)));
+                let adjoint = adjoint_data.and_then(|data| data.get(index)).map_or(if zero { "0" } else { "—" }.to_string(), |&x| number(x));
                 lines.push(Line::styled(format!("{index:>8}  {value} {adjoint}"), theme.text));
             }
         }

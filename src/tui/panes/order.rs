@@ -16,9 +16,9 @@ pub struct OrderPane;
 
 /// The first step shown, so that the selection is in view with `rows` rows.
 fn offset(app: &App, rows: usize) -> usize {
-    let len = app.trace.sweep_order().len();
+    let len = app.order_len();
     let mut offset = app.order_offset.min(len.saturating_sub(1));
-    if let Some(rank) = app.trace.sweep_rank(app.selected) {
+    if let Some(rank) = app.order_rank(app.selected) {
         if rank < offset {
             offset = rank;
         } else if rank >= offset + rows {
@@ -34,11 +34,20 @@ impl Pane for OrderPane {
     }
 
     fn title_detail(&self, app: &App) -> String {
-        format!("step {}/{}", app.sweep.cursor(), app.sweep.len())
+        match &app.forward {
+            Some(forward) => format!("forward · tangent step {}/{}", forward.sweep.cursor(), forward.sweep.len()),
+            None => format!("step {}/{}", app.sweep.cursor(), app.sweep.len()),
+        }
     }
 
     fn draw(&self, app: &App, area: Rect, buf: &mut Buffer) {
         if area.height < 2 || area.width < 20 {
+            return;
+        }
+        if let Some(forward) = &app.forward {
+            // Fewer rows: the foot compares the two modes.
+            let first = offset(app, (area.height as usize).saturating_sub(super::order_forward::FOOT + 1).max(1));
+            super::order_forward::draw(app, forward, first, area, buf);
             return;
         }
         let theme = app.theme();
@@ -100,14 +109,20 @@ impl Pane for OrderPane {
     }
 
     fn move_cursor(&self, app: &mut App, motion: Move) {
-        let order = app.trace.sweep_order();
-        let at = app.trace.sweep_rank(app.selected).unwrap_or(app.sweep.cursor().min(order.len() - 1));
-        let rank = motion.apply(at, order.len());
-        app.select(order[rank]);
+        let len = app.order_len();
+        let at = app.order_rank(app.selected).unwrap_or(app.sweep.cursor().min(len - 1));
+        let rank = motion.apply(at, len);
+        app.select(app.order_node(rank));
     }
 
     /// Runs (or steps back) the sweep until the selected node is the current one.
     fn enter(&self, app: &mut App) {
+        if let Some(forward) = app.forward.as_mut() {
+            let node = app.selected;
+            forward.seek(node);
+            app.select(node);
+            return;
+        }
         if let Some(rank) = app.trace.sweep_rank(app.selected) {
             let node = app.selected;
             app.seek(rank);
@@ -120,9 +135,10 @@ impl Pane for OrderPane {
             return;
         }
         let rows = crate::tui::layout::pane_area(app, PaneId::Order).map_or(1, |area| area.height.saturating_sub(3) as usize);
+        let rows = if app.forward.is_some() { rows.saturating_sub(super::order_forward::FOOT).max(1) } else { rows };
         let rank = offset(app, rows) + row - 1;
-        if let Some(&node) = app.trace.sweep_order().get(rank) {
-            app.select(node);
+        if rank < app.order_len() {
+            app.select(app.order_node(rank));
         }
     }
 }

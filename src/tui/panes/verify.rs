@@ -43,9 +43,12 @@ fn first_shown(cursor: usize, rows: usize) -> usize {
 fn agreement_lines<'a>(app: &App, verification: &Verification) -> Vec<Line<'a>> {
     let theme = app.theme();
     let mut lines =
-        vec![Line::styled(format!("{AGREES} every check agrees within {}: no suspect", verification.tolerance), theme.done)];
+        vec![Line::styled(format!("{AGREES} every check agrees within {:e}: no suspect", verification.tolerance), theme.done)];
     lines.push(Line::styled(
-        format!("  {} recorded partial(s) of catalog ops match the op table", verification.partials.len()),
+        match verification.partials.len() {
+            0 => "  no recorded partials of catalog ops to check".to_string(),
+            count => format!("  {count} recorded partial(s) of catalog ops match the op table"),
+        },
         theme.text,
     ));
     lines.push(Line::styled(
@@ -57,7 +60,7 @@ fn agreement_lines<'a>(app: &App, verification: &Verification) -> Vec<Line<'a>> 
     }
     if let Some(tangent) = verification.tangent {
         lines.push(Line::styled(
-            format!("  tangent sweep {} = ⟨v, ∇f⟩ {} (relative error {})", compact(tangent.tangent), compact(tangent.reverse), compact(tangent.relative)),
+            format!("  tangent ∂f/∂v {} = ⟨v, ∇f⟩ {}", compact(tangent.tangent), compact(tangent.reverse)),
             theme.text,
         ));
     }
@@ -132,7 +135,7 @@ impl Pane for VerifyPane {
         }
         let mut lines = vec![Line::styled(
             format!(
-                "{} suspect(s), worst first · tolerance {} · Enter selects · v reruns",
+                "{} suspect(s), worst first · tolerance {:e} · Enter selects · v reruns",
                 verification.suspects.len(),
                 verification.tolerance
             ),

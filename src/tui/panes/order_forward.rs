@@ -1,0 +1,125 @@
+//! Order in forward mode: every node in recording order with its state in
+//! the tangent sweep and its dual number (value, tangent), and at the foot
+//! the directional derivative beside the reverse sweep's ⟨v, ∇f⟩.
+
+use super::{fit, fit_number, value_text};
+use crate::format::number;
+use crate::tui::app::App;
+use crate::tui::forward::Forward;
+use crate::tui::symbols::{AGREES, CURRENT, DIFFERS, DONE, PENDING};
+use crate::verify::VerifyOptions;
+use ratatui::buffer::Buffer;
+use ratatui::layout::Rect;
+use ratatui::text::{Line, Span};
+
+/// Rows of Order's foot in forward mode.
+pub const FOOT: usize = 2;
+
+/// The two foot lines: what the tangent sweep is computing, or at the end
+/// the directional derivative beside the reverse sweep's ⟨v, ∇f⟩ and whether they agree.
+pub fn foot<'a>(app: &App, forward: &Forward, width: usize) -> [Line<'a>; 2] {
+    let theme = app.theme();
+    let number_width = width.saturating_sub(22).max(8);
+    match forward.comparison() {
+        Some(comparison) => {
+            let agrees = comparison.agrees(VerifyOptions::default().tolerance);
+            let (mark, verdict, style) = if agrees { (AGREES, "agree", theme.done) } else { (DIFFERS, "DISAGREE", theme.flag_value) };
+            [
+                Line::from(vec![
+                    Span::styled("∂f/∂v   ", theme.muted),
+                    Span::styled(fit_number(comparison.tangent, number_width), theme.text),
+                    Span::styled("  tangent", theme.muted),
+                ]),
+                Line::from(vec![
+                    Span::styled("⟨v, ∇f⟩ ", theme.muted),
+                    Span::styled(fit_number(comparison.reverse, number_width), theme.text),
+                    Span::styled("  reverse ", theme.muted),
+                    Span::styled(format!("{mark} {verdict}"), style),
+                ]),
+            ]
+        }
+        None => [
+            Line::styled(forward.along.describe(app.trace), theme.muted),
+            Line::styled("∂f/∂v and ⟨v, ∇f⟩ appear once the output has its tangent", theme.muted),
+        ],
+    }
+}
+
+/// The Node pane's lines in forward mode: the dual number, the node's state in
+/// the tangent sweep, and the direction's component on a leaf.
+pub fn node_lines<'a>(app: &App, forward: &Forward, node: usize, width: usize) -> Vec<Line<'a>> {
+    let theme = app.theme();
+    let label = |text: &str| Span::styled(fit(text, 9), theme.muted);
+    let cursor = forward.sweep.cursor();
+    let (state, style) = match node.cmp(&cursor) {
+        std::cmp::Ordering::Less => (format!("{DONE} tangent known (forward step {})", node + 1), theme.done),
+        std::cmp::Ordering::Equal => (format!("{CURRENT} current: forward step {} computes its tangent", node + 1), theme.current),
+        std::cmp::Ordering::Greater => (format!("{PENDING} pending: forward step {}", node + 1), theme.pending),
+    };
+    let mut lines = vec![
+        Line::from(vec![label("forward"), Span::styled(state, style)]),
+        Line::from(vec![label("dual"), Span::styled(forward.dual_text(node), theme.text.add_modifier(ratatui::style::Modifier::BOLD))]),
+    ];
+    if let Some(direction) = forward.sweep.direction(node) {
+        let text = match direction.as_scalar() {
+            Some(v) if direction.shape().is_empty() => format!("v here: {}", number(v)),
+            _ => format!("v here: {} ‖·‖ {}", crate::format::shape(direction.shape()), crate::format::compact(direction.l2_norm())),
+        };
+        lines.push(Line::from(vec![label("seed"), Span::styled(text, theme.muted)]));
+    }
+    if node == app.trace.output() {
+        lines.extend(foot(app, forward, width));
+    }
+    lines
+}
+
+/// Draws Order's rows from `first`, `rows` of them, with the foot on the last line.
+pub fn draw(app: &App, forward: &Forward, first: usize, area: Rect, buf: &mut Buffer) {
+    let theme = app.theme();
+    let nodes = app.trace.nodes();
+    let width = area.width as usize;
+    let step_width = nodes.len().to_string().len();
+    // Ids stay readable first; the two numbers share what is left, exact when there is room.
+    let op_width = if width >= 56 { 7 } else { 0 };
+    let rest = width.saturating_sub(2 + step_width + 1 + op_width + 1);
+    let number_width = (rest.saturating_sub(14) / 2).saturating_sub(1).clamp(8, 21);
+    let id_width = rest.saturating_sub(2 * (number_width + 1)).max(4);
+    let header = format!(
+        "  {:>step_width$} {} {} {} {}",
+        "#",
+        fit("node", id_width),
+        fit("op", op_width),
+        fit("value", number_width),
+        "tangent"
+    );
+    buf.set_stringn(area.x, area.y, header, width, theme.muted);
+    let rows = (area.height as usize).saturating_sub(FOOT + 1);
+    let cursor = forward.sweep.cursor();
+    for (line, node) in (first..nodes.len().min(first + rows)).enumerate() {
+        let recorded = &nodes[node];
+        let (marker, marker_style) = match node.cmp(&cursor) {
+            std::cmp::Ordering::Less => (DONE, theme.done),
+            std::cmp::Ordering::Equal => (CURRENT, theme.current),
+            std::cmp::Ordering::Greater => (PENDING, theme.pending),
+        };
+        let id_style = if node == cursor { theme.current } else { theme.text };
+        let spans = vec![
+            Span::styled(format!("{marker} "), marker_style),
+            Span::styled(format!("{:>step_width$} ", node + 1), theme.muted),
+            Span::styled(fit(&recorded.id, id_width) + " ", id_style),
+            Span::styled(fit(&recorded.op_name, op_width) + if op_width > 0 { " " } else { "" }, theme.muted),
+            Span::styled(fit(&value_text(&recorded.value, number_width), number_width) + " ", theme.text),
+            Span::styled(forward.tangent_text(node, number_width), if node < cursor { theme.text } else { theme.muted }),
+        ];
+        let y = area.y + 1 + line as u16;
+        buf.set_line(area.x, y, &Line::from(spans), area.width);
+        if node == app.selected {
+            buf.set_style(Rect::new(area.x, y, area.width, 1), theme.selection);
+        }
+    }
+    if area.height as usize > FOOT + 1 {
+        for (at, line) in foot(app, forward, width).iter().enumerate() {
+            buf.set_line(area.x, area.y + area.height - FOOT as u16 + at as u16, line, area.width);
+        }
+    }
+}
