@@ -13,34 +13,37 @@ use ratatui::layout::Rect;
 use ratatui::text::{Line, Span};
 
 /// Rows of Order's foot in forward mode.
-pub const FOOT: usize = 2;
+pub const FOOT: usize = 3;
 
-/// The two foot lines: what the tangent sweep is computing, or at the end
-/// the directional derivative beside the reverse sweep's ⟨v, ∇f⟩ and whether they agree.
-pub fn foot<'a>(app: &App, forward: &Forward, width: usize) -> [Line<'a>; 2] {
+/// The foot: what the tangent sweep is computing, or at the end the
+/// directional derivative beside the reverse sweep's ⟨v, ∇f⟩ and whether they agree.
+pub fn foot<'a>(app: &App, forward: &Forward, width: usize) -> [Line<'a>; FOOT] {
     let theme = app.theme();
-    let number_width = width.saturating_sub(22).max(8);
+    let number_width = width.saturating_sub(17).max(8);
     match forward.comparison() {
         Some(comparison) => {
             let agrees = comparison.agrees(VerifyOptions::default().tolerance);
             let (mark, verdict, style) = if agrees { (AGREES, "agree", theme.done) } else { (DIFFERS, "DISAGREE", theme.flag_value) };
+            let number = |label: &str, x: f64, by: &str| {
+                Line::from(vec![
+                    Span::styled(label.to_string(), theme.muted),
+                    Span::styled(fit_number(x, number_width), theme.text),
+                    Span::styled(format!("  {by}"), theme.muted),
+                ])
+            };
             [
+                number("∂f/∂v   ", comparison.tangent, "tangent"),
+                number("⟨v, ∇f⟩ ", comparison.reverse, "reverse"),
                 Line::from(vec![
-                    Span::styled("∂f/∂v   ", theme.muted),
-                    Span::styled(fit_number(comparison.tangent, number_width), theme.text),
-                    Span::styled("  tangent", theme.muted),
-                ]),
-                Line::from(vec![
-                    Span::styled("⟨v, ∇f⟩ ", theme.muted),
-                    Span::styled(fit_number(comparison.reverse, number_width), theme.text),
-                    Span::styled("  reverse ", theme.muted),
                     Span::styled(format!("{mark} {verdict}"), style),
+                    Span::styled(format!(" (relative error {})", crate::format::compact(comparison.relative)), theme.muted),
                 ]),
             ]
         }
         None => [
             Line::styled(forward.along.describe(app.trace), theme.muted),
-            Line::styled("∂f/∂v and ⟨v, ∇f⟩ appear once the output has its tangent", theme.muted),
+            Line::styled("∂f/∂v and ⟨v, ∇f⟩ appear once", theme.muted),
+            Line::styled("the output has its tangent", theme.muted),
         ],
     }
 }

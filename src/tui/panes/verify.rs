@@ -151,10 +151,9 @@ impl Pane for VerifyPane {
             let mut line = Line::from(vec![
                 Span::styled(format!("{pointer}{} ", band_symbol(suspect.band)), style),
                 Span::styled(fit(&node.id, id_width) + " ", theme.text),
-                Span::styled(fit(&node.op_name, 7) + " ", theme.muted),
                 Span::styled(fit(suspect.band.name(), 14) + " ", style),
-                Span::styled(format!("rel {:<10} ", compact(suspect.relative)), theme.text),
-                Span::styled(evidence_name(suspect.evidence), theme.muted),
+                Span::styled(format!("rel {:<7} ", compact(suspect.relative)), theme.text),
+                Span::styled(format!("{} · {}", evidence_name(suspect.evidence), node.op_name), theme.muted),
             ]);
             if at == app.checks.cursor && app.focus == PaneId::Verify {
                 line = line.patch_style(theme.selection);
