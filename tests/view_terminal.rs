@@ -196,3 +196,24 @@ fn a_bad_theme_is_one_line_with_its_position() {
     assert!(text.contains("mine.ron:3:"), "{text}");
     assert!(text.contains("is not a colour"), "{text}");
 }
+
+#[test]
+fn forward_mode_in_a_real_terminal() {
+    // Along v = e_price the tangent sweep's ∂f/∂v is ∂profit/∂p = 0.4q + 0.08q²
+    // (closed form by the chain rule, derived in tests/view_verify.rs).
+    let mut screen = Screen::open(50, 200, &["open", "traces/teaching.ron"]);
+    screen.wait_for("step 0/12");
+    screen.send(":price\r");
+    screen.wait_for("Node · price");
+    screen.send("m");
+    screen.wait_for("FORWARD MODE");
+    screen.send("sssssss");
+    screen.wait_for("tangent step 7/12 │ next margin (sub)");
+    screen.send("e");
+    near(screen.number_after("= agree", "∂f/∂v   "), 0.4 * Q + 0.08 * Q * Q);
+    near(screen.number_after("= agree", "⟨v, ∇f⟩ "), 0.4 * Q + 0.08 * Q * Q);
+    screen.send("m");
+    screen.wait_for("reverse sweep: step 0/12");
+    screen.send("q");
+    assert!(screen.wait_exit().success());
+}
