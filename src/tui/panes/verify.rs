@@ -161,7 +161,13 @@ impl Pane for VerifyPane {
             lines.push(line);
         }
         if let Some(suspect) = verification.suspects.get(app.checks.cursor) {
-            lines.push(Line::styled(fit(&suspect.detail, width), theme.muted));
+            // The evidence in words, over at most two lines.
+            let chars: Vec<char> = suspect.detail.chars().collect();
+            for (at, chunk) in chars.chunks(width.max(1)).take(2).enumerate() {
+                let text: String = chunk.iter().collect();
+                let text = if at == 1 && chars.len() > 2 * width { fit(&(text + "…"), width) } else { text };
+                lines.push(Line::styled(text, theme.muted));
+            }
         }
         let left = (area.height as usize).saturating_sub(lines.len());
         let per_pair = left / app.checks.pairs.len().max(1);
