@@ -1,5 +1,6 @@
 //! Handling one key and drawing one 200×50 frame of the terminal view, on
-//! generated chains of 10⁴ and 10⁶ nodes (README, "Performance").
+//! generated chains of 10⁴ and 10⁶ nodes, in both modes, and running the
+//! verification from its pane (README, "Performance").
 
 use ebb::dtype::Dtype;
 use ebb::record::Tape;
@@ -66,6 +67,39 @@ fn frame_deep_in_the_order(bencher: divan::Bencher, nodes: usize) {
     app.resize(ratatui::layout::Rect::new(0, 0, 200, 50));
     let mut terminal = Terminal::new(TestBackend::new(200, 50)).unwrap();
     bencher.bench_local(|| {
+        terminal.draw(|frame| frame.render_widget(&app, frame.area())).unwrap();
+    });
+}
+
+/// Forward mode: one key (alternately step and step back the tangent sweep) and one frame.
+#[divan::bench(args = [10_000, 1_000_000], sample_count = 200)]
+fn forward_key_and_frame(bencher: divan::Bencher, nodes: usize) {
+    let trace = trace(nodes);
+    let mut app = App::new(trace, "bench", vec![Theme::default_theme()]);
+    let mut terminal = Terminal::new(TestBackend::new(200, 50)).unwrap();
+    app.key(key('m'));
+    for _ in 0..100 {
+        app.key(key('s'));
+    }
+    let mut forward = true;
+    bencher.bench_local(|| {
+        app.key(key(if forward { 's' } else { 'b' }));
+        forward = !forward;
+        app.resize(ratatui::layout::Rect::new(0, 0, 200, 50));
+        terminal.draw(|frame| frame.render_widget(&app, frame.area())).unwrap();
+    });
+}
+
+/// Running every verification check from the Verify pane (`v`), and one frame of its result.
+#[divan::bench(args = [10_000, 1_000_000], sample_count = 5)]
+fn verify_from_the_pane(bencher: divan::Bencher, nodes: usize) {
+    let trace = trace(nodes);
+    let mut app = App::new(trace, "bench", vec![Theme::default_theme()]);
+    let mut terminal = Terminal::new(TestBackend::new(200, 50)).unwrap();
+    bencher.bench_local(|| {
+        app.key(key('v'));
+        app.run_pending();
+        app.resize(ratatui::layout::Rect::new(0, 0, 200, 50));
         terminal.draw(|frame| frame.render_widget(&app, frame.area())).unwrap();
     });
 }

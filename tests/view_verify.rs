@@ -99,7 +99,8 @@ fn the_verify_pane_names_the_node_with_the_wrong_partial_and_its_band() {
     let (x, y) = find(&buf, "›▲ growth");
     assert_eq!(buf[(x + 1, y)].fg, theme.flag_value.fg.unwrap(), "the band's colour backs its symbol");
     // No other node is blamed for a wrong recorded partial.
-    let partial_rows = pane.iter().filter(|row| row.contains(" rel ") && row.contains("recorded partial") && !row.contains("growth")).count();
+    let partial_rows =
+        pane.iter().filter(|row| row.contains(" rel ") && row.contains("recorded partial") && !row.contains("growth")).count();
     assert_eq!(partial_rows, 0, "{}", pane.join("\n"));
 }
 

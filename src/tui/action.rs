@@ -22,8 +22,7 @@ pub enum PaneId {
 
 impl PaneId {
     /// Every pane in focus order.
-    pub const ALL: [PaneId; 7] =
-        [PaneId::Order, PaneId::Node, PaneId::Inflow, PaneId::Edges, PaneId::Trend, PaneId::Flags, PaneId::Verify];
+    pub const ALL: [PaneId; 7] = [PaneId::Order, PaneId::Node, PaneId::Inflow, PaneId::Edges, PaneId::Trend, PaneId::Flags, PaneId::Verify];
 
     /// The pane's name as shown in its title, the help and README.
     pub fn name(self) -> &'static str {

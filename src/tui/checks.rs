@@ -132,3 +132,33 @@ impl<'t> App<'t> {
         });
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::dtype::Dtype;
+    use crate::record::Tape;
+    use crate::trace::validate;
+    use crate::tui::{Action, Theme};
+
+    #[test]
+    fn a_big_trace_is_verified_after_its_message_is_drawn() {
+        let mut tape = Tape::new("sine chain", Dtype::F64);
+        let mut x = tape.param("x", 0.5);
+        while tape.len() <= AT_ONCE {
+            x = tape.sin(x);
+        }
+        let trace = validate(tape.finish(x)).unwrap();
+        let mut app = App::new(&trace, "test", vec![Theme::default_theme()]);
+        app.update(Action::Verify);
+        assert!(app.has_pending() && app.checks.verification.is_none(), "nothing runs inside the key press");
+        assert_eq!(app.message.as_deref().map(|m| m.starts_with(&format!("verifying {} nodes", AT_ONCE + 1))), Some(true));
+        app.run_pending();
+        assert!(!app.has_pending());
+        assert!(app.checks.verification.is_some());
+        assert!(app.message.as_deref().is_some_and(|m| m.starts_with("verified in")));
+        // A second press reruns rather than waiting forever.
+        app.update(Action::Verify);
+        assert!(app.has_pending());
+    }
+}

@@ -168,8 +168,11 @@ impl<'t> App<'t> {
             return;
         }
         let node = self.trace.node(self.selected);
-        let along =
-            if node.op.is_leaf() && !node.value.is_empty() { Along::Leaf(self.selected) } else { Along::Random(VerifyOptions::default().seed) };
+        let along = if node.op.is_leaf() && !node.value.is_empty() {
+            Along::Leaf(self.selected)
+        } else {
+            Along::Random(VerifyOptions::default().seed)
+        };
         self.forward = Some(Forward::new(self.trace, along));
         self.follow = true;
         let hint = if self.trace.params().next().is_none() && matches!(along, Along::Random(_)) {
@@ -177,8 +180,7 @@ impl<'t> App<'t> {
         } else {
             ""
         };
-        self.message =
-            Some(format!("forward mode, {}: s steps the tangent sweep in recording order{hint}", along.describe(self.trace)));
+        self.message = Some(format!("forward mode, {}: s steps the tangent sweep in recording order{hint}", along.describe(self.trace)));
     }
 
     /// Forward mode: switches the direction, keeping the tangent sweep's position.

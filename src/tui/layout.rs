@@ -111,16 +111,22 @@ mod tests {
     fn narrow_terminals_share_one_slot_and_small_ones_get_none() {
         assert_eq!(arrange(Rect::new(0, 0, 79, 24), PaneId::Order, PaneId::Inflow, PaneId::Trend, false), Screen::TooSmall);
         assert_eq!(arrange(Rect::new(0, 0, 80, 23), PaneId::Order, PaneId::Inflow, PaneId::Trend, false), Screen::TooSmall);
-        let Screen::Panes { panes, status } = arrange(Rect::new(0, 0, 80, 24), PaneId::Order, PaneId::Edges, PaneId::Trend, false) else { panic!() };
+        let Screen::Panes { panes, status } = arrange(Rect::new(0, 0, 80, 24), PaneId::Order, PaneId::Edges, PaneId::Trend, false) else {
+            panic!()
+        };
         let shown: Vec<PaneId> = panes.iter().map(|(pane, _)| *pane).collect();
         assert_eq!(shown, [PaneId::Order, PaneId::Node, PaneId::Edges, PaneId::Flags]);
         assert_eq!(status, Rect::new(0, 23, 80, 1));
-        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Trend, PaneId::Inflow, PaneId::Trend, false) else { panic!() };
+        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Trend, PaneId::Inflow, PaneId::Trend, false) else {
+            panic!()
+        };
         assert_eq!(panes.len(), 6);
         // Panes tile the body without overlapping.
         let cells: u32 = panes.iter().map(|(_, area)| area.area()).sum();
         assert_eq!(cells, 200 * 49);
-        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Trend, PaneId::Inflow, PaneId::Trend, true) else { panic!() };
+        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Trend, PaneId::Inflow, PaneId::Trend, true) else {
+            panic!()
+        };
         assert_eq!(panes, [(PaneId::Trend, Rect::new(0, 0, 200, 49))]);
         // Verify takes Trend's place in the wide layout, and joins the shared slot in the narrow one.
         let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Verify, PaneId::Inflow, PaneId::Verify, false) else {

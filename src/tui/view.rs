@@ -2,8 +2,8 @@
 //! changes it. Panes in their frames, the status line, then any overlay.
 
 use super::action::{Action, PaneId};
-use super::keymap::Scope;
 use super::app::{App, Overlay};
+use super::keymap::Scope;
 use super::layout::{self, MIN_HEIGHT, MIN_WIDTH, Screen};
 use super::panes;
 use super::prompt::Prompt;
@@ -56,7 +56,8 @@ fn frame(app: &App, pane: PaneId, area: Rect, tabs: &[PaneId], buf: &mut Buffer)
                 title.push(Span::styled("│", theme.border));
             }
             let style = if tab == pane { title_style } else { theme.muted };
-            let text = if short && tab != pane { format!(" {} ", pane_number(tab)) } else { format!(" {} {} ", pane_number(tab), tab.name()) };
+            let text =
+                if short && tab != pane { format!(" {} ", pane_number(tab)) } else { format!(" {} {} ", pane_number(tab), tab.name()) };
             title.push(Span::styled(text, style));
         }
     } else {

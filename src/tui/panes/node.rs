@@ -170,7 +170,8 @@ impl Pane for NodePane {
             for index in app.node_scroll..tensor.data().len().min(app.node_scroll + shown) {
                 let value = fit(&number(tensor.data()[index]), 23);
                 let zero = matches!(tangent, Some(Some(None)));
-                let adjoint = adjoint_data.and_then(|data| data.get(index)).map_or(if zero { "0" } else { "—" }.to_string(), |&x| number(x));
+                let adjoint =
+                    adjoint_data.and_then(|data| data.get(index)).map_or(if zero { "0" } else { "—" }.to_string(), |&x| number(x));
                 lines.push(Line::styled(format!("{index:>8}  {value} {adjoint}"), theme.text));
             }
         }

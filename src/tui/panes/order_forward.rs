@@ -87,14 +87,8 @@ pub fn draw(app: &App, forward: &Forward, first: usize, area: Rect, buf: &mut Bu
     let rest = width.saturating_sub(2 + step_width + 1 + op_width + 1);
     let number_width = (rest.saturating_sub(14) / 2).saturating_sub(1).clamp(8, 21);
     let id_width = rest.saturating_sub(2 * (number_width + 1)).max(4);
-    let header = format!(
-        "  {:>step_width$} {} {} {} {}",
-        "#",
-        fit("node", id_width),
-        fit("op", op_width),
-        fit("value", number_width),
-        "tangent"
-    );
+    let header =
+        format!("  {:>step_width$} {} {} {} {}", "#", fit("node", id_width), fit("op", op_width), fit("value", number_width), "tangent");
     buf.set_stringn(area.x, area.y, header, width, theme.muted);
     let rows = (area.height as usize).saturating_sub(FOOT + 1);
     let cursor = forward.sweep.cursor();

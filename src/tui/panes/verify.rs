@@ -42,8 +42,7 @@ fn first_shown(cursor: usize, rows: usize) -> usize {
 
 fn agreement_lines<'a>(app: &App, verification: &Verification) -> Vec<Line<'a>> {
     let theme = app.theme();
-    let mut lines =
-        vec![Line::styled(format!("{AGREES} every check agrees within {:e}: no suspect", verification.tolerance), theme.done)];
+    let mut lines = vec![Line::styled(format!("{AGREES} every check agrees within {:e}: no suspect", verification.tolerance), theme.done)];
     lines.push(Line::styled(
         match verification.partials.len() {
             0 => "  no recorded partials of catalog ops to check".to_string(),
@@ -51,18 +50,13 @@ fn agreement_lines<'a>(app: &App, verification: &Verification) -> Vec<Line<'a>> 
         },
         theme.text,
     ));
-    lines.push(Line::styled(
-        format!("  {} parameter(s) agree with central differences", verification.differences.len()),
-        theme.text,
-    ));
+    lines.push(Line::styled(format!("  {} parameter(s) agree with central differences", verification.differences.len()), theme.text));
     if !verification.reported.is_empty() {
         lines.push(Line::styled(format!("  {} reported gradient(s) match the sweep", verification.reported.len()), theme.text));
     }
     if let Some(tangent) = verification.tangent {
-        lines.push(Line::styled(
-            format!("  tangent ∂f/∂v {} = ⟨v, ∇f⟩ {}", compact(tangent.tangent), compact(tangent.reverse)),
-            theme.text,
-        ));
+        lines
+            .push(Line::styled(format!("  tangent ∂f/∂v {} = ⟨v, ∇f⟩ {}", compact(tangent.tangent), compact(tangent.reverse)), theme.text));
     }
     if !verification.unchecked.is_empty() {
         lines.push(Line::styled(format!("  {} recorded partial(s) too large to check", verification.unchecked.len()), theme.muted));
@@ -83,10 +77,7 @@ fn pair_lines<'a>(app: &App, pair: &EdgePair, tolerance: f64, rows: usize, width
     ])];
     let label_width = if pair.columns == 1 { total.to_string().len().max(7) } else { 12 };
     let number_width = (width.saturating_sub(2 + label_width + 2) / 2).saturating_sub(1).max(8);
-    lines.push(Line::styled(
-        format!("  {:>label_width$}  {} {}", "element", fit("recorded", number_width), "recomputed"),
-        theme.muted,
-    ));
+    lines.push(Line::styled(format!("  {:>label_width$}  {} {}", "element", fit("recorded", number_width), "recomputed"), theme.muted));
     let shown = rows.saturating_sub(2).max(1);
     let first = pair.worst.saturating_sub(2).min(total.saturating_sub(shown));
     for at in first..total.min(first + shown) {
