@@ -62,6 +62,8 @@ pub struct Forward<'t> {
     pub sweep: TangentSweep<'t>,
     /// Its direction.
     pub along: Along,
+    /// The direction in words, kept: counting the parameters walks every node.
+    pub description: String,
     /// ⟨v, ∇f⟩ by a separate reverse sweep, computed the first time the tangent sweep ends.
     reverse: Option<f64>,
 }
@@ -69,7 +71,7 @@ pub struct Forward<'t> {
 impl<'t> Forward<'t> {
     /// A tangent sweep at its start along `along`.
     pub fn new(trace: &'t Trace, along: Along) -> Forward<'t> {
-        Forward { trace, sweep: TangentSweep::new(trace, &along.direction()), along, reverse: None }
+        Forward { trace, sweep: TangentSweep::new(trace, &along.direction()), along, description: along.describe(trace), reverse: None }
     }
 
     /// The node the next step processes (recording order), if any.

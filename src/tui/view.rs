@@ -137,7 +137,7 @@ fn mode_line(app: &App) -> String {
     match &app.forward {
         Some(forward) => format!(
             "Now: FORWARD MODE, {}. {} steps the tangent sweep in recording order, {} steps back, {} runs to the end, {} restarts; {} changes the direction; {} returns to the reverse sweep.",
-            forward.along.describe(app.trace),
+            forward.description.clone(),
             keys(Action::Step),
             keys(Action::Back),
             keys(Action::RunToEnd),

@@ -41,7 +41,7 @@ pub fn foot<'a>(app: &App, forward: &Forward, width: usize) -> [Line<'a>; FOOT] 
             ]
         }
         None => [
-            Line::styled(forward.along.describe(app.trace), theme.muted),
+            Line::styled(forward.description.clone(), theme.muted),
             Line::styled("∂f/∂v and ⟨v, ∇f⟩ appear once", theme.muted),
             Line::styled("the output has its tangent", theme.muted),
         ],
