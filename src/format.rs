@@ -24,6 +24,13 @@ pub fn compact(x: f64) -> String {
     }
 }
 
+/// 10^`log10` in [`compact`] form, or as `10^x` when beyond f64's range (a
+/// product of many gains can be).
+pub fn power_of_ten(log10: f64) -> String {
+    let value = 10f64.powf(log10);
+    if value.is_finite() && value > 0.0 { compact(value) } else { format!("10^{log10:.1}") }
+}
+
 /// A shape as `[2, 3]`; a scalar as `[]`.
 pub fn shape(dims: &[usize]) -> String {
     let inner: Vec<String> = dims.iter().map(|d| d.to_string()).collect();
@@ -44,5 +51,7 @@ mod tests {
         assert_eq!(compact(1.5e-9), "1.5000e-9");
         assert_eq!(compact(0.0), "0");
         assert_eq!(shape(&[2, 3]), "[2, 3]");
+        assert_eq!(power_of_ten(-1.0), "0.1");
+        assert_eq!(power_of_ten(400.0), "10^400.0");
     }
 }

@@ -251,17 +251,9 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
         .max_by(|&a, &b| norm_of(a).total_cmp(&norm_of(b)));
     if let Some(param) = exploding {
         let path = diagnosis.path_to(param);
-        let along = path.and_then(|path| path.strongest().map(|hop| (path, hop))).map_or(String::new(), |(path, hop)| {
-            format!(
-                "; along its dominant path of {} hops the gains multiply to 1e{:.1} (median hop gain {}), the largest being {} at '{}' → '{}'",
-                path.hops.len(),
-                path.log10_gain,
-                compact(path.median_gain()),
-                compact(hop.gain),
-                id(hop.from),
-                id(hop.to)
-            )
-        });
+        let along = path
+            .and_then(|path| path.strongest().map(|hop| (path, hop)))
+            .map_or(String::new(), |(path, hop)| along_path(path, hop, "largest", &id));
         advice.push(Advice {
             topic: Topic::Exploding,
             node: Some(param),
@@ -283,17 +275,9 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
         .min_by(|&a, &b| norm_of(a).total_cmp(&norm_of(b)));
     if let Some(param) = vanishing {
         let path = diagnosis.path_to(param);
-        let along = path.and_then(|path| path.weakest().map(|hop| (path, hop))).map_or(String::new(), |(path, hop)| {
-            format!(
-                "; along its dominant path of {} hops the gains multiply to 1e{:.1} (median hop gain {}), the weakest being {} at '{}' → '{}'",
-                path.hops.len(),
-                path.log10_gain,
-                compact(path.median_gain()),
-                compact(hop.gain),
-                id(hop.from),
-                id(hop.to)
-            )
-        });
+        let along = path
+            .and_then(|path| path.weakest().map(|hop| (path, hop)))
+            .map_or(String::new(), |(path, hop)| along_path(path, hop, "weakest", &id));
         let steepest =
             diagnosis.groups.windows(2).filter_map(|pair| pair[1].ratio.map(|ratio| (pair, ratio))).min_by(|a, b| a.1.total_cmp(&b.1));
         let groups = steepest.filter(|(_, ratio)| *ratio < 1.0).map_or(String::new(), |(pair, ratio)| {
@@ -416,4 +400,19 @@ fn origin_advice(trace: &Trace, origin: &Origin) -> String {
         }
         OriginClass::NonFiniteSeed => "Seed the output with a finite adjoint.".to_string(),
     }
+}
+
+/// "; along its dominant path of N hops the gains multiply to G (median hop
+/// gain M), the {which} being H at 'a' → 'b'": the sentence the vanishing and
+/// exploding advice share.
+fn along_path<'t>(path: &DominantPath, hop: &Hop, which: &str, id: &impl Fn(usize) -> &'t str) -> String {
+    format!(
+        "; along its dominant path of {} hops the gains multiply to {} (median hop gain {}), the {which} being {} at '{}' → '{}'",
+        path.hops.len(),
+        crate::format::power_of_ten(path.log10_gain),
+        compact(path.median_gain()),
+        compact(hop.gain),
+        id(hop.from),
+        id(hop.to)
+    )
 }

@@ -578,7 +578,7 @@ impl DiagnosisReport {
         }
         let mut out = String::from("dominant paths  (product of per-hop gains, output first)\n");
         for path in &self.dominant_paths {
-            let _ = write!(out, "  {:<12} gain 1e{:<7} ", path.param, format!("{:.2}", path.log10_gain.0));
+            let _ = write!(out, "  {:<12} gain {:<10} ", path.param, crate::format::power_of_ten(path.log10_gain.0));
             let _ = writeln!(out, "{}", hops_text(path));
         }
         out
