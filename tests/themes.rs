@@ -1,6 +1,6 @@
 //! Every theme file in themes/ loads, is built into the binary, and the
 //! colour-blind theme keeps the flag kinds apart under simulated red-green
-//! colour blindness.
+//! colour blindness (the three diagnosis roles included).
 
 use ebb::tui::{SHIPPED, Theme};
 use ratatui::style::Color;
@@ -64,6 +64,9 @@ fn the_colorblind_theme_keeps_flags_apart_under_red_green_deficiency() {
         ("flag_value", theme.flag_value.fg),
         ("flag_partial", theme.flag_partial.fg),
         ("flag_adjoint", theme.flag_adjoint.fg),
+        ("flag_origin", theme.flag_origin.fg),
+        ("flag_large", theme.flag_large.fg),
+        ("flag_small", theme.flag_small.fg),
         ("done", theme.done.fg),
         ("current", theme.current.fg),
     ];

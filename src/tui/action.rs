@@ -18,11 +18,14 @@ pub enum PaneId {
     Flags,
     /// The suspects of `ebb verify`, and recorded against recomputed partials.
     Verify,
+    /// The dominant path to a parameter, hop by hop, and the adjoint norm per group.
+    Paths,
 }
 
 impl PaneId {
     /// Every pane in focus order.
-    pub const ALL: [PaneId; 7] = [PaneId::Order, PaneId::Node, PaneId::Inflow, PaneId::Edges, PaneId::Trend, PaneId::Flags, PaneId::Verify];
+    pub const ALL: [PaneId; 8] =
+        [PaneId::Order, PaneId::Node, PaneId::Inflow, PaneId::Edges, PaneId::Trend, PaneId::Flags, PaneId::Verify, PaneId::Paths];
 
     /// The pane's name as shown in its title, the help and README.
     pub fn name(self) -> &'static str {
@@ -34,6 +37,7 @@ impl PaneId {
             PaneId::Trend => "Trend",
             PaneId::Flags => "Flags",
             PaneId::Verify => "Verify",
+            PaneId::Paths => "Paths",
         }
     }
 
@@ -118,6 +122,16 @@ pub enum Action {
     ToggleForward,
     /// Forward mode: switch the direction between the selected leaf and a seeded random one.
     CycleDirection,
+    /// Run the diagnosis now (or repeat what it found).
+    Diagnose,
+    /// Sweep in the next dtype: the recorded one, then f16, bf16, f32, f64.
+    CyclePrecision,
+    /// Select the origin of the selected node's non-finite adjoint, else the first origin.
+    JumpToOrigin,
+    /// Paths: select the next parameter with a dominant path.
+    NextParameter,
+    /// Paths: select the previous parameter with a dominant path.
+    PreviousParameter,
 }
 
 impl Action {
@@ -159,6 +173,11 @@ impl Action {
             Action::Verify => "verify: run every check and list the suspects",
             Action::ToggleForward => "switch between the reverse sweep and forward mode (tangent sweep)",
             Action::CycleDirection => "forward mode: direction along the selected leaf / seeded random",
+            Action::Diagnose => "diagnose the sweep (on open for small traces)",
+            Action::CyclePrecision => "sweep in the next dtype (recorded, f16, bf16, f32, f64)",
+            Action::JumpToOrigin => "jump to the origin of a non-finite adjoint",
+            Action::NextParameter => "next parameter's dominant path",
+            Action::PreviousParameter => "previous parameter's dominant path",
         }
     }
 
@@ -197,6 +216,11 @@ impl Action {
             Action::Verify => "verify",
             Action::ToggleForward => "forward mode",
             Action::CycleDirection => "direction",
+            Action::Diagnose => "diagnose",
+            Action::CyclePrecision => "dtype",
+            Action::JumpToOrigin => "origin",
+            Action::NextParameter => "next param",
+            Action::PreviousParameter => "prev param",
         }
     }
 }

@@ -3,15 +3,18 @@
 
 use super::action::{Action, PaneId};
 use super::checks::Checks;
+use super::diagnosis::{AUTO_NODES, Diagnosed, Diagnoses, Work};
 use super::forward::Forward;
 use super::keymap::{Key, KeyMap};
 use super::layers::Layers;
 use super::layout;
 use super::neighbours::{EdgeRow, edges};
 use super::panes::{self, Move};
+use super::precision::{Contrast, Retyped, next_dtype};
 use super::prompt::{Prompt, PromptKind, matches, sorted_ids};
 use super::tally::Tally;
 use super::theme::Theme;
+use crate::dtype::Dtype;
 use crate::stats::Summary;
 use crate::sweep::{LedgerMode, Sweep};
 use crate::tensor::Value;
@@ -108,6 +111,22 @@ pub struct App<'t> {
     pub checks: Checks,
     /// Forward mode's tangent sweep, while it is on.
     pub forward: Option<Forward<'t>>,
+    /// The trace as loaded; `trace` is a re-typed copy of it while the precision toggle is on.
+    pub recorded: &'t Trace,
+    /// The diagnosis of each dtype swept so far.
+    pub diagnoses: Diagnoses,
+    /// While the precision toggle is on: the sweep over the recorded trace, kept at the view sweep's cursor.
+    pub compare: Option<Sweep<'t>>,
+    /// Work queued for after the next frame, which says it is under way.
+    pub work: Option<Work>,
+    /// Highlighted row in Paths.
+    pub paths_cursor: usize,
+    /// The parameter Paths showed last, kept while the selection is not a parameter.
+    pub paths_param: Option<usize>,
+    /// While the precision toggle is on: the selected node's adjoint against the recorded dtype's.
+    pub contrast: Option<Contrast>,
+    /// The re-typed copies the precision toggle sweeps over (see [`App::with_copies`]).
+    copies: Option<&'t Retyped<'t>>,
 }
 
 impl<'t> App<'t> {
@@ -147,9 +166,141 @@ impl<'t> App<'t> {
             checks: Checks::default(),
             forward: None,
             sweep,
+            recorded: trace,
+            diagnoses: Diagnoses::default(),
+            compare: None,
+            work: None,
+            paths_cursor: 0,
+            paths_param: None,
+            contrast: None,
+            copies: None,
         };
+        if trace.nodes().len() <= AUTO_NODES {
+            app.work = Some(Work::Diagnose);
+        } else {
+            app.message = Some(format!("{} nodes: D runs the diagnosis (it sweeps the trace several times)", trace.nodes().len()));
+        }
         app.refresh();
         app
+    }
+
+    /// Lets the precision toggle sweep re-typed copies of the trace; `copies`
+    /// must be made from this app's trace.
+    pub fn with_copies(mut self, copies: &'t Retyped<'t>) -> App<'t> {
+        debug_assert!(std::ptr::eq(copies.recorded(), self.recorded), "copies of another trace");
+        self.copies = Some(copies);
+        self
+    }
+
+    /// The diagnosis of the sweep on screen (in the view's dtype), once made.
+    pub fn diagnosis(&self) -> Option<&Diagnosed> {
+        self.diagnoses.get(self.trace.dtype())
+    }
+
+    /// Whether work is queued: the event loop draws a frame, then calls [`App::work`].
+    pub fn has_work(&self) -> bool {
+        self.work.is_some()
+    }
+
+    /// Does the queued work: a diagnosis, or the sweep in another dtype.
+    pub fn work(&mut self) {
+        match self.work.take() {
+            None => return,
+            Some(Work::Diagnose) => {
+                let replays = self.trace.dtype() == self.recorded.dtype();
+                let diagnosed = self.diagnoses.run(self.trace, replays);
+                self.message = Some(diagnosis_message(self.trace, diagnosed));
+            }
+            Some(Work::Retype(dtype)) => self.retype(dtype),
+        }
+        self.refresh();
+    }
+
+    /// Sweeps the trace re-typed into `dtype` up to the same step, anD diagnoses it if the recorded one was.
+    fn retype(&mut self, dtype: Dtype) {
+        let Some(copies) = self.copies else { return };
+        // The tangent sweep runs over the trace it was started on: forward mode ends here.
+        let left_forward = self.forward.take().is_some();
+        let cursor = self.sweep.cursor();
+        self.trace = copies.get(dtype);
+        self.sweep = Sweep::new(self.trace, LedgerMode::On);
+        self.tally = Tally::new(&self.sweep);
+        self.value_summaries.clear();
+        self.selection = Selection::default();
+        self.seek(cursor);
+        let recorded = self.recorded;
+        self.compare = (dtype != recorded.dtype()).then(|| Sweep::new(recorded, LedgerMode::On));
+        if self.diagnoses.get(recorded.dtype()).is_some() {
+            self.diagnoses.run(self.trace, false);
+        }
+        let note = if left_forward { "; forward mode ended (m starts it again)" } else { "" };
+        self.message = Some(precision_message(self) + note);
+    }
+
+    fn cycle_precision(&mut self) {
+        if self.copies.is_none() {
+            self.message = Some("the precision toggle needs the trace's copies (App::with_copies)".to_string());
+            return;
+        }
+        let dtype = next_dtype(self.recorded.dtype(), self.trace.dtype());
+        self.work = Some(Work::Retype(dtype));
+        self.message = Some(format!("sweeping in {dtype} …"));
+    }
+
+    fn ask_diagnosis(&mut self) {
+        match self.diagnosis() {
+            Some(diagnosed) => self.message = Some(diagnosis_message(self.trace, diagnosed)),
+            None => {
+                self.work = Some(Work::Diagnose);
+                self.message = Some(format!("diagnosing {} nodes in {} …", self.trace.nodes().len(), self.trace.dtype()));
+            }
+        }
+    }
+
+    /// Selects the origin behind the selected node, else the first origin.
+    fn jump_to_origin(&mut self) {
+        let Some(diagnosed) = self.diagnosis() else {
+            self.message = Some("no diagnosis yet: D runs it".to_string());
+            return;
+        };
+        let origin = diagnosed.origin_for(self.selected).or(diagnosed.diagnosis.first_origin());
+        match origin {
+            Some(origin) => {
+                let (node, letter) = (origin.node, origin.class.letter());
+                let text = format!("origin ({letter}) at '{}': {}", self.trace.node(node).id, origin.explanation);
+                self.jump(node);
+                self.message = Some(text);
+            }
+            None => self.message = Some(format!("every adjoint is finite in {}: no origin to trace back", self.trace.dtype())),
+        }
+    }
+
+    /// Selects the next (or previous) parameter that has a dominant path.
+    fn step_parameter(&mut self, forward: bool) {
+        let Some(diagnosed) = self.diagnosis() else {
+            self.message = Some("no diagnosis yet: D runs it".to_string());
+            return;
+        };
+        let params: Vec<usize> = diagnosed.diagnosis.paths.iter().map(|path| path.param).collect();
+        if params.is_empty() {
+            self.message = Some("no parameter reaches the output through edges of known gain".to_string());
+            return;
+        }
+        let shown = panes::paths_param(self);
+        let at = shown.and_then(|param| params.iter().position(|&listed| listed == param));
+        let len = params.len();
+        let next = match at {
+            Some(at) if forward => (at + 1) % len,
+            Some(at) => (at + len - 1) % len,
+            None => 0,
+        };
+        self.jump(params[next]);
+        self.paths_cursor = 0;
+    }
+
+    /// Rows in Flags: the sweep's flags so far, then the diagnosis's rows.
+    pub fn flag_rows(&self) -> usize {
+        self.sweep.flags().len() + self.diagnosis().map_or(0, |diagnosed| diagnosed.rows.len())
     }
 
     /// The theme in use.
@@ -249,6 +400,11 @@ impl<'t> App<'t> {
                 panes::pane(pane).click(self, row as usize);
             }
             Action::Scroll(pane, rows) => panes::pane(pane).move_cursor(self, Move::By(rows as isize)),
+            Action::Diagnose => self.ask_diagnosis(),
+            Action::CyclePrecision => self.cycle_precision(),
+            Action::JumpToOrigin => self.jump_to_origin(),
+            Action::NextParameter => self.step_parameter(true),
+            Action::PreviousParameter => self.step_parameter(false),
             Action::Type(_) | Action::Erase | Action::Complete | Action::Submit => {}
             Action::Verify => {
                 // Focusing the pane runs the checks the first time; the key reruns them after that.
@@ -418,6 +574,9 @@ impl<'t> App<'t> {
         }
         let node = self.selected;
         let cursor = self.sweep.cursor();
+        if let Some(compare) = &mut self.compare {
+            compare.seek(cursor);
+        }
         if self.selection.node != Some(node) {
             let value = &self.trace.node(node).value;
             self.selection.value = match value {
@@ -434,9 +593,17 @@ impl<'t> App<'t> {
                 Some(adjoint @ Value::Tensor(_)) => Some(Summary::of(adjoint.data(), self.trace.dtype())),
                 _ => None,
             };
+            self.contrast = match (self.sweep.adjoint(node), self.compare.as_ref().and_then(|compare| compare.adjoint(node))) {
+                (Some(here), Some(recorded)) => Some(Contrast::of(here, recorded)),
+                _ => None,
+            };
         }
         (self.selection.node, self.selection.cursor) = (Some(node), cursor);
-        self.flag_cursor = self.flag_cursor.min(self.sweep.flags().len().saturating_sub(1));
+        let param = panes::paths_param(self);
+        if param != self.paths_param {
+            (self.paths_param, self.paths_cursor) = (param, 0);
+        }
+        self.flag_cursor = self.flag_cursor.min(self.flag_rows().saturating_sub(1));
         self.keep_order_visible();
     }
 
@@ -450,4 +617,48 @@ impl<'t> App<'t> {
             self.order_offset = rank + 1 - rows;
         }
     }
+}
+
+/// What the diagnosis found, in one line for the status line.
+fn diagnosis_message(trace: &Trace, diagnosed: &Diagnosed) -> String {
+    let diagnosis = &diagnosed.diagnosis;
+    if let Some(origin) = diagnosis.first_origin() {
+        let more = diagnosis.origins.len() - 1;
+        let more = if more > 0 { format!(" (+{more} more)") } else { String::new() };
+        return format!(
+            "diagnosis: origin ({}) {} at '{}'{more}; o jumps to it",
+            origin.class.letter(),
+            origin.class.title(),
+            trace.node(origin.node).id
+        );
+    }
+    if diagnosis.is_clean() {
+        return format!("diagnosis: clean, no rule fired in {}", diagnosis.dtype);
+    }
+    let mut rules: Vec<&str> = diagnosis.findings.iter().map(|finding| super::diagnosis::rule_label(finding.rule)).collect();
+    rules.dedup();
+    rules.sort();
+    rules.dedup();
+    format!("diagnosis: every adjoint finite; {} findings ({}) in Flags, paths in 8", diagnosis.findings.len(), rules.join(", "))
+}
+
+/// What changes in the view's dtype, from the recorded trace's replay against f64.
+fn precision_message(app: &App) -> String {
+    let (dtype, recorded) = (app.trace.dtype(), app.recorded.dtype());
+    if dtype == recorded {
+        return format!("back to the recorded dtype {dtype}");
+    }
+    let Some(run) = app.diagnoses.get(recorded).and_then(|diagnosed| diagnosed.diagnosis.replay_in(dtype)) else {
+        return format!("swept in {dtype} (recorded {recorded}); D diagnoses it");
+    };
+    let id = |node: usize| app.trace.node(node).id.as_str();
+    let at = |finding: Option<&crate::diagnose::Finding>| {
+        finding.map_or("none".to_string(), |finding| format!("'{}' step {}", id(finding.node), finding.step + 1))
+    };
+    let lost = run.first_lost().map_or("none".to_string(), |lost| format!("'{}' step {}", id(lost.node), lost.step + 1));
+    format!(
+        "{dtype} vs f64: first overflow {} · underflow {} · lost contribution {lost}",
+        at(run.first_overflow()),
+        at(run.first_underflow())
+    )
 }

@@ -132,6 +132,10 @@ impl Default for KeyMap {
             (Key::char('v'), Verify),
             (Key::char('m'), ToggleForward),
             (Key::char('d'), CycleDirection),
+            (Key::char('8'), Focus(PaneId::Paths)),
+            (Key::char('D'), Diagnose),
+            (Key::char('p'), CyclePrecision),
+            (Key::char('o'), JumpToOrigin),
             (Key::char('z'), Zoom),
             (Key::char('t'), CycleTheme),
             (Key::char('?'), Help),
@@ -174,6 +178,8 @@ impl Default for KeyMap {
         bindings.push(Binding { key: Key::plain(K::Enter), scope: Scope::Pane(PaneId::Flags), action: Enter });
         bindings.push(Binding { key: Key::plain(K::Enter), scope: Scope::Pane(PaneId::Order), action: Enter });
         bindings.push(Binding { key: Key::plain(K::Enter), scope: Scope::Pane(PaneId::Verify), action: Enter });
+        let paths = [(Key::plain(K::Enter), Enter), (Key::char(']'), NextParameter), (Key::char('['), PreviousParameter)];
+        bindings.extend(paths.map(|(key, action)| Binding { key, scope: Scope::Pane(PaneId::Paths), action }));
         bindings.extend(global.map(|(key, action)| Binding { key, scope: Scope::Global, action }));
         KeyMap { bindings }
     }

@@ -9,7 +9,7 @@ use ratatui::layout::{Constraint, Layout, Position, Rect};
 pub const MIN_WIDTH: u16 = 80;
 /// Smallest terminal height the panes fit in.
 pub const MIN_HEIGHT: u16 = 24;
-/// From this width on, all six panes are shown at once.
+/// From this width on, every pane is shown at once.
 pub const WIDE: u16 = 120;
 
 /// The arrangement of one frame.
@@ -28,19 +28,19 @@ pub enum Screen {
 
 /// True for the panes that share one slot in the narrow layout.
 pub fn shares_slot(pane: PaneId) -> bool {
-    matches!(pane, PaneId::Inflow | PaneId::Edges | PaneId::Trend | PaneId::Verify)
+    matches!(pane, PaneId::Inflow | PaneId::Edges | PaneId::Trend | PaneId::Verify | PaneId::Paths)
 }
 
 /// True for the panes that take turns in the Trend slot of the wide layout.
 pub fn takes_corner(pane: PaneId) -> bool {
-    matches!(pane, PaneId::Trend | PaneId::Verify)
+    matches!(pane, PaneId::Trend | PaneId::Verify | PaneId::Paths)
 }
 
 /// The panes taking turns in `pane`'s slot, named as tabs in its title
 /// (empty when the slot is the pane's alone).
 pub fn slot_tabs(pane: PaneId, narrow: bool) -> &'static [PaneId] {
-    const NARROW: [PaneId; 4] = [PaneId::Inflow, PaneId::Edges, PaneId::Trend, PaneId::Verify];
-    const CORNER: [PaneId; 2] = [PaneId::Trend, PaneId::Verify];
+    const NARROW: [PaneId; 5] = [PaneId::Inflow, PaneId::Edges, PaneId::Trend, PaneId::Verify, PaneId::Paths];
+    const CORNER: [PaneId; 3] = [PaneId::Trend, PaneId::Verify, PaneId::Paths];
     match (narrow, shares_slot(pane), takes_corner(pane)) {
         (true, true, _) => &NARROW,
         (false, _, true) => &CORNER,
@@ -69,7 +69,8 @@ pub fn arrange(area: Rect, focus: PaneId, side: PaneId, corner: PaneId, zoomed: 
             body.layout(&Layout::horizontal([Constraint::Percentage(32), Constraint::Percentage(38), Constraint::Percentage(30)]));
         let [order, flags] = left.layout(&Layout::vertical([Constraint::Percentage(72), Constraint::Percentage(28)]));
         let [node, inflow] = middle.layout(&Layout::vertical([Constraint::Percentage(55), Constraint::Percentage(45)]));
-        let [edges, trend] = right.layout(&Layout::vertical([Constraint::Percentage(60), Constraint::Percentage(40)]));
+        let [edges, trend, paths] =
+            right.layout(&Layout::vertical([Constraint::Percentage(42), Constraint::Percentage(25), Constraint::Percentage(33)]));
         vec![
             (PaneId::Order, order),
             (PaneId::Node, node),
@@ -77,6 +78,7 @@ pub fn arrange(area: Rect, focus: PaneId, side: PaneId, corner: PaneId, zoomed: 
             (PaneId::Edges, edges),
             (corner, trend),
             (PaneId::Flags, flags),
+            (PaneId::Paths, paths),
         ]
     } else {
         let [left, right] = body.layout(&Layout::horizontal([Constraint::Percentage(48), Constraint::Percentage(52)]));

@@ -6,12 +6,14 @@
 mod action;
 mod app;
 mod checks;
+mod diagnosis;
 mod forward;
 mod keymap;
 mod layers;
 mod layout;
 mod neighbours;
 mod panes;
+mod precision;
 mod prompt;
 mod symbols;
 mod tally;
@@ -21,8 +23,10 @@ mod view;
 
 pub use action::{Action, PaneId};
 pub use app::{App, Overlay};
+pub use diagnosis::{AUTO_NODES, Work};
 pub use keymap::{Binding, Key, KeyMap, Scope};
 pub use layout::{MIN_HEIGHT, MIN_WIDTH};
+pub use precision::Retyped;
 pub use symbols::flag_symbol;
 pub use terminal::{ViewError, open, view};
 pub use theme::{SHIPPED, Theme, ThemeError, no_color_requested};

@@ -1,6 +1,8 @@
-//! The symbols that carry meaning without colour: sweep states and flag kinds.
+//! The symbols that carry meaning without colour: sweep states, flag kinds
+//! and the diagnosis's origins and rules.
 
 use super::theme::Theme;
+use crate::diagnose::{Finding, Measure, Rule};
 use crate::sweep::FlagKind;
 use crate::verify::Band;
 use ratatui::style::Style;
@@ -58,6 +60,42 @@ pub fn band_style(theme: &Theme, band: Band) -> Style {
 /// Every flag kind, for the legend in the help.
 pub const FLAG_KINDS: [FlagKind; 3] = [FlagKind::NonFiniteValue, FlagKind::NonFinitePartial, FlagKind::NonFiniteAdjoint];
 
+/// Marker of the origin of a non-finite adjoint.
+pub const ORIGIN: &str = "◆";
+
+/// Whether a finding is about a number too large (else too small, or non-finite).
+fn is_large(finding: &Finding) -> bool {
+    match finding.rule {
+        Rule::Overflow | Rule::NearOverflow | Rule::Exploding => true,
+        Rule::Gain => finding.measure == Measure::Gain && finding.value >= finding.threshold,
+        Rule::NonFinite | Rule::Underflow | Rule::Vanishing => false,
+    }
+}
+
+/// Each diagnosis finding's symbol: one shape per rule (a gain by its
+/// direction), none of them a sweep-state marker or a flag symbol.
+pub fn finding_symbol(finding: &Finding) -> &'static str {
+    match finding.rule {
+        Rule::NonFinite => "!",
+        Rule::Overflow => "⇑",
+        Rule::NearOverflow => "↗",
+        Rule::Underflow => "⇓",
+        Rule::Vanishing => "↓",
+        Rule::Exploding => "↑",
+        Rule::Gain if is_large(finding) => "≫",
+        Rule::Gain => "≪",
+    }
+}
+
+/// Each diagnosis finding's theme role: too large, too small, or non-finite.
+pub fn finding_style(theme: &Theme, finding: &Finding) -> Style {
+    match finding.rule {
+        Rule::NonFinite => theme.flag_adjoint,
+        _ if is_large(finding) => theme.flag_large,
+        _ => theme.flag_small,
+    }
+}
+
 /// A log-scale bar of `width` cells for a norm: one cell per two decades
 /// from 1e-8 (empty) to 1e8 (full), with eighth-cell steps. Non-finite
 /// norms fill the bar with `!`.
@@ -104,5 +142,35 @@ mod tests {
         let bands: Vec<&str> = [Band::ProbablyWrong, Band::Doubtful, Band::Acceptable, Band::Good].map(band_symbol).to_vec();
         assert!(bands.iter().enumerate().all(|(at, band)| !bands[at + 1..].contains(band) && !symbols.contains(band)));
         assert_ne!(DIFFERS, AGREES);
+    }
+
+    #[test]
+    fn finding_symbols_differ_from_each_other_and_from_flags() {
+        use crate::diagnose::Site;
+        let finding = |rule, value| Finding {
+            rule,
+            node: 0,
+            step: 0,
+            site: Site::Outgoing,
+            measure: Measure::Gain,
+            value,
+            threshold: 100.0,
+            element: 0,
+            count: 1,
+            class: None,
+        };
+        let mut findings: Vec<Finding> = Rule::ALL.iter().map(|&rule| finding(rule, 1e3)).collect();
+        findings.push(finding(Rule::Gain, 1e-3));
+        let mut symbols: Vec<&str> = findings.iter().filter(|f| f.rule != Rule::NonFinite).map(finding_symbol).collect();
+        symbols.push(ORIGIN);
+        let count = symbols.len();
+        symbols.sort();
+        symbols.dedup();
+        assert_eq!(symbols.len(), count, "{symbols:?}");
+        let bands = [Band::ProbablyWrong, Band::Doubtful, Band::Acceptable, Band::Good].map(band_symbol);
+        let taken: Vec<&str> =
+            FLAG_KINDS.iter().map(|&kind| flag_symbol(kind)).chain([DONE, CURRENT, PENDING, DIFFERS, AGREES]).chain(bands).collect();
+        assert!(!symbols.iter().any(|symbol| taken.contains(symbol)), "{symbols:?}");
+        assert_eq!(Span::raw(symbols.concat()).width(), symbols.len(), "one column each");
     }
 }

@@ -6,6 +6,7 @@ use super::action::Action;
 use super::app::App;
 use super::keymap::Key;
 use super::layout;
+use super::precision::Retyped;
 use super::theme::Theme;
 use crate::trace::{self, LoadError, Trace};
 use ratatui::DefaultTerminal;
@@ -135,13 +136,19 @@ impl trace::Progress for SharedProgress {
 }
 
 fn run(terminal: &mut DefaultTerminal, trace: &Trace, label: &str, themes: Vec<Theme>) -> Result<(), ViewError> {
-    let mut app = App::new(trace, label, themes);
+    let copies = Retyped::new(trace);
+    let mut app = App::new(trace, label, themes).with_copies(&copies);
     while !app.quit {
         app.resize(terminal.size()?.into());
         terminal.draw(|frame| frame.render_widget(&app, frame.area()))?;
         // Long work (verifying a big trace) runs once its message is on screen.
         if app.has_pending() {
             app.run_pending();
+            continue;
+        }
+        // The frame just drawn says what is under way; do it, then draw again.
+        if app.has_work() {
+            app.work();
             continue;
         }
         match event::read()? {

@@ -80,6 +80,9 @@ struct ThemeFile {
     flag_value: RoleFile,
     flag_partial: RoleFile,
     flag_adjoint: RoleFile,
+    flag_origin: RoleFile,
+    flag_large: RoleFile,
+    flag_small: RoleFile,
     chart: RoleFile,
     chart_group: RoleFile,
     status: RoleFile,
@@ -115,6 +118,12 @@ pub struct Theme {
     pub flag_partial: Style,
     /// A non-finite adjoint.
     pub flag_adjoint: Style,
+    /// Where a non-finite adjoint was born (a diagnosis origin).
+    pub flag_origin: Style,
+    /// A diagnosis finding of a number too large: overflow, near overflow, exploding, gain above 1.
+    pub flag_large: Style,
+    /// A diagnosis finding of a number too small: underflow, vanishing, gain below 1.
+    pub flag_small: Style,
     /// The magnitude line.
     pub chart: Style,
     /// The per-group bars.
@@ -179,6 +188,9 @@ impl Theme {
             flag_value: file.flag_value.style(),
             flag_partial: file.flag_partial.style(),
             flag_adjoint: file.flag_adjoint.style(),
+            flag_origin: file.flag_origin.style(),
+            flag_large: file.flag_large.style(),
+            flag_small: file.flag_small.style(),
             chart: file.chart.style(),
             chart_group: file.chart_group.style(),
             status: file.status.style(),
@@ -248,6 +260,9 @@ impl Theme {
             flag_value: strip(self.flag_value, Modifier::BOLD),
             flag_partial: strip(self.flag_partial, Modifier::BOLD),
             flag_adjoint: strip(self.flag_adjoint, Modifier::BOLD),
+            flag_origin: strip(self.flag_origin, Modifier::BOLD),
+            flag_large: strip(self.flag_large, Modifier::BOLD),
+            flag_small: strip(self.flag_small, Modifier::BOLD),
             chart: plain(self.chart),
             chart_group: plain(self.chart_group),
             status: strip(self.status, Modifier::REVERSED),

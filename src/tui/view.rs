@@ -7,7 +7,7 @@ use super::keymap::Scope;
 use super::layout::{self, MIN_HEIGHT, MIN_WIDTH, Screen};
 use super::panes;
 use super::prompt::Prompt;
-use super::symbols::{self, CURRENT, DONE, FLAG_KINDS, PENDING};
+use super::symbols::{self, CURRENT, DONE, FLAG_KINDS, ORIGIN, PENDING};
 use crate::verify::Band;
 use ratatui::buffer::Buffer;
 use ratatui::layout::{Constraint, Flex, Layout, Rect};
@@ -88,6 +88,11 @@ fn status_line(app: &App, area: Rect, buf: &mut Buffer) {
     };
     // The title only where there is room: at 80 columns the hints matter more.
     let title = if area.width >= layout::WIDE { format!(" {} │", app.trace.title()) } else { String::new() };
+    let dtype = if app.trace.dtype() == app.recorded.dtype() {
+        app.trace.dtype().to_string()
+    } else {
+        format!("{} (recorded {})", app.trace.dtype(), app.recorded.dtype())
+    };
     let left = match &app.forward {
         Some(forward) => {
             let next = match forward.current() {
@@ -95,9 +100,9 @@ fn status_line(app: &App, area: Rect, buf: &mut Buffer) {
                 None => "tangent sweep done".to_string(),
             };
             let (cursor, len) = (forward.sweep.cursor(), forward.sweep.len());
-            format!(" ebb │ FORWARD MODE │{title} {} │ tangent step {cursor}/{len} │ {next} ", app.trace.dtype())
+            format!(" ebb │ FORWARD MODE │{title} {dtype} │ tangent step {cursor}/{len} │ {next} ")
         }
-        None => format!(" ebb │{title} {} │ step {}/{} │ {next} ", app.trace.dtype(), sweep.cursor(), sweep.len()),
+        None => format!(" ebb │{title} {dtype} │ step {}/{} │ {next} ", sweep.cursor(), sweep.len()),
     };
     let mut spans = vec![Span::styled(left, theme.status)];
     match &app.message {
@@ -189,6 +194,11 @@ fn help(app: &App, scroll: usize, area: Rect, buf: &mut Buffer) {
         flag_line.push(Span::styled(format!("{} {}  ", symbols::flag_symbol(kind), kind.name()), symbols::flag_style(theme, kind)));
     }
     lines.push(Line::from(flag_line));
+    lines.push(Line::from(vec![
+        Span::styled(format!("  {ORIGIN} origin of a non-finite adjoint (a–e)  "), theme.flag_origin),
+        Span::styled("⇑ overflow  ↗ near overflow  ↑ exploding  ≫ gain above  ", theme.flag_large),
+        Span::styled("⇓ underflow  ↓ vanishing  ≪ gain below", theme.flag_small),
+    ]));
     lines.push(Line::styled("  bar: log10 ‖adjoint‖, one cell per two decades from 1e-8 to 1e8", theme.muted));
     lines.push(Line::styled(
         "  Panes: 1 Order (sweep order)  2 Node (detail)  3 Inflow (contributions)  4 Edges (neighbours)  5 Trend (magnitudes)  6 Flags",
@@ -201,6 +211,7 @@ fn help(app: &App, scroll: usize, area: Rect, buf: &mut Buffer) {
     }
     band_line.push(Span::styled(format!("{} a recorded element that differs from the op rule", symbols::DIFFERS), theme.flag_value));
     lines.push(Line::from(band_line));
+    lines.push(Line::styled("  8 Paths (dominant paths, group norms)", theme.muted));
     let width = area.width.saturating_sub(4).min(100);
     let height = area.height.saturating_sub(2);
     let [popup] = area.layout(&Layout::horizontal([Constraint::Length(width)]).flex(Flex::Center));

@@ -9,8 +9,11 @@ mod inflow;
 mod node;
 mod order;
 mod order_forward;
+mod paths;
 mod trend;
 mod verify;
+
+pub use paths::shown_param as paths_param;
 
 use super::action::PaneId;
 use super::app::App;
@@ -70,6 +73,7 @@ pub fn pane(id: PaneId) -> &'static dyn Pane {
         PaneId::Trend => &trend::TrendPane,
         PaneId::Flags => &flags::FlagsPane,
         PaneId::Verify => &verify::VerifyPane,
+        PaneId::Paths => &paths::PathsPane,
     }
 }
 
@@ -98,5 +102,75 @@ pub fn fit(text: &str, width: usize) -> String {
     } else {
         let cut: String = text.chars().take(width - 1).collect();
         format!("{cut}…")
+    }
+}
+
+/// `text` broken at spaces into lines of at most `width` columns (a word
+/// longer than that is cut), for sentences in a pane.
+pub fn wrap(text: &str, width: usize) -> Vec<String> {
+    let width = width.max(1);
+    let mut lines: Vec<String> = Vec::new();
+    let mut line = String::new();
+    for word in text.split(' ').filter(|word| !word.is_empty()) {
+        let (used, needed) = (line.chars().count(), word.chars().count());
+        if used > 0 && used + 1 + needed > width {
+            lines.push(std::mem::take(&mut line));
+        }
+        if !line.is_empty() {
+            line.push(' ');
+        }
+        line.push_str(word);
+        while line.chars().count() > width {
+            let rest: String = line.chars().skip(width).collect();
+            lines.push(line.chars().take(width).collect());
+            line = rest;
+        }
+    }
+    if !line.is_empty() {
+        lines.push(line);
+    }
+    lines
+}
+
+/// Node ids joined by arrows, both ends kept and the middle elided to fit `width` columns.
+pub fn chain_text(ids: &[&str], width: usize) -> String {
+    let full = ids.join(" → ");
+    if full.chars().count() <= width || ids.len() <= 2 {
+        return fit(&full, width).trim_end().to_string();
+    }
+    // Keep as many nodes from each end as fit around the elision mark.
+    let (mut head, mut tail) = (1, 1);
+    let text = |head: usize, tail: usize| {
+        let omitted = ids.len() - head - tail;
+        format!("{} → … {omitted} … → {}", ids[..head].join(" → "), ids[ids.len() - tail..].join(" → "))
+    };
+    loop {
+        let grown = if head <= tail { (head + 1, tail) } else { (head, tail + 1) };
+        if grown.0 + grown.1 >= ids.len() || text(grown.0, grown.1).chars().count() > width {
+            break;
+        }
+        (head, tail) = grown;
+    }
+    fit(&text(head, tail), width).trim_end().to_string()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn wrapping_keeps_words_and_width() {
+        assert_eq!(wrap("log of 0 is −inf", 8), ["log of 0", "is −inf"]);
+        assert_eq!(wrap("abcdefghij", 4), ["abcd", "efgh", "ij"]);
+        assert!(wrap("", 5).is_empty());
+    }
+
+    #[test]
+    fn long_chains_keep_both_ends() {
+        let ids = ["a", "b", "c", "d", "e", "f", "g"];
+        assert_eq!(chain_text(&ids, 80), "a → b → c → d → e → f → g");
+        let short = chain_text(&ids, 20);
+        assert!(short.starts_with("a → ") && short.ends_with(" → g"), "{short}");
+        assert!(short.contains('…') && short.chars().count() <= 20, "{short}");
     }
 }

@@ -1,8 +1,12 @@
 //! Node: the selected node's op, attributes, group, call site, shape, forward
 //! value (with a summary for tensors), the partial on each input edge, its
-//! adjoint so far, its flags, and a scrollable view of a tensor's elements.
+//! adjoint so far (and in the recorded dtype while the precision toggle is
+//! on), the origin of a non-finite adjoint in one sentence with its chain to
+//! the parameters it reached, its flags and findings, and a scrollable view
+//! of a tensor's elements.
 
-use super::{Move, Pane, fit, value_text};
+use super::{Move, Pane, chain_text, fit, fit_number, value_text, wrap};
+use crate::diagnose::Rule;
 use crate::format::{compact, number, shape};
 use crate::ops::Attrs;
 use crate::stats::Summary;
@@ -137,6 +141,8 @@ impl Pane for NodePane {
             }
             (None, None) => lines.push(labelled("adjoint", adjoint_note, theme.muted, theme.muted)),
         }
+        lines.extend(precision_lines(app, node, value_width));
+        lines.extend(diagnosis_lines(app, node, value_width));
         for edge in app.selection.edges.iter().filter(|edge| edge.side == Side::Input) {
             let input = &trace.node(edge.node).id;
             lines.push(labelled(&format!("∂ in {}", edge.slot), format!("← {input}  {}", edge.partial), theme.muted, theme.text));
@@ -158,10 +164,17 @@ impl Pane for NodePane {
             lines.push(labelled("flag", text, theme.muted, style));
         }
         if let crate::tensor::Value::Tensor(tensor) = &recorded.value {
-            // In forward mode the tangent takes the adjoint's column.
+            // In forward mode the tangent takes the adjoint's column; while the precision
+            // toggle is on, a third column holds the adjoint in the recorded dtype.
             let tangent = app.forward.as_ref().map(|forward| forward.tangent(node));
             let column = if tangent.is_some() { "tangent" } else { "adjoint" };
-            lines.push(Line::styled(format!("{:>8}  {:<24}{}", "element", "value", column), theme.muted));
+            let compared =
+                app.compare.as_ref().filter(|_| tangent.is_none()).map(|compare| compare.adjoint(node).map(|value| value.data()));
+            let header = match compared {
+                None => format!("{:>8}  {:<24}{}", "element", "value", column),
+                Some(_) => format!("{:>8}  {:<24}{:<24}{}", "element", "value", format!("adjoint {}", trace.dtype()), app.recorded.dtype()),
+            };
+            lines.push(Line::styled(header, theme.muted));
             let shown = (area.height as usize).saturating_sub(lines.len());
             let adjoint_data = match tangent {
                 Some(tangent) => tangent.map(|tangent| tangent.map_or(&[][..], |t| t.data())),
@@ -172,7 +185,15 @@ impl Pane for NodePane {
                 let zero = matches!(tangent, Some(Some(None)));
                 let adjoint =
                     adjoint_data.and_then(|data| data.get(index)).map_or(if zero { "0" } else { "—" }.to_string(), |&x| number(x));
-                lines.push(Line::styled(format!("{index:>8}  {value} {adjoint}"), theme.text));
+                let row = match compared {
+                    None => format!("{index:>8}  {value} {adjoint}"),
+                    Some(data) => {
+                        let here = adjoint_data.and_then(|data| data.get(index)).map_or("—".to_string(), |&x| fit_number(x, 23));
+                        let there = data.and_then(|data| data.get(index)).map_or("—".to_string(), |&x| fit_number(x, 23));
+                        format!("{index:>8}  {value} {here:<23} {there}")
+                    }
+                };
+                lines.push(Line::styled(row, theme.text));
             }
         }
         Paragraph::new(lines).render(area, buf);
@@ -182,4 +203,112 @@ impl Pane for NodePane {
         let len = app.trace.node(app.selected).value.len();
         app.node_scroll = motion.apply(app.node_scroll, len);
     }
+}
+
+/// While the precision toggle is on: the adjoint in the recorded dtype, which
+/// entries became zero or non-finite, and what the replay against f64 found here.
+fn precision_lines<'a>(app: &App, node: usize, width: usize) -> Vec<Line<'a>> {
+    let theme = app.theme();
+    let Some(compare) = &app.compare else { return Vec::new() };
+    let (dtype, recorded) = (app.trace.dtype(), app.recorded.dtype());
+    let mut lines = Vec::new();
+    match (app.sweep.adjoint(node), compare.adjoint(node), &app.contrast) {
+        (Some(crate::tensor::Value::Scalar(here)), Some(crate::tensor::Value::Scalar(there)), _) => {
+            let changed = if here == there { theme.text } else { theme.key };
+            let text = format!("{} (recorded) vs {} in {dtype}", number(*there), number(*here));
+            lines.push(labelled(&format!("in {recorded}"), fit(&text, width), theme.muted, changed));
+        }
+        (Some(_), Some(_), Some(contrast)) => {
+            let text = format!("‖·‖ {} (recorded) vs {} in {dtype}", compact(contrast.recorded_norm), compact(contrast.norm));
+            lines.push(labelled(&format!("in {recorded}"), fit(&text, width), theme.muted, theme.text));
+            let counts = [
+                (contrast.zero_here_only, format!("zero in {dtype}, non-zero in {recorded}")),
+                (contrast.zero_recorded_only, format!("zero in {recorded}, non-zero in {dtype}")),
+                (contrast.finiteness_differs, "finite in one dtype only".to_string()),
+            ];
+            for (count, what) in counts.into_iter().filter(|(count, _)| *count > 0) {
+                lines.push(labelled("", fit(&format!("{count} of {} entries {what}", contrast.len), width), theme.muted, theme.key));
+            }
+        }
+        (None, None, _) => {}
+        (here, there, _) => {
+            let show = |value: Option<&crate::tensor::Value>| value.map_or("none yet".to_string(), |value| value_text(value, 24));
+            let text = format!("{} (recorded) vs {} in {dtype}", show(there), show(here));
+            lines.push(labelled(&format!("in {recorded}"), fit(&text, width), theme.muted, theme.text));
+        }
+    }
+    let replay = app.diagnoses.get(recorded).and_then(|diagnosed| diagnosed.diagnosis.replay_in(dtype));
+    if let Some(run) = replay {
+        for finding in run.at_node(node).take(2) {
+            let text = format!("{} {}", symbols::finding_symbol(finding), finding.describe(app.trace, dtype));
+            for (at, part) in wrap(&text, width).into_iter().enumerate() {
+                lines.push(labelled(if at == 0 { "vs f64" } else { "" }, part, theme.muted, symbols::finding_style(theme, finding)));
+            }
+        }
+        if let Some(lost) = run.lost.iter().find(|lost| lost.node == node) {
+            let text = format!(
+                "{} from '{}' lost {:.0}% at step {}: {} + {} gave {}",
+                number(lost.contribution),
+                app.trace.node(lost.from).id,
+                100.0 * lost.lost,
+                lost.step + 1,
+                compact(lost.before),
+                compact(lost.contribution),
+                compact(lost.after)
+            );
+            for (at, part) in wrap(&text, width).into_iter().enumerate() {
+                lines.push(labelled(if at == 0 { "lost" } else { "" }, part, theme.muted, theme.flag_small));
+            }
+        }
+    }
+    lines
+}
+
+/// Parameters' chains listed in full before the rest are counted.
+const CHAINS_SHOWN: usize = 3;
+/// Findings listed in full before the rest are counted.
+const FINDINGS_SHOWN: usize = 4;
+
+/// The origin behind the node in one sentence, the chain from it to each
+/// parameter it reached, and the other rules' findings at the node.
+fn diagnosis_lines<'a>(app: &App, node: usize, width: usize) -> Vec<Line<'a>> {
+    let theme = app.theme();
+    let Some(diagnosed) = app.diagnosis() else { return Vec::new() };
+    let trace = app.trace;
+    let mut lines = Vec::new();
+    if let Some(sentence) = diagnosed.sentence(trace, node) {
+        for (at, part) in wrap(&sentence, width).into_iter().enumerate() {
+            lines.push(labelled(if at == 0 { "origin" } else { "" }, part, theme.muted, theme.flag_origin));
+        }
+    }
+    if let Some(origin) = diagnosed.origin_for(node) {
+        for (at, &param) in origin.reached.iter().take(CHAINS_SHOWN).enumerate() {
+            let chain = diagnosed.diagnosis.chain_to(param);
+            let ids: Vec<&str> = chain.iter().map(|&link| trace.node(link).id.as_str()).collect();
+            let hops = chain.len().saturating_sub(1);
+            let head = format!("{hops} {} to {}: ", if hops == 1 { "hop" } else { "hops" }, trace.node(param).id);
+            let text = head.clone() + &chain_text(&ids, width.saturating_sub(head.chars().count()));
+            lines.push(labelled(if at == 0 { "chain" } else { "" }, text, theme.muted, theme.text));
+        }
+        match origin.reached.len() {
+            0 => lines.push(labelled("chain", "reaches no parameter".to_string(), theme.muted, theme.muted)),
+            count if count > CHAINS_SHOWN => {
+                let more = count - CHAINS_SHOWN;
+                let text = format!("… and {more} more {}", if more == 1 { "parameter" } else { "parameters" });
+                lines.push(labelled("", text, theme.muted, theme.muted))
+            }
+            _ => {}
+        }
+    }
+    let findings: Vec<_> = diagnosed.diagnosis.findings_at(node).filter(|finding| finding.rule != Rule::NonFinite).collect();
+    for finding in findings.iter().take(FINDINGS_SHOWN) {
+        let text = format!("{} {}", symbols::finding_symbol(finding), finding.describe(trace, trace.dtype()));
+        for (at, part) in wrap(&text, width).into_iter().enumerate() {
+            lines.push(labelled(if at == 0 { "finding" } else { "" }, part, theme.muted, symbols::finding_style(theme, finding)));
+        }
+    }
+    if findings.len() > FINDINGS_SHOWN {
+        lines.push(labelled("", format!("… and {} more (Flags lists them)", findings.len() - FINDINGS_SHOWN), theme.muted, theme.muted));
+    }
+    lines
 }
