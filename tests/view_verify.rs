@@ -147,7 +147,7 @@ fn the_verify_pane_says_plainly_when_everything_agrees() {
     app.update(Action::Verify);
     let buf = draw(&mut app, 80, 24);
     // At 80 columns Verify joins the shared slot; unfocused tabs go by number.
-    assert!(contains(&buf, "3 │ 4 │ 5 │ 7 Verify · all agree"), "{}", rows(&buf).join("\n"));
+    assert!(contains(&buf, "3 │ 4 │ 5 │ 7 Verify │ 8 · all agree"), "{}", rows(&buf).join("\n"));
     assert!(contains(&buf, "= every check agrees within 1e-4"));
     assert!(contains(&buf, "verified in"));
 }

@@ -9,7 +9,7 @@ use ratatui::layout::{Constraint, Layout, Position, Rect};
 pub const MIN_WIDTH: u16 = 80;
 /// Smallest terminal height the panes fit in.
 pub const MIN_HEIGHT: u16 = 24;
-/// From this width on, every pane is shown at once.
+/// From this width on, all six slots are shown at once.
 pub const WIDE: u16 = 120;
 
 /// The arrangement of one frame.
@@ -69,8 +69,7 @@ pub fn arrange(area: Rect, focus: PaneId, side: PaneId, corner: PaneId, zoomed: 
             body.layout(&Layout::horizontal([Constraint::Percentage(32), Constraint::Percentage(38), Constraint::Percentage(30)]));
         let [order, flags] = left.layout(&Layout::vertical([Constraint::Percentage(72), Constraint::Percentage(28)]));
         let [node, inflow] = middle.layout(&Layout::vertical([Constraint::Percentage(55), Constraint::Percentage(45)]));
-        let [edges, trend, paths] =
-            right.layout(&Layout::vertical([Constraint::Percentage(42), Constraint::Percentage(25), Constraint::Percentage(33)]));
+        let [edges, trend] = right.layout(&Layout::vertical([Constraint::Percentage(60), Constraint::Percentage(40)]));
         vec![
             (PaneId::Order, order),
             (PaneId::Node, node),
@@ -78,7 +77,6 @@ pub fn arrange(area: Rect, focus: PaneId, side: PaneId, corner: PaneId, zoomed: 
             (PaneId::Edges, edges),
             (corner, trend),
             (PaneId::Flags, flags),
-            (PaneId::Paths, paths),
         ]
     } else {
         let [left, right] = body.layout(&Layout::horizontal([Constraint::Percentage(48), Constraint::Percentage(52)]));
@@ -140,5 +138,10 @@ mod tests {
             panic!()
         };
         assert_eq!(panes[2].0, PaneId::Verify);
+        // So does Paths.
+        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Paths, PaneId::Inflow, PaneId::Paths, false) else {
+            panic!()
+        };
+        assert!(panes.iter().any(|(pane, _)| *pane == PaneId::Paths) && panes.len() == 6);
     }
 }
