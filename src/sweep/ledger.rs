@@ -43,12 +43,6 @@ impl Ledger {
         Ledger { entries: Vec::new(), step_starts: Vec::new(), last: vec![NONE; nodes] }
     }
 
-    /// Makes room for `steps` more steps and `contributions` more entries.
-    pub(super) fn reserve(&mut self, steps: usize, contributions: usize) {
-        self.step_starts.reserve(steps);
-        self.entries.reserve(contributions);
-    }
-
     pub(super) fn begin_step(&mut self) {
         self.step_starts.push(self.entries.len() as u32);
     }

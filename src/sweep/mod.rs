@@ -296,12 +296,6 @@ impl<'t> Sweep<'t> {
 
     /// Runs every remaining step.
     pub fn run_to_end(&mut self) -> usize {
-        if let Some(ledger) = &mut self.ledger {
-            // One allocation instead of repeated doubling (and copying) of a large ledger.
-            let remaining = self.trace.sweep_order().len() - self.cursor;
-            let contributions = self.trace.edge_count().saturating_sub(ledger.entries().len());
-            ledger.reserve(remaining, contributions);
-        }
         self.run_to(|_| false)
     }
 
