@@ -3,14 +3,15 @@
 //! sentence and chain in Node, dominant paths and group ratios in Paths, and
 //! the precision toggle; with the expected numbers derived independently.
 
+mod common;
+
+use common::screen::{draw, find, row_with, rows, screen};
+
 use ebb::dtype::Dtype;
 use ebb::sweep::{LedgerMode, Sweep};
 use ebb::trace::{self, Trace};
 use ebb::tui::{Action, App, PaneId, Retyped, Theme};
-use ratatui::Terminal;
-use ratatui::backend::TestBackend;
 use ratatui::buffer::Buffer;
-use ratatui::layout::Rect;
 use std::path::Path;
 
 fn demo(name: &str) -> Trace {
@@ -29,36 +30,6 @@ fn settle(app: &mut App) {
     while app.has_work() {
         app.work();
     }
-}
-
-fn draw(app: &mut App, width: u16, height: u16) -> Buffer {
-    app.resize(Rect::new(0, 0, width, height));
-    let mut terminal = Terminal::new(TestBackend::new(width, height)).unwrap();
-    terminal.draw(|frame| frame.render_widget(&*app, frame.area())).unwrap();
-    terminal.backend().buffer().clone()
-}
-
-fn rows(buf: &Buffer) -> Vec<String> {
-    (0..buf.area.height).map(|y| (0..buf.area.width).map(|x| buf[(x, y)].symbol()).collect()).collect()
-}
-
-#[track_caller]
-fn find(buf: &Buffer, needle: &str) -> (u16, u16) {
-    for (y, row) in rows(buf).iter().enumerate() {
-        if let Some(at) = row.find(needle) {
-            return (row[..at].chars().count() as u16, y as u16);
-        }
-    }
-    panic!("{needle:?} is not on screen:\n{}", rows(buf).join("\n"));
-}
-
-#[track_caller]
-fn row_with(buf: &Buffer, needle: &str) -> String {
-    rows(buf)[find(buf, needle).1 as usize].clone()
-}
-
-fn screen(buf: &Buffer) -> String {
-    rows(buf).join("\n")
 }
 
 /// The text inside the pane whose title holds `title`, one string per row.

@@ -2,14 +2,14 @@
 //! see in each pane (numbers, markers, flag symbols), and separately the
 //! colours that carry meaning.
 
+mod common;
+
+use common::screen::{contains, draw, find, numbers_in, row_with, rows};
+
 use ebb::dtype::Dtype;
 use ebb::record::Tape;
 use ebb::trace::{Trace, validate};
 use ebb::tui::{Action, App, PaneId, Theme};
-use ratatui::Terminal;
-use ratatui::backend::TestBackend;
-use ratatui::buffer::Buffer;
-use ratatui::layout::Rect;
 use ratatui::style::Color;
 
 fn teaching() -> Trace {
@@ -32,39 +32,6 @@ fn app(trace: &Trace) -> App<'_> {
     App::new(trace, "test", vec![Theme::default_theme(), Theme::shipped("light").unwrap()])
 }
 
-fn draw(app: &mut App, width: u16, height: u16) -> Buffer {
-    app.resize(Rect::new(0, 0, width, height));
-    let mut terminal = Terminal::new(TestBackend::new(width, height)).unwrap();
-    terminal.draw(|frame| frame.render_widget(&*app, frame.area())).unwrap();
-    terminal.backend().buffer().clone()
-}
-
-fn rows(buf: &Buffer) -> Vec<String> {
-    (0..buf.area.height).map(|y| (0..buf.area.width).map(|x| buf[(x, y)].symbol()).collect()).collect()
-}
-
-/// The first cell where `needle` starts, as (column, row).
-#[track_caller]
-fn find(buf: &Buffer, needle: &str) -> (u16, u16) {
-    for (y, row) in rows(buf).iter().enumerate() {
-        if let Some(at) = row.find(needle) {
-            return (row[..at].chars().count() as u16, y as u16);
-        }
-    }
-    panic!("{needle:?} is not on screen:\n{}", rows(buf).join("\n"));
-}
-
-/// The text of the row holding `needle`.
-#[track_caller]
-fn row_with(buf: &Buffer, needle: &str) -> String {
-    let (_, y) = find(buf, needle);
-    rows(buf)[y as usize].clone()
-}
-
-fn contains(buf: &Buffer, needle: &str) -> bool {
-    rows(buf).iter().any(|row| row.contains(needle))
-}
-
 // Teaching demo, closed form: p = 2.5, c = 1, s = 0.4, k = 0.1, q = exp(−s·p) = e⁻¹,
 // profit = (p − c)·q − k·q². By the chain rule ∂profit/∂q = (p − c) − 2kq, reached in
 // three contributions: −kq and −kq through q·q, then p − c through (p − c)·q.
@@ -75,10 +42,6 @@ const Q: f64 = 0.36787944117144233; // e⁻¹ (from memory; checked below agains
 fn number_after(line: &str, label: &str) -> f64 {
     let rest = line.split(label).nth(1).unwrap_or_else(|| panic!("{label:?} not in {line}"));
     numbers_in(rest)[0]
-}
-
-fn numbers_in(text: &str) -> Vec<f64> {
-    text.split_whitespace().filter_map(|word| word.parse::<f64>().ok()).collect()
 }
 
 #[test]

@@ -4,59 +4,25 @@
 //! the teaching demo's dual numbers and directional derivative against the
 //! closed form.
 
+mod common;
+
+use common::screen::{contains, draw, find, numbers_in, row_with, rows};
+
 use ebb::dtype::Dtype;
 use ebb::ops::{Attrs, Op};
 use ebb::record::Tape;
 use ebb::tensor::Value;
 use ebb::trace::{PartialRepr, Trace, validate};
 use ebb::tui::{Action, App, PaneId, Theme};
-use ratatui::Terminal;
-use ratatui::backend::TestBackend;
 use ratatui::buffer::Buffer;
-use ratatui::layout::Rect;
 
 fn app(trace: &Trace) -> App<'_> {
     App::new(trace, "test", vec![Theme::default_theme()])
 }
 
-fn draw(app: &mut App, width: u16, height: u16) -> Buffer {
-    app.resize(Rect::new(0, 0, width, height));
-    let mut terminal = Terminal::new(TestBackend::new(width, height)).unwrap();
-    terminal.draw(|frame| frame.render_widget(&*app, frame.area())).unwrap();
-    terminal.backend().buffer().clone()
-}
-
-fn rows(buf: &Buffer) -> Vec<String> {
-    (0..buf.area.height).map(|y| (0..buf.area.width).map(|x| buf[(x, y)].symbol()).collect()).collect()
-}
-
-#[track_caller]
-fn find(buf: &Buffer, needle: &str) -> (u16, u16) {
-    for (y, row) in rows(buf).iter().enumerate() {
-        if let Some(at) = row.find(needle) {
-            return (row[..at].chars().count() as u16, y as u16);
-        }
-    }
-    panic!("{needle:?} is not on screen:\n{}", rows(buf).join("\n"));
-}
-
-#[track_caller]
-fn row_with(buf: &Buffer, needle: &str) -> String {
-    let (_, y) = find(buf, needle);
-    rows(buf)[y as usize].clone()
-}
-
-fn contains(buf: &Buffer, needle: &str) -> bool {
-    rows(buf).iter().any(|row| row.contains(needle))
-}
-
 /// The columns `from..from + width` of every row: one pane of the wide layout.
 fn columns(buf: &Buffer, from: usize, width: usize) -> Vec<String> {
     rows(buf).iter().map(|row| row.chars().skip(from).take(width).collect()).collect()
-}
-
-fn numbers_in(text: &str) -> Vec<f64> {
-    text.split(|c: char| c.is_whitespace() || c == '(' || c == ')' || c == ',').filter_map(|word| word.parse::<f64>().ok()).collect()
 }
 
 /// x = [0.5, −1, 2], growth = exp(x), loss = Σ growth, with growth's recorded

@@ -1,6 +1,8 @@
 //! Helpers shared by the integration tests: recording, validating and sweeping.
 #![allow(dead_code)]
 
+pub mod screen;
+
 use ebb::record::Tape;
 use ebb::sweep::{LedgerMode, Sweep};
 use ebb::tensor::Value;
