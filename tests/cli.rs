@@ -127,7 +127,9 @@ fn usage_errors_exit_two() {
 
 #[test]
 fn help_version_completions_and_catalog() {
-    for command in [&["--help"][..], &["check", "--help"], &["sweep", "--help"], &["ops", "--help"], &["completions", "--help"]] {
+    let commands = ["check", "sweep", "verify", "open", "convert", "ops", "completions"];
+    let helps: Vec<Vec<&str>> = std::iter::once(vec!["--help"]).chain(commands.iter().map(|c| vec![*c, "--help"])).collect();
+    for command in &helps {
         let output = ebb(command);
         assert_eq!(output.status.code(), Some(0));
         assert!(stdout(&output).contains("Example"), "{command:?} help has an example");
