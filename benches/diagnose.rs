@@ -26,10 +26,21 @@ fn chain(length: usize) -> Trace {
 /// Four tanh layers of width 64 on a batch of 16.
 fn network() -> Trace {
     let mut tape = Tape::new("network", Dtype::F32);
-    let mut h = tape.input("x", Value::from_parts(vec![16, 64], (0..1024).map(|k| ((k % 17) as f64 - 8.0) / 8.0).collect()));
+    let mut h = tape.input(
+        "x",
+        Value::from_parts(
+            vec![16, 64],
+            (0..1024).map(|k| ((k % 17) as f64 - 8.0) / 8.0).collect(),
+        ),
+    );
     for layer in 0..4 {
-        let weights =
-            tape.param(&format!("w{layer}"), Value::from_parts(vec![64, 64], (0..4096).map(|k| ((k % 13) as f64 - 6.0) / 48.0).collect()));
+        let weights = tape.param(
+            &format!("w{layer}"),
+            Value::from_parts(
+                vec![64, 64],
+                (0..4096).map(|k| ((k % 13) as f64 - 6.0) / 48.0).collect(),
+            ),
+        );
         let product = tape.matmul(h, weights);
         h = tape.tanh(product);
     }

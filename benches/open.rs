@@ -45,6 +45,10 @@ fn binary_1e4_tensors_open_and_summarise(bencher: divan::Bencher) {
     let path = wide();
     bencher.bench_local(|| {
         let trace = ebb::trace::load(path).expect("the fixture loads");
-        trace.nodes().iter().map(|node| node.value.summary(trace.dtype()).nan).sum::<usize>()
+        trace
+            .nodes()
+            .iter()
+            .map(|node| node.value.summary(trace.dtype()).nan)
+            .sum::<usize>()
     });
 }

@@ -5,7 +5,10 @@
 //! is read from /proc/self/status (VmHWM; Linux only).
 
 #[path = "support/fixtures.rs"]
-#[allow(dead_code, reason = "shared with the open bench, which uses every fixture")]
+#[allow(
+    dead_code,
+    reason = "shared with the open bench, which uses every fixture"
+)]
 mod fixtures;
 
 use std::process::Command;
@@ -21,7 +24,11 @@ fn child(path: &str) {
     let trace = ebb::trace::load(std::path::Path::new(path)).expect("the fixture loads");
     let opened = start.elapsed();
     let open_peak = status_kib("VmHWM:").unwrap_or(0);
-    let nan: usize = trace.nodes().iter().map(|node| node.value.summary(trace.dtype()).nan).sum();
+    let nan: usize = trace
+        .nodes()
+        .iter()
+        .map(|node| node.value.summary(trace.dtype()).nan)
+        .sum();
     let summarised_peak = status_kib("VmHWM:").unwrap_or(0);
     println!("{open_peak} {summarised_peak} {} {nan}", opened.as_millis());
 }
@@ -33,14 +40,21 @@ fn main() {
     }
     let dir = tempfile::tempdir().expect("a temporary directory");
     let path = fixtures::wide_tape(dir.path(), 10_000, 5_000);
-    let sidecar = std::fs::metadata(ebb::trace::binary::sidecar_path(&path)).expect("the sidecar").len();
+    let sidecar = std::fs::metadata(ebb::trace::binary::sidecar_path(&path))
+        .expect("the sidecar")
+        .len();
     let output = Command::new(std::env::current_exe().expect("this binary"))
         .args(["--child", path.to_str().expect("a UTF-8 path")])
         .output()
         .expect("the child runs");
     let text = String::from_utf8_lossy(&output.stdout);
-    let figures: Vec<u64> = text.split_whitespace().filter_map(|field| field.parse().ok()).collect();
-    let [open_peak, summarised_peak, millis, _] = figures[..] else { panic!("unexpected child output: {text}") };
+    let figures: Vec<u64> = text
+        .split_whitespace()
+        .filter_map(|field| field.parse().ok())
+        .collect();
+    let [open_peak, summarised_peak, millis, _] = figures[..] else {
+        panic!("unexpected child output: {text}")
+    };
     let sidecar_kib = sidecar / 1024;
     println!("sidecar                      {:>8} MiB", sidecar_kib / 1024);
     println!(

@@ -43,10 +43,16 @@ fn generated(nodes: usize) -> TraceFile {
         partials: vec![],
         reported: None,
     };
-    let mut file_nodes = vec![node("a".into(), "param", vec![]), node("b".into(), "param", vec![])];
+    let mut file_nodes = vec![
+        node("a".into(), "param", vec![]),
+        node("b".into(), "param", vec![]),
+    ];
     for index in 2..nodes {
         let window = index.min(16) as u64;
-        let (i, j) = (index - 1 - (next() % window) as usize, index - 1 - (next() % window) as usize);
+        let (i, j) = (
+            index - 1 - (next() % window) as usize,
+            index - 1 - (next() % window) as usize,
+        );
         let inputs = vec![file_nodes[i].id.clone(), file_nodes[j].id.clone()];
         file_nodes.push(node(format!("n{index}"), "mul", inputs));
     }
@@ -71,19 +77,35 @@ fn trace(nodes: usize) -> &'static ebb::trace::Trace {
                 let trace = validate(generated(n)).expect("valid");
                 let mut sweep = Sweep::new(&trace, LedgerMode::Off);
                 sweep.run_to_end();
-                assert!(sweep.flags().is_empty(), "the benchmark trace must sweep without flags");
+                assert!(
+                    sweep.flags().is_empty(),
+                    "the benchmark trace must sweep without flags"
+                );
                 drop(sweep);
                 (n, trace)
             })
             .collect()
     });
-    &cache.iter().find(|(n, _)| *n == nodes).expect("a benchmarked size").1
+    &cache
+        .iter()
+        .find(|(n, _)| *n == nodes)
+        .expect("a benchmarked size")
+        .1
 }
 
 fn json(nodes: usize) -> &'static str {
     static CACHE: OnceLock<Vec<(usize, String)>> = OnceLock::new();
-    let cache = CACHE.get_or_init(|| SIZES.iter().map(|&n| (n, to_text(&generated(n), Encoding::Json))).collect());
-    &cache.iter().find(|(n, _)| *n == nodes).expect("a benchmarked size").1
+    let cache = CACHE.get_or_init(|| {
+        SIZES
+            .iter()
+            .map(|&n| (n, to_text(&generated(n), Encoding::Json)))
+            .collect()
+    });
+    &cache
+        .iter()
+        .find(|(n, _)| *n == nodes)
+        .expect("a benchmarked size")
+        .1
 }
 
 /// Parse and validate from JSON text (the file read itself is excluded).
@@ -97,20 +119,24 @@ fn load_json(bencher: divan::Bencher, nodes: usize) {
 #[divan::bench(args = SIZES, sample_count = 10, sample_size = 1)]
 fn sweep_ledger_off(bencher: divan::Bencher, nodes: usize) {
     let trace = trace(nodes);
-    bencher.with_inputs(|| Sweep::new(trace, LedgerMode::Off)).bench_local_values(|mut sweep| {
-        sweep.run_to_end();
-        sweep
-    });
+    bencher
+        .with_inputs(|| Sweep::new(trace, LedgerMode::Off))
+        .bench_local_values(|mut sweep| {
+            sweep.run_to_end();
+            sweep
+        });
 }
 
 /// Full sweep keeping every contribution in the ledger.
 #[divan::bench(args = SIZES, sample_count = 10, sample_size = 1)]
 fn sweep_ledger_on(bencher: divan::Bencher, nodes: usize) {
     let trace = trace(nodes);
-    bencher.with_inputs(|| Sweep::new(trace, LedgerMode::On)).bench_local_values(|mut sweep| {
-        sweep.run_to_end();
-        sweep
-    });
+    bencher
+        .with_inputs(|| Sweep::new(trace, LedgerMode::On))
+        .bench_local_values(|mut sweep| {
+            sweep.run_to_end();
+            sweep
+        });
 }
 
 /// The floor: the same accumulation over flat arrays of (receiver, sender,
@@ -122,16 +148,22 @@ fn flat_loop(bencher: divan::Bencher, nodes: usize) {
     for &node in trace.sweep_order() {
         let recorded = trace.node(node);
         for (slot, &input) in recorded.inputs.iter().enumerate() {
-            let partial = trace.node(recorded.inputs[1 - slot]).value.as_scalar().unwrap();
+            let partial = trace
+                .node(recorded.inputs[1 - slot])
+                .value
+                .as_scalar()
+                .unwrap();
             edges.push((input as u32, node as u32, partial));
         }
     }
     let output = trace.output();
-    bencher.with_inputs(|| vec![0.0f64; nodes]).bench_local_values(|mut adjoints| {
-        adjoints[output] = 1.0;
-        for &(input, node, partial) in &edges {
-            adjoints[input as usize] += adjoints[node as usize] * partial;
-        }
-        adjoints
-    });
+    bencher
+        .with_inputs(|| vec![0.0f64; nodes])
+        .bench_local_values(|mut adjoints| {
+            adjoints[output] = 1.0;
+            for &(input, node, partial) in &edges {
+                adjoints[input as usize] += adjoints[node as usize] * partial;
+            }
+            adjoints
+        });
 }

@@ -53,7 +53,9 @@ fn key_and_frame(bencher: divan::Bencher, nodes: usize) {
         app.key(key(if forward { 's' } else { 'b' }));
         forward = !forward;
         app.resize(ratatui::layout::Rect::new(0, 0, 200, 50));
-        terminal.draw(|frame| frame.render_widget(&app, frame.area())).unwrap();
+        terminal
+            .draw(|frame| frame.render_widget(&app, frame.area()))
+            .unwrap();
     });
 }
 
@@ -67,7 +69,9 @@ fn frame_deep_in_the_order(bencher: divan::Bencher, nodes: usize) {
     app.resize(ratatui::layout::Rect::new(0, 0, 200, 50));
     let mut terminal = Terminal::new(TestBackend::new(200, 50)).unwrap();
     bencher.bench_local(|| {
-        terminal.draw(|frame| frame.render_widget(&app, frame.area())).unwrap();
+        terminal
+            .draw(|frame| frame.render_widget(&app, frame.area()))
+            .unwrap();
     });
 }
 
@@ -86,7 +90,9 @@ fn forward_key_and_frame(bencher: divan::Bencher, nodes: usize) {
         app.key(key(if forward { 's' } else { 'b' }));
         forward = !forward;
         app.resize(ratatui::layout::Rect::new(0, 0, 200, 50));
-        terminal.draw(|frame| frame.render_widget(&app, frame.area())).unwrap();
+        terminal
+            .draw(|frame| frame.render_widget(&app, frame.area()))
+            .unwrap();
     });
 }
 
@@ -100,6 +106,8 @@ fn verify_from_the_pane(bencher: divan::Bencher, nodes: usize) {
         app.key(key('v'));
         app.run_pending();
         app.resize(ratatui::layout::Rect::new(0, 0, 200, 50));
-        terminal.draw(|frame| frame.render_widget(&app, frame.area())).unwrap();
+        terminal
+            .draw(|frame| frame.render_widget(&app, frame.area()))
+            .unwrap();
     });
 }

@@ -75,10 +75,26 @@ impl Dtype {
     /// bfloat16 from Intel, "BFLOAT16 – Hardware Numerics Definition", 2018).
     pub fn limits(self) -> FormatLimits {
         match self {
-            Dtype::F16 => FormatLimits { precision: 11, min_exponent: -14, max_exponent: 15 },
-            Dtype::Bf16 => FormatLimits { precision: 8, min_exponent: -126, max_exponent: 127 },
-            Dtype::F32 => FormatLimits { precision: 24, min_exponent: -126, max_exponent: 127 },
-            Dtype::F64 => FormatLimits { precision: 53, min_exponent: -1022, max_exponent: 1023 },
+            Dtype::F16 => FormatLimits {
+                precision: 11,
+                min_exponent: -14,
+                max_exponent: 15,
+            },
+            Dtype::Bf16 => FormatLimits {
+                precision: 8,
+                min_exponent: -126,
+                max_exponent: 127,
+            },
+            Dtype::F32 => FormatLimits {
+                precision: 24,
+                min_exponent: -126,
+                max_exponent: 127,
+            },
+            Dtype::F64 => FormatLimits {
+                precision: 53,
+                min_exponent: -1022,
+                max_exponent: 1023,
+            },
         }
     }
 
@@ -118,7 +134,11 @@ impl Dtype {
     /// `x` with a subnormal magnitude of this format replaced by zero of the same sign.
     #[inline]
     pub fn flush(self, x: f64) -> f64 {
-        if self.is_subnormal(x) { 0.0f64.copysign(x) } else { x }
+        if self.is_subnormal(x) {
+            0.0f64.copysign(x)
+        } else {
+            x
+        }
     }
 
     /// True for a non-zero `x` below this format's smallest normal magnitude.
@@ -160,7 +180,11 @@ fn round_to_format(x: f64, limits: FormatLimits) -> f64 {
     let exponent = exponent_of(magnitude).max(limits.min_exponent);
     let ulp = pow2(exponent - (limits.precision - 1));
     let rounded = (magnitude / ulp).round_ties_even() * ulp;
-    let result = if rounded > limits.max_finite() { f64::INFINITY } else { rounded };
+    let result = if rounded > limits.max_finite() {
+        f64::INFINITY
+    } else {
+        rounded
+    };
     result.copysign(x)
 }
 
@@ -188,10 +212,17 @@ mod tests {
         assert_eq!(Dtype::F16.round(65519.0), 65504.0);
         assert_eq!(Dtype::F16.round(65520.0), f64::INFINITY);
         assert_eq!(Dtype::F16.round(-65520.0), f64::NEG_INFINITY);
-        assert_eq!(Dtype::F16.round(2f64.powi(-25)), 0.0, "tie between 0 and 2^-24 goes to even (0)");
+        assert_eq!(
+            Dtype::F16.round(2f64.powi(-25)),
+            0.0,
+            "tie between 0 and 2^-24 goes to even (0)"
+        );
         assert_eq!(Dtype::F16.round(2f64.powi(-25) * 1.5), 2f64.powi(-24));
         assert_eq!(Dtype::F16.round(2f64.powi(-24)), 2f64.powi(-24));
-        assert_eq!(Dtype::F16.round(1.0 + 2f64.powi(-11) + 2f64.powi(-40)), 1.0 + 2f64.powi(-10));
+        assert_eq!(
+            Dtype::F16.round(1.0 + 2f64.powi(-11) + 2f64.powi(-40)),
+            1.0 + 2f64.powi(-10)
+        );
         assert_eq!(Dtype::F16.round(1.0 + 2f64.powi(-11)), 1.0, "tie to even");
     }
 
@@ -209,10 +240,20 @@ mod tests {
         let tiny = 2f64.powi(-24);
         assert_eq!(Dtype::F16.round_with(tiny, Subnormals::Keep), tiny);
         assert_eq!(Dtype::F16.round_with(tiny, Subnormals::Flush), 0.0);
-        assert!(Dtype::F16.round_with(-tiny, Subnormals::Flush).is_sign_negative());
-        assert_eq!(Dtype::F16.round_with(2f64.powi(-14), Subnormals::Flush), 2f64.powi(-14));
+        assert!(
+            Dtype::F16
+                .round_with(-tiny, Subnormals::Flush)
+                .is_sign_negative()
+        );
+        assert_eq!(
+            Dtype::F16.round_with(2f64.powi(-14), Subnormals::Flush),
+            2f64.powi(-14)
+        );
         // Just below 2^-14 by less than half an ulp rounds up to the smallest normal and survives.
-        assert_eq!(Dtype::F16.round_with(2f64.powi(-14) - 2f64.powi(-30), Subnormals::Flush), 2f64.powi(-14));
+        assert_eq!(
+            Dtype::F16.round_with(2f64.powi(-14) - 2f64.powi(-30), Subnormals::Flush),
+            2f64.powi(-14)
+        );
         assert!(Dtype::F32.is_subnormal(1e-40));
         assert!(!Dtype::F32.is_subnormal(0.0));
     }
@@ -220,7 +261,10 @@ mod tests {
     #[test]
     fn bf16_rounding_probes() {
         assert_eq!(Dtype::Bf16.round(1.0 + 2f64.powi(-8)), 1.0, "tie to even");
-        assert_eq!(Dtype::Bf16.round(1.0 + 3.0 * 2f64.powi(-8)), 1.0 + 2f64.powi(-6));
+        assert_eq!(
+            Dtype::Bf16.round(1.0 + 3.0 * 2f64.powi(-8)),
+            1.0 + 2f64.powi(-6)
+        );
         assert_eq!(Dtype::Bf16.round(3.4e38), f64::INFINITY);
     }
 }

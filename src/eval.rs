@@ -26,13 +26,19 @@ pub enum EvalError {
 /// A custom op has no forward rule; it is linearised with its recorded
 /// partials, y ≈ y₀ + Σ J·(x − x₀), so a finite difference through it tests
 /// the rest of the trace against those partials.
-pub fn reevaluate(trace: &Trace, replace: &[(usize, Value)], dtype: Dtype) -> Result<Vec<Value>, EvalError> {
+pub fn reevaluate(
+    trace: &Trace,
+    replace: &[(usize, Value)],
+    dtype: Dtype,
+) -> Result<Vec<Value>, EvalError> {
     let mut values: Vec<Value> = Vec::with_capacity(trace.nodes().len());
     let mut changed = vec![false; trace.nodes().len()];
     for (index, node) in trace.nodes().iter().enumerate() {
         if let Some((_, value)) = replace.iter().find(|(at, _)| *at == index) {
             if value.shape() != node.value.shape() {
-                return Err(EvalError::Shape { node: node.id.clone() });
+                return Err(EvalError::Shape {
+                    node: node.id.clone(),
+                });
             }
             values.push(value.clone());
             changed[index] = true;
@@ -79,11 +85,18 @@ fn linearised(trace: &Trace, node: usize, values: &[Value], dtype: Dtype) -> Val
     let shape = recorded.value.shape();
     let mut total = recorded.value.clone();
     for (slot, &input) in recorded.inputs.iter().enumerate() {
-        let partial = recorded.partials[slot].as_ref().expect("custom ops carry every partial");
+        let partial = recorded.partials[slot]
+            .as_ref()
+            .expect("custom ops carry every partial");
         let before = &trace.node(input).value;
         let delta = Value::from_parts(
             before.shape().to_vec(),
-            values[input].data().iter().zip(before.data()).map(|(&now, &then)| dtype.round(now - then)).collect(),
+            values[input]
+                .data()
+                .iter()
+                .zip(before.data())
+                .map(|(&now, &then)| dtype.round(now - then))
+                .collect(),
         );
         total = ops::add_rounded(&total, &push_forward(partial, &delta, shape, dtype), dtype);
     }

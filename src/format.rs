@@ -28,7 +28,11 @@ pub fn compact(x: f64) -> String {
 /// product of many gains can be).
 pub fn power_of_ten(log10: f64) -> String {
     let value = 10f64.powf(log10);
-    if value.is_finite() && value > 0.0 { compact(value) } else { format!("10^{log10:.1}") }
+    if value.is_finite() && value > 0.0 {
+        compact(value)
+    } else {
+        format!("10^{log10:.1}")
+    }
 }
 
 /// A shape as `[2, 3]`; a scalar as `[]`.

@@ -13,7 +13,12 @@ pub fn describe_value(value: &Value) -> String {
         Value::Tensor(t) => {
             let shown: Vec<String> = t.data().iter().take(4).map(|&x| compact(x)).collect();
             let more = if t.data().len() > 4 { ", …" } else { "" };
-            format!("{} norm {} [{}{more}]", show(t.shape()), compact(value.l2_norm()), shown.join(", "))
+            format!(
+                "{} norm {} [{}{more}]",
+                show(t.shape()),
+                compact(value.l2_norm()),
+                shown.join(", ")
+            )
         }
     }
 }
@@ -28,12 +33,27 @@ pub fn list_steps(sweep: &mut Sweep, steps: usize) -> String {
         let step = sweep.cursor();
         let Some(node) = sweep.step() else { break };
         let recorded = trace.node(node);
-        let adjoint = sweep.adjoint(node).map_or("none".to_string(), describe_value);
-        let group = if recorded.group.is_empty() { String::new() } else { format!("  [{}]", recorded.group) };
-        let _ = writeln!(out, "step {}/{total}  {} ({}){group}  adjoint {adjoint}", step + 1, recorded.id, recorded.op_name);
+        let adjoint = sweep
+            .adjoint(node)
+            .map_or("none".to_string(), describe_value);
+        let group = if recorded.group.is_empty() {
+            String::new()
+        } else {
+            format!("  [{}]", recorded.group)
+        };
+        let _ = writeln!(
+            out,
+            "step {}/{total}  {} ({}){group}  adjoint {adjoint}",
+            step + 1,
+            recorded.id,
+            recorded.op_name
+        );
         let ledger = sweep.ledger().expect("the listing needs the ledger");
         for entry in ledger.step_entries(step) {
-            let before = entry.before.as_ref().map_or("none".to_string(), describe_value);
+            let before = entry
+                .before
+                .as_ref()
+                .map_or("none".to_string(), describe_value);
             let _ = writeln!(
                 out,
                 "    -> {} (input {})  contribution {}  adjoint {} -> {}",

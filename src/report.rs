@@ -159,10 +159,19 @@ impl Report {
                 }
             })
             .collect();
-        let flags: Vec<FlagEntry> = sweep.flags().iter().enumerate().map(|(k, flag)| flag_entry(trace, flag, k == 0)).collect();
+        let flags: Vec<FlagEntry> = sweep
+            .flags()
+            .iter()
+            .enumerate()
+            .map(|(k, flag)| flag_entry(trace, flag, k == 0))
+            .collect();
         Report {
             report: REPORT_VERSION,
-            trace: TraceInfo { path: path.to_string(), title: trace.title().to_string(), dtype: dtype.name().to_string() },
+            trace: TraceInfo {
+                path: path.to_string(),
+                title: trace.title().to_string(),
+                dtype: dtype.name().to_string(),
+            },
             counts: Counts {
                 nodes: trace.nodes().len(),
                 edges: trace.edge_count(),
@@ -185,7 +194,9 @@ impl Report {
             if flag.kind == FlagKind::NonFiniteAdjoint
                 && let Some(node) = trace.find(&flag.node)
             {
-                flag.class = diagnosis.origin_of(node).map(|origin| origin.class.letter());
+                flag.class = diagnosis
+                    .origin_of(node)
+                    .map(|origin| origin.class.letter());
             }
         }
         self.clean = self.clean && diagnosis.is_clean();
@@ -207,7 +218,10 @@ impl Report {
             out.push('\n');
         }
         let c = &self.counts;
-        out.push_str(&format!("trace    {}  \"{}\"  ({})\n", self.trace.path, self.trace.title, self.trace.dtype));
+        out.push_str(&format!(
+            "trace    {}  \"{}\"  ({})\n",
+            self.trace.path, self.trace.title, self.trace.dtype
+        ));
         out.push_str(&format!(
             "counts   {}, {}, {}, {}; swept {} of {}",
             plural(c.nodes, "node"),
@@ -238,12 +252,30 @@ impl Report {
             .iter()
             .map(|g| {
                 if !g.reaches_output {
-                    return [g.id.clone(), show(&g.shape), "—".into(), "—".into(), "—".into(), "does not reach the output".into()];
+                    return [
+                        g.id.clone(),
+                        show(&g.shape),
+                        "—".into(),
+                        "—".into(),
+                        "—".into(),
+                        "does not reach the output".into(),
+                    ];
                 }
-                [g.id.clone(), show(&g.shape), compact(g.norm.0), compact(g.min.0), compact(g.max.0), g.non_finite.to_string()]
+                [
+                    g.id.clone(),
+                    show(&g.shape),
+                    compact(g.norm.0),
+                    compact(g.min.0),
+                    compact(g.max.0),
+                    g.non_finite.to_string(),
+                ]
             })
             .collect();
-        table("gradients", ["param", "shape", "L2 norm", "min", "max", "non-finite"], &rows)
+        table(
+            "gradients",
+            ["param", "shape", "L2 norm", "min", "max", "non-finite"],
+            &rows,
+        )
     }
 
     fn flags_text(&self) -> String {
@@ -253,7 +285,12 @@ impl Report {
         let mut out = format!("flags    {} in sweep order (* first)\n", self.flags.len());
         for flag in &self.flags {
             let marker = if flag.first { '*' } else { ' ' };
-            out.push_str(&format!("  {marker} step {:<5} {:<12} {}\n", flag.step, format!("'{}'", flag.node), describe(flag)));
+            out.push_str(&format!(
+                "  {marker} step {:<5} {:<12} {}\n",
+                flag.step,
+                format!("'{}'", flag.node),
+                describe(flag)
+            ));
         }
         out
     }
@@ -261,14 +298,34 @@ impl Report {
 
 /// One line saying what a flag found.
 fn describe(flag: &FlagEntry) -> String {
-    let place = if flag.count > 1 { format!(" ({} elements; first at element {})", flag.count, flag.element) } else { String::new() };
+    let place = if flag.count > 1 {
+        format!(
+            " ({} elements; first at element {})",
+            flag.count, flag.element
+        )
+    } else {
+        String::new()
+    };
     match flag.kind {
-        FlagKind::NonFiniteValue => format!("({}) forward value is {}{place}", flag.op, compact(flag.value.0)),
+        FlagKind::NonFiniteValue => format!(
+            "({}) forward value is {}{place}",
+            flag.op,
+            compact(flag.value.0)
+        ),
         FlagKind::NonFinitePartial => {
-            format!("({}) partial on input edge {} is {}", flag.op, flag.slot.unwrap_or(0), compact(flag.value.0))
+            format!(
+                "({}) partial on input edge {} is {}",
+                flag.op,
+                flag.slot.unwrap_or(0),
+                compact(flag.value.0)
+            )
         }
         FlagKind::NonFiniteAdjoint => match &flag.from {
-            Some(from) => format!("({}) adjoint became {} from the contribution of '{from}'{place}", flag.op, compact(flag.value.0)),
+            Some(from) => format!(
+                "({}) adjoint became {} from the contribution of '{from}'{place}",
+                flag.op,
+                compact(flag.value.0)
+            ),
             None => format!("({}) seed is {}{place}", flag.op, compact(flag.value.0)),
         },
     }
@@ -293,7 +350,11 @@ fn flag_entry(trace: &Trace, flag: &Flag, first: bool) -> FlagEntry {
 
 /// `1 node`, `2 nodes`.
 fn plural(count: usize, noun: &str) -> String {
-    if count == 1 { format!("1 {noun}") } else { format!("{count} {noun}s") }
+    if count == 1 {
+        format!("1 {noun}")
+    } else {
+        format!("{count} {noun}s")
+    }
 }
 
 /// A titled, left-aligned text table.
@@ -305,7 +366,11 @@ fn table<const N: usize>(title: &str, header: [&str; N], rows: &[[String; N]]) -
         }
     }
     let line = |cells: Vec<&str>| {
-        let padded: Vec<String> = cells.iter().zip(&widths).map(|(cell, &width)| format!("{cell:<width$}")).collect();
+        let padded: Vec<String> = cells
+            .iter()
+            .zip(&widths)
+            .map(|(cell, &width)| format!("{cell:<width$}"))
+            .collect();
         format!("  {}\n", padded.join("  ").trim_end())
     };
     let mut out = format!("{title}\n");

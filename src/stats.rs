@@ -105,8 +105,11 @@ impl SummaryBuilder {
 
     /// The summary of the elements pushed so far.
     pub fn finish(&self) -> Summary {
-        let (min, max, mean) =
-            if self.finite == 0 { (f64::NAN, f64::NAN, f64::NAN) } else { (self.min, self.max, self.sum / self.finite as f64) };
+        let (min, max, mean) = if self.finite == 0 {
+            (f64::NAN, f64::NAN, f64::NAN)
+        } else {
+            (self.min, self.max, self.sum / self.finite as f64)
+        };
         Summary {
             len: self.len,
             norm: self.norm.finish(),
@@ -128,9 +131,26 @@ mod tests {
 
     #[test]
     fn counts_every_class_of_element() {
-        let data = [0.0, -1.0, 3.0, f64::NAN, f64::INFINITY, f64::NEG_INFINITY, 1e-40];
+        let data = [
+            0.0,
+            -1.0,
+            3.0,
+            f64::NAN,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+            1e-40,
+        ];
         let summary = Summary::of(&data, Dtype::F32);
-        assert_eq!((summary.nan, summary.pos_inf, summary.neg_inf, summary.zeros, summary.subnormal), (1, 1, 1, 1, 1));
+        assert_eq!(
+            (
+                summary.nan,
+                summary.pos_inf,
+                summary.neg_inf,
+                summary.zeros,
+                summary.subnormal
+            ),
+            (1, 1, 1, 1, 1)
+        );
         assert_eq!((summary.min, summary.max), (-1.0, 3.0));
         assert_eq!(summary.non_finite(), 3);
         assert!(summary.norm.is_nan());

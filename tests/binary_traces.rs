@@ -12,27 +12,60 @@ use std::process::Command;
 /// A small trace whose values, reported gradients and seed hold NaN and ±inf.
 fn special_trace(dtype: Dtype) -> TraceFile {
     let mut tape = Tape::new("special numbers", dtype);
-    let x = tape.input("x", Value::from_parts(vec![2, 3], vec![1.0, f64::NAN, f64::NEG_INFINITY, -0.0, 0.1, f64::INFINITY]));
+    let x = tape.input(
+        "x",
+        Value::from_parts(
+            vec![2, 3],
+            vec![1.0, f64::NAN, f64::NEG_INFINITY, -0.0, 0.1, f64::INFINITY],
+        ),
+    );
     let s = tape.param("s", 0.5);
     let y = tape.mul(x, s);
-    tape.report(y, Value::from_parts(vec![2, 3], vec![f64::NAN, 1.0, 2.0, f64::INFINITY, 3.0, -1.5]));
+    tape.report(
+        y,
+        Value::from_parts(
+            vec![2, 3],
+            vec![f64::NAN, 1.0, 2.0, f64::INFINITY, 3.0, -1.5],
+        ),
+    );
     tape.report(s, f64::NEG_INFINITY);
-    let seed = Value::from_parts(vec![2, 3], vec![1.0, 2.0, f64::NAN, 0.25, f64::INFINITY, 1e-30]);
+    let seed = Value::from_parts(
+        vec![2, 3],
+        vec![1.0, 2.0, f64::NAN, 0.25, f64::INFINITY, 1e-30],
+    );
     tape.finish_seeded(y, seed)
 }
 
 /// Everything a trace holds, as text in which NaN equals NaN and −0 differs from 0.
 fn fingerprint(trace: &Trace) -> String {
-    let bits =
-        |value: &Value| value.data().iter().map(|x| format!("{:x}", if x.is_nan() { 0x7ff8 } else { x.to_bits() })).collect::<Vec<_>>();
+    let bits = |value: &Value| {
+        value
+            .data()
+            .iter()
+            .map(|x| format!("{:x}", if x.is_nan() { 0x7ff8 } else { x.to_bits() }))
+            .collect::<Vec<_>>()
+    };
     let nodes: Vec<String> = trace
         .nodes()
         .iter()
         .map(|node| {
-            format!("{} {} {:?} {:?} {:?}", node.id, node.op_name, node.value.shape(), bits(&node.value), node.reported.as_ref().map(bits))
+            format!(
+                "{} {} {:?} {:?} {:?}",
+                node.id,
+                node.op_name,
+                node.value.shape(),
+                bits(&node.value),
+                node.reported.as_ref().map(bits)
+            )
         })
         .collect();
-    format!("{} {} {:?} {:?}", trace.title(), trace.dtype(), bits(trace.seed()), nodes)
+    format!(
+        "{} {} {:?} {:?}",
+        trace.title(),
+        trace.dtype(),
+        bits(trace.seed()),
+        nodes
+    )
 }
 
 #[test]
@@ -47,7 +80,11 @@ fn every_form_reads_back_identically_with_nan_and_infinities() {
             let loaded = trace::load(&path).unwrap_or_else(|e| panic!("{e}"));
             assert_eq!(fingerprint(&loaded), reference, "{dtype} {name}");
             let reread = trace::read_file(&path, &mut trace::Silent).unwrap();
-            assert_eq!(fingerprint(&trace::validate(reread).unwrap()), reference, "{dtype} {name} read whole");
+            assert_eq!(
+                fingerprint(&trace::validate(reread).unwrap()),
+                reference,
+                "{dtype} {name} read whole"
+            );
         }
     }
 }
@@ -55,13 +92,19 @@ fn every_form_reads_back_identically_with_nan_and_infinities() {
 #[test]
 fn narrow_runs_store_f32_and_wide_runs_f64() {
     let dir = tempfile::tempdir().unwrap();
-    for (dtype, element, width) in [(Dtype::F32, "element: f32", 4u32), (Dtype::F64, "element: f64", 8)] {
+    for (dtype, element, width) in [
+        (Dtype::F32, "element: f32", 4u32),
+        (Dtype::F64, "element: f64", 8),
+    ] {
         let path = dir.path().join(format!("{dtype}.tape"));
         trace::save(&special_trace(dtype), &path).unwrap();
         assert!(std::fs::read_to_string(&path).unwrap().contains(element));
         let sidecar = std::fs::read(binary::sidecar_path(&path)).unwrap();
         assert_eq!(&sidecar[..8], binary::MAGIC);
-        assert_eq!(u32::from_le_bytes(sidecar[12..16].try_into().unwrap()), width);
+        assert_eq!(
+            u32::from_le_bytes(sidecar[12..16].try_into().unwrap()),
+            width
+        );
     }
 }
 
@@ -73,12 +116,22 @@ fn mapped_tensors_summarise_without_widening_and_agree_with_owned_ones() {
     trace::save(&file, &path).unwrap();
     let mapped = trace::load(&path).unwrap();
     let owned = trace::validate(file).unwrap();
-    let Value::Tensor(tensor) = &mapped.node(0).value else { panic!("x is a tensor") };
+    let Value::Tensor(tensor) = &mapped.node(0).value else {
+        panic!("x is a tensor")
+    };
     assert!(tensor.is_mapped());
     let from_map = tensor.summary(Dtype::F32);
     let from_memory = owned.node(0).value.summary(Dtype::F32);
     assert_eq!(format!("{from_map:?}"), format!("{from_memory:?}"));
-    assert_eq!((from_map.nan, from_map.pos_inf, from_map.neg_inf, from_map.zeros), (1, 1, 1, 1));
+    assert_eq!(
+        (
+            from_map.nan,
+            from_map.pos_inf,
+            from_map.neg_inf,
+            from_map.zeros
+        ),
+        (1, 1, 1, 1)
+    );
 }
 
 /// Copies the shipped medium demo into a fresh directory.
@@ -102,11 +155,23 @@ fn a_truncated_sidecar_names_the_first_node_cut_off() {
     let dir = tempfile::tempdir().unwrap();
     let header = medium_copy(dir.path());
     let sidecar = dir.path().join("medium.bin");
-    let file = std::fs::OpenOptions::new().write(true).open(&sidecar).unwrap();
+    let file = std::fs::OpenOptions::new()
+        .write(true)
+        .open(&sidecar)
+        .unwrap();
     file.set_len(600_000).unwrap();
     let message = sidecar_error(&header);
-    assert!(message.starts_with(&format!("{}: node 'layer2.xw': sidecar medium.bin is truncated", header.display())), "{message}");
-    assert!(message.contains("hint:") && !message.contains('\n'), "{message}");
+    assert!(
+        message.starts_with(&format!(
+            "{}: node 'layer2.xw': sidecar medium.bin is truncated",
+            header.display()
+        )),
+        "{message}"
+    );
+    assert!(
+        message.contains("hint:") && !message.contains('\n'),
+        "{message}"
+    );
 }
 
 /// Rewrites the first occurrence of `from` in the header.
@@ -119,16 +184,36 @@ fn edit_header(header: &Path, from: &str, to: &str) {
 #[test]
 fn lying_headers_give_one_clear_line() {
     let cases: [(&str, &str, &str); 6] = [
-        ("offset: 16400,", "offset: 1214400,", "node 'layer1.w': data of shape [64, 256] at bytes 1214400..1279936 lies past the end"),
+        (
+            "offset: 16400,",
+            "offset: 1214400,",
+            "node 'layer1.w': data of shape [64, 256] at bytes 1214400..1279936 lies past the end",
+        ),
         (
             "shape: [64, 256],\n        offset: 16400,",
             "shape: [4000000000, 4000000000],\n        offset: 16400,",
             "node 'layer1.w': shape [4000000000, 4000000000] is too large",
         ),
-        ("offset: 16400,", "offset: 16402,", "node 'layer1.w': offset 16402 is not a multiple of the 4-byte element width"),
-        ("offset: 16,", "offset: 4,", "node 'spectra': offset 4 lies inside the 16-byte preamble"),
-        ("element: f32,", "element: f64,", "stores 4-byte elements but the header declares f64"),
-        ("file: \"medium.bin\",", "file: \"../medium.bin\",", "sidecar name `../medium.bin` is not a plain file name"),
+        (
+            "offset: 16400,",
+            "offset: 16402,",
+            "node 'layer1.w': offset 16402 is not a multiple of the 4-byte element width",
+        ),
+        (
+            "offset: 16,",
+            "offset: 4,",
+            "node 'spectra': offset 4 lies inside the 16-byte preamble",
+        ),
+        (
+            "element: f32,",
+            "element: f64,",
+            "stores 4-byte elements but the header declares f64",
+        ),
+        (
+            "file: \"medium.bin\",",
+            "file: \"../medium.bin\",",
+            "sidecar name `../medium.bin` is not a plain file name",
+        ),
     ];
     for (from, to, expected) in cases {
         let dir = tempfile::tempdir().unwrap();
@@ -136,7 +221,12 @@ fn lying_headers_give_one_clear_line() {
         edit_header(&header, from, to);
         let message = sidecar_error(&header);
         assert!(message.contains(expected), "{to}: {message}");
-        assert!(message.starts_with(&header.display().to_string()) && message.contains("hint:") && !message.contains('\n'), "{message}");
+        assert!(
+            message.starts_with(&header.display().to_string())
+                && message.contains("hint:")
+                && !message.contains('\n'),
+            "{message}"
+        );
     }
 }
 
@@ -158,7 +248,10 @@ fn a_sidecar_of_another_length_or_kind_is_refused() {
 }
 
 fn ebb(args: &[&str]) -> (i32, String, String) {
-    let output = Command::new(env!("CARGO_BIN_EXE_ebb")).args(args).output().unwrap();
+    let output = Command::new(env!("CARGO_BIN_EXE_ebb"))
+        .args(args)
+        .output()
+        .unwrap();
     (
         output.status.code().unwrap_or(-1),
         String::from_utf8_lossy(&output.stdout).into_owned(),
@@ -170,12 +263,20 @@ fn ebb(args: &[&str]) -> (i32, String, String) {
 fn the_cli_reports_a_broken_sidecar_with_exit_status_2() {
     let dir = tempfile::tempdir().unwrap();
     let header = medium_copy(dir.path());
-    std::fs::OpenOptions::new().write(true).open(dir.path().join("medium.bin")).unwrap().set_len(1000).unwrap();
+    std::fs::OpenOptions::new()
+        .write(true)
+        .open(dir.path().join("medium.bin"))
+        .unwrap()
+        .set_len(1000)
+        .unwrap();
     let (status, stdout, stderr) = ebb(&["check", header.to_str().unwrap()]);
     assert_eq!(status, 2);
     assert!(stdout.is_empty());
     assert_eq!(stderr.lines().count(), 1, "{stderr}");
-    assert!(stderr.contains("node 'spectra'") || stderr.contains("node 'layer1.w'"), "{stderr}");
+    assert!(
+        stderr.contains("node 'spectra'") || stderr.contains("node 'layer1.w'"),
+        "{stderr}"
+    );
 }
 
 #[test]
@@ -186,18 +287,26 @@ fn convert_round_trips_and_never_overwrites_its_input() {
     let ron = dir.path().join("m.ron");
     let back = dir.path().join("back.tape");
     for (from, to) in [(&header, &json), (&json, &ron), (&ron, &back)] {
-        let (status, stdout, stderr) = ebb(&["convert", from.to_str().unwrap(), to.to_str().unwrap()]);
+        let (status, stdout, stderr) =
+            ebb(&["convert", from.to_str().unwrap(), to.to_str().unwrap()]);
         assert_eq!(status, 0, "{stderr}");
         assert!(stdout.starts_with("converted "), "{stdout}");
     }
     let original = std::fs::read(dir.path().join("medium.bin")).unwrap();
-    assert!(original == std::fs::read(dir.path().join("back.bin")).unwrap(), "sidecar bytes survive text round trips");
+    assert!(
+        original == std::fs::read(dir.path().join("back.bin")).unwrap(),
+        "sidecar bytes survive text round trips"
+    );
     let before = std::fs::read(&json).unwrap();
     let (status, _, stderr) = ebb(&["convert", json.to_str().unwrap(), json.to_str().unwrap()]);
     assert_eq!(status, 2);
     assert!(stderr.contains("would overwrite the input"), "{stderr}");
     // A .tape output next to a .bin input of the same name would overwrite the sidecar.
-    let (status, _, stderr) = ebb(&["convert", header.to_str().unwrap(), dir.path().join("medium.tape").to_str().unwrap()]);
+    let (status, _, stderr) = ebb(&[
+        "convert",
+        header.to_str().unwrap(),
+        dir.path().join("medium.tape").to_str().unwrap(),
+    ]);
     assert_eq!(status, 2, "{stderr}");
     assert_eq!(std::fs::read(&json).unwrap(), before);
     let leftovers: Vec<_> = std::fs::read_dir(dir.path())
@@ -206,7 +315,11 @@ fn convert_round_trips_and_never_overwrites_its_input() {
         .filter(|e| e.file_name().to_string_lossy().ends_with(".tmp"))
         .collect();
     assert!(leftovers.is_empty(), "no temporary files are left behind");
-    let (status, _, stderr) = ebb(&["convert", json.to_str().unwrap(), dir.path().join("m.txt").to_str().unwrap()]);
+    let (status, _, stderr) = ebb(&[
+        "convert",
+        json.to_str().unwrap(),
+        dir.path().join("m.txt").to_str().unwrap(),
+    ]);
     assert_eq!(status, 2);
     assert!(stderr.contains("unknown trace extension"), "{stderr}");
 }

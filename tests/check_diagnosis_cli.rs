@@ -9,7 +9,10 @@ use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
 
 fn ebb(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_ebb")).args(args).output().expect("the binary runs")
+    Command::new(env!("CARGO_BIN_EXE_ebb"))
+        .args(args)
+        .output()
+        .expect("the binary runs")
 }
 
 /// log(w · x) at x = 0: the forward value of the log is −inf (IEEE 754-2019 §9.2.1).
@@ -50,11 +53,20 @@ fn text_report_opens_with_origin_class_chain_and_advice() {
     assert_eq!(output.status.code(), Some(1));
     let text = stdout(&output);
     let lines: Vec<&str> = text.lines().collect();
-    assert!(lines[0].starts_with("diagnosis  origin (a) non-finite forward value at 'log_p' (log)"), "{text}");
+    assert!(
+        lines[0].starts_with("diagnosis  origin (a) non-finite forward value at 'log_p' (log)"),
+        "{text}"
+    );
     assert!(lines[1].contains("log of 0 is −inf"), "{text}");
     assert!(lines[2].contains("'log_p' → 'product' → 'w'"), "{text}");
-    assert!(lines[3].contains("turned into NaN at 'w'") && lines[3].contains("0 × inf"), "log_p's −inf times x = 0 is NaN at w: {text}");
-    assert!(lines[4].starts_with("  advice   Keep the argument of 'log_p' away from 0"), "{text}");
+    assert!(
+        lines[3].contains("turned into NaN at 'w'") && lines[3].contains("0 × inf"),
+        "log_p's −inf times x = 0 is NaN at w: {text}"
+    );
+    assert!(
+        lines[4].starts_with("  advice   Keep the argument of 'log_p' away from 0"),
+        "{text}"
+    );
     assert!(text.contains("\ntrace    "), "the details follow");
 }
 
@@ -73,11 +85,24 @@ fn json_carries_the_diagnosis_and_keeps_the_old_fields() {
     assert_eq!(origin["letter"], "a");
     assert_eq!(origin["class"], "non_finite_value");
     assert_eq!(origin["node"], "log_p");
-    assert_eq!(origin["reached"][0]["chain"], serde_json::json!(["log_p", "product", "w"]));
-    let w_flag = json["flags"].as_array().unwrap().iter().find(|flag| flag["node"] == "w").unwrap();
+    assert_eq!(
+        origin["reached"][0]["chain"],
+        serde_json::json!(["log_p", "product", "w"])
+    );
+    let w_flag = json["flags"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|flag| flag["node"] == "w")
+        .unwrap();
     assert_eq!(w_flag["class"], "a");
     assert_eq!(json["diagnosis"]["replay"].as_array().unwrap().len(), 4);
-    assert!(json["diagnosis"]["advice"][0]["text"].as_str().unwrap().contains("log_softmax"));
+    assert!(
+        json["diagnosis"]["advice"][0]["text"]
+            .as_str()
+            .unwrap()
+            .contains("log_softmax")
+    );
     let finding = &json["diagnosis"]["findings"][0];
     for field in ["rule", "node", "step", "site", "value", "threshold"] {
         assert!(finding.get(field).is_some(), "a finding records {field}");
@@ -90,20 +115,44 @@ fn thresholds_come_from_the_rules_file_and_set_options() {
     let path = write_big_gain(dir.path());
     let trace = path.to_str().unwrap();
     let output = ebb(&["check", trace, "--json"]);
-    assert_eq!(output.status.code(), Some(1), "gain 1000 is above the default 100");
+    assert_eq!(
+        output.status.code(),
+        Some(1),
+        "gain 1000 is above the default 100"
+    );
     let json: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap();
     assert_eq!(json["diagnosis"]["findings"][0]["rule"], "gain");
 
     let rules = dir.path().join("rules.ron");
-    std::fs::write(&rules, "// a looser gain band\n(gain_above: 5000.0, replay: [])\n").unwrap();
+    std::fs::write(
+        &rules,
+        "// a looser gain band\n(gain_above: 5000.0, replay: [])\n",
+    )
+    .unwrap();
     let output = ebb(&["check", trace, "--rules", rules.to_str().unwrap(), "--json"]);
-    assert_eq!(output.status.code(), Some(0), "{}", String::from_utf8_lossy(&output.stderr));
+    assert_eq!(
+        output.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
     let json: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap();
     assert_eq!(json["diagnosis"]["settings"]["gain_above"], 5000.0);
     assert_eq!(json["diagnosis"]["replay"].as_array().unwrap().len(), 0);
 
-    let output = ebb(&["check", trace, "--rules", rules.to_str().unwrap(), "--set", "gain_above=500"]);
-    assert_eq!(output.status.code(), Some(1), "--set is applied after the file");
+    let output = ebb(&[
+        "check",
+        trace,
+        "--rules",
+        rules.to_str().unwrap(),
+        "--set",
+        "gain_above=500",
+    ]);
+    assert_eq!(
+        output.status.code(),
+        Some(1),
+        "--set is applied after the file"
+    );
     let output = ebb(&["check", trace, "--set", "off=[gain]"]);
     assert_eq!(output.status.code(), Some(0));
 }
@@ -120,14 +169,26 @@ fn bad_settings_exit_two_with_the_place() {
     assert!(output.stdout.is_empty(), "no half-written report");
     let stderr = String::from_utf8(output.stderr).unwrap();
     assert_eq!(stderr.lines().count(), 1, "{stderr}");
-    assert!(stderr.contains(&format!("{}:3:", rules.display())), "{stderr}");
+    assert!(
+        stderr.contains(&format!("{}:3:", rules.display())),
+        "{stderr}"
+    );
     assert!(stderr.contains("gian_below"), "{stderr}");
 
     let output = ebb(&["check", trace, "--set", "gain_above=fast"]);
     assert_eq!(output.status.code(), Some(2));
-    let output = ebb(&["check", trace, "--rules", dir.path().join("missing.ron").to_str().unwrap()]);
+    let output = ebb(&[
+        "check",
+        trace,
+        "--rules",
+        dir.path().join("missing.ron").to_str().unwrap(),
+    ]);
     assert_eq!(output.status.code(), Some(2));
-    assert!(String::from_utf8(output.stderr).unwrap().contains("missing.ron"));
+    assert!(
+        String::from_utf8(output.stderr)
+            .unwrap()
+            .contains("missing.ron")
+    );
 }
 
 #[test]
@@ -139,10 +200,15 @@ fn the_built_in_demo_is_clean() {
 
 #[test]
 fn the_settings_example_in_the_readme_is_the_defaults() {
-    let readme = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("README.md")).unwrap();
-    let start = readme.find("```ron\n// rules.ron").expect("the README shows a settings file") + "```ron\n".len();
+    let readme =
+        std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("README.md")).unwrap();
+    let start = readme
+        .find("```ron\n// rules.ron")
+        .expect("the README shows a settings file")
+        + "```ron\n".len();
     let end = start + readme[start..].find("```").unwrap();
-    let settings = ebb::diagnose::Settings::parse(&readme[start..end], Path::new("README.md")).unwrap();
+    let settings =
+        ebb::diagnose::Settings::parse(&readme[start..end], Path::new("README.md")).unwrap();
     assert_eq!(settings, ebb::diagnose::Settings::default());
 }
 

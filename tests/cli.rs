@@ -4,7 +4,11 @@ use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
 
 fn ebb(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_ebb")).args(args).current_dir(env!("CARGO_MANIFEST_DIR")).output().expect("the binary runs")
+    Command::new(env!("CARGO_BIN_EXE_ebb"))
+        .args(args)
+        .current_dir(env!("CARGO_MANIFEST_DIR"))
+        .output()
+        .expect("the binary runs")
 }
 
 fn stdout(output: &Output) -> String {
@@ -34,7 +38,10 @@ fn no_arguments_checks_the_built_in_demo() {
     assert_eq!(output.status.code(), Some(0), "{}", stderr(&output));
     let text = stdout(&output);
     assert!(text.contains("market stall"), "{text}");
-    assert!(text.contains("price") && text.contains("0.157979"), "{text}");
+    assert!(
+        text.contains("price") && text.contains("0.157979"),
+        "{text}"
+    );
 }
 
 #[test]
@@ -42,8 +49,14 @@ fn check_reports_gradients_and_exits_zero_when_clean() {
     let output = ebb(&["check", "traces/teaching.ron"]);
     assert_eq!(output.status.code(), Some(0));
     let text = stdout(&output);
-    assert!(text.contains("12 nodes, 14 edges, 3 groups, 2 params"), "{text}");
-    assert!(text.contains("sensitivity") && text.contains("-1.31188"), "{text}");
+    assert!(
+        text.contains("12 nodes, 14 edges, 3 groups, 2 params"),
+        "{text}"
+    );
+    assert!(
+        text.contains("sensitivity") && text.contains("-1.31188"),
+        "{text}"
+    );
     assert!(text.contains("flags    none"), "{text}");
 }
 
@@ -55,10 +68,20 @@ fn check_flags_a_log_of_zero_and_exits_one() {
     let output = ebb(&["check", path.to_str().unwrap()]);
     assert_eq!(output.status.code(), Some(1), "{}", stderr(&output));
     let text = stdout(&output);
-    let first = text.lines().find(|line| line.contains(" * ")).expect("the first flag is marked");
-    assert!(first.contains("'loss'") && first.contains("forward value is -inf"), "{text}");
+    let first = text
+        .lines()
+        .find(|line| line.contains(" * "))
+        .expect("the first flag is marked");
+    assert!(
+        first.contains("'loss'") && first.contains("forward value is -inf"),
+        "{text}"
+    );
     assert!(text.contains("'logp'") && text.contains("(log)"), "{text}");
-    assert_eq!(std::fs::read(&path).unwrap(), before, "ebb never writes to a trace it reads");
+    assert_eq!(
+        std::fs::read(&path).unwrap(),
+        before,
+        "ebb never writes to a trace it reads"
+    );
 
     let output = ebb(&["check", path.to_str().unwrap(), "--json"]);
     assert_eq!(output.status.code(), Some(1));
@@ -83,7 +106,13 @@ fn sweep_lists_steps_and_stops_early() {
     let output = ebb(&["sweep", "traces/teaching.ron", "--steps", "3"]);
     assert_eq!(output.status.code(), Some(0));
     let text = stdout(&output);
-    assert_eq!(text.lines().filter(|line| line.starts_with("step ")).count(), 3, "{text}");
+    assert_eq!(
+        text.lines()
+            .filter(|line| line.starts_with("step "))
+            .count(),
+        3,
+        "{text}"
+    );
     assert!(text.starts_with("step 1/12  profit (sub)"), "{text}");
     // demand_sq = demand·demand: both contributions go to `demand`, the second on top of the first.
     assert!(text.contains("-> demand (input 0)  contribution -0.036787944117144235  adjoint none -> -0.036787944117144235"), "{text}");
@@ -102,37 +131,69 @@ fn bad_input_is_one_line_with_exit_two() {
     assert!(stdout(&output).is_empty(), "no half-written output");
     let message = stderr(&output);
     assert_eq!(message.lines().count(), 1, "{message}");
-    assert!(message.contains("nope.ron") && message.contains("cannot read"), "{message}");
+    assert!(
+        message.contains("nope.ron") && message.contains("cannot read"),
+        "{message}"
+    );
 
-    let path = write_temp(dir.path(), "broken.json", "{\"format\": 1,\n  \"title\": \"x\",\n  \"dtype\": \"f64\" \"output\": 1}");
+    let path = write_temp(
+        dir.path(),
+        "broken.json",
+        "{\"format\": 1,\n  \"title\": \"x\",\n  \"dtype\": \"f64\" \"output\": 1}",
+    );
     let output = ebb(&["check", path.to_str().unwrap()]);
     assert_eq!(output.status.code(), Some(2));
     let message = stderr(&output);
     assert!(message.contains("broken.json:3:"), "{message}");
     assert_eq!(message.lines().count(), 1, "{message}");
 
-    let path = write_temp(dir.path(), "invalid.ron", &LOG_ZERO.replace("[\"logp\"]", "[\"nowhere\"]"));
+    let path = write_temp(
+        dir.path(),
+        "invalid.ron",
+        &LOG_ZERO.replace("[\"logp\"]", "[\"nowhere\"]"),
+    );
     let output = ebb(&["sweep", path.to_str().unwrap()]);
     assert_eq!(output.status.code(), Some(2));
     let message = stderr(&output);
-    assert!(message.contains("invalid.ron:4:4: node 'loss': unknown input id 'nowhere'"), "{message}");
+    assert!(
+        message.contains("invalid.ron:4:4: node 'loss': unknown input id 'nowhere'"),
+        "{message}"
+    );
 }
 
 #[test]
 fn usage_errors_exit_two() {
     assert_eq!(ebb(&["check"]).status.code(), Some(2));
     assert_eq!(ebb(&["frobnicate"]).status.code(), Some(2));
-    assert_eq!(ebb(&["sweep", "traces/teaching.ron", "--steps", "many"]).status.code(), Some(2));
+    assert_eq!(
+        ebb(&["sweep", "traces/teaching.ron", "--steps", "many"])
+            .status
+            .code(),
+        Some(2)
+    );
 }
 
 #[test]
 fn help_version_completions_and_catalog() {
-    let commands = ["check", "sweep", "verify", "open", "convert", "ops", "completions"];
-    let helps: Vec<Vec<&str>> = std::iter::once(vec!["--help"]).chain(commands.iter().map(|c| vec![*c, "--help"])).collect();
+    let commands = [
+        "check",
+        "sweep",
+        "verify",
+        "open",
+        "convert",
+        "ops",
+        "completions",
+    ];
+    let helps: Vec<Vec<&str>> = std::iter::once(vec!["--help"])
+        .chain(commands.iter().map(|c| vec![*c, "--help"]))
+        .collect();
     for command in &helps {
         let output = ebb(command);
         assert_eq!(output.status.code(), Some(0));
-        assert!(stdout(&output).contains("Example"), "{command:?} help has an example");
+        assert!(
+            stdout(&output).contains("Example"),
+            "{command:?} help has an example"
+        );
     }
     let version = stdout(&ebb(&["--version"]));
     assert!(version.starts_with("ebb ") && version.contains(env!("CARGO_PKG_VERSION")));
@@ -160,12 +221,23 @@ fn verify_agrees_on_the_demo_and_names_a_wrong_partial() {
     let output = ebb(&["verify", path.to_str().unwrap()]);
     assert_eq!(output.status.code(), Some(1));
     let report = stdout(&output);
-    let first = report.lines().find(|line| line.starts_with("  1. ")).expect("a ranked suspect");
-    assert!(first.contains("'y' (exp)") && first.contains("probably wrong"), "{report}");
+    let first = report
+        .lines()
+        .find(|line| line.starts_with("  1. "))
+        .expect("a ranked suspect");
+    assert!(
+        first.contains("'y' (exp)") && first.contains("probably wrong"),
+        "{report}"
+    );
     let output = ebb(&["verify", path.to_str().unwrap(), "--json"]);
     let json: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap();
     assert_eq!(json["agrees"], false);
     assert_eq!(json["suspects"][0]["node"], "y");
     assert_eq!(json["suspects"][0]["evidence"], "recorded_partial");
-    assert_eq!(ebb(&["verify", path.to_str().unwrap(), "--direction", "nowhere"]).status.code(), Some(2));
+    assert_eq!(
+        ebb(&["verify", path.to_str().unwrap(), "--direction", "nowhere"])
+            .status
+            .code(),
+        Some(2)
+    );
 }

@@ -17,7 +17,11 @@ fn traces_dir() -> PathBuf {
 fn committed_demo_traces_match_their_generators() {
     let rewrite = std::env::var_os("EBB_WRITE_DEMOS").is_some();
     let scratch = tempfile::tempdir().unwrap();
-    let out_dir = if rewrite { traces_dir() } else { scratch.path().to_path_buf() };
+    let out_dir = if rewrite {
+        traces_dir()
+    } else {
+        scratch.path().to_path_buf()
+    };
     for (name, file) in demos::all() {
         let path = out_dir.join(name);
         trace::save(&file, &path).unwrap_or_else(|e| panic!("{e}"));
@@ -25,9 +29,14 @@ fn committed_demo_traces_match_their_generators() {
         for written in format.files(&path) {
             let file_name = written.file_name().unwrap();
             let committed_path = traces_dir().join(file_name);
-            let committed = std::fs::read(&committed_path).unwrap_or_else(|e| panic!("{}: {e}", committed_path.display()));
+            let committed = std::fs::read(&committed_path)
+                .unwrap_or_else(|e| panic!("{}: {e}", committed_path.display()));
             let fresh = std::fs::read(&written).unwrap();
-            assert!(committed == fresh, "{} differs from its generator; rerun with EBB_WRITE_DEMOS=1", committed_path.display());
+            assert!(
+                committed == fresh,
+                "{} differs from its generator; rerun with EBB_WRITE_DEMOS=1",
+                committed_path.display()
+            );
         }
     }
 }
@@ -43,7 +52,10 @@ fn swept(trace: &Trace) -> Sweep<'_> {
 }
 
 fn gradient<'a>(trace: &Trace, sweep: &'a Sweep, id: &str) -> &'a [f64] {
-    sweep.adjoint(trace.find(id).unwrap_or_else(|| panic!("no node {id}"))).unwrap_or_else(|| panic!("{id} has no adjoint")).data()
+    sweep
+        .adjoint(trace.find(id).unwrap_or_else(|| panic!("no node {id}")))
+        .unwrap_or_else(|| panic!("{id} has no adjoint"))
+        .data()
 }
 
 fn max_abs(data: &[f64]) -> f64 {
@@ -53,7 +65,10 @@ fn max_abs(data: &[f64]) -> f64 {
 #[test]
 fn every_demo_has_a_one_line_story() {
     for (name, file) in demos::all() {
-        assert!(!file.description.is_empty() && !file.description.contains('\n'), "{name}");
+        assert!(
+            !file.description.is_empty() && !file.description.contains('\n'),
+            "{name}"
+        );
     }
 }
 
@@ -63,12 +78,31 @@ fn nan_hunt_takes_the_log_of_an_exact_zero() {
     let ln_p = trace.find("ln_p").unwrap();
     // IEEE 754-2019 §9.2.1: log(±0) is −inf (divideByZero).
     let predicted = trace.node(trace.find("predicted").unwrap()).value.data();
-    let zero = predicted.iter().position(|&p| p == 0.0).expect("one prediction is exactly 0");
+    let zero = predicted
+        .iter()
+        .position(|&p| p == 0.0)
+        .expect("one prediction is exactly 0");
     assert_eq!(trace.node(ln_p).value.data()[zero], f64::NEG_INFINITY);
     let sweep = swept(&trace);
-    assert!(sweep.flags().iter().any(|f| f.node == ln_p && f.kind == FlagKind::NonFiniteValue));
-    assert!(sweep.flags().iter().any(|f| f.node == ln_p && f.kind == FlagKind::NonFinitePartial), "d ln p / dp = 1/0 = inf");
-    assert!(gradient(&trace, &sweep, "hidden.w").iter().any(|g| g.is_nan()), "0 × inf at the sigmoid makes NaN upstream");
+    assert!(
+        sweep
+            .flags()
+            .iter()
+            .any(|f| f.node == ln_p && f.kind == FlagKind::NonFiniteValue)
+    );
+    assert!(
+        sweep
+            .flags()
+            .iter()
+            .any(|f| f.node == ln_p && f.kind == FlagKind::NonFinitePartial),
+        "d ln p / dp = 1/0 = inf"
+    );
+    assert!(
+        gradient(&trace, &sweep, "hidden.w")
+            .iter()
+            .any(|g| g.is_nan()),
+        "0 × inf at the sigmoid makes NaN upstream"
+    );
 }
 
 #[test]
@@ -95,7 +129,10 @@ fn exploding_adjoints_grow_by_the_recurrent_gain_per_step() {
     // exactly 1.2 per step back (orthogonal matrices preserve the norm).
     let growth = norm("h01") / norm("h50");
     let expected = demos::exploding::GAIN.powi(49);
-    assert!((growth / expected - 1.0).abs() < 1e-4, "growth {growth:e}, expected {expected:e}");
+    assert!(
+        (growth / expected - 1.0).abs() < 1e-4,
+        "growth {growth:e}, expected {expected:e}"
+    );
     assert!(growth > 7e3);
 }
 
@@ -108,11 +145,21 @@ fn f16_gradients_flush_to_zero_where_f32_keeps_them() {
     let g32 = gradient(&single, &single_sweep, "hidden.w");
     // f16's smallest subnormal is 2^-24 (IEEE 754-2019 table 3.5); below half of it
     // a value rounds to 0.
-    let flushed = g16.iter().zip(g32).filter(|(h, s)| **h == 0.0 && **s != 0.0).count();
+    let flushed = g16
+        .iter()
+        .zip(g32)
+        .filter(|(h, s)| **h == 0.0 && **s != 0.0)
+        .count();
     assert!(flushed >= 8, "only {flushed} entries flushed");
     let nonzero = |g: &[f64]| g.iter().filter(|x| **x != 0.0).count();
-    assert!(nonzero(g32) >= nonzero(g16) + 8, "f32 keeps the entries f16 loses");
-    assert!(max_abs(g32) < 2f64.powi(-14), "the first layer's gradients are below f16's smallest normal");
+    assert!(
+        nonzero(g32) >= nonzero(g16) + 8,
+        "f32 keeps the entries f16 loses"
+    );
+    assert!(
+        max_abs(g32) < 2f64.powi(-14),
+        "the first layer's gradients are below f16's smallest normal"
+    );
 }
 
 #[test]
@@ -123,9 +170,16 @@ fn wrong_partial_disagrees_with_the_reference_only_upstream_of_the_gate() {
     assert_eq!(trace.node(gate).op_name, demos::GATE);
     let disagrees = |id: &str| {
         let node = trace.find(id).unwrap();
-        let reported = trace.node(node).reported.as_ref().expect("every node carries the reference gradient");
+        let reported = trace
+            .node(node)
+            .reported
+            .as_ref()
+            .expect("every node carries the reference gradient");
         let ours = sweep.adjoint(node).unwrap();
-        ours.data().iter().zip(reported.data()).any(|(a, b)| (a - b).abs() > 1e-9 * (1.0 + b.abs()))
+        ours.data()
+            .iter()
+            .zip(reported.data())
+            .any(|(a, b)| (a - b).abs() > 1e-9 * (1.0 + b.abs()))
     };
     for id in ["loss", "out.w", "out.b", "gated"] {
         assert!(!disagrees(id), "{id} is downstream of the gate and agrees");
@@ -140,13 +194,24 @@ fn medium_network_is_binary_backed_f32_and_small() {
     let dir = traces_dir();
     let sidecar = std::fs::metadata(dir.join("medium.bin")).unwrap().len();
     let header = std::fs::metadata(dir.join("medium.tape")).unwrap().len();
-    assert!(sidecar < 2 << 20 && header < 16 << 10, "sidecar {sidecar} B, header {header} B");
+    assert!(
+        sidecar < 2 << 20 && header < 16 << 10,
+        "sidecar {sidecar} B, header {header} B"
+    );
     let trace = open("medium.tape");
     assert_eq!(trace.dtype(), Dtype::F32);
     let elements: usize = trace.nodes().iter().map(|node| node.value.len()).sum();
     // 4 bytes per element plus alignment and the 16-byte preamble.
-    assert!(sidecar as usize >= 4 * elements && (sidecar as usize) < 4 * elements + 8 * trace.nodes().len() + 16);
-    for (id, shape) in [("layer1.w", [64, 256]), ("layer2.w", [256, 256]), ("layer3.w", [256, 256]), ("layer3.relu", [64, 256])] {
+    assert!(
+        sidecar as usize >= 4 * elements
+            && (sidecar as usize) < 4 * elements + 8 * trace.nodes().len() + 16
+    );
+    for (id, shape) in [
+        ("layer1.w", [64, 256]),
+        ("layer2.w", [256, 256]),
+        ("layer3.w", [256, 256]),
+        ("layer3.relu", [64, 256]),
+    ] {
         assert_eq!(trace.node(trace.find(id).unwrap()).value.shape(), shape);
     }
 }
@@ -158,8 +223,14 @@ fn ebb_check_gives_each_demo_its_expected_status() {
             .args(["check", "--json", traces_dir().join(name).to_str().unwrap()])
             .output()
             .unwrap();
-        let report: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap_or_else(|e| panic!("{name}: {e}"));
-        let flagged: Vec<&str> = report["flags"].as_array().unwrap().iter().map(|f| f["node"].as_str().unwrap()).collect();
+        let report: serde_json::Value =
+            serde_json::from_slice(&output.stdout).unwrap_or_else(|e| panic!("{name}: {e}"));
+        let flagged: Vec<&str> = report["flags"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|f| f["node"].as_str().unwrap())
+            .collect();
         // The diagnosis flags what each story is about; the rest are clean.
         let expected_rule = match name {
             "nan_hunt.ron" => Some("non_finite"),
@@ -168,13 +239,25 @@ fn ebb_check_gives_each_demo_its_expected_status() {
             "underflow_f16.ron" => Some("underflow"),
             _ => None,
         };
-        assert_eq!(output.status.code(), Some(if expected_rule.is_some() { 1 } else { 0 }), "{name}: {flagged:?}");
+        assert_eq!(
+            output.status.code(),
+            Some(if expected_rule.is_some() { 1 } else { 0 }),
+            "{name}: {flagged:?}"
+        );
         if let Some(rule) = expected_rule {
             let findings = report["diagnosis"]["findings"].as_array().unwrap();
-            assert!(findings.iter().any(|finding| finding["rule"] == rule), "{name}: a {rule} finding");
+            assert!(
+                findings.iter().any(|finding| finding["rule"] == rule),
+                "{name}: a {rule} finding"
+            );
         }
         if name == "nan_hunt.ron" {
-            let ln_p = report["flags"].as_array().unwrap().iter().find(|f| f["node"] == "ln_p").expect("ln_p is flagged");
+            let ln_p = report["flags"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .find(|f| f["node"] == "ln_p")
+                .expect("ln_p is flagged");
             assert_eq!(ln_p["kind"], "non_finite_value");
             assert_eq!(ln_p["value"], "-inf");
         }

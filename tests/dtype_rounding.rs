@@ -27,12 +27,24 @@ struct Patterns {
     decode: fn(u32) -> f64,
 }
 
-const F16: Patterns =
-    Patterns { dtype: Dtype::F16, max_finite: 0x7bff, min_normal: 0x0400, decode: |p| half::f16::from_bits(p as u16).to_f64() };
-const BF16: Patterns =
-    Patterns { dtype: Dtype::Bf16, max_finite: 0x7f7f, min_normal: 0x0080, decode: |p| half::bf16::from_bits(p as u16).to_f64() };
-const F32: Patterns =
-    Patterns { dtype: Dtype::F32, max_finite: 0x7f7f_ffff, min_normal: 0x0080_0000, decode: |p| f32::from_bits(p) as f64 };
+const F16: Patterns = Patterns {
+    dtype: Dtype::F16,
+    max_finite: 0x7bff,
+    min_normal: 0x0400,
+    decode: |p| half::f16::from_bits(p as u16).to_f64(),
+};
+const BF16: Patterns = Patterns {
+    dtype: Dtype::Bf16,
+    max_finite: 0x7f7f,
+    min_normal: 0x0080,
+    decode: |p| half::bf16::from_bits(p as u16).to_f64(),
+};
+const F32: Patterns = Patterns {
+    dtype: Dtype::F32,
+    max_finite: 0x7f7f_ffff,
+    min_normal: 0x0080_0000,
+    decode: |p| f32::from_bits(p) as f64,
+};
 
 impl Patterns {
     /// The value one ulp above the largest finite one, where rounding past
@@ -43,7 +55,11 @@ impl Patterns {
     }
 
     fn value(&self, pattern: u32) -> f64 {
-        if pattern > self.max_finite { self.beyond_max() } else { (self.decode)(pattern) }
+        if pattern > self.max_finite {
+            self.beyond_max()
+        } else {
+            (self.decode)(pattern)
+        }
     }
 
     /// The correctly rounded value of `x`, by the neighbour comparison.
@@ -56,7 +72,11 @@ impl Patterns {
         let (mut low, mut high) = (0u32, self.max_finite + 1);
         while high - low > 1 {
             let middle = low + (high - low) / 2;
-            if self.value(middle) <= a { low = middle } else { high = middle }
+            if self.value(middle) <= a {
+                low = middle
+            } else {
+                high = middle
+            }
         }
         let (below, above) = (self.value(low), self.value(low + 1));
         let chosen = if a == below {
@@ -73,7 +93,11 @@ impl Patterns {
                 low + 1
             }
         };
-        let magnitude = if chosen > self.max_finite { f64::INFINITY } else { self.value(chosen) };
+        let magnitude = if chosen > self.max_finite {
+            f64::INFINITY
+        } else {
+            self.value(chosen)
+        };
         magnitude.copysign(x)
     }
 
@@ -99,10 +123,22 @@ fn spread() -> impl Strategy<Value = f64> {
 fn check(format: &Patterns, x: f64) -> Result<(), TestCaseError> {
     let expected = format.reference(x);
     let got = format.dtype.round(x);
-    prop_assert!(got.to_bits() == expected.to_bits(), "{}: round({x:e}) = {got:e}, reference {expected:e}", format.dtype);
+    prop_assert!(
+        got.to_bits() == expected.to_bits(),
+        "{}: round({x:e}) = {got:e}, reference {expected:e}",
+        format.dtype
+    );
     let flushed = format.dtype.round_with(x, Subnormals::Flush);
-    let expected_flushed = if expected != 0.0 && expected.abs() < format.value(format.min_normal) { 0.0f64.copysign(x) } else { expected };
-    prop_assert!(flushed.to_bits() == expected_flushed.to_bits(), "{}: flushed round({x:e}) = {flushed:e}", format.dtype);
+    let expected_flushed = if expected != 0.0 && expected.abs() < format.value(format.min_normal) {
+        0.0f64.copysign(x)
+    } else {
+        expected
+    };
+    prop_assert!(
+        flushed.to_bits() == expected_flushed.to_bits(),
+        "{}: flushed round({x:e}) = {flushed:e}",
+        format.dtype
+    );
     Ok(())
 }
 
@@ -151,7 +187,10 @@ fn reference_decoding_matches_the_published_limits() {
     assert_eq!(F16.reference(65520.0), f64::INFINITY);
     assert_eq!(F16.reference(2f64.powi(-25)), 0.0);
     // The example the design names: 1 + 2^-11 + 2^-40 lies above the tie, so it rounds up.
-    assert_eq!(F16.reference(1.0 + 2f64.powi(-11) + 2f64.powi(-40)), 1.0 + 2f64.powi(-10));
+    assert_eq!(
+        F16.reference(1.0 + 2f64.powi(-11) + 2f64.powi(-40)),
+        1.0 + 2f64.powi(-10)
+    );
 }
 
 #[test]
@@ -159,7 +198,10 @@ fn non_finite_values_pass_through() {
     for dtype in Dtype::ALL {
         assert!(dtype.round(f64::NAN).is_nan());
         assert_eq!(dtype.round(f64::INFINITY), f64::INFINITY);
-        assert_eq!(dtype.round_with(f64::NEG_INFINITY, Subnormals::Flush), f64::NEG_INFINITY);
+        assert_eq!(
+            dtype.round_with(f64::NEG_INFINITY, Subnormals::Flush),
+            f64::NEG_INFINITY
+        );
         assert!(dtype.round(-0.0).is_sign_negative());
     }
 }

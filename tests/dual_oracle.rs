@@ -65,7 +65,12 @@ fn random_graph(seed: u64, params: usize, depth: usize, fan: usize) -> Graph {
 /// records several catalog nodes.
 fn record(graph: &Graph) -> (Tape, Var) {
     let mut tape = Tape::new("random scalar graph", Dtype::F64);
-    let mut nodes: Vec<Var> = graph.params.iter().enumerate().map(|(i, &x)| tape.param(&format!("p{i}"), x)).collect();
+    let mut nodes: Vec<Var> = graph
+        .params
+        .iter()
+        .enumerate()
+        .map(|(i, &x)| tape.param(&format!("p{i}"), x))
+        .collect();
     let one = tape.constant("one", 1.0);
     let square_plus_one = |tape: &mut Tape, x: Var| {
         let square = tape.mul(x, x);
@@ -74,8 +79,19 @@ fn record(graph: &Graph) -> (Tape, Var) {
     for step in &graph.steps {
         let var = match *step {
             Step::Unary(op, a) => tape.apply(op, &[nodes[a]], Attrs::default()).unwrap(),
-            Step::Binary(op, a, b) => tape.apply(op, &[nodes[a], nodes[b]], Attrs::default()).unwrap(),
-            Step::Pow(a, p) => tape.apply(Op::Pow, &[nodes[a]], Attrs { exponent: Some(p), ..Attrs::default() }).unwrap(),
+            Step::Binary(op, a, b) => tape
+                .apply(op, &[nodes[a], nodes[b]], Attrs::default())
+                .unwrap(),
+            Step::Pow(a, p) => tape
+                .apply(
+                    Op::Pow,
+                    &[nodes[a]],
+                    Attrs {
+                        exponent: Some(p),
+                        ..Attrs::default()
+                    },
+                )
+                .unwrap(),
             Step::SafeLog(a) => {
                 let positive = square_plus_one(&mut tape, nodes[a]);
                 tape.log(positive)
@@ -101,8 +117,12 @@ fn record(graph: &Graph) -> (Tape, Var) {
 
 /// Evaluates the graph in dual numbers with parameter `seeded` carrying ε = 1.
 fn dual_output(graph: &Graph, seeded: usize) -> Dual64 {
-    let mut nodes: Vec<Dual64> =
-        graph.params.iter().enumerate().map(|(i, &x)| Dual64::new(x, if i == seeded { 1.0 } else { 0.0 })).collect();
+    let mut nodes: Vec<Dual64> = graph
+        .params
+        .iter()
+        .enumerate()
+        .map(|(i, &x)| Dual64::new(x, if i == seeded { 1.0 } else { 0.0 }))
+        .collect();
     let one = Dual64::from_re(1.0);
     for step in &graph.steps {
         let value = match *step {
@@ -150,25 +170,44 @@ fn check_graph(graph: &Graph) -> Result<(), TestCaseError> {
     // ill-conditioned: sin of 1e15 changes completely with its last bit, so
     // one ulp of difference between two correct evaluations decides the
     // result. They test overflow, not derivatives; keep the well-scaled ones.
-    let largest = trace.nodes().iter().map(|node| node.value.as_scalar().unwrap().abs()).fold(0.0, f64::max);
+    let largest = trace
+        .nodes()
+        .iter()
+        .map(|node| node.value.as_scalar().unwrap().abs())
+        .fold(0.0, f64::max);
     prop_assume!(largest < 1e4, "values too large to compare");
     let sweep = swept(&trace);
     // The sweep's scalar fast path and the general pull-back agree bit for bit.
     for entry in sweep.ledger().unwrap().entries() {
         let adjoint = sweep.adjoint(entry.consumer).unwrap();
-        let general = ebb::sweep::pull_back(&trace, entry.consumer, entry.slot, adjoint).contribution;
-        prop_assert_eq!(general.as_scalar().map(f64::to_bits), entry.value.as_scalar().map(f64::to_bits));
+        let general =
+            ebb::sweep::pull_back(&trace, entry.consumer, entry.slot, adjoint).contribution;
+        prop_assert_eq!(
+            general.as_scalar().map(f64::to_bits),
+            entry.value.as_scalar().map(f64::to_bits)
+        );
     }
     for (i, _) in graph.params.iter().enumerate() {
         let dual = dual_output(graph, i);
         let recorded = trace.node(trace.output()).value.as_scalar().unwrap();
-        prop_assert!((dual.re - recorded).abs() <= 1e-12 * dual.re.abs().max(1.0), "value {recorded} vs dual {}", dual.re);
+        prop_assert!(
+            (dual.re - recorded).abs() <= 1e-12 * dual.re.abs().max(1.0),
+            "value {recorded} vs dual {}",
+            dual.re
+        );
         let node = trace.find(&format!("p{i}")).unwrap();
-        let reverse = sweep.adjoint(node).and_then(|adjoint| adjoint.as_scalar()).unwrap_or(0.0);
+        let reverse = sweep
+            .adjoint(node)
+            .and_then(|adjoint| adjoint.as_scalar())
+            .unwrap_or(0.0);
         // Reverse and forward mode sum the same products in different orders:
         // agreement to a few ulps of the largest term, not bit for bit.
         let tolerance = 1e-10 * dual.eps.abs().max(1.0);
-        prop_assert!((reverse - dual.eps).abs() <= tolerance, "p{i}: reverse {reverse} vs dual {} ({graph:?})", dual.eps);
+        prop_assert!(
+            (reverse - dual.eps).abs() <= tolerance,
+            "p{i}: reverse {reverse} vs dual {} ({graph:?})",
+            dual.eps
+        );
     }
     Ok(())
 }

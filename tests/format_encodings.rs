@@ -20,11 +20,15 @@ const RON_TRACE: &str = r#"(
 #[test]
 fn ron_reads_native_and_string_non_finite_numbers() {
     let file = parse(RON_TRACE, Encoding::Ron).expect("parses");
-    let ValueRepr::Tensor { data, .. } = &file.nodes[0].value else { panic!("tensor expected") };
+    let ValueRepr::Tensor { data, .. } = &file.nodes[0].value else {
+        panic!("tensor expected")
+    };
     assert_eq!(data[0], 1.0);
     assert!(data[1].is_nan());
     assert_eq!(data[2], f64::NEG_INFINITY);
-    let ValueRepr::Tensor { shape, data } = &file.nodes[1].value else { panic!("tensor expected") };
+    let ValueRepr::Tensor { shape, data } = &file.nodes[1].value else {
+        panic!("tensor expected")
+    };
     assert_eq!(shape, &[3]);
     assert_eq!(data[0], f64::INFINITY);
     assert!(data[2].is_nan());
@@ -32,7 +36,9 @@ fn ron_reads_native_and_string_non_finite_numbers() {
     assert_eq!(file.seed, Some(ValueRepr::Scalar(2.0)));
     assert_eq!(file.nodes[2].reported, Some(ValueRepr::Scalar(3.5)));
     assert_eq!(file.nodes[2].site.as_deref(), Some("model.rs:12"));
-    assert!(matches!(&file.nodes[2].partials[0], PartialRepr::Diagonal(d) if d[2] == f64::NEG_INFINITY));
+    assert!(
+        matches!(&file.nodes[2].partials[0], PartialRepr::Diagonal(d) if d[2] == f64::NEG_INFINITY)
+    );
     assert_eq!(file.nodes[2].partials[1], PartialRepr::Absent);
 }
 
@@ -46,12 +52,22 @@ fn both_encodings_round_trip_non_finite_values() {
     let file = parse(RON_TRACE, Encoding::Ron).unwrap();
     for encoding in [Encoding::Ron, Encoding::Json] {
         let text = to_text(&file, encoding);
-        let back = parse(&text, encoding).unwrap_or_else(|e| panic!("{encoding:?} did not read back: {e:?}\n{text}"));
-        assert!(same_bits(&file, &back), "{encoding:?} changed the trace:\n{text}");
+        let back = parse(&text, encoding)
+            .unwrap_or_else(|e| panic!("{encoding:?} did not read back: {e:?}\n{text}"));
+        assert!(
+            same_bits(&file, &back),
+            "{encoding:?} changed the trace:\n{text}"
+        );
     }
     let json = to_text(&file, Encoding::Json);
-    assert!(json.contains("\"NaN\"") && json.contains("\"-inf\"") && json.contains("\"inf\""), "{json}");
-    assert!(!json.contains("null,") || json.contains("partials"), "non-finite numbers must not become null");
+    assert!(
+        json.contains("\"NaN\"") && json.contains("\"-inf\"") && json.contains("\"inf\""),
+        "{json}"
+    );
+    assert!(
+        !json.contains("null,") || json.contains("partials"),
+        "non-finite numbers must not become null"
+    );
 }
 
 #[test]
@@ -68,9 +84,14 @@ fn json_keeps_every_f64_bit_for_bit() {
         .filter(|x| x.is_finite())
         .collect();
     let mut file = parse(RON_TRACE, Encoding::Ron).unwrap();
-    file.nodes[0].value = ValueRepr::Tensor { shape: vec![samples.len()], data: samples.clone() };
+    file.nodes[0].value = ValueRepr::Tensor {
+        shape: vec![samples.len()],
+        data: samples.clone(),
+    };
     let back = parse(&to_text(&file, Encoding::Json), Encoding::Json).unwrap();
-    let ValueRepr::Tensor { data, .. } = &back.nodes[0].value else { panic!() };
+    let ValueRepr::Tensor { data, .. } = &back.nodes[0].value else {
+        panic!()
+    };
     for (a, b) in samples.iter().zip(data) {
         assert_eq!(a.to_bits(), b.to_bits());
     }

@@ -16,12 +16,21 @@ fn readme_example_runs() -> Result<(), Box<dyn Error>> {
     // plant needs from soil dryness and hours of sun, computed in f32.
     let mut tape = Tape::new("watering: one step of a 2-4-1 network", Dtype::F32);
     tape.describe("Litres of water from soil dryness and sunshine; a tanh layer, a softplus output, mean squared error.");
-    let readings = tape.input("readings", Value::from_parts(vec![3, 2], vec![0.2, 0.9, 0.7, 0.4, 0.5, 0.5]));
+    let readings = tape.input(
+        "readings",
+        Value::from_parts(vec![3, 2], vec![0.2, 0.9, 0.7, 0.4, 0.5, 0.5]),
+    );
     let litres = tape.input("litres", Value::from_parts(vec![3, 1], vec![1.1, 1.6, 1.3]));
     let hidden = tape.scoped("model", |tape| {
         tape.scoped("hidden", |tape| {
-            let w = tape.param("hidden.w", Value::from_parts(vec![2, 4], vec![0.5, -0.3, 0.8, 0.1, -0.6, 0.4, 0.2, 0.7]));
-            let b = tape.param("hidden.b", Value::from_parts(vec![4], vec![0.1, 0.0, -0.1, 0.05]));
+            let w = tape.param(
+                "hidden.w",
+                Value::from_parts(vec![2, 4], vec![0.5, -0.3, 0.8, 0.1, -0.6, 0.4, 0.2, 0.7]),
+            );
+            let b = tape.param(
+                "hidden.b",
+                Value::from_parts(vec![4], vec![0.1, 0.0, -0.1, 0.05]),
+            );
             let xw = tape.matmul(readings, w);
             let pre = tape.add(xw, b);
             tape.tanh(pre)
@@ -29,14 +38,22 @@ fn readme_example_runs() -> Result<(), Box<dyn Error>> {
     });
     let prediction = tape.scoped("model", |tape| {
         tape.scoped("out", |tape| {
-            let w = tape.param("out.w", Value::from_parts(vec![4, 1], vec![0.9, -0.4, 0.6, 0.3]));
+            let w = tape.param(
+                "out.w",
+                Value::from_parts(vec![4, 1], vec![0.9, -0.4, 0.6, 0.3]),
+            );
             let z = tape.matmul(hidden, w);
             // softplus is not in the catalog: record it as a custom op with our
             // own forward value ln(1 + eᶻ) and its partial σ(z) on the input edge.
             let zs = tape.value(z).clone();
             let value = zs.map(|x| (1.0 + x.exp()).ln());
             let partial = zs.data().iter().map(|x| 1.0 / (1.0 + (-x).exp())).collect();
-            tape.custom("softplus", &[z], value, vec![PartialRepr::Diagonal(partial)])
+            tape.custom(
+                "softplus",
+                &[z],
+                value,
+                vec![PartialRepr::Diagonal(partial)],
+            )
         })
     })?;
     let loss = tape.scoped("loss", |tape| tape.mse(prediction, litres));
@@ -51,7 +68,10 @@ fn readme_example_runs() -> Result<(), Box<dyn Error>> {
     let mut sweep = Sweep::new(&opened, LedgerMode::On);
     sweep.run_to_end();
     let out_w = opened.find("out.w").expect("recorded above");
-    println!("d loss / d out.w = {:?}", sweep.adjoint(out_w).expect("out.w reaches the loss").data());
+    println!(
+        "d loss / d out.w = {:?}",
+        sweep.adjoint(out_w).expect("out.w reaches the loss").data()
+    );
     assert!(sweep.flags().is_empty());
     // README:end
     std::fs::remove_file(&path)?;
@@ -64,8 +84,12 @@ fn readme_carries_the_example_verbatim() {
     let source = include_str!("readme_recording.rs");
     let begin = source.find("// README:begin\n").expect("begin marker") + "// README:begin\n".len();
     let end = source.find("    // README:end").expect("end marker");
-    let example: String = source[begin..end].lines().map(|line| format!("{}\n", line.strip_prefix("    ").unwrap_or(line))).collect();
-    let readme = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/README.md")).expect("README.md");
+    let example: String = source[begin..end]
+        .lines()
+        .map(|line| format!("{}\n", line.strip_prefix("    ").unwrap_or(line)))
+        .collect();
+    let readme = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/README.md"))
+        .expect("README.md");
     assert!(
         readme.contains(&example),
         "README.md's \"Recording a trace\" example differs from tests/readme_recording.rs; copy it over:\n{example}"

@@ -44,16 +44,26 @@ fn by_hand() -> (Vec<f64>, Vec<f64>, Vec<f64>) {
         let y: f64 = (0..4).map(|j| h[n][j] * W2[j]).sum();
         dy[n] = 2.0 * (y - T[n]) / 3.0;
     }
-    let dw2: Vec<f64> = (0..4).map(|j| (0..3).map(|n| h[n][j] * dy[n]).sum()).collect();
-    let dpre: Vec<[f64; 4]> = (0..3).map(|n| std::array::from_fn(|j| dy[n] * W2[j] * (1.0 - h[n][j] * h[n][j]))).collect();
-    let dw1: Vec<f64> =
-        (0..2).flat_map(|i| (0..4).map(move |j| (i, j))).map(|(i, j)| (0..3).map(|n| X[2 * n + i] * dpre[n][j]).sum()).collect();
+    let dw2: Vec<f64> = (0..4)
+        .map(|j| (0..3).map(|n| h[n][j] * dy[n]).sum())
+        .collect();
+    let dpre: Vec<[f64; 4]> = (0..3)
+        .map(|n| std::array::from_fn(|j| dy[n] * W2[j] * (1.0 - h[n][j] * h[n][j])))
+        .collect();
+    let dw1: Vec<f64> = (0..2)
+        .flat_map(|i| (0..4).map(move |j| (i, j)))
+        .map(|(i, j)| (0..3).map(|n| X[2 * n + i] * dpre[n][j]).sum())
+        .collect();
     let db1: Vec<f64> = (0..4).map(|j| (0..3).map(|n| dpre[n][j]).sum()).collect();
     (dw1, db1, dw2)
 }
 
 fn gradient(trace: &Trace, sweep: &Sweep, id: &str) -> Vec<f64> {
-    sweep.adjoint(trace.find(id).unwrap()).unwrap().data().to_vec()
+    sweep
+        .adjoint(trace.find(id).unwrap())
+        .unwrap()
+        .data()
+        .to_vec()
 }
 
 #[test]
@@ -78,7 +88,9 @@ fn recorded_gradients_agree_with_central_differences() {
     let loss = |w2: [f64; 4]| {
         (0..3)
             .map(|n| {
-                let y: f64 = (0..4).map(|j| (X[2 * n] * W1[j] + X[2 * n + 1] * W1[4 + j] + B1[j]).tanh() * w2[j]).sum();
+                let y: f64 = (0..4)
+                    .map(|j| (X[2 * n] * W1[j] + X[2 * n + 1] * W1[4 + j] + B1[j]).tanh() * w2[j])
+                    .sum();
                 (y - T[n]).powi(2)
             })
             .sum::<f64>()
@@ -94,7 +106,11 @@ fn recorded_gradients_agree_with_central_differences() {
         up[j] += h;
         down[j] -= h;
         let numeric = (loss(up) - loss(down)) / (2.0 * h);
-        assert!((got[j] - numeric).abs() < 1e-8, "w2[{j}]: {} vs {numeric}", got[j]);
+        assert!(
+            (got[j] - numeric).abs() < 1e-8,
+            "w2[{j}]: {} vs {numeric}",
+            got[j]
+        );
     }
 }
 
@@ -115,18 +131,29 @@ fn an_f32_recording_holds_the_f32_results_of_the_computation() {
         }
     }
     assert_eq!(pre.value.data(), expected.as_slice());
-    assert!(trace.nodes().iter().all(|node| node.value.data().iter().all(|&v| v == v as f32 as f64)), "every value is an f32");
+    assert!(
+        trace
+            .nodes()
+            .iter()
+            .all(|node| node.value.data().iter().all(|&v| v == v as f32 as f64)),
+        "every value is an f32"
+    );
 }
 
 #[test]
 fn scopes_sites_reports_and_seeds_are_recorded() {
     let mut tape = Tape::new("bits", Dtype::F64);
     let a = tape.param("a", 3.0);
-    let (b, line) = tape.scoped("outer", |tape| tape.scoped("inner", |tape| (tape.mul(a, a), line!())));
+    let (b, line) = tape.scoped("outer", |tape| {
+        tape.scoped("inner", |tape| (tape.mul(a, a), line!()))
+    });
     tape.report(b, 6.5);
     let file = tape.finish_seeded(b, 2.0);
     assert_eq!(file.nodes[1].group, "outer/inner");
-    assert_eq!(file.nodes[1].site.as_deref(), Some(format!("tests/recorder.rs:{line}").as_str()));
+    assert_eq!(
+        file.nodes[1].site.as_deref(),
+        Some(format!("tests/recorder.rs:{line}").as_str())
+    );
     let trace = trace::validate(file).unwrap();
     assert_eq!(trace.seed(), &Value::Scalar(2.0));
     assert_eq!(trace.node(1).reported, Some(Value::Scalar(6.5)));
@@ -141,6 +168,18 @@ fn custom_ops_must_carry_every_partial() {
     let mut tape = Tape::new("custom", Dtype::F64);
     let a = tape.param("a", 1.0);
     assert!(tape.custom("twice", &[a], 2.0, vec![]).is_err());
-    assert!(tape.custom("mul", &[a], 2.0, vec![ebb::trace::PartialRepr::Scalar(2.0)]).is_err(), "a catalog name is refused");
-    assert!(tape.custom("twice", &[a], 2.0, vec![ebb::trace::PartialRepr::Scalar(2.0)]).is_ok());
+    assert!(
+        tape.custom("mul", &[a], 2.0, vec![ebb::trace::PartialRepr::Scalar(2.0)])
+            .is_err(),
+        "a catalog name is refused"
+    );
+    assert!(
+        tape.custom(
+            "twice",
+            &[a],
+            2.0,
+            vec![ebb::trace::PartialRepr::Scalar(2.0)]
+        )
+        .is_ok()
+    );
 }

@@ -22,7 +22,11 @@ fn chain(nodes: usize) -> ebb::trace::Trace {
 
 fn adjoint_bits(sweep: &Sweep) -> Vec<Option<Vec<u64>>> {
     (0..sweep.trace().nodes().len())
-        .map(|node| sweep.adjoint(node).map(|value| value.data().iter().map(|x| x.to_bits()).collect()))
+        .map(|node| {
+            sweep
+                .adjoint(node)
+                .map(|value| value.data().iter().map(|x| x.to_bits()).collect())
+        })
         .collect()
 }
 
@@ -39,20 +43,32 @@ fn ten_thousand_steps_forward_and_back_restore_every_adjoint() {
         saved.push(adjoint_bits(&sweep));
     }
     assert_eq!(sweep.cursor(), 10_000);
-    assert_ne!(saved[3], start, "stepping must change adjoints, or the check below proves nothing");
+    assert_ne!(
+        saved[3], start,
+        "stepping must change adjoints, or the check below proves nothing"
+    );
     // Each checkpoint is reached again going back, and matches an independent
     // sweep run forward to the same point without a ledger.
     for (at, &target) in checkpoints.iter().enumerate().rev() {
         while sweep.cursor() > target {
             assert!(sweep.back());
         }
-        assert!(adjoint_bits(&sweep) == saved[at], "adjoints differ after stepping back to {target}");
+        assert!(
+            adjoint_bits(&sweep) == saved[at],
+            "adjoints differ after stepping back to {target}"
+        );
         let mut fresh = Sweep::new(&trace, LedgerMode::Off);
         fresh.run_steps(target);
-        assert!(adjoint_bits(&fresh) == saved[at], "a fresh sweep to {target} disagrees");
+        assert!(
+            adjoint_bits(&fresh) == saved[at],
+            "a fresh sweep to {target} disagrees"
+        );
     }
     while sweep.back() {}
     assert_eq!(sweep.cursor(), 0);
-    assert!(adjoint_bits(&sweep) == start, "after 10,000 steps back the adjoints differ from the start");
+    assert!(
+        adjoint_bits(&sweep) == start,
+        "after 10,000 steps back the adjoints differ from the start"
+    );
     assert!(sweep.ledger().unwrap().entries().is_empty());
 }

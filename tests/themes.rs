@@ -14,10 +14,20 @@ fn every_shipped_theme_file_loads_and_is_built_in() {
         .map(|entry| entry.unwrap().path())
         .filter(|path| path.extension().is_some_and(|ext| ext == "ron"))
         .map(|path| {
-            let theme = Theme::resolve(path.to_str().unwrap()).unwrap_or_else(|error| panic!("{error}"));
+            let theme =
+                Theme::resolve(path.to_str().unwrap()).unwrap_or_else(|error| panic!("{error}"));
             let stem = path.file_stem().unwrap().to_str().unwrap().to_string();
-            assert_eq!(theme.name, stem, "{} names itself differently", path.display());
-            assert_eq!(Some(&theme), Theme::shipped(&stem).as_ref(), "{stem} is not built in");
+            assert_eq!(
+                theme.name,
+                stem,
+                "{} names itself differently",
+                path.display()
+            );
+            assert_eq!(
+                Some(&theme),
+                Theme::shipped(&stem).as_ref(),
+                "{stem} is not built in"
+            );
             stem
         })
         .collect();
@@ -31,14 +41,24 @@ fn every_shipped_theme_file_loads_and_is_built_in() {
 #[test]
 fn a_missing_theme_file_is_one_clear_line() {
     let error = Theme::resolve("no/such/theme.ron").unwrap_err().to_string();
-    assert!(error.starts_with("no/such/theme.ron: cannot read the theme"), "{error}");
-    assert!(error.contains("dark, light, contrast, colorblind"), "{error}");
+    assert!(
+        error.starts_with("no/such/theme.ron: cannot read the theme"),
+        "{error}"
+    );
+    assert!(
+        error.contains("dark, light, contrast, colorblind"),
+        "{error}"
+    );
 }
 
 /// sRGB to linear light (IEC 61966-2-1:1999, the sRGB transfer function).
 fn linear(channel: u8) -> f64 {
     let c = channel as f64 / 255.0;
-    if c <= 0.04045 { c / 12.92 } else { ((c + 0.055) / 1.055).powf(2.4) }
+    if c <= 0.04045 {
+        c / 12.92
+    } else {
+        ((c + 0.055) / 1.055).powf(2.4)
+    }
 }
 
 fn rgb(color: Option<Color>) -> [f64; 3] {
@@ -57,8 +77,16 @@ fn the_colorblind_theme_keeps_flags_apart_under_red_green_deficiency() {
     // Severity-1.0 simulation matrices for linear RGB from Machado, Oliveira & Fernandes,
     // "A Physiologically-based Model for Simulation of Color Vision Deficiency",
     // IEEE TVCG 15(6), 2009, Table 1 (values from memory).
-    const DEUTERANOPIA: [[f64; 3]; 3] = [[0.367322, 0.860646, -0.227968], [0.280085, 0.672501, 0.047413], [-0.011820, 0.042940, 0.968881]];
-    const PROTANOPIA: [[f64; 3]; 3] = [[0.152286, 1.052583, -0.204868], [0.114503, 0.786281, 0.099216], [-0.003882, -0.048116, 1.051998]];
+    const DEUTERANOPIA: [[f64; 3]; 3] = [
+        [0.367322, 0.860646, -0.227968],
+        [0.280085, 0.672501, 0.047413],
+        [-0.011820, 0.042940, 0.968881],
+    ];
+    const PROTANOPIA: [[f64; 3]; 3] = [
+        [0.152286, 1.052583, -0.204868],
+        [0.114503, 0.786281, 0.099216],
+        [-0.003882, -0.048116, 1.051998],
+    ];
     let theme = Theme::shipped("colorblind").unwrap();
     let roles = [
         ("flag_value", theme.flag_value.fg),
@@ -78,10 +106,21 @@ fn the_colorblind_theme_keeps_flags_apart_under_red_green_deficiency() {
                 if !compared {
                     continue;
                 }
-                let (a, b) = (simulate(&matrix, rgb(*color)), simulate(&matrix, rgb(*other_color)));
-                let distance = a.iter().zip(&b).map(|(x, y)| (x - y).powi(2)).sum::<f64>().sqrt();
+                let (a, b) = (
+                    simulate(&matrix, rgb(*color)),
+                    simulate(&matrix, rgb(*other_color)),
+                );
+                let distance = a
+                    .iter()
+                    .zip(&b)
+                    .map(|(x, y)| (x - y).powi(2))
+                    .sum::<f64>()
+                    .sqrt();
                 // 0.3 in linear RGB is a clearly visible difference (common practice, not a standard).
-                assert!(distance > 0.3, "{name} and {other} are {distance:.3} apart when simulated");
+                assert!(
+                    distance > 0.3,
+                    "{name} and {other} are {distance:.3} apart when simulated"
+                );
             }
         }
     }

@@ -13,25 +13,63 @@ use std::path::Path;
 
 /// Every adjoint, flag and ledger entry as bits, so NaN compares equal to itself.
 fn snapshot(sweep: &Sweep) -> String {
-    let bits = |value: Option<&Value>| value.map(|v| (v.shape().to_vec(), v.data().iter().map(|x| x.to_bits()).collect::<Vec<_>>()));
-    let adjoints: Vec<_> = (0..sweep.trace().nodes().len()).map(|node| bits(sweep.adjoint(node))).collect();
-    let flags: Vec<_> =
-        sweep.flags().iter().map(|f| (f.step, f.node, f.kind, f.slot, f.from, f.element, f.value.to_bits(), f.count)).collect();
+    let bits = |value: Option<&Value>| {
+        value.map(|v| {
+            (
+                v.shape().to_vec(),
+                v.data().iter().map(|x| x.to_bits()).collect::<Vec<_>>(),
+            )
+        })
+    };
+    let adjoints: Vec<_> = (0..sweep.trace().nodes().len())
+        .map(|node| bits(sweep.adjoint(node)))
+        .collect();
+    let flags: Vec<_> = sweep
+        .flags()
+        .iter()
+        .map(|f| {
+            (
+                f.step,
+                f.node,
+                f.kind,
+                f.slot,
+                f.from,
+                f.element,
+                f.value.to_bits(),
+                f.count,
+            )
+        })
+        .collect();
     let ledger: Vec<_> = sweep
         .ledger()
         .map(|ledger| {
             ledger
                 .entries()
                 .iter()
-                .map(|c| (c.step, c.consumer, c.input, c.slot, bits(Some(&c.value)), bits(c.before.as_ref()), bits(Some(&c.after))))
+                .map(|c| {
+                    (
+                        c.step,
+                        c.consumer,
+                        c.input,
+                        c.slot,
+                        bits(Some(&c.value)),
+                        bits(c.before.as_ref()),
+                        bits(Some(&c.after)),
+                    )
+                })
                 .collect()
         })
         .unwrap_or_default();
     let received: Vec<_> = match sweep.ledger() {
-        Some(ledger) => (0..sweep.trace().nodes().len()).map(|node| ledger.received(node).len()).collect(),
+        Some(ledger) => (0..sweep.trace().nodes().len())
+            .map(|node| ledger.received(node).len())
+            .collect(),
         None => Vec::new(),
     };
-    format!("{} {adjoints:?} {flags:?} {ledger:?} {received:?}", sweep.cursor())
+    format!(
+        "{} {adjoints:?} {flags:?} {ledger:?} {received:?}",
+        sweep.cursor()
+    )
 }
 
 /// A small network with tensors, broadcasting and a log of zero, so flags are raised mid-sweep.
@@ -46,8 +84,13 @@ fn tensor_trace(seed: u64) -> Trace {
     let hidden = tape.relu(hidden);
     let mask = tape.constant("mask", Value::from_parts(vec![4], vec![1.0, 0.0, 1.0, 1.0]));
     let masked = tape.mul(hidden, mask);
-    let probabilities = tape.apply(Op::Softmax, &[masked], Attrs::default()).unwrap();
-    let zero = tape.constant("zero_weight", Value::from_parts(vec![4], vec![1.0, 1.0, 0.0, 1.0]));
+    let probabilities = tape
+        .apply(Op::Softmax, &[masked], Attrs::default())
+        .unwrap();
+    let zero = tape.constant(
+        "zero_weight",
+        Value::from_parts(vec![4], vec![1.0, 1.0, 0.0, 1.0]),
+    );
     let scaled = tape.mul(probabilities, zero);
     let logs = tape.log(scaled);
     let loss = tape.apply(Op::Sum, &[logs], Attrs::default()).unwrap();
@@ -66,7 +109,11 @@ fn check_undo(trace: &Trace, mode: LedgerMode, rng: &mut Rng) {
         for _ in 0..k {
             assert!(sweep.back());
         }
-        assert_eq!(snapshot(&sweep), before, "step {k} from {start} then back {k} must restore everything ({mode:?})");
+        assert_eq!(
+            snapshot(&sweep),
+            before,
+            "step {k} from {start} then back {k} must restore everything ({mode:?})"
+        );
     }
 }
 
@@ -86,7 +133,11 @@ fn step_then_back_restores_adjoints_flags_and_ledger_bit_exactly() {
     let mut sweep = Sweep::new(&trace, LedgerMode::On);
     sweep.run_to_end();
     assert!(!sweep.flags().is_empty());
-    assert!(sweep.flags().iter().any(|flag| flag.step > 0), "{:?}", sweep.flags());
+    assert!(
+        sweep.flags().iter().any(|flag| flag.step > 0),
+        "{:?}",
+        sweep.flags()
+    );
 }
 
 #[test]
@@ -119,14 +170,18 @@ fn chain(length: usize) -> ebb::trace::TraceFile {
 fn million_node_chain_loads_from_json_and_sweeps() {
     let length = 1_000_000;
     let text = to_text(&chain(length), Encoding::Json);
-    let trace = load_str(&text, Encoding::Json, Path::new("chain.json")).expect("a long chain loads");
+    let trace =
+        load_str(&text, Encoding::Json, Path::new("chain.json")).expect("a long chain loads");
     drop(text);
     assert_eq!(trace.nodes().len(), length + 1);
     assert_eq!(trace.sweep_order().len(), length + 1);
     // d/dx of (−1)^n·x is (−1)^n; n is even.
     let mut sweep = Sweep::new(&trace, LedgerMode::Off);
     assert_eq!(sweep.run_to_end(), length + 1);
-    assert_eq!(sweep.adjoint(trace.find("x").unwrap()), Some(&Value::Scalar(1.0)));
+    assert_eq!(
+        sweep.adjoint(trace.find("x").unwrap()),
+        Some(&Value::Scalar(1.0))
+    );
     assert!(sweep.flags().is_empty());
 
     let mut sweep = Sweep::new(&trace, LedgerMode::On);

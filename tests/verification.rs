@@ -42,24 +42,46 @@ fn baydin_forward_mode_trace() {
     let v4 = tape.add(v1, v2);
     let v5 = tape.sub(v4, v3);
     let trace = checked(tape.finish(v5));
-    assert_eq!(trace.node(trace.output()).value, Value::Scalar(11.652071455223084));
-    let mut tangent = TangentSweep::new(&trace, &Direction::Unit { node: 0, element: 0 });
+    assert_eq!(
+        trace.node(trace.output()).value,
+        Value::Scalar(11.652071455223084)
+    );
+    let mut tangent = TangentSweep::new(
+        &trace,
+        &Direction::Unit {
+            node: 0,
+            element: 0,
+        },
+    );
     // Step it node by node as a teacher would: x1's tangent is 1, x2's is 0 (zero tangents stay unset).
     tangent.step();
     assert_eq!(tangent.tangent(0), Some(&Value::Scalar(1.0)));
     tangent.step();
     assert_eq!(tangent.tangent(1), None);
     tangent.step();
-    assert_eq!(tangent.tangent(2), Some(&Value::Scalar(0.5)), "v̇1 = ẋ1 / x1");
+    assert_eq!(
+        tangent.tangent(2),
+        Some(&Value::Scalar(0.5)),
+        "v̇1 = ẋ1 / x1"
+    );
     tangent.run_to_end();
     assert_eq!(tangent.directional_derivative(), Some(5.5));
     assert!(tangent.back());
     assert_eq!(tangent.directional_derivative(), None);
 
-    let mut tangent = TangentSweep::new(&trace, &Direction::Unit { node: 1, element: 0 });
+    let mut tangent = TangentSweep::new(
+        &trace,
+        &Direction::Unit {
+            node: 1,
+            element: 0,
+        },
+    );
     tangent.run_to_end();
     let derivative = tangent.directional_derivative().unwrap();
-    assert!((derivative - 1.7163378145367738).abs() < 1e-15, "{derivative}");
+    assert!(
+        (derivative - 1.7163378145367738).abs() < 1e-15,
+        "{derivative}"
+    );
     // The dot-product identity against the reverse sweep.
     let sweep = swept(&trace);
     assert!((tangent.reverse_counterpart(&sweep) - derivative).abs() < 1e-15);
@@ -72,14 +94,35 @@ fn central_differences_of_a_cube_have_error_h_squared() {
     // errs by 3h + h².
     let mut tape = Tape::new("cube", Dtype::F64);
     let x = tape.param("x", 1.0);
-    let cube = tape.apply(Op::Pow, &[x], Attrs { exponent: Some(3.0), ..Attrs::default() }).unwrap();
+    let cube = tape
+        .apply(
+            Op::Pow,
+            &[x],
+            Attrs {
+                exponent: Some(3.0),
+                ..Attrs::default()
+            },
+        )
+        .unwrap();
     let trace = checked(tape.finish(cube));
-    let at = |x: f64| reevaluate(&trace, &[(0, Value::Scalar(x))], Dtype::F64).unwrap()[1].as_scalar().unwrap();
+    let at = |x: f64| {
+        reevaluate(&trace, &[(0, Value::Scalar(x))], Dtype::F64).unwrap()[1]
+            .as_scalar()
+            .unwrap()
+    };
     let h = 1e-2;
     let central = (at(1.0 + h) - at(1.0 - h)) / (2.0 * h);
-    assert!((central - 3.0 - h * h).abs() < 1e-12, "central error {}", central - 3.0);
+    assert!(
+        (central - 3.0 - h * h).abs() < 1e-12,
+        "central error {}",
+        central - 3.0
+    );
     let forward = (at(1.0 + h) - at(1.0)) / h;
-    assert!((forward - 3.0 - (3.0 * h + h * h)).abs() < 1e-12, "forward error {}", forward - 3.0);
+    assert!(
+        (forward - 3.0 - (3.0 * h + h * h)).abs() < 1e-12,
+        "forward error {}",
+        forward - 3.0
+    );
 }
 
 /// Records every edge's partial from the op table, as a framework with
@@ -93,25 +136,34 @@ fn with_recorded_partials(file: TraceFile) -> TraceFile {
         }
         let inputs: Vec<&Value> = node.inputs.iter().map(|&i| &trace.node(i).value).collect();
         let partials = (0..inputs.len())
-            .map(|slot| match ops::elementwise_partial(node.op, slot, &inputs, &node.value, &node.attrs, trace.dtype()) {
-                Some(diagonal) => PartialRepr::Diagonal(diagonal.data().to_vec()),
-                None => {
-                    let rows = (0..node.value.len())
-                        .map(|row| {
-                            let mut unit = Value::filled(node.value.shape(), 0.0);
-                            unit.data_mut()[row] = 1.0;
-                            let args = VjpArgs {
-                                slot,
-                                inputs: &inputs,
-                                output: &node.value,
-                                adjoint: &unit,
-                                attrs: &node.attrs,
-                                dtype: trace.dtype(),
-                            };
-                            ops::vjp(node.op, &args).data().to_vec()
-                        })
-                        .collect();
-                    PartialRepr::Jacobian(rows)
+            .map(|slot| {
+                match ops::elementwise_partial(
+                    node.op,
+                    slot,
+                    &inputs,
+                    &node.value,
+                    &node.attrs,
+                    trace.dtype(),
+                ) {
+                    Some(diagonal) => PartialRepr::Diagonal(diagonal.data().to_vec()),
+                    None => {
+                        let rows = (0..node.value.len())
+                            .map(|row| {
+                                let mut unit = Value::filled(node.value.shape(), 0.0);
+                                unit.data_mut()[row] = 1.0;
+                                let args = VjpArgs {
+                                    slot,
+                                    inputs: &inputs,
+                                    output: &node.value,
+                                    adjoint: &unit,
+                                    attrs: &node.attrs,
+                                    dtype: trace.dtype(),
+                                };
+                                ops::vjp(node.op, &args).data().to_vec()
+                            })
+                            .collect();
+                        PartialRepr::Jacobian(rows)
+                    }
                 }
             })
             .collect();
@@ -132,7 +184,9 @@ fn random_network(seed: u64) -> TraceFile {
     let activation = [Op::Tanh, Op::Sigmoid, Op::Sin, Op::Exp][rng.below(4)];
     let hidden = tape.apply(activation, &[hidden], Attrs::default()).unwrap();
     let scaled = tape.mul(hidden, b);
-    let probabilities = tape.apply(Op::Softmax, &[scaled], Attrs::default()).unwrap();
+    let probabilities = tape
+        .apply(Op::Softmax, &[scaled], Attrs::default())
+        .unwrap();
     let target = tape.constant("target", random_tensor(&mut rng, &[2, 3], 0.0, 1.0));
     let loss = tape.mse(probabilities, target);
     tape.finish(loss)
@@ -144,13 +198,24 @@ fn on_random_networks_every_check_agrees() {
         let file = with_recorded_partials(random_network(seed));
         let trace = checked(file);
         let verification = verify(&trace, &VerifyOptions::default());
-        assert!(verification.agrees(), "seed {seed}: {}", verification.to_text(&trace));
+        assert!(
+            verification.agrees(),
+            "seed {seed}: {}",
+            verification.to_text(&trace)
+        );
         assert!(!verification.partials.is_empty());
         for check in &verification.partials {
-            assert!(check.worst.relative < 1e-12, "recorded partials came from the same rule");
+            assert!(
+                check.worst.relative < 1e-12,
+                "recorded partials came from the same rule"
+            );
         }
         for check in &verification.differences {
-            assert!(check.band() <= Band::Acceptable, "seed {seed}: {:?}", check.worst());
+            assert!(
+                check.band() <= Band::Acceptable,
+                "seed {seed}: {:?}",
+                check.worst()
+            );
         }
         assert!(verification.tangent.unwrap().relative < 1e-12);
     }
@@ -160,19 +225,29 @@ fn on_random_networks_every_check_agrees() {
 fn an_injected_sign_flip_is_found_at_its_node() {
     for seed in 1..=6 {
         let file = with_recorded_partials(random_network(seed));
-        let candidates: Vec<usize> = (0..file.nodes.len()).filter(|&k| !file.nodes[k].partials.is_empty()).collect();
+        let candidates: Vec<usize> = (0..file.nodes.len())
+            .filter(|&k| !file.nodes[k].partials.is_empty())
+            .collect();
         for &flipped in &candidates {
             let mut corrupted = file.clone();
             let partial = &mut corrupted.nodes[flipped].partials[0];
             *partial = match partial.clone() {
                 PartialRepr::Diagonal(d) => PartialRepr::Diagonal(d.iter().map(|x| -x).collect()),
-                PartialRepr::Jacobian(rows) => PartialRepr::Jacobian(rows.iter().map(|r| r.iter().map(|x| -x).collect()).collect()),
+                PartialRepr::Jacobian(rows) => PartialRepr::Jacobian(
+                    rows.iter()
+                        .map(|r| r.iter().map(|x| -x).collect())
+                        .collect(),
+                ),
                 other => other,
             };
             let trace = checked(corrupted);
             let verification = verify(&trace, &VerifyOptions::default());
-            let partial_suspects: Vec<usize> =
-                verification.suspects.iter().filter(|s| s.evidence == Evidence::RecordedPartial).map(|s| s.node).collect();
+            let partial_suspects: Vec<usize> = verification
+                .suspects
+                .iter()
+                .filter(|s| s.evidence == Evidence::RecordedPartial)
+                .map(|s| s.node)
+                .collect();
             if trace.node(flipped).partials[0]
                 .as_ref()
                 .is_some_and(|p| matches!(p, ebb::trace::Partial::Diagonal(d) if d.data().iter().all(|&x| x == 0.0)))
@@ -203,18 +278,39 @@ fn reported_gradients_lead_to_the_node_with_the_wrong_backward() {
     let h_value = tape.value(h).data().to_vec();
     let squared: Vec<f64> = h_value.iter().map(|x| x * x).collect();
     let wrong: Vec<f64> = h_value.iter().map(|x| -2.0 * x).collect();
-    let custom = tape.custom("square_custom", &[h], Value::from_parts(vec![3], squared), vec![PartialRepr::Diagonal(wrong)]).unwrap();
+    let custom = tape
+        .custom(
+            "square_custom",
+            &[h],
+            Value::from_parts(vec![3], squared),
+            vec![PartialRepr::Diagonal(wrong)],
+        )
+        .unwrap();
     let loss = tape.apply(Op::Sum, &[custom], Attrs::default()).unwrap();
     let mut file = tape.finish(loss);
     // True gradients: ∂L/∂y = 1, ∂L/∂h = 2h, ∂L/∂w = 3·2h.
     let true_h: Vec<f64> = h_value.iter().map(|x| 2.0 * x).collect();
     let true_w: Vec<f64> = true_h.iter().map(|g| 3.0 * g).collect();
-    file.nodes[0].reported = Some(ValueRepr::Tensor { shape: vec![3], data: true_w });
-    file.nodes[2].reported = Some(ValueRepr::Tensor { shape: vec![3], data: true_h });
-    file.nodes[3].reported = Some(ValueRepr::Tensor { shape: vec![3], data: vec![1.0; 3] });
+    file.nodes[0].reported = Some(ValueRepr::Tensor {
+        shape: vec![3],
+        data: true_w,
+    });
+    file.nodes[2].reported = Some(ValueRepr::Tensor {
+        shape: vec![3],
+        data: true_h,
+    });
+    file.nodes[3].reported = Some(ValueRepr::Tensor {
+        shape: vec![3],
+        data: vec![1.0; 3],
+    });
     let trace = checked(file);
     let verification = verify(&trace, &VerifyOptions::default());
-    assert_eq!(verification.suspects.len(), 1, "{}", verification.to_text(&trace));
+    assert_eq!(
+        verification.suspects.len(),
+        1,
+        "{}",
+        verification.to_text(&trace)
+    );
     let suspect = &verification.suspects[0];
     assert_eq!(trace.node(suspect.node).id, trace.node(3).id);
     assert_eq!(suspect.evidence, Evidence::ReportedGradient);
@@ -236,8 +332,15 @@ fn kinks_are_named_when_a_step_crosses_them() {
     assert_eq!(check.kinks, vec![1], "the relu node is named");
     let at_kink = check.entries.iter().find(|e| e.element == 0).unwrap();
     assert_eq!(at_kink.reverse, 0.0, "the subgradient at the kink is 0");
-    assert!((at_kink.central - 0.5).abs() < 1e-9, "the difference averages both sides");
-    let suspect = verification.suspects.iter().find(|s| s.evidence == Evidence::FiniteDifference).unwrap();
+    assert!(
+        (at_kink.central - 0.5).abs() < 1e-9,
+        "the difference averages both sides"
+    );
+    let suspect = verification
+        .suspects
+        .iter()
+        .find(|s| s.evidence == Evidence::FiniteDifference)
+        .unwrap();
     assert!(suspect.detail.contains("kinks at"), "{}", suspect.detail);
 }
 
@@ -246,23 +349,44 @@ fn the_wrong_partial_demo_names_exactly_its_custom_node() {
     let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("traces/wrong_partial.ron");
     let trace = ebb::trace::load(&path).unwrap();
     let verification = verify(&trace, &VerifyOptions::default());
-    let named: Vec<&str> = verification.suspects.iter().map(|s| trace.node(s.node).id.as_str()).collect();
+    let named: Vec<&str> = verification
+        .suspects
+        .iter()
+        .map(|s| trace.node(s.node).id.as_str())
+        .collect();
     assert_eq!(named, vec!["gated"], "{}", verification.to_text(&trace));
     let suspect = &verification.suspects[0];
     assert_eq!(suspect.band, Band::ProbablyWrong);
     assert!(suspect.relative > 1e-2);
     assert_eq!(trace.node(suspect.node).op, Op::Custom);
     // The finite differences go through the custom op's own (wrong) partials, so they cannot see it.
-    assert!(verification.differences.iter().all(|check| check.band() <= Band::Acceptable));
+    assert!(
+        verification
+            .differences
+            .iter()
+            .all(|check| check.band() <= Band::Acceptable)
+    );
 }
 
 #[test]
 fn the_other_demos_verify_clean() {
     // underflow_f16 is an f16 trace: its derivatives are judged on the forward pass recomputed in f64.
-    for name in ["teaching.ron", "vanishing.ron", "exploding.ron", "underflow_f16.ron", "medium.tape"] {
-        let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("traces").join(name);
+    for name in [
+        "teaching.ron",
+        "vanishing.ron",
+        "exploding.ron",
+        "underflow_f16.ron",
+        "medium.tape",
+    ] {
+        let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("traces")
+            .join(name);
         let trace = ebb::trace::load(&path).unwrap();
         let verification = verify(&trace, &VerifyOptions::default());
-        assert!(verification.agrees(), "{name}: {}", verification.to_text(&trace));
+        assert!(
+            verification.agrees(),
+            "{name}: {}",
+            verification.to_text(&trace)
+        );
     }
 }

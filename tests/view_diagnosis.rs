@@ -15,7 +15,12 @@ use ratatui::buffer::Buffer;
 use std::path::Path;
 
 fn demo(name: &str) -> Trace {
-    trace::load(&Path::new(env!("CARGO_MANIFEST_DIR")).join("traces").join(name)).unwrap()
+    trace::load(
+        &Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("traces")
+            .join(name),
+    )
+    .unwrap()
 }
 
 /// The view as `ebb open` makes it, with the work queued on open (the diagnosis) done.
@@ -37,8 +42,20 @@ fn pane_rows(buf: &Buffer, title: &str) -> Vec<String> {
     let (x, y) = find(buf, title);
     let all = rows(buf);
     // The border's corner is the last '┌' at or left of the title.
-    let left = all[y as usize].chars().take(x as usize + 1).collect::<Vec<_>>().iter().rposition(|&c| c == '┌').unwrap();
-    let right = all[y as usize].chars().skip(left + 1).position(|c| c == '┐').unwrap() + left + 1;
+    let left = all[y as usize]
+        .chars()
+        .take(x as usize + 1)
+        .collect::<Vec<_>>()
+        .iter()
+        .rposition(|&c| c == '┌')
+        .unwrap();
+    let right = all[y as usize]
+        .chars()
+        .skip(left + 1)
+        .position(|c| c == '┐')
+        .unwrap()
+        + left
+        + 1;
     all[y as usize + 1..]
         .iter()
         .map(|row| row.chars().collect::<Vec<_>>())
@@ -56,21 +73,39 @@ fn nan_hunt_names_the_origin_its_class_and_its_sentence() {
     // ln_p takes the log of 'predicted'; one of its entries is an exact 0 and ln 0 = −inf
     // (IEEE 754-2019 §9.2.1: log(±0) is −∞), so the origin is a non-finite forward value, class (a).
     let argument = &trace.node(trace.node(ln_p).inputs[0]).value;
-    assert!(argument.data().contains(&0.0), "the demo's log argument holds a zero");
+    assert!(
+        argument.data().contains(&0.0),
+        "the demo's log argument holds a zero"
+    );
     assert!(trace.node(ln_p).value.data().contains(&f64::NEG_INFINITY));
     let buf = draw(&mut app, 200, 50);
-    assert!(screen(&buf).contains("origin (a) non-finite forward value at 'ln_p'"), "{}", screen(&buf));
+    assert!(
+        screen(&buf).contains("origin (a) non-finite forward value at 'ln_p'"),
+        "{}",
+        screen(&buf)
+    );
     let origin_row = row_with(&buf, "◆ step");
-    assert!(origin_row.contains("ln_p") && origin_row.contains("origin (a) non-finite"), "{origin_row}");
+    assert!(
+        origin_row.contains("ln_p") && origin_row.contains("origin (a) non-finite"),
+        "{origin_row}"
+    );
     let (x, y) = find(&buf, "◆ step");
-    assert_eq!(buf[(x, y)].fg, Theme::default_theme().flag_origin.fg.unwrap());
+    assert_eq!(
+        buf[(x, y)].fg,
+        Theme::default_theme().flag_origin.fg.unwrap()
+    );
 
     app.update(Action::JumpToOrigin);
     assert_eq!(app.selected, ln_p);
     let buf = draw(&mut app, 200, 50);
     let node = pane_rows(&buf, "2 Node · ln_p").join(" ");
     let node = node.split_whitespace().collect::<Vec<_>>().join(" ");
-    assert!(node.contains("origin Origin (a): the forward value of 'ln_p' (log) is -inf: log of 0 is −inf."), "{node}");
+    assert!(
+        node.contains(
+            "origin Origin (a): the forward value of 'ln_p' (log) is -inf: log of 0 is −inf."
+        ),
+        "{node}"
+    );
     // Four parameters lie below the log in the sweep; the chain to each starts at ln_p.
     assert!(node.contains("hops to hidden.w: ln_p →"), "{node}");
     assert!(node.contains("… and 1 more parameter"), "{node}");
@@ -81,9 +116,15 @@ fn nan_hunt_names_the_origin_its_class_and_its_sentence() {
     let buf = draw(&mut app, 200, 50);
     let node = pane_rows(&buf, "2 Node · out.w").join(" ");
     let node = node.split_whitespace().collect::<Vec<_>>().join(" ");
-    assert!(node.contains("Non-finite because of 'ln_p'") && node.contains("up the sweep (a)"), "{node}");
+    assert!(
+        node.contains("Non-finite because of 'ln_p'") && node.contains("up the sweep (a)"),
+        "{node}"
+    );
     // The sweep's own flags for non-finite adjoints carry the class too.
-    let flag = rows(&buf).into_iter().find(|row| row.contains("! step") && row.contains(" out.pre ")).unwrap();
+    let flag = rows(&buf)
+        .into_iter()
+        .find(|row| row.contains("! step") && row.contains(" out.pre "))
+        .unwrap();
     assert!(flag.contains("non-finite adjoint NaN (a)"), "{flag}");
 }
 
@@ -93,11 +134,23 @@ fn nan_hunt_fits_80_by_24() {
     let copies = Retyped::new(&trace);
     let mut app = open(&trace, &copies);
     let buf = draw(&mut app, 80, 24);
-    assert!(row_with(&buf, "◆ step").contains("ln_p"), "{}", screen(&buf));
-    assert!(screen(&buf).contains("6 Flags · 0 raised · 1 origin"), "{}", screen(&buf));
+    assert!(
+        row_with(&buf, "◆ step").contains("ln_p"),
+        "{}",
+        screen(&buf)
+    );
+    assert!(
+        screen(&buf).contains("6 Flags · 0 raised · 1 origin"),
+        "{}",
+        screen(&buf)
+    );
     app.update(Action::JumpToOrigin);
     let buf = draw(&mut app, 80, 24);
-    assert!(screen(&buf).contains("origin   Origin (a): the forward value"), "{}", screen(&buf));
+    assert!(
+        screen(&buf).contains("origin   Origin (a): the forward value"),
+        "{}",
+        screen(&buf)
+    );
 }
 
 #[test]
@@ -106,11 +159,18 @@ fn exploding_shows_the_dominant_path_hop_by_hop() {
     // Independent of the diagnosis: W·Wᵀ = 1.44·I (W is 1.2 times a rotation), so every
     // pull-back g ↦ g·Wᵀ scales ‖g‖ by exactly 1.2 (Golub & Van Loan, "Matrix Computations",
     // 4th ed., 2013, §2.3: the 2-norm is invariant under orthogonal transformations).
-    let w = trace.node(trace.find("cell.w").unwrap()).value.data().to_vec();
+    let w = trace
+        .node(trace.find("cell.w").unwrap())
+        .value
+        .data()
+        .to_vec();
     for i in 0..4 {
         for j in 0..4 {
             let dot: f64 = (0..4).map(|k| w[4 * i + k] * w[4 * j + k]).sum();
-            assert!((dot - if i == j { 1.44 } else { 0.0 }).abs() < 1e-6, "W Wᵀ[{i}][{j}] = {dot}");
+            assert!(
+                (dot - if i == j { 1.44 } else { 0.0 }).abs() < 1e-6,
+                "W Wᵀ[{i}][{j}] = {dot}"
+            );
         }
     }
     let copies = Retyped::new(&trace);
@@ -119,20 +179,58 @@ fn exploding_shows_the_dominant_path_hop_by_hop() {
     app.update(Action::Zoom);
     let buf = draw(&mut app, 200, 50);
     // The advice names cell.w, the parameter with the largest exploding gradient.
-    assert!(screen(&buf).contains("8 Paths · cell.w: gain 1e7.0 over 95 hops"), "{}", screen(&buf));
-    let hop = |at: usize| rows(&buf).into_iter().find(|row| row.starts_with(&format!("│{at:>4} "))).unwrap();
-    assert!(hop(1).contains("loss") && hop(1).contains("→ h50"), "{}", hop(1));
-    assert!(hop(3).contains("t50.hw") && hop(3).contains("→ h49") && hop(3).contains("×1.2 "), "{}", hop(3));
-    assert!(hop(2).contains("×1 "), "an add passes its adjoint on unchanged: {}", hop(2));
+    assert!(
+        screen(&buf).contains("8 Paths · cell.w: gain 1e7.0 over 95 hops"),
+        "{}",
+        screen(&buf)
+    );
+    let hop = |at: usize| {
+        rows(&buf)
+            .into_iter()
+            .find(|row| row.starts_with(&format!("│{at:>4} ")))
+            .unwrap()
+    };
+    assert!(
+        hop(1).contains("loss") && hop(1).contains("→ h50"),
+        "{}",
+        hop(1)
+    );
+    assert!(
+        hop(3).contains("t50.hw") && hop(3).contains("→ h49") && hop(3).contains("×1.2 "),
+        "{}",
+        hop(3)
+    );
+    assert!(
+        hop(2).contains("×1 "),
+        "an add passes its adjoint on unchanged: {}",
+        hop(2)
+    );
     // Hop k's product is the product of the gains shown so far.
-    let product = |row: &str| row.split("∏ 1e").nth(1).unwrap().split_whitespace().next().unwrap().parse::<f64>().unwrap();
+    let product = |row: &str| {
+        row.split("∏ 1e")
+            .nth(1)
+            .unwrap()
+            .split_whitespace()
+            .next()
+            .unwrap()
+            .parse::<f64>()
+            .unwrap()
+    };
     let first = product(&hop(1));
-    assert!((product(&hop(3)) - (first + 1.2f64.log10())).abs() < 0.01, "{}", hop(3));
+    assert!(
+        (product(&hop(3)) - (first + 1.2f64.log10())).abs() < 0.01,
+        "{}",
+        hop(3)
+    );
     // ] selects the next parameter and shows its path.
     app.update(Action::NextParameter);
     assert_eq!(trace.node(app.selected).id, "cell.u");
     let buf = draw(&mut app, 200, 50);
-    assert!(screen(&buf).contains("8 Paths · cell.u"), "{}", screen(&buf));
+    assert!(
+        screen(&buf).contains("8 Paths · cell.u"),
+        "{}",
+        screen(&buf)
+    );
 }
 
 #[test]
@@ -159,17 +257,38 @@ fn vanishing_shows_group_norms_and_the_ratio_between_neighbours() {
     app.update(Action::Bottom);
     let buf = draw(&mut app, 200, 50);
     let row = row_with(&buf, "tower/layer01 ");
-    let shown: f64 = row.split("↓×").nth(1).unwrap_or_else(|| panic!("{row}")).split_whitespace().next().unwrap().parse().unwrap();
-    assert!((shown - expected).abs() <= 1e-6 * expected, "{row}: expected ×{expected}");
+    let shown: f64 = row
+        .split("↓×")
+        .nth(1)
+        .unwrap_or_else(|| panic!("{row}"))
+        .split_whitespace()
+        .next()
+        .unwrap()
+        .parse()
+        .unwrap();
+    assert!(
+        (shown - expected).abs() <= 1e-6 * expected,
+        "{row}: expected ×{expected}"
+    );
     // Bars: one cell per two decades from 1e-8, so the loss group (norm near 1) fills about half.
-    assert!(row_with(&buf, "d0 ").contains("████"), "{}", row_with(&buf, "d0 "));
+    assert!(
+        row_with(&buf, "d0 ").contains("████"),
+        "{}",
+        row_with(&buf, "d0 ")
+    );
     let (x, y) = find(&buf, "↓×");
-    assert_eq!(buf[(x, y)].fg, Theme::default_theme().flag_small.fg.unwrap());
+    assert_eq!(
+        buf[(x, y)].fg,
+        Theme::default_theme().flag_small.fg.unwrap()
+    );
     // The vanishing gradient's finding is listed in Flags with its value against the threshold.
     app.update(Action::Zoom);
     let buf = draw(&mut app, 200, 50);
     let vanishing = row_with(&buf, "↓ step");
-    assert!(vanishing.contains("vanishing") && vanishing.contains(" < "), "{vanishing}");
+    assert!(
+        vanishing.contains("vanishing") && vanishing.contains(" < "),
+        "{vanishing}"
+    );
 }
 
 #[test]
@@ -183,30 +302,66 @@ fn the_precision_toggle_shows_f16_zeros_that_f32_keeps() {
     app.jump(param);
     app.update(Action::CyclePrecision);
     assert!(app.has_work(), "re-sweeping waits for a frame that says so");
-    assert!(draw(&mut app, 200, 50).content().iter().any(|cell| cell.symbol() == "…"));
+    assert!(
+        draw(&mut app, 200, 50)
+            .content()
+            .iter()
+            .any(|cell| cell.symbol() == "…")
+    );
     settle(&mut app);
-    assert_eq!(app.trace.dtype(), Dtype::Bf16, "the cycle after the recorded f16 is bf16");
+    assert_eq!(
+        app.trace.dtype(),
+        Dtype::Bf16,
+        "the cycle after the recorded f16 is bf16"
+    );
     app.update(Action::CyclePrecision);
     settle(&mut app);
     assert_eq!(app.trace.dtype(), Dtype::F32);
-    assert_eq!(app.sweep.cursor(), app.sweep.len(), "the sweep is at the same step as before");
+    assert_eq!(
+        app.sweep.cursor(),
+        app.sweep.len(),
+        "the sweep is at the same step as before"
+    );
 
     // Expected from plain sweeps of the recorded trace and of its f32 copy.
     let f32_trace = trace.retyped(Dtype::F32, trace.subnormals());
-    let (mut half, mut single) = (Sweep::new(&trace, LedgerMode::Off), Sweep::new(&f32_trace, LedgerMode::Off));
+    let (mut half, mut single) = (
+        Sweep::new(&trace, LedgerMode::Off),
+        Sweep::new(&f32_trace, LedgerMode::Off),
+    );
     half.run_to_end();
     single.run_to_end();
-    let (h, s) = (half.adjoint(param).unwrap().data(), single.adjoint(param).unwrap().data());
-    let zeros: Vec<usize> = (0..h.len()).filter(|&k| h[k] == 0.0 && s[k] != 0.0).collect();
+    let (h, s) = (
+        half.adjoint(param).unwrap().data(),
+        single.adjoint(param).unwrap().data(),
+    );
+    let zeros: Vec<usize> = (0..h.len())
+        .filter(|&k| h[k] == 0.0 && s[k] != 0.0)
+        .collect();
     assert!(!zeros.is_empty());
     // Each lost entry is far below f16's smallest normal number 2⁻¹⁴ (IEEE 754-2019 §3.6,
     // Table 3.5: binary16 has emin = −14), where f16 keeps ever fewer bits and its products flush.
-    assert!(zeros.iter().all(|&k| s[k].abs() < 2f64.powi(-14) / 64.0), "{:?}", zeros.iter().map(|&k| s[k]).collect::<Vec<_>>());
+    assert!(
+        zeros.iter().all(|&k| s[k].abs() < 2f64.powi(-14) / 64.0),
+        "{:?}",
+        zeros.iter().map(|&k| s[k]).collect::<Vec<_>>()
+    );
 
     let buf = draw(&mut app, 200, 50);
-    assert!(screen(&buf).contains("f32 (recorded f16)"), "{}", screen(&buf));
+    assert!(
+        screen(&buf).contains("f32 (recorded f16)"),
+        "{}",
+        screen(&buf)
+    );
     let node = pane_rows(&buf, "2 Node · hidden.w").join("\n");
-    assert!(node.contains(&format!("{} of {} entries zero in f16, non-zero in f32", zeros.len(), h.len())), "{node}");
+    assert!(
+        node.contains(&format!(
+            "{} of {} entries zero in f16, non-zero in f32",
+            zeros.len(),
+            h.len()
+        )),
+        "{node}"
+    );
     // The element table puts the two side by side.
     app.update(Action::Focus(PaneId::Node));
     app.update(Action::Zoom);
@@ -214,11 +369,25 @@ fn the_precision_toggle_shows_f16_zeros_that_f32_keeps() {
         app.update(Action::Down);
     }
     let buf = draw(&mut app, 200, 50);
-    assert!(screen(&buf).contains("adjoint f32             f16"), "{}", screen(&buf));
-    let row = rows(&buf).into_iter().find(|row| row.starts_with(&format!("│{:>8}  ", zeros[0]))).unwrap();
-    let numbers: Vec<f64> = row.trim_matches('│').split_whitespace().filter_map(|word| word.parse().ok()).collect();
+    assert!(
+        screen(&buf).contains("adjoint f32             f16"),
+        "{}",
+        screen(&buf)
+    );
+    let row = rows(&buf)
+        .into_iter()
+        .find(|row| row.starts_with(&format!("│{:>8}  ", zeros[0])))
+        .unwrap();
+    let numbers: Vec<f64> = row
+        .trim_matches('│')
+        .split_whitespace()
+        .filter_map(|word| word.parse().ok())
+        .collect();
     // Shown to five significant digits.
-    assert!((numbers[2] - s[zeros[0]]).abs() <= 1e-4 * s[zeros[0]].abs(), "{row}");
+    assert!(
+        (numbers[2] - s[zeros[0]]).abs() <= 1e-4 * s[zeros[0]].abs(),
+        "{row}"
+    );
     assert_eq!(numbers[3], 0.0, "{row}");
 
     // Once round: back to the recorded dtype.
@@ -229,7 +398,10 @@ fn the_precision_toggle_shows_f16_zeros_that_f32_keeps() {
     settle(&mut app);
     assert_eq!(app.trace.dtype(), Dtype::F16);
     assert!(app.compare.is_none());
-    assert_eq!(app.message.as_deref(), Some("back to the recorded dtype f16"));
+    assert_eq!(
+        app.message.as_deref(),
+        Some("back to the recorded dtype f16")
+    );
 }
 
 #[test]
@@ -245,10 +417,17 @@ fn toggling_exploding_into_f16_reports_where_it_first_overflows() {
     settle(&mut app);
     let buf = draw(&mut app, 200, 50);
     let status = rows(&buf).pop().unwrap();
-    assert!(status.contains("f16 (recorded f32)") && status.contains("f16 vs f64: first overflow 'loss' step 1"), "{status}");
+    assert!(
+        status.contains("f16 (recorded f32)")
+            && status.contains("f16 vs f64: first overflow 'loss' step 1"),
+        "{status}"
+    );
     app.update(Action::Step);
     let buf = draw(&mut app, 200, 50);
-    assert!(row_with(&buf, "✗ step 1").contains("loss"), "the loss is infinite in f16");
+    assert!(
+        row_with(&buf, "✗ step 1").contains("loss"),
+        "the loss is infinite in f16"
+    );
 }
 
 #[test]
@@ -264,10 +443,21 @@ fn the_keys_are_in_the_help() {
         app.update(Action::PageDown);
         below += &screen(&draw(&mut app, 200, 50));
     }
-    for (key, what) in [("D", "diagnose"), ("p", "sweep in the next dtype"), ("o", "jump to the origin"), ("1-8", "focus a pane")] {
+    for (key, what) in [
+        ("D", "diagnose"),
+        ("p", "sweep in the next dtype"),
+        ("o", "jump to the origin"),
+        ("1-8", "focus a pane"),
+    ] {
         let row = row_with(&buf, what);
         assert!(row.contains(&format!("  {key} ")), "{row}");
     }
-    assert!(below.contains("8 Paths (dominant paths, group norms)"), "{below}");
-    assert!(below.contains("◆ origin of a non-finite adjoint"), "{below}");
+    assert!(
+        below.contains("8 Paths (dominant paths, group norms)"),
+        "{below}"
+    );
+    assert!(
+        below.contains("◆ origin of a non-finite adjoint"),
+        "{below}"
+    );
 }

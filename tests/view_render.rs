@@ -29,7 +29,11 @@ fn log_of_zero() -> Trace {
 }
 
 fn app(trace: &Trace) -> App<'_> {
-    App::new(trace, "test", vec![Theme::default_theme(), Theme::shipped("light").unwrap()])
+    App::new(
+        trace,
+        "test",
+        vec![Theme::default_theme(), Theme::shipped("light").unwrap()],
+    )
 }
 
 // Teaching demo, closed form: p = 2.5, c = 1, s = 0.4, k = 0.1, q = exp(−s·p) = e⁻¹,
@@ -40,7 +44,10 @@ const Q: f64 = 0.36787944117144233; // e⁻¹ (from memory; checked below agains
 /// The first number after `label` in `line`.
 #[track_caller]
 fn number_after(line: &str, label: &str) -> f64 {
-    let rest = line.split(label).nth(1).unwrap_or_else(|| panic!("{label:?} not in {line}"));
+    let rest = line
+        .split(label)
+        .nth(1)
+        .unwrap_or_else(|| panic!("{label:?} not in {line}"));
     numbers_in(rest)[0]
 }
 
@@ -84,16 +91,29 @@ fn inflow_shows_a_branch_point_filling_up_and_emptying_on_back() {
     assert!(contains(&buf, "nothing received yet"));
     assert!(contains(&buf, "to come (3):"));
     // Step 3 (demand_sq = q·q) sends both of its contributions; step 4 (gross) the last.
-    let expected = [None, None, None, Some(-0.2 * Q), Some(1.5 - 0.2 * Q), Some(1.5 - 0.2 * Q)];
+    let expected = [
+        None,
+        None,
+        None,
+        Some(-0.2 * Q),
+        Some(1.5 - 0.2 * Q),
+        Some(1.5 - 0.2 * Q),
+    ];
     for (step, after) in expected.iter().enumerate().skip(1) {
         app.update(Action::Step);
         let buf = draw(&mut app, 200, 50);
         match after {
             Some(adjoint) => {
                 let shown = number_after(&row_with(&buf, "adjoint  "), "adjoint  ");
-                assert!((shown - adjoint).abs() < 1e-15, "step {step}: {shown} vs closed form {adjoint}");
+                assert!(
+                    (shown - adjoint).abs() < 1e-15,
+                    "step {step}: {shown} vs closed form {adjoint}"
+                );
             }
-            None => assert!(row_with(&buf, "adjoint  ").contains("adjoint  none yet"), "step {step}"),
+            None => assert!(
+                row_with(&buf, "adjoint  ").contains("adjoint  none yet"),
+                "step {step}"
+            ),
         }
     }
     let buf = draw(&mut app, 200, 50);
@@ -105,12 +125,18 @@ fn inflow_shows_a_branch_point_filling_up_and_emptying_on_back() {
         let middle: String = line.chars().skip(64).take(76).collect();
         let found = numbers_in(&middle);
         let (c, a) = (found[found.len() - 2], found[found.len() - 1]);
-        assert!((c - contribution).abs() < 1e-15 && (a - after).abs() < 1e-15, "{line}: want {contribution} then {after}");
+        assert!(
+            (c - contribution).abs() < 1e-15 && (a - after).abs() < 1e-15,
+            "{line}: want {contribution} then {after}"
+        );
     };
     close(&first, -0.1 * Q, -0.1 * Q);
     close(&second, -0.1 * Q, -0.2 * Q);
     close(&third, 1.5, 1.5 - 0.2 * Q);
-    assert!(contains(&buf, "complete: 3 contribution(s), the adjoint is final"));
+    assert!(contains(
+        &buf,
+        "complete: 3 contribution(s), the adjoint is final"
+    ));
     // Back over steps 5 (margin) and 4 (gross): gross's contribution is gone and the adjoint is −2kq again.
     app.update(Action::Back);
     app.update(Action::Back);
@@ -119,7 +145,10 @@ fn inflow_shows_a_branch_point_filling_up_and_emptying_on_back() {
     assert!(contains(&buf, "to come (1):"));
     assert!(contains(&buf, "to come (1):"));
     let adjoint_line = row_with(&buf, "adjoint  ");
-    assert!((number_after(&adjoint_line, "adjoint  ") + 0.2 * Q).abs() < 1e-15, "{adjoint_line}");
+    assert!(
+        (number_after(&adjoint_line, "adjoint  ") + 0.2 * Q).abs() < 1e-15,
+        "{adjoint_line}"
+    );
 }
 
 #[test]
@@ -146,7 +175,10 @@ fn edges_walk_along_an_edge_and_back() {
     app.select(trace.find("demand").unwrap());
     app.update(Action::Focus(PaneId::Edges));
     let buf = draw(&mut app, 200, 50);
-    assert!(contains(&buf, "inputs ← each receives demand's adjoint × ∂"));
+    assert!(contains(
+        &buf,
+        "inputs ← each receives demand's adjoint × ∂"
+    ));
     // ∂(a·b)/∂b = a: the gross edge carries p − c = 1.5 (closed form).
     assert!(row_with(&buf, " gross ").contains("slot 1 ∂ 1.5"));
     app.update(Action::Down);
@@ -168,16 +200,32 @@ fn flags_show_symbol_node_and_kind_and_jump_to_it() {
     let buf = draw(&mut app, 200, 50);
     // The loss −ln 0 = +inf is itself flagged when the sweep processes it, at step 1.
     let first = row_with(&buf, "✗ step 1");
-    assert!(first.contains("✗ step 1     loss") && first.contains("non-finite value inf"), "{first}");
-    let log = trace.nodes().iter().find(|node| node.op_name == "log").unwrap().id.clone();
+    assert!(
+        first.contains("✗ step 1     loss") && first.contains("non-finite value inf"),
+        "{first}"
+    );
+    let log = trace
+        .nodes()
+        .iter()
+        .find(|node| node.op_name == "log")
+        .unwrap()
+        .id
+        .clone();
     app.update(Action::RunToFlag);
     assert_eq!(app.selected, trace.find(&log).unwrap());
     let buf = draw(&mut app, 200, 50);
     let value_row = row_with(&buf, "✗ step 2");
-    assert!(value_row.contains(&format!("✗ step 2     {log}")) && value_row.contains("non-finite value -inf"), "{value_row}");
+    assert!(
+        value_row.contains(&format!("✗ step 2     {log}"))
+            && value_row.contains("non-finite value -inf"),
+        "{value_row}"
+    );
     // The partial of ln at 0 is 1/0 = +inf (IEEE 754-2019 §7.3: a non-zero divided by zero).
     let partial_row = row_with(&buf, "∂ step 2");
-    assert!(partial_row.contains("non-finite partial inf"), "{partial_row}");
+    assert!(
+        partial_row.contains("non-finite partial inf"),
+        "{partial_row}"
+    );
     assert!(contains(&buf, &format!(" {log} ")));
     let theme = Theme::default_theme();
     let (x, y) = find(&buf, "✗ step 2");
@@ -207,11 +255,24 @@ fn trend_charts_groups_after_the_sweep() {
     // is the norm of their four final adjoints (common practice: L2 norm).
     let squares: f64 = ["price", "unit_cost", "sensitivity", "storage_rate"]
         .iter()
-        .map(|id| app.sweep.adjoint(trace.find(id).unwrap()).unwrap().as_scalar().unwrap().powi(2))
+        .map(|id| {
+            app.sweep
+                .adjoint(trace.find(id).unwrap())
+                .unwrap()
+                .as_scalar()
+                .unwrap()
+                .powi(2)
+        })
         .sum();
     // The Trend pane is the right-hand column, from column 140 on.
-    let right: Vec<String> = rows(&buf).iter().map(|row| row.chars().skip(141).collect()).collect();
-    let inputs_row = right.iter().find(|row| row.starts_with("inputs ") && row.contains('█')).expect("an inputs group row");
+    let right: Vec<String> = rows(&buf)
+        .iter()
+        .map(|row| row.chars().skip(141).collect())
+        .collect();
+    let inputs_row = right
+        .iter()
+        .find(|row| row.starts_with("inputs ") && row.contains('█'))
+        .expect("an inputs group row");
     let shown = numbers_in(inputs_row)[0];
     assert!((shown - squares.sqrt()).abs() < 1e-6, "{inputs_row}");
 }
@@ -225,7 +286,10 @@ fn help_lists_the_live_key_map() {
     let (heading, rows) = &app.keymap.help()[0];
     assert!(contains(&buf, heading));
     for (keys, what) in rows.iter().take(30) {
-        assert!(row_with(&buf, what).contains(keys.as_str()), "{keys} for {what}");
+        assert!(
+            row_with(&buf, what).contains(keys.as_str()),
+            "{keys} for {what}"
+        );
     }
     app.update(Action::Cancel);
     let buf = draw(&mut app, 80, 24);
@@ -271,14 +335,21 @@ fn cycling_themes_changes_the_colours_and_no_color_drops_them() {
     app.update(Action::CycleTheme);
     let buf = draw(&mut app, 120, 40);
     assert!(contains(&buf, "theme: light"));
-    assert_eq!(buf[(x, y)].fg, Theme::shipped("light").unwrap().done.fg.unwrap());
+    assert_eq!(
+        buf[(x, y)].fg,
+        Theme::shipped("light").unwrap().done.fg.unwrap()
+    );
     let plain = Theme::cycle(None, true);
     let mut app = App::new(&trace, "test", plain);
     app.update(Action::Step);
     let buf = draw(&mut app, 120, 40);
     let (x, y) = find(&buf, "✓  1");
     assert_eq!(buf[(x, y)].fg, Color::Reset);
-    assert!(buf.content().iter().all(|cell| cell.fg == Color::Reset && cell.bg == Color::Reset));
+    assert!(
+        buf.content()
+            .iter()
+            .all(|cell| cell.fg == Color::Reset && cell.bg == Color::Reset)
+    );
 }
 
 #[test]

@@ -22,7 +22,14 @@ struct Screen {
 
 impl Screen {
     fn open(rows: u16, cols: u16, args: &[&str]) -> Screen {
-        let pair = NativePtySystem::default().openpty(PtySize { rows, cols, pixel_width: 0, pixel_height: 0 }).unwrap();
+        let pair = NativePtySystem::default()
+            .openpty(PtySize {
+                rows,
+                cols,
+                pixel_width: 0,
+                pixel_height: 0,
+            })
+            .unwrap();
         let mut command = CommandBuilder::new(env!("CARGO_BIN_EXE_ebb"));
         command.args(args);
         command.cwd(env!("CARGO_MANIFEST_DIR"));
@@ -30,7 +37,11 @@ impl Screen {
         command.env_remove("NO_COLOR");
         let child = pair.slave.spawn_command(command).unwrap();
         drop(pair.slave);
-        let parser = Arc::new(Mutex::new(vt100::Parser::new(rows.try_into().unwrap(), cols.try_into().unwrap(), 0)));
+        let parser = Arc::new(Mutex::new(vt100::Parser::new(
+            rows.try_into().unwrap(),
+            cols.try_into().unwrap(),
+            0,
+        )));
         let (sink, mut reader) = (parser.clone(), pair.master.try_clone_reader().unwrap());
         std::thread::spawn(move || {
             let mut buf = [0u8; 8192];
@@ -44,7 +55,11 @@ impl Screen {
         let keys = pair.master.take_writer().unwrap();
         // Keep the master alive as long as the writer: dropping it would hang up the child.
         std::mem::forget(pair.master);
-        Screen { parser, keys, child }
+        Screen {
+            parser,
+            keys,
+            child,
+        }
     }
 
     fn send(&mut self, keys: &str) {
@@ -65,7 +80,10 @@ impl Screen {
             if screen.contains(needle) {
                 return screen;
             }
-            assert!(Instant::now() < deadline, "never saw {needle:?}; screen was:\n{screen}");
+            assert!(
+                Instant::now() < deadline,
+                "never saw {needle:?}; screen was:\n{screen}"
+            );
             std::thread::sleep(Duration::from_millis(20));
         }
     }
@@ -74,9 +92,15 @@ impl Screen {
     #[track_caller]
     fn number_after(&self, needle: &str, label: &str) -> f64 {
         let screen = self.wait_for(needle);
-        let line = screen.lines().find(|line| line.contains(label)).unwrap_or_else(|| panic!("no {label:?} in\n{screen}"));
+        let line = screen
+            .lines()
+            .find(|line| line.contains(label))
+            .unwrap_or_else(|| panic!("no {label:?} in\n{screen}"));
         let rest = line.split(label).nth(1).unwrap();
-        rest.split_whitespace().next().and_then(|word| word.parse().ok()).unwrap_or_else(|| panic!("no number after {label:?} in {line}"))
+        rest.split_whitespace()
+            .next()
+            .and_then(|word| word.parse().ok())
+            .unwrap_or_else(|| panic!("no number after {label:?} in {line}"))
     }
 
     fn wait_exit(&mut self) -> portable_pty::ExitStatus {
@@ -95,14 +119,20 @@ impl Screen {
 
 #[track_caller]
 fn near(shown: f64, expected: f64) {
-    assert!((shown - expected).abs() < 1e-15, "shown {shown}, closed form {expected}");
+    assert!(
+        (shown - expected).abs() < 1e-15,
+        "shown {shown}, closed form {expected}"
+    );
 }
 
 #[test]
 fn stepping_the_teaching_demo_in_a_real_terminal() {
     let mut screen = Screen::open(50, 200, &["open", "traces/teaching.ron"]);
     screen.wait_for("step 0/12 │ next profit (sub)");
-    assert!(screen.parser.lock().unwrap().screen().alternate_screen(), "the view runs on the alternate screen");
+    assert!(
+        screen.parser.lock().unwrap().screen().alternate_screen(),
+        "the view runs on the alternate screen"
+    );
     screen.send(":demand\r");
     screen.wait_for("Inflow · demand");
     screen.wait_for("adjoint  none yet");
@@ -112,7 +142,10 @@ fn stepping_the_teaching_demo_in_a_real_terminal() {
     // Step 3 processes demand_sq = q·q: two contributions of −kq each.
     screen.send("s");
     near(screen.number_after("step 3/12", "adjoint  "), -0.2 * Q);
-    near(screen.number_after("step 3/12", "   3 demand_sq        1 "), -0.1 * Q);
+    near(
+        screen.number_after("step 3/12", "   3 demand_sq        1 "),
+        -0.1 * Q,
+    );
     // Step 4 processes gross = (p − c)·q: the last contribution, p − c.
     screen.send("s");
     near(screen.number_after("step 4/12", "adjoint  "), 1.5 - 0.2 * Q);
@@ -135,7 +168,10 @@ fn stepping_the_teaching_demo_in_a_real_terminal() {
     let status = screen.wait_exit();
     assert!(status.success(), "{status:?}");
     let parser = screen.parser.lock().unwrap();
-    assert!(!parser.screen().alternate_screen(), "the alternate screen was left");
+    assert!(
+        !parser.screen().alternate_screen(),
+        "the alternate screen was left"
+    );
     assert!(!parser.screen().hide_cursor(), "the cursor is shown again");
 }
 
@@ -175,22 +211,41 @@ fn without_a_terminal_open_points_to_check_and_sweep() {
     let stderr = String::from_utf8(output.stderr).unwrap();
     assert_eq!(stderr.lines().count(), 1, "{stderr}");
     assert!(
-        stderr.contains("needs a terminal") && stderr.contains("ebb check traces/teaching.ron") && stderr.contains("ebb sweep"),
+        stderr.contains("needs a terminal")
+            && stderr.contains("ebb check traces/teaching.ron")
+            && stderr.contains("ebb sweep"),
         "{stderr}"
     );
     assert!(output.stdout.is_empty());
     // With no arguments and no terminal, ebb keeps printing the demo's report.
     let output = Command::new(env!("CARGO_BIN_EXE_ebb")).output().unwrap();
     assert_eq!(output.status.code(), Some(0));
-    assert!(String::from_utf8(output.stdout).unwrap().contains("market stall"));
+    assert!(
+        String::from_utf8(output.stdout)
+            .unwrap()
+            .contains("market stall")
+    );
 }
 
 #[test]
 fn a_bad_theme_is_one_line_with_its_position() {
     let dir = tempfile::tempdir().unwrap();
     let path = dir.path().join("mine.ron");
-    std::fs::write(&path, "(\n  name: \"mine\",\n  text: (fg: \"no-such-colour\"),\n)").unwrap();
-    let mut screen = Screen::open(24, 80, &["open", "traces/teaching.ron", "--theme", path.to_str().unwrap()]);
+    std::fs::write(
+        &path,
+        "(\n  name: \"mine\",\n  text: (fg: \"no-such-colour\"),\n)",
+    )
+    .unwrap();
+    let mut screen = Screen::open(
+        24,
+        80,
+        &[
+            "open",
+            "traces/teaching.ron",
+            "--theme",
+            path.to_str().unwrap(),
+        ],
+    );
     assert_eq!(screen.wait_exit().exit_code(), 2);
     let text = screen.parser.lock().unwrap().screen().contents();
     assert!(text.contains("mine.ron:3:"), "{text}");
@@ -210,8 +265,14 @@ fn forward_mode_in_a_real_terminal() {
     screen.send("sssssss");
     screen.wait_for("tangent step 7/12 │ next margin (sub)");
     screen.send("e");
-    near(screen.number_after("= agree", "∂f/∂v   "), 0.4 * Q + 0.08 * Q * Q);
-    near(screen.number_after("= agree", "⟨v, ∇f⟩ "), 0.4 * Q + 0.08 * Q * Q);
+    near(
+        screen.number_after("= agree", "∂f/∂v   "),
+        0.4 * Q + 0.08 * Q * Q,
+    );
+    near(
+        screen.number_after("= agree", "⟨v, ∇f⟩ "),
+        0.4 * Q + 0.08 * Q * Q,
+    );
     screen.send("m");
     screen.wait_for("reverse sweep: step 0/12");
     screen.send("q");

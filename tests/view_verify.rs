@@ -22,7 +22,10 @@ fn app(trace: &Trace) -> App<'_> {
 
 /// The columns `from..from + width` of every row: one pane of the wide layout.
 fn columns(buf: &Buffer, from: usize, width: usize) -> Vec<String> {
-    rows(buf).iter().map(|row| row.chars().skip(from).take(width).collect()).collect()
+    rows(buf)
+        .iter()
+        .map(|row| row.chars().skip(from).take(width).collect())
+        .collect()
 }
 
 /// x = [0.5, −1, 2], growth = exp(x), loss = Σ growth, with growth's recorded
@@ -37,7 +40,11 @@ fn wrong_exp_partial() -> Trace {
     let loss = tape.rename(loss, "loss");
     let mut file = tape.finish(loss);
     let partial = vec![0.5f64.exp(), -(-1.0f64).exp(), 2.0f64.exp()];
-    let at = file.nodes.iter().position(|node| node.id == "growth".into()).unwrap();
+    let at = file
+        .nodes
+        .iter()
+        .position(|node| node.id == "growth".into())
+        .unwrap();
     file.nodes[at].partials = vec![PartialRepr::Diagonal(partial)];
     validate(file).unwrap()
 }
@@ -47,26 +54,49 @@ fn the_verify_pane_names_the_node_with_the_wrong_partial_and_its_band() {
     let trace = wrong_exp_partial();
     let mut app = app(&trace);
     let buf = draw(&mut app, 200, 50);
-    assert!(contains(&buf, "7 Verify") || contains(&buf, "5 Trend"), "the corner slot is titled");
+    assert!(
+        contains(&buf, "7 Verify") || contains(&buf, "5 Trend"),
+        "the corner slot is titled"
+    );
     // Showing the pane runs the checks once.
     app.update(Action::Focus(PaneId::Verify));
     assert!(app.checks.verification.is_some());
     let buf = draw(&mut app, 200, 50);
-    assert!(contains(&buf, "5 Trend │ 7 Verify"), "Verify takes Trend's slot in the wide layout");
+    assert!(
+        contains(&buf, "5 Trend │ 7 Verify"),
+        "Verify takes Trend's slot in the wide layout"
+    );
     // Trend and Verify share the right-hand column, from column 140 on.
     let pane = columns(&buf, 140, 60);
-    let header = pane.iter().position(|row| row.contains("suspect(s), worst first")).expect("the suspect list");
+    let header = pane
+        .iter()
+        .position(|row| row.contains("suspect(s), worst first"))
+        .expect("the suspect list");
     let first = &pane[header + 1];
     // A sign error scores relative error |a − b| / (|a| + |b|) = 1 exactly (common
     // practice for gradient checks), above 1e-2: "probably wrong".
-    assert!(first.contains("growth") && first.contains("probably wrong") && first.contains("rel 1 "), "{first}");
-    assert!(first.contains("recorded partial") && first.contains('▲'), "{first}");
+    assert!(
+        first.contains("growth") && first.contains("probably wrong") && first.contains("rel 1 "),
+        "{first}"
+    );
+    assert!(
+        first.contains("recorded partial") && first.contains('▲'),
+        "{first}"
+    );
     let theme = Theme::default_theme();
     let (x, y) = find(&buf, "›▲ growth");
-    assert_eq!(buf[(x + 1, y)].fg, theme.flag_value.fg.unwrap(), "the band's colour backs its symbol");
+    assert_eq!(
+        buf[(x + 1, y)].fg,
+        theme.flag_value.fg.unwrap(),
+        "the band's colour backs its symbol"
+    );
     // No other node is blamed for a wrong recorded partial.
-    let partial_rows =
-        pane.iter().filter(|row| row.contains(" rel ") && row.contains("recorded partial") && !row.contains("growth")).count();
+    let partial_rows = pane
+        .iter()
+        .filter(|row| {
+            row.contains(" rel ") && row.contains("recorded partial") && !row.contains("growth")
+        })
+        .count();
     assert_eq!(partial_rows, 0, "{}", pane.join("\n"));
 }
 
@@ -76,11 +106,18 @@ fn recorded_and_recomputed_partials_side_by_side_with_the_difference_marked() {
     let mut app = app(&trace);
     app.update(Action::Focus(PaneId::Verify));
     let buf = draw(&mut app, 200, 50);
-    assert!(contains(&buf, "growth ∂ in 0 ← x: recorded vs exp's rule · 1 of 3 differ"));
+    assert!(contains(
+        &buf,
+        "growth ∂ in 0 ← x: recorded vs exp's rule · 1 of 3 differ"
+    ));
     // d/dx eˣ = eˣ (closed form): element 1 was recorded as −e⁻¹ where the rule gives e⁻¹.
     let differs = row_with(&buf, "≠       1");
     let found = numbers_in(differs.split("≠").nth(1).unwrap());
-    assert_eq!(found[..3], [1.0, -(-1.0f64).exp(), (-1.0f64).exp()], "{differs}");
+    assert_eq!(
+        found[..3],
+        [1.0, -(-1.0f64).exp(), (-1.0f64).exp()],
+        "{differs}"
+    );
     for (element, expected) in [(0, 0.5f64.exp()), (2, 2.0f64.exp())] {
         let row = row_with(&buf, &format!("=       {element}  "));
         let found = numbers_in(row.split("=       ").nth(1).unwrap());
@@ -88,7 +125,11 @@ fn recorded_and_recomputed_partials_side_by_side_with_the_difference_marked() {
     }
     let theme = Theme::default_theme();
     let (x, y) = find(&buf, "≠       1");
-    assert_eq!(buf[(x, y)].fg, theme.flag_value.fg.unwrap(), "the mark is a symbol and a colour");
+    assert_eq!(
+        buf[(x, y)].fg,
+        theme.flag_value.fg.unwrap(),
+        "the mark is a symbol and a colour"
+    );
     let (x, y) = find(&buf, "=       0");
     assert_eq!(buf[(x, y)].fg, theme.done.fg.unwrap());
     // Enter selects the suspect's node in the other panes.
@@ -108,12 +149,19 @@ fn the_verify_pane_says_plainly_when_everything_agrees() {
     let trace = validate(ebb::demos::teaching()).unwrap();
     let mut app = app(&trace);
     let buf = draw(&mut app, 80, 24);
-    assert!(!contains(&buf, "Verify ·"), "not shown, and not run, until asked");
+    assert!(
+        !contains(&buf, "Verify ·"),
+        "not shown, and not run, until asked"
+    );
     assert!(app.checks.verification.is_none());
     app.update(Action::Verify);
     let buf = draw(&mut app, 80, 24);
     // At 80 columns Verify joins the shared slot; unfocused tabs go by number.
-    assert!(contains(&buf, "3 │ 4 │ 5 │ 7 Verify │ 8 · all agree"), "{}", rows(&buf).join("\n"));
+    assert!(
+        contains(&buf, "3 │ 4 │ 5 │ 7 Verify │ 8 · all agree"),
+        "{}",
+        rows(&buf).join("\n")
+    );
     assert!(contains(&buf, "= every check agrees within 1e-4"));
     assert!(contains(&buf, "verified in"));
 }
@@ -135,7 +183,10 @@ fn d_sensitivity() -> f64 {
 
 #[track_caller]
 fn near(shown: f64, expected: f64) {
-    assert!((shown - expected).abs() <= 4.0 * f64::EPSILON * expected.abs(), "shown {shown}, closed form {expected}");
+    assert!(
+        (shown - expected).abs() <= 4.0 * f64::EPSILON * expected.abs(),
+        "shown {shown}, closed form {expected}"
+    );
 }
 
 #[test]
@@ -159,18 +210,31 @@ fn forward_mode_shows_dual_numbers_in_recording_order() {
     assert!(contains(&buf, "│✓  7 demand "), "{}", rows(&buf).join("\n"));
     assert!(contains(&buf, "│▶  8 margin "));
     let price_row = row_with(&buf, "│✓  1 price ");
-    assert_eq!(numbers_in(&price_row.chars().take(63).collect::<String>())[1..], [2.5, 1.0], "price is (2.5, 1): the seed");
+    assert_eq!(
+        numbers_in(&price_row.chars().take(63).collect::<String>())[1..],
+        [2.5, 1.0],
+        "price is (2.5, 1): the seed"
+    );
     // The dual number of demand: (q, −s·q).
     app.select(trace.find("demand").unwrap());
     let buf = draw(&mut app, 200, 50);
-    let dual = numbers_in(row_with(&buf, "dual     (").split("dual     ").nth(1).unwrap());
+    let dual = numbers_in(
+        row_with(&buf, "dual     (")
+            .split("dual     ")
+            .nth(1)
+            .unwrap(),
+    );
     near(dual[0], Q);
     near(dual[1], -0.4 * Q);
     assert!(contains(&buf, "✓ tangent known (forward step 7)"));
     // Status hints come from the key map and follow the mode.
     app.update(Action::Cancel);
     let buf = draw(&mut app, 200, 50);
-    assert!(contains(&buf, "d direction m reverse mode"), "{}", row_with(&buf, "FORWARD"));
+    assert!(
+        contains(&buf, "d direction m reverse mode"),
+        "{}",
+        row_with(&buf, "FORWARD")
+    );
     assert!(!row_with(&buf, "FORWARD").contains("to flag"));
     // Stepping back forgets demand's tangent; the reverse sweep never moved.
     app.update(Action::Back);
@@ -191,27 +255,56 @@ fn at_the_end_the_directional_derivative_matches_the_reverse_sweep() {
     let buf = draw(&mut app, 200, 50);
     // Along v = e_p both numbers are ∂profit/∂p = 0.4q + 0.08q² (closed form above).
     let order = columns(&buf, 0, 64);
-    let tangent = order.iter().find(|row| row.contains("∂f/∂v   ")).expect("the foot");
-    let reverse = order.iter().find(|row| row.contains("⟨v, ∇f⟩ ")).expect("the foot");
+    let tangent = order
+        .iter()
+        .find(|row| row.contains("∂f/∂v   "))
+        .expect("the foot");
+    let reverse = order
+        .iter()
+        .find(|row| row.contains("⟨v, ∇f⟩ "))
+        .expect("the foot");
     near(numbers_in(tangent)[0], d_price());
     near(numbers_in(reverse)[0], d_price());
-    assert!(order.iter().any(|row| row.contains("= agree (relative error")));
-    assert!(contains(&buf, "(tangent) · ⟨v, ∇f⟩ = "), "the status line says it too");
+    assert!(
+        order
+            .iter()
+            .any(|row| row.contains("= agree (relative error"))
+    );
+    assert!(
+        contains(&buf, "(tangent) · ⟨v, ∇f⟩ = "),
+        "the status line says it too"
+    );
     assert!(contains(&buf, "they agree"));
     // A seeded random direction over the parameters p and s: ⟨v, ∇f⟩ = v_p·∂f/∂p + v_s·∂f/∂s.
     app.update(Action::CycleDirection);
     let buf = draw(&mut app, 200, 50);
     assert!(contains(&buf, "v = random over 2 parameter(s), seed 0xebb"));
     let forward = app.forward.as_ref().unwrap();
-    let v = |id: &str| forward.sweep.direction(trace.find(id).unwrap()).unwrap().as_scalar().unwrap();
+    let v = |id: &str| {
+        forward
+            .sweep
+            .direction(trace.find(id).unwrap())
+            .unwrap()
+            .as_scalar()
+            .unwrap()
+    };
     let expected = v("price") * d_price() + v("sensitivity") * d_sensitivity();
     let order = columns(&buf, 0, 64);
-    let tangent = order.iter().find(|row| row.contains("∂f/∂v   ")).expect("the direction change keeps the position");
-    assert!((numbers_in(tangent)[0] - expected).abs() < 1e-15, "{tangent} vs {expected}");
+    let tangent = order
+        .iter()
+        .find(|row| row.contains("∂f/∂v   "))
+        .expect("the direction change keeps the position");
+    assert!(
+        (numbers_in(tangent)[0] - expected).abs() < 1e-15,
+        "{tangent} vs {expected}"
+    );
     // Help states the mode, with keys from the live key map.
     app.update(Action::Help);
     let buf = draw(&mut app, 200, 50);
-    assert!(contains(&buf, "Now: FORWARD MODE, v = random over 2 parameter(s)"));
+    assert!(contains(
+        &buf,
+        "Now: FORWARD MODE, v = random over 2 parameter(s)"
+    ));
     app.update(Action::Cancel);
     app.update(Action::ToggleForward);
     app.update(Action::Help);

@@ -54,7 +54,13 @@ fn baydin_reverse_trace_every_adjoint_and_order() {
     let x2: Vec<(&str, f64, f64)> = ledger
         .received(trace.find("x2").unwrap())
         .iter()
-        .map(|c| (id(c.consumer), c.value.as_scalar().unwrap(), c.after.as_scalar().unwrap()))
+        .map(|c| {
+            (
+                id(c.consumer),
+                c.value.as_scalar().unwrap(),
+                c.after.as_scalar().unwrap(),
+            )
+        })
         .collect();
     assert_eq!(x2.len(), 2);
     assert_eq!(x2[0].0, "v3");
@@ -64,7 +70,13 @@ fn baydin_reverse_trace_every_adjoint_and_order() {
     let x1: Vec<(&str, f64, f64)> = ledger
         .received(trace.find("x1").unwrap())
         .iter()
-        .map(|c| (id(c.consumer), c.value.as_scalar().unwrap(), c.after.as_scalar().unwrap()))
+        .map(|c| {
+            (
+                id(c.consumer),
+                c.value.as_scalar().unwrap(),
+                c.after.as_scalar().unwrap(),
+            )
+        })
         .collect();
     assert_eq!(x1, vec![("v2", 5.0, 5.0), ("v1", 0.5, 5.5)]);
 }
@@ -74,7 +86,11 @@ fn baydin_reverse_trace_every_adjoint_and_order() {
 /// as a chain of multiplies.
 fn speelpenning(values: &[f64]) -> ebb::trace::Trace {
     let mut tape = Tape::new("Speelpenning's product", Dtype::F64);
-    let inputs: Vec<_> = values.iter().enumerate().map(|(i, &x)| tape.param(&format!("x{}", i + 1), x)).collect();
+    let inputs: Vec<_> = values
+        .iter()
+        .enumerate()
+        .map(|(i, &x)| tape.param(&format!("x{}", i + 1), x))
+        .collect();
     let mut product = inputs[0];
     for &input in &inputs[1..] {
         product = tape.mul(product, input);
@@ -88,7 +104,11 @@ fn speelpenning_product_gradient() {
     let values: Vec<f64> = (1..=10).map(|i| i as f64 / (i as f64 + 1.0)).collect();
     let trace = speelpenning(&values);
     let output = trace.output();
-    assert_close(trace.node(output).value.as_scalar().unwrap(), 1.0 / 11.0, 1e-15);
+    assert_close(
+        trace.node(output).value.as_scalar().unwrap(),
+        1.0 / 11.0,
+        1e-15,
+    );
     let sweep = swept(&trace);
     for i in 1..=10 {
         let expected = (1.0 / 11.0) * (i as f64 + 1.0) / i as f64;
@@ -102,7 +122,9 @@ fn speelpenning_at_a_zero_entry_is_finite() {
     // At x = (0, 2, 3, 4) only ∂f/∂x1 = 2·3·4 = 24 survives; no division, no flag.
     let trace = speelpenning(&[0.0, 2.0, 3.0, 4.0]);
     let sweep = swept(&trace);
-    let gradient: Vec<f64> = (1..=4).map(|i| scalar_adjoint(&sweep, &format!("x{i}"))).collect();
+    let gradient: Vec<f64> = (1..=4)
+        .map(|i| scalar_adjoint(&sweep, &format!("x{i}")))
+        .collect();
     assert_eq!(gradient, vec![24.0, 0.0, 0.0, 0.0]);
     assert!(sweep.flags().is_empty(), "{:?}", sweep.flags());
 }
@@ -116,7 +138,16 @@ fn rosenbrock_gradient(x: f64, y: f64) -> (f64, f64) {
     let one = tape.constant("one", 1.0);
     let hundred = tape.constant("hundred", 100.0);
     let a = tape.sub(one, px);
-    let a_squared = tape.apply(Op::Pow, &[a], Attrs { exponent: Some(2.0), ..Attrs::default() }).unwrap();
+    let a_squared = tape
+        .apply(
+            Op::Pow,
+            &[a],
+            Attrs {
+                exponent: Some(2.0),
+                ..Attrs::default()
+            },
+        )
+        .unwrap();
     let x_squared = tape.mul(px, px);
     let b = tape.sub(py, x_squared);
     let b_squared = tape.mul(b, b);
@@ -146,9 +177,22 @@ fn softmax_cross_entropy_gradient_is_softmax_minus_onehot() {
     let expected = [0.0900305731703804, 0.2447284710547976, -0.3347590442251783];
     let mut tape = Tape::new("softmax cross-entropy", Dtype::F64);
     let z = tape.param("z", Value::from_parts(vec![3], vec![1.0, 2.0, 3.0]));
-    let loss = tape.apply(Op::CrossEntropy, &[z], Attrs { targets: Some(vec![2]), ..Attrs::default() }).unwrap();
+    let loss = tape
+        .apply(
+            Op::CrossEntropy,
+            &[z],
+            Attrs {
+                targets: Some(vec![2]),
+                ..Attrs::default()
+            },
+        )
+        .unwrap();
     let trace = finish(tape, loss);
-    assert_close(trace.node(trace.output()).value.as_scalar().unwrap(), 0.40760596444438063, 1e-15);
+    assert_close(
+        trace.node(trace.output()).value.as_scalar().unwrap(),
+        0.40760596444438063,
+        1e-15,
+    );
     let sweep = swept(&trace);
     let gradient = common::adjoint(&sweep, "z").data().to_vec();
     for (g, e) in gradient.iter().zip(expected) {
@@ -189,7 +233,11 @@ fn output_adjoint_is_the_seed() {
 #[test]
 fn add_passes_adjoint_and_mul_sends_the_other_input() {
     let mut tape = Tape::new("add and mul", Dtype::F64);
-    let (a, b, c) = (tape.param("a", 3.0), tape.param("b", 4.0), tape.param("c", -2.0));
+    let (a, b, c) = (
+        tape.param("a", 3.0),
+        tape.param("b", 4.0),
+        tape.param("c", -2.0),
+    );
     let sum = tape.add(a, b);
     tape.rename(sum, "sum");
     let product = tape.mul(sum, c);
@@ -215,9 +263,15 @@ fn branch_point_receives_the_sum_of_its_consumers_contributions() {
     let trace = finish(tape, total);
     let sweep = swept(&trace);
     let received = sweep.ledger().unwrap().received(trace.find("x").unwrap());
-    let contributions: Vec<f64> = received.iter().map(|c| c.value.as_scalar().unwrap()).collect();
+    let contributions: Vec<f64> = received
+        .iter()
+        .map(|c| c.value.as_scalar().unwrap())
+        .collect();
     // Reverse recording order: exp, then cos, then sin.
-    assert_eq!(contributions, vec![0.7f64.exp(), -(0.7f64.sin()), 0.7f64.cos()]);
+    assert_eq!(
+        contributions,
+        vec![0.7f64.exp(), -(0.7f64.sin()), 0.7f64.cos()]
+    );
     let expected = (0.7f64.exp() + -(0.7f64.sin())) + 0.7f64.cos();
     assert_eq!(scalar_adjoint(&sweep, "x"), expected);
     assert_eq!(received.last().unwrap().after.as_scalar(), Some(expected));

@@ -28,7 +28,9 @@ pub fn wide_tape(dir: &Path, nodes: usize, elements: usize) -> PathBuf {
     let tensor = |seed: usize| ValueRepr::Tensor {
         shape: vec![elements / 50, 50],
         // Exact f32 values, so the sidecar stores f32.
-        data: (0..elements).map(|i| ((i + seed) % 4096) as f64 / 4096.0 - 0.5).collect(),
+        data: (0..elements)
+            .map(|i| ((i + seed) % 4096) as f64 / 4096.0 - 0.5)
+            .collect(),
     };
     let mut file = TraceFile {
         format: FORMAT_VERSION,
@@ -43,7 +45,11 @@ pub fn wide_tape(dir: &Path, nodes: usize, elements: usize) -> PathBuf {
         file.nodes.push(NodeFile {
             id: NodeId(format!("n{k}")),
             op: if k == 0 { "param" } else { "neg" }.into(),
-            inputs: if k == 0 { vec![] } else { vec![NodeId(format!("n{}", k - 1))] },
+            inputs: if k == 0 {
+                vec![]
+            } else {
+                vec![NodeId(format!("n{}", k - 1))]
+            },
             group: format!("block{}", k / 100),
             site: None,
             value: tensor(k),

@@ -54,7 +54,9 @@ pub enum Command {
         set: Vec<String>,
     },
     /// Print the sweep step by step: each node, its adjoint, each contribution.
-    #[command(after_help = "Examples:\n  ebb sweep traces/teaching.ron\n  ebb sweep big.json --steps 20")]
+    #[command(
+        after_help = "Examples:\n  ebb sweep traces/teaching.ron\n  ebb sweep big.json --steps 20"
+    )]
     Sweep {
         /// The trace file (.ron, .json or .tape).
         trace: PathBuf,
@@ -66,7 +68,9 @@ pub enum Command {
     /// finite differences, reported gradients and the tangent sweep.
     ///
     /// Exit status: 0 when every check agrees, 1 when a mismatch is found, 2 on bad input.
-    #[command(after_help = "Examples:\n  ebb verify traces/teaching.ron\n  ebb verify layer.json --samples 32 --tolerance 1e-6 --json")]
+    #[command(
+        after_help = "Examples:\n  ebb verify traces/teaching.ron\n  ebb verify layer.json --samples 32 --tolerance 1e-6 --json"
+    )]
     Verify {
         /// The trace file (.ron or .json).
         trace: PathBuf,
@@ -103,7 +107,9 @@ pub enum Command {
     #[command(after_help = "Example:\n  ebb ops")]
     Ops,
     /// Print a shell completion script.
-    #[command(after_help = "Example:\n  ebb completions bash > ~/.local/share/bash-completion/completions/ebb")]
+    #[command(
+        after_help = "Example:\n  ebb completions bash > ~/.local/share/bash-completion/completions/ebb"
+    )]
     Completions {
         /// The shell.
         shell: clap_complete::Shell,

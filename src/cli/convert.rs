@@ -32,12 +32,17 @@ fn name(format: Option<Format>) -> &'static str {
 /// Runs the conversion and reports it on `out`.
 pub fn convert(input: &Path, output: &Path, out: &mut dyn Write) -> Result<Outcome> {
     let Some(target) = Format::from_path(output) else {
-        bail!("{}: unknown trace extension (hint: use .ron, .json, or .tape for a binary-backed trace)", output.display());
+        bail!(
+            "{}: unknown trace extension (hint: use .ron, .json, or .tape for a binary-backed trace)",
+            output.display()
+        );
     };
     let source = Format::from_path(input);
     let reads = source.map_or_else(|| vec![input.to_path_buf()], |format| format.files(input));
     for written in target.files(output) {
-        let clash = reads.iter().find(|read| resolved(read).is_some_and(|read| Some(read) == resolved(&written)));
+        let clash = reads
+            .iter()
+            .find(|read| resolved(read).is_some_and(|read| Some(read) == resolved(&written)));
         if let Some(read) = clash {
             bail!(
                 "{}: would overwrite the input {} (hint: ebb never writes to a trace it reads; choose another output name)",
@@ -48,10 +53,26 @@ pub fn convert(input: &Path, output: &Path, out: &mut dyn Write) -> Result<Outco
     }
     let file = trace::read_file(input, progress::for_trace(input).as_mut()).map_err(BadInput)?;
     let nodes = file.nodes.len();
-    trace::validate(file.clone()).map_err(|problems| BadInput(LoadError::Invalid { path: input.to_path_buf(), problems }))?;
+    trace::validate(file.clone()).map_err(|problems| {
+        BadInput(LoadError::Invalid {
+            path: input.to_path_buf(),
+            problems,
+        })
+    })?;
     trace::save_with(&file, output, progress::for_trace(input).as_mut())?;
-    let written: Vec<String> = target.files(output).iter().map(|path| path.display().to_string()).collect();
-    writeln!(out, "converted {} ({}) to {} ({}), {nodes} nodes", input.display(), name(source), written.join(" + "), name(Some(target)))
-        .context("writing the summary")?;
+    let written: Vec<String> = target
+        .files(output)
+        .iter()
+        .map(|path| path.display().to_string())
+        .collect();
+    writeln!(
+        out,
+        "converted {} ({}) to {} ({}), {nodes} nodes",
+        input.display(),
+        name(source),
+        written.join(" + "),
+        name(Some(target))
+    )
+    .context("writing the summary")?;
     Ok(Outcome::Clean)
 }

@@ -41,18 +41,45 @@ pub struct BadInput(#[from] pub LoadError);
 /// Runs a parsed command line, writing to `out`.
 pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
     match cli.command {
-        None if std::io::stdout().is_terminal() => view(&load_demo()?, DEMO_NAME, cli.theme.as_deref()),
+        None if std::io::stdout().is_terminal() => {
+            view(&load_demo()?, DEMO_NAME, cli.theme.as_deref())
+        }
         None => check(DEMO_NAME, &load_demo()?, false, &Settings::default(), out),
         Some(Command::Open { trace, theme }) => open(&trace, theme.as_deref()),
-        Some(Command::Check { trace, json, rules, set }) => {
+        Some(Command::Check {
+            trace,
+            json,
+            rules,
+            set,
+        }) => {
             let settings = settings(rules.as_deref(), &set)?;
-            check(&trace.display().to_string(), &load(&trace)?, json, &settings, out)
+            check(
+                &trace.display().to_string(),
+                &load(&trace)?,
+                json,
+                &settings,
+                out,
+            )
         }
         Some(Command::Sweep { trace, steps }) => sweep(&load(&trace)?, steps, out),
-        Some(Command::Verify { trace, json, tolerance, samples, seed, direction }) => {
+        Some(Command::Verify {
+            trace,
+            json,
+            tolerance,
+            samples,
+            seed,
+            direction,
+        }) => {
             let loaded = load(&trace)?;
-            let direction = direction.map(|text| parse_direction(&loaded, &text)).transpose()?;
-            let options = VerifyOptions { tolerance, samples, seed, direction };
+            let direction = direction
+                .map(|text| parse_direction(&loaded, &text))
+                .transpose()?;
+            let options = VerifyOptions {
+                tolerance,
+                samples,
+                seed,
+                direction,
+            };
             verify_command(&loaded, &options, json, out)
         }
         Some(Command::Ops) => ops(out),
@@ -100,12 +127,14 @@ fn view_error(error: ViewError) -> anyhow::Error {
 }
 
 fn load(path: &Path) -> Result<Trace> {
-    trace::load_with(path, progress::for_trace(path).as_mut()).map_err(|error| BadInput(error).into())
+    trace::load_with(path, progress::for_trace(path).as_mut())
+        .map_err(|error| BadInput(error).into())
 }
 
 /// Loads the demo embedded in the binary.
 pub fn load_demo() -> Result<Trace> {
-    trace::load_str(DEMO_TEXT, Encoding::Ron, Path::new("traces/teaching.ron")).map_err(|error| BadInput(error).into())
+    trace::load_str(DEMO_TEXT, Encoding::Ron, Path::new("traces/teaching.ron"))
+        .map_err(|error| BadInput(error).into())
 }
 
 /// The settings: defaults, then the file, then each `--set` in order.
@@ -120,46 +149,94 @@ fn settings(rules: Option<&Path>, set: &[String]) -> Result<Settings> {
     Ok(settings)
 }
 
-fn check(path: &str, trace: &Trace, json: bool, settings: &Settings, out: &mut dyn Write) -> Result<Outcome> {
+fn check(
+    path: &str,
+    trace: &Trace,
+    json: bool,
+    settings: &Settings,
+    out: &mut dyn Write,
+) -> Result<Outcome> {
     let own = settings.swept_trace(trace);
     let mut sweep = Sweep::new(&own, LedgerMode::Off);
     sweep.run_to_end();
     let diagnosis = diagnose(trace, settings);
     let report = Report::new(path, &sweep).with_diagnosis(trace, &diagnosis);
-    let text = if json { report.to_json() + "\n" } else { report.to_text() };
-    out.write_all(text.as_bytes()).context("writing the report")?;
-    Ok(if report.clean { Outcome::Clean } else { Outcome::Flagged })
+    let text = if json {
+        report.to_json() + "\n"
+    } else {
+        report.to_text()
+    };
+    out.write_all(text.as_bytes())
+        .context("writing the report")?;
+    Ok(if report.clean {
+        Outcome::Clean
+    } else {
+        Outcome::Flagged
+    })
 }
 
 fn sweep(trace: &Trace, steps: Option<usize>, out: &mut dyn Write) -> Result<Outcome> {
     let mut sweep = Sweep::new(trace, LedgerMode::On);
     let text = list_steps(&mut sweep, steps.unwrap_or(usize::MAX));
-    out.write_all(text.as_bytes()).context("writing the sweep")?;
-    Ok(if sweep.flags().is_empty() { Outcome::Clean } else { Outcome::Flagged })
+    out.write_all(text.as_bytes())
+        .context("writing the sweep")?;
+    Ok(if sweep.flags().is_empty() {
+        Outcome::Clean
+    } else {
+        Outcome::Flagged
+    })
 }
 
 /// `NODE` or `NODE:K`: the unit vector of one leaf element.
 fn parse_direction(trace: &Trace, text: &str) -> Result<Direction> {
     let (id, element) = match text.rsplit_once(':') {
-        Some((id, element)) => (id, element.parse::<usize>().with_context(|| format!("--direction {text}: K must be an element index"))?),
+        Some((id, element)) => (
+            id,
+            element
+                .parse::<usize>()
+                .with_context(|| format!("--direction {text}: K must be an element index"))?,
+        ),
         None => (text, 0),
     };
-    let node = trace.find(id).with_context(|| format!("--direction {text}: no node '{id}' in the trace"))?;
+    let node = trace
+        .find(id)
+        .with_context(|| format!("--direction {text}: no node '{id}' in the trace"))?;
     let len = trace.node(node).value.len();
-    anyhow::ensure!(trace.node(node).op.is_leaf(), "--direction {text}: '{id}' is not a leaf (input, param or const)");
-    anyhow::ensure!(element < len, "--direction {text}: '{id}' has {len} elements");
+    anyhow::ensure!(
+        trace.node(node).op.is_leaf(),
+        "--direction {text}: '{id}' is not a leaf (input, param or const)"
+    );
+    anyhow::ensure!(
+        element < len,
+        "--direction {text}: '{id}' has {len} elements"
+    );
     Ok(Direction::Unit { node, element })
 }
 
-fn verify_command(trace: &Trace, options: &VerifyOptions, json: bool, out: &mut dyn Write) -> Result<Outcome> {
+fn verify_command(
+    trace: &Trace,
+    options: &VerifyOptions,
+    json: bool,
+    out: &mut dyn Write,
+) -> Result<Outcome> {
     let verification = verify(trace, options);
-    let text = if json { verification.to_json(trace) + "\n" } else { verification.to_text(trace) };
-    out.write_all(text.as_bytes()).context("writing the verification")?;
-    Ok(if verification.agrees() { Outcome::Clean } else { Outcome::Flagged })
+    let text = if json {
+        verification.to_json(trace) + "\n"
+    } else {
+        verification.to_text(trace)
+    };
+    out.write_all(text.as_bytes())
+        .context("writing the verification")?;
+    Ok(if verification.agrees() {
+        Outcome::Clean
+    } else {
+        Outcome::Flagged
+    })
 }
 
 fn ops(out: &mut dyn Write) -> Result<Outcome> {
-    let mut text = String::from("op             inputs  attributes     derivative  what it computes\n");
+    let mut text =
+        String::from("op             inputs  attributes     derivative  what it computes\n");
     for row in CATALOG {
         let required: Vec<&str> = row.required.iter().map(|attr| attr.as_str()).collect();
         let derivative = match row.rule {
@@ -171,13 +248,17 @@ fn ops(out: &mut dyn Write) -> Result<Outcome> {
         text.push_str(&format!(
             "{:<14} {:<7} {:<14} {:<11} {}\n",
             row.name,
-            row.arity.to_string().replace(" inputs", "").replace(" input", ""),
+            row.arity
+                .to_string()
+                .replace(" inputs", "")
+                .replace(" input", ""),
             required.join(", "),
             derivative,
             row.summary
         ));
     }
     text.push_str("any other name: a custom op; it must record a partial on every input edge\n");
-    out.write_all(text.as_bytes()).context("writing the catalog")?;
+    out.write_all(text.as_bytes())
+        .context("writing the catalog")?;
     Ok(Outcome::Clean)
 }

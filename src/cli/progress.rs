@@ -22,13 +22,18 @@ impl Progress for Bar {
                 self.0.disable_steady_tick();
                 self.0.set_length(total);
                 self.0.set_style(
-                    ProgressStyle::with_template("{msg:>9} [{bar:30}] {bytes}/{total_bytes} {elapsed}")
-                        .expect("a valid template")
-                        .progress_chars("=> "),
+                    ProgressStyle::with_template(
+                        "{msg:>9} [{bar:30}] {bytes}/{total_bytes} {elapsed}",
+                    )
+                    .expect("a valid template")
+                    .progress_chars("=> "),
                 );
             }
             None => {
-                self.0.set_style(ProgressStyle::with_template("{msg:>9} {spinner} {elapsed}").expect("a valid template"));
+                self.0.set_style(
+                    ProgressStyle::with_template("{msg:>9} {spinner} {elapsed}")
+                        .expect("a valid template"),
+                );
                 self.0.enable_steady_tick(Duration::from_millis(100));
             }
         }
@@ -49,7 +54,11 @@ fn size_on_disk(path: &Path) -> u64 {
         Some(Format::Tape) => vec![path.to_path_buf(), binary::sidecar_path(path)],
         _ => vec![path.to_path_buf()],
     };
-    files.iter().filter_map(|file| std::fs::metadata(file).ok()).map(|meta| meta.len()).sum()
+    files
+        .iter()
+        .filter_map(|file| std::fs::metadata(file).ok())
+        .map(|meta| meta.len())
+        .sum()
 }
 
 /// A bar when the trace at `path` is big and stderr is a terminal; silence otherwise.
@@ -57,5 +66,8 @@ pub fn for_trace(path: &Path) -> Box<dyn Progress> {
     if size_on_disk(path) < THRESHOLD_BYTES || !std::io::stderr().is_terminal() {
         return Box::new(Silent);
     }
-    Box::new(Bar(ProgressBar::with_draw_target(None, ProgressDrawTarget::stderr())))
+    Box::new(Bar(ProgressBar::with_draw_target(
+        None,
+        ProgressDrawTarget::stderr(),
+    )))
 }

@@ -18,8 +18,17 @@ const STATE: usize = 4;
 fn recurrent_weight() -> Vec<f64> {
     let (c1, s1) = (0.6, 0.8);
     let (c2, s2) = (5.0 / 13.0, 12.0 / 13.0);
-    let rotation = [[c1, -s1, 0.0, 0.0], [s1, c1, 0.0, 0.0], [0.0, 0.0, c2, -s2], [0.0, 0.0, s2, c2]];
-    rotation.iter().flatten().map(|entry| GAIN * entry).collect()
+    let rotation = [
+        [c1, -s1, 0.0, 0.0],
+        [s1, c1, 0.0, 0.0],
+        [0.0, 0.0, c2, -s2],
+        [0.0, 0.0, s2, c2],
+    ];
+    rotation
+        .iter()
+        .flatten()
+        .map(|entry| GAIN * entry)
+        .collect()
 }
 
 /// A linear recurrent cell h_t = h_{t−1} W + x_t U in f32 forecasting a
@@ -32,16 +41,24 @@ pub fn exploding() -> TraceFile {
     );
     let mut rng = SplitMix64::new(0x0E1B_0050);
     let (w, u) = tape.scoped("cell", |tape| {
-        let w = tape.param("cell.w", Value::from_parts(vec![STATE, STATE], recurrent_weight()));
+        let w = tape.param(
+            "cell.w",
+            Value::from_parts(vec![STATE, STATE], recurrent_weight()),
+        );
         let u = param_tensor(tape, &mut rng, "cell.u", &[2, STATE], 0.5);
         (w, u)
     });
-    let mut state = tape.scoped("cell", |tape| tape.constant("h00", Value::from_parts(vec![1, STATE], vec![0.0; STATE])));
+    let mut state = tape.scoped("cell", |tape| {
+        tape.constant("h00", Value::from_parts(vec![1, STATE], vec![0.0; STATE]))
+    });
     for step in 1..=STEPS {
         let name = format!("t{step:02}");
         state = tape.scoped("unrolled", |tape| {
             tape.scoped(&name, |tape| {
-                let rain = tape.input(&format!("{name}.rain"), Value::from_parts(vec![1, 2], vec![rng.unit(), rng.unit()]));
+                let rain = tape.input(
+                    &format!("{name}.rain"),
+                    Value::from_parts(vec![1, 2], vec![rng.unit(), rng.unit()]),
+                );
                 let carried = tape.matmul(state, w);
                 let carried = tape.rename(carried, &format!("{name}.hw"));
                 let fresh = tape.matmul(rain, u);
@@ -52,7 +69,10 @@ pub fn exploding() -> TraceFile {
         });
     }
     let loss = tape.scoped("loss", |tape| {
-        let level = tape.input("observed_level", Value::from_parts(vec![1, STATE], rng.fill(STATE, 1.0)));
+        let level = tape.input(
+            "observed_level",
+            Value::from_parts(vec![1, STATE], rng.fill(STATE, 1.0)),
+        );
         let loss = tape.mse(state, level);
         tape.rename(loss, "loss")
     });

@@ -15,13 +15,19 @@ const SPECIES: usize = 10;
 /// of width 256 → 10 species, cross-entropy on a batch of 64 calls. About
 /// 300 thousand elements: big enough to need the binary-backed form.
 pub fn medium() -> TraceFile {
-    let mut tape = Tape::new("bird calls: three layers of 256 on a batch of 64", Dtype::F32);
+    let mut tape = Tape::new(
+        "bird calls: three layers of 256 on a batch of 64",
+        Dtype::F32,
+    );
     tape.describe(
         "A bird-call classifier (64 spectral features, three relu layers of width 256, 10 species) on a batch of 64 recordings: a healthy step of realistic size, stored binary-backed.",
     );
     let mut rng = SplitMix64::new(0xB12D_CA11);
     let (spectra, species) = tape.scoped("calls", |tape| {
-        let spectra = tape.input("spectra", Value::from_parts(vec![BATCH, FEATURES], rng.fill(BATCH * FEATURES, 1.0)));
+        let spectra = tape.input(
+            "spectra",
+            Value::from_parts(vec![BATCH, FEATURES], rng.fill(BATCH * FEATURES, 1.0)),
+        );
         let species: Vec<usize> = (0..BATCH).map(|_| rng.below(SPECIES)).collect();
         (spectra, species)
     });
@@ -38,7 +44,9 @@ pub fn medium() -> TraceFile {
         });
         fan_in = WIDTH;
     }
-    let logits = tape.scoped("head", |tape| dense(tape, &mut rng, "head", h, WIDTH, SPECIES));
+    let logits = tape.scoped("head", |tape| {
+        dense(tape, &mut rng, "head", h, WIDTH, SPECIES)
+    });
     let loss = tape.scoped("loss", |tape| {
         let loss = tape.cross_entropy(logits, &species);
         tape.rename(loss, "loss")

@@ -35,7 +35,12 @@ pub fn teaching() -> TraceFile {
     let mut tape = Tape::new("market stall: profit at one price", Dtype::F64);
     tape.describe("A stall sells at price p with demand q = exp(-s*p); profit = (p - c)*q - k*q^2. Step it to watch p and q collect adjoints from two branches.");
     let (price, cost, sensitivity, storage) = tape.scoped("inputs", |tape| {
-        (tape.param("price", 2.5), tape.input("unit_cost", 1.0), tape.param("sensitivity", 0.4), tape.constant("storage_rate", 0.1))
+        (
+            tape.param("price", 2.5),
+            tape.input("unit_cost", 1.0),
+            tape.param("sensitivity", 0.4),
+            tape.constant("storage_rate", 0.1),
+        )
     });
     let demand = tape.scoped("demand", |tape| {
         let exponent = tape.mul(sensitivity, price);
@@ -75,7 +80,13 @@ pub fn all() -> Vec<(&'static str, TraceFile)> {
 
 /// A parameter tensor of `shape` drawn uniform in [−limit, limit).
 #[track_caller]
-fn param_tensor(tape: &mut Tape, rng: &mut SplitMix64, name: &str, shape: &[usize], limit: f64) -> Var {
+fn param_tensor(
+    tape: &mut Tape,
+    rng: &mut SplitMix64,
+    name: &str,
+    shape: &[usize],
+    limit: f64,
+) -> Var {
     let data = rng.fill(shape.iter().product(), limit);
     tape.param(name, Value::from_parts(shape.to_vec(), data))
 }
@@ -83,7 +94,14 @@ fn param_tensor(tape: &mut Tape, rng: &mut SplitMix64, name: &str, shape: &[usiz
 /// A dense layer `x @ w + b` with Glorot-uniform weights and zero-centred
 /// small biases, recorded in the current scope under readable ids.
 #[track_caller]
-fn dense(tape: &mut Tape, rng: &mut SplitMix64, prefix: &str, x: Var, fan_in: usize, fan_out: usize) -> Var {
+fn dense(
+    tape: &mut Tape,
+    rng: &mut SplitMix64,
+    prefix: &str,
+    x: Var,
+    fan_in: usize,
+    fan_out: usize,
+) -> Var {
     let limit = glorot_limit(fan_in, fan_out);
     let w = param_tensor(tape, rng, &format!("{prefix}.w"), &[fan_in, fan_out], limit);
     let b = param_tensor(tape, rng, &format!("{prefix}.b"), &[fan_out], 0.1);

@@ -29,7 +29,10 @@ pub fn underflow_in(dtype: Dtype) -> TraceFile {
     let mut rng = SplitMix64::new(0x0F16_0F16);
     let deltas = tape.scoped("probes", |tape| {
         let data = rng.fill(BATCH * FEATURES, 0.02);
-        tape.input("moisture_deltas", Value::from_parts(vec![BATCH, FEATURES], data))
+        tape.input(
+            "moisture_deltas",
+            Value::from_parts(vec![BATCH, FEATURES], data),
+        )
     });
     let prediction = tape.scoped("model", |tape| {
         let w1 = param_tensor(tape, &mut rng, "hidden.w", &[FEATURES, HIDDEN], 0.5);
@@ -45,7 +48,12 @@ pub fn underflow_in(dtype: Dtype) -> TraceFile {
         tape.rename(out, "predicted")
     });
     let loss = tape.scoped("loss", |tape| {
-        let measured: Vec<f64> = tape.value(prediction).data().iter().map(|p| p + rng.symmetric(0.004)).collect();
+        let measured: Vec<f64> = tape
+            .value(prediction)
+            .data()
+            .iter()
+            .map(|p| p + rng.symmetric(0.004))
+            .collect();
         let measured = tape.input("measured", Value::from_parts(vec![BATCH, 1], measured));
         let loss = tape.mse(prediction, measured);
         tape.rename(loss, "loss")

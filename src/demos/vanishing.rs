@@ -42,8 +42,16 @@ pub fn vanishing() -> TraceFile {
         });
     }
     let loss = tape.scoped("loss", |tape| {
-        let ripeness =
-            tape.input("ripeness", Value::from_parts(vec![BATCH, WIDTH], rng.fill(BATCH * WIDTH, 0.5).iter().map(|x| 0.5 + x).collect()));
+        let ripeness = tape.input(
+            "ripeness",
+            Value::from_parts(
+                vec![BATCH, WIDTH],
+                rng.fill(BATCH * WIDTH, 0.5)
+                    .iter()
+                    .map(|x| 0.5 + x)
+                    .collect(),
+            ),
+        );
         let loss = tape.mse(h, ripeness);
         tape.rename(loss, "loss")
     });

@@ -57,14 +57,24 @@ pub fn wrong_partial_with(sign_error: bool) -> TraceFile {
         "A delivery-time model with a hand-written smooth_gate layer (x * sigmoid(x)) whose recorded partial flips the sign of one term; reported gradients come from the reference implementation.",
     );
     let mut rng = SplitMix64::new(0x0B4E_3A75);
-    let routes = tape.scoped("routes", |tape| tape.input("route_features", Value::from_parts(vec![4, 3], rng.fill(12, 1.5))));
+    let routes = tape.scoped("routes", |tape| {
+        tape.input(
+            "route_features",
+            Value::from_parts(vec![4, 3], rng.fill(12, 1.5)),
+        )
+    });
     let minutes = tape.scoped("model", |tape| {
-        let pre = tape.scoped("hidden", |tape| dense(tape, &mut rng, "hidden", routes, 3, 5));
+        let pre = tape.scoped("hidden", |tape| {
+            dense(tape, &mut rng, "hidden", routes, 3, 5)
+        });
         let gated = tape.scoped("gate", |tape| record_gate(tape, pre, sign_error));
         tape.scoped("out", |tape| dense(tape, &mut rng, "out", gated, 5, 1))
     });
     let loss = tape.scoped("loss", |tape| {
-        let observed = tape.input("observed_minutes", Value::from_parts(vec![4, 1], rng.fill(4, 1.0)));
+        let observed = tape.input(
+            "observed_minutes",
+            Value::from_parts(vec![4, 1], rng.fill(4, 1.0)),
+        );
         let loss = tape.mse(minutes, observed);
         tape.rename(loss, "loss")
     });
@@ -75,9 +85,15 @@ pub fn wrong_partial_with(sign_error: bool) -> TraceFile {
 fn record_gate(tape: &mut Tape, x: Var, sign_error: bool) -> Var {
     let input = tape.value(x).clone();
     let value = input.map(gate);
-    let partial = if sign_error { gate_partial_with_sign_error } else { gate_partial };
+    let partial = if sign_error {
+        gate_partial_with_sign_error
+    } else {
+        gate_partial
+    };
     let diagonal = input.data().iter().map(|&xi| partial(xi)).collect();
-    let gated = tape.custom(GATE, &[x], value, vec![PartialRepr::Diagonal(diagonal)]).expect("the gate is a custom op");
+    let gated = tape
+        .custom(GATE, &[x], value, vec![PartialRepr::Diagonal(diagonal)])
+        .expect("the gate is a custom op");
     tape.rename(gated, "gated")
 }
 
@@ -93,7 +109,10 @@ mod tests {
         for x in [-2.0, -0.3, 0.7, 1.9] {
             let numeric = (gate(x + h) - gate(x - h)) / (2.0 * h);
             assert!((gate_partial(x) - numeric).abs() < 1e-8, "x = {x}");
-            assert!((gate_partial_with_sign_error(x) - numeric).abs() > 1e-2, "x = {x}");
+            assert!(
+                (gate_partial_with_sign_error(x) - numeric).abs() > 1e-2,
+                "x = {x}"
+            );
         }
     }
 }

@@ -31,7 +31,11 @@ pub struct LossScale {
 /// The advice for adjoint entries `entries` (non-finite and zero entries are
 /// skipped); `None` when no entry is non-zero and finite.
 pub fn loss_scale(entries: &[f64], subnormals: Subnormals) -> Option<LossScale> {
-    let magnitudes: Vec<f64> = entries.iter().map(|x| x.abs()).filter(|x| x.is_finite() && *x > 0.0).collect();
+    let magnitudes: Vec<f64> = entries
+        .iter()
+        .map(|x| x.abs())
+        .filter(|x| x.is_finite() && *x > 0.0)
+        .collect();
     let max_abs = magnitudes.iter().copied().fold(0.0f64, f64::max);
     if max_abs == 0.0 {
         return None;
@@ -47,8 +51,13 @@ pub fn loss_scale(entries: &[f64], subnormals: Subnormals) -> Option<LossScale> 
         exponent += 1;
     }
     let scale = scale_of(exponent);
-    let underflowing =
-        |s: f64| magnitudes.iter().filter(|&&x| Dtype::F16.round_with(s * x, subnormals) == 0.0).count() as f64 / magnitudes.len() as f64;
+    let underflowing = |s: f64| {
+        magnitudes
+            .iter()
+            .filter(|&&x| Dtype::F16.round_with(s * x, subnormals) == 0.0)
+            .count() as f64
+            / magnitudes.len() as f64
+    };
     Some(LossScale {
         max_abs,
         exponent,
@@ -78,12 +87,24 @@ impl ClipPreview {
         let norms: Vec<f64> = gradients.iter().map(|gradient| l2_norm(gradient)).collect();
         let norm = l2_norm(&norms);
         let clips = norm >= threshold;
-        ClipPreview { norm, threshold, factor: if clips { threshold / norm } else { 1.0 }, clips }
+        ClipPreview {
+            norm,
+            threshold,
+            factor: if clips { threshold / norm } else { 1.0 },
+            clips,
+        }
     }
 
     /// One gradient after clipping: threshold · g / ‖g‖ when the norm reaches the threshold, else g unchanged.
     pub fn apply(&self, gradient: &[f64]) -> Vec<f64> {
-        if self.clips { gradient.iter().map(|&g| self.threshold * g / self.norm).collect() } else { gradient.to_vec() }
+        if self.clips {
+            gradient
+                .iter()
+                .map(|&g| self.threshold * g / self.norm)
+                .collect()
+        } else {
+            gradient.to_vec()
+        }
     }
 }
 

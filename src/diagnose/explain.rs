@@ -7,7 +7,11 @@ use crate::trace::Trace;
 
 /// The sentence for a non-finite seed.
 pub(super) fn seed(trace: &Trace, bad: f64) -> String {
-    format!("the seed of the output '{}' is {}, so every adjoint it reaches is too", trace.node(trace.output()).id, compact(bad))
+    format!(
+        "the seed of the output '{}' is {}, so every adjoint it reaches is too",
+        trace.node(trace.output()).id,
+        compact(bad)
+    )
 }
 
 /// The sentence for an origin.
@@ -17,7 +21,13 @@ pub(super) fn origin(trace: &Trace, origin: &Origin) -> String {
     let op = node.op_name.as_str();
     let max = compact(trace.dtype().limits().max_finite());
     let dtype = trace.dtype();
-    let operand = |k: usize| origin.operands.get(k).copied().map_or("?".to_string(), compact);
+    let operand = |k: usize| {
+        origin
+            .operands
+            .get(k)
+            .copied()
+            .map_or("?".to_string(), compact)
+    };
     match origin.class {
         OriginClass::NonFiniteValue => forward(trace, origin),
         OriginClass::NonFinitePartial => {
@@ -34,7 +44,9 @@ pub(super) fn origin(trace: &Trace, origin: &Origin) -> String {
                 _ if node.partials.iter().any(Option::is_some) => "a recorded partial".to_string(),
                 _ => format!("the derivative of {op}"),
             };
-            format!("'{id}' ({op}) has the finite value it should at {at}, but its partial is {partial}: {why}")
+            format!(
+                "'{id}' ({op}) has the finite value it should at {at}, but its partial is {partial}: {why}"
+            )
         }
         OriginClass::ProductOverflow => match origin.operands.as_slice() {
             [g, p] => format!(
@@ -47,7 +59,9 @@ pub(super) fn origin(trace: &Trace, origin: &Origin) -> String {
             ),
         },
         OriginClass::SumOverflow => {
-            let from = origin.edge.map_or("?".to_string(), |(consumer, _)| trace.node(consumer).id.clone());
+            let from = origin.edge.map_or("?".to_string(), |(consumer, _)| {
+                trace.node(consumer).id.clone()
+            });
             format!(
                 "at the branch point '{id}', adding the contribution {} from '{from}' to the adjoint {} overflowed {dtype}'s largest finite value {max}",
                 operand(1),
@@ -55,7 +69,9 @@ pub(super) fn origin(trace: &Trace, origin: &Origin) -> String {
             )
         }
         OriginClass::NanFromInfinity => {
-            let input = origin.edge.map_or("?".to_string(), |(_, slot)| trace.node(node.inputs[slot]).id.clone());
+            let input = origin.edge.map_or("?".to_string(), |(_, slot)| {
+                trace.node(node.inputs[slot]).id.clone()
+            });
             if origin.operands.len() == 2 && origin.operands[0] == 0.0 {
                 format!(
                     "the adjoint of '{id}' ({op}) is 0 but its partial towards '{input}' is {}, and 0 × inf is NaN: a branch that does not count still passes back an infinite derivative",
@@ -84,16 +100,28 @@ fn forward(trace: &Trace, origin: &Origin) -> String {
     let y = inputs.get(1).copied().unwrap_or(f64::NAN);
     let what = match node.op {
         Op::Input | Op::Param | Op::Const => {
-            return format!("the recorded value of '{id}' ({op}) already holds {result}: the data fed to the step is bad");
+            return format!(
+                "the recorded value of '{id}' ({op}) already holds {result}: the data fed to the step is bad"
+            );
         }
         Op::Log if x == 0.0 => "log of 0 is −inf".to_string(),
         Op::Log if x < 0.0 => format!("log of a negative number ({}) is NaN", compact(x)),
         Op::Sqrt if x < 0.0 => format!("sqrt of a negative number ({}) is NaN", compact(x)),
         Op::Div if x == 0.0 && y == 0.0 => "0/0 is NaN".to_string(),
         Op::Div if y == 0.0 => format!("{} divided by 0 is {result}", compact(x)),
-        Op::Div => format!("{} / {} overflowed {dtype}'s largest finite value {max}", compact(x), compact(y)),
-        Op::Exp => format!("exp({}) overflowed {dtype}'s largest finite value {max}", compact(x)),
-        Op::Pow if x < 0.0 => format!("a negative number ({}) to a fractional power is NaN", compact(x)),
+        Op::Div => format!(
+            "{} / {} overflowed {dtype}'s largest finite value {max}",
+            compact(x),
+            compact(y)
+        ),
+        Op::Exp => format!(
+            "exp({}) overflowed {dtype}'s largest finite value {max}",
+            compact(x)
+        ),
+        Op::Pow if x < 0.0 => format!(
+            "a negative number ({}) to a fractional power is NaN",
+            compact(x)
+        ),
         Op::Pow if x == 0.0 => "0 to a negative power is inf".to_string(),
         Op::Pow => format!(
             "{} to the power {} overflowed {dtype}'s largest finite value {max}",
@@ -106,12 +134,19 @@ fn forward(trace: &Trace, origin: &Origin) -> String {
                 Op::Add => "+",
                 _ => "−",
             };
-            format!("{} {sign} {} overflowed {dtype}'s largest finite value {max}", compact(x), compact(y))
+            format!(
+                "{} {sign} {} overflowed {dtype}'s largest finite value {max}",
+                compact(x),
+                compact(y)
+            )
         }
         _ if inputs.is_empty() => format!("it produced {result} from finite inputs"),
         _ => {
             let shown: Vec<String> = inputs.iter().map(|&v| compact(v)).collect();
-            format!("it produced {result} from the finite inputs {}", shown.join(", "))
+            format!(
+                "it produced {result} from the finite inputs {}",
+                shown.join(", ")
+            )
         }
     };
     format!("the forward value of '{id}' ({op}) is {result}: {what}")
@@ -124,11 +159,19 @@ mod tests {
     use crate::record::Tape;
     use crate::trace::Trace;
 
-    fn first_sentence(build: impl FnOnce(&mut Tape) -> crate::record::Var) -> (OriginClass, String) {
+    fn first_sentence(
+        build: impl FnOnce(&mut Tape) -> crate::record::Var,
+    ) -> (OriginClass, String) {
         let mut tape = Tape::new("explain", Dtype::F64);
         let output = build(&mut tape);
         let trace = Trace::try_from(tape.finish(output)).unwrap();
-        let diagnosis = diagnose(&trace, &Settings { replay: Vec::new(), ..Settings::default() });
+        let diagnosis = diagnose(
+            &trace,
+            &Settings {
+                replay: Vec::new(),
+                ..Settings::default()
+            },
+        );
         let origin = diagnosis.first_origin().expect("an origin");
         (origin.class, origin.explanation.clone())
     }
@@ -159,6 +202,9 @@ mod tests {
             tape.mul(w, x)
         });
         assert_eq!(class, OriginClass::NonFiniteValue);
-        assert!(text.contains("the recorded value of 'x' (input) already holds NaN"), "{text}");
+        assert!(
+            text.contains("the recorded value of 'x' (input) already holds NaN"),
+            "{text}"
+        );
     }
 }

@@ -42,7 +42,11 @@ pub fn group_norms(sweep: &Sweep) -> Vec<GroupNorm> {
     let trace = sweep.trace();
     let depth = depths(sweep);
     let names = trace.groups();
-    let positions: HashMap<&str, usize> = names.iter().enumerate().map(|(position, name)| (*name, position)).collect();
+    let positions: HashMap<&str, usize> = names
+        .iter()
+        .enumerate()
+        .map(|(position, name)| (*name, position))
+        .collect();
     let index_of = |group: &str| positions[group];
     let mut adjoint_norms: Vec<Vec<f64>> = vec![Vec::new(); names.len()];
     let mut param_norms: Vec<Vec<f64>> = vec![Vec::new(); names.len()];

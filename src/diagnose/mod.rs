@@ -54,19 +54,36 @@ struct SweepAnalysis {
 /// Runs the rules and the root-cause search over a finished sweep, and ties them together:
 /// non-finite adjoint findings carry their origin's class, and a product that overflowed is an overflow.
 fn analyse(sweep: &Sweep, reference: Option<&Sweep>, settings: &Settings) -> SweepAnalysis {
-    let mut findings = rules::evaluate(&rules::RuleInput { sweep, reference, settings });
+    let mut findings = rules::evaluate(&rules::RuleInput {
+        sweep,
+        reference,
+        settings,
+    });
     let causes = origin::trace_back(sweep);
     for finding in &mut findings {
         if finding.rule == Rule::NonFinite && finding.site == Site::Adjoint {
-            finding.class = causes.origin_of(finding.node).map(|index| causes.origins[index].class);
+            finding.class = causes
+                .origin_of(finding.node)
+                .map(|index| causes.origins[index].class);
         }
     }
     if settings.is_on(Rule::Overflow) {
         let max = sweep.trace().dtype().limits().max_finite();
-        for origin in causes.origins.iter().filter(|origin| origin.class == OriginClass::ProductOverflow) {
-            let Some((via, slot)) = origin.edge else { continue };
-            let site = Site::Contribution { slot, to: origin.first_adjoint };
-            if !findings.iter().any(|finding| finding.rule == Rule::Overflow && finding.node == via && finding.site == site) {
+        for origin in causes
+            .origins
+            .iter()
+            .filter(|origin| origin.class == OriginClass::ProductOverflow)
+        {
+            let Some((via, slot)) = origin.edge else {
+                continue;
+            };
+            let site = Site::Contribution {
+                slot,
+                to: origin.first_adjoint,
+            };
+            if !findings.iter().any(|finding| {
+                finding.rule == Rule::Overflow && finding.node == via && finding.site == site
+            }) {
                 findings.push(Finding {
                     rule: Rule::Overflow,
                     node: via,
@@ -127,7 +144,9 @@ impl Diagnosis {
 
     /// The origin behind `node`'s non-finite adjoint, if it has one.
     pub fn origin_of(&self, node: usize) -> Option<&Origin> {
-        self.causes.origin_of(node).map(|index| &self.causes.origins[index])
+        self.causes
+            .origin_of(node)
+            .map(|index| &self.causes.origins[index])
     }
 
     /// The chain of nodes from the origin of `node`'s non-finite adjoint to
@@ -143,7 +162,9 @@ impl Diagnosis {
 
     /// The findings at `node`.
     pub fn findings_at(&self, node: usize) -> impl Iterator<Item = &Finding> + '_ {
-        self.findings.iter().filter(move |finding| finding.node == node)
+        self.findings
+            .iter()
+            .filter(move |finding| finding.node == node)
     }
 
     /// The dominant path to parameter `param`.
@@ -161,16 +182,25 @@ impl Diagnosis {
         let origin = self.origin_of(node)?;
         let chain = self.chain_to(node);
         let hops = chain.len().saturating_sub(1);
-        let turned = self.causes.nan_births.iter().find(|birth| chain.contains(&birth.node)).map_or(String::new(), |birth| {
-            format!(
-                " It turned into NaN at '{}' ({}, from '{}').",
-                trace.node(birth.node).id,
-                birth.how.phrase(),
-                trace.node(birth.from).id
-            )
-        });
+        let turned = self
+            .causes
+            .nan_births
+            .iter()
+            .find(|birth| chain.contains(&birth.node))
+            .map_or(String::new(), |birth| {
+                format!(
+                    " It turned into NaN at '{}' ({}, from '{}').",
+                    trace.node(birth.node).id,
+                    birth.how.phrase(),
+                    trace.node(birth.from).id
+                )
+            });
         if origin.node == node || hops == 0 {
-            return Some(format!("Origin ({}): {}.{turned}", origin.class.letter(), origin.explanation));
+            return Some(format!(
+                "Origin ({}): {}.{turned}",
+                origin.class.letter(),
+                origin.explanation
+            ));
         }
         Some(format!(
             "Non-finite because of '{}' {hops} {} up the sweep ({}): {}.{turned}",
@@ -206,14 +236,32 @@ pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
     let gains = edge_gains(&sweep);
     let paths = dominant_paths(&sweep, &gains);
     let groups = group_norms(&sweep);
-    let replays: Vec<ReplayRun> =
-        settings.replay.iter().map(|&dtype| replay(trace, dtype, settings, reference, &reference_findings)).collect();
-    let entries: Vec<f64> =
-        trace.sweep_order().iter().filter_map(|&node| reference.adjoint(node)).flat_map(|adjoint| adjoint.data().to_vec()).collect();
+    let replays: Vec<ReplayRun> = settings
+        .replay
+        .iter()
+        .map(|&dtype| replay(trace, dtype, settings, reference, &reference_findings))
+        .collect();
+    let entries: Vec<f64> = trace
+        .sweep_order()
+        .iter()
+        .filter_map(|&node| reference.adjoint(node))
+        .flat_map(|adjoint| adjoint.data().to_vec())
+        .collect();
     let loss_scale = loss_scale(&entries, settings.subnormals);
-    let gradients: Vec<&[f64]> = trace.params().filter_map(|param| sweep.adjoint(param)).map(|adjoint| adjoint.data()).collect();
+    let gradients: Vec<&[f64]> = trace
+        .params()
+        .filter_map(|param| sweep.adjoint(param))
+        .map(|adjoint| adjoint.data())
+        .collect();
     let clipping = ClipPreview::new(&gradients, settings.clip_norm);
-    let gradient_norms = trace.params().filter_map(|param| sweep.adjoint(param).map(|adjoint| (param, adjoint.l2_norm()))).collect();
+    let gradient_norms = trace
+        .params()
+        .filter_map(|param| {
+            sweep
+                .adjoint(param)
+                .map(|adjoint| (param, adjoint.l2_norm()))
+        })
+        .collect();
     let mut diagnosis = Diagnosis {
         settings: settings.clone(),
         dtype: trace.dtype(),
@@ -237,23 +285,37 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
     let id = |node: usize| trace.node(node).id.as_str();
     let mut advice = Vec::new();
     if let Some(origin) = diagnosis.first_origin() {
-        advice.push(Advice { topic: Topic::Origin, node: Some(origin.node), text: origin_advice(trace, origin) });
+        advice.push(Advice {
+            topic: Topic::Origin,
+            node: Some(origin.node),
+            text: origin_advice(trace, origin),
+        });
     }
     let clip = &diagnosis.clipping;
-    let norm_of = |param: usize| diagnosis.gradient_norms.iter().find(|(node, _)| *node == param).map_or(f64::NAN, |&(_, norm)| norm);
+    let norm_of = |param: usize| {
+        diagnosis
+            .gradient_norms
+            .iter()
+            .find(|(node, _)| *node == param)
+            .map_or(f64::NAN, |&(_, norm)| norm)
+    };
     // Exploding relative to the median alone is not advised on: in a network
     // whose lower layers vanish, the healthy top looks large against them.
     let exploding = diagnosis
         .findings
         .iter()
-        .filter(|finding| finding.rule == Rule::Exploding && finding.measure != Measure::NormToMedian)
+        .filter(|finding| {
+            finding.rule == Rule::Exploding && finding.measure != Measure::NormToMedian
+        })
         .map(|finding| finding.node)
         .max_by(|&a, &b| norm_of(a).total_cmp(&norm_of(b)));
     if let Some(param) = exploding {
         let path = diagnosis.path_to(param);
         let along = path
             .and_then(|path| path.strongest().map(|hop| (path, hop)))
-            .map_or(String::new(), |(path, hop)| along_path(path, hop, "largest", &id));
+            .map_or(String::new(), |(path, hop)| {
+                along_path(path, hop, "largest", &id)
+            });
         advice.push(Advice {
             topic: Topic::Exploding,
             node: Some(param),
@@ -277,17 +339,25 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
         let path = diagnosis.path_to(param);
         let along = path
             .and_then(|path| path.weakest().map(|hop| (path, hop)))
-            .map_or(String::new(), |(path, hop)| along_path(path, hop, "weakest", &id));
-        let steepest =
-            diagnosis.groups.windows(2).filter_map(|pair| pair[1].ratio.map(|ratio| (pair, ratio))).min_by(|a, b| a.1.total_cmp(&b.1));
-        let groups = steepest.filter(|(_, ratio)| *ratio < 1.0).map_or(String::new(), |(pair, ratio)| {
-            format!(
-                " Group by group, the adjoint norm falls fastest from '{}' to '{}' (×{}).",
-                pair[0].group,
-                pair[1].group,
-                compact(ratio)
-            )
-        });
+            .map_or(String::new(), |(path, hop)| {
+                along_path(path, hop, "weakest", &id)
+            });
+        let steepest = diagnosis
+            .groups
+            .windows(2)
+            .filter_map(|pair| pair[1].ratio.map(|ratio| (pair, ratio)))
+            .min_by(|a, b| a.1.total_cmp(&b.1));
+        let groups =
+            steepest
+                .filter(|(_, ratio)| *ratio < 1.0)
+                .map_or(String::new(), |(pair, ratio)| {
+                    format!(
+                        " Group by group, the adjoint norm falls fastest from '{}' to '{}' (×{}).",
+                        pair[0].group,
+                        pair[1].group,
+                        compact(ratio)
+                    )
+                });
         advice.push(Advice {
             topic: Topic::Vanishing,
             node: Some(param),
@@ -302,7 +372,10 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
     if let (Some(scale), Some(run)) = (&diagnosis.loss_scale, half)
         && (run.first_underflow().is_some() || diagnosis.dtype == Dtype::F16)
     {
-        let head = format!("In f16, {:.1}% of the non-zero adjoint entries round to zero.", 100.0 * scale.underflow_unscaled);
+        let head = format!(
+            "In f16, {:.1}% of the non-zero adjoint entries round to zero.",
+            100.0 * scale.underflow_unscaled
+        );
         let text = if scale.underflow_scaled < scale.underflow_unscaled {
             format!(
                 "{head} Scale the loss by S = 2^{} = {} (the largest power of two keeping max |adjoint| {} · S below 65504) and divide the gradients by S before the update: then {:.1}% round to zero.",
@@ -318,14 +391,23 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
                 scale.exponent
             )
         };
-        advice.push(Advice { topic: Topic::LossScale, node: run.first_underflow().map(|finding| finding.node), text });
+        advice.push(Advice {
+            topic: Topic::LossScale,
+            node: run.first_underflow().map(|finding| finding.node),
+            text,
+        });
     }
     for run in &diagnosis.replays {
-        if run.dtype.limits().precision >= diagnosis.dtype.limits().precision && run.dtype != Dtype::F16 {
+        if run.dtype.limits().precision >= diagnosis.dtype.limits().precision
+            && run.dtype != Dtype::F16
+        {
             continue;
         }
         if let Some(finding) = run.first_overflow()
-            && !diagnosis.findings.iter().any(|own| own.rule == Rule::NonFinite || own.rule == Rule::Overflow)
+            && !diagnosis
+                .findings
+                .iter()
+                .any(|own| own.rule == Rule::NonFinite || own.rule == Rule::Overflow)
         {
             advice.push(Advice {
                 topic: Topic::Overflow,
@@ -369,18 +451,29 @@ fn origin_advice(trace: &Trace, origin: &Origin) -> String {
     match origin.class {
         OriginClass::NonFiniteValue => match node.op {
             Op::Input | Op::Param | Op::Const => {
-                format!("'{id}' holds a non-finite number as recorded: check the data or the parameter update that produced it.")
+                format!(
+                    "'{id}' holds a non-finite number as recorded: check the data or the parameter update that produced it."
+                )
             }
             Op::Log => {
-                format!("Keep the argument of '{id}' away from 0 (log(max(x, ε))), or compute log-probabilities directly with log_softmax.")
+                format!(
+                    "Keep the argument of '{id}' away from 0 (log(max(x, ε))), or compute log-probabilities directly with log_softmax."
+                )
             }
             Op::Sqrt => format!(
                 "The input of '{id}' went negative: clamp it at 0, or find why (a variance computed as E[x²] − E[x]² can dip below 0 by rounding)."
             ),
-            Op::Div if x == 0.0 => format!("Guard the division at '{id}': add ε to the denominator or mask the 0/0 case."),
+            Op::Div if x == 0.0 => format!(
+                "Guard the division at '{id}': add ε to the denominator or mask the 0/0 case."
+            ),
             Op::Div => format!("Guard the division at '{id}': add ε to the denominator."),
-            Op::Exp => format!("Shift the argument of '{id}' by its maximum before exp (the log-sum-exp shift), or clamp it."),
-            _ => format!("Guard the inputs of '{id}' ({}) so that it stays finite.", node.op_name),
+            Op::Exp => format!(
+                "Shift the argument of '{id}' by its maximum before exp (the log-sum-exp shift), or clamp it."
+            ),
+            _ => format!(
+                "Guard the inputs of '{id}' ({}) so that it stays finite.",
+                node.op_name
+            ),
         },
         OriginClass::NonFinitePartial => format!(
             "The value of '{id}' is fine but its derivative is infinite there: add ε inside ({}(x + ε)) or keep its input away from that point.",
@@ -396,7 +489,9 @@ fn origin_advice(trace: &Trace, origin: &Origin) -> String {
             "Make the input of '{id}' safe before the op (e.g. replace it by 1 where the branch is masked out) instead of masking the output: a zero adjoint times an infinite partial is NaN."
         ),
         OriginClass::NanFromInfinity => {
-            format!("Terms overflowed before they cancelled at '{id}': rescale its inputs or accumulate in a wider dtype.")
+            format!(
+                "Terms overflowed before they cancelled at '{id}': rescale its inputs or accumulate in a wider dtype."
+            )
         }
         OriginClass::NonFiniteSeed => "Seed the output with a finite adjoint.".to_string(),
     }
@@ -405,7 +500,12 @@ fn origin_advice(trace: &Trace, origin: &Origin) -> String {
 /// "; along its dominant path of N hops the gains multiply to G (median hop
 /// gain M), the {which} being H at 'a' → 'b'": the sentence the vanishing and
 /// exploding advice share.
-fn along_path<'t>(path: &DominantPath, hop: &Hop, which: &str, id: &impl Fn(usize) -> &'t str) -> String {
+fn along_path<'t>(
+    path: &DominantPath,
+    hop: &Hop,
+    which: &str,
+    id: &impl Fn(usize) -> &'t str,
+) -> String {
     format!(
         "; along its dominant path of {} hops the gains multiply to {} (median hop gain {}), the {which} being {} at '{}' → '{}'",
         path.hops.len(),

@@ -191,8 +191,19 @@ pub(super) fn edge_partial(trace: &Trace, node: usize, slot: usize) -> Option<Va
         Some(Partial::Diagonal(diagonal)) => Some(diagonal.clone()),
         Some(Partial::Jacobian { .. }) => None,
         None => {
-            let inputs: Vec<&Value> = recorded.inputs.iter().map(|&input| &trace.node(input).value).collect();
-            ops::elementwise_partial(recorded.op, slot, &inputs, &recorded.value, &recorded.attrs, trace.dtype())
+            let inputs: Vec<&Value> = recorded
+                .inputs
+                .iter()
+                .map(|&input| &trace.node(input).value)
+                .collect();
+            ops::elementwise_partial(
+                recorded.op,
+                slot,
+                &inputs,
+                &recorded.value,
+                &recorded.attrs,
+                trace.dtype(),
+            )
         }
     }
 }
@@ -200,14 +211,23 @@ pub(super) fn edge_partial(trace: &Trace, node: usize, slot: usize) -> Option<Va
 /// Element `index` of a value, reading a one-element value as broadcast.
 fn element(value: &Value, index: usize) -> f64 {
     let data = value.data();
-    if data.len() == 1 { data[0] } else { data.get(index).copied().unwrap_or(f64::NAN) }
+    if data.len() == 1 {
+        data[0]
+    } else {
+        data.get(index).copied().unwrap_or(f64::NAN)
+    }
 }
 
 /// Follows non-finite forward values from `node` back to the first node whose
 /// inputs are all finite.
 fn forward_origin(trace: &Trace, node: usize) -> usize {
     let mut cursor = node;
-    while let Some(&input) = trace.node(cursor).inputs.iter().find(|&&input| !trace.node(input).value.is_finite()) {
+    while let Some(&input) = trace
+        .node(cursor)
+        .inputs
+        .iter()
+        .find(|&&input| !trace.node(input).value.is_finite())
+    {
         cursor = input;
     }
     cursor
@@ -225,7 +245,9 @@ fn input_elements(trace: &Trace, node: usize, index: usize) -> Vec<f64> {
         .map(|&input| {
             let value = &trace.node(input).value;
             let sources = broadcast_source_indices(value.shape(), recorded.value.shape());
-            sources.get(index).map_or(f64::NAN, |&source| value.data()[source])
+            sources
+                .get(index)
+                .map_or(f64::NAN, |&source| value.data()[source])
         })
         .collect()
 }
@@ -244,10 +266,12 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
         .map(|flag| ((flag.node, flag.slot.unwrap_or(0)), flag.value))
         .collect();
     let mut add_origin = |origin: Origin, origins: &mut Vec<Origin>| -> usize {
-        *by_place.entry((origin.node, origin.class)).or_insert_with(|| {
-            origins.push(origin);
-            origins.len() - 1
-        })
+        *by_place
+            .entry((origin.node, origin.class))
+            .or_insert_with(|| {
+                origins.push(origin);
+                origins.len() - 1
+            })
     };
     let output = trace.output();
     if let Some((_, bad)) = trace.seed().first_non_finite() {
@@ -266,11 +290,16 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
         causes[output] = Cause::Origin(add_origin(origin, &mut origins));
     }
     for entry in ledger.entries() {
-        if causes[entry.input] != Cause::Finite || entry.after.is_finite() || !entry.before.as_ref().is_none_or(Value::is_finite) {
+        if causes[entry.input] != Cause::Finite
+            || entry.after.is_finite()
+            || !entry.before.as_ref().is_none_or(Value::is_finite)
+        {
             continue;
         }
         let (x, u, slot) = (entry.input, entry.consumer, entry.slot);
-        let adjoint = sweep.adjoint(u).expect("a processed node holds its adjoint");
+        let adjoint = sweep
+            .adjoint(u)
+            .expect("a processed node holds its adjoint");
         if !entry.value.is_finite() && !adjoint.is_finite() {
             causes[x] = Cause::From(u);
             continue;
@@ -289,14 +318,24 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
         };
         if entry.value.is_finite() {
             // Finite before, finite contribution, non-finite sum: overflow at a branch.
-            let before = entry.before.as_ref().map_or(0.0, |before| element(before, index));
+            let before = entry
+                .before
+                .as_ref()
+                .map_or(0.0, |before| element(before, index));
             origin.operands = vec![before, element(&entry.value, index)];
         } else {
-            let (index, result) = entry.value.first_non_finite().expect("the contribution is not finite");
+            let (index, result) = entry
+                .value
+                .first_non_finite()
+                .expect("the contribution is not finite");
             origin.result = result;
             origin.node = u;
             let recorded = trace.node(u);
-            let forward_bad = !recorded.value.is_finite() || recorded.inputs.iter().any(|&input| !trace.node(input).value.is_finite());
+            let forward_bad = !recorded.value.is_finite()
+                || recorded
+                    .inputs
+                    .iter()
+                    .any(|&input| !trace.node(input).value.is_finite());
             let partial = edge_partial(trace, u, slot);
             let partial_element = partial.as_ref().map(|partial| element(partial, index));
             let g = element(adjoint, index);
@@ -304,18 +343,39 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
                 let born = forward_origin(trace, u);
                 origin.class = OriginClass::NonFiniteValue;
                 origin.node = born;
-                let bad_index = trace.node(born).value.first_non_finite().map_or(0, |(at, _)| at);
-                origin.result = trace.node(born).value.first_non_finite().map_or(result, |(_, x)| x);
+                let bad_index = trace
+                    .node(born)
+                    .value
+                    .first_non_finite()
+                    .map_or(0, |(at, _)| at);
+                origin.result = trace
+                    .node(born)
+                    .value
+                    .first_non_finite()
+                    .map_or(result, |(_, x)| x);
                 origin.operands = input_elements(trace, born, bad_index);
             } else if let Some(&bad) = bad_partials.get(&(u, slot)) {
                 let p = partial_element.filter(|p| !p.is_finite()).unwrap_or(bad);
-                let zero_times_inf = result.is_nan() && p.is_infinite() && adjoint.data().contains(&0.0);
-                origin.class = if zero_times_inf { OriginClass::NanFromInfinity } else { OriginClass::NonFinitePartial };
+                let zero_times_inf =
+                    result.is_nan() && p.is_infinite() && adjoint.data().contains(&0.0);
+                origin.class = if zero_times_inf {
+                    OriginClass::NanFromInfinity
+                } else {
+                    OriginClass::NonFinitePartial
+                };
                 let mut operands = input_elements(trace, u, index);
                 operands.push(p);
-                origin.operands = if zero_times_inf { vec![0.0, p] } else { operands };
+                origin.operands = if zero_times_inf {
+                    vec![0.0, p]
+                } else {
+                    operands
+                };
             } else {
-                origin.class = if result.is_nan() { OriginClass::NanFromInfinity } else { OriginClass::ProductOverflow };
+                origin.class = if result.is_nan() {
+                    OriginClass::NanFromInfinity
+                } else {
+                    OriginClass::ProductOverflow
+                };
                 origin.operands = match partial_element {
                     Some(p) => vec![g, p],
                     None => vec![adjoint.l2_norm()],
@@ -334,15 +394,32 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
     let mut nan_births = Vec::new();
     for entry in ledger.entries() {
         let x = entry.input;
-        let adjoint = sweep.adjoint(entry.consumer).expect("a processed node holds its adjoint");
+        let adjoint = sweep
+            .adjoint(entry.consumer)
+            .expect("a processed node holds its adjoint");
         let born_here = entry.before.as_ref().is_none_or(Value::is_finite) && adjoint.is_finite();
         if has_nan(&entry.after) && !entry.before.as_ref().is_some_and(has_nan) && !born_here {
             if !has_nan(&entry.value) {
-                nan_births.push(NanBirth { node: x, step: entry.step, from: entry.consumer, how: NanHow::InfMinusInfAtBranch });
+                nan_births.push(NanBirth {
+                    node: x,
+                    step: entry.step,
+                    from: entry.consumer,
+                    how: NanHow::InfMinusInfAtBranch,
+                });
             } else if !has_nan(adjoint) {
-                let zero_partial = edge_partial(trace, entry.consumer, entry.slot).is_some_and(|partial| partial.data().contains(&0.0));
-                let how = if zero_partial { NanHow::ZeroTimesInf } else { NanHow::InfMinusInfInPullBack };
-                nan_births.push(NanBirth { node: x, step: entry.step, from: entry.consumer, how });
+                let zero_partial = edge_partial(trace, entry.consumer, entry.slot)
+                    .is_some_and(|partial| partial.data().contains(&0.0));
+                let how = if zero_partial {
+                    NanHow::ZeroTimesInf
+                } else {
+                    NanHow::InfMinusInfInPullBack
+                };
+                nan_births.push(NanBirth {
+                    node: x,
+                    step: entry.step,
+                    from: entry.consumer,
+                    how,
+                });
             }
         }
         if origin_index[x].is_none() {
@@ -353,7 +430,12 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
             };
         }
     }
-    let mut causes = RootCauses { origins, causes, origin_index, nan_births };
+    let mut causes = RootCauses {
+        origins,
+        causes,
+        origin_index,
+        nan_births,
+    };
     for param in trace.params() {
         if let Some(index) = causes.origin_of(param) {
             causes.origins[index].reached.push(param);

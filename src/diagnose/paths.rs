@@ -58,7 +58,9 @@ impl DominantPath {
 /// `None` where the adjoint is zero or either norm is not finite.
 pub fn edge_gains(sweep: &Sweep) -> Vec<Option<f64>> {
     let trace = sweep.trace();
-    let adjoint_norms: Vec<f64> = (0..trace.nodes().len()).map(|node| sweep.adjoint(node).map_or(0.0, Value::l2_norm)).collect();
+    let adjoint_norms: Vec<f64> = (0..trace.nodes().len())
+        .map(|node| sweep.adjoint(node).map_or(0.0, Value::l2_norm))
+        .collect();
     let ledger = sweep.ledger().expect("gains need the ledger");
     ledger
         .entries()
@@ -66,7 +68,8 @@ pub fn edge_gains(sweep: &Sweep) -> Vec<Option<f64>> {
         .map(|entry| {
             let adjoint = adjoint_norms[entry.consumer];
             let contribution = entry.value.l2_norm();
-            (adjoint > 0.0 && adjoint.is_finite() && contribution.is_finite()).then(|| contribution / adjoint)
+            (adjoint > 0.0 && adjoint.is_finite() && contribution.is_finite())
+                .then(|| contribution / adjoint)
         })
         .collect()
 }
@@ -80,7 +83,9 @@ pub fn dominant_paths(sweep: &Sweep, gains: &[Option<f64>]) -> Vec<DominantPath>
     let mut via: Vec<Option<usize>> = vec![None; trace.nodes().len()];
     best[trace.output()] = Some(0.0);
     for (index, entry) in entries.iter().enumerate() {
-        let (Some(from), Some(gain)) = (best[entry.consumer], gains[index]) else { continue };
+        let (Some(from), Some(gain)) = (best[entry.consumer], gains[index]) else {
+            continue;
+        };
         let candidate = from + gain.ln();
         if best[entry.input].is_none_or(|current| candidate > current) {
             best[entry.input] = Some(candidate);
@@ -95,11 +100,20 @@ pub fn dominant_paths(sweep: &Sweep, gains: &[Option<f64>]) -> Vec<DominantPath>
             let mut cursor = param;
             while let Some(index) = via[cursor] {
                 let entry = &entries[index];
-                hops.push(Hop { from: entry.consumer, to: entry.input, slot: entry.slot, gain: gains[index].unwrap_or(f64::NAN) });
+                hops.push(Hop {
+                    from: entry.consumer,
+                    to: entry.input,
+                    slot: entry.slot,
+                    gain: gains[index].unwrap_or(f64::NAN),
+                });
                 cursor = entry.consumer;
             }
             hops.reverse();
-            Some(DominantPath { param, hops, log10_gain: total / std::f64::consts::LN_10 })
+            Some(DominantPath {
+                param,
+                hops,
+                log10_gain: total / std::f64::consts::LN_10,
+            })
         })
         .collect()
 }

@@ -77,7 +77,9 @@ impl ReplayRun {
     /// Where this dtype first overflows where f64 does not: the first overflow,
     /// or the first non-finite number, whichever comes first.
     pub fn first_overflow(&self) -> Option<&Finding> {
-        self.findings.iter().find(|finding| finding.rule == Rule::Overflow || finding.rule == Rule::NonFinite)
+        self.findings
+            .iter()
+            .find(|finding| finding.rule == Rule::Overflow || finding.rule == Rule::NonFinite)
     }
 
     /// Where this dtype first underflows where f64 does not.
@@ -92,7 +94,9 @@ impl ReplayRun {
 
     /// Everything this replay found at `node`.
     pub fn at_node(&self, node: usize) -> impl Iterator<Item = &Finding> + '_ {
-        self.findings.iter().filter(move |finding| finding.node == node)
+        self.findings
+            .iter()
+            .filter(move |finding| finding.node == node)
     }
 }
 
@@ -103,7 +107,13 @@ fn key(finding: &Finding) -> (Rule, usize, Site, Measure) {
 
 /// Sweeps `trace` re-typed into `dtype` and compares it with the f64
 /// `reference` sweep, whose own findings are `reference_findings`.
-pub fn replay(trace: &Trace, dtype: Dtype, settings: &Settings, reference: &Sweep, reference_findings: &[Finding]) -> ReplayRun {
+pub fn replay(
+    trace: &Trace,
+    dtype: Dtype,
+    settings: &Settings,
+    reference: &Sweep,
+    reference_findings: &[Finding],
+) -> ReplayRun {
     let retyped;
     let mut own = None;
     // The f64 replay with gradual underflow is the reference itself.
@@ -118,7 +128,10 @@ pub fn replay(trace: &Trace, dtype: Dtype, settings: &Settings, reference: &Swee
     let SweepAnalysis { findings, causes } = analyse(sweep, Some(reference), settings);
     let shared: HashSet<_> = reference_findings.iter().map(key).collect();
     let findings_total = findings.len();
-    let findings: Vec<Finding> = findings.into_iter().filter(|finding| !shared.contains(&key(finding))).collect();
+    let findings: Vec<Finding> = findings
+        .into_iter()
+        .filter(|finding| !shared.contains(&key(finding)))
+        .collect();
     let (lost, lost_total) = lost_contributions(sweep, settings.lost_fraction);
     let gradients = trace
         .params()
@@ -126,12 +139,30 @@ pub fn replay(trace: &Trace, dtype: Dtype, settings: &Settings, reference: &Swee
             let here = sweep.adjoint(param)?;
             let there = reference.adjoint(param)?;
             let scale = there.data().iter().fold(0.0f64, |acc, x| acc.max(x.abs()));
-            let error = here.data().iter().zip(there.data()).fold(0.0f64, |acc, (a, b)| acc.max((a - b).abs()));
+            let error = here
+                .data()
+                .iter()
+                .zip(there.data())
+                .fold(0.0f64, |acc, (a, b)| acc.max((a - b).abs()));
             let relative_error = if scale > 0.0 { error / scale } else { error };
-            Some(ReplayGradient { param, norm: here.l2_norm(), reference_norm: there.l2_norm(), relative_error })
+            Some(ReplayGradient {
+                param,
+                norm: here.l2_norm(),
+                reference_norm: there.l2_norm(),
+                relative_error,
+            })
         })
         .collect();
-    ReplayRun { dtype, subnormals: settings.subnormals, findings, findings_total, origins: causes.origins, lost, lost_total, gradients }
+    ReplayRun {
+        dtype,
+        subnormals: settings.subnormals,
+        findings,
+        findings_total,
+        origins: causes.origins,
+        lost,
+        lost_total,
+        gradients,
+    }
 }
 
 /// Contributions at least `fraction` of which went missing from the rounded sum.
@@ -141,12 +172,20 @@ pub fn lost_contributions(sweep: &Sweep, fraction: f64) -> (Vec<LostContribution
     let mut first = Vec::new();
     let mut total = 0;
     for entry in ledger.entries() {
-        let Some(before) = entry.before.as_ref() else { continue };
+        let Some(before) = entry.before.as_ref() else {
+            continue;
+        };
         let hit = lost_element(before, &entry.value, &entry.after, fraction);
         if let Some((element, lost)) = hit {
             total += 1;
             if seen.insert(entry.input) {
-                let at = |value: &Value| if value.len() == 1 { value.data()[0] } else { value.data()[element] };
+                let at = |value: &Value| {
+                    if value.len() == 1 {
+                        value.data()[0]
+                    } else {
+                        value.data()[element]
+                    }
+                };
                 first.push(LostContribution {
                     step: entry.step,
                     node: entry.input,
@@ -165,7 +204,12 @@ pub fn lost_contributions(sweep: &Sweep, fraction: f64) -> (Vec<LostContribution
 
 /// The first element where the sum `after = before + contribution` is missing
 /// at least `fraction` of a non-zero finite contribution.
-fn lost_element(before: &Value, contribution: &Value, after: &Value, fraction: f64) -> Option<(usize, f64)> {
+fn lost_element(
+    before: &Value,
+    contribution: &Value,
+    after: &Value,
+    fraction: f64,
+) -> Option<(usize, f64)> {
     let (b, c, a) = (before.data(), contribution.data(), after.data());
     (0..a.len()).find_map(|k| {
         let (b, c, a) = (b[k.min(b.len() - 1)], c[k.min(c.len() - 1)], a[k]);

@@ -34,8 +34,15 @@ pub enum Rule {
 
 impl Rule {
     /// Every rule, in report order.
-    pub const ALL: [Rule; 7] =
-        [Rule::NonFinite, Rule::Overflow, Rule::NearOverflow, Rule::Underflow, Rule::Vanishing, Rule::Exploding, Rule::Gain];
+    pub const ALL: [Rule; 7] = [
+        Rule::NonFinite,
+        Rule::Overflow,
+        Rule::NearOverflow,
+        Rule::Underflow,
+        Rule::Vanishing,
+        Rule::Exploding,
+        Rule::Gain,
+    ];
 
     /// The rule's name in settings and JSON.
     pub fn name(self) -> &'static str {
@@ -137,13 +144,27 @@ impl Finding {
         let (value, threshold) = (compact(self.value), compact(self.threshold));
         let what = match (self.rule, self.measure) {
             (Rule::NonFinite, _) => format!("{place} is {value}"),
-            (Rule::Overflow, _) if !self.value.is_finite() => format!("{place} overflowed {dtype}'s largest finite value {threshold}"),
-            (Rule::Overflow, _) => format!("{place} {value} is beyond {dtype}'s largest finite value {threshold}"),
-            (Rule::NearOverflow, _) => format!("{place} {value} is within the warning band, above {threshold}"),
-            (Rule::Underflow, Measure::FlushedToZero) => format!("{place} is 0 in {dtype} where f64 gives {value}"),
-            (Rule::Underflow, _) => format!("{place} {value} is subnormal in {dtype} (below {threshold})"),
+            (Rule::Overflow, _) if !self.value.is_finite() => {
+                format!("{place} overflowed {dtype}'s largest finite value {threshold}")
+            }
+            (Rule::Overflow, _) => {
+                format!("{place} {value} is beyond {dtype}'s largest finite value {threshold}")
+            }
+            (Rule::NearOverflow, _) => {
+                format!("{place} {value} is within the warning band, above {threshold}")
+            }
+            (Rule::Underflow, Measure::FlushedToZero) => {
+                format!("{place} is 0 in {dtype} where f64 gives {value}")
+            }
+            (Rule::Underflow, _) => {
+                format!("{place} {value} is subnormal in {dtype} (below {threshold})")
+            }
             (Rule::Vanishing | Rule::Exploding, measure) => {
-                let direction = if self.rule == Rule::Vanishing { "below" } else { "above" };
+                let direction = if self.rule == Rule::Vanishing {
+                    "below"
+                } else {
+                    "above"
+                };
                 let of = match measure {
                     Measure::NormToSeed => "norm over the seed's norm",
                     Measure::NormToMedian => "norm over the median parameter gradient norm",
@@ -151,10 +172,18 @@ impl Finding {
                 };
                 format!("{place}'s {of} {value} is {direction} {threshold}")
             }
-            (Rule::Gain, _) => format!("passes on {value} times its adjoint's norm (threshold {threshold})"),
+            (Rule::Gain, _) => {
+                format!("passes on {value} times its adjoint's norm (threshold {threshold})")
+            }
         };
-        let many = if self.count > 1 { format!(" ({} elements, first at {})", self.count, self.element) } else { String::new() };
-        let class = self.class.map_or(String::new(), |class| format!("; origin ({}) {}", class.letter(), class.title()));
+        let many = if self.count > 1 {
+            format!(" ({} elements, first at {})", self.count, self.element)
+        } else {
+            String::new()
+        };
+        let class = self.class.map_or(String::new(), |class| {
+            format!("; origin ({}) {}", class.letter(), class.title())
+        });
         format!("{}: {what}{many}{class}", self.rule.name())
     }
 }
@@ -189,10 +218,30 @@ struct Collector<'a> {
 
 impl Collector<'_> {
     #[allow(clippy::too_many_arguments)]
-    fn push(&mut self, rule: Rule, node: usize, step: usize, site: Site, measure: Measure, hit: (usize, f64, usize), threshold: f64) {
+    fn push(
+        &mut self,
+        rule: Rule,
+        node: usize,
+        step: usize,
+        site: Site,
+        measure: Measure,
+        hit: (usize, f64, usize),
+        threshold: f64,
+    ) {
         if self.settings.is_on(rule) {
             let (element, value, count) = hit;
-            self.findings.push(Finding { rule, node, step, site, measure, value, threshold, element, count, class: None });
+            self.findings.push(Finding {
+                rule,
+                node,
+                step,
+                site,
+                measure,
+                value,
+                threshold,
+                element,
+                count,
+                class: None,
+            });
         }
     }
 
@@ -202,28 +251,71 @@ impl Collector<'_> {
         let limits = self.dtype.limits();
         let max = limits.max_finite();
         if non_finite && let Some(hit) = first_where(data, |_, x| !x.is_finite()) {
-            self.push(Rule::NonFinite, node, step, site, Measure::Element, hit, max);
+            self.push(
+                Rule::NonFinite,
+                node,
+                step,
+                site,
+                Measure::Element,
+                hit,
+                max,
+            );
         }
         if let Some(hit) = first_where(data, |_, x| x.is_finite() && x.abs() > max) {
             self.push(Rule::Overflow, node, step, site, Measure::Element, hit, max);
         }
         let band = max / self.settings.overflow_band;
-        if let Some(hit) = first_where(data, |_, x| x.is_finite() && x.abs() > band && x.abs() <= max) {
-            self.push(Rule::NearOverflow, node, step, site, Measure::Element, hit, band);
+        if let Some(hit) = first_where(data, |_, x| {
+            x.is_finite() && x.abs() > band && x.abs() <= max
+        }) {
+            self.push(
+                Rule::NearOverflow,
+                node,
+                step,
+                site,
+                Measure::Element,
+                hit,
+                band,
+            );
         }
         if let Some(hit) = first_where(data, |_, x| self.dtype.is_subnormal(x)) {
-            self.push(Rule::Underflow, node, step, site, Measure::Subnormal, hit, limits.min_normal());
+            self.push(
+                Rule::Underflow,
+                node,
+                step,
+                site,
+                Measure::Subnormal,
+                hit,
+                limits.min_normal(),
+            );
         }
     }
 
     /// Elements that are infinite here but finite in the reference: an overflow of this dtype.
-    fn overflowed(&mut self, node: usize, step: usize, site: Site, data: &[f64], reference: &[f64]) {
+    fn overflowed(
+        &mut self,
+        node: usize,
+        step: usize,
+        site: Site,
+        data: &[f64],
+        reference: &[f64],
+    ) {
         if data.len() != reference.len() {
             return;
         }
-        if let Some((element, _, count)) = first_where(data, |index, x| x.is_infinite() && reference[index].is_finite()) {
+        if let Some((element, _, count)) = first_where(data, |index, x| {
+            x.is_infinite() && reference[index].is_finite()
+        }) {
             let hit = (element, reference[element], count);
-            self.push(Rule::Overflow, node, step, site, Measure::Element, hit, self.dtype.limits().max_finite());
+            self.push(
+                Rule::Overflow,
+                node,
+                step,
+                site,
+                Measure::Element,
+                hit,
+                self.dtype.limits().max_finite(),
+            );
         }
     }
 
@@ -232,10 +324,19 @@ impl Collector<'_> {
         if data.len() != reference.len() {
             return;
         }
-        if let Some((element, _, count)) = first_where(data, |index, x| x == 0.0 && reference[index] != 0.0 && reference[index].is_finite())
-        {
+        if let Some((element, _, count)) = first_where(data, |index, x| {
+            x == 0.0 && reference[index] != 0.0 && reference[index].is_finite()
+        }) {
             let hit = (element, reference[element], count);
-            self.push(Rule::Underflow, node, step, site, Measure::FlushedToZero, hit, self.dtype.limits().min_subnormal());
+            self.push(
+                Rule::Underflow,
+                node,
+                step,
+                site,
+                Measure::FlushedToZero,
+                hit,
+                self.dtype.limits().min_subnormal(),
+            );
         }
     }
 }
@@ -245,30 +346,67 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
     let sweep = input.sweep;
     let trace = sweep.trace();
     let ledger = sweep.ledger().expect("the rules read the ledger");
-    let reference_ledger =
-        input.reference.and_then(|reference| reference.ledger()).filter(|other| other.entries().len() == ledger.entries().len());
-    let mut collector = Collector { settings: input.settings, dtype: trace.dtype(), findings: Vec::new() };
+    let reference_ledger = input
+        .reference
+        .and_then(|reference| reference.ledger())
+        .filter(|other| other.entries().len() == ledger.entries().len());
+    let mut collector = Collector {
+        settings: input.settings,
+        dtype: trace.dtype(),
+        findings: Vec::new(),
+    };
     let max = trace.dtype().limits().max_finite();
     // The sweep raises flags in step order, so one cursor walks them alongside the steps.
-    let mut partial_flags = sweep.flags().iter().filter(|flag| flag.kind == FlagKind::NonFinitePartial).peekable();
-    let adjoint_norms: Vec<f64> = (0..trace.nodes().len()).map(|node| sweep.adjoint(node).map_or(0.0, Value::l2_norm)).collect();
+    let mut partial_flags = sweep
+        .flags()
+        .iter()
+        .filter(|flag| flag.kind == FlagKind::NonFinitePartial)
+        .peekable();
+    let adjoint_norms: Vec<f64> = (0..trace.nodes().len())
+        .map(|node| sweep.adjoint(node).map_or(0.0, Value::l2_norm))
+        .collect();
     let mut entries = ledger.entries().iter().enumerate().peekable();
     for (step, &node) in trace.sweep_order().iter().enumerate() {
         let recorded = trace.node(node);
         collector.magnitudes(node, step, Site::Value, recorded.value.data(), true);
         if let Some(reference) = input.reference {
             let reference_value = reference.trace().node(node).value.data();
-            collector.flushed(node, step, Site::Value, recorded.value.data(), reference_value);
-            collector.overflowed(node, step, Site::Value, recorded.value.data(), reference_value);
+            collector.flushed(
+                node,
+                step,
+                Site::Value,
+                recorded.value.data(),
+                reference_value,
+            );
+            collector.overflowed(
+                node,
+                step,
+                Site::Value,
+                recorded.value.data(),
+                reference_value,
+            );
         }
         while let Some(flag) = partial_flags.next_if(|flag| flag.step == step) {
             let hit = (flag.element, flag.value, flag.count);
-            collector.push(Rule::NonFinite, node, step, Site::Partial { slot: flag.slot.unwrap_or(0) }, Measure::Element, hit, max);
+            collector.push(
+                Rule::NonFinite,
+                node,
+                step,
+                Site::Partial {
+                    slot: flag.slot.unwrap_or(0),
+                },
+                Measure::Element,
+                hit,
+                max,
+            );
         }
         let adjoint_finite = sweep.adjoint(node).is_some_and(Value::is_finite);
         let mut outgoing = Vec::new();
         while let Some((index, entry)) = entries.next_if(|(_, entry)| entry.step == step) {
-            let site = Site::Contribution { slot: entry.slot, to: entry.input };
+            let site = Site::Contribution {
+                slot: entry.slot,
+                to: entry.input,
+            };
             let data = entry.value.data();
             // A non-finite contribution is flagged where it is born, not at every edge it passes on.
             collector.magnitudes(node, step, site, data, adjoint_finite);
@@ -282,11 +420,30 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
             let before_finite = entry.before.as_ref().is_none_or(Value::is_finite);
             if before_finite && entry.value.is_finite() && !entry.after.is_finite() {
                 // Finite contributions summing past the largest finite value at a branch.
-                let hit = first_where(entry.after.data(), |_, x| !x.is_finite()).expect("after is not finite");
-                collector.push(Rule::Overflow, entry.input, step, Site::Adjoint, Measure::Element, hit, max);
+                let hit = first_where(entry.after.data(), |_, x| !x.is_finite())
+                    .expect("after is not finite");
+                collector.push(
+                    Rule::Overflow,
+                    entry.input,
+                    step,
+                    Site::Adjoint,
+                    Measure::Element,
+                    hit,
+                    max,
+                );
             }
-            if before_finite && let Some(hit) = first_where(entry.after.data(), |_, x| !x.is_finite()) {
-                collector.push(Rule::NonFinite, entry.input, step, Site::Adjoint, Measure::Element, hit, max);
+            if before_finite
+                && let Some(hit) = first_where(entry.after.data(), |_, x| !x.is_finite())
+            {
+                collector.push(
+                    Rule::NonFinite,
+                    entry.input,
+                    step,
+                    Site::Adjoint,
+                    Measure::Element,
+                    hit,
+                    max,
+                );
             }
             // Contributions to leaves end there; the gain measures what the node passes on.
             if !trace.node(entry.input).op.is_leaf() {
@@ -298,16 +455,29 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
             let data = adjoint.data();
             let limits = trace.dtype().limits();
             if let Some(hit) = first_where(data, |_, x| trace.dtype().is_subnormal(x)) {
-                collector.push(Rule::Underflow, node, step, Site::Adjoint, Measure::Subnormal, hit, limits.min_normal());
+                collector.push(
+                    Rule::Underflow,
+                    node,
+                    step,
+                    Site::Adjoint,
+                    Measure::Subnormal,
+                    hit,
+                    limits.min_normal(),
+                );
             }
-            if let Some(reference) = input.reference.and_then(|reference| reference.adjoint(node)) {
+            if let Some(reference) = input
+                .reference
+                .and_then(|reference| reference.adjoint(node))
+            {
                 collector.flushed(node, step, Site::Adjoint, data, reference.data());
             }
         }
         gain(&mut collector, node, step, adjoint_norms[node], &outgoing);
     }
     gradient_norms(&mut collector, sweep);
-    collector.findings.sort_by_key(|finding| (finding.step, finding.rule));
+    collector
+        .findings
+        .sort_by_key(|finding| (finding.step, finding.rule));
     collector.findings
 }
 
@@ -322,9 +492,25 @@ fn gain(collector: &mut Collector, node: usize, step: usize, adjoint_norm: f64, 
     }
     let settings = collector.settings;
     if ratio > settings.gain_above {
-        collector.push(Rule::Gain, node, step, Site::Outgoing, Measure::Gain, (0, ratio, 1), settings.gain_above);
+        collector.push(
+            Rule::Gain,
+            node,
+            step,
+            Site::Outgoing,
+            Measure::Gain,
+            (0, ratio, 1),
+            settings.gain_above,
+        );
     } else if ratio < settings.gain_below {
-        collector.push(Rule::Gain, node, step, Site::Outgoing, Measure::Gain, (0, ratio, 1), settings.gain_below);
+        collector.push(
+            Rule::Gain,
+            node,
+            step,
+            Site::Outgoing,
+            Measure::Gain,
+            (0, ratio, 1),
+            settings.gain_below,
+        );
     }
 }
 
@@ -334,30 +520,67 @@ fn gradient_norms(collector: &mut Collector, sweep: &Sweep) {
     let trace = sweep.trace();
     let norms: Vec<(usize, f64)> = trace
         .params()
-        .filter_map(|param| sweep.adjoint(param).map(|adjoint| (param, adjoint.l2_norm())))
+        .filter_map(|param| {
+            sweep
+                .adjoint(param)
+                .map(|adjoint| (param, adjoint.l2_norm()))
+        })
         .filter(|(_, norm)| norm.is_finite())
         .collect();
     let median = median(norms.iter().map(|&(_, norm)| norm).collect());
     let seed = trace.seed().l2_norm();
     let settings = collector.settings;
     for &(param, norm) in &norms {
-        let step = trace.sweep_rank(param).expect("a param with an adjoint is swept");
+        let step = trace
+            .sweep_rank(param)
+            .expect("a param with an adjoint is swept");
         let mut check = |measure: Measure, value: f64, below: f64, above: f64| {
             if !value.is_finite() {
                 return;
             }
             if value < below {
-                collector.push(Rule::Vanishing, param, step, Site::Adjoint, measure, (0, value, 1), below);
+                collector.push(
+                    Rule::Vanishing,
+                    param,
+                    step,
+                    Site::Adjoint,
+                    measure,
+                    (0, value, 1),
+                    below,
+                );
             } else if value > above {
-                collector.push(Rule::Exploding, param, step, Site::Adjoint, measure, (0, value, 1), above);
+                collector.push(
+                    Rule::Exploding,
+                    param,
+                    step,
+                    Site::Adjoint,
+                    measure,
+                    (0, value, 1),
+                    above,
+                );
             }
         };
-        check(Measure::Norm, norm, settings.vanishing_below, settings.exploding_above);
+        check(
+            Measure::Norm,
+            norm,
+            settings.vanishing_below,
+            settings.exploding_above,
+        );
         if seed > 0.0 {
-            check(Measure::NormToSeed, norm / seed, settings.vanishing_vs_seed, settings.exploding_vs_seed);
+            check(
+                Measure::NormToSeed,
+                norm / seed,
+                settings.vanishing_vs_seed,
+                settings.exploding_vs_seed,
+            );
         }
         if norms.len() > 1 && median > 0.0 {
-            check(Measure::NormToMedian, norm / median, settings.vanishing_vs_median, settings.exploding_vs_median);
+            check(
+                Measure::NormToMedian,
+                norm / median,
+                settings.vanishing_vs_median,
+                settings.exploding_vs_median,
+            );
         }
     }
 }
@@ -369,7 +592,11 @@ pub fn median(mut values: Vec<f64>) -> f64 {
     }
     values.sort_by(f64::total_cmp);
     let middle = values.len() / 2;
-    if values.len() % 2 == 1 { values[middle] } else { (values[middle - 1] + values[middle]) / 2.0 }
+    if values.len() % 2 == 1 {
+        values[middle]
+    } else {
+        (values[middle - 1] + values[middle]) / 2.0
+    }
 }
 
 #[cfg(test)]
@@ -392,11 +619,27 @@ mod tests {
         let two = tape.input("two", 2.0);
         let y = tape.mul(w, two);
         let trace = crate::trace::Trace::try_from(tape.finish(y)).unwrap();
-        let diagnosis = crate::diagnose::diagnose(&trace, &Settings { replay: Vec::new(), ..Settings::default() });
-        let lines: Vec<String> = diagnosis.findings.iter().map(|finding| finding.describe(&trace, Dtype::F16)).collect();
-        assert!(lines.iter().any(|line| line == "non_finite: the forward value is inf"), "{lines:?}");
+        let diagnosis = crate::diagnose::diagnose(
+            &trace,
+            &Settings {
+                replay: Vec::new(),
+                ..Settings::default()
+            },
+        );
+        let lines: Vec<String> = diagnosis
+            .findings
+            .iter()
+            .map(|finding| finding.describe(&trace, Dtype::F16))
+            .collect();
         assert!(
-            lines.iter().any(|line| line.starts_with("near_overflow: the forward value 60000 is within the warning band")),
+            lines
+                .iter()
+                .any(|line| line == "non_finite: the forward value is inf"),
+            "{lines:?}"
+        );
+        assert!(
+            lines.iter().any(|line| line
+                .starts_with("near_overflow: the forward value 60000 is within the warning band")),
             "{lines:?}"
         );
     }
@@ -404,7 +647,10 @@ mod tests {
     #[test]
     fn rule_names_match_their_serde_names() {
         for rule in Rule::ALL {
-            assert_eq!(serde_json::to_string(&rule).unwrap(), format!("\"{}\"", rule.name()));
+            assert_eq!(
+                serde_json::to_string(&rule).unwrap(),
+                format!("\"{}\"", rule.name())
+            );
         }
     }
 }

@@ -43,7 +43,9 @@ pub enum SettingsError {
         hint: String,
     },
     /// A value out of its range.
-    #[error("{place}: {name} = {value}: {message} (hint: change {name} in the settings or with --set)")]
+    #[error(
+        "{place}: {name} = {value}: {message} (hint: change {name} in the settings or with --set)"
+    )]
     Range {
         /// The file, or `--set`.
         place: String,
@@ -134,35 +136,51 @@ settings! {
 impl Settings {
     /// Reads a settings file over the defaults.
     pub fn load(path: &Path) -> Result<Settings, SettingsError> {
-        let text = std::fs::read_to_string(path).map_err(|source| SettingsError::Io { path: path.to_path_buf(), source })?;
+        let text = std::fs::read_to_string(path).map_err(|source| SettingsError::Io {
+            path: path.to_path_buf(),
+            source,
+        })?;
         Settings::parse(&text, path)
     }
 
     /// Parses settings text over the defaults; `path` only labels errors.
     pub fn parse(text: &str, path: &Path) -> Result<Settings, SettingsError> {
-        let settings: Settings = ron::Options::default().from_str(text).map_err(|error| SettingsError::Syntax {
-            path: path.to_path_buf(),
-            line: error.span.start.line,
-            column: error.span.start.col,
-            message: error.code.to_string(),
-        })?;
+        let settings: Settings =
+            ron::Options::default()
+                .from_str(text)
+                .map_err(|error| SettingsError::Syntax {
+                    path: path.to_path_buf(),
+                    line: error.span.start.line,
+                    column: error.span.start.col,
+                    message: error.code.to_string(),
+                })?;
         settings.check(&path.display().to_string())?;
         Ok(settings)
     }
 
     /// Applies one `NAME=VALUE` option, the value written as in a settings file.
     pub fn apply(&mut self, text: &str) -> Result<(), SettingsError> {
-        let error = |message: String, hint: String| SettingsError::Set { text: text.to_string(), message, hint };
+        let error = |message: String, hint: String| SettingsError::Set {
+            text: text.to_string(),
+            message,
+            hint,
+        };
         let Some((name, value)) = text.split_once('=') else {
             return Err(error(
                 "expected NAME=VALUE".into(),
-                format!("for example --set gain_above=50; names: {}", Settings::NAMES.join(", ")),
+                format!(
+                    "for example --set gain_above=50; names: {}",
+                    Settings::NAMES.join(", ")
+                ),
             ));
         };
         let name = name.trim();
         match self.set_field(name, value.trim()) {
             Ok(true) => self.check("--set"),
-            Ok(false) => Err(error(format!("no setting is called `{name}`"), format!("names: {}", Settings::NAMES.join(", ")))),
+            Ok(false) => Err(error(
+                format!("no setting is called `{name}`"),
+                format!("names: {}", Settings::NAMES.join(", ")),
+            )),
             Err(parse) => Err(error(
                 format!("the value does not fit `{name}`: {}", parse.code),
                 "write the value as in a settings file: 50.0, flush, [f16, f32]".into(),
@@ -179,7 +197,11 @@ impl Settings {
             message: message.to_string(),
         };
         if !(self.overflow_band >= 1.0 && self.overflow_band.is_finite()) {
-            return Err(range("overflow_band", self.overflow_band, "must be a finite factor of at least 1"));
+            return Err(range(
+                "overflow_band",
+                self.overflow_band,
+                "must be a finite factor of at least 1",
+            ));
         }
         let positive = [
             ("vanishing_below", self.vanishing_below),
@@ -192,14 +214,25 @@ impl Settings {
             ("gain_below", self.gain_below),
             ("clip_norm", self.clip_norm),
         ];
-        if let Some((name, value)) = positive.into_iter().find(|(_, value)| !(*value > 0.0 && value.is_finite())) {
+        if let Some((name, value)) = positive
+            .into_iter()
+            .find(|(_, value)| !(*value > 0.0 && value.is_finite()))
+        {
             return Err(range(name, value, "must be a finite number above 0"));
         }
         if !(self.lost_fraction > 0.0 && self.lost_fraction <= 1.0) {
-            return Err(range("lost_fraction", self.lost_fraction, "must be in (0, 1]"));
+            return Err(range(
+                "lost_fraction",
+                self.lost_fraction,
+                "must be in (0, 1]",
+            ));
         }
         if self.gain_below >= self.gain_above {
-            return Err(range("gain_below", self.gain_below, "must be below gain_above"));
+            return Err(range(
+                "gain_below",
+                self.gain_below,
+                "must be below gain_above",
+            ));
         }
         Ok(())
     }
@@ -217,17 +250,28 @@ mod tests {
 
     #[test]
     fn a_file_overrides_only_what_it_names() {
-        let settings = Settings::parse("(gain_above: 50.0, subnormals: flush, replay: [f16], off: [gain])", Path::new("r.ron")).unwrap();
+        let settings = Settings::parse(
+            "(gain_above: 50.0, subnormals: flush, replay: [f16], off: [gain])",
+            Path::new("r.ron"),
+        )
+        .unwrap();
         assert_eq!(settings.gain_above, 50.0);
         assert_eq!(settings.subnormals, Subnormals::Flush);
         assert_eq!(settings.replay, vec![Dtype::F16]);
         assert!(!settings.is_on(Rule::Gain));
-        assert_eq!(settings.vanishing_below, Settings::default().vanishing_below);
+        assert_eq!(
+            settings.vanishing_below,
+            Settings::default().vanishing_below
+        );
     }
 
     #[test]
     fn syntax_errors_name_line_and_column() {
-        let error = Settings::parse("(\n  gain_above: 50.0,\n  gain_abvoe: 2.0,\n)", Path::new("rules.ron")).unwrap_err();
+        let error = Settings::parse(
+            "(\n  gain_above: 50.0,\n  gain_abvoe: 2.0,\n)",
+            Path::new("rules.ron"),
+        )
+        .unwrap_err();
         let text = error.to_string();
         assert!(text.starts_with("rules.ron:3:"), "{text}");
         assert!(text.contains("gain_abvoe"), "{text}");
@@ -240,9 +284,27 @@ mod tests {
         settings.apply("replay=[bf16, f32]").unwrap();
         assert_eq!(settings.vanishing_below, 1e-9);
         assert_eq!(settings.replay, vec![Dtype::Bf16, Dtype::F32]);
-        assert!(settings.apply("nonsense=1").unwrap_err().to_string().contains("no setting is called `nonsense`"));
-        assert!(settings.apply("gain_above=fast").unwrap_err().to_string().contains("does not fit"));
-        assert!(settings.apply("overflow_band=0.5").unwrap_err().to_string().contains("at least 1"));
+        assert!(
+            settings
+                .apply("nonsense=1")
+                .unwrap_err()
+                .to_string()
+                .contains("no setting is called `nonsense`")
+        );
+        assert!(
+            settings
+                .apply("gain_above=fast")
+                .unwrap_err()
+                .to_string()
+                .contains("does not fit")
+        );
+        assert!(
+            settings
+                .apply("overflow_band=0.5")
+                .unwrap_err()
+                .to_string()
+                .contains("at least 1")
+        );
         assert!(settings.apply("gain_above").is_err());
     }
 }

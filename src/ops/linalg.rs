@@ -3,17 +3,33 @@
 use super::{Attrs, JvpArgs, StructuredRule, VjpArgs};
 use crate::dtype::Dtype;
 use crate::format::shape as show;
-use crate::tensor::{Value, broadcast_shapes, broadcast_source_indices, numel, strided_indices, strides};
+use crate::tensor::{
+    Value, broadcast_shapes, broadcast_source_indices, numel, strided_indices, strides,
+};
 
 /// `a @ b` over the last two axes; leading axes broadcast as batch axes.
-pub static MATMUL: StructuredRule = StructuredRule { shape: matmul_shape, forward: matmul_forward, vjp: matmul_vjp, jvp: matmul_jvp };
+pub static MATMUL: StructuredRule = StructuredRule {
+    shape: matmul_shape,
+    forward: matmul_forward,
+    vjp: matmul_vjp,
+    jvp: matmul_jvp,
+};
 
 /// Axis permutation.
-pub static TRANSPOSE: StructuredRule =
-    StructuredRule { shape: transpose_shape, forward: transpose_forward, vjp: transpose_vjp, jvp: transpose_jvp };
+pub static TRANSPOSE: StructuredRule = StructuredRule {
+    shape: transpose_shape,
+    forward: transpose_forward,
+    vjp: transpose_vjp,
+    jvp: transpose_jvp,
+};
 
 /// Same elements under a new shape.
-pub static RESHAPE: StructuredRule = StructuredRule { shape: reshape_shape, forward: reshape_forward, vjp: reshape_vjp, jvp: reshape_jvp };
+pub static RESHAPE: StructuredRule = StructuredRule {
+    shape: reshape_shape,
+    forward: reshape_forward,
+    vjp: reshape_vjp,
+    jvp: reshape_jvp,
+};
 
 /// Shapes of a batched product: batch axes, m, k, n.
 struct MatmulDims {
@@ -34,10 +50,19 @@ fn matmul_dims(a: &[usize], b: &[usize]) -> Result<MatmulDims, String> {
     let (m, k) = (a[a.len() - 2], a[a.len() - 1]);
     let (k2, n) = (b[b.len() - 2], b[b.len() - 1]);
     if k != k2 {
-        return Err(format!("matmul inner dimensions differ: {} @ {} ({k} vs {k2})", show(a), show(b)));
+        return Err(format!(
+            "matmul inner dimensions differ: {} @ {} ({k} vs {k2})",
+            show(a),
+            show(b)
+        ));
     }
-    let batch = broadcast_shapes(&a[..a.len() - 2], &b[..b.len() - 2])
-        .ok_or_else(|| format!("matmul batch axes of {} and {} do not broadcast", show(a), show(b)))?;
+    let batch = broadcast_shapes(&a[..a.len() - 2], &b[..b.len() - 2]).ok_or_else(|| {
+        format!(
+            "matmul batch axes of {} and {} do not broadcast",
+            show(a),
+            show(b)
+        )
+    })?;
     Ok(MatmulDims { batch, m, k, n })
 }
 
@@ -50,7 +75,10 @@ fn matmul_shape(inputs: &[&[usize]], _: &Attrs) -> Result<Vec<usize>, String> {
 
 /// For each output batch, the batch index read from `a` and from `b`.
 fn batch_sources(a: &[usize], b: &[usize], batch: &[usize]) -> (Vec<usize>, Vec<usize>) {
-    (broadcast_source_indices(&a[..a.len() - 2], batch), broadcast_source_indices(&b[..b.len() - 2], batch))
+    (
+        broadcast_source_indices(&a[..a.len() - 2], batch),
+        broadcast_source_indices(&b[..b.len() - 2], batch),
+    )
 }
 
 fn matmul_forward(inputs: &[&Value], _: &Attrs, dtype: Dtype) -> Value {
@@ -60,11 +88,17 @@ fn matmul_forward(inputs: &[&Value], _: &Attrs, dtype: Dtype) -> Value {
     let (a_batches, b_batches) = batch_sources(a.shape(), b.shape(), &dims.batch);
     let mut out = vec![0.0; a_batches.len() * m * n];
     for (batch, (&ab, &bb)) in a_batches.iter().zip(&b_batches).enumerate() {
-        let (a_block, b_block) = (&a.data()[ab * m * k..][..m * k], &b.data()[bb * k * n..][..k * n]);
+        let (a_block, b_block) = (
+            &a.data()[ab * m * k..][..m * k],
+            &b.data()[bb * k * n..][..k * n],
+        );
         let out_block = &mut out[batch * m * n..][..m * n];
         for i in 0..m {
             for j in 0..n {
-                out_block[i * n + j] = dot(dtype, (0..k).map(|p| (a_block[i * k + p], b_block[p * n + j])));
+                out_block[i * n + j] = dot(
+                    dtype,
+                    (0..k).map(|p| (a_block[i * k + p], b_block[p * n + j])),
+                );
             }
         }
     }
@@ -96,22 +130,35 @@ fn matmul_vjp(args: &VjpArgs) -> Value {
     let mut contribution = vec![0.0; target.len()];
     let mut touched = vec![false; target.len()];
     let mut add = |index: usize, x: f64| {
-        contribution[index] = if touched[index] { dtype.round(contribution[index] + x) } else { x };
+        contribution[index] = if touched[index] {
+            dtype.round(contribution[index] + x)
+        } else {
+            x
+        };
         touched[index] = true;
     };
     for (batch, (&ab, &bb)) in a_batches.iter().zip(&b_batches).enumerate() {
         let g = &adjoint.data()[batch * m * n..][..m * n];
-        let (a_block, b_block) = (&a.data()[ab * m * k..][..m * k], &b.data()[bb * k * n..][..k * n]);
+        let (a_block, b_block) = (
+            &a.data()[ab * m * k..][..m * k],
+            &b.data()[bb * k * n..][..k * n],
+        );
         if args.slot == 0 {
             for i in 0..m {
                 for p in 0..k {
-                    add(ab * m * k + i * k + p, dot(dtype, (0..n).map(|j| (g[i * n + j], b_block[p * n + j]))));
+                    add(
+                        ab * m * k + i * k + p,
+                        dot(dtype, (0..n).map(|j| (g[i * n + j], b_block[p * n + j]))),
+                    );
                 }
             }
         } else {
             for p in 0..k {
                 for j in 0..n {
-                    add(bb * k * n + p * n + j, dot(dtype, (0..m).map(|i| (a_block[i * k + p], g[i * n + j]))));
+                    add(
+                        bb * k * n + p * n + j,
+                        dot(dtype, (0..m).map(|i| (a_block[i * k + p], g[i * n + j]))),
+                    );
                 }
             }
         }
@@ -121,7 +168,12 @@ fn matmul_vjp(args: &VjpArgs) -> Value {
 
 /// Elementwise sum of two values of one shape, rounded into `dtype`.
 pub fn add_rounded(a: &Value, b: &Value, dtype: Dtype) -> Value {
-    let data = a.data().iter().zip(b.data()).map(|(&x, &y)| dtype.round(x + y)).collect();
+    let data = a
+        .data()
+        .iter()
+        .zip(b.data())
+        .map(|(&x, &y)| dtype.round(x + y))
+        .collect();
     Value::from_parts(a.shape().to_vec(), data)
 }
 
@@ -151,9 +203,16 @@ fn transpose_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, Str
     let input = inputs[0];
     let perm = permutation(input.len(), attrs);
     let mut seen = vec![false; input.len()];
-    let valid = perm.len() == input.len() && perm.iter().all(|&axis| axis < input.len() && !std::mem::replace(&mut seen[axis], true));
+    let valid = perm.len() == input.len()
+        && perm
+            .iter()
+            .all(|&axis| axis < input.len() && !std::mem::replace(&mut seen[axis], true));
     if !valid {
-        return Err(format!("perm {perm:?} is not a permutation of the {} axes of {}", input.len(), show(input)));
+        return Err(format!(
+            "perm {perm:?} is not a permutation of the {} axes of {}",
+            input.len(),
+            show(input)
+        ));
     }
     Ok(perm.iter().map(|&axis| input[axis]).collect())
 }
@@ -164,7 +223,10 @@ fn permute(value: &Value, perm: &[usize]) -> Value {
     let out_shape: Vec<usize> = perm.iter().map(|&axis| in_shape[axis]).collect();
     let in_strides = strides(in_shape);
     let steps: Vec<usize> = perm.iter().map(|&axis| in_strides[axis]).collect();
-    let out = strided_indices(&out_shape, &steps).into_iter().map(|source| value.data()[source]).collect();
+    let out = strided_indices(&out_shape, &steps)
+        .into_iter()
+        .map(|source| value.data()[source])
+        .collect();
     Value::from_parts(out_shape, out)
 }
 
@@ -238,7 +300,14 @@ mod tests {
         let y = matmul_forward(&[&x, &w], &Attrs::default(), Dtype::F64);
         assert_eq!(y.shape(), &[3, 1, 2]);
         let g = Value::filled(&[3, 1, 2], 1.0);
-        let args = VjpArgs { slot: 1, inputs: &[&x, &w], output: &y, adjoint: &g, attrs: &Attrs::default(), dtype: Dtype::F64 };
+        let args = VjpArgs {
+            slot: 1,
+            inputs: &[&x, &w],
+            output: &y,
+            adjoint: &g,
+            attrs: &Attrs::default(),
+            dtype: Dtype::F64,
+        };
         // Σ_batches xᵀ·1 = rows [2, 2] for both columns.
         assert_eq!(matmul_vjp(&args), tensor(&[2, 2], &[2.0, 2.0, 2.0, 2.0]));
     }
@@ -248,15 +317,33 @@ mod tests {
         let x = tensor(&[2, 3], &[1.0, 2.0, 3.0, 4.0, 5.0, 6.0]);
         let y = transpose_forward(&[&x], &Attrs::default(), Dtype::F64);
         assert_eq!(y, tensor(&[3, 2], &[1.0, 4.0, 2.0, 5.0, 3.0, 6.0]));
-        let args = VjpArgs { slot: 0, inputs: &[&x], output: &y, adjoint: &y, attrs: &Attrs::default(), dtype: Dtype::F64 };
+        let args = VjpArgs {
+            slot: 0,
+            inputs: &[&x],
+            output: &y,
+            adjoint: &y,
+            attrs: &Attrs::default(),
+            dtype: Dtype::F64,
+        };
         assert_eq!(transpose_vjp(&args), x);
     }
 
     #[test]
     fn bad_shapes_are_explained() {
-        assert!(matmul_shape(&[&[2, 3], &[4, 5]], &Attrs::default()).unwrap_err().contains("inner dimensions"));
-        assert!(matmul_shape(&[&[3], &[3, 1]], &Attrs::default()).unwrap_err().contains("rank 2"));
-        let perm = Attrs { perm: Some(vec![0, 0]), ..Attrs::default() };
+        assert!(
+            matmul_shape(&[&[2, 3], &[4, 5]], &Attrs::default())
+                .unwrap_err()
+                .contains("inner dimensions")
+        );
+        assert!(
+            matmul_shape(&[&[3], &[3, 1]], &Attrs::default())
+                .unwrap_err()
+                .contains("rank 2")
+        );
+        let perm = Attrs {
+            perm: Some(vec![0, 0]),
+            ..Attrs::default()
+        };
         assert!(transpose_shape(&[&[2, 3]], &perm).is_err());
     }
 }

@@ -8,11 +8,20 @@ use crate::format::shape as show;
 use crate::tensor::Value;
 
 /// mean over rows of logsumexp(zₙ) − zₙ[tₙ].
-pub static CROSS_ENTROPY: StructuredRule =
-    StructuredRule { shape: cross_entropy_shape, forward: cross_entropy_forward, vjp: cross_entropy_vjp, jvp: cross_entropy_jvp };
+pub static CROSS_ENTROPY: StructuredRule = StructuredRule {
+    shape: cross_entropy_shape,
+    forward: cross_entropy_forward,
+    vjp: cross_entropy_vjp,
+    jvp: cross_entropy_jvp,
+};
 
 /// mean((p − t)²) over all elements.
-pub static MSE: StructuredRule = StructuredRule { shape: mse_shape, forward: mse_forward, vjp: mse_vjp, jvp: mse_jvp };
+pub static MSE: StructuredRule = StructuredRule {
+    shape: mse_shape,
+    forward: mse_forward,
+    vjp: mse_vjp,
+    jvp: mse_jvp,
+};
 
 /// Rows and classes of logits shaped [C] or [N, C].
 fn rows_and_classes(shape: &[usize]) -> Option<(usize, usize)> {
@@ -25,14 +34,23 @@ fn rows_and_classes(shape: &[usize]) -> Option<(usize, usize)> {
 
 fn cross_entropy_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String> {
     let logits = inputs[0];
-    let (rows, classes) =
-        rows_and_classes(logits).ok_or_else(|| format!("cross_entropy needs logits of shape [C] or [N, C], got {}", show(logits)))?;
+    let (rows, classes) = rows_and_classes(logits).ok_or_else(|| {
+        format!(
+            "cross_entropy needs logits of shape [C] or [N, C], got {}",
+            show(logits)
+        )
+    })?;
     let targets = attrs.targets.as_deref().unwrap_or_default();
     if targets.len() != rows {
-        return Err(format!("cross_entropy has {} target indices for {rows} rows of logits", targets.len()));
+        return Err(format!(
+            "cross_entropy has {} target indices for {rows} rows of logits",
+            targets.len()
+        ));
     }
     if let Some(bad) = targets.iter().find(|&&t| t >= classes) {
-        return Err(format!("target class {bad} is out of range for {classes} classes"));
+        return Err(format!(
+            "target class {bad} is out of range for {classes} classes"
+        ));
     }
     Ok(Vec::new())
 }
@@ -79,7 +97,11 @@ fn cross_entropy_jvp(args: &JvpArgs) -> Value {
     let count = targets(args.attrs).len() as f64;
     let mut total: Option<f64> = None;
     for ((row, tangent_row), &target) in rows(logits).zip(rows(tangent)).zip(targets(args.attrs)) {
-        for (class, (p, &t)) in softmax_of(dtype, row).into_iter().zip(tangent_row).enumerate() {
+        for (class, (p, &t)) in softmax_of(dtype, row)
+            .into_iter()
+            .zip(tangent_row)
+            .enumerate()
+        {
             let indicator = if class == target { 1.0 } else { 0.0 };
             let term = dtype.round(dtype.round(p - indicator) * t);
             total = Some(total.map_or(term, |s| dtype.round(s + term)));
@@ -90,7 +112,11 @@ fn cross_entropy_jvp(args: &JvpArgs) -> Value {
 
 fn mse_shape(inputs: &[&[usize]], _: &Attrs) -> Result<Vec<usize>, String> {
     if inputs[0] != inputs[1] {
-        return Err(format!("mse needs prediction and target of one shape, got {} and {}", show(inputs[0]), show(inputs[1])));
+        return Err(format!(
+            "mse needs prediction and target of one shape, got {} and {}",
+            show(inputs[0]),
+            show(inputs[1])
+        ));
     }
     Ok(Vec::new())
 }
@@ -142,10 +168,24 @@ mod tests {
 
     #[test]
     fn targets_must_fit_the_logits() {
-        let attrs = Attrs { targets: Some(vec![3]), ..Attrs::default() };
-        assert!(cross_entropy_shape(&[&[3]], &attrs).unwrap_err().contains("out of range"));
-        let attrs = Attrs { targets: Some(vec![0]), ..Attrs::default() };
-        assert!(cross_entropy_shape(&[&[2, 3]], &attrs).unwrap_err().contains("1 target indices for 2 rows"));
+        let attrs = Attrs {
+            targets: Some(vec![3]),
+            ..Attrs::default()
+        };
+        assert!(
+            cross_entropy_shape(&[&[3]], &attrs)
+                .unwrap_err()
+                .contains("out of range")
+        );
+        let attrs = Attrs {
+            targets: Some(vec![0]),
+            ..Attrs::default()
+        };
+        assert!(
+            cross_entropy_shape(&[&[2, 3]], &attrs)
+                .unwrap_err()
+                .contains("1 target indices for 2 rows")
+        );
         assert!(mse_shape(&[&[2], &[3]], &Attrs::default()).is_err());
     }
 }

@@ -179,33 +179,136 @@ pub struct OpSpec {
 /// The catalog, in the order help lists it.
 pub static CATALOG: &[OpSpec] = &[
     leaf(Op::Input, "input", "a value fed to the step (data)"),
-    leaf(Op::Param, "param", "a trainable parameter: its adjoint is the gradient"),
+    leaf(
+        Op::Param,
+        "param",
+        "a trainable parameter: its adjoint is the gradient",
+    ),
     leaf(Op::Const, "const", "a constant"),
     binary(Op::Add, "add", "a + b, broadcast", &elementwise::ADD),
     binary(Op::Sub, "sub", "a − b, broadcast", &elementwise::SUB),
     binary(Op::Mul, "mul", "a · b, broadcast", &elementwise::MUL),
     binary(Op::Div, "div", "a / b, broadcast", &elementwise::DIV),
     unary(Op::Neg, "neg", "−x", &elementwise::NEG, &[]),
-    unary(Op::Pow, "pow", "x^p for a constant exponent p", &elementwise::POW, &[AttrName::Exponent]),
+    unary(
+        Op::Pow,
+        "pow",
+        "x^p for a constant exponent p",
+        &elementwise::POW,
+        &[AttrName::Exponent],
+    ),
     unary(Op::Exp, "exp", "eˣ", &elementwise::EXP, &[]),
     unary(Op::Log, "log", "natural logarithm", &elementwise::LOG, &[]),
     unary(Op::Sqrt, "sqrt", "square root", &elementwise::SQRT, &[]),
-    unary(Op::Abs, "abs", "|x| (partial 0 at the kink)", &elementwise::ABS, &[]),
+    unary(
+        Op::Abs,
+        "abs",
+        "|x| (partial 0 at the kink)",
+        &elementwise::ABS,
+        &[],
+    ),
     unary(Op::Sin, "sin", "sine", &elementwise::SIN, &[]),
     unary(Op::Cos, "cos", "cosine", &elementwise::COS, &[]),
-    unary(Op::Tanh, "tanh", "hyperbolic tangent", &elementwise::TANH, &[]),
-    unary(Op::Sigmoid, "sigmoid", "1 / (1 + e⁻ˣ)", &elementwise::SIGMOID, &[]),
-    unary(Op::Relu, "relu", "max(x, 0) (partial 0 at the kink)", &elementwise::RELU, &[]),
-    unary(Op::LeakyRelu, "leaky_relu", "x if x > 0 else slope·x", &elementwise::LEAKY_RELU, &[AttrName::Slope]),
-    structured(Op::Matmul, "matmul", 2, &[], "matrix product, batched over leading axes", &linalg::MATMUL),
-    structured(Op::Transpose, "transpose", 1, &[], "permute axes (default: swap the last two)", &linalg::TRANSPOSE),
-    structured(Op::Reshape, "reshape", 1, &[AttrName::Shape], "same elements, new shape", &linalg::RESHAPE),
-    structured(Op::Sum, "sum", 1, &[], "sum of all elements, or along axis", &reduce::SUM),
-    structured(Op::Mean, "mean", 1, &[], "mean of all elements, or along axis", &reduce::MEAN),
-    structured(Op::Max, "max", 1, &[AttrName::Axis], "maximum along axis (ties: first)", &reduce::MAX),
-    structured(Op::Softmax, "softmax", 1, &[], "softmax along axis (default −1)", &reduce::SOFTMAX),
-    structured(Op::LogSoftmax, "log_softmax", 1, &[], "log of softmax along axis (default −1)", &reduce::LOG_SOFTMAX),
-    structured(Op::Logsumexp, "logsumexp", 1, &[], "log Σ eˣ of all elements, or along axis", &reduce::LOGSUMEXP),
+    unary(
+        Op::Tanh,
+        "tanh",
+        "hyperbolic tangent",
+        &elementwise::TANH,
+        &[],
+    ),
+    unary(
+        Op::Sigmoid,
+        "sigmoid",
+        "1 / (1 + e⁻ˣ)",
+        &elementwise::SIGMOID,
+        &[],
+    ),
+    unary(
+        Op::Relu,
+        "relu",
+        "max(x, 0) (partial 0 at the kink)",
+        &elementwise::RELU,
+        &[],
+    ),
+    unary(
+        Op::LeakyRelu,
+        "leaky_relu",
+        "x if x > 0 else slope·x",
+        &elementwise::LEAKY_RELU,
+        &[AttrName::Slope],
+    ),
+    structured(
+        Op::Matmul,
+        "matmul",
+        2,
+        &[],
+        "matrix product, batched over leading axes",
+        &linalg::MATMUL,
+    ),
+    structured(
+        Op::Transpose,
+        "transpose",
+        1,
+        &[],
+        "permute axes (default: swap the last two)",
+        &linalg::TRANSPOSE,
+    ),
+    structured(
+        Op::Reshape,
+        "reshape",
+        1,
+        &[AttrName::Shape],
+        "same elements, new shape",
+        &linalg::RESHAPE,
+    ),
+    structured(
+        Op::Sum,
+        "sum",
+        1,
+        &[],
+        "sum of all elements, or along axis",
+        &reduce::SUM,
+    ),
+    structured(
+        Op::Mean,
+        "mean",
+        1,
+        &[],
+        "mean of all elements, or along axis",
+        &reduce::MEAN,
+    ),
+    structured(
+        Op::Max,
+        "max",
+        1,
+        &[AttrName::Axis],
+        "maximum along axis (ties: first)",
+        &reduce::MAX,
+    ),
+    structured(
+        Op::Softmax,
+        "softmax",
+        1,
+        &[],
+        "softmax along axis (default −1)",
+        &reduce::SOFTMAX,
+    ),
+    structured(
+        Op::LogSoftmax,
+        "log_softmax",
+        1,
+        &[],
+        "log of softmax along axis (default −1)",
+        &reduce::LOG_SOFTMAX,
+    ),
+    structured(
+        Op::Logsumexp,
+        "logsumexp",
+        1,
+        &[],
+        "log Σ eˣ of all elements, or along axis",
+        &reduce::LOGSUMEXP,
+    ),
     structured(
         Op::CrossEntropy,
         "cross_entropy",
@@ -214,7 +317,14 @@ pub static CATALOG: &[OpSpec] = &[
         "mean cross-entropy of logits [N, C] against class indices",
         &loss::CROSS_ENTROPY,
     ),
-    structured(Op::Mse, "mse", 2, &[], "mean squared error of prediction against target", &loss::MSE),
+    structured(
+        Op::Mse,
+        "mse",
+        2,
+        &[],
+        "mean squared error of prediction against target",
+        &loss::MSE,
+    ),
 ];
 
 /// The catalog row standing in for custom ops.
@@ -228,15 +338,47 @@ static CUSTOM: OpSpec = OpSpec {
 };
 
 const fn leaf(op: Op, name: &'static str, summary: &'static str) -> OpSpec {
-    OpSpec { op, name, arity: Arity::Exactly(0), required: &[], summary, rule: Rule::Leaf }
+    OpSpec {
+        op,
+        name,
+        arity: Arity::Exactly(0),
+        required: &[],
+        summary,
+        rule: Rule::Leaf,
+    }
 }
 
-const fn unary(op: Op, name: &'static str, summary: &'static str, rule: &'static UnaryRule, required: &'static [AttrName]) -> OpSpec {
-    OpSpec { op, name, arity: Arity::Exactly(1), required, summary, rule: Rule::Unary(rule) }
+const fn unary(
+    op: Op,
+    name: &'static str,
+    summary: &'static str,
+    rule: &'static UnaryRule,
+    required: &'static [AttrName],
+) -> OpSpec {
+    OpSpec {
+        op,
+        name,
+        arity: Arity::Exactly(1),
+        required,
+        summary,
+        rule: Rule::Unary(rule),
+    }
 }
 
-const fn binary(op: Op, name: &'static str, summary: &'static str, rule: &'static BinaryRule) -> OpSpec {
-    OpSpec { op, name, arity: Arity::Exactly(2), required: &[], summary, rule: Rule::Binary(rule) }
+const fn binary(
+    op: Op,
+    name: &'static str,
+    summary: &'static str,
+    rule: &'static BinaryRule,
+) -> OpSpec {
+    OpSpec {
+        op,
+        name,
+        arity: Arity::Exactly(2),
+        required: &[],
+        summary,
+        rule: Rule::Binary(rule),
+    }
 }
 
 const fn structured(
@@ -247,7 +389,14 @@ const fn structured(
     summary: &'static str,
     rule: &'static StructuredRule,
 ) -> OpSpec {
-    OpSpec { op, name, arity: Arity::Exactly(arity), required, summary, rule: Rule::Structured(rule) }
+    OpSpec {
+        op,
+        name,
+        arity: Arity::Exactly(arity),
+        required,
+        summary,
+        rule: Rule::Structured(rule),
+    }
 }
 
 impl Op {
@@ -312,13 +461,23 @@ fn edit_distance(a: &str, b: &str) -> usize {
 
 /// The output shape of `op` for the given input shapes, or why they do not fit.
 /// Leaves and custom ops have no rule: their recorded shape stands.
-pub fn infer_shape(op: Op, inputs: &[&[usize]], attrs: &Attrs) -> Result<Option<Vec<usize>>, String> {
+pub fn infer_shape(
+    op: Op,
+    inputs: &[&[usize]],
+    attrs: &Attrs,
+) -> Result<Option<Vec<usize>>, String> {
     match &op.spec().rule {
         Rule::Leaf | Rule::Custom => Ok(None),
         Rule::Unary(_) => Ok(Some(inputs[0].to_vec())),
         Rule::Binary(_) => broadcast_shapes(inputs[0], inputs[1])
             .map(Some)
-            .ok_or_else(|| format!("shapes {} and {} do not broadcast", crate::format::shape(inputs[0]), crate::format::shape(inputs[1]))),
+            .ok_or_else(|| {
+                format!(
+                    "shapes {} and {} do not broadcast",
+                    crate::format::shape(inputs[0]),
+                    crate::format::shape(inputs[1])
+                )
+            }),
         Rule::Structured(rule) => (rule.shape)(inputs, attrs).map(Some),
     }
 }
@@ -337,9 +496,17 @@ pub fn forward(op: Op, inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value 
             if let (Value::Scalar(x), Value::Scalar(y)) = (a, b) {
                 return Value::Scalar(dtype.round((rule.value)(*x, *y)));
             }
-            let shape = broadcast_shapes(a.shape(), b.shape()).expect("shapes checked by the validator");
-            let (ia, ib) = (broadcast_source_indices(a.shape(), &shape), broadcast_source_indices(b.shape(), &shape));
-            let data = ia.iter().zip(&ib).map(|(&i, &j)| dtype.round((rule.value)(a.data()[i], b.data()[j]))).collect();
+            let shape =
+                broadcast_shapes(a.shape(), b.shape()).expect("shapes checked by the validator");
+            let (ia, ib) = (
+                broadcast_source_indices(a.shape(), &shape),
+                broadcast_source_indices(b.shape(), &shape),
+            );
+            let data = ia
+                .iter()
+                .zip(&ib)
+                .map(|(&i, &j)| dtype.round((rule.value)(a.data()[i], b.data()[j])))
+                .collect();
             Value::from_parts(shape, data)
         }
         Rule::Structured(rule) => (rule.forward)(inputs, attrs, dtype),
@@ -349,20 +516,39 @@ pub fn forward(op: Op, inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value 
 /// The local partial of an elementwise op on edge `slot`, one entry per
 /// output element (the diagonal of the Jacobian), rounded into `dtype`.
 /// `None` for ops whose Jacobian is not diagonal.
-pub fn elementwise_partial(op: Op, slot: usize, inputs: &[&Value], output: &Value, attrs: &Attrs, dtype: Dtype) -> Option<Value> {
+pub fn elementwise_partial(
+    op: Op,
+    slot: usize,
+    inputs: &[&Value],
+    output: &Value,
+    attrs: &Attrs,
+    dtype: Dtype,
+) -> Option<Value> {
     match &op.spec().rule {
         Rule::Unary(rule) => {
             let x = inputs[0];
-            let data = x.data().iter().zip(output.data()).map(|(&xi, &yi)| dtype.round((rule.partial)(xi, yi, attrs))).collect();
+            let data = x
+                .data()
+                .iter()
+                .zip(output.data())
+                .map(|(&xi, &yi)| dtype.round((rule.partial)(xi, yi, attrs)))
+                .collect();
             Some(Value::from_parts(output.shape().to_vec(), data))
         }
         Rule::Binary(rule) => {
             let (a, b) = (inputs[0], inputs[1]);
             let shape = output.shape();
-            let (ia, ib) = (broadcast_source_indices(a.shape(), shape), broadcast_source_indices(b.shape(), shape));
+            let (ia, ib) = (
+                broadcast_source_indices(a.shape(), shape),
+                broadcast_source_indices(b.shape(), shape),
+            );
             let partial = rule.partials[slot];
-            let data =
-                ia.iter().zip(&ib).zip(output.data()).map(|((&i, &j), &y)| dtype.round(partial(a.data()[i], b.data()[j], y))).collect();
+            let data = ia
+                .iter()
+                .zip(&ib)
+                .zip(output.data())
+                .map(|((&i, &j), &y)| dtype.round(partial(a.data()[i], b.data()[j], y)))
+                .collect();
             Some(Value::from_parts(shape.to_vec(), data))
         }
         _ => None,
@@ -372,10 +558,19 @@ pub fn elementwise_partial(op: Op, slot: usize, inputs: &[&Value], output: &Valu
 /// The scalar local partial of an elementwise op whose inputs are all scalars.
 /// The engine's fast path for scalar traces; same rule as [`elementwise_partial`].
 #[inline]
-pub fn scalar_partial(op: Op, slot: usize, inputs: &[f64], output: f64, attrs: &Attrs, dtype: Dtype) -> Option<f64> {
+pub fn scalar_partial(
+    op: Op,
+    slot: usize,
+    inputs: &[f64],
+    output: f64,
+    attrs: &Attrs,
+    dtype: Dtype,
+) -> Option<f64> {
     match &op.spec().rule {
         Rule::Unary(rule) => Some(dtype.round((rule.partial)(inputs[0], output, attrs))),
-        Rule::Binary(rule) => Some(dtype.round((rule.partials[slot])(inputs[0], inputs[1], output))),
+        Rule::Binary(rule) => {
+            Some(dtype.round((rule.partials[slot])(inputs[0], inputs[1], output)))
+        }
         _ => None,
     }
 }
@@ -390,9 +585,21 @@ pub fn vjp(op: Op, args: &VjpArgs) -> Value {
     match &op.spec().rule {
         Rule::Leaf | Rule::Custom => panic!("{} has no derivative rule", op.name()),
         Rule::Unary(_) | Rule::Binary(_) => {
-            let partial = elementwise_partial(op, args.slot, args.inputs, args.output, args.attrs, args.dtype)
-                .expect("elementwise ops have a diagonal partial");
-            scale_and_reduce(args.adjoint, &partial, args.inputs[args.slot].shape(), args.dtype)
+            let partial = elementwise_partial(
+                op,
+                args.slot,
+                args.inputs,
+                args.output,
+                args.attrs,
+                args.dtype,
+            )
+            .expect("elementwise ops have a diagonal partial");
+            scale_and_reduce(
+                args.adjoint,
+                &partial,
+                args.inputs[args.slot].shape(),
+                args.dtype,
+            )
         }
         Rule::Structured(rule) => (rule.vjp)(args),
     }
@@ -411,16 +618,27 @@ pub fn jvp(op: Op, args: &JvpArgs) -> Value {
             let shape = args.output.shape();
             let mut total: Option<Vec<f64>> = None;
             for (slot, tangent) in args.tangents.iter().enumerate() {
-                let partial = elementwise_partial(op, slot, args.inputs, args.output, args.attrs, args.dtype)
-                    .expect("elementwise ops have a diagonal partial");
+                let partial =
+                    elementwise_partial(op, slot, args.inputs, args.output, args.attrs, args.dtype)
+                        .expect("elementwise ops have a diagonal partial");
                 let sources = broadcast_source_indices(tangent.shape(), shape);
-                let term = sources.iter().zip(partial.data()).map(|(&k, &p)| args.dtype.round(p * tangent.data()[k]));
+                let term = sources
+                    .iter()
+                    .zip(partial.data())
+                    .map(|(&k, &p)| args.dtype.round(p * tangent.data()[k]));
                 total = Some(match total {
                     None => term.collect(),
-                    Some(sum) => sum.iter().zip(term).map(|(&s, t)| args.dtype.round(s + t)).collect(),
+                    Some(sum) => sum
+                        .iter()
+                        .zip(term)
+                        .map(|(&s, t)| args.dtype.round(s + t))
+                        .collect(),
                 });
             }
-            Value::from_parts(shape.to_vec(), total.unwrap_or_else(|| vec![0.0; numel(shape)]))
+            Value::from_parts(
+                shape.to_vec(),
+                total.unwrap_or_else(|| vec![0.0; numel(shape)]),
+            )
         }
         Rule::Structured(rule) => (rule.jvp)(args),
     }
@@ -460,18 +678,33 @@ pub fn on_kink(state: &[i64]) -> bool {
 
 /// `adjoint ⊙ partial` (both of the output's shape, or a scalar partial), then
 /// summed over the axes along which the input was broadcast.
-pub fn scale_and_reduce(adjoint: &Value, partial: &Value, input_shape: &[usize], dtype: Dtype) -> Value {
+pub fn scale_and_reduce(
+    adjoint: &Value,
+    partial: &Value,
+    input_shape: &[usize],
+    dtype: Dtype,
+) -> Value {
     let product: Vec<f64> = if partial.len() == 1 {
         let p = partial.data()[0];
         adjoint.data().iter().map(|&a| dtype.round(a * p)).collect()
     } else {
-        adjoint.data().iter().zip(partial.data()).map(|(&a, &p)| dtype.round(a * p)).collect()
+        adjoint
+            .data()
+            .iter()
+            .zip(partial.data())
+            .map(|(&a, &p)| dtype.round(a * p))
+            .collect()
     };
     reduce_to_shape(&product, adjoint.shape(), input_shape, dtype)
 }
 
 /// Sums a value of `from_shape` down to `to_shape`, undoing a broadcast.
-pub fn reduce_to_shape(data: &[f64], from_shape: &[usize], to_shape: &[usize], dtype: Dtype) -> Value {
+pub fn reduce_to_shape(
+    data: &[f64],
+    from_shape: &[usize],
+    to_shape: &[usize],
+    dtype: Dtype,
+) -> Value {
     if from_shape == to_shape {
         return Value::from_parts(to_shape.to_vec(), data.to_vec());
     }
@@ -480,7 +713,11 @@ pub fn reduce_to_shape(data: &[f64], from_shape: &[usize], to_shape: &[usize], d
     let mut touched = vec![false; reduced.len()];
     for (&target, &x) in targets.iter().zip(data) {
         // The first term is taken as is so that −0 survives, as a framework's sum would keep it.
-        reduced[target] = if touched[target] { dtype.round(reduced[target] + x) } else { x };
+        reduced[target] = if touched[target] {
+            dtype.round(reduced[target] + x)
+        } else {
+            x
+        };
         touched[target] = true;
     }
     Value::from_parts(to_shape.to_vec(), reduced)
@@ -513,7 +750,17 @@ mod tests {
         let b = Value::from_parts(vec![3], vec![1.0; 3]);
         let y = forward(Op::Add, &[&a, &b], &Attrs::default(), Dtype::F64);
         let adjoint = Value::from_parts(vec![2, 3], vec![1.0, 2.0, 3.0, 4.0, 5.0, 6.0]);
-        let args = VjpArgs { slot: 1, inputs: &[&a, &b], output: &y, adjoint: &adjoint, attrs: &Attrs::default(), dtype: Dtype::F64 };
-        assert_eq!(vjp(Op::Add, &args), Value::from_parts(vec![3], vec![5.0, 7.0, 9.0]));
+        let args = VjpArgs {
+            slot: 1,
+            inputs: &[&a, &b],
+            output: &y,
+            adjoint: &adjoint,
+            attrs: &Attrs::default(),
+            dtype: Dtype::F64,
+        };
+        assert_eq!(
+            vjp(Op::Add, &args),
+            Value::from_parts(vec![3], vec![5.0, 7.0, 9.0])
+        );
     }
 }

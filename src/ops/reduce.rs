@@ -7,20 +7,47 @@ use crate::format::shape as show;
 use crate::tensor::{Value, resolve_axis, split_at_axis};
 
 /// Σ of all elements, or along `axis`.
-pub static SUM: StructuredRule = StructuredRule { shape: reduced_shape, forward: sum_forward, vjp: sum_vjp, jvp: sum_jvp };
+pub static SUM: StructuredRule = StructuredRule {
+    shape: reduced_shape,
+    forward: sum_forward,
+    vjp: sum_vjp,
+    jvp: sum_jvp,
+};
 /// Mean of all elements, or along `axis`.
-pub static MEAN: StructuredRule = StructuredRule { shape: reduced_shape, forward: mean_forward, vjp: mean_vjp, jvp: mean_jvp };
+pub static MEAN: StructuredRule = StructuredRule {
+    shape: reduced_shape,
+    forward: mean_forward,
+    vjp: mean_vjp,
+    jvp: mean_jvp,
+};
 /// Maximum along `axis`; the first maximum receives the adjoint.
-pub static MAX: StructuredRule = StructuredRule { shape: reduced_shape, forward: max_forward, vjp: max_vjp, jvp: max_jvp };
+pub static MAX: StructuredRule = StructuredRule {
+    shape: reduced_shape,
+    forward: max_forward,
+    vjp: max_vjp,
+    jvp: max_jvp,
+};
 /// Softmax along `axis` (default −1).
-pub static SOFTMAX: StructuredRule =
-    StructuredRule { shape: same_shape_with_axis, forward: softmax_forward, vjp: softmax_vjp, jvp: softmax_jvp };
+pub static SOFTMAX: StructuredRule = StructuredRule {
+    shape: same_shape_with_axis,
+    forward: softmax_forward,
+    vjp: softmax_vjp,
+    jvp: softmax_jvp,
+};
 /// Log-softmax along `axis` (default −1).
-pub static LOG_SOFTMAX: StructuredRule =
-    StructuredRule { shape: same_shape_with_axis, forward: log_softmax_forward, vjp: log_softmax_vjp, jvp: log_softmax_jvp };
+pub static LOG_SOFTMAX: StructuredRule = StructuredRule {
+    shape: same_shape_with_axis,
+    forward: log_softmax_forward,
+    vjp: log_softmax_vjp,
+    jvp: log_softmax_jvp,
+};
 /// log Σ eˣ of all elements, or along `axis`.
-pub static LOGSUMEXP: StructuredRule =
-    StructuredRule { shape: reduced_shape, forward: logsumexp_forward, vjp: logsumexp_vjp, jvp: logsumexp_jvp };
+pub static LOGSUMEXP: StructuredRule = StructuredRule {
+    shape: reduced_shape,
+    forward: logsumexp_forward,
+    vjp: logsumexp_vjp,
+    jvp: logsumexp_jvp,
+};
 
 /// The lanes a reduction runs along: `outer × inner` lanes of `length`
 /// elements each, `stride` apart.
@@ -34,10 +61,18 @@ struct Lanes {
 impl Lanes {
     fn of(shape: &[usize], axis: Option<usize>) -> Lanes {
         match axis {
-            None => Lanes { outer: 1, length: shape.iter().product(), inner: 1 },
+            None => Lanes {
+                outer: 1,
+                length: shape.iter().product(),
+                inner: 1,
+            },
             Some(axis) => {
                 let (outer, length, inner) = split_at_axis(shape, axis);
-                Lanes { outer, length, inner }
+                Lanes {
+                    outer,
+                    length,
+                    inner,
+                }
             }
         }
     }
@@ -58,7 +93,9 @@ impl Lanes {
 fn axis_of(attrs: &Attrs, rank: usize, default: Option<i64>) -> Result<Option<usize>, String> {
     match attrs.axis.or(default) {
         None => Ok(None),
-        Some(axis) => resolve_axis(axis, rank).map(Some).ok_or_else(|| format!("axis {axis} is out of range for rank {rank}")),
+        Some(axis) => resolve_axis(axis, rank)
+            .map(Some)
+            .ok_or_else(|| format!("axis {axis} is out of range for rank {rank}")),
     }
 }
 
@@ -92,10 +129,16 @@ fn same_shape_with_axis(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>
 }
 
 /// Applies `reduce` to every lane and shapes the result like the reduction's output.
-fn reduce_lanes(x: &Value, attrs: &Attrs, reduce: impl Fn(&mut dyn Iterator<Item = f64>) -> f64) -> Value {
+fn reduce_lanes(
+    x: &Value,
+    attrs: &Attrs,
+    reduce: impl Fn(&mut dyn Iterator<Item = f64>) -> f64,
+) -> Value {
     let axis = checked_axis(attrs, x.shape().len(), None);
     let lanes = Lanes::of(x.shape(), axis);
-    let data: Vec<f64> = (0..lanes.count()).map(|lane| reduce(&mut lanes.indices(lane).map(|index| x.data()[index]))).collect();
+    let data: Vec<f64> = (0..lanes.count())
+        .map(|lane| reduce(&mut lanes.indices(lane).map(|index| x.data()[index])))
+        .collect();
     let shape = reduced_shape(&[x.shape()], attrs).expect("axis checked by the validator");
     Value::from_parts(shape, data)
 }
@@ -114,7 +157,11 @@ fn rounded_sum(dtype: Dtype, values: &mut dyn Iterator<Item = f64>) -> f64 {
 
 /// Spreads a reduction's adjoint back over its lanes: element k of a lane gets
 /// `each(lane adjoint, k, lane)`.
-fn spread(args: &VjpArgs, default_axis: Option<i64>, each: impl Fn(f64, usize, &[usize]) -> f64) -> Value {
+fn spread(
+    args: &VjpArgs,
+    default_axis: Option<i64>,
+    each: impl Fn(f64, usize, &[usize]) -> f64,
+) -> Value {
     let x = args.inputs[0];
     let axis = checked_axis(args.attrs, x.shape().len(), default_axis);
     let lanes = Lanes::of(x.shape(), axis);
@@ -142,7 +189,9 @@ fn lane_length(x: &Value, attrs: &Attrs) -> f64 {
 
 fn mean_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
     let n = lane_length(inputs[0], attrs);
-    reduce_lanes(inputs[0], attrs, |lane| dtype.round(rounded_sum(dtype, lane) / n))
+    reduce_lanes(inputs[0], attrs, |lane| {
+        dtype.round(rounded_sum(dtype, lane) / n)
+    })
 }
 
 fn mean_vjp(args: &VjpArgs) -> Value {
@@ -180,7 +229,10 @@ fn max_vjp(args: &VjpArgs) -> Value {
 fn softmax_lane(dtype: Dtype, lane: &[f64]) -> Vec<f64> {
     let (m, _) = first_max(lane.iter().copied());
     let shift = if m.is_finite() { m } else { 0.0 };
-    let exps: Vec<f64> = lane.iter().map(|&x| dtype.round(dtype.round(x - shift).exp())).collect();
+    let exps: Vec<f64> = lane
+        .iter()
+        .map(|&x| dtype.round(dtype.round(x - shift).exp()))
+        .collect();
     let total = rounded_sum(dtype, &mut exps.iter().copied());
     exps.iter().map(|&e| dtype.round(e / total)).collect()
 }
@@ -192,7 +244,10 @@ fn logsumexp_lane(dtype: Dtype, lane: &[f64]) -> f64 {
         // All −inf gives −inf; any +inf or NaN dominates.
         return m;
     }
-    let total = rounded_sum(dtype, &mut lane.iter().map(|&x| dtype.round(dtype.round(x - m).exp())));
+    let total = rounded_sum(
+        dtype,
+        &mut lane.iter().map(|&x| dtype.round(dtype.round(x - m).exp())),
+    );
     dtype.round(m + dtype.round(total.ln()))
 }
 
@@ -218,11 +273,19 @@ fn softmax_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
 /// x̄ₖ = yₖ (ḡₖ − Σⱼ ḡⱼ yⱼ) along each lane.
 fn softmax_vjp(args: &VjpArgs) -> Value {
     let (y, g, dtype) = (args.output, args.adjoint, args.dtype);
-    let lanes = Lanes::of(y.shape(), checked_axis(args.attrs, y.shape().len(), Some(-1)));
+    let lanes = Lanes::of(
+        y.shape(),
+        checked_axis(args.attrs, y.shape().len(), Some(-1)),
+    );
     let mut out = vec![0.0; y.len()];
     for lane in 0..lanes.count() {
         let indices: Vec<usize> = lanes.indices(lane).collect();
-        let weighted = rounded_sum(dtype, &mut indices.iter().map(|&i| dtype.round(g.data()[i] * y.data()[i])));
+        let weighted = rounded_sum(
+            dtype,
+            &mut indices
+                .iter()
+                .map(|&i| dtype.round(g.data()[i] * y.data()[i])),
+        );
         for &i in &indices {
             out[i] = dtype.round(y.data()[i] * dtype.round(g.data()[i] - weighted));
         }
@@ -240,7 +303,10 @@ fn log_softmax_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value 
 /// x̄ₖ = ḡₖ − softmax(x)ₖ Σⱼ ḡⱼ, with softmax(x) = exp(y).
 fn log_softmax_vjp(args: &VjpArgs) -> Value {
     let (y, g, dtype) = (args.output, args.adjoint, args.dtype);
-    let lanes = Lanes::of(y.shape(), checked_axis(args.attrs, y.shape().len(), Some(-1)));
+    let lanes = Lanes::of(
+        y.shape(),
+        checked_axis(args.attrs, y.shape().len(), Some(-1)),
+    );
     let mut out = vec![0.0; y.len()];
     for lane in 0..lanes.count() {
         let indices: Vec<usize> = lanes.indices(lane).collect();
@@ -254,7 +320,9 @@ fn log_softmax_vjp(args: &VjpArgs) -> Value {
 }
 
 fn logsumexp_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
-    reduce_lanes(inputs[0], attrs, |lane| logsumexp_lane(dtype, &lane.collect::<Vec<_>>()))
+    reduce_lanes(inputs[0], attrs, |lane| {
+        logsumexp_lane(dtype, &lane.collect::<Vec<_>>())
+    })
 }
 
 /// x̄ₖ = ḡ · exp(xₖ − y): the adjoint spread by the lane's softmax.
@@ -294,9 +362,16 @@ fn max_jvp(args: &JvpArgs) -> Value {
 }
 
 /// Applies `per_lane(values, tangents, outputs)` along each lane of the node's axis.
-fn jvp_lanes(args: &JvpArgs, default_axis: Option<i64>, per_lane: impl Fn(&[f64], &[f64], &[f64]) -> Vec<f64>) -> Value {
+fn jvp_lanes(
+    args: &JvpArgs,
+    default_axis: Option<i64>,
+    per_lane: impl Fn(&[f64], &[f64], &[f64]) -> Vec<f64>,
+) -> Value {
     let (x, tangent, y) = (args.inputs[0], args.tangents[0], args.output);
-    let lanes = Lanes::of(x.shape(), checked_axis(args.attrs, x.shape().len(), default_axis));
+    let lanes = Lanes::of(
+        x.shape(),
+        checked_axis(args.attrs, x.shape().len(), default_axis),
+    );
     let same_shape = y.shape() == x.shape();
     let mut out = vec![0.0; y.len()];
     for lane in 0..lanes.count() {
@@ -317,7 +392,10 @@ fn jvp_lanes(args: &JvpArgs, default_axis: Option<i64>, per_lane: impl Fn(&[f64]
 
 /// Σₖ aₖ bₖ rounded into `dtype`.
 fn rounded_dot(dtype: Dtype, a: &[f64], b: &[f64]) -> f64 {
-    rounded_sum(dtype, &mut a.iter().zip(b).map(|(&x, &y)| dtype.round(x * y)))
+    rounded_sum(
+        dtype,
+        &mut a.iter().zip(b).map(|(&x, &y)| dtype.round(x * y)),
+    )
 }
 
 /// ẏₖ = yₖ (ẋₖ − Σⱼ yⱼ ẋⱼ).
@@ -325,7 +403,11 @@ fn softmax_jvp(args: &JvpArgs) -> Value {
     let dtype = args.dtype;
     jvp_lanes(args, Some(-1), |_, tangents, outputs| {
         let weighted = rounded_dot(dtype, outputs, tangents);
-        outputs.iter().zip(tangents).map(|(&y, &t)| dtype.round(y * dtype.round(t - weighted))).collect()
+        outputs
+            .iter()
+            .zip(tangents)
+            .map(|(&y, &t)| dtype.round(y * dtype.round(t - weighted)))
+            .collect()
     })
 }
 
@@ -335,7 +417,10 @@ fn log_softmax_jvp(args: &JvpArgs) -> Value {
     jvp_lanes(args, Some(-1), |_, tangents, outputs| {
         let probabilities: Vec<f64> = outputs.iter().map(|&y| dtype.round(y.exp())).collect();
         let weighted = rounded_dot(dtype, &probabilities, tangents);
-        tangents.iter().map(|&t| dtype.round(t - weighted)).collect()
+        tangents
+            .iter()
+            .map(|&t| dtype.round(t - weighted))
+            .collect()
     })
 }
 
@@ -343,7 +428,10 @@ fn log_softmax_jvp(args: &JvpArgs) -> Value {
 fn logsumexp_jvp(args: &JvpArgs) -> Value {
     let dtype = args.dtype;
     jvp_lanes(args, None, |values, tangents, outputs| {
-        let weights: Vec<f64> = values.iter().map(|&x| dtype.round(dtype.round(x - outputs[0]).exp())).collect();
+        let weights: Vec<f64> = values
+            .iter()
+            .map(|&x| dtype.round(dtype.round(x - outputs[0]).exp()))
+            .collect();
         vec![rounded_dot(dtype, &weights, tangents)]
     })
 }
@@ -381,19 +469,41 @@ mod tests {
     }
 
     fn axis(axis: i64) -> Attrs {
-        Attrs { axis: Some(axis), ..Attrs::default() }
+        Attrs {
+            axis: Some(axis),
+            ..Attrs::default()
+        }
     }
 
     #[test]
     fn sum_along_an_axis_and_back() {
         let x = tensor(&[2, 3], &[1.0, 2.0, 3.0, 4.0, 5.0, 6.0]);
-        assert_eq!(sum_forward(&[&x], &axis(0), Dtype::F64), tensor(&[3], &[5.0, 7.0, 9.0]));
-        assert_eq!(sum_forward(&[&x], &axis(1), Dtype::F64), tensor(&[2], &[6.0, 15.0]));
-        assert_eq!(sum_forward(&[&x], &Attrs::default(), Dtype::F64), Value::Scalar(21.0));
+        assert_eq!(
+            sum_forward(&[&x], &axis(0), Dtype::F64),
+            tensor(&[3], &[5.0, 7.0, 9.0])
+        );
+        assert_eq!(
+            sum_forward(&[&x], &axis(1), Dtype::F64),
+            tensor(&[2], &[6.0, 15.0])
+        );
+        assert_eq!(
+            sum_forward(&[&x], &Attrs::default(), Dtype::F64),
+            Value::Scalar(21.0)
+        );
         let y = sum_forward(&[&x], &axis(1), Dtype::F64);
         let g = tensor(&[2], &[1.0, 10.0]);
-        let args = VjpArgs { slot: 0, inputs: &[&x], output: &y, adjoint: &g, attrs: &axis(1), dtype: Dtype::F64 };
-        assert_eq!(sum_vjp(&args), tensor(&[2, 3], &[1.0, 1.0, 1.0, 10.0, 10.0, 10.0]));
+        let args = VjpArgs {
+            slot: 0,
+            inputs: &[&x],
+            output: &y,
+            adjoint: &g,
+            attrs: &axis(1),
+            dtype: Dtype::F64,
+        };
+        assert_eq!(
+            sum_vjp(&args),
+            tensor(&[2, 3], &[1.0, 1.0, 1.0, 10.0, 10.0, 10.0])
+        );
     }
 
     #[test]
@@ -402,8 +512,18 @@ mod tests {
         let y = max_forward(&[&x], &axis(1), Dtype::F64);
         assert_eq!(y, tensor(&[2], &[5.0, 7.0]));
         let g = tensor(&[2], &[2.0, 3.0]);
-        let args = VjpArgs { slot: 0, inputs: &[&x], output: &y, adjoint: &g, attrs: &axis(1), dtype: Dtype::F64 };
-        assert_eq!(max_vjp(&args), tensor(&[2, 3], &[0.0, 2.0, 0.0, 3.0, 0.0, 0.0]));
+        let args = VjpArgs {
+            slot: 0,
+            inputs: &[&x],
+            output: &y,
+            adjoint: &g,
+            attrs: &axis(1),
+            dtype: Dtype::F64,
+        };
+        assert_eq!(
+            max_vjp(&args),
+            tensor(&[2, 3], &[0.0, 2.0, 0.0, 3.0, 0.0, 0.0])
+        );
     }
 
     #[test]
@@ -411,18 +531,30 @@ mod tests {
         let x = tensor(&[2, 3], &[1.0, 2.0, 3.0, 1000.0, 1000.0, 1000.0]);
         let y = softmax_forward(&[&x], &Attrs::default(), Dtype::F64);
         assert!((y.data()[..3].iter().sum::<f64>() - 1.0).abs() < 1e-15);
-        assert!((y.data()[3] - 1.0 / 3.0).abs() < 1e-15, "stable at large logits");
+        assert!(
+            (y.data()[3] - 1.0 / 3.0).abs() < 1e-15,
+            "stable at large logits"
+        );
         let log_y = log_softmax_forward(&[&x], &Attrs::default(), Dtype::F64);
         for (p, lp) in y.data().iter().zip(log_y.data()) {
-            assert!((p.ln() - lp).abs() < 1e-12, "x − logsumexp cancels to about ulp(1000)");
+            assert!(
+                (p.ln() - lp).abs() < 1e-12,
+                "x − logsumexp cancels to about ulp(1000)"
+            );
         }
     }
 
     #[test]
     fn logsumexp_handles_infinite_lanes() {
         let x = tensor(&[2], &[f64::NEG_INFINITY, f64::NEG_INFINITY]);
-        assert_eq!(logsumexp_forward(&[&x], &Attrs::default(), Dtype::F64), Value::Scalar(f64::NEG_INFINITY));
+        assert_eq!(
+            logsumexp_forward(&[&x], &Attrs::default(), Dtype::F64),
+            Value::Scalar(f64::NEG_INFINITY)
+        );
         let x = tensor(&[2], &[0.0, 0.0]);
-        assert_eq!(logsumexp_forward(&[&x], &Attrs::default(), Dtype::F64), Value::Scalar(2f64.ln()));
+        assert_eq!(
+            logsumexp_forward(&[&x], &Attrs::default(), Dtype::F64),
+            Value::Scalar(2f64.ln())
+        );
     }
 }

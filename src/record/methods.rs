@@ -60,32 +60,68 @@ plain_ops! {
 
 /// The attributes of a reduction along `axis` (all elements when `None`).
 fn along(axis: Option<i64>, keepdims: bool) -> Attrs {
-    Attrs { axis, keepdims, ..Attrs::default() }
+    Attrs {
+        axis,
+        keepdims,
+        ..Attrs::default()
+    }
 }
 
 impl Tape {
     /// xᵖ for a constant exponent `p`.
     #[track_caller]
     pub fn pow(&mut self, x: Var, exponent: f64) -> Var {
-        self.op_at(Op::Pow, &[x], Attrs { exponent: Some(exponent), ..Attrs::default() }, Location::caller())
+        self.op_at(
+            Op::Pow,
+            &[x],
+            Attrs {
+                exponent: Some(exponent),
+                ..Attrs::default()
+            },
+            Location::caller(),
+        )
     }
 
     /// x where x > 0, else `slope`·x.
     #[track_caller]
     pub fn leaky_relu(&mut self, x: Var, slope: f64) -> Var {
-        self.op_at(Op::LeakyRelu, &[x], Attrs { slope: Some(slope), ..Attrs::default() }, Location::caller())
+        self.op_at(
+            Op::LeakyRelu,
+            &[x],
+            Attrs {
+                slope: Some(slope),
+                ..Attrs::default()
+            },
+            Location::caller(),
+        )
     }
 
     /// Permutes the axes: output axis k is input axis `perm[k]`.
     #[track_caller]
     pub fn permute(&mut self, x: Var, perm: &[usize]) -> Var {
-        self.op_at(Op::Transpose, &[x], Attrs { perm: Some(perm.to_vec()), ..Attrs::default() }, Location::caller())
+        self.op_at(
+            Op::Transpose,
+            &[x],
+            Attrs {
+                perm: Some(perm.to_vec()),
+                ..Attrs::default()
+            },
+            Location::caller(),
+        )
     }
 
     /// The same elements in a new shape of equal size.
     #[track_caller]
     pub fn reshape(&mut self, x: Var, shape: &[usize]) -> Var {
-        self.op_at(Op::Reshape, &[x], Attrs { shape: Some(shape.to_vec()), ..Attrs::default() }, Location::caller())
+        self.op_at(
+            Op::Reshape,
+            &[x],
+            Attrs {
+                shape: Some(shape.to_vec()),
+                ..Attrs::default()
+            },
+            Location::caller(),
+        )
     }
 
     /// Σ of all elements: a scalar.
@@ -97,7 +133,12 @@ impl Tape {
     /// Σ along `axis` (negative counts from the end), keeping it with length 1 if `keepdims`.
     #[track_caller]
     pub fn sum_axis(&mut self, x: Var, axis: i64, keepdims: bool) -> Var {
-        self.op_at(Op::Sum, &[x], along(Some(axis), keepdims), Location::caller())
+        self.op_at(
+            Op::Sum,
+            &[x],
+            along(Some(axis), keepdims),
+            Location::caller(),
+        )
     }
 
     /// Mean of all elements: a scalar.
@@ -109,25 +150,45 @@ impl Tape {
     /// Mean along `axis`.
     #[track_caller]
     pub fn mean_axis(&mut self, x: Var, axis: i64, keepdims: bool) -> Var {
-        self.op_at(Op::Mean, &[x], along(Some(axis), keepdims), Location::caller())
+        self.op_at(
+            Op::Mean,
+            &[x],
+            along(Some(axis), keepdims),
+            Location::caller(),
+        )
     }
 
     /// Maximum along `axis`; the first maximum receives the adjoint.
     #[track_caller]
     pub fn max_axis(&mut self, x: Var, axis: i64, keepdims: bool) -> Var {
-        self.op_at(Op::Max, &[x], along(Some(axis), keepdims), Location::caller())
+        self.op_at(
+            Op::Max,
+            &[x],
+            along(Some(axis), keepdims),
+            Location::caller(),
+        )
     }
 
     /// Softmax along `axis` (−1 for the last).
     #[track_caller]
     pub fn softmax(&mut self, x: Var, axis: i64) -> Var {
-        self.op_at(Op::Softmax, &[x], along(Some(axis), false), Location::caller())
+        self.op_at(
+            Op::Softmax,
+            &[x],
+            along(Some(axis), false),
+            Location::caller(),
+        )
     }
 
     /// Log-softmax along `axis` (−1 for the last).
     #[track_caller]
     pub fn log_softmax(&mut self, x: Var, axis: i64) -> Var {
-        self.op_at(Op::LogSoftmax, &[x], along(Some(axis), false), Location::caller())
+        self.op_at(
+            Op::LogSoftmax,
+            &[x],
+            along(Some(axis), false),
+            Location::caller(),
+        )
     }
 
     /// log Σ eˣ of all elements: a scalar.
@@ -139,13 +200,26 @@ impl Tape {
     /// log Σ eˣ along `axis`.
     #[track_caller]
     pub fn logsumexp_axis(&mut self, x: Var, axis: i64, keepdims: bool) -> Var {
-        self.op_at(Op::Logsumexp, &[x], along(Some(axis), keepdims), Location::caller())
+        self.op_at(
+            Op::Logsumexp,
+            &[x],
+            along(Some(axis), keepdims),
+            Location::caller(),
+        )
     }
 
     /// Mean cross-entropy of `logits` [N, C] against one class index per row.
     #[track_caller]
     pub fn cross_entropy(&mut self, logits: Var, targets: &[usize]) -> Var {
-        self.op_at(Op::CrossEntropy, &[logits], Attrs { targets: Some(targets.to_vec()), ..Attrs::default() }, Location::caller())
+        self.op_at(
+            Op::CrossEntropy,
+            &[logits],
+            Attrs {
+                targets: Some(targets.to_vec()),
+                ..Attrs::default()
+            },
+            Location::caller(),
+        )
     }
 }
 
@@ -161,7 +235,10 @@ mod tests {
     #[test]
     fn every_catalog_op_has_a_method() {
         let mut tape = Tape::new("all ops", Dtype::F64);
-        let m = tape.param("m", Value::from_parts(vec![2, 3], vec![0.5, 1.0, 1.5, 2.0, 2.5, 3.0]));
+        let m = tape.param(
+            "m",
+            Value::from_parts(vec![2, 3], vec![0.5, 1.0, 1.5, 2.0, 2.5, 3.0]),
+        );
         let n = tape.input("n", Value::from_parts(vec![3, 2], vec![1.0; 6]));
         let k = tape.constant("k", 2.0);
         let x = tape.param("x", 0.75);
@@ -199,9 +276,16 @@ mod tests {
         names.sort_unstable();
         names.dedup();
         for row in CATALOG {
-            assert!(names.contains(&row.name), "no recorder method records `{}`", row.name);
+            assert!(
+                names.contains(&row.name),
+                "no recorder method records `{}`",
+                row.name
+            );
         }
-        assert!(crate::trace::validate(file).is_ok(), "every recorded node validates");
+        assert!(
+            crate::trace::validate(file).is_ok(),
+            "every recorded node validates"
+        );
     }
 
     #[test]

@@ -59,7 +59,10 @@ pub struct Tape {
 pub fn value_repr(value: &Value) -> ValueRepr {
     match value {
         Value::Scalar(x) => ValueRepr::Scalar(*x),
-        Value::Tensor(t) => ValueRepr::Tensor { shape: t.shape().to_vec(), data: t.data().to_vec() },
+        Value::Tensor(t) => ValueRepr::Tensor {
+            shape: t.shape().to_vec(),
+            data: t.data().to_vec(),
+        },
     }
 }
 
@@ -70,7 +73,14 @@ fn site(location: &Location) -> String {
 impl Tape {
     /// An empty tape computing in `dtype`.
     pub fn new(title: &str, dtype: Dtype) -> Tape {
-        Tape { title: title.to_string(), description: String::new(), dtype, nodes: Vec::new(), values: Vec::new(), scopes: Vec::new() }
+        Tape {
+            title: title.to_string(),
+            description: String::new(),
+            dtype,
+            nodes: Vec::new(),
+            values: Vec::new(),
+            scopes: Vec::new(),
+        }
     }
 
     /// Sets the trace's description.
@@ -136,14 +146,25 @@ impl Tape {
         self.nodes.is_empty()
     }
 
-    fn push(&mut self, id: Option<&str>, op: &str, inputs: &[Var], value: Value, extras: Extras, location: &Location) -> Var {
+    fn push(
+        &mut self,
+        id: Option<&str>,
+        op: &str,
+        inputs: &[Var],
+        value: Value,
+        extras: Extras,
+        location: &Location,
+    ) -> Var {
         let Extras { attrs, partials } = extras;
         let index = self.nodes.len();
         let id = id.map_or_else(|| format!("{op}_{index}"), str::to_string);
         self.nodes.push(NodeFile {
             id: NodeId(id),
             op: op.to_string(),
-            inputs: inputs.iter().map(|input| self.nodes[input.0].id.clone()).collect(),
+            inputs: inputs
+                .iter()
+                .map(|input| self.nodes[input.0].id.clone())
+                .collect(),
             group: self.scopes.join("/"),
             site: Some(site(location)),
             value: value_repr(&value),
@@ -157,7 +178,14 @@ impl Tape {
 
     fn leaf(&mut self, op: Op, name: &str, value: Value, location: &Location) -> Var {
         let value = value.map(|x| self.dtype.round(x));
-        self.push(Some(name), op.name(), &[], value, Extras::default(), location)
+        self.push(
+            Some(name),
+            op.name(),
+            &[],
+            value,
+            Extras::default(),
+            location,
+        )
     }
 
     /// Records data fed to the step.
@@ -185,14 +213,33 @@ impl Tape {
     }
 
     /// Records a catalog op, panicking with the caller's site when it does not fit.
-    fn op_at(&mut self, op: Op, inputs: &[Var], attrs: Attrs, location: &'static Location<'static>) -> Var {
-        self.apply_at(op, inputs, attrs, location).unwrap_or_else(|error| panic!("{error}"))
+    fn op_at(
+        &mut self,
+        op: Op,
+        inputs: &[Var],
+        attrs: Attrs,
+        location: &'static Location<'static>,
+    ) -> Var {
+        self.apply_at(op, inputs, attrs, location)
+            .unwrap_or_else(|error| panic!("{error}"))
     }
 
-    fn apply_at(&mut self, op: Op, inputs: &[Var], attrs: Attrs, location: &Location) -> Result<Var, RecordError> {
-        let error = |message: String| RecordError { op: op.name().to_string(), site: site(location), message };
+    fn apply_at(
+        &mut self,
+        op: Op,
+        inputs: &[Var],
+        attrs: Attrs,
+        location: &Location,
+    ) -> Result<Var, RecordError> {
+        let error = |message: String| RecordError {
+            op: op.name().to_string(),
+            site: site(location),
+            message,
+        };
         if op.is_leaf() || op == Op::Custom {
-            return Err(error("use input, param, constant or custom to record this node".to_string()));
+            return Err(error(
+                "use input, param, constant or custom to record this node".to_string(),
+            ));
         }
         let spec = op.spec();
         if !spec.arity.accepts(inputs.len()) {
@@ -205,16 +252,36 @@ impl Tape {
         let shapes: Vec<&[usize]> = values.iter().map(|value| value.shape()).collect();
         ops::infer_shape(op, &shapes, &attrs).map_err(error)?;
         let value = ops::forward(op, &values, &attrs, self.dtype);
-        Ok(self.push(None, op.name(), inputs, value, Extras { attrs, partials: Vec::new() }, location))
+        Ok(self.push(
+            None,
+            op.name(),
+            inputs,
+            value,
+            Extras {
+                attrs,
+                partials: Vec::new(),
+            },
+            location,
+        ))
     }
 
     /// Records an op outside the catalog, with the forward value and the
     /// partial on every input edge computed by the caller.
     #[track_caller]
-    pub fn custom(&mut self, name: &str, inputs: &[Var], value: impl Into<Value>, partials: Vec<PartialRepr>) -> Result<Var, RecordError> {
+    pub fn custom(
+        &mut self,
+        name: &str,
+        inputs: &[Var],
+        value: impl Into<Value>,
+        partials: Vec<PartialRepr>,
+    ) -> Result<Var, RecordError> {
         let location = Location::caller();
         if Op::from_name(name).is_some() {
-            return Err(RecordError { op: name.to_string(), site: site(location), message: "is a catalog op; use apply".to_string() });
+            return Err(RecordError {
+                op: name.to_string(),
+                site: site(location),
+                message: "is a catalog op; use apply".to_string(),
+            });
         }
         if partials.len() != inputs.len() || partials.contains(&PartialRepr::Absent) {
             return Err(RecordError {
@@ -224,7 +291,17 @@ impl Tape {
             });
         }
         let value = value.into().map(|x| self.dtype.round(x));
-        Ok(self.push(None, name, inputs, value, Extras { attrs: Attrs::default(), partials }, location))
+        Ok(self.push(
+            None,
+            name,
+            inputs,
+            value,
+            Extras {
+                attrs: Attrs::default(),
+                partials,
+            },
+            location,
+        ))
     }
 
     /// Attaches the gradient the original framework reported for `var`, so

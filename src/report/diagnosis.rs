@@ -18,7 +18,9 @@
 //! `underflow_scaled`}, `clipping` {`norm`, `threshold`, `factor`, `clips`},
 //! `advice` [{`topic`, `node`, `text`}]}.
 
-use crate::diagnose::{Advice, Diagnosis, Finding, LostContribution, Measure, Origin, Rule, Settings, Site, Topic};
+use crate::diagnose::{
+    Advice, Diagnosis, Finding, LostContribution, Measure, Origin, Rule, Settings, Site, Topic,
+};
 use crate::format::compact;
 use crate::trace::{Num, Trace};
 use serde::Serialize;
@@ -314,7 +316,11 @@ fn finding_entry(trace: &Trace, finding: &Finding) -> FindingEntry {
     }
 }
 
-fn origin_entry(trace: &Trace, origin: &Origin, chain_of: &dyn Fn(usize) -> Vec<usize>) -> OriginEntry {
+fn origin_entry(
+    trace: &Trace,
+    origin: &Origin,
+    chain_of: &dyn Fn(usize) -> Vec<usize>,
+) -> OriginEntry {
     let id = |node: usize| trace.node(node).id.clone();
     OriginEntry {
         class: origin.class,
@@ -335,7 +341,12 @@ fn origin_entry(trace: &Trace, origin: &Origin, chain_of: &dyn Fn(usize) -> Vec<
             .map(|&param| {
                 let chain = chain_of(param);
                 let (kept, omitted) = ends(&chain);
-                ChainEntry { param: id(param), chain: kept.into_iter().map(id).collect(), length: chain.len(), omitted }
+                ChainEntry {
+                    param: id(param),
+                    chain: kept.into_iter().map(id).collect(),
+                    length: chain.len(),
+                    omitted,
+                }
             })
             .collect(),
     }
@@ -355,7 +366,11 @@ fn lost_entry(trace: &Trace, lost: &LostContribution) -> LostEntry {
 }
 
 fn advice_entry(trace: &Trace, advice: &Advice) -> AdviceEntry {
-    AdviceEntry { topic: advice.topic, node: advice.node.map(|node| trace.node(node).id.clone()), text: advice.text.clone() }
+    AdviceEntry {
+        topic: advice.topic,
+        node: advice.node.map(|node| trace.node(node).id.clone()),
+        text: advice.text.clone(),
+    }
 }
 
 impl DiagnosisReport {
@@ -363,8 +378,14 @@ impl DiagnosisReport {
     pub fn new(trace: &Trace, diagnosis: &Diagnosis) -> DiagnosisReport {
         let id = |node: usize| trace.node(node).id.clone();
         let chain_of = |node: usize| diagnosis.chain_to(node);
-        let origins: Vec<OriginEntry> = diagnosis.origins.iter().map(|origin| origin_entry(trace, origin, &chain_of)).collect();
-        let first_origin = diagnosis.first_origin().map(|origin| origin_entry(trace, origin, &chain_of));
+        let origins: Vec<OriginEntry> = diagnosis
+            .origins
+            .iter()
+            .map(|origin| origin_entry(trace, origin, &chain_of))
+            .collect();
+        let first_origin = diagnosis
+            .first_origin()
+            .map(|origin| origin_entry(trace, origin, &chain_of));
         let dominant_paths = diagnosis
             .paths
             .iter()
@@ -377,7 +398,12 @@ impl DiagnosisReport {
                     omitted,
                     hops: hops
                         .iter()
-                        .map(|hop| HopEntry { from: id(hop.from), to: id(hop.to), slot: hop.slot, gain: Num(hop.gain) })
+                        .map(|hop| HopEntry {
+                            from: id(hop.from),
+                            to: id(hop.to),
+                            slot: hop.slot,
+                            gain: Num(hop.gain),
+                        })
                         .collect(),
                 }
             })
@@ -402,12 +428,20 @@ impl DiagnosisReport {
                 subnormals: run.subnormals,
                 findings: run.findings.len(),
                 findings_total: run.findings_total,
-                first_overflow: run.first_overflow().map(|finding| finding_entry(trace, finding)),
-                first_underflow: run.first_underflow().map(|finding| finding_entry(trace, finding)),
+                first_overflow: run
+                    .first_overflow()
+                    .map(|finding| finding_entry(trace, finding)),
+                first_underflow: run
+                    .first_underflow()
+                    .map(|finding| finding_entry(trace, finding)),
                 first_lost: run.first_lost().map(|lost| lost_entry(trace, lost)),
                 lost_total: run.lost_total,
                 // Chains are the main sweep's business; a replay names its origins only.
-                origins: run.origins.iter().map(|origin| origin_entry(trace, origin, &|_| Vec::new())).collect(),
+                origins: run
+                    .origins
+                    .iter()
+                    .map(|origin| origin_entry(trace, origin, &|_| Vec::new()))
+                    .collect(),
                 gradients: run
                     .gradients
                     .iter()
@@ -429,15 +463,33 @@ impl DiagnosisReport {
             nan_births: diagnosis
                 .nan_births()
                 .iter()
-                .map(|birth| NanBirthEntry { node: id(birth.node), step: birth.step + 1, from: id(birth.from), how: birth.how })
+                .map(|birth| NanBirthEntry {
+                    node: id(birth.node),
+                    step: birth.step + 1,
+                    from: id(birth.from),
+                    how: birth.how,
+                })
                 .collect(),
-            findings: diagnosis.findings.iter().map(|finding| finding_entry(trace, finding)).collect(),
+            findings: diagnosis
+                .findings
+                .iter()
+                .map(|finding| finding_entry(trace, finding))
+                .collect(),
             dominant_paths,
             groups,
             replay,
             loss_scale: diagnosis.loss_scale,
-            clipping: ClipEntry { norm: Num(clip.norm), threshold: Num(clip.threshold), factor: Num(clip.factor), clips: clip.clips },
-            advice: diagnosis.advice.iter().map(|advice| advice_entry(trace, advice)).collect(),
+            clipping: ClipEntry {
+                norm: Num(clip.norm),
+                threshold: Num(clip.threshold),
+                factor: Num(clip.factor),
+                clips: clip.clips,
+            },
+            advice: diagnosis
+                .advice
+                .iter()
+                .map(|advice| advice_entry(trace, advice))
+                .collect(),
         }
     }
 
@@ -454,7 +506,11 @@ impl DiagnosisReport {
                 let _ = writeln!(out, "           {}", origin.explanation);
                 for reached in origin.reached.iter().take(3) {
                     let _ = writeln!(out, "  chain    {}", chain_text(reached));
-                    if let Some(birth) = self.nan_births.iter().find(|birth| reached.chain.contains(&birth.node)) {
+                    if let Some(birth) = self
+                        .nan_births
+                        .iter()
+                        .find(|birth| reached.chain.contains(&birth.node))
+                    {
                         let _ = writeln!(
                             out,
                             "           turned into NaN at '{}' (step {}, from '{}': {})",
@@ -467,13 +523,21 @@ impl DiagnosisReport {
                 }
                 if origin.reached.len() > 3 {
                     let more = origin.reached.len() - 3;
-                    let _ = writeln!(out, "           … and {more} more {}", if more == 1 { "parameter" } else { "parameters" });
+                    let _ = writeln!(
+                        out,
+                        "           … and {more} more {}",
+                        if more == 1 { "parameter" } else { "parameters" }
+                    );
                 }
                 if origin.reached.is_empty() {
                     let _ = writeln!(out, "  chain    reaches no parameter");
                 }
                 if self.origins.len() > 1 {
-                    let _ = writeln!(out, "           {} origins in all (see below)", self.origins.len());
+                    let _ = writeln!(
+                        out,
+                        "           {} origins in all (see below)",
+                        self.origins.len()
+                    );
                 }
             }
             None if self.clean => {
@@ -487,7 +551,12 @@ impl DiagnosisReport {
                     .collect::<std::collections::BTreeSet<_>>()
                     .into_iter()
                     .collect();
-                let _ = writeln!(out, "diagnosis  every adjoint is finite; {} findings ({})", self.findings.len(), rules.join(", "));
+                let _ = writeln!(
+                    out,
+                    "diagnosis  every adjoint is finite; {} findings ({})",
+                    self.findings.len(),
+                    rules.join(", ")
+                );
             }
         }
         for (k, advice) in self.advice.iter().enumerate() {
@@ -537,7 +606,12 @@ impl DiagnosisReport {
         } else {
             "leaves the gradient unchanged".to_string()
         };
-        let _ = writeln!(out, "clipping  global norm {}; clipping at {} {effect}", compact(clip.norm.0), compact(clip.threshold.0));
+        let _ = writeln!(
+            out,
+            "clipping  global norm {}; clipping at {} {effect}",
+            compact(clip.norm.0),
+            compact(clip.threshold.0)
+        );
         out
     }
 
@@ -553,8 +627,14 @@ impl DiagnosisReport {
                 (None, Some(slot)) => format!("{} on input {slot}", finding.site),
                 _ => finding.site.to_string(),
             };
-            let class = finding.class.map_or(String::new(), |letter| format!("  origin ({letter})"));
-            let many = if finding.count > 1 { format!(" ({} elements)", finding.count) } else { String::new() };
+            let class = finding
+                .class
+                .map_or(String::new(), |letter| format!("  origin ({letter})"));
+            let many = if finding.count > 1 {
+                format!(" ({} elements)", finding.count)
+            } else {
+                String::new()
+            };
             let _ = writeln!(
                 out,
                 "  step {:<5} {:<12} {:<13} {place}: {} {} (threshold {}){many}{class}",
@@ -567,7 +647,11 @@ impl DiagnosisReport {
             );
         }
         if self.findings.len() > SHOWN {
-            let _ = writeln!(out, "  … {} more (all of them in --json)", self.findings.len() - SHOWN);
+            let _ = writeln!(
+                out,
+                "  … {} more (all of them in --json)",
+                self.findings.len() - SHOWN
+            );
         }
         out
     }
@@ -578,7 +662,12 @@ impl DiagnosisReport {
         }
         let mut out = String::from("dominant paths  (product of per-hop gains, output first)\n");
         for path in &self.dominant_paths {
-            let _ = write!(out, "  {:<12} gain {:<10} ", path.param, crate::format::power_of_ten(path.log10_gain.0));
+            let _ = write!(
+                out,
+                "  {:<12} gain {:<10} ",
+                path.param,
+                crate::format::power_of_ten(path.log10_gain.0)
+            );
             let _ = writeln!(out, "{}", hops_text(path));
         }
         out
@@ -589,10 +678,17 @@ impl DiagnosisReport {
             return String::new();
         }
         let mut out = String::from("groups  by depth from the output\n");
-        let _ =
-            writeln!(out, "  {:<24} {:>5} {:>6} {:>13} {:>13} {:>11}", "group", "depth", "nodes", "adjoint norm", "param norm", "ratio");
+        let _ = writeln!(
+            out,
+            "  {:<24} {:>5} {:>6} {:>13} {:>13} {:>11}",
+            "group", "depth", "nodes", "adjoint norm", "param norm", "ratio"
+        );
         for group in &self.groups {
-            let name = if group.group.is_empty() { "(no group)" } else { group.group.as_str() };
+            let name = if group.group.is_empty() {
+                "(no group)"
+            } else {
+                group.group.as_str()
+            };
             let _ = writeln!(
                 out,
                 "  {:<24} {:>5} {:>6} {:>13} {:>13} {:>11}",
@@ -600,8 +696,12 @@ impl DiagnosisReport {
                 group.depth,
                 group.nodes,
                 compact(group.adjoint_norm.0),
-                group.param_norm.map_or("—".to_string(), |norm| compact(norm.0)),
-                group.ratio.map_or("—".to_string(), |ratio| compact(ratio.0))
+                group
+                    .param_norm
+                    .map_or("—".to_string(), |norm| compact(norm.0)),
+                group
+                    .ratio
+                    .map_or("—".to_string(), |ratio| compact(ratio.0))
             );
         }
         out
@@ -611,20 +711,31 @@ impl DiagnosisReport {
         if self.replay.is_empty() {
             return String::new();
         }
-        let mut out = String::from("precision replay  (the same step swept in each dtype, against f64)\n");
-        let first =
-            |finding: &Option<FindingEntry>| finding.as_ref().map_or("—".to_string(), |f| format!("'{}' step {}", f.node, f.step));
+        let mut out =
+            String::from("precision replay  (the same step swept in each dtype, against f64)\n");
+        let first = |finding: &Option<FindingEntry>| {
+            finding.as_ref().map_or("—".to_string(), |f| {
+                format!("'{}' step {}", f.node, f.step)
+            })
+        };
         let _ = writeln!(
             out,
             "  {:<6} {:<26} {:<26} {:<26} gradient norms",
             "dtype", "first overflow", "first underflow", "first lost contribution"
         );
         for run in &self.replay {
-            let lost = run
-                .first_lost
-                .as_ref()
-                .map_or("—".to_string(), |lost| format!("'{}' step {} ({} in all)", lost.node, lost.step, run.lost_total));
-            let gradients: Vec<String> = run.gradients.iter().take(4).map(|g| format!("{} {}", g.param, compact(g.norm.0))).collect();
+            let lost = run.first_lost.as_ref().map_or("—".to_string(), |lost| {
+                format!(
+                    "'{}' step {} ({} in all)",
+                    lost.node, lost.step, run.lost_total
+                )
+            });
+            let gradients: Vec<String> = run
+                .gradients
+                .iter()
+                .take(4)
+                .map(|g| format!("{} {}", g.param, compact(g.norm.0)))
+                .collect();
             let more = if run.gradients.len() > 4 { ", …" } else { "" };
             let _ = writeln!(
                 out,
@@ -661,7 +772,11 @@ fn measure_name(measure: Measure) -> &'static str {
 /// A path as `out → a ×g → b ×g …`, with runs of three or more hops of
 /// the same gain folded into one.
 fn hops_text(path: &PathEntry) -> String {
-    let mut parts: Vec<String> = path.hops.first().map(|hop| vec![hop.from.clone()]).unwrap_or_default();
+    let mut parts: Vec<String> = path
+        .hops
+        .first()
+        .map(|hop| vec![hop.from.clone()])
+        .unwrap_or_default();
     let mut k = 0;
     while k < path.hops.len() {
         if path.omitted > 0 && k == CHAIN_LIMIT / 2 {
@@ -669,12 +784,29 @@ fn hops_text(path: &PathEntry) -> String {
         }
         let gain = compact(path.hops[k].gain.0);
         // A run may not span the gap where hops were left out.
-        let limit = if path.omitted > 0 && k < CHAIN_LIMIT / 2 { CHAIN_LIMIT / 2 - k } else { usize::MAX };
-        let run = path.hops[k..].iter().take_while(|hop| compact(hop.gain.0) == gain).count().min(limit).max(1);
-        if run >= 3 {
-            parts.push(format!("{} … {} ({run} hops ×{gain} each)", path.hops[k].to, path.hops[k + run - 1].to));
+        let limit = if path.omitted > 0 && k < CHAIN_LIMIT / 2 {
+            CHAIN_LIMIT / 2 - k
         } else {
-            parts.extend(path.hops[k..k + run].iter().map(|hop| format!("{} ×{}", hop.to, compact(hop.gain.0))));
+            usize::MAX
+        };
+        let run = path.hops[k..]
+            .iter()
+            .take_while(|hop| compact(hop.gain.0) == gain)
+            .count()
+            .min(limit)
+            .max(1);
+        if run >= 3 {
+            parts.push(format!(
+                "{} … {} ({run} hops ×{gain} each)",
+                path.hops[k].to,
+                path.hops[k + run - 1].to
+            ));
+        } else {
+            parts.extend(
+                path.hops[k..k + run]
+                    .iter()
+                    .map(|hop| format!("{} ×{}", hop.to, compact(hop.gain.0))),
+            );
         }
         k += run;
     }
@@ -687,5 +819,10 @@ fn chain_text(reached: &ChainEntry) -> String {
         parts.insert(CHAIN_LIMIT / 2, format!("… {} nodes …", reached.omitted));
     }
     let hops = reached.length.saturating_sub(1);
-    format!("{}  ({hops} {} to '{}')", parts.join(" → "), if hops == 1 { "hop" } else { "hops" }, reached.param)
+    format!(
+        "{}  ({hops} {} to '{}')",
+        parts.join(" → "),
+        if hops == 1 { "hop" } else { "hops" },
+        reached.param
+    )
 }

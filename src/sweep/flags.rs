@@ -49,9 +49,23 @@ pub struct Flag {
 
 impl Flag {
     /// A flag for a value with non-finite elements, or `None` if it is finite.
-    pub(super) fn for_value(step: usize, node: usize, kind: FlagKind, value: &Value) -> Option<Flag> {
+    pub(super) fn for_value(
+        step: usize,
+        node: usize,
+        kind: FlagKind,
+        value: &Value,
+    ) -> Option<Flag> {
         let (element, bad) = value.first_non_finite()?;
         let count = value.data().iter().filter(|x| !x.is_finite()).count();
-        Some(Flag { step, node, kind, slot: None, from: None, element, value: bad, count })
+        Some(Flag {
+            step,
+            node,
+            kind,
+            slot: None,
+            from: None,
+            element,
+            value: bad,
+            count,
+        })
     }
 }

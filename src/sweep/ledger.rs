@@ -40,7 +40,11 @@ pub struct Ledger {
 
 impl Ledger {
     pub(super) fn new(nodes: usize) -> Ledger {
-        Ledger { entries: Vec::new(), step_starts: Vec::new(), last: vec![NONE; nodes] }
+        Ledger {
+            entries: Vec::new(),
+            step_starts: Vec::new(),
+            last: vec![NONE; nodes],
+        }
     }
 
     pub(super) fn begin_step(&mut self) {
@@ -56,7 +60,9 @@ impl Ledger {
 
     /// Removes the last step's entries, newest first, handing each to `restore`.
     pub(super) fn pop_step(&mut self, mut restore: impl FnMut(Contribution)) {
-        let Some(start) = self.step_starts.pop() else { return };
+        let Some(start) = self.step_starts.pop() else {
+            return;
+        };
         while self.entries.len() > start as usize {
             let entry = self.entries.pop().expect("entries after the step start");
             self.last[entry.input] = entry.previous;
@@ -71,8 +77,13 @@ impl Ledger {
 
     /// The contributions made by step `step`.
     pub fn step_entries(&self, step: usize) -> &[Contribution] {
-        let Some(&start) = self.step_starts.get(step) else { return &[] };
-        let end = self.step_starts.get(step + 1).map_or(self.entries.len(), |&end| end as usize);
+        let Some(&start) = self.step_starts.get(step) else {
+            return &[];
+        };
+        let end = self
+            .step_starts
+            .get(step + 1)
+            .map_or(self.entries.len(), |&end| end as usize);
         &self.entries[start as usize..end]
     }
 

@@ -44,8 +44,18 @@ impl<'t> Sweep<'t> {
         let mut adjoints = vec![None; trace.nodes().len()];
         adjoints[trace.output()] = Some(trace.seed().clone());
         let ledger = (mode == LedgerMode::On).then(|| Ledger::new(trace.nodes().len()));
-        let flags: Vec<Flag> = Flag::for_value(0, trace.output(), FlagKind::NonFiniteAdjoint, trace.seed()).into_iter().collect();
-        Sweep { trace, cursor: 0, adjoints, ledger, seed_flags: flags.len(), flags }
+        let flags: Vec<Flag> =
+            Flag::for_value(0, trace.output(), FlagKind::NonFiniteAdjoint, trace.seed())
+                .into_iter()
+                .collect();
+        Sweep {
+            trace,
+            cursor: 0,
+            adjoints,
+            ledger,
+            seed_flags: flags.len(),
+            flags,
+        }
     }
 
     /// The trace being swept.
@@ -80,12 +90,16 @@ impl<'t> Sweep<'t> {
 
     /// The node the last step processed.
     pub fn last_done(&self) -> Option<usize> {
-        self.cursor.checked_sub(1).map(|step| self.trace.sweep_order()[step])
+        self.cursor
+            .checked_sub(1)
+            .map(|step| self.trace.sweep_order()[step])
     }
 
     /// True when `node` has been processed: its adjoint is final and has been pulled back.
     pub fn is_finished(&self, node: usize) -> bool {
-        self.trace.sweep_rank(node).is_some_and(|rank| rank < self.cursor)
+        self.trace
+            .sweep_rank(node)
+            .is_some_and(|rank| rank < self.cursor)
     }
 
     /// The adjoint of `node` so far; `None` before its first contribution.
@@ -110,7 +124,11 @@ impl<'t> Sweep<'t> {
             .trace
             .consumers(node)
             .into_iter()
-            .filter(|&(consumer, _)| self.trace.sweep_rank(consumer).is_some_and(|rank| rank >= self.cursor))
+            .filter(|&(consumer, _)| {
+                self.trace
+                    .sweep_rank(consumer)
+                    .is_some_and(|rank| rank >= self.cursor)
+            })
             .collect();
         pending.sort_by_key(|&(consumer, _)| self.trace.sweep_rank(consumer));
         pending
@@ -125,7 +143,9 @@ impl<'t> Sweep<'t> {
             ledger.begin_step();
         }
         match self.adjoints[node] {
-            Some(Value::Scalar(adjoint)) if self.trace.compact().fast[node] => self.step_scalar(node, adjoint),
+            Some(Value::Scalar(adjoint)) if self.trace.compact().fast[node] => {
+                self.step_scalar(node, adjoint)
+            }
             _ => self.step_general(node),
         }
         self.cursor += 1;
@@ -139,7 +159,12 @@ impl<'t> Sweep<'t> {
         let (compact, dtype) = (trace.compact(), trace.dtype());
         let output = compact.scalars[node];
         if !output.is_finite() {
-            self.flags.extend(Flag::for_value(step, node, FlagKind::NonFiniteValue, &Value::Scalar(output)));
+            self.flags.extend(Flag::for_value(
+                step,
+                node,
+                FlagKind::NonFiniteValue,
+                &Value::Scalar(output),
+            ));
         }
         let inputs = compact.inputs_of(node);
         let mut input_values = [0.0f64; 2];
@@ -147,12 +172,17 @@ impl<'t> Sweep<'t> {
             *value = compact.scalars[input as usize];
         }
         let input_values = &input_values[..inputs.len()];
-        let attrs = if compact.reads_attrs[node] { &trace.node(node).attrs } else { &NO_ATTRS };
+        let attrs = if compact.reads_attrs[node] {
+            &trace.node(node).attrs
+        } else {
+            &NO_ATTRS
+        };
         let op = compact.ops[node];
         // Flush-to-zero applies to every stored result: the contribution and the sum.
         let flush = trace.subnormals() == Subnormals::Flush;
         for (slot, &input) in inputs.iter().enumerate() {
-            let partial = ops::scalar_partial(op, slot, input_values, output, attrs, dtype).expect("fast-path nodes are elementwise");
+            let partial = ops::scalar_partial(op, slot, input_values, output, attrs, dtype)
+                .expect("fast-path nodes are elementwise");
             let mut contribution = dtype.round(adjoint * partial);
             if flush {
                 contribution = dtype.flush(contribution);
@@ -171,12 +201,32 @@ impl<'t> Sweep<'t> {
                 after = dtype.flush(after);
             }
             if !after.is_finite() {
-                self.note_adjoint(step, node, slot, input, before.map(Value::Scalar).as_ref(), &Value::Scalar(after));
+                self.note_adjoint(
+                    step,
+                    node,
+                    slot,
+                    input,
+                    before.map(Value::Scalar).as_ref(),
+                    &Value::Scalar(after),
+                );
             }
             self.adjoints[input] = Some(Value::Scalar(after));
             if let Some(ledger) = &mut self.ledger {
-                let (value, before, after) = (Value::Scalar(contribution), before.map(Value::Scalar), Value::Scalar(after));
-                ledger.record(Contribution { step, consumer: node, input, slot, value, before, after, previous: 0 });
+                let (value, before, after) = (
+                    Value::Scalar(contribution),
+                    before.map(Value::Scalar),
+                    Value::Scalar(after),
+                );
+                ledger.record(Contribution {
+                    step,
+                    consumer: node,
+                    input,
+                    slot,
+                    value,
+                    before,
+                    after,
+                    previous: 0,
+                });
             }
         }
     }
@@ -189,12 +239,18 @@ impl<'t> Sweep<'t> {
         if let Some(flag) = Flag::for_value(step, node, FlagKind::NonFiniteValue, &recorded.value) {
             self.flags.push(flag);
         }
-        let adjoint = self.adjoints[node].take().expect("a node's consumers are swept before it, so it holds an adjoint");
+        let adjoint = self.adjoints[node]
+            .take()
+            .expect("a node's consumers are swept before it, so it holds an adjoint");
         let flush = trace.subnormals() == Subnormals::Flush;
         for (slot, &input) in recorded.inputs.iter().enumerate() {
             let mut pulled = pull_back(trace, node, slot, &adjoint);
             if flush {
-                pulled.contribution.data_mut().iter_mut().for_each(|x| *x = dtype.flush(*x));
+                pulled
+                    .contribution
+                    .data_mut()
+                    .iter_mut()
+                    .for_each(|x| *x = dtype.flush(*x));
             }
             if let Some(bad) = pulled.bad_partial {
                 self.flag_partial(step, node, slot, bad);
@@ -202,7 +258,10 @@ impl<'t> Sweep<'t> {
             let before = self.adjoints[input].take();
             let mut after = accumulate(before.as_ref(), &pulled.contribution, dtype);
             if flush {
-                after.data_mut().iter_mut().for_each(|x| *x = dtype.flush(*x));
+                after
+                    .data_mut()
+                    .iter_mut()
+                    .for_each(|x| *x = dtype.flush(*x));
             }
             self.note_adjoint(step, node, slot, input, before.as_ref(), &after);
             match &mut self.ledger {
@@ -226,11 +285,28 @@ impl<'t> Sweep<'t> {
     }
 
     fn flag_partial(&mut self, step: usize, node: usize, slot: usize, value: f64) {
-        self.flags.push(Flag { step, node, kind: FlagKind::NonFinitePartial, slot: Some(slot), from: None, element: 0, value, count: 1 });
+        self.flags.push(Flag {
+            step,
+            node,
+            kind: FlagKind::NonFinitePartial,
+            slot: Some(slot),
+            from: None,
+            element: 0,
+            value,
+            count: 1,
+        });
     }
 
     /// Flags an adjoint that a contribution from `consumer` made non-finite.
-    fn note_adjoint(&mut self, step: usize, consumer: usize, slot: usize, input: usize, before: Option<&Value>, after: &Value) {
+    fn note_adjoint(
+        &mut self,
+        step: usize,
+        consumer: usize,
+        slot: usize,
+        input: usize,
+        before: Option<&Value>,
+        after: &Value,
+    ) {
         if after.is_finite() || !before.is_none_or(Value::is_finite) {
             return;
         }
@@ -252,7 +328,9 @@ impl<'t> Sweep<'t> {
                 let adjoints = &mut self.adjoints;
                 ledger.pop_step(|entry| adjoints[entry.input] = entry.before);
                 self.cursor = target;
-                while self.flags.len() > self.seed_flags && self.flags.last().is_some_and(|flag| flag.step >= target) {
+                while self.flags.len() > self.seed_flags
+                    && self.flags.last().is_some_and(|flag| flag.step >= target)
+                {
                     self.flags.pop();
                 }
             }
@@ -266,7 +344,11 @@ impl<'t> Sweep<'t> {
 
     /// Returns to the start, keeping the ledger mode.
     pub fn restart(&mut self) {
-        let mode = if self.ledger.is_some() { LedgerMode::On } else { LedgerMode::Off };
+        let mode = if self.ledger.is_some() {
+            LedgerMode::On
+        } else {
+            LedgerMode::Off
+        };
         *self = Sweep::new(self.trace, mode);
     }
 

@@ -29,7 +29,14 @@ pub fn pull_back(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pu
             bad_partial: diagonal.first_non_finite().map(|(_, x)| x),
         },
         Some(Partial::Jacobian { rows, cols, data }) => Pulled {
-            contribution: jacobian_transpose_product(adjoint, *rows, *cols, data, input_shape, dtype),
+            contribution: jacobian_transpose_product(
+                adjoint,
+                *rows,
+                *cols,
+                data,
+                input_shape,
+                dtype,
+            ),
             bad_partial: data.iter().copied().find(|x| !x.is_finite()),
         },
         None => derived(trace, node, slot, adjoint),
@@ -62,17 +69,38 @@ fn jacobian_transpose_product(
 fn derived(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
     let dtype = trace.dtype();
     let recorded = trace.node(node);
-    let inputs: Vec<&Value> = recorded.inputs.iter().map(|&input| &trace.node(input).value).collect();
-    if let Some(partial) = ops::elementwise_partial(recorded.op, slot, &inputs, &recorded.value, &recorded.attrs, dtype) {
+    let inputs: Vec<&Value> = recorded
+        .inputs
+        .iter()
+        .map(|&input| &trace.node(input).value)
+        .collect();
+    if let Some(partial) = ops::elementwise_partial(
+        recorded.op,
+        slot,
+        &inputs,
+        &recorded.value,
+        &recorded.attrs,
+        dtype,
+    ) {
         let input_shape = inputs[slot].shape();
         return Pulled {
             contribution: ops::scale_and_reduce(adjoint, &partial, input_shape, dtype),
             bad_partial: partial.first_non_finite().map(|(_, x)| x),
         };
     }
-    let args = VjpArgs { slot, inputs: &inputs, output: &recorded.value, adjoint, attrs: &recorded.attrs, dtype };
+    let args = VjpArgs {
+        slot,
+        inputs: &inputs,
+        output: &recorded.value,
+        adjoint,
+        attrs: &recorded.attrs,
+        dtype,
+    };
     // A structured op's partials are its recorded forward values, checked as values.
-    Pulled { contribution: ops::vjp(recorded.op, &args), bad_partial: None }
+    Pulled {
+        contribution: ops::vjp(recorded.op, &args),
+        bad_partial: None,
+    }
 }
 
 /// Adds a contribution to an adjoint, rounding into the dtype. The first
@@ -83,7 +111,12 @@ pub fn accumulate(before: Option<&Value>, contribution: &Value, dtype: Dtype) ->
         (None, _) => contribution.clone(),
         (Some(Value::Scalar(a)), Value::Scalar(c)) => Value::Scalar(dtype.round(a + c)),
         (Some(before), _) => {
-            let data = before.data().iter().zip(contribution.data()).map(|(&a, &c)| dtype.round(a + c)).collect();
+            let data = before
+                .data()
+                .iter()
+                .zip(contribution.data())
+                .map(|(&a, &c)| dtype.round(a + c))
+                .collect();
             Value::from_parts(before.shape().to_vec(), data)
         }
     }
@@ -92,15 +125,30 @@ pub fn accumulate(before: Option<&Value>, contribution: &Value, dtype: Dtype) ->
 /// A recorded partial applied forward: the Jacobian times an input's tangent
 /// (or small change), in the output's shape. The forward-mode twin of the
 /// pull-back above, for custom ops in tangent sweeps and linearised re-evaluation.
-pub fn push_forward(partial: &Partial, tangent: &Value, output_shape: &[usize], dtype: Dtype) -> Value {
+pub fn push_forward(
+    partial: &Partial,
+    tangent: &Value,
+    output_shape: &[usize],
+    dtype: Dtype,
+) -> Value {
     match partial {
         Partial::Scalar(s) => {
             let sources = crate::tensor::broadcast_source_indices(tangent.shape(), output_shape);
-            Value::from_parts(output_shape.to_vec(), sources.iter().map(|&k| dtype.round(s * tangent.data()[k])).collect())
+            Value::from_parts(
+                output_shape.to_vec(),
+                sources
+                    .iter()
+                    .map(|&k| dtype.round(s * tangent.data()[k]))
+                    .collect(),
+            )
         }
         Partial::Diagonal(diagonal) => {
             let sources = crate::tensor::broadcast_source_indices(tangent.shape(), output_shape);
-            let data = sources.iter().zip(diagonal.data()).map(|(&k, &d)| dtype.round(d * tangent.data()[k])).collect();
+            let data = sources
+                .iter()
+                .zip(diagonal.data())
+                .map(|(&k, &d)| dtype.round(d * tangent.data()[k]))
+                .collect();
             Value::from_parts(output_shape.to_vec(), data)
         }
         Partial::Jacobian { rows, cols, data } => {

@@ -37,7 +37,11 @@ pub struct Tensor {
 
 impl Tensor {
     fn owned(shape: Vec<usize>, data: Vec<f64>) -> Tensor {
-        Tensor { shape, storage: Storage::Owned(data), summary: OnceLock::new() }
+        Tensor {
+            shape,
+            storage: Storage::Owned(data),
+            summary: OnceLock::new(),
+        }
     }
 
     /// The tensor's shape.
@@ -76,7 +80,10 @@ impl Tensor {
 impl fmt::Debug for Tensor {
     /// The same text for owned and mapped storage, so debug comparisons do not depend on it.
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.debug_struct("Tensor").field("shape", &self.shape).field("data", &self.data()).finish()
+        f.debug_struct("Tensor")
+            .field("shape", &self.shape)
+            .field("data", &self.data())
+            .finish()
     }
 }
 
@@ -93,7 +100,11 @@ impl Value {
     /// If `data.len()` differs from the product of `shape` (callers validate first).
     pub fn from_parts(shape: Vec<usize>, data: Vec<f64>) -> Value {
         assert_eq!(numel(&shape), data.len(), "data length must match shape");
-        if shape.is_empty() { Value::Scalar(data[0]) } else { Value::Tensor(Box::new(Tensor::owned(shape, data))) }
+        if shape.is_empty() {
+            Value::Scalar(data[0])
+        } else {
+            Value::Tensor(Box::new(Tensor::owned(shape, data)))
+        }
     }
 
     /// A tensor whose elements are a checked range of a mapped sidecar.
@@ -101,13 +112,24 @@ impl Value {
     /// # Panics
     /// If `shape` is empty or its size differs from the range's length.
     pub fn from_mapped(shape: Vec<usize>, mapped: Mapped) -> Value {
-        assert!(!shape.is_empty() && numel(&shape) == mapped.len(), "a mapped tensor's shape must match its range");
-        Value::Tensor(Box::new(Tensor { shape, storage: Storage::Mapped(mapped), summary: OnceLock::new() }))
+        assert!(
+            !shape.is_empty() && numel(&shape) == mapped.len(),
+            "a mapped tensor's shape must match its range"
+        );
+        Value::Tensor(Box::new(Tensor {
+            shape,
+            storage: Storage::Mapped(mapped),
+            summary: OnceLock::new(),
+        }))
     }
 
     /// A value of `shape` with every element equal to `x`.
     pub fn filled(shape: &[usize], x: f64) -> Value {
-        if shape.is_empty() { Value::Scalar(x) } else { Value::from_parts(shape.to_vec(), vec![x; numel(shape)]) }
+        if shape.is_empty() {
+            Value::Scalar(x)
+        } else {
+            Value::from_parts(shape.to_vec(), vec![x; numel(shape)])
+        }
     }
 
     /// The shape; empty for a scalar.
@@ -168,7 +190,10 @@ impl Value {
     pub fn map(&self, f: impl Fn(f64) -> f64) -> Value {
         match self {
             Value::Scalar(x) => Value::Scalar(f(*x)),
-            Value::Tensor(t) => Value::Tensor(Box::new(Tensor::owned(t.shape.clone(), t.data().iter().map(|&x| f(x)).collect()))),
+            Value::Tensor(t) => Value::Tensor(Box::new(Tensor::owned(
+                t.shape.clone(),
+                t.data().iter().map(|&x| f(x)).collect(),
+            ))),
         }
     }
 
@@ -184,7 +209,11 @@ impl Value {
 
     /// The first non-finite element, if any, with its flat index.
     pub fn first_non_finite(&self) -> Option<(usize, f64)> {
-        self.data().iter().copied().enumerate().find(|(_, x)| !x.is_finite())
+        self.data()
+            .iter()
+            .copied()
+            .enumerate()
+            .find(|(_, x)| !x.is_finite())
     }
 
     /// Euclidean norm of all elements, computed in f64 with scaling so that it
@@ -220,7 +249,12 @@ pub struct NormAccumulator {
 
 impl Default for NormAccumulator {
     fn default() -> NormAccumulator {
-        NormAccumulator { scale: 0.0, sum_sq: 1.0, nan: false, inf: false }
+        NormAccumulator {
+            scale: 0.0,
+            sum_sq: 1.0,
+            nan: false,
+            inf: false,
+        }
     }
 }
 
@@ -287,7 +321,11 @@ pub fn broadcast_shapes(a: &[usize], b: &[usize]) -> Option<Vec<usize>> {
 }
 
 fn dim_from_right(shape: &[usize], from_right: usize) -> usize {
-    if from_right < shape.len() { shape[shape.len() - 1 - from_right] } else { 1 }
+    if from_right < shape.len() {
+        shape[shape.len() - 1 - from_right]
+    } else {
+        1
+    }
 }
 
 /// Row-major strides of `shape`.
@@ -358,7 +396,11 @@ pub fn resolve_axis(axis: i64, rank: usize) -> Option<usize> {
 /// Splits `shape` around `axis` into (outer, length, inner) counts, so the
 /// element at (o, k, i) has flat index `(o * length + k) * inner + i`.
 pub fn split_at_axis(shape: &[usize], axis: usize) -> (usize, usize, usize) {
-    (numel(&shape[..axis]), shape[axis], numel(&shape[axis + 1..]))
+    (
+        numel(&shape[..axis]),
+        shape[axis],
+        numel(&shape[axis + 1..]),
+    )
 }
 
 #[cfg(test)]
@@ -368,7 +410,10 @@ mod tests {
     // Broadcasting rules: NumPy documentation, "Broadcasting" (numpy.org, user guide).
     #[test]
     fn broadcast_shapes_follow_numpy_rules() {
-        assert_eq!(broadcast_shapes(&[8, 1, 6, 1], &[7, 1, 5]), Some(vec![8, 7, 6, 5]));
+        assert_eq!(
+            broadcast_shapes(&[8, 1, 6, 1], &[7, 1, 5]),
+            Some(vec![8, 7, 6, 5])
+        );
         assert_eq!(broadcast_shapes(&[5, 4], &[1]), Some(vec![5, 4]));
         assert_eq!(broadcast_shapes(&[15, 3, 5], &[3, 1]), Some(vec![15, 3, 5]));
         assert_eq!(broadcast_shapes(&[3], &[4]), None);
@@ -378,11 +423,20 @@ mod tests {
 
     #[test]
     fn source_indices_repeat_broadcast_axes() {
-        assert_eq!(broadcast_source_indices(&[3], &[2, 3]), vec![0, 1, 2, 0, 1, 2]);
-        assert_eq!(broadcast_source_indices(&[2, 1], &[2, 3]), vec![0, 0, 0, 1, 1, 1]);
+        assert_eq!(
+            broadcast_source_indices(&[3], &[2, 3]),
+            vec![0, 1, 2, 0, 1, 2]
+        );
+        assert_eq!(
+            broadcast_source_indices(&[2, 1], &[2, 3]),
+            vec![0, 0, 0, 1, 1, 1]
+        );
         assert_eq!(broadcast_source_indices(&[], &[2, 2]), vec![0, 0, 0, 0]);
         assert_eq!(broadcast_source_indices(&[1, 3], &[2, 1, 3]).len(), 6);
-        assert_eq!(broadcast_source_indices(&[2, 1, 2], &[2, 3, 2]), vec![0, 1, 0, 1, 0, 1, 2, 3, 2, 3, 2, 3]);
+        assert_eq!(
+            broadcast_source_indices(&[2, 1, 2], &[2, 3, 2]),
+            vec![0, 1, 0, 1, 0, 1, 2, 3, 2, 3, 2, 3]
+        );
     }
 
     #[test]

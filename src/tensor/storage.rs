@@ -65,7 +65,13 @@ impl Mapped {
     /// cannot make this read outside the file).
     pub fn new(map: Arc<Mmap>, start: usize, len: usize, element: Element) -> Option<Mapped> {
         let end = len.checked_mul(element.width())?.checked_add(start)?;
-        (end <= map.len()).then(|| Mapped { map, start, len, element, widened: OnceLock::new() })
+        (end <= map.len()).then(|| Mapped {
+            map,
+            start,
+            len,
+            element,
+            widened: OnceLock::new(),
+        })
     }
 
     fn bytes(&self) -> &[u8] {
@@ -95,13 +101,16 @@ impl Mapped {
         if let Some(data) = self.in_place() {
             return data;
         }
-        self.widened.get_or_init(|| self.narrow_elements().collect())
+        self.widened
+            .get_or_init(|| self.narrow_elements().collect())
     }
 
     /// The elements decoded one by one, without keeping a widened copy.
     pub fn narrow_elements(&self) -> impl Iterator<Item = f64> + '_ {
         let element = self.element;
-        self.bytes().chunks_exact(element.width()).map(move |chunk| element.decode(chunk))
+        self.bytes()
+            .chunks_exact(element.width())
+            .map(move |chunk| element.decode(chunk))
     }
 
     /// True once the elements are available as f64s without decoding.
@@ -123,7 +132,13 @@ impl Mapped {
 impl Clone for Mapped {
     /// Shares the mapping; a widened copy is not duplicated but made again on demand.
     fn clone(&self) -> Mapped {
-        Mapped { map: Arc::clone(&self.map), start: self.start, len: self.len, element: self.element, widened: OnceLock::new() }
+        Mapped {
+            map: Arc::clone(&self.map),
+            start: self.start,
+            len: self.len,
+            element: self.element,
+            widened: OnceLock::new(),
+        }
     }
 }
 
@@ -159,7 +174,9 @@ impl Storage {
     pub(crate) fn for_each(&self, mut visit: impl FnMut(f64)) {
         match self {
             Storage::Owned(data) => data.iter().for_each(|&x| visit(x)),
-            Storage::Mapped(mapped) if mapped.is_wide() => mapped.data().iter().for_each(|&x| visit(x)),
+            Storage::Mapped(mapped) if mapped.is_wide() => {
+                mapped.data().iter().for_each(|&x| visit(x))
+            }
             Storage::Mapped(mapped) => mapped.narrow_elements().for_each(visit),
         }
     }
@@ -207,7 +224,10 @@ mod tests {
         let map = map_of(&[0u8; 16]);
         assert!(Mapped::new(Arc::clone(&map), 8, 1, Element::F64).is_some());
         assert!(Mapped::new(Arc::clone(&map), 9, 1, Element::F64).is_none());
-        assert!(Mapped::new(Arc::clone(&map), 0, usize::MAX / 2, Element::F64).is_none(), "overflowing sizes are refused");
+        assert!(
+            Mapped::new(Arc::clone(&map), 0, usize::MAX / 2, Element::F64).is_none(),
+            "overflowing sizes are refused"
+        );
         assert!(Mapped::new(map, usize::MAX, 1, Element::F32).is_none());
     }
 }

@@ -64,7 +64,10 @@ pub(crate) fn first_stored(file: &TraceFile) -> Option<String> {
     if file.seed.as_ref().is_some_and(stored) {
         return Some(file.output.0.clone());
     }
-    file.nodes.iter().find(|node| stored(&node.value) || node.reported.as_ref().is_some_and(stored)).map(|node| node.id.0.clone())
+    file.nodes
+        .iter()
+        .find(|node| stored(&node.value) || node.reported.as_ref().is_some_and(stored))
+        .map(|node| node.id.0.clone())
 }
 
 /// The element type a trace's data is stored in: f32 when every element of
@@ -79,8 +82,11 @@ pub fn element_for(file: &TraceFile) -> Element {
         ValueRepr::Tensor { data, .. } => data.iter().all(exact),
         ValueRepr::Scalar(_) | ValueRepr::Stored { .. } => true,
     };
-    let all =
-        file.seed.as_ref().is_none_or(fits) && file.nodes.iter().all(|node| fits(&node.value) && node.reported.as_ref().is_none_or(fits));
+    let all = file.seed.as_ref().is_none_or(fits)
+        && file
+            .nodes
+            .iter()
+            .all(|node| fits(&node.value) && node.reported.as_ref().is_none_or(fits));
     if all { Element::F32 } else { Element::F64 }
 }
 
@@ -93,9 +99,12 @@ struct SidecarWriter<'w> {
 
 impl SidecarWriter<'_> {
     fn store(&mut self, value: &ValueRepr) -> std::io::Result<ValueRepr> {
-        let ValueRepr::Tensor { shape, data } = value else { return Ok(value.clone()) };
+        let ValueRepr::Tensor { shape, data } = value else {
+            return Ok(value.clone());
+        };
         let padding = (ALIGN - self.position % ALIGN) % ALIGN;
-        self.out.write_all(&[0u8; ALIGN as usize][..padding as usize])?;
+        self.out
+            .write_all(&[0u8; ALIGN as usize][..padding as usize])?;
         self.position += padding;
         let offset = self.position;
         for &x in data {
@@ -105,31 +114,57 @@ impl SidecarWriter<'_> {
             }
         }
         self.position += (data.len() * self.element.width()) as u64;
-        Ok(ValueRepr::Stored { shape: shape.clone(), offset })
+        Ok(ValueRepr::Stored {
+            shape: shape.clone(),
+            offset,
+        })
     }
 }
 
 /// Writes `file` (data inline) as the header `header` and its sidecar.
 /// Both are written to temporary files first; the sidecar is renamed into
 /// place before the header.
-pub(crate) fn write(file: &TraceFile, header: &Path, progress: &mut dyn Progress) -> Result<(), SaveError> {
+pub(crate) fn write(
+    file: &TraceFile,
+    header: &Path,
+    progress: &mut dyn Progress,
+) -> Result<(), SaveError> {
     if let Some(node) = first_stored(file) {
-        return Err(SaveError::NotInline { path: header.to_path_buf(), node });
+        return Err(SaveError::NotInline {
+            path: header.to_path_buf(),
+            node,
+        });
     }
     let sidecar = sidecar_path(header);
     let element = element_for(file);
     progress.stage("writing", None);
-    let mut trace = TraceFile { nodes: Vec::with_capacity(file.nodes.len()), seed: None, ..file.clone_header() };
+    let mut trace = TraceFile {
+        nodes: Vec::with_capacity(file.nodes.len()),
+        seed: None,
+        ..file.clone_header()
+    };
     let staged_sidecar = store::stage(&sidecar, |out| {
         out.write_all(MAGIC)?;
         out.write_all(&SIDECAR_VERSION.to_le_bytes())?;
         out.write_all(&(element.width() as u32).to_le_bytes())?;
-        let mut writer = SidecarWriter { out, element, position: PREAMBLE };
-        trace.seed = file.seed.as_ref().map(|seed| writer.store(seed)).transpose()?;
+        let mut writer = SidecarWriter {
+            out,
+            element,
+            position: PREAMBLE,
+        };
+        trace.seed = file
+            .seed
+            .as_ref()
+            .map(|seed| writer.store(seed))
+            .transpose()?;
         for node in &file.nodes {
             trace.nodes.push(NodeFile {
                 value: writer.store(&node.value)?,
-                reported: node.reported.as_ref().map(|reported| writer.store(reported)).transpose()?,
+                reported: node
+                    .reported
+                    .as_ref()
+                    .map(|reported| writer.store(reported))
+                    .transpose()?,
                 ..node.clone_without_data()
             });
         }
@@ -137,8 +172,19 @@ pub(crate) fn write(file: &TraceFile, header: &Path, progress: &mut dyn Progress
         Ok(())
     })?;
     let bytes = staged_sidecar_len(&staged_sidecar, &sidecar)?;
-    let name = sidecar.file_name().and_then(|name| name.to_str()).unwrap_or("trace.bin").to_string();
-    let header_file = HeaderFile { sidecar: SidecarInfo { file: name, bytes, element }, trace };
+    let name = sidecar
+        .file_name()
+        .and_then(|name| name.to_str())
+        .unwrap_or("trace.bin")
+        .to_string();
+    let header_file = HeaderFile {
+        sidecar: SidecarInfo {
+            file: name,
+            bytes,
+            element,
+        },
+        trace,
+    };
     let text = text_of(&header_file, Encoding::Ron);
     let staged_header = store::stage(header, |out| out.write_all(text.as_bytes()))?;
     store::commit(staged_sidecar, &sidecar)?;
@@ -146,7 +192,10 @@ pub(crate) fn write(file: &TraceFile, header: &Path, progress: &mut dyn Progress
 }
 
 fn staged_sidecar_len(staged: &store::Staged, path: &Path) -> Result<u64, SaveError> {
-    staged.len().map_err(|source| SaveError::Io { path: path.to_path_buf(), source })
+    staged.len().map_err(|source| SaveError::Io {
+        path: path.to_path_buf(),
+        source,
+    })
 }
 
 impl TraceFile {
@@ -189,35 +238,61 @@ struct Sidecar {
 }
 
 fn sidecar_error(header: &Path, node: Option<&str>, message: String, hint: &str) -> LoadError {
-    LoadError::Sidecar { path: header.to_path_buf(), node: node.map(str::to_string), message, hint: hint.to_string() }
+    LoadError::Sidecar {
+        path: header.to_path_buf(),
+        node: node.map(str::to_string),
+        message,
+        hint: hint.to_string(),
+    }
 }
 
-const REGENERATE: &str =
-    "the header and its sidecar no longer belong together; regenerate both, e.g. with `ebb convert` from the original trace";
+const REGENERATE: &str = "the header and its sidecar no longer belong together; regenerate both, e.g. with `ebb convert` from the original trace";
 
 /// Reads and parses the header.
-fn read_header(header: &Path, progress: &mut dyn Progress) -> Result<(HeaderFile, String), LoadError> {
-    let text = progress::read_text(header, progress).map_err(|source| LoadError::Io { path: header.to_path_buf(), source })?;
+fn read_header(
+    header: &Path,
+    progress: &mut dyn Progress,
+) -> Result<(HeaderFile, String), LoadError> {
+    let text = progress::read_text(header, progress).map_err(|source| LoadError::Io {
+        path: header.to_path_buf(),
+        source,
+    })?;
     progress.stage("parsing", None);
-    let parsed = parse_as::<HeaderFile>(&text, Encoding::sniff(&text)).map_err(|error| syntax_error(header, error))?;
+    let parsed = parse_as::<HeaderFile>(&text, Encoding::sniff(&text))
+        .map_err(|error| syntax_error(header, error))?;
     Ok((parsed, text))
 }
 
 /// The byte range of a reference, checked against the sidecar's length.
-fn checked_range(shape: &[usize], offset: u64, element: Element, len: u64, name: &str) -> Result<(usize, usize), String> {
+fn checked_range(
+    shape: &[usize],
+    offset: u64,
+    element: Element,
+    len: u64,
+    name: &str,
+) -> Result<(usize, usize), String> {
     let count = shape.iter().try_fold(1usize, |acc, &d| acc.checked_mul(d));
-    let bytes = count.and_then(|count| count.checked_mul(element.width())).map(|bytes| bytes as u64);
+    let bytes = count
+        .and_then(|count| count.checked_mul(element.width()))
+        .map(|bytes| bytes as u64);
     let (Some(count), Some(bytes)) = (count, bytes) else {
         return Err(format!("shape {} is too large to be stored", show(shape)));
     };
     if shape.is_empty() {
-        return Err("a sidecar reference needs a tensor shape (a scalar is written inline)".to_string());
+        return Err(
+            "a sidecar reference needs a tensor shape (a scalar is written inline)".to_string(),
+        );
     }
     if offset < PREAMBLE {
-        return Err(format!("offset {offset} lies inside the {PREAMBLE}-byte preamble of {name}"));
+        return Err(format!(
+            "offset {offset} lies inside the {PREAMBLE}-byte preamble of {name}"
+        ));
     }
     if !offset.is_multiple_of(element.width() as u64) {
-        return Err(format!("offset {offset} is not a multiple of the {}-byte element width", element.width()));
+        return Err(format!(
+            "offset {offset} is not a multiple of the {}-byte element width",
+            element.width()
+        ));
     }
     match offset.checked_add(bytes) {
         Some(end) if end <= len => Ok((offset as usize, count)),
@@ -237,18 +312,31 @@ fn references(file: &TraceFile) -> impl Iterator<Item = (&str, &[usize], u64)> {
             _ => None,
         }
     }
-    let seed = file.seed.as_ref().and_then(stored).map(|(shape, offset)| (file.output.0.as_str(), shape, offset));
-    seed.into_iter().chain(file.nodes.iter().flat_map(move |node| {
-        let value = stored(&node.value).map(|(shape, offset)| (node.id.0.as_str(), shape, offset));
-        let reported = node.reported.as_ref().and_then(stored).map(|(shape, offset)| (node.id.0.as_str(), shape, offset));
-        value.into_iter().chain(reported)
-    }))
+    let seed = file
+        .seed
+        .as_ref()
+        .and_then(stored)
+        .map(|(shape, offset)| (file.output.0.as_str(), shape, offset));
+    seed.into_iter()
+        .chain(file.nodes.iter().flat_map(move |node| {
+            let value =
+                stored(&node.value).map(|(shape, offset)| (node.id.0.as_str(), shape, offset));
+            let reported = node
+                .reported
+                .as_ref()
+                .and_then(stored)
+                .map(|(shape, offset)| (node.id.0.as_str(), shape, offset));
+            value.into_iter().chain(reported)
+        }))
 }
 
 /// Opens the sidecar, checks its length, preamble and every reference, and maps it.
 fn open_sidecar(header: &Path, parsed: &HeaderFile) -> Result<Sidecar, LoadError> {
     let info = &parsed.sidecar;
-    let plain = Path::new(&info.file).file_name().is_some_and(|name| name == info.file.as_str()) && info.file != "..";
+    let plain = Path::new(&info.file)
+        .file_name()
+        .is_some_and(|name| name == info.file.as_str())
+        && info.file != "..";
     if !plain {
         return Err(sidecar_error(
             header,
@@ -258,7 +346,8 @@ fn open_sidecar(header: &Path, parsed: &HeaderFile) -> Result<Sidecar, LoadError
         ));
     }
     let path = header.parent().unwrap_or(Path::new("")).join(&info.file);
-    let opened = std::fs::File::open(&path).and_then(|file| file.metadata().map(|meta| (file, meta.len())));
+    let opened =
+        std::fs::File::open(&path).and_then(|file| file.metadata().map(|meta| (file, meta.len())));
     let (file, len) = opened.map_err(|error| {
         sidecar_error(
             header,
@@ -270,8 +359,13 @@ fn open_sidecar(header: &Path, parsed: &HeaderFile) -> Result<Sidecar, LoadError
     let name = info.file.clone();
     if len < info.bytes {
         // Name the first node whose data is cut off.
-        let cut = references(&parsed.trace).find(|(_, shape, offset)| checked_range(shape, *offset, info.element, len, &name).is_err());
-        let message = format!("sidecar {name} is truncated: {len} bytes, but the header declares {}", info.bytes);
+        let cut = references(&parsed.trace).find(|(_, shape, offset)| {
+            checked_range(shape, *offset, info.element, len, &name).is_err()
+        });
+        let message = format!(
+            "sidecar {name} is truncated: {len} bytes, but the header declares {}",
+            info.bytes
+        );
         return Err(sidecar_error(
             header,
             cut.map(|(node, _, _)| node),
@@ -283,7 +377,10 @@ fn open_sidecar(header: &Path, parsed: &HeaderFile) -> Result<Sidecar, LoadError
         return Err(sidecar_error(
             header,
             None,
-            format!("sidecar {name} is {len} bytes, but the header declares {}", info.bytes),
+            format!(
+                "sidecar {name} is {len} bytes, but the header declares {}",
+                info.bytes
+            ),
             REGENERATE,
         ));
     }
@@ -291,10 +388,20 @@ fn open_sidecar(header: &Path, parsed: &HeaderFile) -> Result<Sidecar, LoadError
     // another process truncating or rewriting it while open is the usual
     // caveat of memory maps, documented in traces/FORMAT.md.
     let map = unsafe { Mmap::map(&file) }.map_err(|error| {
-        sidecar_error(header, None, format!("cannot map its sidecar {}: {error}", path.display()), "check the file is readable")
+        sidecar_error(
+            header,
+            None,
+            format!("cannot map its sidecar {}: {error}", path.display()),
+            "check the file is readable",
+        )
     })?;
     if map.len() < PREAMBLE as usize || &map[..8] != MAGIC {
-        return Err(sidecar_error(header, None, format!("{name} is not an Ebb sidecar (it does not start with `ebb-side`)"), REGENERATE));
+        return Err(sidecar_error(
+            header,
+            None,
+            format!("{name} is not an Ebb sidecar (it does not start with `ebb-side`)"),
+            REGENERATE,
+        ));
     }
     let version = u32::from_le_bytes(map[8..12].try_into().expect("4 bytes"));
     let width = u32::from_le_bytes(map[12..16].try_into().expect("4 bytes"));
@@ -302,7 +409,9 @@ fn open_sidecar(header: &Path, parsed: &HeaderFile) -> Result<Sidecar, LoadError
         return Err(sidecar_error(
             header,
             None,
-            format!("{name} has sidecar layout version {version}; this build reads version {SIDECAR_VERSION}"),
+            format!(
+                "{name} has sidecar layout version {version}; this build reads version {SIDECAR_VERSION}"
+            ),
             "convert the trace with a matching release of ebb",
         ));
     }
@@ -310,14 +419,22 @@ fn open_sidecar(header: &Path, parsed: &HeaderFile) -> Result<Sidecar, LoadError
         return Err(sidecar_error(
             header,
             None,
-            format!("{name} stores {width}-byte elements but the header declares {}", info.element.name()),
+            format!(
+                "{name} stores {width}-byte elements but the header declares {}",
+                info.element.name()
+            ),
             REGENERATE,
         ));
     }
     for (node, shape, offset) in references(&parsed.trace) {
-        checked_range(shape, offset, info.element, len, &name).map_err(|message| sidecar_error(header, Some(node), message, REGENERATE))?;
+        checked_range(shape, offset, info.element, len, &name)
+            .map_err(|message| sidecar_error(header, Some(node), message, REGENERATE))?;
     }
-    Ok(Sidecar { map: Arc::new(map), element: info.element, name })
+    Ok(Sidecar {
+        map: Arc::new(map),
+        element: info.element,
+        name,
+    })
 }
 
 /// Opens a binary-backed trace: parses the header, checks and maps the
@@ -327,18 +444,29 @@ pub(crate) fn load(header: &Path, progress: &mut dyn Progress) -> Result<Trace, 
     progress.stage("checking", None);
     let sidecar = open_sidecar(header, &parsed)?;
     let resolve = |shape: &[usize], offset: u64| -> Result<Value, String> {
-        let (start, count) = checked_range(shape, offset, sidecar.element, sidecar.map.len() as u64, &sidecar.name)?;
-        let mapped = Mapped::new(Arc::clone(&sidecar.map), start, count, sidecar.element).ok_or("range outside the sidecar")?;
+        let (start, count) = checked_range(
+            shape,
+            offset,
+            sidecar.element,
+            sidecar.map.len() as u64,
+            &sidecar.name,
+        )?;
+        let mapped = Mapped::new(Arc::clone(&sidecar.map), start, count, sidecar.element)
+            .ok_or("range outside the sidecar")?;
         Ok(Value::from_mapped(shape.to_vec(), mapped))
     };
-    let trace = validate_with(parsed.trace, &resolve).map_err(|problems| placed(&text, header, problems));
+    let trace =
+        validate_with(parsed.trace, &resolve).map_err(|problems| placed(&text, header, problems));
     progress.finish();
     trace
 }
 
 /// Reads a binary-backed trace with every tensor's data copied inline, for
 /// conversion to another form. Not validated.
-pub(crate) fn read_inline(header: &Path, progress: &mut dyn Progress) -> Result<TraceFile, LoadError> {
+pub(crate) fn read_inline(
+    header: &Path,
+    progress: &mut dyn Progress,
+) -> Result<TraceFile, LoadError> {
     let (mut parsed, text) = read_header(header, progress)?;
     let sidecar = open_sidecar(header, &parsed)?;
     progress.stage("reading sidecar", Some(sidecar.map.len() as u64));
@@ -347,8 +475,12 @@ pub(crate) fn read_inline(header: &Path, progress: &mut dyn Progress) -> Result<
         if let ValueRepr::Stored { shape, offset } = value {
             let (start, count) = checked_range(shape, *offset, sidecar.element, len, &sidecar.name)
                 .map_err(|message| sidecar_error(header, Some(node), message, REGENERATE))?;
-            let mapped = Mapped::new(Arc::clone(&sidecar.map), start, count, sidecar.element).expect("range checked");
-            *value = ValueRepr::Tensor { shape: std::mem::take(shape), data: mapped.narrow_elements().collect() };
+            let mapped = Mapped::new(Arc::clone(&sidecar.map), start, count, sidecar.element)
+                .expect("range checked");
+            *value = ValueRepr::Tensor {
+                shape: std::mem::take(shape),
+                data: mapped.narrow_elements().collect(),
+            };
         }
         Ok(())
     };

@@ -8,8 +8,15 @@ use crate::ops::{Attrs, Op};
 use crate::tensor::Value;
 
 /// Attributes of nodes whose op reads none.
-pub(crate) static NO_ATTRS: Attrs =
-    Attrs { axis: None, keepdims: false, exponent: None, slope: None, targets: None, perm: None, shape: None };
+pub(crate) static NO_ATTRS: Attrs = Attrs {
+    axis: None,
+    keepdims: false,
+    exponent: None,
+    slope: None,
+    targets: None,
+    perm: None,
+    shape: None,
+};
 
 /// Hot per-node data, indexed like the trace's nodes.
 #[derive(Debug, Clone, Default)]
@@ -45,18 +52,25 @@ impl Compact {
                 Value::Scalar(x) => Some(x),
                 Value::Tensor(_) => None,
             };
-            let inputs_scalar = node.inputs.iter().all(|&input| matches!(nodes[input].value, Value::Scalar(_)));
+            let inputs_scalar = node
+                .inputs
+                .iter()
+                .all(|&input| matches!(nodes[input].value, Value::Scalar(_)));
             let fast = scalar.is_some()
                 && inputs_scalar
                 && node.inputs.len() <= 2
                 && (node.op.is_leaf() || node.op.is_elementwise())
                 && node.partials.iter().all(Option::is_none);
             compact.ops.push(node.op);
-            compact.inputs.extend(node.inputs.iter().map(|&input| input as u32));
+            compact
+                .inputs
+                .extend(node.inputs.iter().map(|&input| input as u32));
             compact.input_start.push(compact.inputs.len() as u32);
             compact.scalars.push(scalar.unwrap_or(f64::NAN));
             compact.fast.push(fast);
-            compact.reads_attrs.push(!node.op.spec().required.is_empty());
+            compact
+                .reads_attrs
+                .push(!node.op.spec().required.is_empty());
         }
         compact
     }

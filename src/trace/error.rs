@@ -23,12 +23,24 @@ pub struct Problem {
 impl Problem {
     /// A problem of the trace as a whole.
     pub fn general(message: impl Into<String>, hint: impl Into<String>) -> Problem {
-        Problem { node: None, occurrence: 0, position: None, message: message.into(), hint: hint.into() }
+        Problem {
+            node: None,
+            occurrence: 0,
+            position: None,
+            message: message.into(),
+            hint: hint.into(),
+        }
     }
 
     /// A problem of one node.
     pub fn at_node(node: &str, message: impl Into<String>, hint: impl Into<String>) -> Problem {
-        Problem { node: Some(node.to_string()), occurrence: 0, position: None, message: message.into(), hint: hint.into() }
+        Problem {
+            node: Some(node.to_string()),
+            occurrence: 0,
+            position: None,
+            message: message.into(),
+            hint: hint.into(),
+        }
     }
 }
 

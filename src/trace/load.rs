@@ -62,7 +62,10 @@ pub fn parse(text: &str, encoding: Encoding) -> Result<TraceFile, SyntaxError> {
 }
 
 /// Parses any serde type with the options and error positions of [`parse`].
-pub(crate) fn parse_as<T: DeserializeOwned>(text: &str, encoding: Encoding) -> Result<T, SyntaxError> {
+pub(crate) fn parse_as<T: DeserializeOwned>(
+    text: &str,
+    encoding: Encoding,
+) -> Result<T, SyntaxError> {
     match encoding {
         Encoding::Ron => ron_options().from_str(text).map_err(|error| SyntaxError {
             line: error.span.start.line,
@@ -72,8 +75,16 @@ pub(crate) fn parse_as<T: DeserializeOwned>(text: &str, encoding: Encoding) -> R
         Encoding::Json => serde_json::from_str(text).map_err(|error| {
             let message = error.to_string();
             // serde_json appends " at line L column C"; the position is reported separately.
-            let message = message.split(" at line ").next().unwrap_or(&message).to_string();
-            SyntaxError { line: error.line(), column: error.column(), message }
+            let message = message
+                .split(" at line ")
+                .next()
+                .unwrap_or(&message)
+                .to_string();
+            SyntaxError {
+                line: error.line(),
+                column: error.column(),
+                message,
+            }
         }),
     }
 }
@@ -91,9 +102,13 @@ pub(crate) fn text_of<T: Serialize>(file: &T, encoding: Encoding) -> String {
                 .extensions(ron::extensions::Extensions::IMPLICIT_SOME)
                 .compact_arrays(true)
                 .indentor("  ".to_string());
-            ron_options().to_string_pretty(file, pretty).expect("the schema types always serialise")
+            ron_options()
+                .to_string_pretty(file, pretty)
+                .expect("the schema types always serialise")
         }
-        Encoding::Json => serde_json::to_string_pretty(file).expect("the schema types always serialise"),
+        Encoding::Json => {
+            serde_json::to_string_pretty(file).expect("the schema types always serialise")
+        }
     }
 }
 
@@ -102,7 +117,12 @@ pub fn load_str(text: &str, encoding: Encoding, path: &Path) -> Result<Trace, Lo
     load_str_with(text, encoding, path, &mut Silent)
 }
 
-fn load_str_with(text: &str, encoding: Encoding, path: &Path, progress: &mut dyn Progress) -> Result<Trace, LoadError> {
+fn load_str_with(
+    text: &str,
+    encoding: Encoding,
+    path: &Path,
+    progress: &mut dyn Progress,
+) -> Result<Trace, LoadError> {
     progress.stage("parsing", None);
     let file = parse(text, encoding).map_err(|error| syntax_error(path, error))?;
     progress.stage("checking", None);
@@ -111,7 +131,12 @@ fn load_str_with(text: &str, encoding: Encoding, path: &Path, progress: &mut dyn
 
 /// A syntax error of the file at `path`.
 pub(crate) fn syntax_error(path: &Path, error: SyntaxError) -> LoadError {
-    LoadError::Syntax { path: path.to_path_buf(), line: error.line, column: error.column, message: error.message }
+    LoadError::Syntax {
+        path: path.to_path_buf(),
+        line: error.line,
+        column: error.column,
+        message: error.message,
+    }
 }
 
 /// Validation problems with the line and column of their nodes in `text`.
@@ -121,7 +146,10 @@ pub(crate) fn placed(text: &str, path: &Path, mut problems: Vec<Problem>) -> Loa
             problem.position = locate_node(text, node, problem.occurrence);
         }
     }
-    LoadError::Invalid { path: path.to_path_buf(), problems }
+    LoadError::Invalid {
+        path: path.to_path_buf(),
+        problems,
+    }
 }
 
 /// Reads, parses and validates a trace file. The encoding comes from the
@@ -136,7 +164,10 @@ pub fn load_with(path: &Path, progress: &mut dyn Progress) -> Result<Trace, Load
     if super::store::Format::from_path(path) == Some(super::store::Format::Tape) {
         return super::binary::load(path, progress);
     }
-    let text = progress::read_text(path, progress).map_err(|source| LoadError::Io { path: path.to_path_buf(), source })?;
+    let text = progress::read_text(path, progress).map_err(|source| LoadError::Io {
+        path: path.to_path_buf(),
+        source,
+    })?;
     let encoding = Encoding::from_path(path).unwrap_or_else(|| Encoding::sniff(&text));
     let trace = load_str_with(&text, encoding, path, progress);
     progress.finish();
@@ -155,15 +186,24 @@ pub(crate) fn locate_node(text: &str, id: &str, occurrence: usize) -> Option<(us
         let before = text[..at].trim_end();
         if let Some(rest) = before.strip_suffix(':') {
             let key = rest.trim_end();
-            let is_id_key =
-                key.ends_with("\"id\"") || key.ends_with("(id") || key.ends_with(" id") || key.ends_with("\tid") || key.ends_with("\nid");
+            let is_id_key = key.ends_with("\"id\"")
+                || key.ends_with("(id")
+                || key.ends_with(" id")
+                || key.ends_with("\tid")
+                || key.ends_with("\nid");
             if is_id_key && skip > 0 {
                 skip -= 1;
             } else if is_id_key {
                 let line = text[..at].matches('\n').count() + 1;
                 let line_start = text[..at].rfind('\n').map_or(0, |newline| newline + 1);
-                let key_start = key.rfind(|c: char| c == '"' || c == '(' || c.is_whitespace()).map_or(0, |p| p + 1);
-                let key_start = if key.ends_with("\"id\"") { key.len() - 4 } else { key_start };
+                let key_start = key
+                    .rfind(|c: char| c == '"' || c == '(' || c.is_whitespace())
+                    .map_or(0, |p| p + 1);
+                let key_start = if key.ends_with("\"id\"") {
+                    key.len() - 4
+                } else {
+                    key_start
+                };
                 let column = text[line_start..key_start.max(line_start)].chars().count() + 1;
                 return Some((line, column));
             }
@@ -190,9 +230,15 @@ mod tests {
 
     #[test]
     fn encodings_are_chosen_by_extension_then_content() {
-        assert_eq!(Encoding::from_path(Path::new("t.JSON")), Some(Encoding::Json));
+        assert_eq!(
+            Encoding::from_path(Path::new("t.JSON")),
+            Some(Encoding::Json)
+        );
         assert_eq!(Encoding::from_path(Path::new("t.trace")), None);
         assert_eq!(Encoding::sniff("  {\"format\": 1}"), Encoding::Json);
-        assert_eq!(Encoding::sniff("#![enable(implicit_some)]\n("), Encoding::Ron);
+        assert_eq!(
+            Encoding::sniff("#![enable(implicit_some)]\n("),
+            Encoding::Ron
+        );
     }
 }

@@ -175,6 +175,10 @@ impl Trace {
     /// The distinct groups in order of first appearance (the empty group included).
     pub fn groups(&self) -> Vec<&str> {
         let mut seen = std::collections::HashSet::new();
-        self.nodes.iter().map(|node| node.group.as_str()).filter(|group| seen.insert(*group)).collect()
+        self.nodes
+            .iter()
+            .map(|node| node.group.as_str())
+            .filter(|group| seen.insert(*group))
+            .collect()
     }
 }

@@ -26,7 +26,10 @@ pub struct Silent;
 impl Progress for Silent {}
 
 /// Reads a whole file as text in chunks, reporting bytes read.
-pub(crate) fn read_text(path: &std::path::Path, progress: &mut dyn Progress) -> std::io::Result<String> {
+pub(crate) fn read_text(
+    path: &std::path::Path,
+    progress: &mut dyn Progress,
+) -> std::io::Result<String> {
     use std::io::Read;
     let mut file = std::fs::File::open(path)?;
     let total = file.metadata()?.len();
@@ -41,5 +44,6 @@ pub(crate) fn read_text(path: &std::path::Path, progress: &mut dyn Progress) -> 
         bytes.extend_from_slice(&chunk[..read]);
         progress.advance(bytes.len() as u64);
     }
-    String::from_utf8(bytes).map_err(|error| std::io::Error::new(std::io::ErrorKind::InvalidData, error))
+    String::from_utf8(bytes)
+        .map_err(|error| std::io::Error::new(std::io::ErrorKind::InvalidData, error))
 }

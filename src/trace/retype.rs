@@ -25,7 +25,9 @@ impl Trace {
                 match partial {
                     Partial::Scalar(s) => *s = dtype.round_with(*s, subnormals),
                     Partial::Diagonal(diagonal) => *diagonal = round(diagonal),
-                    Partial::Jacobian { data, .. } => data.iter_mut().for_each(|x| *x = dtype.round_with(*x, subnormals)),
+                    Partial::Jacobian { data, .. } => data
+                        .iter_mut()
+                        .for_each(|x| *x = dtype.round_with(*x, subnormals)),
                 }
             }
         }
@@ -44,7 +46,11 @@ impl Trace {
         assert_eq!(values.len(), self.nodes.len(), "one value per node");
         let mut replaced = self.clone();
         for (node, value) in replaced.nodes.iter_mut().zip(values) {
-            assert_eq!(node.value.shape(), value.shape(), "a replacement keeps the node's shape");
+            assert_eq!(
+                node.value.shape(),
+                value.shape(),
+                "a replacement keeps the node's shape"
+            );
             node.value = value;
         }
         replaced.compact = super::compact::Compact::new(&replaced.nodes);
@@ -99,11 +105,19 @@ mod tests {
         };
         let (a, b) = sweep(&retyped);
         assert_eq!((a.clone(), b), sweep(&native));
-        assert_ne!(a, Some(crate::tensor::Value::Scalar(0.9)), "the adjoint of a is 3·f32(0.3), not the f64 product");
+        assert_ne!(
+            a,
+            Some(crate::tensor::Value::Scalar(0.9)),
+            "the adjoint of a is 3·f32(0.3), not the f64 product"
+        );
         // The fast path reads the compact copy: it must hold the rounded values.
         for (node, recorded) in retyped.nodes().iter().enumerate() {
             if let crate::tensor::Value::Scalar(x) = recorded.value {
-                assert_eq!(retyped.compact().scalars[node].to_bits(), x.to_bits(), "node {node}");
+                assert_eq!(
+                    retyped.compact().scalars[node].to_bits(),
+                    x.to_bits(),
+                    "node {node}"
+                );
             }
         }
     }

@@ -286,7 +286,10 @@ impl<'de> Deserialize<'de> for ValueRepr {
             }
             fn visit_seq<A: SeqAccess<'de>>(self, seq: A) -> Result<ValueRepr, A::Error> {
                 let data = read_numbers(seq)?;
-                Ok(ValueRepr::Tensor { shape: vec![data.len()], data })
+                Ok(ValueRepr::Tensor {
+                    shape: vec![data.len()],
+                    data,
+                })
             }
             fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> Result<ValueRepr, A::Error> {
                 let (mut shape, mut data, mut offset) = (None, None, None);
@@ -295,7 +298,12 @@ impl<'de> Deserialize<'de> for ValueRepr {
                         "shape" => shape = Some(map.next_value::<Vec<usize>>()?),
                         "data" => data = Some(map.next_value::<Numbers>()?.0),
                         "offset" => offset = Some(map.next_value::<u64>()?),
-                        other => return Err(de::Error::unknown_field(other, &["shape", "data", "offset"])),
+                        other => {
+                            return Err(de::Error::unknown_field(
+                                other,
+                                &["shape", "data", "offset"],
+                            ));
+                        }
                     }
                 }
                 let shape = shape.ok_or_else(|| de::Error::missing_field("shape"))?;
@@ -303,7 +311,9 @@ impl<'de> Deserialize<'de> for ValueRepr {
                     (Some(data), None) => Ok(ValueRepr::Tensor { shape, data }),
                     (None, Some(offset)) => Ok(ValueRepr::Stored { shape, offset }),
                     (None, None) => Err(de::Error::missing_field("data")),
-                    (Some(_), Some(_)) => Err(de::Error::custom("a tensor has either `data` or a sidecar `offset`, not both")),
+                    (Some(_), Some(_)) => Err(de::Error::custom(
+                        "a tensor has either `data` or a sidecar `offset`, not both",
+                    )),
                 }
             }
         }
@@ -344,7 +354,8 @@ impl Serialize for PartialRepr {
     }
 }
 
-const PARTIAL_EXPECTED: &str = "a number, {\"diag\": [..]}, {\"jacobian\": [[..], ..]}, or null / () for a derived partial";
+const PARTIAL_EXPECTED: &str =
+    "a number, {\"diag\": [..]}, {\"jacobian\": [[..], ..]}, or null / () for a derived partial";
 
 impl<'de> Deserialize<'de> for PartialRepr {
     fn deserialize<D: Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
@@ -360,7 +371,10 @@ impl<'de> Deserialize<'de> for PartialRepr {
             fn visit_none<E: de::Error>(self) -> Result<PartialRepr, E> {
                 Ok(PartialRepr::Absent)
             }
-            fn visit_some<D2: Deserializer<'de>>(self, inner: D2) -> Result<PartialRepr, D2::Error> {
+            fn visit_some<D2: Deserializer<'de>>(
+                self,
+                inner: D2,
+            ) -> Result<PartialRepr, D2::Error> {
                 PartialRepr::deserialize(inner)
             }
             fn visit_f64<E: de::Error>(self, v: f64) -> Result<PartialRepr, E> {
@@ -376,7 +390,9 @@ impl<'de> Deserialize<'de> for PartialRepr {
                 NumVisitor.visit_str(v).map(PartialRepr::Scalar)
             }
             fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> Result<PartialRepr, A::Error> {
-                let key = map.next_key::<String>()?.ok_or_else(|| de::Error::custom("empty partial; expected diag or jacobian"))?;
+                let key = map
+                    .next_key::<String>()?
+                    .ok_or_else(|| de::Error::custom("empty partial; expected diag or jacobian"))?;
                 let partial = match key.as_str() {
                     "scalar" => PartialRepr::Scalar(map.next_value::<Num>()?.0),
                     "diag" => PartialRepr::Diagonal(map.next_value::<Numbers>()?.0),
@@ -384,10 +400,17 @@ impl<'de> Deserialize<'de> for PartialRepr {
                         let rows: Vec<Numbers> = map.next_value()?;
                         PartialRepr::Jacobian(rows.into_iter().map(|row| row.0).collect())
                     }
-                    other => return Err(de::Error::unknown_field(other, &["scalar", "diag", "jacobian"])),
+                    other => {
+                        return Err(de::Error::unknown_field(
+                            other,
+                            &["scalar", "diag", "jacobian"],
+                        ));
+                    }
                 };
                 if let Some(extra) = map.next_key::<String>()? {
-                    return Err(de::Error::custom(format!("a partial has one key, found also `{extra}`")));
+                    return Err(de::Error::custom(format!(
+                        "a partial has one key, found also `{extra}`"
+                    )));
                 }
                 Ok(partial)
             }

@@ -50,15 +50,28 @@ pub fn save(file: &TraceFile, path: &Path) -> Result<(), SaveError> {
 }
 
 /// [`save`], reporting progress.
-pub fn save_with(file: &TraceFile, path: &Path, progress: &mut dyn Progress) -> Result<(), SaveError> {
+pub fn save_with(
+    file: &TraceFile,
+    path: &Path,
+    progress: &mut dyn Progress,
+) -> Result<(), SaveError> {
     let result = match Format::from_path(path) {
-        None => Err(SaveError::UnknownExtension { path: path.to_path_buf() }),
+        None => Err(SaveError::UnknownExtension {
+            path: path.to_path_buf(),
+        }),
         Some(Format::Tape) => binary::write(file, path, progress),
         Some(text @ (Format::Ron | Format::Json)) => {
             if let Some(node) = binary::first_stored(file) {
-                return Err(SaveError::NotInline { path: path.to_path_buf(), node });
+                return Err(SaveError::NotInline {
+                    path: path.to_path_buf(),
+                    node,
+                });
             }
-            let encoding = if text == Format::Ron { Encoding::Ron } else { Encoding::Json };
+            let encoding = if text == Format::Ron {
+                Encoding::Ron
+            } else {
+                Encoding::Json
+            };
             progress.stage("writing", None);
             let text = to_text(file, encoding);
             write_atomically(path, |out| out.write_all(text.as_bytes()))
@@ -74,7 +87,10 @@ pub fn read_file(path: &Path, progress: &mut dyn Progress) -> Result<TraceFile, 
     if Format::from_path(path) == Some(Format::Tape) {
         return binary::read_inline(path, progress);
     }
-    let text = progress::read_text(path, progress).map_err(|source| LoadError::Io { path: path.to_path_buf(), source })?;
+    let text = progress::read_text(path, progress).map_err(|source| LoadError::Io {
+        path: path.to_path_buf(),
+        source,
+    })?;
     let encoding = Encoding::from_path(path).unwrap_or_else(|| Encoding::sniff(&text));
     progress.stage("parsing", None);
     parse(&text, encoding).map_err(|error| syntax_error(path, error))
@@ -83,7 +99,10 @@ pub fn read_file(path: &Path, progress: &mut dyn Progress) -> Result<TraceFile, 
 /// Writes through `write` into a temporary file beside `path`, then renames
 /// it over `path`. On any error the temporary file is removed and `path` is
 /// untouched.
-pub(crate) fn write_atomically(path: &Path, write: impl FnOnce(&mut dyn Write) -> std::io::Result<()>) -> Result<(), SaveError> {
+pub(crate) fn write_atomically(
+    path: &Path,
+    write: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
+) -> Result<(), SaveError> {
     let staged = stage(path, write)?;
     commit(staged, path)
 }
@@ -99,8 +118,14 @@ impl Staged {
 }
 
 /// Writes a temporary file in `path`'s directory.
-pub(crate) fn stage(path: &Path, write: impl FnOnce(&mut dyn Write) -> std::io::Result<()>) -> Result<Staged, SaveError> {
-    let io = |source| SaveError::Io { path: path.to_path_buf(), source };
+pub(crate) fn stage(
+    path: &Path,
+    write: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
+) -> Result<Staged, SaveError> {
+    let io = |source| SaveError::Io {
+        path: path.to_path_buf(),
+        source,
+    };
     let dir = match path.parent() {
         Some(dir) if !dir.as_os_str().is_empty() => dir,
         _ => Path::new("."),
@@ -122,6 +147,9 @@ pub(crate) fn stage(path: &Path, write: impl FnOnce(&mut dyn Write) -> std::io::
 
 /// Renames a staged file over `path`.
 pub(crate) fn commit(staged: Staged, path: &Path) -> Result<(), SaveError> {
-    staged.0.persist(path).map_err(|error| SaveError::Io { path: path.to_path_buf(), source: error.error })?;
+    staged.0.persist(path).map_err(|error| SaveError::Io {
+        path: path.to_path_buf(),
+        source: error.error,
+    })?;
     Ok(())
 }

@@ -38,7 +38,10 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
     let mut problems = Vec::new();
     if file.format != FORMAT_VERSION {
         problems.push(Problem::general(
-            format!("unsupported format version {} (this build reads version {FORMAT_VERSION})", file.format),
+            format!(
+                "unsupported format version {} (this build reads version {FORMAT_VERSION})",
+                file.format
+            ),
             "re-record the trace, or convert it with a matching release of ebb",
         ));
     }
@@ -48,8 +51,16 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
     let mut edges = Vec::new();
     let mut forward_edges = false;
     for (position, raw) in file.nodes.into_iter().enumerate() {
-        let inputs = resolve_inputs(&raw, position, &index, &mut problems, &mut edges, &mut forward_edges);
-        let checked = inputs.and_then(|inputs| check_node(raw, inputs, &nodes, &mut problems, resolve));
+        let inputs = resolve_inputs(
+            &raw,
+            position,
+            &index,
+            &mut problems,
+            &mut edges,
+            &mut forward_edges,
+        );
+        let checked =
+            inputs.and_then(|inputs| check_node(raw, inputs, &nodes, &mut problems, resolve));
         nodes.push(checked);
     }
     let output = resolve_output(&file.output.0, &index, &mut problems);
@@ -59,7 +70,10 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
     if !problems.is_empty() {
         return Err(problems);
     }
-    let nodes: Vec<Node> = nodes.into_iter().map(|node| node.expect("a node without problems is checked")).collect();
+    let nodes: Vec<Node> = nodes
+        .into_iter()
+        .map(|node| node.expect("a node without problems is checked"))
+        .collect();
     let output = output.expect("output resolved");
     let seed = match file.seed {
         None => Value::filled(nodes[output].value.shape(), 1.0),
@@ -76,10 +90,23 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
                     "give a seed of the output's shape, or omit it for ones",
                 )]);
             }
-            Err(message) => return Err(vec![Problem::general(format!("seed: {message}"), "fix the seed's shape or data")]),
+            Err(message) => {
+                return Err(vec![Problem::general(
+                    format!("seed: {message}"),
+                    "fix the seed's shape or data",
+                )]);
+            }
         },
     };
-    Ok(build(file.title, file.description, file.dtype, nodes, output, seed, index))
+    Ok(build(
+        file.title,
+        file.description,
+        file.dtype,
+        nodes,
+        output,
+        seed,
+        index,
+    ))
 }
 
 fn index_ids(nodes: &[NodeFile], problems: &mut Vec<Problem>) -> HashMap<String, usize> {
@@ -92,7 +119,10 @@ fn index_ids(nodes: &[NodeFile], problems: &mut Vec<Problem>) -> HashMap<String,
                 format!("duplicate id (node #{position} repeats the id of node #{first})"),
                 "give every node a unique id",
             );
-            problem.occurrence = nodes[..position].iter().filter(|earlier| earlier.id == node.id).count();
+            problem.occurrence = nodes[..position]
+                .iter()
+                .filter(|earlier| earlier.id == node.id)
+                .count();
             problems.push(problem);
         }
     }
@@ -125,7 +155,11 @@ fn resolve_inputs(
             }
             Some(&source) if source >= position => {
                 *forward_edges = true;
-                let what = if source == position { "itself".to_string() } else { format!("'{input}', recorded later (node #{source})") };
+                let what = if source == position {
+                    "itself".to_string()
+                } else {
+                    format!("'{input}', recorded later (node #{source})")
+                };
                 problems.push(Problem::at_node(
                     &node.id.0,
                     format!("input refers forward to {what}"),
@@ -139,14 +173,24 @@ fn resolve_inputs(
     ok.then_some(inputs)
 }
 
-fn resolve_output(id: &str, index: &HashMap<String, usize>, problems: &mut Vec<Problem>) -> Option<usize> {
+fn resolve_output(
+    id: &str,
+    index: &HashMap<String, usize>,
+    problems: &mut Vec<Problem>,
+) -> Option<usize> {
     if id.is_empty() {
-        problems.push(Problem::general("the header names no output node", "set `output` to the id of the loss node"));
+        problems.push(Problem::general(
+            "the header names no output node",
+            "set `output` to the id of the loss node",
+        ));
         return None;
     }
     let found = index.get(id).copied();
     if found.is_none() {
-        problems.push(Problem::general(format!("output node '{id}' is not in the trace"), "set `output` to the id of the loss node"));
+        problems.push(Problem::general(
+            format!("output node '{id}' is not in the trace"),
+            "set `output` to the id of the loss node",
+        ));
     }
     found
 }
@@ -160,7 +204,11 @@ fn checked_value(raw: ValueRepr, resolve: Resolver) -> Result<Value, String> {
             let expected = shape.iter().try_fold(1usize, |acc, &d| acc.checked_mul(d));
             match expected {
                 Some(expected) if expected == data.len() => Ok(Value::from_parts(shape, data)),
-                Some(expected) => Err(format!("data has {} elements but shape {} needs {expected}", data.len(), show(&shape))),
+                Some(expected) => Err(format!(
+                    "data has {} elements but shape {} needs {expected}",
+                    data.len(),
+                    show(&shape)
+                )),
                 None => Err(format!("shape {} is too large", show(&shape))),
             }
         }
@@ -182,8 +230,16 @@ fn check_node(
     let op = Op::from_name(&raw.op).unwrap_or(Op::Custom);
     let spec = op.spec();
     if !spec.arity.accepts(inputs.len()) && raw.inputs.len() == inputs.len() {
-        let hint = if op == Op::Custom { "use input, param or const for a leaf" } else { "give the op its inputs in argument order" };
-        problems.push(Problem::at_node(&id, format!("{} takes {}, got {}", raw.op, spec.arity, inputs.len()), hint));
+        let hint = if op == Op::Custom {
+            "use input, param or const for a leaf"
+        } else {
+            "give the op its inputs in argument order"
+        };
+        problems.push(Problem::at_node(
+            &id,
+            format!("{} takes {}, got {}", raw.op, spec.arity, inputs.len()),
+            hint,
+        ));
     }
     if op == Op::Custom {
         check_custom_partials(&id, &raw, problems);
@@ -200,26 +256,45 @@ fn check_node(
     if raw.partials.len() > raw.inputs.len() {
         problems.push(Problem::at_node(
             &id,
-            format!("{} partials recorded for {} input edges", raw.partials.len(), raw.inputs.len()),
+            format!(
+                "{} partials recorded for {} input edges",
+                raw.partials.len(),
+                raw.inputs.len()
+            ),
             "record at most one partial per input, in input order",
         ));
     }
-    let value = match checked_value(std::mem::replace(&mut raw.value, ValueRepr::Scalar(0.0)), resolve) {
+    let value = match checked_value(
+        std::mem::replace(&mut raw.value, ValueRepr::Scalar(0.0)),
+        resolve,
+    ) {
         Ok(value) => Some(value),
         Err(message) => {
-            problems.push(Problem::at_node(&id, format!("value: {message}"), "the data length must equal the product of the shape"));
+            problems.push(Problem::at_node(
+                &id,
+                format!("value: {message}"),
+                "the data length must equal the product of the shape",
+            ));
             None
         }
     };
-    let reported = raw.reported.take().map(|reported| checked_value(reported, resolve)).transpose().unwrap_or_else(|message| {
-        problems.push(Problem::at_node(
-            &id,
-            format!("reported gradient: {message}"),
-            "the data length must equal the product of the shape",
-        ));
-        None
-    });
-    let input_values: Option<Vec<&Value>> = inputs.iter().map(|&input| earlier[input].as_ref().map(|node| &node.value)).collect();
+    let reported = raw
+        .reported
+        .take()
+        .map(|reported| checked_value(reported, resolve))
+        .transpose()
+        .unwrap_or_else(|message| {
+            problems.push(Problem::at_node(
+                &id,
+                format!("reported gradient: {message}"),
+                "the data length must equal the product of the shape",
+            ));
+            None
+        });
+    let input_values: Option<Vec<&Value>> = inputs
+        .iter()
+        .map(|&input| earlier[input].as_ref().map(|node| &node.value))
+        .collect();
     let (Some(value), Some(input_values)) = (value, input_values) else {
         // Shapes cannot be checked against inputs that are themselves broken.
         return None;
@@ -229,10 +304,19 @@ fn check_node(
     }
     let input_shapes: Vec<&[usize]> = input_values.iter().map(|value| value.shape()).collect();
     match ops::infer_shape(op, &input_shapes, &raw.attrs) {
-        Err(message) => problems.push(Problem::at_node(&id, message, "check the shapes of the inputs against the op")),
+        Err(message) => problems.push(Problem::at_node(
+            &id,
+            message,
+            "check the shapes of the inputs against the op",
+        )),
         Ok(Some(expected)) if expected != value.shape() => problems.push(Problem::at_node(
             &id,
-            format!("recorded value has shape {} but {} of these inputs gives {}", show(value.shape()), raw.op, show(&expected)),
+            format!(
+                "recorded value has shape {} but {} of these inputs gives {}",
+                show(value.shape()),
+                raw.op,
+                show(&expected)
+            ),
             "record the value the op produced",
         )),
         Ok(_) => {}
@@ -242,7 +326,11 @@ fn check_node(
     {
         problems.push(Problem::at_node(
             &id,
-            format!("reported gradient has shape {} but the value has shape {}", show(reported.shape()), show(value.shape())),
+            format!(
+                "reported gradient has shape {} but the value has shape {}",
+                show(reported.shape()),
+                show(value.shape())
+            ),
             "a gradient has the shape of its node's value",
         ));
     }
@@ -253,7 +341,10 @@ fn check_node(
             Ok(partial) => partials.push(partial),
             Err(message) => problems.push(Problem::at_node(
                 &id,
-                format!("partial on edge {slot} (from '{}'): {message}", raw.inputs[slot]),
+                format!(
+                    "partial on edge {slot} (from '{}'): {message}",
+                    raw.inputs[slot]
+                ),
                 "see traces/FORMAT.md, partials",
             )),
         }
@@ -262,16 +353,30 @@ fn check_node(
         return None;
     }
     let op_name = raw.op;
-    Some(Node { id, op, op_name, inputs, group: raw.group, site: raw.site, value, attrs: raw.attrs, partials, reported })
+    Some(Node {
+        id,
+        op,
+        op_name,
+        inputs,
+        group: raw.group,
+        site: raw.site,
+        value,
+        attrs: raw.attrs,
+        partials,
+        reported,
+    })
 }
 
 fn check_custom_partials(id: &str, raw: &NodeFile, problems: &mut Vec<Problem>) {
-    let missing: Vec<usize> =
-        (0..raw.inputs.len()).filter(|&slot| matches!(raw.partials.get(slot), None | Some(PartialRepr::Absent))).collect();
+    let missing: Vec<usize> = (0..raw.inputs.len())
+        .filter(|&slot| matches!(raw.partials.get(slot), None | Some(PartialRepr::Absent)))
+        .collect();
     if missing.is_empty() {
         return;
     }
-    let suggestion = Op::closest_name(&raw.op).map(|name| format!("did you mean the catalog op '{name}'? ")).unwrap_or_default();
+    let suggestion = Op::closest_name(&raw.op)
+        .map(|name| format!("did you mean the catalog op '{name}'? "))
+        .unwrap_or_default();
     let edges: Vec<String> = missing.iter().map(|slot| slot.to_string()).collect();
     problems.push(Problem::at_node(
         id,
@@ -281,15 +386,24 @@ fn check_custom_partials(id: &str, raw: &NodeFile, problems: &mut Vec<Problem>) 
 }
 
 /// Checks a recorded partial against its edge: the node's output shape and the input's shape.
-fn check_partial(raw: &PartialRepr, output: &[usize], input: &[usize]) -> Result<Option<Partial>, String> {
+fn check_partial(
+    raw: &PartialRepr,
+    output: &[usize],
+    input: &[usize],
+) -> Result<Option<Partial>, String> {
     let broadcasts = || broadcast_shapes(input, output).is_some_and(|shape| shape == output);
     match raw {
         PartialRepr::Absent => Ok(None),
         PartialRepr::Scalar(x) if broadcasts() => Ok(Some(Partial::Scalar(*x))),
-        PartialRepr::Diagonal(data) if data.len() != numel(output) => {
-            Err(format!("a diagonal partial needs {} entries (the output's {}), got {}", numel(output), show(output), data.len()))
-        }
-        PartialRepr::Diagonal(data) if broadcasts() => Ok(Some(Partial::Diagonal(Value::from_parts(output.to_vec(), data.clone())))),
+        PartialRepr::Diagonal(data) if data.len() != numel(output) => Err(format!(
+            "a diagonal partial needs {} entries (the output's {}), got {}",
+            numel(output),
+            show(output),
+            data.len()
+        )),
+        PartialRepr::Diagonal(data) if broadcasts() => Ok(Some(Partial::Diagonal(
+            Value::from_parts(output.to_vec(), data.clone()),
+        ))),
         PartialRepr::Scalar(_) | PartialRepr::Diagonal(_) => Err(format!(
             "an elementwise partial needs an input that broadcasts to the output {}, but the input is {}; record a jacobian",
             show(output),
@@ -298,19 +412,35 @@ fn check_partial(raw: &PartialRepr, output: &[usize], input: &[usize]) -> Result
         PartialRepr::Jacobian(rows) => {
             let cols = numel(input);
             if rows.len() != numel(output) {
-                return Err(format!("a jacobian needs {} rows (output elements), got {}", numel(output), rows.len()));
+                return Err(format!(
+                    "a jacobian needs {} rows (output elements), got {}",
+                    numel(output),
+                    rows.len()
+                ));
             }
             if let Some((row, bad)) = rows.iter().enumerate().find(|(_, row)| row.len() != cols) {
-                return Err(format!("jacobian row {row} has {} entries but the input has {cols} elements", bad.len()));
+                return Err(format!(
+                    "jacobian row {row} has {} entries but the input has {cols} elements",
+                    bad.len()
+                ));
             }
-            Ok(Some(Partial::Jacobian { rows: rows.len(), cols, data: rows.concat() }))
+            Ok(Some(Partial::Jacobian {
+                rows: rows.len(),
+                cols,
+                data: rows.concat(),
+            }))
         }
     }
 }
 
 /// Names each cycle among the edges, found as strongly connected components
 /// with petgraph (Kosaraju's algorithm, iterative).
-fn report_cycles(nodes: &[Option<Node>], index: &HashMap<String, usize>, edges: &[(usize, usize)], problems: &mut Vec<Problem>) {
+fn report_cycles(
+    nodes: &[Option<Node>],
+    index: &HashMap<String, usize>,
+    edges: &[(usize, usize)],
+    problems: &mut Vec<Problem>,
+) {
     let mut graph = DiGraph::<(), ()>::with_capacity(nodes.len(), edges.len());
     for _ in nodes {
         graph.add_node(());
@@ -329,7 +459,11 @@ fn report_cycles(nodes: &[Option<Node>], index: &HashMap<String, usize>, edges: 
         }
         let mut members: Vec<usize> = component.iter().map(|node| node.index()).collect();
         members.sort_unstable();
-        let mut names: Vec<String> = members.iter().take(6).map(|&node| format!("'{}'", ids[node])).collect();
+        let mut names: Vec<String> = members
+            .iter()
+            .take(6)
+            .map(|&node| format!("'{}'", ids[node]))
+            .collect();
         if members.len() > 6 {
             names.push(format!("and {} more", members.len() - 6));
         }
@@ -369,11 +503,27 @@ fn build(
     }
     // Inputs always precede their consumers, so reversed recording order is a
     // reverse topological order: a node comes after every consumer.
-    let order: Vec<usize> = (0..nodes.len()).rev().filter(|&node| reaches[node]).collect();
+    let order: Vec<usize> = (0..nodes.len())
+        .rev()
+        .filter(|&node| reaches[node])
+        .collect();
     let mut rank = vec![UNREACHED; nodes.len()];
     for (position, &node) in order.iter().enumerate() {
         rank[node] = position as u32;
     }
     let compact = super::compact::Compact::new(&nodes);
-    Trace { title, description, dtype, subnormals: crate::dtype::Subnormals::Keep, nodes, output, seed, index, graph, order, rank, compact }
+    Trace {
+        title,
+        description,
+        dtype,
+        subnormals: crate::dtype::Subnormals::Keep,
+        nodes,
+        output,
+        seed,
+        index,
+        graph,
+        order,
+        rank,
+        compact,
+    }
 }

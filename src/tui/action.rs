@@ -24,8 +24,16 @@ pub enum PaneId {
 
 impl PaneId {
     /// Every pane in focus order.
-    pub const ALL: [PaneId; 8] =
-        [PaneId::Order, PaneId::Node, PaneId::Inflow, PaneId::Edges, PaneId::Trend, PaneId::Flags, PaneId::Verify, PaneId::Paths];
+    pub const ALL: [PaneId; 8] = [
+        PaneId::Order,
+        PaneId::Node,
+        PaneId::Inflow,
+        PaneId::Edges,
+        PaneId::Trend,
+        PaneId::Flags,
+        PaneId::Verify,
+        PaneId::Paths,
+    ];
 
     /// The pane's name as shown in its title, the help and README.
     pub fn name(self) -> &'static str {
@@ -43,9 +51,16 @@ impl PaneId {
 
     /// The next pane in focus order (wrapping), or the previous one.
     pub fn cycle(self, forward: bool) -> PaneId {
-        let at = PaneId::ALL.iter().position(|&pane| pane == self).expect("every pane is listed");
+        let at = PaneId::ALL
+            .iter()
+            .position(|&pane| pane == self)
+            .expect("every pane is listed");
         let len = PaneId::ALL.len();
-        PaneId::ALL[if forward { (at + 1) % len } else { (at + len - 1) % len }]
+        PaneId::ALL[if forward {
+            (at + 1) % len
+        } else {
+            (at + len - 1) % len
+        }]
     }
 }
 
@@ -171,8 +186,12 @@ impl Action {
             Action::Click(..) => "select a row",
             Action::Scroll(..) => "scroll",
             Action::Verify => "verify: run every check and list the suspects",
-            Action::ToggleForward => "switch between the reverse sweep and forward mode (tangent sweep)",
-            Action::CycleDirection => "forward mode: direction along the selected leaf / seeded random",
+            Action::ToggleForward => {
+                "switch between the reverse sweep and forward mode (tangent sweep)"
+            }
+            Action::CycleDirection => {
+                "forward mode: direction along the selected leaf / seeded random"
+            }
             Action::Diagnose => "diagnose the sweep (on open for small traces)",
             Action::CyclePrecision => "sweep in the next dtype (recorded, f16, bf16, f32, f64)",
             Action::JumpToOrigin => "jump to the origin of a non-finite adjoint",

@@ -134,7 +134,11 @@ impl<'t> App<'t> {
     pub fn new(trace: &'t Trace, label: &str, themes: Vec<Theme>) -> App<'t> {
         let sweep = Sweep::new(trace, LedgerMode::On);
         let tally = Tally::new(&sweep);
-        let themes = if themes.is_empty() { vec![Theme::default_theme()] } else { themes };
+        let themes = if themes.is_empty() {
+            vec![Theme::default_theme()]
+        } else {
+            themes
+        };
         let mut app = App {
             trace,
             label: label.to_string(),
@@ -178,7 +182,10 @@ impl<'t> App<'t> {
         if trace.nodes().len() <= AUTO_NODES {
             app.work = Some(Work::Diagnose);
         } else {
-            app.message = Some(format!("{} nodes: D runs the diagnosis (it sweeps the trace several times)", trace.nodes().len()));
+            app.message = Some(format!(
+                "{} nodes: D runs the diagnosis (it sweeps the trace several times)",
+                trace.nodes().len()
+            ));
         }
         app.refresh();
         app
@@ -187,7 +194,10 @@ impl<'t> App<'t> {
     /// Lets the precision toggle sweep re-typed copies of the trace; `copies`
     /// must be made from this app's trace.
     pub fn with_copies(mut self, copies: &'t Retyped<'t>) -> App<'t> {
-        debug_assert!(std::ptr::eq(copies.recorded(), self.recorded), "copies of another trace");
+        debug_assert!(
+            std::ptr::eq(copies.recorded(), self.recorded),
+            "copies of another trace"
+        );
         self.copies = Some(copies);
         self
     }
@@ -233,13 +243,19 @@ impl<'t> App<'t> {
         if self.diagnoses.get(recorded.dtype()).is_some() {
             self.diagnoses.run(self.trace, false);
         }
-        let note = if left_forward { "; forward mode ended (m starts it again)" } else { "" };
+        let note = if left_forward {
+            "; forward mode ended (m starts it again)"
+        } else {
+            ""
+        };
         self.message = Some(precision_message(self) + note);
     }
 
     fn cycle_precision(&mut self) {
         if self.copies.is_none() {
-            self.message = Some("the precision toggle needs the trace's copies (App::with_copies)".to_string());
+            self.message = Some(
+                "the precision toggle needs the trace's copies (App::with_copies)".to_string(),
+            );
             return;
         }
         let dtype = next_dtype(self.recorded.dtype(), self.trace.dtype());
@@ -252,7 +268,11 @@ impl<'t> App<'t> {
             Some(diagnosed) => self.message = Some(diagnosis_message(self.trace, diagnosed)),
             None => {
                 self.work = Some(Work::Diagnose);
-                self.message = Some(format!("diagnosing {} nodes in {} …", self.trace.nodes().len(), self.trace.dtype()));
+                self.message = Some(format!(
+                    "diagnosing {} nodes in {} …",
+                    self.trace.nodes().len(),
+                    self.trace.dtype()
+                ));
             }
         }
     }
@@ -263,15 +283,26 @@ impl<'t> App<'t> {
             self.message = Some("no diagnosis yet: D runs it".to_string());
             return;
         };
-        let origin = diagnosed.origin_for(self.selected).or(diagnosed.diagnosis.first_origin());
+        let origin = diagnosed
+            .origin_for(self.selected)
+            .or(diagnosed.diagnosis.first_origin());
         match origin {
             Some(origin) => {
                 let (node, letter) = (origin.node, origin.class.letter());
-                let text = format!("origin ({letter}) at '{}': {}", self.trace.node(node).id, origin.explanation);
+                let text = format!(
+                    "origin ({letter}) at '{}': {}",
+                    self.trace.node(node).id,
+                    origin.explanation
+                );
                 self.jump(node);
                 self.message = Some(text);
             }
-            None => self.message = Some(format!("every adjoint is finite in {}: no origin to trace back", self.trace.dtype())),
+            None => {
+                self.message = Some(format!(
+                    "every adjoint is finite in {}: no origin to trace back",
+                    self.trace.dtype()
+                ))
+            }
         }
     }
 
@@ -281,9 +312,15 @@ impl<'t> App<'t> {
             self.message = Some("no diagnosis yet: D runs it".to_string());
             return;
         };
-        let params: Vec<usize> = diagnosed.diagnosis.paths.iter().map(|path| path.param).collect();
+        let params: Vec<usize> = diagnosed
+            .diagnosis
+            .paths
+            .iter()
+            .map(|path| path.param)
+            .collect();
         if params.is_empty() {
-            self.message = Some("no parameter reaches the output through edges of known gain".to_string());
+            self.message =
+                Some("no parameter reaches the output through edges of known gain".to_string());
             return;
         }
         let shown = panes::paths_param(self);
@@ -331,7 +368,9 @@ impl<'t> App<'t> {
                 Action::Help | Action::Cancel => {}
                 Action::Quit => self.quit = true,
                 Action::Down | Action::Scroll(_, 1..) => self.overlay = Overlay::Help(scroll + 1),
-                Action::Up | Action::Scroll(..) => self.overlay = Overlay::Help(scroll.saturating_sub(1)),
+                Action::Up | Action::Scroll(..) => {
+                    self.overlay = Overlay::Help(scroll.saturating_sub(1))
+                }
                 Action::PageDown => self.overlay = Overlay::Help(scroll + 10),
                 Action::PageUp => self.overlay = Overlay::Help(scroll.saturating_sub(10)),
                 other => self.pane_action(other),
@@ -348,7 +387,10 @@ impl<'t> App<'t> {
         match action {
             Action::Step => {
                 if !self.advance() {
-                    self.message = Some("the sweep is done: every adjoint is final (b steps back, r restarts)".to_string());
+                    self.message = Some(
+                        "the sweep is done: every adjoint is final (b steps back, r restarts)"
+                            .to_string(),
+                    );
                 }
             }
             Action::Back => {
@@ -393,13 +435,20 @@ impl<'t> App<'t> {
             Action::Enter => panes::pane(self.focus).enter(self),
             Action::WalkBack => match self.walk.pop() {
                 Some(node) => self.select(node),
-                None => self.message = Some("the walk history is empty (Enter on an edge in Edges walks along it)".to_string()),
+                None => {
+                    self.message = Some(
+                        "the walk history is empty (Enter on an edge in Edges walks along it)"
+                            .to_string(),
+                    )
+                }
             },
             Action::Click(pane, row) => {
                 self.set_focus(pane);
                 panes::pane(pane).click(self, row as usize);
             }
-            Action::Scroll(pane, rows) => panes::pane(pane).move_cursor(self, Move::By(rows as isize)),
+            Action::Scroll(pane, rows) => {
+                panes::pane(pane).move_cursor(self, Move::By(rows as isize))
+            }
             Action::Diagnose => self.ask_diagnosis(),
             Action::CyclePrecision => self.cycle_precision(),
             Action::JumpToOrigin => self.jump_to_origin(),
@@ -431,7 +480,9 @@ impl<'t> App<'t> {
                 prompt.refresh(self.trace, by_id);
             }
             Action::Complete => prompt.complete(self.trace, by_id),
-            Action::Down if !prompt.candidates.is_empty() => prompt.pick = (prompt.pick + 1) % prompt.candidates.len(),
+            Action::Down if !prompt.candidates.is_empty() => {
+                prompt.pick = (prompt.pick + 1) % prompt.candidates.len()
+            }
             Action::Up if !prompt.candidates.is_empty() => {
                 prompt.pick = (prompt.pick + prompt.candidates.len() - 1) % prompt.candidates.len();
             }
@@ -444,7 +495,12 @@ impl<'t> App<'t> {
                 match prompt.kind {
                     PromptKind::Jump => match prompt.target(self.trace) {
                         Some(node) => self.jump(node),
-                        None => self.message = Some(format!("no node has the id '{}' (Tab completes ids)", prompt.text)),
+                        None => {
+                            self.message = Some(format!(
+                                "no node has the id '{}' (Tab completes ids)",
+                                prompt.text
+                            ))
+                        }
                     },
                     PromptKind::Search => {
                         self.search = (!prompt.text.is_empty()).then(|| prompt.text.clone());
@@ -470,10 +526,21 @@ impl<'t> App<'t> {
 
     /// Undoes one step, keeping the tally in line. False at the start.
     pub fn retreat(&mut self) -> bool {
-        let Some(node) = self.sweep.last_done() else { return false };
+        let Some(node) = self.sweep.last_done() else {
+            return false;
+        };
         let step = self.sweep.cursor() - 1;
-        let receivers: Vec<usize> =
-            self.sweep.ledger().map(|ledger| ledger.step_entries(step).iter().map(|entry| entry.input).collect()).unwrap_or_default();
+        let receivers: Vec<usize> = self
+            .sweep
+            .ledger()
+            .map(|ledger| {
+                ledger
+                    .step_entries(step)
+                    .iter()
+                    .map(|entry| entry.input)
+                    .collect()
+            })
+            .unwrap_or_default();
         self.sweep.back();
         self.tally.stepped_back(&self.sweep, node, &receivers);
         true
@@ -539,7 +606,8 @@ impl<'t> App<'t> {
 
     /// Rows inside the focused pane, for paging.
     fn page(&self) -> usize {
-        layout::pane_area(self, self.focus).map_or(10, |area| area.height.saturating_sub(3).max(1) as usize)
+        layout::pane_area(self, self.focus)
+            .map_or(10, |area| area.height.saturating_sub(3).max(1) as usize)
     }
 
     fn search_from(&mut self, forward: bool) {
@@ -551,7 +619,13 @@ impl<'t> App<'t> {
         let start = self.trace.sweep_rank(self.selected).unwrap_or(0);
         let len = order.len();
         let found = (1..=len)
-            .map(|offset| if forward { (start + offset) % len } else { (start + len - offset) % len })
+            .map(|offset| {
+                if forward {
+                    (start + offset) % len
+                } else {
+                    (start + len - offset) % len
+                }
+            })
             .find(|&rank| matches(self.trace, order[rank], &query));
         match found {
             Some(rank) => {
@@ -580,9 +654,12 @@ impl<'t> App<'t> {
         if self.selection.node != Some(node) {
             let value = &self.trace.node(node).value;
             self.selection.value = match value {
-                Value::Tensor(_) => {
-                    Some(*self.value_summaries.entry(node).or_insert_with(|| Summary::of(value.data(), self.trace.dtype())))
-                }
+                Value::Tensor(_) => Some(
+                    *self
+                        .value_summaries
+                        .entry(node)
+                        .or_insert_with(|| Summary::of(value.data(), self.trace.dtype())),
+                ),
                 Value::Scalar(_) => None,
             };
             self.selection.edges = edges(self.trace, node);
@@ -590,10 +667,17 @@ impl<'t> App<'t> {
         }
         if self.selection.node != Some(node) || self.selection.cursor != cursor {
             self.selection.adjoint = match self.sweep.adjoint(node) {
-                Some(adjoint @ Value::Tensor(_)) => Some(Summary::of(adjoint.data(), self.trace.dtype())),
+                Some(adjoint @ Value::Tensor(_)) => {
+                    Some(Summary::of(adjoint.data(), self.trace.dtype()))
+                }
                 _ => None,
             };
-            self.contrast = match (self.sweep.adjoint(node), self.compare.as_ref().and_then(|compare| compare.adjoint(node))) {
+            self.contrast = match (
+                self.sweep.adjoint(node),
+                self.compare
+                    .as_ref()
+                    .and_then(|compare| compare.adjoint(node)),
+            ) {
                 (Some(here), Some(recorded)) => Some(Contrast::of(here, recorded)),
                 _ => None,
             };
@@ -609,8 +693,11 @@ impl<'t> App<'t> {
 
     /// Scrolls Order so the selected node (or the current one) is in view.
     fn keep_order_visible(&mut self) {
-        let rows = layout::pane_area(self, PaneId::Order).map_or(10, |area| area.height.saturating_sub(3).max(1) as usize);
-        let Some(rank) = self.order_rank(self.selected) else { return };
+        let rows = layout::pane_area(self, PaneId::Order)
+            .map_or(10, |area| area.height.saturating_sub(3).max(1) as usize);
+        let Some(rank) = self.order_rank(self.selected) else {
+            return;
+        };
         if rank < self.order_offset {
             self.order_offset = rank;
         } else if rank >= self.order_offset + rows {
@@ -624,7 +711,11 @@ fn diagnosis_message(trace: &Trace, diagnosed: &Diagnosed) -> String {
     let diagnosis = &diagnosed.diagnosis;
     if let Some(origin) = diagnosis.first_origin() {
         let more = diagnosis.origins.len() - 1;
-        let more = if more > 0 { format!(" (+{more} more)") } else { String::new() };
+        let more = if more > 0 {
+            format!(" (+{more} more)")
+        } else {
+            String::new()
+        };
         return format!(
             "diagnosis: origin ({}) {} at '{}'{more}; o jumps to it",
             origin.class.letter(),
@@ -635,11 +726,19 @@ fn diagnosis_message(trace: &Trace, diagnosed: &Diagnosed) -> String {
     if diagnosis.is_clean() {
         return format!("diagnosis: clean, no rule fired in {}", diagnosis.dtype);
     }
-    let mut rules: Vec<&str> = diagnosis.findings.iter().map(|finding| super::diagnosis::rule_label(finding.rule)).collect();
+    let mut rules: Vec<&str> = diagnosis
+        .findings
+        .iter()
+        .map(|finding| super::diagnosis::rule_label(finding.rule))
+        .collect();
     rules.dedup();
     rules.sort();
     rules.dedup();
-    format!("diagnosis: every adjoint finite; {} findings ({}) in Flags, paths in 8", diagnosis.findings.len(), rules.join(", "))
+    format!(
+        "diagnosis: every adjoint finite; {} findings ({}) in Flags, paths in 8",
+        diagnosis.findings.len(),
+        rules.join(", ")
+    )
 }
 
 /// What changes in the view's dtype, from the recorded trace's replay against f64.
@@ -648,14 +747,22 @@ fn precision_message(app: &App) -> String {
     if dtype == recorded {
         return format!("back to the recorded dtype {dtype}");
     }
-    let Some(run) = app.diagnoses.get(recorded).and_then(|diagnosed| diagnosed.diagnosis.replay_in(dtype)) else {
+    let Some(run) = app
+        .diagnoses
+        .get(recorded)
+        .and_then(|diagnosed| diagnosed.diagnosis.replay_in(dtype))
+    else {
         return format!("swept in {dtype} (recorded {recorded}); D diagnoses it");
     };
     let id = |node: usize| app.trace.node(node).id.as_str();
     let at = |finding: Option<&crate::diagnose::Finding>| {
-        finding.map_or("none".to_string(), |finding| format!("'{}' step {}", id(finding.node), finding.step + 1))
+        finding.map_or("none".to_string(), |finding| {
+            format!("'{}' step {}", id(finding.node), finding.step + 1)
+        })
     };
-    let lost = run.first_lost().map_or("none".to_string(), |lost| format!("'{}' step {}", id(lost.node), lost.step + 1));
+    let lost = run.first_lost().map_or("none".to_string(), |lost| {
+        format!("'{}' step {}", id(lost.node), lost.step + 1)
+    });
     format!(
         "{dtype} vs f64: first overflow {} · underflow {} · lost contribution {lost}",
         at(run.first_overflow()),

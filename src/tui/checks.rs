@@ -40,7 +40,11 @@ impl EdgePair {
 
     /// Element `at` as written in the table: `i` for a diagonal, `(row, column)` for a Jacobian.
     pub fn label(&self, at: usize) -> String {
-        if self.columns == 1 { at.to_string() } else { format!("({}, {})", at / self.columns, at % self.columns) }
+        if self.columns == 1 {
+            at.to_string()
+        } else {
+            format!("({}, {})", at / self.columns, at % self.columns)
+        }
     }
 }
 
@@ -72,18 +76,36 @@ impl Checks {
     /// Highlights suspect `at` and builds its side-by-side partials.
     pub fn highlight(&mut self, trace: &Trace, at: usize) {
         self.pairs.clear();
-        let Some(verification) = &self.verification else { return };
+        let Some(verification) = &self.verification else {
+            return;
+        };
         self.cursor = at.min(verification.suspects.len().saturating_sub(1));
-        let Some(suspect) = verification.suspects.get(self.cursor) else { return };
+        let Some(suspect) = verification.suspects.get(self.cursor) else {
+            return;
+        };
         if suspect.evidence != Evidence::RecordedPartial {
             return;
         }
         let tolerance = verification.tolerance;
-        for check in verification.partials.iter().filter(|check| check.node == suspect.node && check.worst.relative > tolerance) {
-            let Ok((recorded, recomputed)) = partial_pair(trace, check.node, check.slot) else { continue };
+        for check in verification
+            .partials
+            .iter()
+            .filter(|check| check.node == suspect.node && check.worst.relative > tolerance)
+        {
+            let Ok((recorded, recomputed)) = partial_pair(trace, check.node, check.slot) else {
+                continue;
+            };
             let rows = numel(trace.node(check.node).value.shape());
-            let columns = if recorded.len() == rows { 1 } else { recorded.len() / rows.max(1) };
-            let differing = recorded.iter().zip(&recomputed).filter(|&(&a, &b)| relative_error(a, b) > tolerance).count();
+            let columns = if recorded.len() == rows {
+                1
+            } else {
+                recorded.len() / rows.max(1)
+            };
+            let differing = recorded
+                .iter()
+                .zip(&recomputed)
+                .filter(|&(&a, &b)| relative_error(a, b) > tolerance)
+                .count();
             self.pairs.push(EdgePair {
                 node: check.node,
                 slot: check.slot,
@@ -106,7 +128,9 @@ impl<'t> App<'t> {
             self.run_verification();
         } else {
             self.checks.requested = true;
-            self.message = Some(format!("verifying {nodes} nodes: recorded partials, finite differences, tangent sweep…"));
+            self.message = Some(format!(
+                "verifying {nodes} nodes: recorded partials, finite differences, tangent sweep…"
+            ));
         }
     }
 
@@ -127,8 +151,13 @@ impl<'t> App<'t> {
         let verification = self.checks.verification.as_ref().expect("just run");
         let took = format!("{:.2} s", self.checks.seconds);
         self.message = Some(match verification.suspects.len() {
-            0 => format!("verified in {took}: every check agrees within {:e}", verification.tolerance),
-            count => format!("verified in {took}: {count} suspect(s), worst first in the Verify pane (Enter there selects the node)"),
+            0 => format!(
+                "verified in {took}: every check agrees within {:e}",
+                verification.tolerance
+            ),
+            count => format!(
+                "verified in {took}: {count} suspect(s), worst first in the Verify pane (Enter there selects the node)"
+            ),
         });
     }
 }
@@ -151,12 +180,24 @@ mod tests {
         let trace = validate(tape.finish(x)).unwrap();
         let mut app = App::new(&trace, "test", vec![Theme::default_theme()]);
         app.update(Action::Verify);
-        assert!(app.has_pending() && app.checks.verification.is_none(), "nothing runs inside the key press");
-        assert_eq!(app.message.as_deref().map(|m| m.starts_with(&format!("verifying {} nodes", AT_ONCE + 1))), Some(true));
+        assert!(
+            app.has_pending() && app.checks.verification.is_none(),
+            "nothing runs inside the key press"
+        );
+        assert_eq!(
+            app.message
+                .as_deref()
+                .map(|m| m.starts_with(&format!("verifying {} nodes", AT_ONCE + 1))),
+            Some(true)
+        );
         app.run_pending();
         assert!(!app.has_pending());
         assert!(app.checks.verification.is_some());
-        assert!(app.message.as_deref().is_some_and(|m| m.starts_with("verified in")));
+        assert!(
+            app.message
+                .as_deref()
+                .is_some_and(|m| m.starts_with("verified in"))
+        );
         // A second press reruns rather than waiting forever.
         app.update(Action::Verify);
         assert!(app.has_pending());

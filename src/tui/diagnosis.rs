@@ -41,7 +41,11 @@ pub struct Diagnosed {
 
 impl Diagnosed {
     fn new(diagnosis: Diagnosis) -> Diagnosed {
-        let origins = diagnosis.origins.iter().enumerate().map(|(at, origin)| (origin.step, 0, Row::Origin(at)));
+        let origins = diagnosis
+            .origins
+            .iter()
+            .enumerate()
+            .map(|(at, origin)| (origin.step, 0, Row::Origin(at)));
         let findings = diagnosis
             .findings
             .iter()
@@ -50,7 +54,10 @@ impl Diagnosed {
             .map(|(at, finding)| (finding.step, 1, Row::Finding(at)));
         let mut keyed: Vec<(usize, u8, Row)> = origins.chain(findings).collect();
         keyed.sort_by_key(|&(step, kind, _)| (step, kind));
-        Diagnosed { rows: keyed.into_iter().map(|(_, _, row)| row).collect(), diagnosis }
+        Diagnosed {
+            rows: keyed.into_iter().map(|(_, _, row)| row).collect(),
+            diagnosis,
+        }
     }
 
     /// The origin at `at`.
@@ -73,26 +80,42 @@ impl Diagnosed {
 
     /// The origins born at `node`.
     pub fn origins_at(&self, node: usize) -> impl Iterator<Item = &Origin> + '_ {
-        self.diagnosis.origins.iter().filter(move |origin| origin.node == node)
+        self.diagnosis
+            .origins
+            .iter()
+            .filter(move |origin| origin.node == node)
     }
 
     /// One sentence on the origin behind `node`: `explain` for a node whose
     /// adjoint is non-finite, the origin's own account for the node where it was born.
     pub fn sentence(&self, trace: &Trace, node: usize) -> Option<String> {
-        self.diagnosis
-            .explain(trace, node)
-            .or_else(|| self.origins_at(node).next().map(|origin| format!("Origin ({}): {}.", origin.class.letter(), origin.explanation)))
+        self.diagnosis.explain(trace, node).or_else(|| {
+            self.origins_at(node).next().map(|origin| {
+                format!(
+                    "Origin ({}): {}.",
+                    origin.class.letter(),
+                    origin.explanation
+                )
+            })
+        })
     }
 
     /// The origin whose chain `node` is on, or which was born at `node`.
     pub fn origin_for(&self, node: usize) -> Option<&Origin> {
-        self.diagnosis.origin_of(node).or_else(|| self.origins_at(node).next())
+        self.diagnosis
+            .origin_of(node)
+            .or_else(|| self.origins_at(node).next())
     }
 
     /// The parameter the Paths pane shows when the selection is not one: the
     /// one the advice names (exploding or vanishing), else the first with a path.
     pub fn headline_param(&self) -> Option<usize> {
-        let advised = self.diagnosis.advice.iter().filter_map(|advice| advice.node).find(|&node| self.diagnosis.path_to(node).is_some());
+        let advised = self
+            .diagnosis
+            .advice
+            .iter()
+            .filter_map(|advice| advice.node)
+            .find(|&node| self.diagnosis.path_to(node).is_some());
         advised.or_else(|| self.diagnosis.paths.first().map(|path| path.param))
     }
 }
@@ -107,14 +130,20 @@ pub struct Diagnoses {
 impl Diagnoses {
     /// The diagnosis of the sweep in `dtype`, if made.
     pub fn get(&self, dtype: Dtype) -> Option<&Diagnosed> {
-        self.done.iter().find(|diagnosed| diagnosed.diagnosis.dtype == dtype)
+        self.done
+            .iter()
+            .find(|diagnosed| diagnosed.diagnosis.dtype == dtype)
     }
 
     /// Diagnoses `trace` in its own dtype unless that is done already. The
     /// recorded trace gets the full diagnosis with its replays; a re-typed
     /// copy (`replays` false) only its own rules, origins, paths and groups.
     pub fn run(&mut self, trace: &Trace, replays: bool) -> &Diagnosed {
-        if let Some(at) = self.done.iter().position(|diagnosed| diagnosed.diagnosis.dtype == trace.dtype()) {
+        if let Some(at) = self
+            .done
+            .iter()
+            .position(|diagnosed| diagnosed.diagnosis.dtype == trace.dtype())
+        {
             return &self.done[at];
         }
         let mut settings = self.settings.clone();
@@ -159,9 +188,18 @@ pub fn value_against_threshold(finding: &Finding) -> String {
     };
     let comparison = if small { "<" } else { ">" };
     // Overflow thresholds bound a magnitude; a negative value says so.
-    let magnitude = matches!(finding.rule, Rule::Overflow | Rule::NearOverflow) && finding.value < 0.0;
-    let bound = if magnitude { format!("|·| {comparison}") } else { comparison.to_string() };
-    format!("{measure}{} {bound} {}", compact(finding.value), compact(finding.threshold))
+    let magnitude =
+        matches!(finding.rule, Rule::Overflow | Rule::NearOverflow) && finding.value < 0.0;
+    let bound = if magnitude {
+        format!("|·| {comparison}")
+    } else {
+        comparison.to_string()
+    };
+    format!(
+        "{measure}{} {bound} {}",
+        compact(finding.value),
+        compact(finding.threshold)
+    )
 }
 
 #[cfg(test)]
@@ -177,10 +215,19 @@ mod tests {
         let trace = Trace::try_from(tape.finish(y)).unwrap();
         let mut diagnoses = Diagnoses::default();
         let diagnosed = diagnoses.run(&trace, true);
-        assert!(diagnosed.diagnosis.findings.iter().any(|finding| finding.rule == Rule::NonFinite));
+        assert!(
+            diagnosed
+                .diagnosis
+                .findings
+                .iter()
+                .any(|finding| finding.rule == Rule::NonFinite)
+        );
         // ln 0 = −inf (IEEE 754-2019 §9.2.1): one origin of class (a), at the log.
         assert_eq!(diagnosed.rows.first(), Some(&Row::Origin(0)));
-        assert_eq!(trace.node(diagnosed.row_node(diagnosed.rows[0])).id, "log_1");
+        assert_eq!(
+            trace.node(diagnosed.row_node(diagnosed.rows[0])).id,
+            "log_1"
+        );
         assert!(diagnosed.rows.iter().all(|&row| match row {
             Row::Finding(at) => diagnosed.finding(at).rule != Rule::NonFinite,
             Row::Origin(_) => true,
@@ -194,8 +241,14 @@ mod tests {
             })
             .collect();
         assert!(steps.windows(2).all(|pair| pair[0] <= pair[1]), "{steps:?}");
-        let sentence = diagnosed.sentence(&trace, trace.find("log_1").unwrap()).unwrap();
+        let sentence = diagnosed
+            .sentence(&trace, trace.find("log_1").unwrap())
+            .unwrap();
         assert!(sentence.starts_with("Origin (a): "), "{sentence}");
-        assert_eq!(diagnoses.get(Dtype::F64).map(|d| d.rows.len()), Some(steps.len()), "made once, then looked up");
+        assert_eq!(
+            diagnoses.get(Dtype::F64).map(|d| d.rows.len()),
+            Some(steps.len()),
+            "made once, then looked up"
+        );
     }
 }

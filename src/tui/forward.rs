@@ -30,9 +30,14 @@ impl Along {
     /// The direction in words, for the status line and titles.
     pub fn describe(self, trace: &Trace) -> String {
         match self {
-            Along::Leaf(node) if trace.node(node).value.shape().is_empty() => format!("v = unit along {}", trace.node(node).id),
+            Along::Leaf(node) if trace.node(node).value.shape().is_empty() => {
+                format!("v = unit along {}", trace.node(node).id)
+            }
             Along::Leaf(node) => format!("v = unit along {}[0]", trace.node(node).id),
-            Along::Random(seed) => format!("v = random over {} parameter(s), seed {seed:#x}", trace.params().count()),
+            Along::Random(seed) => format!(
+                "v = random over {} parameter(s), seed {seed:#x}",
+                trace.params().count()
+            ),
         }
     }
 }
@@ -71,7 +76,13 @@ pub struct Forward<'t> {
 impl<'t> Forward<'t> {
     /// A tangent sweep at its start along `along`.
     pub fn new(trace: &'t Trace, along: Along) -> Forward<'t> {
-        Forward { trace, sweep: TangentSweep::new(trace, &along.direction()), along, description: along.describe(trace), reverse: None }
+        Forward {
+            trace,
+            sweep: TangentSweep::new(trace, &along.direction()),
+            along,
+            description: along.describe(trace),
+            reverse: None,
+        }
     }
 
     /// The node the next step processes (recording order), if any.
@@ -109,7 +120,11 @@ impl<'t> Forward<'t> {
     pub fn comparison(&self) -> Option<Comparison> {
         let tangent = self.sweep.directional_derivative()?;
         let reverse = self.reverse?;
-        Some(Comparison { tangent, reverse, relative: relative_error(tangent, reverse) })
+        Some(Comparison {
+            tangent,
+            reverse,
+            relative: relative_error(tangent, reverse),
+        })
     }
 
     /// True when `node` has been processed.
@@ -137,11 +152,19 @@ impl<'t> Forward<'t> {
     pub fn dual_text(&self, node: usize) -> String {
         let value = &self.trace.node(node).value;
         match (value, self.tangent(node)) {
-            (Value::Scalar(x), Some(tangent)) => format!("({}, {})", number(*x), number(tangent.and_then(Value::as_scalar).unwrap_or(0.0))),
+            (Value::Scalar(x), Some(tangent)) => format!(
+                "({}, {})",
+                number(*x),
+                number(tangent.and_then(Value::as_scalar).unwrap_or(0.0))
+            ),
             (Value::Scalar(x), None) => format!("({}, —)", number(*x)),
             (_, Some(tangent)) => {
                 let norm = tangent.map_or(0.0, Value::l2_norm);
-                format!("tangent {} ‖·‖ {}", crate::format::shape(value.shape()), crate::format::compact(norm))
+                format!(
+                    "tangent {} ‖·‖ {}",
+                    crate::format::shape(value.shape()),
+                    crate::format::compact(norm)
+                )
             }
             (_, None) => "tangent — (pending)".to_string(),
         }
@@ -152,7 +175,8 @@ impl<'t> Forward<'t> {
 fn along_for(app: &App) -> Result<Along, String> {
     let selected = app.selected;
     let current = app.forward.as_ref().map(|forward| forward.along);
-    let is_leaf = app.trace.node(selected).op.is_leaf() && !app.trace.node(selected).value.is_empty();
+    let is_leaf =
+        app.trace.node(selected).op.is_leaf() && !app.trace.node(selected).value.is_empty();
     match current {
         Some(Along::Leaf(node)) if node == selected || !is_leaf => Ok(Along::Random(VerifyOptions::default().seed)),
         _ if is_leaf => Ok(Along::Leaf(selected)),
@@ -166,7 +190,11 @@ impl<'t> App<'t> {
     pub(super) fn toggle_forward(&mut self) {
         if self.forward.take().is_some() {
             self.follow = true;
-            self.message = Some(format!("reverse sweep: step {}/{} (m returns to forward mode)", self.sweep.cursor(), self.sweep.len()));
+            self.message = Some(format!(
+                "reverse sweep: step {}/{} (m returns to forward mode)",
+                self.sweep.cursor(),
+                self.sweep.len()
+            ));
             return;
         }
         let node = self.trace.node(self.selected);
@@ -182,7 +210,10 @@ impl<'t> App<'t> {
         } else {
             ""
         };
-        self.message = Some(format!("forward mode, {}: s steps the tangent sweep in recording order{hint}", along.describe(self.trace)));
+        self.message = Some(format!(
+            "forward mode, {}: s steps the tangent sweep in recording order{hint}",
+            along.describe(self.trace)
+        ));
     }
 
     /// Forward mode: switches the direction, keeping the tangent sweep's position.
@@ -196,7 +227,10 @@ impl<'t> App<'t> {
                 let mut forward = Forward::new(self.trace, along);
                 forward.seek(cursor);
                 self.forward = Some(forward);
-                self.message = Some(format!("{}: tangents recomputed up to step {cursor}", along.describe(self.trace)));
+                self.message = Some(format!(
+                    "{}: tangents recomputed up to step {cursor}",
+                    along.describe(self.trace)
+                ));
             }
             Err(message) => self.message = Some(message),
         }
@@ -205,7 +239,9 @@ impl<'t> App<'t> {
     /// The sweep actions in forward mode; false for actions it leaves alone.
     pub(super) fn forward_action(&mut self, action: super::action::Action) -> bool {
         use super::action::Action;
-        let Some(forward) = self.forward.as_mut() else { return false };
+        let Some(forward) = self.forward.as_mut() else {
+            return false;
+        };
         match action {
             Action::Step => {
                 if forward.step() {
@@ -216,7 +252,10 @@ impl<'t> App<'t> {
             }
             Action::Back => {
                 if !forward.sweep.back() {
-                    self.message = Some("at the start of the tangent sweep: no node has its tangent yet".to_string());
+                    self.message = Some(
+                        "at the start of the tangent sweep: no node has its tangent yet"
+                            .to_string(),
+                    );
                 }
             }
             Action::RunToEnd => {
@@ -227,7 +266,10 @@ impl<'t> App<'t> {
                 forward.seek(0);
                 self.follow = true;
             }
-            Action::RunToFlag => self.message = Some("flags belong to the reverse sweep: m returns to it".to_string()),
+            Action::RunToFlag => {
+                self.message =
+                    Some("flags belong to the reverse sweep: m returns to it".to_string())
+            }
             _ => return false,
         }
         true
@@ -235,8 +277,14 @@ impl<'t> App<'t> {
 
     /// At the end of the tangent sweep, says how the two modes compare.
     fn follow_forward_end(&mut self) {
-        let Some(comparison) = self.forward.as_ref().and_then(Forward::comparison) else { return };
-        let verdict = if comparison.agrees(VerifyOptions::default().tolerance) { "they agree" } else { "they DISAGREE" };
+        let Some(comparison) = self.forward.as_ref().and_then(Forward::comparison) else {
+            return;
+        };
+        let verdict = if comparison.agrees(VerifyOptions::default().tolerance) {
+            "they agree"
+        } else {
+            "they DISAGREE"
+        };
         self.message = Some(format!(
             "∂f/∂v = {} (tangent) · ⟨v, ∇f⟩ = {} (reverse): {verdict}",
             number(comparison.tangent),
@@ -246,16 +294,28 @@ impl<'t> App<'t> {
 
     /// Rows of Order: the sweep order, or every node in recording order in forward mode.
     pub fn order_len(&self) -> usize {
-        if self.forward.is_some() { self.trace.nodes().len() } else { self.trace.sweep_order().len() }
+        if self.forward.is_some() {
+            self.trace.nodes().len()
+        } else {
+            self.trace.sweep_order().len()
+        }
     }
 
     /// The node on row `rank` of Order.
     pub fn order_node(&self, rank: usize) -> usize {
-        if self.forward.is_some() { rank } else { self.trace.sweep_order()[rank] }
+        if self.forward.is_some() {
+            rank
+        } else {
+            self.trace.sweep_order()[rank]
+        }
     }
 
     /// The row of `node` in Order, if listed.
     pub fn order_rank(&self, node: usize) -> Option<usize> {
-        if self.forward.is_some() { Some(node) } else { self.trace.sweep_rank(node) }
+        if self.forward.is_some() {
+            Some(node)
+        } else {
+            self.trace.sweep_rank(node)
+        }
     }
 }

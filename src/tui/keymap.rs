@@ -37,7 +37,10 @@ pub struct Key {
 
 impl Key {
     const fn plain(code: KeyCode) -> Key {
-        Key { code, modifiers: KeyModifiers::NONE }
+        Key {
+            code,
+            modifiers: KeyModifiers::NONE,
+        }
     }
 
     const fn char(c: char) -> Key {
@@ -45,17 +48,24 @@ impl Key {
     }
 
     const fn ctrl(c: char) -> Key {
-        Key { code: KeyCode::Char(c), modifiers: KeyModifiers::CONTROL }
+        Key {
+            code: KeyCode::Char(c),
+            modifiers: KeyModifiers::CONTROL,
+        }
     }
 
     /// The key of a terminal event, normalised: Shift is dropped from
     /// characters (the character already says it) and from BackTab.
     pub fn from_event(event: &KeyEvent) -> Key {
-        let mut modifiers = event.modifiers & (KeyModifiers::CONTROL | KeyModifiers::ALT | KeyModifiers::SHIFT);
+        let mut modifiers =
+            event.modifiers & (KeyModifiers::CONTROL | KeyModifiers::ALT | KeyModifiers::SHIFT);
         if matches!(event.code, KeyCode::Char(_) | KeyCode::BackTab) {
             modifiers.remove(KeyModifiers::SHIFT);
         }
-        Key { code: event.code, modifiers }
+        Key {
+            code: event.code,
+            modifiers,
+        }
     }
 
     /// How the key is written in help and hints.
@@ -78,7 +88,11 @@ impl Key {
             KeyCode::Backspace => "Bksp".to_string(),
             other => format!("{other:?}"),
         };
-        if self.modifiers.contains(KeyModifiers::CONTROL) { format!("C-{base}") } else { base }
+        if self.modifiers.contains(KeyModifiers::CONTROL) {
+            format!("C-{base}")
+        } else {
+            base
+        }
     }
 }
 
@@ -100,8 +114,15 @@ pub struct KeyMap {
 }
 
 /// Actions shown in the status line whatever has focus.
-const GLOBAL_HINTS: &[Action] =
-    &[Action::Step, Action::Back, Action::RunToFlag, Action::OpenJump, Action::FocusNext, Action::Help, Action::Quit];
+const GLOBAL_HINTS: &[Action] = &[
+    Action::Step,
+    Action::Back,
+    Action::RunToFlag,
+    Action::OpenJump,
+    Action::FocusNext,
+    Action::Help,
+    Action::Quit,
+];
 
 impl Default for KeyMap {
     fn default() -> KeyMap {
@@ -173,14 +194,46 @@ impl Default for KeyMap {
             (Key::plain(K::Up), Up),
         ];
         let mut bindings: Vec<Binding> = Vec::new();
-        bindings.extend(prompt.map(|(key, action)| Binding { key, scope: Scope::Prompt, action }));
-        bindings.extend(edges.map(|(key, action)| Binding { key, scope: Scope::Pane(PaneId::Edges), action }));
-        bindings.push(Binding { key: Key::plain(K::Enter), scope: Scope::Pane(PaneId::Flags), action: Enter });
-        bindings.push(Binding { key: Key::plain(K::Enter), scope: Scope::Pane(PaneId::Order), action: Enter });
-        bindings.push(Binding { key: Key::plain(K::Enter), scope: Scope::Pane(PaneId::Verify), action: Enter });
-        let paths = [(Key::plain(K::Enter), Enter), (Key::char(']'), NextParameter), (Key::char('['), PreviousParameter)];
-        bindings.extend(paths.map(|(key, action)| Binding { key, scope: Scope::Pane(PaneId::Paths), action }));
-        bindings.extend(global.map(|(key, action)| Binding { key, scope: Scope::Global, action }));
+        bindings.extend(prompt.map(|(key, action)| Binding {
+            key,
+            scope: Scope::Prompt,
+            action,
+        }));
+        bindings.extend(edges.map(|(key, action)| Binding {
+            key,
+            scope: Scope::Pane(PaneId::Edges),
+            action,
+        }));
+        bindings.push(Binding {
+            key: Key::plain(K::Enter),
+            scope: Scope::Pane(PaneId::Flags),
+            action: Enter,
+        });
+        bindings.push(Binding {
+            key: Key::plain(K::Enter),
+            scope: Scope::Pane(PaneId::Order),
+            action: Enter,
+        });
+        bindings.push(Binding {
+            key: Key::plain(K::Enter),
+            scope: Scope::Pane(PaneId::Verify),
+            action: Enter,
+        });
+        let paths = [
+            (Key::plain(K::Enter), Enter),
+            (Key::char(']'), NextParameter),
+            (Key::char('['), PreviousParameter),
+        ];
+        bindings.extend(paths.map(|(key, action)| Binding {
+            key,
+            scope: Scope::Pane(PaneId::Paths),
+            action,
+        }));
+        bindings.extend(global.map(|(key, action)| Binding {
+            key,
+            scope: Scope::Global,
+            action,
+        }));
         KeyMap { bindings }
     }
 }
@@ -195,15 +248,27 @@ impl KeyMap {
     /// In the prompt, an unbound character is typed.
     pub fn lookup(&self, key: Key, focus: PaneId, prompt: bool) -> Option<Action> {
         if prompt {
-            let bound = self.bindings.iter().find(|binding| binding.scope == Scope::Prompt && binding.key == key);
+            let bound = self
+                .bindings
+                .iter()
+                .find(|binding| binding.scope == Scope::Prompt && binding.key == key);
             return match (bound, key.code) {
                 (Some(binding), _) => Some(binding.action),
-                (None, KeyCode::Char(c)) if !key.modifiers.contains(KeyModifiers::CONTROL) => Some(Action::Type(c)),
+                (None, KeyCode::Char(c)) if !key.modifiers.contains(KeyModifiers::CONTROL) => {
+                    Some(Action::Type(c))
+                }
                 _ => None,
             };
         }
-        let pane = self.bindings.iter().find(|binding| binding.scope == Scope::Pane(focus) && binding.key == key);
-        let global = || self.bindings.iter().find(|binding| binding.scope == Scope::Global && binding.key == key);
+        let pane = self
+            .bindings
+            .iter()
+            .find(|binding| binding.scope == Scope::Pane(focus) && binding.key == key);
+        let global = || {
+            self.bindings
+                .iter()
+                .find(|binding| binding.scope == Scope::Global && binding.key == key)
+        };
         pane.or_else(global).map(|binding| binding.action)
     }
 
@@ -231,7 +296,11 @@ impl KeyMap {
             .map(|scope| {
                 let mut rows: Vec<(String, &'static str)> = Vec::new();
                 let mut seen: Vec<Action> = Vec::new();
-                for binding in self.bindings.iter().filter(|binding| binding.scope == scope) {
+                for binding in self
+                    .bindings
+                    .iter()
+                    .filter(|binding| binding.scope == scope)
+                {
                     let action = match binding.action {
                         Action::Focus(_) => Action::Focus(PaneId::Order),
                         other => other,
@@ -243,11 +312,18 @@ impl KeyMap {
                     let keys: Vec<String> = self
                         .bindings
                         .iter()
-                        .filter(|other| other.scope == scope && std::mem::discriminant(&other.action) == std::mem::discriminant(&action))
+                        .filter(|other| {
+                            other.scope == scope
+                                && std::mem::discriminant(&other.action)
+                                    == std::mem::discriminant(&action)
+                        })
                         .map(|other| other.key.label())
                         .collect();
-                    let keys =
-                        if matches!(action, Action::Focus(_)) { format!("{}-{}", keys[0], keys[keys.len() - 1]) } else { keys.join(" ") };
+                    let keys = if matches!(action, Action::Focus(_)) {
+                        format!("{}-{}", keys[0], keys[keys.len() - 1])
+                    } else {
+                        keys.join(" ")
+                    };
                     rows.push((keys, action.describe()));
                 }
                 (scope.heading(), rows)
@@ -260,14 +336,22 @@ impl KeyMap {
     pub fn hints(&self, focus: PaneId) -> Vec<(String, &'static str)> {
         let mut hints: Vec<(String, &'static str)> = Vec::new();
         let mut seen: Vec<Action> = Vec::new();
-        for binding in self.bindings.iter().filter(|binding| binding.scope == Scope::Pane(focus)) {
+        for binding in self
+            .bindings
+            .iter()
+            .filter(|binding| binding.scope == Scope::Pane(focus))
+        {
             if !seen.contains(&binding.action) {
                 seen.push(binding.action);
                 hints.push((binding.key.label(), binding.action.hint()));
             }
         }
         for &action in GLOBAL_HINTS {
-            if let Some(binding) = self.bindings.iter().find(|binding| binding.scope == Scope::Global && binding.action == action) {
+            if let Some(binding) = self
+                .bindings
+                .iter()
+                .find(|binding| binding.scope == Scope::Global && binding.action == action)
+            {
                 hints.push((binding.key.label(), action.hint()));
             }
         }
@@ -287,20 +371,61 @@ mod tests {
     fn pane_bindings_win_over_global_ones() {
         let map = KeyMap::default();
         let backspace = press(KeyCode::Backspace, KeyModifiers::NONE);
-        assert_eq!(map.lookup(backspace, PaneId::Order, false), Some(Action::WalkBack));
-        assert_eq!(map.lookup(backspace, PaneId::Order, true), Some(Action::Erase));
-        assert_eq!(map.lookup(press(KeyCode::Enter, KeyModifiers::NONE), PaneId::Edges, false), Some(Action::Enter));
-        assert_eq!(map.lookup(press(KeyCode::Char('G'), KeyModifiers::SHIFT), PaneId::Order, false), Some(Action::Bottom));
-        assert_eq!(map.lookup(press(KeyCode::Char('s'), KeyModifiers::NONE), PaneId::Order, true), Some(Action::Type('s')));
-        assert_eq!(map.lookup(press(KeyCode::Char('c'), KeyModifiers::CONTROL), PaneId::Trend, false), Some(Action::Quit));
+        assert_eq!(
+            map.lookup(backspace, PaneId::Order, false),
+            Some(Action::WalkBack)
+        );
+        assert_eq!(
+            map.lookup(backspace, PaneId::Order, true),
+            Some(Action::Erase)
+        );
+        assert_eq!(
+            map.lookup(
+                press(KeyCode::Enter, KeyModifiers::NONE),
+                PaneId::Edges,
+                false
+            ),
+            Some(Action::Enter)
+        );
+        assert_eq!(
+            map.lookup(
+                press(KeyCode::Char('G'), KeyModifiers::SHIFT),
+                PaneId::Order,
+                false
+            ),
+            Some(Action::Bottom)
+        );
+        assert_eq!(
+            map.lookup(
+                press(KeyCode::Char('s'), KeyModifiers::NONE),
+                PaneId::Order,
+                true
+            ),
+            Some(Action::Type('s'))
+        );
+        assert_eq!(
+            map.lookup(
+                press(KeyCode::Char('c'), KeyModifiers::CONTROL),
+                PaneId::Trend,
+                false
+            ),
+            Some(Action::Quit)
+        );
     }
 
     #[test]
     fn no_key_is_bound_twice_in_one_scope() {
         let map = KeyMap::default();
         for (at, binding) in map.bindings().iter().enumerate() {
-            let clash = map.bindings()[at + 1..].iter().find(|other| other.scope == binding.scope && other.key == binding.key);
-            assert!(clash.is_none(), "{} bound twice in {:?}", binding.key.label(), binding.scope);
+            let clash = map.bindings()[at + 1..]
+                .iter()
+                .find(|other| other.scope == binding.scope && other.key == binding.key);
+            assert!(
+                clash.is_none(),
+                "{} bound twice in {:?}",
+                binding.key.label(),
+                binding.scope
+            );
         }
     }
 
@@ -309,9 +434,14 @@ mod tests {
         let map = KeyMap::default();
         let help = map.help();
         assert_eq!(help[0].0, "Everywhere");
-        let step = help[0].1.iter().find(|(_, what)| *what == Action::Step.describe()).expect("step is listed");
+        let step = help[0]
+            .1
+            .iter()
+            .find(|(_, what)| *what == Action::Step.describe())
+            .expect("step is listed");
         assert_eq!(step.0, "s Space");
-        assert!(help.iter().any(|(heading, rows)| heading == "In Edges" && rows.iter().any(|(keys, _)| keys == "Enter l →")));
+        assert!(help.iter().any(|(heading, rows)| heading == "In Edges"
+            && rows.iter().any(|(keys, _)| keys == "Enter l →")));
         let hints = map.hints(PaneId::Edges);
         assert_eq!(hints[0], ("Enter".to_string(), "open"));
         assert!(hints.contains(&("?".to_string(), "help")));

@@ -27,7 +27,12 @@ impl Layers {
         }
         let mut layer = vec![0usize; nodes.len()];
         for (index, node) in nodes.iter().enumerate() {
-            layer[index] = node.inputs.iter().map(|&input| layer[input] + 1).max().unwrap_or(0);
+            layer[index] = node
+                .inputs
+                .iter()
+                .map(|&input| layer[input] + 1)
+                .max()
+                .unwrap_or(0);
         }
         let depth = layer.iter().max().map_or(0, |deepest| deepest + 1);
         let mut counts = vec![0usize; depth];
@@ -56,12 +61,25 @@ mod tests {
         let layers = Layers::of(&trace).unwrap();
         let at = |id: &str| layers.layer[trace.find(id).unwrap()];
         // price → s_times_p → minus_sp → demand → demand_sq → storage → profit: six edges.
-        assert_eq!((at("price"), at("s_times_p"), at("demand"), at("storage"), at("profit")), (0, 1, 3, 5, 6));
+        assert_eq!(
+            (
+                at("price"),
+                at("s_times_p"),
+                at("demand"),
+                at("storage"),
+                at("profit")
+            ),
+            (0, 1, 3, 5, 6)
+        );
         // margin sits one above its leaves even though it feeds a deep node.
         assert_eq!(at("margin"), 1);
         for node in trace.nodes() {
             let index = trace.find(&node.id).unwrap();
-            assert!(node.inputs.iter().all(|&input| layers.layer[input] < layers.layer[index]));
+            assert!(
+                node.inputs
+                    .iter()
+                    .all(|&input| layers.layer[input] < layers.layer[index])
+            );
         }
         assert_eq!(layers.counts.iter().sum::<usize>(), trace.nodes().len());
     }

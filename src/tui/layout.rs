@@ -28,7 +28,10 @@ pub enum Screen {
 
 /// True for the panes that share one slot in the narrow layout.
 pub fn shares_slot(pane: PaneId) -> bool {
-    matches!(pane, PaneId::Inflow | PaneId::Edges | PaneId::Trend | PaneId::Verify | PaneId::Paths)
+    matches!(
+        pane,
+        PaneId::Inflow | PaneId::Edges | PaneId::Trend | PaneId::Verify | PaneId::Paths
+    )
 }
 
 /// True for the panes that take turns in the Trend slot of the wide layout.
@@ -39,7 +42,13 @@ pub fn takes_corner(pane: PaneId) -> bool {
 /// The panes taking turns in `pane`'s slot, named as tabs in its title
 /// (empty when the slot is the pane's alone).
 pub fn slot_tabs(pane: PaneId, narrow: bool) -> &'static [PaneId] {
-    const NARROW: [PaneId; 5] = [PaneId::Inflow, PaneId::Edges, PaneId::Trend, PaneId::Verify, PaneId::Paths];
+    const NARROW: [PaneId; 5] = [
+        PaneId::Inflow,
+        PaneId::Edges,
+        PaneId::Trend,
+        PaneId::Verify,
+        PaneId::Paths,
+    ];
     const CORNER: [PaneId; 3] = [PaneId::Trend, PaneId::Verify, PaneId::Paths];
     match (narrow, shares_slot(pane), takes_corner(pane)) {
         (true, true, _) => &NARROW,
@@ -60,16 +69,34 @@ pub fn arrange(area: Rect, focus: PaneId, side: PaneId, corner: PaneId, zoomed: 
     if area.width < MIN_WIDTH || area.height < MIN_HEIGHT {
         return Screen::TooSmall;
     }
-    let [body, status] = area.layout(&Layout::vertical([Constraint::Fill(1), Constraint::Length(1)]));
+    let [body, status] = area.layout(&Layout::vertical([
+        Constraint::Fill(1),
+        Constraint::Length(1),
+    ]));
     if zoomed {
-        return Screen::Panes { panes: vec![(focus, body)], status };
+        return Screen::Panes {
+            panes: vec![(focus, body)],
+            status,
+        };
     }
     let panes = if area.width >= WIDE {
-        let [left, middle, right] =
-            body.layout(&Layout::horizontal([Constraint::Percentage(32), Constraint::Percentage(38), Constraint::Percentage(30)]));
-        let [order, flags] = left.layout(&Layout::vertical([Constraint::Percentage(72), Constraint::Percentage(28)]));
-        let [node, inflow] = middle.layout(&Layout::vertical([Constraint::Percentage(55), Constraint::Percentage(45)]));
-        let [edges, trend] = right.layout(&Layout::vertical([Constraint::Percentage(60), Constraint::Percentage(40)]));
+        let [left, middle, right] = body.layout(&Layout::horizontal([
+            Constraint::Percentage(32),
+            Constraint::Percentage(38),
+            Constraint::Percentage(30),
+        ]));
+        let [order, flags] = left.layout(&Layout::vertical([
+            Constraint::Percentage(72),
+            Constraint::Percentage(28),
+        ]));
+        let [node, inflow] = middle.layout(&Layout::vertical([
+            Constraint::Percentage(55),
+            Constraint::Percentage(45),
+        ]));
+        let [edges, trend] = right.layout(&Layout::vertical([
+            Constraint::Percentage(60),
+            Constraint::Percentage(40),
+        ]));
         vec![
             (PaneId::Order, order),
             (PaneId::Node, node),
@@ -79,10 +106,24 @@ pub fn arrange(area: Rect, focus: PaneId, side: PaneId, corner: PaneId, zoomed: 
             (PaneId::Flags, flags),
         ]
     } else {
-        let [left, right] = body.layout(&Layout::horizontal([Constraint::Percentage(48), Constraint::Percentage(52)]));
-        let [order, flags] = left.layout(&Layout::vertical([Constraint::Percentage(68), Constraint::Percentage(32)]));
-        let [node, slot] = right.layout(&Layout::vertical([Constraint::Percentage(50), Constraint::Percentage(50)]));
-        vec![(PaneId::Order, order), (PaneId::Node, node), (side, slot), (PaneId::Flags, flags)]
+        let [left, right] = body.layout(&Layout::horizontal([
+            Constraint::Percentage(48),
+            Constraint::Percentage(52),
+        ]));
+        let [order, flags] = left.layout(&Layout::vertical([
+            Constraint::Percentage(68),
+            Constraint::Percentage(32),
+        ]));
+        let [node, slot] = right.layout(&Layout::vertical([
+            Constraint::Percentage(50),
+            Constraint::Percentage(50),
+        ]));
+        vec![
+            (PaneId::Order, order),
+            (PaneId::Node, node),
+            (side, slot),
+            (PaneId::Flags, flags),
+        ]
     };
     Screen::Panes { panes, status }
 }
@@ -90,7 +131,10 @@ pub fn arrange(area: Rect, focus: PaneId, side: PaneId, corner: PaneId, zoomed: 
 /// The area of `pane` in `app`'s current arrangement, if shown.
 pub fn pane_area(app: &App, pane: PaneId) -> Option<Rect> {
     match screen(app) {
-        Screen::Panes { panes, .. } => panes.into_iter().find(|&(shown, _)| shown == pane).map(|(_, area)| area),
+        Screen::Panes { panes, .. } => panes
+            .into_iter()
+            .find(|&(shown, _)| shown == pane)
+            .map(|(_, area)| area),
         Screen::TooSmall => None,
     }
 }
@@ -98,8 +142,12 @@ pub fn pane_area(app: &App, pane: PaneId) -> Option<Rect> {
 /// The pane under a terminal cell and the row inside its border (0 = first
 /// row inside), if any.
 pub fn hit(app: &App, column: u16, row: u16) -> Option<(PaneId, u16)> {
-    let Screen::Panes { panes, .. } = screen(app) else { return None };
-    let (pane, area) = panes.into_iter().find(|(_, area)| area.contains(Position::new(column, row)))?;
+    let Screen::Panes { panes, .. } = screen(app) else {
+        return None;
+    };
+    let (pane, area) = panes
+        .into_iter()
+        .find(|(_, area)| area.contains(Position::new(column, row)))?;
     Some((pane, row.saturating_sub(area.y + 1)))
 }
 
@@ -109,37 +157,96 @@ mod tests {
 
     #[test]
     fn narrow_terminals_share_one_slot_and_small_ones_get_none() {
-        assert_eq!(arrange(Rect::new(0, 0, 79, 24), PaneId::Order, PaneId::Inflow, PaneId::Trend, false), Screen::TooSmall);
-        assert_eq!(arrange(Rect::new(0, 0, 80, 23), PaneId::Order, PaneId::Inflow, PaneId::Trend, false), Screen::TooSmall);
-        let Screen::Panes { panes, status } = arrange(Rect::new(0, 0, 80, 24), PaneId::Order, PaneId::Edges, PaneId::Trend, false) else {
+        assert_eq!(
+            arrange(
+                Rect::new(0, 0, 79, 24),
+                PaneId::Order,
+                PaneId::Inflow,
+                PaneId::Trend,
+                false
+            ),
+            Screen::TooSmall
+        );
+        assert_eq!(
+            arrange(
+                Rect::new(0, 0, 80, 23),
+                PaneId::Order,
+                PaneId::Inflow,
+                PaneId::Trend,
+                false
+            ),
+            Screen::TooSmall
+        );
+        let Screen::Panes { panes, status } = arrange(
+            Rect::new(0, 0, 80, 24),
+            PaneId::Order,
+            PaneId::Edges,
+            PaneId::Trend,
+            false,
+        ) else {
             panic!()
         };
         let shown: Vec<PaneId> = panes.iter().map(|(pane, _)| *pane).collect();
-        assert_eq!(shown, [PaneId::Order, PaneId::Node, PaneId::Edges, PaneId::Flags]);
+        assert_eq!(
+            shown,
+            [PaneId::Order, PaneId::Node, PaneId::Edges, PaneId::Flags]
+        );
         assert_eq!(status, Rect::new(0, 23, 80, 1));
-        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Trend, PaneId::Inflow, PaneId::Trend, false) else {
+        let Screen::Panes { panes, .. } = arrange(
+            Rect::new(0, 0, 200, 50),
+            PaneId::Trend,
+            PaneId::Inflow,
+            PaneId::Trend,
+            false,
+        ) else {
             panic!()
         };
         assert_eq!(panes.len(), 6);
         // Panes tile the body without overlapping.
         let cells: u32 = panes.iter().map(|(_, area)| area.area()).sum();
         assert_eq!(cells, 200 * 49);
-        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Trend, PaneId::Inflow, PaneId::Trend, true) else {
+        let Screen::Panes { panes, .. } = arrange(
+            Rect::new(0, 0, 200, 50),
+            PaneId::Trend,
+            PaneId::Inflow,
+            PaneId::Trend,
+            true,
+        ) else {
             panic!()
         };
         assert_eq!(panes, [(PaneId::Trend, Rect::new(0, 0, 200, 49))]);
         // Verify takes Trend's place in the wide layout, and joins the shared slot in the narrow one.
-        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Verify, PaneId::Inflow, PaneId::Verify, false) else {
+        let Screen::Panes { panes, .. } = arrange(
+            Rect::new(0, 0, 200, 50),
+            PaneId::Verify,
+            PaneId::Inflow,
+            PaneId::Verify,
+            false,
+        ) else {
             panic!()
         };
         let shown: Vec<PaneId> = panes.iter().map(|(pane, _)| *pane).collect();
-        assert!(shown.contains(&PaneId::Verify) && !shown.contains(&PaneId::Trend) && shown.len() == 6);
-        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 80, 24), PaneId::Verify, PaneId::Verify, PaneId::Trend, false) else {
+        assert!(
+            shown.contains(&PaneId::Verify) && !shown.contains(&PaneId::Trend) && shown.len() == 6
+        );
+        let Screen::Panes { panes, .. } = arrange(
+            Rect::new(0, 0, 80, 24),
+            PaneId::Verify,
+            PaneId::Verify,
+            PaneId::Trend,
+            false,
+        ) else {
             panic!()
         };
         assert_eq!(panes[2].0, PaneId::Verify);
         // So does Paths.
-        let Screen::Panes { panes, .. } = arrange(Rect::new(0, 0, 200, 50), PaneId::Paths, PaneId::Inflow, PaneId::Paths, false) else {
+        let Screen::Panes { panes, .. } = arrange(
+            Rect::new(0, 0, 200, 50),
+            PaneId::Paths,
+            PaneId::Inflow,
+            PaneId::Paths,
+            false,
+        ) else {
             panic!()
         };
         assert!(panes.iter().any(|(pane, _)| *pane == PaneId::Paths) && panes.len() == 6);

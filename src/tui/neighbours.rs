@@ -31,18 +31,25 @@ pub struct EdgeRow {
 /// The edges of `node`: inputs in argument order, then consumers in recording order.
 pub fn edges(trace: &Trace, node: usize) -> Vec<EdgeRow> {
     let recorded = trace.node(node);
-    let inputs = recorded.inputs.iter().enumerate().map(|(slot, &input)| EdgeRow {
-        side: Side::Input,
-        node: input,
-        slot,
-        partial: partial_text(trace, node, slot),
-    });
-    let consumers = trace.consumers(node).into_iter().map(|(consumer, slot)| EdgeRow {
-        side: Side::Consumer,
-        node: consumer,
-        slot,
-        partial: partial_text(trace, consumer, slot),
-    });
+    let inputs = recorded
+        .inputs
+        .iter()
+        .enumerate()
+        .map(|(slot, &input)| EdgeRow {
+            side: Side::Input,
+            node: input,
+            slot,
+            partial: partial_text(trace, node, slot),
+        });
+    let consumers = trace
+        .consumers(node)
+        .into_iter()
+        .map(|(consumer, slot)| EdgeRow {
+            side: Side::Consumer,
+            node: consumer,
+            slot,
+            partial: partial_text(trace, consumer, slot),
+        });
     inputs.chain(consumers).collect()
 }
 
@@ -55,18 +62,38 @@ pub fn partial_text(trace: &Trace, consumer: usize, slot: usize) -> String {
         Some(Partial::Scalar(s)) => return number(*s),
         Some(Partial::Diagonal(diagonal)) => return value_text(diagonal, "diagonal"),
         Some(Partial::Jacobian { rows, cols, data }) => {
-            return format!("Jacobian {rows}×{cols}, ‖·‖ {}", compact(crate::tensor::l2_norm(data)));
+            return format!(
+                "Jacobian {rows}×{cols}, ‖·‖ {}",
+                compact(crate::tensor::l2_norm(data))
+            );
         }
         None => {}
     }
-    let inputs: Vec<&Value> = recorded.inputs.iter().map(|&input| &trace.node(input).value).collect();
-    if let (Some(scalars), Value::Scalar(y)) = (inputs.iter().map(|value| value.as_scalar()).collect::<Option<Vec<f64>>>(), &recorded.value)
-        && inputs.iter().all(|value| matches!(value, Value::Scalar(_)))
-        && let Some(partial) = ops::scalar_partial(recorded.op, slot, &scalars, *y, &recorded.attrs, dtype)
+    let inputs: Vec<&Value> = recorded
+        .inputs
+        .iter()
+        .map(|&input| &trace.node(input).value)
+        .collect();
+    if let (Some(scalars), Value::Scalar(y)) = (
+        inputs
+            .iter()
+            .map(|value| value.as_scalar())
+            .collect::<Option<Vec<f64>>>(),
+        &recorded.value,
+    ) && inputs.iter().all(|value| matches!(value, Value::Scalar(_)))
+        && let Some(partial) =
+            ops::scalar_partial(recorded.op, slot, &scalars, *y, &recorded.attrs, dtype)
     {
         return number(partial);
     }
-    match ops::elementwise_partial(recorded.op, slot, &inputs, &recorded.value, &recorded.attrs, dtype) {
+    match ops::elementwise_partial(
+        recorded.op,
+        slot,
+        &inputs,
+        &recorded.value,
+        &recorded.attrs,
+        dtype,
+    ) {
         Some(partial) => value_text(&partial, "diagonal"),
         None => format!("{} rule (vector-Jacobian product)", recorded.op_name),
     }
@@ -75,7 +102,11 @@ pub fn partial_text(trace: &Trace, consumer: usize, slot: usize) -> String {
 fn value_text(value: &Value, what: &str) -> String {
     match value.as_scalar() {
         Some(x) if matches!(value, Value::Scalar(_)) => number(x),
-        _ => format!("{what} {}, ‖·‖ {}", crate::format::shape(value.shape()), compact(value.l2_norm())),
+        _ => format!(
+            "{what} {}, ‖·‖ {}",
+            crate::format::shape(value.shape()),
+            compact(value.l2_norm())
+        ),
     }
 }
 
@@ -93,11 +124,21 @@ mod tests {
         assert_eq!(rows[0].side, Side::Input);
         assert_eq!(rows[0].partial.parse::<f64>().unwrap(), (-1f64).exp());
         // ∂(a·b)/∂b = a: gross = margin·demand, margin = p − c = 1.5 (closed form).
-        let gross = rows.iter().find(|row| row.node == trace.find("gross").unwrap()).unwrap();
-        assert_eq!((gross.side, gross.slot, gross.partial.as_str()), (Side::Consumer, 1, "1.5"));
+        let gross = rows
+            .iter()
+            .find(|row| row.node == trace.find("gross").unwrap())
+            .unwrap();
+        assert_eq!(
+            (gross.side, gross.slot, gross.partial.as_str()),
+            (Side::Consumer, 1, "1.5")
+        );
         // demand_sq = demand·demand: one edge per slot, both with partial demand.
         let square = trace.find("demand_sq").unwrap();
-        let slots: Vec<usize> = rows.iter().filter(|row| row.node == square).map(|row| row.slot).collect();
+        let slots: Vec<usize> = rows
+            .iter()
+            .filter(|row| row.node == square)
+            .map(|row| row.slot)
+            .collect();
         assert_eq!(slots, [0, 1]);
     }
 }

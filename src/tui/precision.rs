@@ -16,7 +16,10 @@ pub struct Retyped<'t> {
 impl<'t> Retyped<'t> {
     /// No copies yet.
     pub fn new(recorded: &'t Trace) -> Retyped<'t> {
-        Retyped { recorded, copies: Default::default() }
+        Retyped {
+            recorded,
+            copies: Default::default(),
+        }
     }
 
     /// The trace as recorded.
@@ -30,14 +33,20 @@ impl<'t> Retyped<'t> {
         if dtype == self.recorded.dtype() {
             return self.recorded;
         }
-        let at = Dtype::ALL.iter().position(|&listed| listed == dtype).expect("every dtype is listed");
+        let at = Dtype::ALL
+            .iter()
+            .position(|&listed| listed == dtype)
+            .expect("every dtype is listed");
         self.copies[at].get_or_init(|| self.recorded.retyped(dtype, self.recorded.subnormals()))
     }
 
     /// Whether the copy in `dtype` exists already (the recorded dtype always does).
     pub fn has(&self, dtype: Dtype) -> bool {
         dtype == self.recorded.dtype()
-            || Dtype::ALL.iter().position(|&listed| listed == dtype).is_some_and(|at| self.copies[at].get().is_some())
+            || Dtype::ALL
+                .iter()
+                .position(|&listed| listed == dtype)
+                .is_some_and(|at| self.copies[at].get().is_some())
     }
 }
 
@@ -86,8 +95,13 @@ impl Contrast {
 /// The dtype after `current` in the toggle's cycle: the recorded dtype
 /// first, then f16, bf16, f32 and f64 in that order, without repeating it.
 pub fn next_dtype(recorded: Dtype, current: Dtype) -> Dtype {
-    let cycle: Vec<Dtype> = std::iter::once(recorded).chain(Dtype::ALL.into_iter().filter(|&dtype| dtype != recorded)).collect();
-    let at = cycle.iter().position(|&dtype| dtype == current).unwrap_or(0);
+    let cycle: Vec<Dtype> = std::iter::once(recorded)
+        .chain(Dtype::ALL.into_iter().filter(|&dtype| dtype != recorded))
+        .collect();
+    let at = cycle
+        .iter()
+        .position(|&dtype| dtype == current)
+        .unwrap_or(0);
     cycle[(at + 1) % cycle.len()]
 }
 
@@ -102,7 +116,10 @@ mod tests {
         while seen.len() < 5 {
             seen.push(next_dtype(Dtype::F32, *seen.last().unwrap()));
         }
-        assert_eq!(seen, [Dtype::F32, Dtype::F16, Dtype::Bf16, Dtype::F64, Dtype::F32]);
+        assert_eq!(
+            seen,
+            [Dtype::F32, Dtype::F16, Dtype::Bf16, Dtype::F64, Dtype::F32]
+        );
         assert_eq!(next_dtype(Dtype::F16, Dtype::F16), Dtype::Bf16);
         assert_eq!(next_dtype(Dtype::F16, Dtype::F64), Dtype::F16);
     }
@@ -119,9 +136,15 @@ mod tests {
         assert!(copies.has(Dtype::F64) && !copies.has(Dtype::F16));
         let half = copies.get(Dtype::F16);
         assert_eq!(half.dtype(), Dtype::F16);
-        assert_eq!(half.node(half.find("w").unwrap()).value.as_scalar(), Some(1.0));
+        assert_eq!(
+            half.node(half.find("w").unwrap()).value.as_scalar(),
+            Some(1.0)
+        );
         assert!(std::ptr::eq(half, copies.get(Dtype::F16)), "made once");
-        assert!(std::ptr::eq(copies.get(Dtype::F64), &trace), "the recorded dtype is the trace itself");
+        assert!(
+            std::ptr::eq(copies.get(Dtype::F64), &trace),
+            "the recorded dtype is the trace itself"
+        );
     }
 
     #[test]
@@ -129,7 +152,15 @@ mod tests {
         let here = Value::from_parts(vec![4], vec![0.0, 1.0, f64::INFINITY, 0.0]);
         let recorded = Value::from_parts(vec![4], vec![2f64.powi(-30), 1.0, 3.0, 0.0]);
         let contrast = Contrast::of(&here, &recorded);
-        assert_eq!((contrast.zero_here_only, contrast.zero_recorded_only, contrast.finiteness_differs, contrast.len), (1, 0, 1, 4));
+        assert_eq!(
+            (
+                contrast.zero_here_only,
+                contrast.zero_recorded_only,
+                contrast.finiteness_differs,
+                contrast.len
+            ),
+            (1, 0, 1, 4)
+        );
         assert_eq!(contrast.recorded_norm, (2f64.powi(-60) + 1.0 + 9.0).sqrt());
     }
 }

@@ -43,7 +43,13 @@ pub const MAX_CANDIDATES: usize = 8;
 impl Prompt {
     /// An empty prompt.
     pub fn new(kind: PromptKind) -> Prompt {
-        Prompt { kind, text: String::new(), candidates: Vec::new(), matches: 0, pick: 0 }
+        Prompt {
+            kind,
+            text: String::new(),
+            candidates: Vec::new(),
+            matches: 0,
+            pick: 0,
+        }
     }
 
     /// Recomputes the candidates from the text, with `by_id` the node
@@ -68,7 +74,12 @@ impl Prompt {
         let first = &trace.node(by_id[range.start]).id;
         let last = &trace.node(by_id[range.end - 1]).id;
         // Ids are sorted, so the prefix shared by the first and last is shared by all.
-        let shared: String = first.chars().zip(last.chars()).take_while(|(a, b)| a == b).map(|(a, _)| a).collect();
+        let shared: String = first
+            .chars()
+            .zip(last.chars())
+            .take_while(|(a, b)| a == b)
+            .map(|(a, _)| a)
+            .collect();
         if shared.len() > self.text.len() {
             self.text = shared;
             self.refresh(trace, by_id);
@@ -79,7 +90,9 @@ impl Prompt {
 
     /// The node a jump lands on: the exact id, else the highlighted candidate.
     pub fn target(&self, trace: &Trace) -> Option<usize> {
-        trace.find(&self.text).or_else(|| self.candidates.get(self.pick).copied())
+        trace
+            .find(&self.text)
+            .or_else(|| self.candidates.get(self.pick).copied())
     }
 }
 
@@ -122,15 +135,27 @@ mod tests {
         prompt.text = "s".to_string();
         prompt.refresh(&trace, &by_id);
         prompt.complete(&trace, &by_id);
-        assert_eq!(prompt.text, "s", "sensitivity, s_times_p and storage share only s");
+        assert_eq!(
+            prompt.text, "s",
+            "sensitivity, s_times_p and storage share only s"
+        );
         assert_eq!(prompt.pick, 1);
-        assert_eq!(prompt.target(&trace).map(|node| trace.node(node).id.as_str()), Some("sensitivity"));
+        assert_eq!(
+            prompt
+                .target(&trace)
+                .map(|node| trace.node(node).id.as_str()),
+            Some("sensitivity")
+        );
     }
 
     #[test]
     fn search_matches_id_op_and_group() {
         let trace = validate(crate::demos::teaching()).unwrap();
-        let hits = |query: &str| (0..trace.nodes().len()).filter(|&node| matches(&trace, node, query)).count();
+        let hits = |query: &str| {
+            (0..trace.nodes().len())
+                .filter(|&node| matches(&trace, node, query))
+                .count()
+        };
         assert_eq!(hits("mul"), 4);
         // The group profit holds margin, gross, demand_sq, storage and profit itself.
         assert_eq!(hits("profit"), 5);

@@ -58,7 +58,11 @@ pub fn band_style(theme: &Theme, band: Band) -> Style {
 }
 
 /// Every flag kind, for the legend in the help.
-pub const FLAG_KINDS: [FlagKind; 3] = [FlagKind::NonFiniteValue, FlagKind::NonFinitePartial, FlagKind::NonFiniteAdjoint];
+pub const FLAG_KINDS: [FlagKind; 3] = [
+    FlagKind::NonFiniteValue,
+    FlagKind::NonFinitePartial,
+    FlagKind::NonFiniteAdjoint,
+];
 
 /// Marker of the origin of a non-finite adjoint.
 pub const ORIGIN: &str = "◆";
@@ -101,11 +105,17 @@ pub fn finding_style(theme: &Theme, finding: &Finding) -> Style {
 /// norms fill the bar with `!`.
 pub fn magnitude_bar(norm: Option<f64>, width: usize) -> String {
     const EIGHTHS: [&str; 8] = ["", "▏", "▎", "▍", "▌", "▋", "▊", "▉"];
-    let Some(norm) = norm else { return " ".repeat(width) };
+    let Some(norm) = norm else {
+        return " ".repeat(width);
+    };
     if !norm.is_finite() {
         return "!".repeat(width);
     }
-    let decades = if norm > 0.0 { norm.log10() } else { f64::NEG_INFINITY };
+    let decades = if norm > 0.0 {
+        norm.log10()
+    } else {
+        f64::NEG_INFINITY
+    };
     let fraction = ((decades + 8.0) / 16.0).clamp(0.0, 1.0);
     let eighths = (fraction * (width * 8) as f64).round() as usize;
     let mut bar = "█".repeat(eighths / 8);
@@ -138,9 +148,25 @@ mod tests {
         let mut unique = symbols.clone();
         unique.dedup();
         assert_eq!(unique.len(), symbols.len());
-        assert!(![DONE, CURRENT, PENDING].iter().any(|marker| symbols.contains(marker)));
-        let bands: Vec<&str> = [Band::ProbablyWrong, Band::Doubtful, Band::Acceptable, Band::Good].map(band_symbol).to_vec();
-        assert!(bands.iter().enumerate().all(|(at, band)| !bands[at + 1..].contains(band) && !symbols.contains(band)));
+        assert!(
+            ![DONE, CURRENT, PENDING]
+                .iter()
+                .any(|marker| symbols.contains(marker))
+        );
+        let bands: Vec<&str> = [
+            Band::ProbablyWrong,
+            Band::Doubtful,
+            Band::Acceptable,
+            Band::Good,
+        ]
+        .map(band_symbol)
+        .to_vec();
+        assert!(
+            bands
+                .iter()
+                .enumerate()
+                .all(|(at, band)| !bands[at + 1..].contains(band) && !symbols.contains(band))
+        );
         assert_ne!(DIFFERS, AGREES);
     }
 
@@ -161,16 +187,37 @@ mod tests {
         };
         let mut findings: Vec<Finding> = Rule::ALL.iter().map(|&rule| finding(rule, 1e3)).collect();
         findings.push(finding(Rule::Gain, 1e-3));
-        let mut symbols: Vec<&str> = findings.iter().filter(|f| f.rule != Rule::NonFinite).map(finding_symbol).collect();
+        let mut symbols: Vec<&str> = findings
+            .iter()
+            .filter(|f| f.rule != Rule::NonFinite)
+            .map(finding_symbol)
+            .collect();
         symbols.push(ORIGIN);
         let count = symbols.len();
         symbols.sort();
         symbols.dedup();
         assert_eq!(symbols.len(), count, "{symbols:?}");
-        let bands = [Band::ProbablyWrong, Band::Doubtful, Band::Acceptable, Band::Good].map(band_symbol);
-        let taken: Vec<&str> =
-            FLAG_KINDS.iter().map(|&kind| flag_symbol(kind)).chain([DONE, CURRENT, PENDING, DIFFERS, AGREES]).chain(bands).collect();
-        assert!(!symbols.iter().any(|symbol| taken.contains(symbol)), "{symbols:?}");
-        assert_eq!(Span::raw(symbols.concat()).width(), symbols.len(), "one column each");
+        let bands = [
+            Band::ProbablyWrong,
+            Band::Doubtful,
+            Band::Acceptable,
+            Band::Good,
+        ]
+        .map(band_symbol);
+        let taken: Vec<&str> = FLAG_KINDS
+            .iter()
+            .map(|&kind| flag_symbol(kind))
+            .chain([DONE, CURRENT, PENDING, DIFFERS, AGREES])
+            .chain(bands)
+            .collect();
+        assert!(
+            !symbols.iter().any(|symbol| taken.contains(symbol)),
+            "{symbols:?}"
+        );
+        assert_eq!(
+            Span::raw(symbols.concat()).width(),
+            symbols.len(),
+            "one column each"
+        );
     }
 }

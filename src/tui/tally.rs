@@ -48,7 +48,9 @@ impl Tally {
     pub fn reset(&mut self, sweep: &Sweep) {
         let trace = sweep.trace();
         self.norms = vec![None; trace.nodes().len()];
-        self.norms[trace.output()] = sweep.adjoint(trace.output()).map(|adjoint| adjoint.l2_norm());
+        self.norms[trace.output()] = sweep
+            .adjoint(trace.output())
+            .map(|adjoint| adjoint.l2_norm());
         self.group_squares.iter_mut().for_each(|sum| *sum = 0.0);
         self.group_undo.clear();
         self.node_flags.clear();
@@ -122,7 +124,15 @@ impl Tally {
     /// together (√ of the sum of squares), in sweep order; `None` for groups
     /// with nothing processed yet.
     pub fn group_norms(&self) -> impl Iterator<Item = (&str, Option<f64>)> + '_ {
-        self.groups.iter().zip(&self.group_squares).map(|(name, &sum)| (name.as_str(), (sum > 0.0 || sum.is_nan()).then(|| sum.sqrt())))
+        self.groups
+            .iter()
+            .zip(&self.group_squares)
+            .map(|(name, &sum)| {
+                (
+                    name.as_str(),
+                    (sum > 0.0 || sum.is_nan()).then(|| sum.sqrt()),
+                )
+            })
     }
 
     /// The group name of `node`.
@@ -141,7 +151,11 @@ fn group_index(trace: &Trace) -> (Vec<u32>, Vec<String>) {
         let name = trace.node(node).group.as_str();
         let next = names.len() as u32;
         let at = *index.entry(name).or_insert_with(|| {
-            names.push(if name.is_empty() { "(no group)".to_string() } else { name.to_string() });
+            names.push(if name.is_empty() {
+                "(no group)".to_string()
+            } else {
+                name.to_string()
+            });
             next
         });
         group_of[node] = at;
@@ -168,12 +182,21 @@ mod tests {
         }
         // Every norm is the norm of the adjoint the sweep holds (common practice: L2 norm).
         for node in 0..trace.nodes().len() {
-            assert_eq!(tally.norm(node), sweep.adjoint(node).map(|adjoint| adjoint.l2_norm()));
+            assert_eq!(
+                tally.norm(node),
+                sweep.adjoint(node).map(|adjoint| adjoint.l2_norm())
+            );
         }
         while let Some((node, norms, squares)) = snapshots.pop() {
             assert_eq!((&tally.norms, &tally.group_squares), (&norms, &squares));
             let step = sweep.cursor() - 1;
-            let receivers: Vec<usize> = sweep.ledger().unwrap().step_entries(step).iter().map(|entry| entry.input).collect();
+            let receivers: Vec<usize> = sweep
+                .ledger()
+                .unwrap()
+                .step_entries(step)
+                .iter()
+                .map(|entry| entry.input)
+                .collect();
             sweep.back();
             tally.stepped_back(&sweep, node, &receivers);
         }

@@ -10,7 +10,9 @@ use super::precision::Retyped;
 use super::theme::Theme;
 use crate::trace::{self, LoadError, Trace};
 use ratatui::DefaultTerminal;
-use ratatui::crossterm::event::{self, DisableMouseCapture, EnableMouseCapture, Event, KeyEventKind, MouseButton, MouseEventKind};
+use ratatui::crossterm::event::{
+    self, DisableMouseCapture, EnableMouseCapture, Event, KeyEventKind, MouseButton, MouseEventKind,
+};
 use ratatui::crossterm::execute;
 use ratatui::layout::{Constraint, Flex, Layout};
 use ratatui::text::Line;
@@ -29,7 +31,9 @@ pub enum ViewError {
     #[error(transparent)]
     Load(#[from] LoadError),
     /// The terminal failed.
-    #[error("terminal: {0} (hint: run in an interactive terminal, or use `ebb check` / `ebb sweep`)")]
+    #[error(
+        "terminal: {0} (hint: run in an interactive terminal, or use `ebb check` / `ebb sweep`)"
+    )]
     Terminal(#[from] io::Error),
 }
 
@@ -89,24 +93,38 @@ pub fn open(path: &Path, themes: Vec<Theme>) -> Result<(), ViewError> {
         let (stage, fraction) = progress.read();
         session.terminal.draw(|frame| {
             let area = frame.area();
-            let [middle] = area.layout(&Layout::vertical([Constraint::Length(3)]).flex(Flex::Center));
+            let [middle] =
+                area.layout(&Layout::vertical([Constraint::Length(3)]).flex(Flex::Center));
             // Stages that know their size fill the gauge; the others sweep it to show the load is alive.
             let ratio = fraction.unwrap_or((elapsed / 2.0).fract());
-            let text = format!("{stage} {label} ({:.1} MB) … {elapsed:.1} s   q cancels", size as f64 / 1e6);
-            Gauge::default().block(Block::bordered().title(Line::raw(" Ebb "))).ratio(ratio).label(text).render(middle, frame.buffer_mut());
+            let text = format!(
+                "{stage} {label} ({:.1} MB) … {elapsed:.1} s   q cancels",
+                size as f64 / 1e6
+            );
+            Gauge::default()
+                .block(Block::bordered().title(Line::raw(" Ebb ")))
+                .ratio(ratio)
+                .label(text)
+                .render(middle, frame.buffer_mut());
         })?;
         if event::poll(Duration::from_millis(100))?
             && let Event::Key(key) = event::read()?
             && key.kind == KeyEventKind::Press
             && matches!(
-                super::keymap::KeyMap::default().lookup(Key::from_event(&key), super::action::PaneId::Order, false),
+                super::keymap::KeyMap::default().lookup(
+                    Key::from_event(&key),
+                    super::action::PaneId::Order,
+                    false
+                ),
                 Some(Action::Quit)
             )
         {
             return Ok(());
         }
     }
-    let trace = worker.join().map_err(|_| io::Error::other("the loader thread panicked"))??;
+    let trace = worker
+        .join()
+        .map_err(|_| io::Error::other("the loader thread panicked"))??;
     run(&mut session.terminal, &trace, &label, themes)
 }
 
@@ -119,23 +137,42 @@ struct SharedProgress {
 impl SharedProgress {
     /// The current stage and the fraction of it done, when its size is known.
     fn read(&self) -> (&'static str, Option<f64>) {
-        let (stage, total, done) = *self.state.lock().unwrap_or_else(|poisoned| poisoned.into_inner());
+        let (stage, total, done) = *self
+            .state
+            .lock()
+            .unwrap_or_else(|poisoned| poisoned.into_inner());
         let stage = if stage.is_empty() { "loading" } else { stage };
-        (stage, total.filter(|&t| t > 0).map(|t| (done as f64 / t as f64).min(1.0)))
+        (
+            stage,
+            total
+                .filter(|&t| t > 0)
+                .map(|t| (done as f64 / t as f64).min(1.0)),
+        )
     }
 }
 
 impl trace::Progress for SharedProgress {
     fn stage(&mut self, name: &'static str, total: Option<u64>) {
-        *self.state.lock().unwrap_or_else(|poisoned| poisoned.into_inner()) = (name, total, 0);
+        *self
+            .state
+            .lock()
+            .unwrap_or_else(|poisoned| poisoned.into_inner()) = (name, total, 0);
     }
 
     fn advance(&mut self, done: u64) {
-        self.state.lock().unwrap_or_else(|poisoned| poisoned.into_inner()).2 = done;
+        self.state
+            .lock()
+            .unwrap_or_else(|poisoned| poisoned.into_inner())
+            .2 = done;
     }
 }
 
-fn run(terminal: &mut DefaultTerminal, trace: &Trace, label: &str, themes: Vec<Theme>) -> Result<(), ViewError> {
+fn run(
+    terminal: &mut DefaultTerminal,
+    trace: &Trace,
+    label: &str,
+    themes: Vec<Theme>,
+) -> Result<(), ViewError> {
     let copies = Retyped::new(trace);
     let mut app = App::new(trace, label, themes).with_copies(&copies);
     while !app.quit {
@@ -154,7 +191,9 @@ fn run(terminal: &mut DefaultTerminal, trace: &Trace, label: &str, themes: Vec<T
         match event::read()? {
             Event::Key(key) if key.kind == KeyEventKind::Press => app.key(Key::from_event(&key)),
             Event::Mouse(mouse) => {
-                let Some((pane, row)) = layout::hit(&app, mouse.column, mouse.row) else { continue };
+                let Some((pane, row)) = layout::hit(&app, mouse.column, mouse.row) else {
+                    continue;
+                };
                 match mouse.kind {
                     MouseEventKind::Down(MouseButton::Left) => app.update(Action::Click(pane, row)),
                     MouseEventKind::ScrollDown => app.update(Action::Scroll(pane, 3)),

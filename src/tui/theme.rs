@@ -53,7 +53,11 @@ impl RoleFile {
         if let Some(ThemeColor(bg)) = self.bg {
             style = style.bg(bg);
         }
-        let modifiers = [(self.bold, Modifier::BOLD), (self.reversed, Modifier::REVERSED), (self.underlined, Modifier::UNDERLINED)];
+        let modifiers = [
+            (self.bold, Modifier::BOLD),
+            (self.reversed, Modifier::REVERSED),
+            (self.underlined, Modifier::UNDERLINED),
+        ];
         for (on, modifier) in modifiers {
             if on {
                 style = style.add_modifier(modifier);
@@ -161,13 +165,18 @@ pub enum ThemeError {
 }
 
 fn shipped_names() -> String {
-    SHIPPED.iter().map(|(name, _)| *name).collect::<Vec<_>>().join(", ")
+    SHIPPED
+        .iter()
+        .map(|(name, _)| *name)
+        .collect::<Vec<_>>()
+        .join(", ")
 }
 
 impl Theme {
     /// Parses theme text; `path` only labels errors.
     pub fn parse(text: &str, path: &Path) -> Result<Theme, ThemeError> {
-        let options = ron::Options::default().with_default_extension(ron::extensions::Extensions::IMPLICIT_SOME);
+        let options = ron::Options::default()
+            .with_default_extension(ron::extensions::Extensions::IMPLICIT_SOME);
         let file: ThemeFile = options.from_str(text).map_err(|error| ThemeError::Syntax {
             path: path.to_path_buf(),
             line: error.span.start.line,
@@ -216,7 +225,10 @@ impl Theme {
             return Ok(theme);
         }
         let path = Path::new(name_or_path);
-        let text = std::fs::read_to_string(path).map_err(|source| ThemeError::Io { path: path.to_path_buf(), source })?;
+        let text = std::fs::read_to_string(path).map_err(|source| ThemeError::Io {
+            path: path.to_path_buf(),
+            source,
+        })?;
         Theme::parse(&text, path)
     }
 
@@ -224,7 +236,10 @@ impl Theme {
     /// shipped) followed by every shipped theme, each without colour when
     /// `no_color` is set.
     pub fn cycle(first: Option<Theme>, no_color: bool) -> Vec<Theme> {
-        let mut themes: Vec<Theme> = SHIPPED.iter().filter_map(|(name, _)| Theme::shipped(name)).collect();
+        let mut themes: Vec<Theme> = SHIPPED
+            .iter()
+            .filter_map(|(name, _)| Theme::shipped(name))
+            .collect();
         if let Some(first) = first {
             match themes.iter().position(|theme| *theme == first) {
                 Some(at) => themes.rotate_left(at),
@@ -243,7 +258,11 @@ impl Theme {
     pub fn without_color(&self) -> Theme {
         let strip = |style: Style, fallback: Modifier| {
             let kept = Style::new().add_modifier(style.add_modifier);
-            if style.add_modifier.is_empty() { kept.add_modifier(fallback) } else { kept }
+            if style.add_modifier.is_empty() {
+                kept.add_modifier(fallback)
+            } else {
+                kept
+            }
         };
         let plain = |style: Style| Style::new().add_modifier(style.add_modifier);
         Theme {
@@ -284,17 +303,24 @@ mod tests {
     #[test]
     fn a_bad_colour_names_line_and_column() {
         let text = SHIPPED[0].1.replacen("fg: \"", "fg: \"no-such-", 1);
-        let error = Theme::parse(&text, Path::new("mine.ron")).unwrap_err().to_string();
+        let error = Theme::parse(&text, Path::new("mine.ron"))
+            .unwrap_err()
+            .to_string();
         assert!(error.starts_with("mine.ron:"), "{error}");
         let position: Vec<&str> = error.split(':').skip(1).take(2).collect();
-        assert!(position.iter().all(|part| part.parse::<usize>().is_ok()), "line:column missing in {error}");
+        assert!(
+            position.iter().all(|part| part.parse::<usize>().is_ok()),
+            "line:column missing in {error}"
+        );
         assert!(error.contains("is not a colour"), "{error}");
         assert_eq!(error.lines().count(), 1);
     }
 
     #[test]
     fn a_missing_role_is_named() {
-        let error = Theme::parse("(name: \"x\", text: ())", Path::new("t.ron")).unwrap_err().to_string();
+        let error = Theme::parse("(name: \"x\", text: ())", Path::new("t.ron"))
+            .unwrap_err()
+            .to_string();
         assert!(error.contains("muted"), "{error}");
         assert!(error.starts_with("t.ron:1:"), "{error}");
     }

@@ -80,8 +80,18 @@ impl Worst {
             .iter()
             .zip(expected)
             .enumerate()
-            .map(|(element, (&a, &e))| Worst { element, actual: a, expected: e, absolute: (a - e).abs(), relative: relative_error(a, e) })
-            .max_by(|x, y| x.relative.total_cmp(&y.relative).then(x.absolute.total_cmp(&y.absolute)))
+            .map(|(element, (&a, &e))| Worst {
+                element,
+                actual: a,
+                expected: e,
+                absolute: (a - e).abs(),
+                relative: relative_error(a, e),
+            })
+            .max_by(|x, y| {
+                x.relative
+                    .total_cmp(&y.relative)
+                    .then(x.absolute.total_cmp(&y.absolute))
+            })
     }
 
     /// The band of the worst element.

@@ -44,7 +44,11 @@ impl DifferenceEntry {
 
     /// The relative error that counts: zero within the floor.
     pub fn counted(&self) -> f64 {
-        if self.within_floor() { 0.0 } else { self.relative }
+        if self.within_floor() {
+            0.0
+        } else {
+            self.relative
+        }
     }
 }
 
@@ -66,17 +70,25 @@ pub struct DifferenceCheck {
 impl DifferenceCheck {
     /// The entry with the largest counted relative error.
     pub fn worst(&self) -> Option<&DifferenceEntry> {
-        self.entries.iter().max_by(|a, b| a.counted().total_cmp(&b.counted()).then(a.relative.total_cmp(&b.relative)))
+        self.entries.iter().max_by(|a, b| {
+            a.counted()
+                .total_cmp(&b.counted())
+                .then(a.relative.total_cmp(&b.relative))
+        })
     }
 
     /// The band of the worst entry.
     pub fn band(&self) -> Band {
-        self.worst().map_or(Band::Good, |worst| Band::of(worst.counted()))
+        self.worst()
+            .map_or(Band::Good, |worst| Band::of(worst.counted()))
     }
 
     /// Entries too small for the difference to resolve.
     pub fn below_floor(&self) -> usize {
-        self.entries.iter().filter(|entry| entry.within_floor() && entry.relative > 0.0).count()
+        self.entries
+            .iter()
+            .filter(|entry| entry.within_floor() && entry.relative > 0.0)
+            .count()
     }
 }
 
@@ -96,7 +108,12 @@ fn sample(len: usize, count: usize, seed: u64) -> Vec<usize> {
 /// ⟨seed, output⟩: the scalar whose gradient the sweep computes.
 fn objective(values: &[Value], trace: &Trace) -> f64 {
     let output = &values[trace.output()];
-    output.data().iter().zip(trace.seed().data()).map(|(&y, &s)| y * s).sum()
+    output
+        .data()
+        .iter()
+        .zip(trace.seed().data())
+        .map(|(&y, &s)| y * s)
+        .sum()
 }
 
 /// Which nodes depend on `source`.
@@ -115,20 +132,37 @@ pub fn check_finite_differences(sweep: &Sweep, samples: usize, seed: u64) -> Vec
     let trace = sweep.trace();
     let mut checks = Vec::new();
     for param in trace.params() {
-        let Some(adjoint) = sweep.adjoint(param) else { continue };
+        let Some(adjoint) = sweep.adjoint(param) else {
+            continue;
+        };
         let depends = downstream(trace, param);
-        let on_path: Vec<usize> = (0..trace.nodes().len()).filter(|&n| depends[n] && trace.sweep_rank(n).is_some()).collect();
-        let linearised = on_path.iter().copied().filter(|&n| trace.node(n).op == Op::Custom).collect();
-        let mut kinks: Vec<usize> = on_path.iter().copied().filter(|&n| kink_at(trace, n)).collect();
+        let on_path: Vec<usize> = (0..trace.nodes().len())
+            .filter(|&n| depends[n] && trace.sweep_rank(n).is_some())
+            .collect();
+        let linearised = on_path
+            .iter()
+            .copied()
+            .filter(|&n| trace.node(n).op == Op::Custom)
+            .collect();
+        let mut kinks: Vec<usize> = on_path
+            .iter()
+            .copied()
+            .filter(|&n| kink_at(trace, n))
+            .collect();
         let value = &trace.node(param).value;
         let mut entries = Vec::new();
-        for element in sample(value.len(), samples, seed ^ (param as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15)) {
+        for element in sample(
+            value.len(),
+            samples,
+            seed ^ (param as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15),
+        ) {
             let x = value.data()[element];
             let step = f64::EPSILON.cbrt() * x.abs().max(1.0);
             let evaluate = |shift: f64| {
                 let mut moved = value.clone();
                 moved.data_mut()[element] = x + shift;
-                reevaluate(trace, &[(param, moved)], Dtype::F64).expect("a parameter keeps its shape")
+                reevaluate(trace, &[(param, moved)], Dtype::F64)
+                    .expect("a parameter keeps its shape")
             };
             let (plus, minus) = (evaluate(step), evaluate(-step));
             for &node in &on_path {
@@ -140,31 +174,55 @@ pub fn check_finite_differences(sweep: &Sweep, samples: usize, seed: u64) -> Vec
             let central = (above - below) / (2.0 * step);
             let floor = 10.0 * f64::EPSILON * above.abs().max(below.abs()) / step;
             let reverse = adjoint.data()[element];
-            entries.push(DifferenceEntry { element, step, central, reverse, relative: relative_error(reverse, central), floor });
+            entries.push(DifferenceEntry {
+                element,
+                step,
+                central,
+                reverse,
+                relative: relative_error(reverse, central),
+                floor,
+            });
         }
         kinks.sort_unstable();
-        checks.push(DifferenceCheck { param, entries, kinks, linearised });
+        checks.push(DifferenceCheck {
+            param,
+            entries,
+            kinks,
+            linearised,
+        });
     }
     checks
 }
 
-fn kink_state<'v>(trace: &Trace, node: usize, value_of: impl Fn(usize) -> &'v Value) -> Option<Vec<i64>> {
+fn kink_state<'v>(
+    trace: &Trace,
+    node: usize,
+    value_of: impl Fn(usize) -> &'v Value,
+) -> Option<Vec<i64>> {
     let recorded = trace.node(node);
     if !matches!(recorded.op, Op::Relu | Op::LeakyRelu | Op::Abs | Op::Max) {
         return None;
     }
-    let inputs: Vec<&Value> = recorded.inputs.iter().map(|&input| value_of(input)).collect();
+    let inputs: Vec<&Value> = recorded
+        .inputs
+        .iter()
+        .map(|&input| value_of(input))
+        .collect();
     ops::kink_state(recorded.op, &inputs, &recorded.attrs)
 }
 
 /// A kink exactly at the recorded point.
 fn kink_at(trace: &Trace, node: usize) -> bool {
-    kink_state(trace, node, |input| &trace.node(input).value).is_some_and(|state| ops::on_kink(&state))
+    kink_state(trace, node, |input| &trace.node(input).value)
+        .is_some_and(|state| ops::on_kink(&state))
 }
 
 /// The two evaluations lie on different sides of a kink.
 fn crossed_kink(trace: &Trace, node: usize, plus: &[Value], minus: &[Value]) -> bool {
-    match (kink_state(trace, node, |input| &plus[input]), kink_state(trace, node, |input| &minus[input])) {
+    match (
+        kink_state(trace, node, |input| &plus[input]),
+        kink_state(trace, node, |input| &minus[input]),
+    ) {
         (Some(a), Some(b)) => a != b,
         _ => false,
     }

@@ -36,7 +36,12 @@ pub struct VerifyOptions {
 
 impl Default for VerifyOptions {
     fn default() -> Self {
-        VerifyOptions { tolerance: 1e-4, samples: 8, seed: 0xEBB, direction: None }
+        VerifyOptions {
+            tolerance: 1e-4,
+            samples: 8,
+            seed: 0xEBB,
+            direction: None,
+        }
     }
 }
 
@@ -136,12 +141,19 @@ pub fn verify(trace: &Trace, options: &VerifyOptions) -> Verification {
     let mut exact_sweep = Sweep::new(exact, LedgerMode::Off);
     exact_sweep.run_to_end();
     let differences = check_finite_differences(&exact_sweep, options.samples, options.seed);
-    let direction = options.direction.clone().unwrap_or(Direction::Random { seed: options.seed });
+    let direction = options
+        .direction
+        .clone()
+        .unwrap_or(Direction::Random { seed: options.seed });
     let mut tangent_sweep = TangentSweep::new(exact, &direction);
     tangent_sweep.run_to_end();
     let tangent = tangent_sweep.directional_derivative().map(|tangent| {
         let reverse = tangent_sweep.reverse_counterpart(&exact_sweep);
-        TangentCheck { tangent, reverse, relative: relative_error(tangent, reverse) }
+        TangentCheck {
+            tangent,
+            reverse,
+            relative: relative_error(tangent, reverse),
+        }
     });
     let sweep_flags = sweep.flags().len();
     let mut verification = Verification {
@@ -165,7 +177,11 @@ fn rank(trace: &Trace, found: &Verification) -> Vec<Suspect> {
     let tolerance = found.tolerance;
     let id = |node: usize| trace.node(node).id.as_str();
     let mut suspects = Vec::new();
-    for check in found.partials.iter().filter(|c| c.worst.relative > tolerance) {
+    for check in found
+        .partials
+        .iter()
+        .filter(|c| c.worst.relative > tolerance)
+    {
         let input = trace.node(check.node).inputs[check.slot];
         suspects.push(Suspect {
             node: check.node,
@@ -185,7 +201,11 @@ fn rank(trace: &Trace, found: &Verification) -> Vec<Suspect> {
     }
     if let Some(walk) = &found.walk {
         let last = *walk.path.last().expect("a walk starts at its parameter");
-        let relative = found.reported.iter().find(|c| c.node == last).map_or(1.0, |c| c.worst.relative);
+        let relative = found
+            .reported
+            .iter()
+            .find(|c| c.node == last)
+            .map_or(1.0, |c| c.worst.relative);
         for &suspect in &walk.suspects {
             suspects.push(Suspect {
                 node: suspect,
@@ -210,7 +230,11 @@ fn rank(trace: &Trace, found: &Verification) -> Vec<Suspect> {
         let explained = if check.kinks.is_empty() {
             String::new()
         } else {
-            let names: Vec<String> = check.kinks.iter().map(|&n| format!("'{}'", id(n))).collect();
+            let names: Vec<String> = check
+                .kinks
+                .iter()
+                .map(|&n| format!("'{}'", id(n)))
+                .collect();
             format!("; kinks at {} may explain it", names.join(", "))
         };
         suspects.push(Suspect {
@@ -230,7 +254,10 @@ fn rank(trace: &Trace, found: &Verification) -> Vec<Suspect> {
             evidence: Evidence::TangentIdentity,
             relative: tangent.relative,
             band: Band::of(tangent.relative),
-            detail: format!("tangent sweep gives {} but ⟨v, ∇f⟩ from the reverse sweep is {}", tangent.tangent, tangent.reverse),
+            detail: format!(
+                "tangent sweep gives {} but ⟨v, ∇f⟩ from the reverse sweep is {}",
+                tangent.tangent, tangent.reverse
+            ),
         });
     }
     suspects.sort_by(|a, b| b.relative.total_cmp(&a.relative));

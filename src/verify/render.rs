@@ -17,11 +17,21 @@ impl Verification {
             ));
         }
         if self.suspects.is_empty() && self.sweep_flags > 0 {
-            out.push_str(&format!("verdict  no mismatch beyond {} where the numbers are finite\n", self.tolerance));
+            out.push_str(&format!(
+                "verdict  no mismatch beyond {} where the numbers are finite\n",
+                self.tolerance
+            ));
         } else if self.suspects.is_empty() {
-            out.push_str(&format!("verdict  every check agrees within {}\n", self.tolerance));
+            out.push_str(&format!(
+                "verdict  every check agrees within {}\n",
+                self.tolerance
+            ));
         } else {
-            out.push_str(&format!("suspects {} (worst first, tolerance {})\n", self.suspects.len(), self.tolerance));
+            out.push_str(&format!(
+                "suspects {} (worst first, tolerance {})\n",
+                self.suspects.len(),
+                self.tolerance
+            ));
             for (rank, suspect) in self.suspects.iter().enumerate() {
                 out.push_str(&format!(
                     "  {}. '{}' ({})  {}  relative error {}: {}\n",
@@ -34,7 +44,10 @@ impl Verification {
                 ));
             }
         }
-        out.push_str(&format!("partials {} recorded partials of catalog ops checked against the op table", self.partials.len()));
+        out.push_str(&format!(
+            "partials {} recorded partials of catalog ops checked against the op table",
+            self.partials.len()
+        ));
         if !self.unchecked.is_empty() {
             out.push_str(&format!(", {} too large to check", self.unchecked.len()));
         }
@@ -54,7 +67,11 @@ impl Verification {
                 "  '{}'  {} {}  worst relative error {} ({})",
                 id(check.param),
                 check.entries.len(),
-                if check.entries.len() == 1 { "entry" } else { "entries" },
+                if check.entries.len() == 1 {
+                    "entry"
+                } else {
+                    "entries"
+                },
                 compact(worst.counted()),
                 check.band().name()
             );
@@ -67,16 +84,28 @@ impl Verification {
                 line.push_str(&format!("  kinks: {}", names.join(", ")));
             }
             if !check.linearised.is_empty() {
-                line.push_str(&format!("  through {} custom op(s) by their recorded partials", check.linearised.len()));
+                line.push_str(&format!(
+                    "  through {} custom op(s) by their recorded partials",
+                    check.linearised.len()
+                ));
             }
             out.push_str(&line);
             out.push('\n');
         }
         if self.reported.is_empty() {
-            out.push_str("reported no node carries a gradient reported by the original framework\n");
+            out.push_str(
+                "reported no node carries a gradient reported by the original framework\n",
+            );
         } else {
-            let disagreeing = self.reported.iter().filter(|c| c.worst.relative > self.tolerance).count();
-            out.push_str(&format!("reported {} reported gradients compared, {disagreeing} disagree\n", self.reported.len()));
+            let disagreeing = self
+                .reported
+                .iter()
+                .filter(|c| c.worst.relative > self.tolerance)
+                .count();
+            out.push_str(&format!(
+                "reported {} reported gradients compared, {disagreeing} disagree\n",
+                self.reported.len()
+            ));
         }
         if let Some(tangent) = &self.tangent {
             out.push_str(&format!(

@@ -37,20 +37,41 @@ pub fn check_reported(sweep: &Sweep, tolerance: f64) -> (Vec<ReportedComparison>
         .enumerate()
         .filter_map(|(node, recorded)| {
             let reported = recorded.reported.as_ref()?;
-            let adjoint = sweep.adjoint(node).cloned().unwrap_or_else(|| crate::tensor::Value::filled(reported.shape(), 0.0));
-            Some(ReportedComparison { node, worst: Worst::of(adjoint.data(), reported.data())? })
+            let adjoint = sweep
+                .adjoint(node)
+                .cloned()
+                .unwrap_or_else(|| crate::tensor::Value::filled(reported.shape(), 0.0));
+            Some(ReportedComparison {
+                node,
+                worst: Worst::of(adjoint.data(), reported.data())?,
+            })
         })
         .collect();
-    let disagrees = |node: usize| comparisons.iter().any(|c| c.node == node && c.worst.relative > tolerance);
-    let Some(param) = trace.params().find(|&p| disagrees(p)) else { return (comparisons, None) };
+    let disagrees = |node: usize| {
+        comparisons
+            .iter()
+            .any(|c| c.node == node && c.worst.relative > tolerance)
+    };
+    let Some(param) = trace.params().find(|&p| disagrees(p)) else {
+        return (comparisons, None);
+    };
     // Walk towards the output while some consumer already disagrees: the
     // error entered below the last disagreeing node.
     let mut path = vec![param];
     let mut current = param;
     loop {
-        let consumers: Vec<usize> =
-            trace.consumers(current).into_iter().map(|(c, _)| c).filter(|&c| trace.sweep_rank(c).is_some()).collect();
-        match consumers.iter().copied().filter(|&c| disagrees(c)).min_by_key(|&c| trace.sweep_rank(c)) {
+        let consumers: Vec<usize> = trace
+            .consumers(current)
+            .into_iter()
+            .map(|(c, _)| c)
+            .filter(|&c| trace.sweep_rank(c).is_some())
+            .collect();
+        match consumers
+            .iter()
+            .copied()
+            .filter(|&c| disagrees(c))
+            .min_by_key(|&c| trace.sweep_rank(c))
+        {
             Some(next) => {
                 path.push(next);
                 current = next;
@@ -58,7 +79,14 @@ pub fn check_reported(sweep: &Sweep, tolerance: f64) -> (Vec<ReportedComparison>
             None => {
                 let mut suspects = consumers;
                 suspects.dedup();
-                return (comparisons, Some(Walk { param, path, suspects }));
+                return (
+                    comparisons,
+                    Some(Walk {
+                        param,
+                        path,
+                        suspects,
+                    }),
+                );
             }
         }
     }

@@ -52,7 +52,9 @@ impl<'t> TangentSweep<'t> {
                 let mut rng = crate::random::Rng::new(seed);
                 for param in trace.params() {
                     let shape = trace.node(param).value.shape().to_vec();
-                    let data = (0..crate::tensor::numel(&shape)).map(|_| rng.uniform(-1.0, 1.0)).collect();
+                    let data = (0..crate::tensor::numel(&shape))
+                        .map(|_| rng.uniform(-1.0, 1.0))
+                        .collect();
                     seeds[param] = Some(Value::from_parts(shape, data));
                 }
             }
@@ -62,7 +64,12 @@ impl<'t> TangentSweep<'t> {
                 }
             }
         }
-        TangentSweep { trace, direction: seeds, tangents: vec![None; trace.nodes().len()], cursor: 0 }
+        TangentSweep {
+            trace,
+            direction: seeds,
+            tangents: vec![None; trace.nodes().len()],
+            cursor: 0,
+        }
     }
 
     /// Nodes processed so far (in recording order).
@@ -105,7 +112,11 @@ impl<'t> TangentSweep<'t> {
         let recorded = self.trace.node(node);
         let tangent = if recorded.op.is_leaf() {
             self.direction[node].clone()
-        } else if recorded.inputs.iter().all(|&input| self.tangents[input].is_none()) {
+        } else if recorded
+            .inputs
+            .iter()
+            .all(|&input| self.tangents[input].is_none())
+        {
             None
         } else {
             Some(self.push(node))
@@ -119,9 +130,17 @@ impl<'t> TangentSweep<'t> {
     fn push(&self, node: usize) -> Value {
         let (trace, dtype) = (self.trace, self.trace.dtype());
         let recorded = trace.node(node);
-        let zeros: Vec<Value> = recorded.inputs.iter().map(|&input| Value::filled(trace.node(input).value.shape(), 0.0)).collect();
-        let tangents: Vec<&Value> =
-            recorded.inputs.iter().zip(&zeros).map(|(&input, zero)| self.tangents[input].as_ref().unwrap_or(zero)).collect();
+        let zeros: Vec<Value> = recorded
+            .inputs
+            .iter()
+            .map(|&input| Value::filled(trace.node(input).value.shape(), 0.0))
+            .collect();
+        let tangents: Vec<&Value> = recorded
+            .inputs
+            .iter()
+            .zip(&zeros)
+            .map(|(&input, zero)| self.tangents[input].as_ref().unwrap_or(zero))
+            .collect();
         let has_recorded = recorded.partials.iter().any(Option::is_some);
         if recorded.op == Op::Custom || has_recorded {
             // Recorded partials are what the reverse sweep uses, so the tangent uses them too.
@@ -135,8 +154,18 @@ impl<'t> TangentSweep<'t> {
             }
             return total;
         }
-        let inputs: Vec<&Value> = recorded.inputs.iter().map(|&input| &trace.node(input).value).collect();
-        let args = JvpArgs { inputs: &inputs, output: &recorded.value, tangents: &tangents, attrs: &recorded.attrs, dtype };
+        let inputs: Vec<&Value> = recorded
+            .inputs
+            .iter()
+            .map(|&input| &trace.node(input).value)
+            .collect();
+        let args = JvpArgs {
+            inputs: &inputs,
+            output: &recorded.value,
+            tangents: &tangents,
+            attrs: &recorded.attrs,
+            dtype,
+        };
         ops::jvp(recorded.op, &args)
     }
 
@@ -144,10 +173,25 @@ impl<'t> TangentSweep<'t> {
     fn single_edge(&self, node: usize, slot: usize, tangent: &Value) -> Value {
         let (trace, dtype) = (self.trace, self.trace.dtype());
         let recorded = trace.node(node);
-        let inputs: Vec<&Value> = recorded.inputs.iter().map(|&input| &trace.node(input).value).collect();
-        let zeros: Vec<Value> = inputs.iter().map(|value| Value::filled(value.shape(), 0.0)).collect();
-        let tangents: Vec<&Value> = (0..inputs.len()).map(|k| if k == slot { tangent } else { &zeros[k] }).collect();
-        let args = JvpArgs { inputs: &inputs, output: &recorded.value, tangents: &tangents, attrs: &recorded.attrs, dtype };
+        let inputs: Vec<&Value> = recorded
+            .inputs
+            .iter()
+            .map(|&input| &trace.node(input).value)
+            .collect();
+        let zeros: Vec<Value> = inputs
+            .iter()
+            .map(|value| Value::filled(value.shape(), 0.0))
+            .collect();
+        let tangents: Vec<&Value> = (0..inputs.len())
+            .map(|k| if k == slot { tangent } else { &zeros[k] })
+            .collect();
+        let args = JvpArgs {
+            inputs: &inputs,
+            output: &recorded.value,
+            tangents: &tangents,
+            attrs: &recorded.attrs,
+            dtype,
+        };
         ops::jvp(recorded.op, &args)
     }
 
@@ -173,7 +217,13 @@ impl<'t> TangentSweep<'t> {
         if self.cursor <= output {
             return None;
         }
-        Some(self.tangents[output].as_ref().map_or(0.0, |t| t.data().iter().zip(self.trace.seed().data()).map(|(&a, &b)| a * b).sum()))
+        Some(self.tangents[output].as_ref().map_or(0.0, |t| {
+            t.data()
+                .iter()
+                .zip(self.trace.seed().data())
+                .map(|(&a, &b)| a * b)
+                .sum()
+        }))
     }
 
     /// ⟨v, ∇f⟩ from a finished reverse sweep: the same number by the other mode.
@@ -182,7 +232,14 @@ impl<'t> TangentSweep<'t> {
             .filter_map(|node| {
                 let direction = self.direction[node].as_ref()?;
                 let adjoint = sweep.adjoint(node)?;
-                Some(direction.data().iter().zip(adjoint.data()).map(|(&v, &g)| v * g).sum::<f64>())
+                Some(
+                    direction
+                        .data()
+                        .iter()
+                        .zip(adjoint.data())
+                        .map(|(&v, &g)| v * g)
+                        .sum::<f64>(),
+                )
             })
             .sum()
     }

@@ -27,8 +27,13 @@ pub fn swept(trace: &Trace) -> Sweep<'_> {
 
 /// The adjoint of node `id` in a sweep.
 pub fn adjoint<'a>(sweep: &'a Sweep, id: &str) -> &'a Value {
-    let node = sweep.trace().find(id).unwrap_or_else(|| panic!("no node {id}"));
-    sweep.adjoint(node).unwrap_or_else(|| panic!("node {id} has no adjoint"))
+    let node = sweep
+        .trace()
+        .find(id)
+        .unwrap_or_else(|| panic!("no node {id}"));
+    sweep
+        .adjoint(node)
+        .unwrap_or_else(|| panic!("node {id} has no adjoint"))
 }
 
 /// The scalar adjoint of node `id`.
@@ -40,7 +45,10 @@ pub fn scalar_adjoint(sweep: &Sweep, id: &str) -> f64 {
 #[track_caller]
 pub fn assert_close(actual: f64, expected: f64, tolerance: f64) {
     let scale = expected.abs().max(1e-300);
-    assert!((actual - expected).abs() <= tolerance * scale.max(1.0), "got {actual}, expected {expected} (tolerance {tolerance})");
+    assert!(
+        (actual - expected).abs() <= tolerance * scale.max(1.0),
+        "got {actual}, expected {expected} (tolerance {tolerance})"
+    );
 }
 
 pub use ebb::random::Rng;
@@ -48,5 +56,8 @@ pub use ebb::random::Rng;
 /// A tensor of entries uniform in [lo, hi).
 pub fn random_tensor(rng: &mut Rng, shape: &[usize], lo: f64, hi: f64) -> Value {
     let n = shape.iter().product();
-    Value::from_parts(shape.to_vec(), (0..n).map(|_| rng.uniform(lo, hi)).collect())
+    Value::from_parts(
+        shape.to_vec(),
+        (0..n).map(|_| rng.uniform(lo, hi)).collect(),
+    )
 }

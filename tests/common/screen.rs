@@ -11,13 +11,17 @@ use ratatui::layout::Rect;
 pub fn draw(app: &mut App, width: u16, height: u16) -> Buffer {
     app.resize(Rect::new(0, 0, width, height));
     let mut terminal = Terminal::new(TestBackend::new(width, height)).unwrap();
-    terminal.draw(|frame| frame.render_widget(&*app, frame.area())).unwrap();
+    terminal
+        .draw(|frame| frame.render_widget(&*app, frame.area()))
+        .unwrap();
     terminal.backend().buffer().clone()
 }
 
 /// Every row of the screen as text.
 pub fn rows(buf: &Buffer) -> Vec<String> {
-    (0..buf.area.height).map(|y| (0..buf.area.width).map(|x| buf[(x, y)].symbol()).collect()).collect()
+    (0..buf.area.height)
+        .map(|y| (0..buf.area.width).map(|x| buf[(x, y)].symbol()).collect())
+        .collect()
 }
 
 /// The whole screen, rows joined by newlines (for failure messages).
@@ -50,5 +54,7 @@ pub fn contains(buf: &Buffer, needle: &str) -> bool {
 
 /// The numbers in `text`, words split at spaces, parentheses and commas.
 pub fn numbers_in(text: &str) -> Vec<f64> {
-    text.split(|c: char| c.is_whitespace() || c == '(' || c == ')' || c == ',').filter_map(|word| word.parse::<f64>().ok()).collect()
+    text.split(|c: char| c.is_whitespace() || c == '(' || c == ')' || c == ',')
+        .filter_map(|word| word.parse::<f64>().ok())
+        .collect()
 }

@@ -33,7 +33,13 @@ enum Row {
 
 fn rows(app: &App) -> Vec<Row> {
     let edges = &app.selection.edges;
-    let side = |wanted: Side| edges.iter().enumerate().filter(move |(_, edge)| edge.side == wanted).map(|(at, _)| Row::Edge(at));
+    let side = |wanted: Side| {
+        edges
+            .iter()
+            .enumerate()
+            .filter(move |(_, edge)| edge.side == wanted)
+            .map(|(at, _)| Row::Edge(at))
+    };
     let mut rows = vec![Row::Inputs];
     rows.extend(side(Side::Input));
     if rows.len() == 1 {
@@ -80,7 +86,10 @@ impl Pane for EdgesPane {
         let list_height = (rows.len() + 1) as u16;
         let draw_map = app.layers.is_some() && area.height >= list_height + 8;
         let [list_area, map_area] = if draw_map {
-            area.layout(&Layout::vertical([Constraint::Length(list_height), Constraint::Fill(1)]))
+            area.layout(&Layout::vertical([
+                Constraint::Length(list_height),
+                Constraint::Fill(1),
+            ]))
         } else {
             [area, Rect::default()]
         };
@@ -89,8 +98,14 @@ impl Pane for EdgesPane {
         let mut lines: Vec<Line> = Vec::new();
         for row in &rows {
             match *row {
-                Row::Inputs => lines.push(Line::styled(format!("inputs ← each receives {selected}'s adjoint × ∂"), theme.muted)),
-                Row::Consumers => lines.push(Line::styled(format!("consumers → each sends its adjoint × ∂ to {selected}"), theme.muted)),
+                Row::Inputs => lines.push(Line::styled(
+                    format!("inputs ← each receives {selected}'s adjoint × ∂"),
+                    theme.muted,
+                )),
+                Row::Consumers => lines.push(Line::styled(
+                    format!("consumers → each sends its adjoint × ∂ to {selected}"),
+                    theme.muted,
+                )),
                 Row::Empty(text) => lines.push(Line::styled(text, theme.muted)),
                 Row::Edge(at) => {
                     let edge = &app.selection.edges[at];
@@ -111,9 +126,19 @@ impl Pane for EdgesPane {
                 }
             }
         }
-        let walk: Vec<&str> = app.walk.iter().rev().take(6).rev().map(|&node| trace.node(node).id.as_str()).collect();
+        let walk: Vec<&str> = app
+            .walk
+            .iter()
+            .rev()
+            .take(6)
+            .rev()
+            .map(|&node| trace.node(node).id.as_str())
+            .collect();
         if !walk.is_empty() {
-            lines.push(Line::styled(format!("walk: {} › {selected}  (Bksp goes back)", walk.join(" › ")), theme.muted));
+            lines.push(Line::styled(
+                format!("walk: {} › {selected}  (Bksp goes back)", walk.join(" › ")),
+                theme.muted,
+            ));
         }
         Paragraph::new(lines).render(list_area, buf);
         if draw_map {
@@ -158,9 +183,13 @@ fn draw_graph(app: &App, area: Rect, buf: &mut Buffer) {
         let y = tallest - (layers.row[node] as f64 + 0.5) * tallest / count;
         (x, y)
     };
-    let label_width = ((area.width as f64 / depth) as usize).saturating_sub(1).clamp(3, 12);
+    let label_width = ((area.width as f64 / depth) as usize)
+        .saturating_sub(1)
+        .clamp(3, 12);
     let selected = app.selected;
-    let near = |node: usize| trace.node(selected).inputs.contains(&node) || trace.node(node).inputs.contains(&selected);
+    let near = |node: usize| {
+        trace.node(selected).inputs.contains(&node) || trace.node(node).inputs.contains(&selected)
+    };
     Canvas::default()
         .marker(Marker::Braille)
         .x_bounds([-0.1, depth - 0.4])
@@ -171,8 +200,18 @@ fn draw_graph(app: &App, area: Rect, buf: &mut Buffer) {
                     let (x1, y1) = position(input);
                     let (x2, y2) = position(consumer);
                     let lit = consumer == selected || input == selected;
-                    let color = if lit { colour(theme.focus) } else { colour(theme.border) };
-                    ctx.draw(&Segment { x1: x1 + 0.3, y1, x2, y2, color });
+                    let color = if lit {
+                        colour(theme.focus)
+                    } else {
+                        colour(theme.border)
+                    };
+                    ctx.draw(&Segment {
+                        x1: x1 + 0.3,
+                        y1,
+                        x2,
+                        y2,
+                        color,
+                    });
                 }
             }
             ctx.layer();
@@ -184,7 +223,10 @@ fn draw_graph(app: &App, area: Rect, buf: &mut Buffer) {
                 } else if near(index) {
                     style = style.add_modifier(ratatui::style::Modifier::UNDERLINED);
                 }
-                let label: String = format!("{marker}{}", node.id).chars().take(label_width).collect();
+                let label: String = format!("{marker}{}", node.id)
+                    .chars()
+                    .take(label_width)
+                    .collect();
                 ctx.print(x, y, Line::styled(label, style));
             }
         })

@@ -25,7 +25,10 @@ fn first_shown(app: &App, rows: usize) -> usize {
 fn row_target(app: &App, at: usize) -> Option<(usize, String)> {
     let flags = app.sweep.flags();
     if let Some(flag) = flags.get(at) {
-        return Some((flag.node, format!("{} at {}", flag.kind.name(), app.trace.node(flag.node).id)));
+        return Some((
+            flag.node,
+            format!("{} at {}", flag.kind.name(), app.trace.node(flag.node).id),
+        ));
     }
     let diagnosed = app.diagnosis()?;
     let row = *diagnosed.rows.get(at - flags.len())?;
@@ -33,9 +36,16 @@ fn row_target(app: &App, at: usize) -> Option<(usize, String)> {
     let text = match row {
         Row::Origin(index) => {
             let origin = diagnosed.origin(index);
-            format!("origin ({}) at '{}': {}", origin.class.letter(), app.trace.node(node).id, origin.explanation)
+            format!(
+                "origin ({}) at '{}': {}",
+                origin.class.letter(),
+                app.trace.node(node).id,
+                origin.explanation
+            )
         }
-        Row::Finding(index) => diagnosed.finding(index).describe(app.trace, app.trace.dtype()),
+        Row::Finding(index) => diagnosed
+            .finding(index)
+            .describe(app.trace, app.trace.dtype()),
     };
     Some((node, text))
 }
@@ -51,7 +61,11 @@ impl Pane for FlagsPane {
             Some(diagnosed) => {
                 let origins = diagnosed.diagnosis.origins.len();
                 let findings = diagnosed.rows.len() - origins;
-                format!("{raised} · {origins} {} · {findings} {}", plural(origins, "origin"), plural(findings, "finding"))
+                format!(
+                    "{raised} · {origins} {} · {findings} {}",
+                    plural(origins, "origin"),
+                    plural(findings, "finding")
+                )
             }
             None if app.has_work() => format!("{raised} · diagnosing …"),
             None => format!("{raised} · D diagnoses"),
@@ -64,7 +78,9 @@ impl Pane for FlagsPane {
         let total = app.flag_rows();
         if total == 0 {
             let text = match app.diagnosis() {
-                Some(_) if app.sweep.is_done() => "none: every value, partial and adjoint is finite, and no rule fired",
+                Some(_) if app.sweep.is_done() => {
+                    "none: every value, partial and adjoint is finite, and no rule fired"
+                }
                 Some(_) => "none so far, and no rule fires on the whole sweep",
                 None if app.sweep.is_done() => "none: every value, partial and adjoint is finite",
                 None => "none so far (f runs to the next flag)",
@@ -84,7 +100,9 @@ impl Pane for FlagsPane {
                     let class = diagnosed
                         .filter(|_| flag.kind == FlagKind::NonFiniteAdjoint)
                         .and_then(|diagnosed| diagnosed.diagnosis.origin_of(flag.node))
-                        .map_or(String::new(), |origin| format!(" ({})", origin.class.letter()));
+                        .map_or(String::new(), |origin| {
+                            format!(" ({})", origin.class.letter())
+                        });
                     vec![
                         Span::styled(format!("{} ", flag_symbol(flag.kind)), style),
                         Span::styled(format!("step {:<5} ", flag.step + 1), theme.muted),
@@ -101,14 +119,19 @@ impl Pane for FlagsPane {
                             Span::styled(format!("{ORIGIN} "), theme.flag_origin),
                             Span::styled(format!("step {:<5} ", origin.step + 1), theme.muted),
                             Span::styled(id(origin.node), theme.text),
-                            Span::styled(format!("origin ({}) ", origin.class.letter()), theme.flag_origin),
+                            Span::styled(
+                                format!("origin ({}) ", origin.class.letter()),
+                                theme.flag_origin,
+                            ),
                             Span::styled(origin.class.title(), theme.text),
                         ]
                     }
                     Row::Finding(index) => {
                         let finding = diagnosed.finding(index);
                         let style = finding_style(theme, finding);
-                        let class = finding.class.map_or(String::new(), |class| format!(" ({})", class.letter()));
+                        let class = finding
+                            .class
+                            .map_or(String::new(), |class| format!(" ({})", class.letter()));
                         vec![
                             Span::styled(format!("{} ", finding_symbol(finding)), style),
                             Span::styled(format!("step {:<5} ", finding.step + 1), theme.muted),
@@ -140,7 +163,8 @@ impl Pane for FlagsPane {
     }
 
     fn click(&self, app: &mut App, row: usize) {
-        let rows = crate::tui::layout::pane_area(app, PaneId::Flags).map_or(1, |area| area.height.saturating_sub(2) as usize);
+        let rows = crate::tui::layout::pane_area(app, PaneId::Flags)
+            .map_or(1, |area| area.height.saturating_sub(2) as usize);
         let at = first_shown(app, rows) + row;
         if at < app.flag_rows() {
             app.flag_cursor = at;
@@ -150,5 +174,9 @@ impl Pane for FlagsPane {
 }
 
 fn plural(count: usize, word: &str) -> String {
-    if count == 1 { word.to_string() } else { format!("{word}s") }
+    if count == 1 {
+        word.to_string()
+    } else {
+        format!("{word}s")
+    }
 }

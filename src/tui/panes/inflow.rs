@@ -27,7 +27,11 @@ impl Pane for InflowPane {
         let trace = app.trace;
         let node = app.selected;
         let width = area.width as usize;
-        let received = app.sweep.ledger().map(|ledger| ledger.received(node)).unwrap_or_default();
+        let received = app
+            .sweep
+            .ledger()
+            .map(|ledger| ledger.received(node))
+            .unwrap_or_default();
         let pending = app.sweep.pending_consumers(node);
         let from_width = (width / 5).clamp(6, 14);
         let number_width = width.saturating_sub(5 + from_width + 1 + 4 + 1) / 2;
@@ -40,13 +44,23 @@ impl Pane for InflowPane {
             ]));
         }
         if trace.sweep_rank(node).is_none() {
-            lines.push(Line::styled("this node does not reach the output: it receives nothing", theme.muted));
+            lines.push(Line::styled(
+                "this node does not reach the output: it receives nothing",
+                theme.muted,
+            ));
         } else if received.is_empty() && node != trace.output() {
             lines.push(Line::styled("nothing received yet", theme.muted));
         }
         if !received.is_empty() {
             lines.push(Line::styled(
-                format!("{:>4} {} {:>3} {} {}", "step", fit("from", from_width), "in", fit("contribution", number_width), "adjoint after"),
+                format!(
+                    "{:>4} {} {:>3} {} {}",
+                    "step",
+                    fit("from", from_width),
+                    "in",
+                    fit("contribution", number_width),
+                    "adjoint after"
+                ),
                 theme.muted,
             ));
         }
@@ -55,10 +69,19 @@ impl Pane for InflowPane {
             .map(|entry| {
                 Line::from(vec![
                     Span::styled(format!("{:>4} ", entry.step + 1), theme.muted),
-                    Span::styled(fit(&trace.node(entry.consumer).id, from_width) + " ", theme.done),
+                    Span::styled(
+                        fit(&trace.node(entry.consumer).id, from_width) + " ",
+                        theme.done,
+                    ),
                     Span::styled(format!("{:>3} ", entry.slot), theme.muted),
-                    Span::styled(fit(&value_text(&entry.value, number_width), number_width) + " ", theme.text),
-                    Span::styled(value_text(&entry.after, number_width), theme.text.add_modifier(ratatui::style::Modifier::BOLD)),
+                    Span::styled(
+                        fit(&value_text(&entry.value, number_width), number_width) + " ",
+                        theme.text,
+                    ),
+                    Span::styled(
+                        value_text(&entry.after, number_width),
+                        theme.text.add_modifier(ratatui::style::Modifier::BOLD),
+                    ),
                 ])
             })
             .collect();
@@ -66,14 +89,23 @@ impl Pane for InflowPane {
         if trace.sweep_rank(node).is_some() {
             if pending.is_empty() {
                 let count = received.len();
-                lines.push(Line::styled(format!("complete: {count} contribution(s), the adjoint is final"), theme.done));
+                lines.push(Line::styled(
+                    format!("complete: {count} contribution(s), the adjoint is final"),
+                    theme.done,
+                ));
             } else {
-                lines.push(Line::styled(format!("to come ({}):", pending.len()), theme.muted));
+                lines.push(Line::styled(
+                    format!("to come ({}):", pending.len()),
+                    theme.muted,
+                ));
                 for (consumer, slot) in pending.iter().take(area.height as usize) {
                     let rank = trace.sweep_rank(*consumer).map_or(0, |rank| rank + 1);
                     lines.push(Line::from(vec![
                         Span::styled(format!("{rank:>4} "), theme.muted),
-                        Span::styled(fit(&trace.node(*consumer).id, from_width) + " ", theme.pending),
+                        Span::styled(
+                            fit(&trace.node(*consumer).id, from_width) + " ",
+                            theme.pending,
+                        ),
                         Span::styled(format!("{slot:>3}"), theme.muted),
                     ]));
                 }
@@ -83,7 +115,10 @@ impl Pane for InflowPane {
     }
 
     fn move_cursor(&self, app: &mut App, motion: Move) {
-        let len = app.sweep.ledger().map_or(0, |ledger| ledger.received(app.selected).len());
+        let len = app
+            .sweep
+            .ledger()
+            .map_or(0, |ledger| ledger.received(app.selected).len());
         app.inflow_scroll = motion.apply(app.inflow_scroll, len);
     }
 }

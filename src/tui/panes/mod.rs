@@ -82,14 +82,22 @@ pub fn pane(id: PaneId) -> &'static dyn Pane {
 pub fn value_text(value: &Value, width: usize) -> String {
     match value {
         Value::Scalar(x) => fit_number(*x, width),
-        Value::Tensor(t) => format!("{} ‖·‖ {}", crate::format::shape(t.shape()), compact(value.l2_norm())),
+        Value::Tensor(t) => format!(
+            "{} ‖·‖ {}",
+            crate::format::shape(t.shape()),
+            compact(value.l2_norm())
+        ),
     }
 }
 
 /// A number exactly when it fits in `width` columns, else in short form.
 pub fn fit_number(x: f64, width: usize) -> String {
     let exact = number(x);
-    if exact.chars().count() <= width { exact } else { compact(x) }
+    if exact.chars().count() <= width {
+        exact
+    } else {
+        compact(x)
+    }
 }
 
 /// `text` cut or padded to exactly `width` columns (cut text ends in `…`).
@@ -142,10 +150,18 @@ pub fn chain_text(ids: &[&str], width: usize) -> String {
     let (mut head, mut tail) = (1, 1);
     let text = |head: usize, tail: usize| {
         let omitted = ids.len() - head - tail;
-        format!("{} → … {omitted} … → {}", ids[..head].join(" → "), ids[ids.len() - tail..].join(" → "))
+        format!(
+            "{} → … {omitted} … → {}",
+            ids[..head].join(" → "),
+            ids[ids.len() - tail..].join(" → ")
+        )
     };
     loop {
-        let grown = if head <= tail { (head + 1, tail) } else { (head, tail + 1) };
+        let grown = if head <= tail {
+            (head + 1, tail)
+        } else {
+            (head, tail + 1)
+        };
         if grown.0 + grown.1 >= ids.len() || text(grown.0, grown.1).chars().count() > width {
             break;
         }
@@ -170,7 +186,13 @@ mod tests {
         let ids = ["a", "b", "c", "d", "e", "f", "g"];
         assert_eq!(chain_text(&ids, 80), "a → b → c → d → e → f → g");
         let short = chain_text(&ids, 20);
-        assert!(short.starts_with("a → ") && short.ends_with(" → g"), "{short}");
-        assert!(short.contains('…') && short.chars().count() <= 20, "{short}");
+        assert!(
+            short.starts_with("a → ") && short.ends_with(" → g"),
+            "{short}"
+        );
+        assert!(
+            short.contains('…') && short.chars().count() <= 20,
+            "{short}"
+        );
     }
 }

@@ -35,7 +35,11 @@ impl Pane for OrderPane {
 
     fn title_detail(&self, app: &App) -> String {
         match &app.forward {
-            Some(forward) => format!("forward · tangent step {}/{}", forward.sweep.cursor(), forward.sweep.len()),
+            Some(forward) => format!(
+                "forward · tangent step {}/{}",
+                forward.sweep.cursor(),
+                forward.sweep.len()
+            ),
             None => format!("step {}/{}", app.sweep.cursor(), app.sweep.len()),
         }
     }
@@ -46,7 +50,12 @@ impl Pane for OrderPane {
         }
         if let Some(forward) = &app.forward {
             // Fewer rows: the foot compares the two modes.
-            let first = offset(app, (area.height as usize).saturating_sub(super::order_forward::FOOT + 1).max(1));
+            let first = offset(
+                app,
+                (area.height as usize)
+                    .saturating_sub(super::order_forward::FOOT + 1)
+                    .max(1),
+            );
             super::order_forward::draw(app, forward, first, area, buf);
             return;
         }
@@ -66,7 +75,11 @@ impl Pane for OrderPane {
             "#",
             fit("node", id_width),
             fit("op", op_width),
-            if group_width > 0 { fit("group", group_width) + " " } else { String::new() },
+            if group_width > 0 {
+                fit("group", group_width) + " "
+            } else {
+                String::new()
+            },
             "‖adjoint‖",
             "log10"
         );
@@ -84,7 +97,11 @@ impl Pane for OrderPane {
             };
             let norm = app.tally.norm(node);
             let norm_text = norm.map_or("—".to_string(), compact);
-            let id_style = if rank == current { theme.current } else { theme.text };
+            let id_style = if rank == current {
+                theme.current
+            } else {
+                theme.text
+            };
             let mut spans = vec![
                 Span::styled(format!("{marker} "), marker_style),
                 Span::styled(format!("{:>step_width$} ", rank + 1), theme.muted),
@@ -92,13 +109,26 @@ impl Pane for OrderPane {
                 Span::styled(fit(&recorded.op_name, op_width), theme.muted),
             ];
             if group_width > 0 {
-                spans.push(Span::styled(fit(&recorded.group, group_width) + " ", theme.muted));
+                spans.push(Span::styled(
+                    fit(&recorded.group, group_width) + " ",
+                    theme.muted,
+                ));
             }
             spans.push(Span::styled(format!("{norm_text:>10} "), theme.text));
-            let bar_style = if norm.is_some_and(|n| !n.is_finite()) { theme.flag_adjoint } else { theme.chart };
-            spans.push(Span::styled(magnitude_bar(norm, bar_width) + " ", bar_style));
+            let bar_style = if norm.is_some_and(|n| !n.is_finite()) {
+                theme.flag_adjoint
+            } else {
+                theme.chart
+            };
+            spans.push(Span::styled(
+                magnitude_bar(norm, bar_width) + " ",
+                bar_style,
+            ));
             for &kind in app.tally.flags_at(node) {
-                spans.push(Span::styled(symbols::flag_symbol(kind), symbols::flag_style(theme, kind)));
+                spans.push(Span::styled(
+                    symbols::flag_symbol(kind),
+                    symbols::flag_style(theme, kind),
+                ));
             }
             let y = area.y + 1 + line as u16;
             buf.set_line(area.x, y, &Line::from(spans), area.width);
@@ -110,7 +140,9 @@ impl Pane for OrderPane {
 
     fn move_cursor(&self, app: &mut App, motion: Move) {
         let len = app.order_len();
-        let at = app.order_rank(app.selected).unwrap_or(app.sweep.cursor().min(len - 1));
+        let at = app
+            .order_rank(app.selected)
+            .unwrap_or(app.sweep.cursor().min(len - 1));
         let rank = motion.apply(at, len);
         app.select(app.order_node(rank));
     }
@@ -134,8 +166,13 @@ impl Pane for OrderPane {
         if row == 0 {
             return;
         }
-        let rows = crate::tui::layout::pane_area(app, PaneId::Order).map_or(1, |area| area.height.saturating_sub(3) as usize);
-        let rows = if app.forward.is_some() { rows.saturating_sub(super::order_forward::FOOT).max(1) } else { rows };
+        let rows = crate::tui::layout::pane_area(app, PaneId::Order)
+            .map_or(1, |area| area.height.saturating_sub(3) as usize);
+        let rows = if app.forward.is_some() {
+            rows.saturating_sub(super::order_forward::FOOT).max(1)
+        } else {
+            rows
+        };
         let rank = offset(app, rows) + row - 1;
         if rank < app.order_len() {
             app.select(app.order_node(rank));

@@ -23,7 +23,11 @@ pub fn foot<'a>(app: &App, forward: &Forward, width: usize) -> [Line<'a>; FOOT] 
     match forward.comparison() {
         Some(comparison) => {
             let agrees = comparison.agrees(VerifyOptions::default().tolerance);
-            let (mark, verdict, style) = if agrees { (AGREES, "agree", theme.done) } else { (DIFFERS, "DISAGREE", theme.flag_value) };
+            let (mark, verdict, style) = if agrees {
+                (AGREES, "agree", theme.done)
+            } else {
+                (DIFFERS, "DISAGREE", theme.flag_value)
+            };
             let number = |label: &str, x: f64, by: &str| {
                 Line::from(vec![
                     Span::styled(label.to_string(), theme.muted),
@@ -36,7 +40,13 @@ pub fn foot<'a>(app: &App, forward: &Forward, width: usize) -> [Line<'a>; FOOT] 
                 number("⟨v, ∇f⟩ ", comparison.reverse, "reverse"),
                 Line::from(vec![
                     Span::styled(format!("{mark} {verdict}"), style),
-                    Span::styled(format!(" (relative error {})", crate::format::compact(comparison.relative)), theme.muted),
+                    Span::styled(
+                        format!(
+                            " (relative error {})",
+                            crate::format::compact(comparison.relative)
+                        ),
+                        theme.muted,
+                    ),
                 ]),
             ]
         }
@@ -55,20 +65,45 @@ pub fn node_lines<'a>(app: &App, forward: &Forward, node: usize, width: usize) -
     let label = |text: &str| Span::styled(fit(text, 9), theme.muted);
     let cursor = forward.sweep.cursor();
     let (state, style) = match node.cmp(&cursor) {
-        std::cmp::Ordering::Less => (format!("{DONE} tangent known (forward step {})", node + 1), theme.done),
-        std::cmp::Ordering::Equal => (format!("{CURRENT} current: forward step {} computes its tangent", node + 1), theme.current),
-        std::cmp::Ordering::Greater => (format!("{PENDING} pending: forward step {}", node + 1), theme.pending),
+        std::cmp::Ordering::Less => (
+            format!("{DONE} tangent known (forward step {})", node + 1),
+            theme.done,
+        ),
+        std::cmp::Ordering::Equal => (
+            format!(
+                "{CURRENT} current: forward step {} computes its tangent",
+                node + 1
+            ),
+            theme.current,
+        ),
+        std::cmp::Ordering::Greater => (
+            format!("{PENDING} pending: forward step {}", node + 1),
+            theme.pending,
+        ),
     };
     let mut lines = vec![
         Line::from(vec![label("forward"), Span::styled(state, style)]),
-        Line::from(vec![label("dual"), Span::styled(forward.dual_text(node), theme.text.add_modifier(ratatui::style::Modifier::BOLD))]),
+        Line::from(vec![
+            label("dual"),
+            Span::styled(
+                forward.dual_text(node),
+                theme.text.add_modifier(ratatui::style::Modifier::BOLD),
+            ),
+        ]),
     ];
     if let Some(direction) = forward.sweep.direction(node) {
         let text = match direction.as_scalar() {
             Some(v) if direction.shape().is_empty() => format!("v here: {}", number(v)),
-            _ => format!("v here: {} ‖·‖ {}", crate::format::shape(direction.shape()), crate::format::compact(direction.l2_norm())),
+            _ => format!(
+                "v here: {} ‖·‖ {}",
+                crate::format::shape(direction.shape()),
+                crate::format::compact(direction.l2_norm())
+            ),
         };
-        lines.push(Line::from(vec![label("seed"), Span::styled(text, theme.muted)]));
+        lines.push(Line::from(vec![
+            label("seed"),
+            Span::styled(text, theme.muted),
+        ]));
     }
     if node == app.trace.output() {
         lines.extend(foot(app, forward, width));
@@ -87,8 +122,14 @@ pub fn draw(app: &App, forward: &Forward, first: usize, area: Rect, buf: &mut Bu
     let rest = width.saturating_sub(2 + step_width + 1 + op_width + 1);
     let number_width = (rest.saturating_sub(14) / 2).saturating_sub(1).clamp(8, 21);
     let id_width = rest.saturating_sub(2 * (number_width + 1)).max(4);
-    let header =
-        format!("  {:>step_width$} {} {} {} {}", "#", fit("node", id_width), fit("op", op_width), fit("value", number_width), "tangent");
+    let header = format!(
+        "  {:>step_width$} {} {} {} {}",
+        "#",
+        fit("node", id_width),
+        fit("op", op_width),
+        fit("value", number_width),
+        "tangent"
+    );
     buf.set_stringn(area.x, area.y, header, width, theme.muted);
     let rows = (area.height as usize).saturating_sub(FOOT + 1);
     let cursor = forward.sweep.cursor();
@@ -99,14 +140,31 @@ pub fn draw(app: &App, forward: &Forward, first: usize, area: Rect, buf: &mut Bu
             std::cmp::Ordering::Equal => (CURRENT, theme.current),
             std::cmp::Ordering::Greater => (PENDING, theme.pending),
         };
-        let id_style = if node == cursor { theme.current } else { theme.text };
+        let id_style = if node == cursor {
+            theme.current
+        } else {
+            theme.text
+        };
         let spans = vec![
             Span::styled(format!("{marker} "), marker_style),
             Span::styled(format!("{:>step_width$} ", node + 1), theme.muted),
             Span::styled(fit(&recorded.id, id_width) + " ", id_style),
-            Span::styled(fit(&recorded.op_name, op_width) + if op_width > 0 { " " } else { "" }, theme.muted),
-            Span::styled(fit(&value_text(&recorded.value, number_width), number_width) + " ", theme.text),
-            Span::styled(forward.tangent_text(node, number_width), if node < cursor { theme.text } else { theme.muted }),
+            Span::styled(
+                fit(&recorded.op_name, op_width) + if op_width > 0 { " " } else { "" },
+                theme.muted,
+            ),
+            Span::styled(
+                fit(&value_text(&recorded.value, number_width), number_width) + " ",
+                theme.text,
+            ),
+            Span::styled(
+                forward.tangent_text(node, number_width),
+                if node < cursor {
+                    theme.text
+                } else {
+                    theme.muted
+                },
+            ),
         ];
         let y = area.y + 1 + line as u16;
         buf.set_line(area.x, y, &Line::from(spans), area.width);
@@ -116,7 +174,12 @@ pub fn draw(app: &App, forward: &Forward, first: usize, area: Rect, buf: &mut Bu
     }
     if area.height as usize > FOOT + 1 {
         for (at, line) in foot(app, forward, width).iter().enumerate() {
-            buf.set_line(area.x, area.y + area.height - FOOT as u16 + at as u16, line, area.width);
+            buf.set_line(
+                area.x,
+                area.y + area.height - FOOT as u16 + at as u16,
+                line,
+                area.width,
+            );
         }
     }
 }

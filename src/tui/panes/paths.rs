@@ -37,11 +37,15 @@ enum Row {
 /// with a path, else the last one shown, else the diagnosis's headline parameter.
 pub fn shown_param(app: &App) -> Option<usize> {
     let diagnosed = app.diagnosis()?;
-    let has_path = |node: usize| app.trace.node(node).op == Op::Param && diagnosed.diagnosis.path_to(node).is_some();
+    let has_path = |node: usize| {
+        app.trace.node(node).op == Op::Param && diagnosed.diagnosis.path_to(node).is_some()
+    };
     if has_path(app.selected) {
         return Some(app.selected);
     }
-    app.paths_param.filter(|&param| has_path(param)).or_else(|| diagnosed.headline_param())
+    app.paths_param
+        .filter(|&param| has_path(param))
+        .or_else(|| diagnosed.headline_param())
 }
 
 fn shown_path<'a>(app: &'a App) -> Option<&'a DominantPath> {
@@ -49,7 +53,9 @@ fn shown_path<'a>(app: &'a App) -> Option<&'a DominantPath> {
 }
 
 fn rows(app: &App) -> Vec<Row> {
-    let Some(diagnosed) = app.diagnosis() else { return Vec::new() };
+    let Some(diagnosed) = app.diagnosis() else {
+        return Vec::new();
+    };
     let mut rows = Vec::new();
     match shown_path(app) {
         Some(path) => {
@@ -69,7 +75,11 @@ fn first_shown(app: &App, rows: usize) -> usize {
 
 /// The first node of `group` in sweep order.
 fn first_of_group(app: &App, group: &GroupNorm) -> Option<usize> {
-    app.trace.sweep_order().iter().copied().find(|&node| app.trace.node(node).group == group.group)
+    app.trace
+        .sweep_order()
+        .iter()
+        .copied()
+        .find(|&node| app.trace.node(node).group == group.group)
 }
 
 impl Pane for PathsPane {
@@ -82,7 +92,12 @@ impl Pane for PathsPane {
             (None, _) => String::new(),
             (Some(_), None) => "no path".to_string(),
             (Some(_), Some(path)) => {
-                format!("{}: gain 1e{:.1} over {} hops", app.trace.node(path.param).id, path.log10_gain, path.hops.len())
+                format!(
+                    "{}: gain 1e{:.1} over {} hops",
+                    app.trace.node(path.param).id,
+                    path.log10_gain,
+                    path.hops.len()
+                )
             }
         }
     }
@@ -90,7 +105,11 @@ impl Pane for PathsPane {
     fn draw(&self, app: &App, area: Rect, buf: &mut Buffer) {
         let theme = app.theme();
         let Some(diagnosed) = app.diagnosis() else {
-            let text = if app.has_work() { "diagnosing …" } else { "no diagnosis yet: D runs it" };
+            let text = if app.has_work() {
+                "diagnosing …"
+            } else {
+                "no diagnosis yet: D runs it"
+            };
             buf.set_stringn(area.x, area.y, text, area.width as usize, theme.muted);
             return;
         };
@@ -103,12 +122,22 @@ impl Pane for PathsPane {
         let path = shown_path(app);
         // Running log10 of the product of gains, for the hops shown.
         let mut product: f64 = match (path, all.get(first)) {
-            (Some(path), Some(Row::Hop(at))) => path.hops[..*at].iter().map(|hop| hop.gain.log10()).sum(),
+            (Some(path), Some(Row::Hop(at))) => {
+                path.hops[..*at].iter().map(|hop| hop.gain.log10()).sum()
+            }
             _ => 0.0,
         };
-        let (weakest, strongest) = path.map_or((None, None), |path| (path.weakest().copied(), path.strongest().copied()));
+        let (weakest, strongest) = path.map_or((None, None), |path| {
+            (path.weakest().copied(), path.strongest().copied())
+        });
         let id = |node: usize| app.trace.node(node).id.as_str();
-        for (line, &row) in all.iter().enumerate().skip(first).take(height).map(|(at, row)| (at - first, row)) {
+        for (line, &row) in all
+            .iter()
+            .enumerate()
+            .skip(first)
+            .take(height)
+            .map(|(at, row)| (at - first, row))
+        {
             let spans: Vec<Span> = match row {
                 Row::Path => {
                     let path = path.expect("a Path row has a path");
@@ -140,7 +169,10 @@ impl Pane for PathsPane {
                         Span::styled(fit(id(hop.from), id_width), theme.text),
                         Span::styled(" → ", theme.muted),
                         Span::styled(fit(id(hop.to), id_width), theme.text),
-                        Span::styled(format!(" ×{:<12}", compact(hop.gain)), gain_style(app, hop.gain)),
+                        Span::styled(
+                            format!(" ×{:<12}", compact(hop.gain)),
+                            gain_style(app, hop.gain),
+                        ),
                         Span::styled(format!(" ∏ 1e{product:.2}"), theme.muted),
                         mark,
                     ]
@@ -153,20 +185,36 @@ impl Pane for PathsPane {
                     };
                     vec![Span::styled(text, theme.muted)]
                 }
-                Row::Groups => vec![Span::styled("groups by depth: ‖adjoint‖ (bar: 1e-8 … 1e8), ratio to the group above", theme.title)],
+                Row::Groups => vec![Span::styled(
+                    "groups by depth: ‖adjoint‖ (bar: 1e-8 … 1e8), ratio to the group above",
+                    theme.title,
+                )],
                 Row::Group(at) => {
                     let group = &diagnosis.groups[at];
-                    let name = if group.group.is_empty() { "(no group)" } else { group.group.as_str() };
+                    let name = if group.group.is_empty() {
+                        "(no group)"
+                    } else {
+                        group.group.as_str()
+                    };
                     let ratio = match group.ratio {
                         None => Span::styled("", theme.muted),
-                        Some(ratio) if !ratio.is_finite() => Span::styled(format!(" ×{}", compact(ratio)), theme.text),
-                        Some(ratio) if ratio < 1.0 => Span::styled(format!(" ↓×{}", compact(ratio)), theme.flag_small),
-                        Some(ratio) => Span::styled(format!(" ↑×{}", compact(ratio)), theme.flag_large),
+                        Some(ratio) if !ratio.is_finite() => {
+                            Span::styled(format!(" ×{}", compact(ratio)), theme.text)
+                        }
+                        Some(ratio) if ratio < 1.0 => {
+                            Span::styled(format!(" ↓×{}", compact(ratio)), theme.flag_small)
+                        }
+                        Some(ratio) => {
+                            Span::styled(format!(" ↑×{}", compact(ratio)), theme.flag_large)
+                        }
                     };
                     vec![
                         Span::styled(fit(name, id_width + 4) + " ", theme.text),
                         Span::styled(format!("d{:<4}", group.depth), theme.muted),
-                        Span::styled(magnitude_bar(Some(group.adjoint_norm), 10) + " ", theme.chart_group),
+                        Span::styled(
+                            magnitude_bar(Some(group.adjoint_norm), 10) + " ",
+                            theme.chart_group,
+                        ),
                         Span::styled(format!("{:<11}", compact(group.adjoint_norm)), theme.text),
                         ratio,
                     ]
@@ -188,7 +236,9 @@ impl Pane for PathsPane {
         let target = match rows(app).get(app.paths_cursor) {
             Some(Row::Hop(at)) => shown_path(app).map(|path| path.hops[*at].to),
             Some(Row::Path) => shown_param(app),
-            Some(Row::Group(at)) => app.diagnosis().and_then(|diagnosed| first_of_group(app, &diagnosed.diagnosis.groups[*at])),
+            Some(Row::Group(at)) => app
+                .diagnosis()
+                .and_then(|diagnosed| first_of_group(app, &diagnosed.diagnosis.groups[*at])),
             _ => None,
         };
         if let Some(node) = target {
@@ -197,7 +247,8 @@ impl Pane for PathsPane {
     }
 
     fn click(&self, app: &mut App, row: usize) {
-        let height = crate::tui::layout::pane_area(app, PaneId::Paths).map_or(1, |area| area.height.saturating_sub(2) as usize);
+        let height = crate::tui::layout::pane_area(app, PaneId::Paths)
+            .map_or(1, |area| area.height.saturating_sub(2) as usize);
         let at = first_shown(app, height) + row;
         if at < rows(app).len() {
             app.paths_cursor = at;

@@ -27,7 +27,9 @@ pub fn series(app: &App, columns: usize) -> Vec<(f64, f64)> {
         let mut high: Option<(f64, f64)> = None;
         let end = (start + bucket).min(done);
         for (step, &node) in order.iter().enumerate().take(end).skip(start) {
-            let Some(norm) = app.tally.norm(node) else { continue };
+            let Some(norm) = app.tally.norm(node) else {
+                continue;
+            };
             if !(norm.is_finite() && norm > 0.0) {
                 continue;
             }
@@ -56,25 +58,55 @@ impl Pane for TrendPane {
         let theme = app.theme();
         let groups: Vec<(&str, Option<f64>)> = app.tally.group_norms().collect();
         let group_rows = (groups.len() as u16 + 1).min(area.height / 2);
-        let [chart_area, group_area] = area.layout(&Layout::vertical([Constraint::Fill(1), Constraint::Length(group_rows)]));
+        let [chart_area, group_area] = area.layout(&Layout::vertical([
+            Constraint::Fill(1),
+            Constraint::Length(group_rows),
+        ]));
         let points = series(app, chart_area.width as usize);
         if points.is_empty() {
-            Paragraph::new(Line::styled("no step done yet: s steps the sweep", theme.muted)).render(chart_area, buf);
+            Paragraph::new(Line::styled(
+                "no step done yet: s steps the sweep",
+                theme.muted,
+            ))
+            .render(chart_area, buf);
         } else {
-            let low = points.iter().map(|p| p.1).fold(f64::INFINITY, f64::min).floor();
-            let high = points.iter().map(|p| p.1).fold(f64::NEG_INFINITY, f64::max).ceil().max(low + 1.0);
+            let low = points
+                .iter()
+                .map(|p| p.1)
+                .fold(f64::INFINITY, f64::min)
+                .floor();
+            let high = points
+                .iter()
+                .map(|p| p.1)
+                .fold(f64::NEG_INFINITY, f64::max)
+                .ceil()
+                .max(low + 1.0);
             let steps = app.sweep.cursor().max(1) as f64;
-            let dataset = Dataset::default().marker(Marker::Braille).graph_type(GraphType::Line).style(theme.chart).data(&points);
+            let dataset = Dataset::default()
+                .marker(Marker::Braille)
+                .graph_type(GraphType::Line)
+                .style(theme.chart)
+                .data(&points);
             let x_axis = Axis::default()
                 .style(theme.muted)
                 .bounds([1.0, steps.max(2.0)])
                 .labels(["1".to_string(), format!("step {}", app.sweep.cursor())]);
-            let y_axis = Axis::default().style(theme.muted).bounds([low, high]).labels([format!("1e{low}"), format!("1e{high}")]);
-            Chart::new(vec![dataset]).x_axis(x_axis).y_axis(y_axis).style(theme.text).render(chart_area, buf);
+            let y_axis = Axis::default()
+                .style(theme.muted)
+                .bounds([low, high])
+                .labels([format!("1e{low}"), format!("1e{high}")]);
+            Chart::new(vec![dataset])
+                .x_axis(x_axis)
+                .y_axis(y_axis)
+                .style(theme.text)
+                .render(chart_area, buf);
         }
         let width = group_area.width as usize;
         let name_width = (width / 3).clamp(6, 24);
-        let mut lines = vec![Line::styled("per group, ‖adjoint‖ of processed nodes (sweep order)", theme.muted)];
+        let mut lines = vec![Line::styled(
+            "per group, ‖adjoint‖ of processed nodes (sweep order)",
+            theme.muted,
+        )];
         for (name, norm) in groups.iter().take(group_rows.saturating_sub(1) as usize) {
             lines.push(Line::from(vec![
                 Span::styled(fit(name, name_width) + " ", theme.text),
