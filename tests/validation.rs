@@ -258,9 +258,17 @@ fn malformed_input_never_panics() {
         (valid.as_str(), Encoding::Ron),
         (json.as_str(), Encoding::Json),
     ] {
+        assert!(
+            load_str(text, encoding, Path::new("whole")).is_ok(),
+            "the uncut text loads"
+        );
         for cut in (0..text.len()).step_by(7) {
             if text.is_char_boundary(cut) {
-                let _ = load_str(&text[..cut], encoding, Path::new("cut"));
+                // Every proper prefix is incomplete: an error, never a panic or a trace.
+                assert!(
+                    load_str(&text[..cut], encoding, Path::new("cut")).is_err(),
+                    "a prefix of {cut} bytes loaded"
+                );
             }
         }
         let replacements = [
