@@ -5,7 +5,7 @@
 
 mod common;
 
-use common::screen::{draw, find, row_with, rows, screen};
+use common::screen::{contains, draw, find, row_with, rows, screen};
 
 use ebb::dtype::Dtype;
 use ebb::sweep::{LedgerMode, Sweep};
@@ -460,4 +460,38 @@ fn the_keys_are_in_the_help() {
         below.contains("◆ origin of a non-finite adjoint"),
         "{below}"
     );
+}
+
+#[test]
+fn open_with_settings_uses_their_thresholds() {
+    // The teaching demo's output `profit = gross − storage` passes its adjoint 1
+    // on as +1 and −1, a gain of √2 ≈ 1.414 (closed form); with the gain rule's
+    // upper threshold at 1.2 that is a finding, with the default 100 it is not.
+    let trace = demo("teaching.ron");
+    let copies = Retyped::new(&trace);
+    let mut default = open(&trace, &copies);
+    default.update(Action::Focus(PaneId::Flags));
+    let buf = draw(&mut default, 200, 50);
+    assert!(
+        row_with(&buf, "6 Flags").contains("0 findings"),
+        "{}",
+        screen(&buf)
+    );
+
+    let settings = ebb::diagnose::Settings {
+        gain_above: 1.2,
+        ..ebb::diagnose::Settings::default()
+    };
+    let mut strict = App::new(&trace, "test", vec![Theme::default_theme()])
+        .with_copies(&copies)
+        .with_settings(settings);
+    settle(&mut strict);
+    strict.update(Action::Focus(PaneId::Flags));
+    let buf = draw(&mut strict, 200, 50);
+    assert!(
+        !row_with(&buf, "6 Flags").contains("0 findings"),
+        "{}",
+        screen(&buf)
+    );
+    assert!(contains(&buf, "1.414214"), "{}", screen(&buf));
 }

@@ -31,6 +31,12 @@ pub enum Command {
         /// A shipped theme (dark, light, contrast, colorblind) or a path to a .ron theme.
         #[arg(long, value_name = "NAME|PATH")]
         theme: Option<String>,
+        /// A RON settings file with the diagnosis's thresholds, as for `ebb check --rules`.
+        #[arg(long, value_name = "FILE")]
+        rules: Option<PathBuf>,
+        /// Override one diagnosis setting, as for `ebb check --set`; repeatable.
+        #[arg(long = "set", value_name = "NAME=VALUE")]
+        set: Vec<String>,
     },
     /// Load a trace, sweep it to the end, report gradients and flags.
     ///

@@ -41,11 +41,19 @@ pub struct BadInput(#[from] pub LoadError);
 /// Runs a parsed command line, writing to `out`.
 pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
     match cli.command {
-        None if std::io::stdout().is_terminal() => {
-            view(&load_demo()?, DEMO_NAME, cli.theme.as_deref())
-        }
+        None if std::io::stdout().is_terminal() => view(
+            &load_demo()?,
+            DEMO_NAME,
+            cli.theme.as_deref(),
+            Settings::default(),
+        ),
         None => check(DEMO_NAME, &load_demo()?, false, &Settings::default(), out),
-        Some(Command::Open { trace, theme }) => open(&trace, theme.as_deref()),
+        Some(Command::Open {
+            trace,
+            theme,
+            rules,
+            set,
+        }) => open(&trace, theme.as_deref(), settings(rules.as_deref(), &set)?),
         Some(Command::Check {
             trace,
             json,
@@ -104,18 +112,18 @@ fn themes(theme: Option<&str>) -> Result<Vec<Theme>> {
     Ok(Theme::cycle(first, tui::no_color_requested()))
 }
 
-fn open(path: &Path, theme: Option<&str>) -> Result<Outcome> {
+fn open(path: &Path, theme: Option<&str>, settings: Settings) -> Result<Outcome> {
     if !std::io::stdout().is_terminal() {
         return Err(NeedsTerminal(path.display().to_string()).into());
     }
     let themes = themes(theme)?;
-    tui::open(path, themes).map_err(view_error)?;
+    tui::open(path, themes, settings).map_err(view_error)?;
     Ok(Outcome::Clean)
 }
 
-fn view(trace: &Trace, label: &str, theme: Option<&str>) -> Result<Outcome> {
+fn view(trace: &Trace, label: &str, theme: Option<&str>, settings: Settings) -> Result<Outcome> {
     let themes = themes(theme)?;
-    tui::view(trace, label, themes).map_err(view_error)?;
+    tui::view(trace, label, themes, settings).map_err(view_error)?;
     Ok(Outcome::Clean)
 }
 

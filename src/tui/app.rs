@@ -202,6 +202,12 @@ impl<'t> App<'t> {
         self
     }
 
+    /// Diagnoses with these thresholds (`ebb open --rules/--set`) instead of the defaults.
+    pub fn with_settings(mut self, settings: crate::diagnose::Settings) -> App<'t> {
+        self.diagnoses = Diagnoses::with_settings(settings);
+        self
+    }
+
     /// The diagnosis of the sweep on screen (in the view's dtype), once made.
     pub fn diagnosis(&self) -> Option<&Diagnosed> {
         self.diagnoses.get(self.trace.dtype())
@@ -226,7 +232,7 @@ impl<'t> App<'t> {
         self.refresh();
     }
 
-    /// Sweeps the trace re-typed into `dtype` up to the same step, anD diagnoses it if the recorded one was.
+    /// Sweeps the trace re-typed into `dtype` up to the same step, and diagnoses it if the recorded one was.
     fn retype(&mut self, dtype: Dtype) {
         let Some(copies) = self.copies else { return };
         // The tangent sweep runs over the trace it was started on: forward mode ends here.

@@ -128,6 +128,14 @@ pub struct Diagnoses {
 }
 
 impl Diagnoses {
+    /// No diagnosis yet; the ones to come use `settings`.
+    pub fn with_settings(settings: Settings) -> Diagnoses {
+        Diagnoses {
+            settings,
+            done: Vec::new(),
+        }
+    }
+
     /// The diagnosis of the sweep in `dtype`, if made.
     pub fn get(&self, dtype: Dtype) -> Option<&Diagnosed> {
         self.done

@@ -8,6 +8,7 @@ use super::keymap::Key;
 use super::layout;
 use super::precision::Retyped;
 use super::theme::Theme;
+use crate::diagnose::Settings;
 use crate::trace::{self, LoadError, Trace};
 use ratatui::DefaultTerminal;
 use ratatui::crossterm::event::{
@@ -67,20 +68,25 @@ impl Drop for Session {
     }
 }
 
-/// Opens the view on an already loaded trace.
-pub fn view(trace: &Trace, label: &str, themes: Vec<Theme>) -> Result<(), ViewError> {
+/// Opens the view on an already loaded trace; `settings` are the diagnosis's thresholds.
+pub fn view(
+    trace: &Trace,
+    label: &str,
+    themes: Vec<Theme>,
+    settings: Settings,
+) -> Result<(), ViewError> {
     let mut session = Session::start()?;
-    run(&mut session.terminal, trace, label, themes)
+    run(&mut session.terminal, trace, label, themes, settings)
 }
 
 /// Loads `path` and opens the view on it. A large file loads on a worker
 /// thread behind a gauge; q or Ctrl-C abandons the load.
-pub fn open(path: &Path, themes: Vec<Theme>) -> Result<(), ViewError> {
+pub fn open(path: &Path, themes: Vec<Theme>, settings: Settings) -> Result<(), ViewError> {
     let size = std::fs::metadata(path).map(|meta| meta.len()).unwrap_or(0);
     let label = path.display().to_string();
     if size <= LARGE_FILE {
         let trace = trace::load(path)?;
-        return view(&trace, &label, themes);
+        return view(&trace, &label, themes, settings);
     }
     let mut session = Session::start()?;
     let owned = path.to_path_buf();
@@ -125,7 +131,7 @@ pub fn open(path: &Path, themes: Vec<Theme>) -> Result<(), ViewError> {
     let trace = worker
         .join()
         .map_err(|_| io::Error::other("the loader thread panicked"))??;
-    run(&mut session.terminal, &trace, &label, themes)
+    run(&mut session.terminal, &trace, &label, themes, settings)
 }
 
 /// The loader's progress, shared between the loading thread and the gauge.
@@ -172,9 +178,12 @@ fn run(
     trace: &Trace,
     label: &str,
     themes: Vec<Theme>,
+    settings: Settings,
 ) -> Result<(), ViewError> {
     let copies = Retyped::new(trace);
-    let mut app = App::new(trace, label, themes).with_copies(&copies);
+    let mut app = App::new(trace, label, themes)
+        .with_copies(&copies)
+        .with_settings(settings);
     while !app.quit {
         app.resize(terminal.size()?.into());
         terminal.draw(|frame| frame.render_widget(&app, frame.area()))?;
