@@ -11,10 +11,8 @@ pub use ledger::{Contribution, Ledger};
 pub use pullback::{Pulled, accumulate, pull_back, push_forward};
 
 use crate::dtype::Subnormals;
-use crate::ops;
 use crate::tensor::Value;
 use crate::trace::Trace;
-use crate::trace::compact::NO_ATTRS;
 
 /// Whether the sweep keeps its ledger.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -166,23 +164,10 @@ impl<'t> Sweep<'t> {
                 &Value::Scalar(output),
             ));
         }
-        let inputs = compact.inputs_of(node);
-        let mut input_values = [0.0f64; 2];
-        for (value, &input) in input_values.iter_mut().zip(inputs) {
-            *value = compact.scalars[input as usize];
-        }
-        let input_values = &input_values[..inputs.len()];
-        let attrs = if compact.reads_attrs[node] {
-            &trace.node(node).attrs
-        } else {
-            &NO_ATTRS
-        };
-        let op = compact.ops[node];
+        let (inputs, partials) = (compact.inputs_of(node), compact.partials_of(node));
         // Flush-to-zero applies to every stored result: the contribution and the sum.
         let flush = trace.subnormals() == Subnormals::Flush;
-        for (slot, &input) in inputs.iter().enumerate() {
-            let partial = ops::scalar_partial(op, slot, input_values, output, attrs, dtype)
-                .expect("fast-path nodes are elementwise");
+        for (slot, (&input, &partial)) in inputs.iter().zip(partials).enumerate() {
             let mut contribution = dtype.round(adjoint * partial);
             if flush {
                 contribution = dtype.flush(contribution);
@@ -210,7 +195,11 @@ impl<'t> Sweep<'t> {
                     &Value::Scalar(after),
                 );
             }
-            self.adjoints[input] = Some(Value::Scalar(after));
+            // Overwrite in place: assigning a new Option<Value> would run its drop glue per edge.
+            match &mut self.adjoints[input] {
+                Some(Value::Scalar(sum)) => *sum = after,
+                slot => *slot = Some(Value::Scalar(after)),
+            }
             if let Some(ledger) = &mut self.ledger {
                 let (value, before, after) = (
                     Value::Scalar(contribution),

@@ -32,7 +32,7 @@ impl Trace {
             }
         }
         // The sweep's fast path reads the compact copy of the values: rebuild it from the rounded ones.
-        retyped.compact = super::compact::Compact::new(&retyped.nodes);
+        retyped.compact = super::compact::Compact::new(&retyped.nodes, dtype);
         retyped
     }
 
@@ -53,7 +53,7 @@ impl Trace {
             );
             node.value = value;
         }
-        replaced.compact = super::compact::Compact::new(&replaced.nodes);
+        replaced.compact = super::compact::Compact::new(&replaced.nodes, replaced.dtype);
         replaced
     }
 }
