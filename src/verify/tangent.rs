@@ -154,45 +154,39 @@ impl<'t> TangentSweep<'t> {
             }
             return total;
         }
+        self.rule_tangent(node, &tangents)
+    }
+
+    /// The op rule's tangent of `node` for the given input tangents.
+    fn rule_tangent(&self, node: usize, tangents: &[&Value]) -> Value {
+        let recorded = self.trace.node(node);
         let inputs: Vec<&Value> = recorded
             .inputs
             .iter()
-            .map(|&input| &trace.node(input).value)
+            .map(|&input| &self.trace.node(input).value)
             .collect();
         let args = JvpArgs {
             inputs: &inputs,
             output: &recorded.value,
-            tangents: &tangents,
+            tangents,
             attrs: &recorded.attrs,
-            dtype,
+            dtype: self.trace.dtype(),
         };
         ops::jvp(recorded.op, &args)
     }
 
     /// The op rule's tangent through one edge alone (the others held still).
     fn single_edge(&self, node: usize, slot: usize, tangent: &Value) -> Value {
-        let (trace, dtype) = (self.trace, self.trace.dtype());
-        let recorded = trace.node(node);
-        let inputs: Vec<&Value> = recorded
+        let recorded = self.trace.node(node);
+        let zeros: Vec<Value> = recorded
             .inputs
             .iter()
-            .map(|&input| &trace.node(input).value)
+            .map(|&input| Value::filled(self.trace.node(input).value.shape(), 0.0))
             .collect();
-        let zeros: Vec<Value> = inputs
-            .iter()
-            .map(|value| Value::filled(value.shape(), 0.0))
-            .collect();
-        let tangents: Vec<&Value> = (0..inputs.len())
+        let tangents: Vec<&Value> = (0..zeros.len())
             .map(|k| if k == slot { tangent } else { &zeros[k] })
             .collect();
-        let args = JvpArgs {
-            inputs: &inputs,
-            output: &recorded.value,
-            tangents: &tangents,
-            attrs: &recorded.attrs,
-            dtype,
-        };
-        ops::jvp(recorded.op, &args)
+        self.rule_tangent(node, &tangents)
     }
 
     /// Undoes the last step. Returns false at the start.
