@@ -29,7 +29,14 @@ pub struct Sweep<'t> {
     trace: &'t Trace,
     /// Number of steps done; `trace.sweep_order()[cursor]` is next.
     cursor: usize,
+    /// Each node's adjoint slot. A scalar node's slot always holds a scalar,
+    /// −0.0 until its first contribution: −0.0 is the additive identity of
+    /// IEEE 754 arithmetic (−0 + x = x for every x, −0 and +0 included), so
+    /// adding every contribution gives exactly what assigning the first one
+    /// would, without a branch on "first or not" per edge.
     adjoints: Vec<Option<Value>>,
+    /// Whether the node has received its first contribution (or is the output).
+    received: Vec<bool>,
     ledger: Option<Ledger>,
     flags: Vec<Flag>,
     /// Flags raised by the seed itself, before any step; never undone.
@@ -39,8 +46,12 @@ pub struct Sweep<'t> {
 impl<'t> Sweep<'t> {
     /// A sweep at its start: only the output holds an adjoint, the seed.
     pub fn new(trace: &'t Trace, mode: LedgerMode) -> Sweep<'t> {
-        let mut adjoints = vec![None; trace.nodes().len()];
+        let mut adjoints: Vec<Option<Value>> = (0..trace.nodes().len())
+            .map(|node| empty_slot(trace, node))
+            .collect();
+        let mut received = vec![false; trace.nodes().len()];
         adjoints[trace.output()] = Some(trace.seed().clone());
+        received[trace.output()] = true;
         let ledger = (mode == LedgerMode::On).then(|| Ledger::new(trace.nodes().len()));
         let flags: Vec<Flag> =
             Flag::for_value(0, trace.output(), FlagKind::NonFiniteAdjoint, trace.seed())
@@ -50,6 +61,7 @@ impl<'t> Sweep<'t> {
             trace,
             cursor: 0,
             adjoints,
+            received,
             ledger,
             seed_flags: flags.len(),
             flags,
@@ -102,7 +114,11 @@ impl<'t> Sweep<'t> {
 
     /// The adjoint of `node` so far; `None` before its first contribution.
     pub fn adjoint(&self, node: usize) -> Option<&Value> {
-        self.adjoints[node].as_ref()
+        if self.received[node] {
+            self.adjoints[node].as_ref()
+        } else {
+            None
+        }
     }
 
     /// The ledger, when on.
@@ -176,15 +192,17 @@ impl<'t> Sweep<'t> {
                 self.flag_partial(step, node, slot, partial);
             }
             let input = input as usize;
-            let before = match &self.adjoints[input] {
-                None => None,
-                Some(Value::Scalar(sum)) => Some(*sum),
-                Some(Value::Tensor(_)) => unreachable!("a scalar input holds a scalar adjoint"),
+            let Some(Value::Scalar(sum)) = &mut self.adjoints[input] else {
+                unreachable!("a scalar node's slot holds a scalar")
             };
-            let mut after = before.map_or(contribution, |sum| dtype.round(sum + contribution));
+            let held = *sum;
+            // Before the first contribution `held` is −0.0, and −0.0 + c = c exactly.
+            let mut after = dtype.round(held + contribution);
             if flush {
                 after = dtype.flush(after);
             }
+            *sum = after;
+            let before = std::mem::replace(&mut self.received[input], true).then_some(held);
             if !after.is_finite() {
                 self.note_adjoint(
                     step,
@@ -194,11 +212,6 @@ impl<'t> Sweep<'t> {
                     before.map(Value::Scalar).as_ref(),
                     &Value::Scalar(after),
                 );
-            }
-            // Overwrite in place: assigning a new Option<Value> would run its drop glue per edge.
-            match &mut self.adjoints[input] {
-                Some(Value::Scalar(sum)) => *sum = after,
-                slot => *slot = Some(Value::Scalar(after)),
             }
             if let Some(ledger) = &mut self.ledger {
                 let (value, before, after) = (
@@ -244,7 +257,12 @@ impl<'t> Sweep<'t> {
             if let Some(bad) = pulled.bad_partial {
                 self.flag_partial(step, node, slot, bad);
             }
-            let before = self.adjoints[input].take();
+            let before = if self.received[input] {
+                self.adjoints[input].take()
+            } else {
+                None
+            };
+            self.received[input] = true;
             let mut after = accumulate(before.as_ref(), &pulled.contribution, dtype);
             if flush {
                 after
@@ -314,8 +332,12 @@ impl<'t> Sweep<'t> {
         let target = self.cursor - 1;
         match &mut self.ledger {
             Some(ledger) => {
-                let adjoints = &mut self.adjoints;
-                ledger.pop_step(|entry| adjoints[entry.input] = entry.before);
+                let (adjoints, received, trace) =
+                    (&mut self.adjoints, &mut self.received, self.trace);
+                ledger.pop_step(|entry| {
+                    received[entry.input] = entry.before.is_some();
+                    adjoints[entry.input] = entry.before.or_else(|| empty_slot(trace, entry.input));
+                });
                 self.cursor = target;
                 while self.flags.len() > self.seed_flags
                     && self.flags.last().is_some_and(|flag| flag.step >= target)
@@ -381,5 +403,14 @@ impl<'t> Sweep<'t> {
             self.restart();
         }
         self.run_steps(cursor - self.cursor);
+    }
+}
+
+/// A node's adjoint slot before any contribution: −0.0 for a scalar node
+/// (see `Sweep::adjoints`), nothing for a tensor node.
+fn empty_slot(trace: &Trace, node: usize) -> Option<Value> {
+    match trace.node(node).value {
+        Value::Scalar(_) => Some(Value::Scalar(-0.0)),
+        Value::Tensor(_) => None,
     }
 }
