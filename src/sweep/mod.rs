@@ -156,14 +156,20 @@ impl<'t> Sweep<'t> {
         if let Some(ledger) = &mut self.ledger {
             ledger.begin_step();
         }
+        self.process(node);
+        self.cursor += 1;
+        Some(node)
+    }
+
+    /// Pulls `node`'s adjoint back along its edges: the fast path for scalar
+    /// nodes of elementwise ops, the general one for everything else.
+    fn process(&mut self, node: usize) {
         match self.adjoints[node] {
             Some(Value::Scalar(adjoint)) if self.trace.compact().fast[node] => {
                 self.step_scalar(node, adjoint)
             }
             _ => self.step_general(node),
         }
-        self.cursor += 1;
-        Some(node)
     }
 
     /// The fast path for a scalar node of an elementwise op: reads only the
@@ -389,7 +395,18 @@ impl<'t> Sweep<'t> {
 
     /// Runs every remaining step.
     pub fn run_to_end(&mut self) -> usize {
-        self.run_to(|_| false)
+        let start = self.cursor;
+        if self.ledger.is_some() {
+            return self.run_to(|_| false);
+        }
+        // The same steps without the per-step bookkeeping of `run_to`: a full
+        // sweep with the ledger off is the engine's hot loop.
+        let order = self.trace.sweep_order();
+        while let Some(&node) = order.get(self.cursor) {
+            self.process(node);
+            self.cursor += 1;
+        }
+        self.cursor - start
     }
 
     /// Goes back or forward to exactly `cursor` steps done.
