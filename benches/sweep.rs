@@ -167,3 +167,51 @@ fn flat_loop(bencher: divan::Bencher, nodes: usize) {
             adjoints
         });
 }
+
+/// A second floor: the flat loop plus the checks every engine step makes —
+/// rounding into the dtype, a non-finite test on each partial and sum, and a
+/// received mark — over plain f64 arrays (slots start at −0.0, the additive
+/// identity). The gap from here to the engine is the cost of its
+/// representation (steppable state, `Option<Value>` slots, flags).
+#[divan::bench(args = SIZES, sample_count = 10, sample_size = 1)]
+fn flat_loop_with_checks(bencher: divan::Bencher, nodes: usize) {
+    let trace = trace(nodes);
+    let mut input_start = vec![0u32];
+    let (mut inputs, mut partials) = (Vec::new(), Vec::new());
+    for node in 0..nodes {
+        let recorded = trace.node(node);
+        for (slot, &input) in recorded.inputs.iter().enumerate() {
+            inputs.push(input as u32);
+            partials.push(
+                trace
+                    .node(recorded.inputs[1 - slot])
+                    .value
+                    .as_scalar()
+                    .unwrap(),
+            );
+        }
+        input_start.push(inputs.len() as u32);
+    }
+    let (dtype, output) = (trace.dtype(), trace.output());
+    bencher
+        .with_inputs(|| (vec![-0.0f64; nodes], vec![false; nodes], Vec::<u32>::new()))
+        .bench_local_values(|(mut adjoints, mut received, mut flagged)| {
+            adjoints[output] = 1.0;
+            received[output] = true;
+            for &node in trace.sweep_order() {
+                let adjoint = adjoints[node];
+                let (start, end) = (input_start[node] as usize, input_start[node + 1] as usize);
+                for k in start..end {
+                    let input = inputs[k] as usize;
+                    let contribution = dtype.round(adjoint * partials[k]);
+                    let after = dtype.round(adjoints[input] + contribution);
+                    adjoints[input] = after;
+                    received[input] = true;
+                    if !(after.is_finite() && partials[k].is_finite()) {
+                        flagged.push(input as u32);
+                    }
+                }
+            }
+            (adjoints, received, flagged)
+        });
+}
