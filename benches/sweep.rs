@@ -139,6 +139,27 @@ fn sweep_ledger_on(bencher: divan::Bencher, nodes: usize) {
         });
 }
 
+/// The local partial on one edge, from the op table (the only place a
+/// derivative is written).
+fn edge_partial(trace: &ebb::trace::Trace, node: usize, slot: usize) -> f64 {
+    let recorded = trace.node(node);
+    let inputs: Vec<f64> = recorded
+        .inputs
+        .iter()
+        .map(|&i| trace.node(i).value.as_scalar().unwrap())
+        .collect();
+    let output = recorded.value.as_scalar().unwrap();
+    ebb::ops::scalar_partial(
+        recorded.op,
+        slot,
+        &inputs,
+        output,
+        &recorded.attrs,
+        trace.dtype(),
+    )
+    .expect("elementwise")
+}
+
 /// The floor: the same accumulation over flat arrays of (receiver, sender,
 /// partial) in sweep order, partials precomputed.
 #[divan::bench(args = SIZES, sample_count = 10, sample_size = 1)]
@@ -148,12 +169,7 @@ fn flat_loop(bencher: divan::Bencher, nodes: usize) {
     for &node in trace.sweep_order() {
         let recorded = trace.node(node);
         for (slot, &input) in recorded.inputs.iter().enumerate() {
-            let partial = trace
-                .node(recorded.inputs[1 - slot])
-                .value
-                .as_scalar()
-                .unwrap();
-            edges.push((input as u32, node as u32, partial));
+            edges.push((input as u32, node as u32, edge_partial(trace, node, slot)));
         }
     }
     let output = trace.output();
@@ -182,13 +198,7 @@ fn flat_loop_with_checks(bencher: divan::Bencher, nodes: usize) {
         let recorded = trace.node(node);
         for (slot, &input) in recorded.inputs.iter().enumerate() {
             inputs.push(input as u32);
-            partials.push(
-                trace
-                    .node(recorded.inputs[1 - slot])
-                    .value
-                    .as_scalar()
-                    .unwrap(),
-            );
+            partials.push(edge_partial(trace, node, slot));
         }
         input_start.push(inputs.len() as u32);
     }
