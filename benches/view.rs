@@ -38,6 +38,23 @@ fn key(c: char) -> Key {
     Key::from_event(&KeyEvent::new(KeyCode::Char(c), KeyModifiers::NONE))
 }
 
+/// Times one key, alternately step and step back so the state stays put, and one frame.
+fn alternate_step_and_back(
+    bencher: divan::Bencher,
+    app: &mut App,
+    terminal: &mut Terminal<TestBackend>,
+) {
+    let mut forward = true;
+    bencher.bench_local(|| {
+        app.key(key(if forward { 's' } else { 'b' }));
+        forward = !forward;
+        app.resize(ratatui::layout::Rect::new(0, 0, 200, 50));
+        terminal
+            .draw(|frame| frame.render_widget(&*app, frame.area()))
+            .unwrap();
+    });
+}
+
 /// One key (alternately step and step back, so the state stays put) and one frame.
 #[divan::bench(args = [10_000, 1_000_000], sample_count = 200)]
 fn key_and_frame(bencher: divan::Bencher, nodes: usize) {
@@ -48,15 +65,7 @@ fn key_and_frame(bencher: divan::Bencher, nodes: usize) {
     for _ in 0..100 {
         app.key(key('s'));
     }
-    let mut forward = true;
-    bencher.bench_local(|| {
-        app.key(key(if forward { 's' } else { 'b' }));
-        forward = !forward;
-        app.resize(ratatui::layout::Rect::new(0, 0, 200, 50));
-        terminal
-            .draw(|frame| frame.render_widget(&app, frame.area()))
-            .unwrap();
-    });
+    alternate_step_and_back(bencher, &mut app, &mut terminal);
 }
 
 /// One frame with the selection scrolled far down the sweep order (the
@@ -85,15 +94,7 @@ fn forward_key_and_frame(bencher: divan::Bencher, nodes: usize) {
     for _ in 0..100 {
         app.key(key('s'));
     }
-    let mut forward = true;
-    bencher.bench_local(|| {
-        app.key(key(if forward { 's' } else { 'b' }));
-        forward = !forward;
-        app.resize(ratatui::layout::Rect::new(0, 0, 200, 50));
-        terminal
-            .draw(|frame| frame.render_widget(&app, frame.area()))
-            .unwrap();
-    });
+    alternate_step_and_back(bencher, &mut app, &mut terminal);
 }
 
 /// Running every verification check from the Verify pane (`v`), and one frame of its result.

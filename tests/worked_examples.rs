@@ -51,33 +51,27 @@ fn baydin_reverse_trace_every_adjoint_and_order() {
     // v̄−1 = v̄2·v0 first, then v̄−1 += v̄1 / v−1.
     let ledger = sweep.ledger().unwrap();
     let id = |node: usize| trace.node(node).id.as_str();
-    let x2: Vec<(&str, f64, f64)> = ledger
-        .received(trace.find("x2").unwrap())
-        .iter()
-        .map(|c| {
-            (
-                id(c.consumer),
-                c.value.as_scalar().unwrap(),
-                c.after.as_scalar().unwrap(),
-            )
-        })
-        .collect();
+    // (consumer, contribution, adjoint after) in order of arrival.
+    let arrivals = |name: &str| -> Vec<(&str, f64, f64)> {
+        ledger
+            .received(trace.find(name).unwrap())
+            .iter()
+            .map(|c| {
+                (
+                    id(c.consumer),
+                    c.value.as_scalar().unwrap(),
+                    c.after.as_scalar().unwrap(),
+                )
+            })
+            .collect()
+    };
+    let x2 = arrivals("x2");
     assert_eq!(x2.len(), 2);
     assert_eq!(x2[0].0, "v3");
     assert_close(x2[0].1, -(5f64.cos()), 1e-16);
     assert_eq!((x2[1].0, x2[1].1), ("v2", 2.0));
     assert_close(x2[1].2, 1.7163378145367738, 1e-16);
-    let x1: Vec<(&str, f64, f64)> = ledger
-        .received(trace.find("x1").unwrap())
-        .iter()
-        .map(|c| {
-            (
-                id(c.consumer),
-                c.value.as_scalar().unwrap(),
-                c.after.as_scalar().unwrap(),
-            )
-        })
-        .collect();
+    let x1 = arrivals("x1");
     assert_eq!(x1, vec![("v2", 5.0, 5.0), ("v1", 0.5, 5.5)]);
 }
 

@@ -491,17 +491,14 @@ fn gain(collector: &mut Collector, node: usize, step: usize, adjoint_norm: f64, 
         return;
     }
     let settings = collector.settings;
-    if ratio > settings.gain_above {
-        collector.push(
-            Rule::Gain,
-            node,
-            step,
-            Site::Outgoing,
-            Measure::Gain,
-            (0, ratio, 1),
-            settings.gain_above,
-        );
+    let crossed = if ratio > settings.gain_above {
+        Some(settings.gain_above)
     } else if ratio < settings.gain_below {
+        Some(settings.gain_below)
+    } else {
+        None
+    };
+    if let Some(threshold) = crossed {
         collector.push(
             Rule::Gain,
             node,
@@ -509,7 +506,7 @@ fn gain(collector: &mut Collector, node: usize, step: usize, adjoint_norm: f64, 
             Site::Outgoing,
             Measure::Gain,
             (0, ratio, 1),
-            settings.gain_below,
+            threshold,
         );
     }
 }
