@@ -35,7 +35,7 @@ pub fn list_steps(sweep: &mut Sweep, steps: usize) -> String {
         let recorded = trace.node(node);
         let adjoint = sweep
             .adjoint(node)
-            .map_or("none".to_string(), describe_value);
+            .map_or("none".to_string(), |adjoint| describe_value(&adjoint));
         let group = if recorded.group.is_empty() {
             String::new()
         } else {

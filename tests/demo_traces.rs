@@ -51,11 +51,12 @@ fn swept(trace: &Trace) -> Sweep<'_> {
     sweep
 }
 
-fn gradient<'a>(trace: &Trace, sweep: &'a Sweep, id: &str) -> &'a [f64] {
+fn gradient(trace: &Trace, sweep: &Sweep, id: &str) -> Vec<f64> {
     sweep
         .adjoint(trace.find(id).unwrap_or_else(|| panic!("no node {id}")))
         .unwrap_or_else(|| panic!("{id} has no adjoint"))
         .data()
+        .to_vec()
 }
 
 fn max_abs(data: &[f64]) -> f64 {
@@ -110,21 +111,21 @@ fn vanishing_first_layers_get_gradients_below_1e_8() {
     let trace = open("vanishing.ron");
     let sweep = swept(&trace);
     for layer in 1..=4 {
-        let g = max_abs(gradient(&trace, &sweep, &format!("layer{layer:02}.w")));
+        let g = max_abs(&gradient(&trace, &sweep, &format!("layer{layer:02}.w")));
         assert!(g > 0.0 && g < 1e-8, "layer {layer}: {g:e}");
     }
-    let last = max_abs(gradient(&trace, &sweep, "layer16.w"));
+    let last = max_abs(&gradient(&trace, &sweep, "layer16.w"));
     assert!(last > 1e-3, "the last layer learns: {last:e}");
     // Each sigmoid passes back at most 1/4 of its adjoint (σ' ≤ 1/4, closed form),
     // so 16 layers shrink the adjoint by far more than the 0.25^16 ≈ 2.3e-10 bound alone.
-    assert!(max_abs(gradient(&trace, &sweep, "layer01.w")) / last < 0.25f64.powi(8));
+    assert!(max_abs(&gradient(&trace, &sweep, "layer01.w")) / last < 0.25f64.powi(8));
 }
 
 #[test]
 fn exploding_adjoints_grow_by_the_recurrent_gain_per_step() {
     let trace = open("exploding.ron");
     let sweep = swept(&trace);
-    let norm = |id: &str| ebb::tensor::l2_norm(gradient(&trace, &sweep, id));
+    let norm = |id: &str| ebb::tensor::l2_norm(&gradient(&trace, &sweep, id));
     // h_{t-1} receives ā_t Wᵀ, and W = 1.2·(a rotation), so the norm grows by
     // exactly 1.2 per step back (orthogonal matrices preserve the norm).
     let growth = norm("h01") / norm("h50");
@@ -147,17 +148,17 @@ fn f16_gradients_flush_to_zero_where_f32_keeps_them() {
     // a value rounds to 0.
     let flushed = g16
         .iter()
-        .zip(g32)
+        .zip(&g32)
         .filter(|(h, s)| **h == 0.0 && **s != 0.0)
         .count();
     assert!(flushed >= 8, "only {flushed} entries flushed");
     let nonzero = |g: &[f64]| g.iter().filter(|x| **x != 0.0).count();
     assert!(
-        nonzero(g32) >= nonzero(g16) + 8,
+        nonzero(&g32) >= nonzero(&g16) + 8,
         "f32 keeps the entries f16 loses"
     );
     assert!(
-        max_abs(g32) < 2f64.powi(-14),
+        max_abs(&g32) < 2f64.powi(-14),
         "the first layer's gradients are below f16's smallest normal"
     );
 }

@@ -181,7 +181,7 @@ fn check_graph(graph: &Graph) -> Result<(), TestCaseError> {
     for entry in sweep.ledger().unwrap().entries() {
         let adjoint = sweep.adjoint(entry.consumer).unwrap();
         let general =
-            ebb::sweep::pull_back(&trace, entry.consumer, entry.slot, adjoint).contribution;
+            ebb::sweep::pull_back(&trace, entry.consumer, entry.slot, &adjoint).contribution;
         prop_assert_eq!(
             general.as_scalar().map(f64::to_bits),
             entry.value.as_scalar().map(f64::to_bits)

@@ -160,7 +160,7 @@ fn scopes_sites_reports_and_seeds_are_recorded() {
     let mut sweep = Sweep::new(&trace, LedgerMode::Off);
     sweep.run_to_end();
     // d(a²)/da = 2a = 6, times the seed 2 (closed form).
-    assert_eq!(sweep.adjoint(0), Some(&Value::Scalar(12.0)));
+    assert_eq!(sweep.adjoint(0).as_deref(), Some(&Value::Scalar(12.0)));
 }
 
 #[test]

@@ -70,5 +70,5 @@ fn ten_thousand_steps_forward_and_back_restore_every_adjoint() {
         adjoint_bits(&sweep) == start,
         "after 10,000 steps back the adjoints differ from the start"
     );
-    assert!(sweep.ledger().unwrap().entries().is_empty());
+    assert!(sweep.ledger().unwrap().is_empty());
 }

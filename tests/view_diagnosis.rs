@@ -332,8 +332,8 @@ fn the_precision_toggle_shows_f16_zeros_that_f32_keeps() {
     half.run_to_end();
     single.run_to_end();
     let (h, s) = (
-        half.adjoint(param).unwrap().data(),
-        single.adjoint(param).unwrap().data(),
+        half.adjoint(param).unwrap().data().to_vec(),
+        single.adjoint(param).unwrap().data().to_vec(),
     );
     let zeros: Vec<usize> = (0..h.len())
         .filter(|&k| h[k] == 0.0 && s[k] != 0.0)

@@ -41,7 +41,7 @@ pub fn wrong_partial() -> TraceFile {
     let mut file = wrong_partial_with(true);
     for (index, node) in file.nodes.iter_mut().enumerate() {
         if let Some(adjoint) = sweep.adjoint(index) {
-            node.reported = Some(crate::record::value_repr(adjoint));
+            node.reported = Some(crate::record::value_repr(&adjoint));
         }
     }
     file

@@ -2,7 +2,7 @@
 //! neighbouring groups: the table of where the signal grows or decays.
 
 use crate::sweep::Sweep;
-use crate::tensor::{Value, l2_norm};
+use crate::tensor::l2_norm;
 use serde::Serialize;
 use std::collections::HashMap;
 
@@ -54,7 +54,7 @@ pub fn group_norms(sweep: &Sweep) -> Vec<GroupNorm> {
     for &node in trace.sweep_order() {
         let recorded = trace.node(node);
         let group = index_of(&recorded.group);
-        let norm = sweep.adjoint(node).map_or(0.0, Value::l2_norm);
+        let norm = sweep.adjoint(node).map_or(0.0, |adjoint| adjoint.l2_norm());
         adjoint_norms[group].push(norm);
         if recorded.op == crate::ops::Op::Param {
             param_norms[group].push(norm);

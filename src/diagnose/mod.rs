@@ -248,9 +248,12 @@ pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
         .flat_map(|adjoint| adjoint.data().to_vec())
         .collect();
     let loss_scale = loss_scale(&entries, settings.subnormals);
-    let gradients: Vec<&[f64]> = trace
+    let gradient_values: Vec<_> = trace
         .params()
         .filter_map(|param| sweep.adjoint(param))
+        .collect();
+    let gradients: Vec<&[f64]> = gradient_values
+        .iter()
         .map(|adjoint| adjoint.data())
         .collect();
     let clipping = ClipPreview::new(&gradients, settings.clip_norm);

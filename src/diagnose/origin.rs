@@ -338,7 +338,7 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
                     .any(|&input| !trace.node(input).value.is_finite());
             let partial = edge_partial(trace, u, slot);
             let partial_element = partial.as_ref().map(|partial| element(partial, index));
-            let g = element(adjoint, index);
+            let g = element(&adjoint, index);
             if forward_bad {
                 let born = forward_origin(trace, u);
                 origin.class = OriginClass::NonFiniteValue;
@@ -406,7 +406,7 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
                     from: entry.consumer,
                     how: NanHow::InfMinusInfAtBranch,
                 });
-            } else if !has_nan(adjoint) {
+            } else if !has_nan(&adjoint) {
                 let zero_partial = edge_partial(trace, entry.consumer, entry.slot)
                     .is_some_and(|partial| partial.data().contains(&0.0));
                 let how = if zero_partial {

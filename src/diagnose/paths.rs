@@ -5,7 +5,6 @@
 //! sweep order guarantees), so it is iterative and linear in the edges.
 
 use crate::sweep::Sweep;
-use crate::tensor::Value;
 use serde::Serialize;
 
 /// One hop of a path: the adjoint of `from` pulled back into `to`.
@@ -59,12 +58,11 @@ impl DominantPath {
 pub fn edge_gains(sweep: &Sweep) -> Vec<Option<f64>> {
     let trace = sweep.trace();
     let adjoint_norms: Vec<f64> = (0..trace.nodes().len())
-        .map(|node| sweep.adjoint(node).map_or(0.0, Value::l2_norm))
+        .map(|node| sweep.adjoint(node).map_or(0.0, |adjoint| adjoint.l2_norm()))
         .collect();
     let ledger = sweep.ledger().expect("gains need the ledger");
     ledger
         .entries()
-        .iter()
         .map(|entry| {
             let adjoint = adjoint_norms[entry.consumer];
             let contribution = entry.value.l2_norm();
@@ -78,11 +76,10 @@ pub fn edge_gains(sweep: &Sweep) -> Vec<Option<f64>> {
 pub fn dominant_paths(sweep: &Sweep, gains: &[Option<f64>]) -> Vec<DominantPath> {
     let trace = sweep.trace();
     let ledger = sweep.ledger().expect("paths need the ledger");
-    let entries = ledger.entries();
     let mut best: Vec<Option<f64>> = vec![None; trace.nodes().len()];
     let mut via: Vec<Option<usize>> = vec![None; trace.nodes().len()];
     best[trace.output()] = Some(0.0);
-    for (index, entry) in entries.iter().enumerate() {
+    for (index, entry) in ledger.entries().enumerate() {
         let (Some(from), Some(gain)) = (best[entry.consumer], gains[index]) else {
             continue;
         };
@@ -99,7 +96,7 @@ pub fn dominant_paths(sweep: &Sweep, gains: &[Option<f64>]) -> Vec<DominantPath>
             let mut hops = Vec::new();
             let mut cursor = param;
             while let Some(index) = via[cursor] {
-                let entry = &entries[index];
+                let entry = ledger.entry(index).expect("a path runs through done edges");
                 hops.push(Hop {
                     from: entry.consumer,
                     to: entry.input,

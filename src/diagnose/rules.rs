@@ -349,7 +349,7 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
     let reference_ledger = input
         .reference
         .and_then(|reference| reference.ledger())
-        .filter(|other| other.entries().len() == ledger.entries().len());
+        .filter(|other| other.len() == ledger.len());
     let mut collector = Collector {
         settings: input.settings,
         dtype: trace.dtype(),
@@ -363,9 +363,12 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
         .filter(|flag| flag.kind == FlagKind::NonFinitePartial)
         .peekable();
     let adjoint_norms: Vec<f64> = (0..trace.nodes().len())
-        .map(|node| sweep.adjoint(node).map_or(0.0, Value::l2_norm))
+        .map(|node| sweep.adjoint(node).map_or(0.0, |adjoint| adjoint.l2_norm()))
         .collect();
-    let mut entries = ledger.entries().iter().enumerate().peekable();
+    let mut entries = ledger.entries().peekable();
+    let mut reference_entries = reference_ledger
+        .as_ref()
+        .map(|reference| reference.entries());
     for (step, &node) in trace.sweep_order().iter().enumerate() {
         let recorded = trace.node(node);
         collector.magnitudes(node, step, Site::Value, recorded.value.data(), true);
@@ -400,9 +403,13 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
                 max,
             );
         }
-        let adjoint_finite = sweep.adjoint(node).is_some_and(Value::is_finite);
+        let adjoint_finite = sweep
+            .adjoint(node)
+            .is_some_and(|adjoint| adjoint.is_finite());
         let mut outgoing = Vec::new();
-        while let Some((index, entry)) = entries.next_if(|(_, entry)| entry.step == step) {
+        while let Some(entry) = entries.next_if(|entry| entry.step == step) {
+            // The reference ledger has the same edges in the same order: walk it in step.
+            let reference_entry = reference_entries.as_mut().and_then(Iterator::next);
             let site = Site::Contribution {
                 slot: entry.slot,
                 to: entry.input,
@@ -410,8 +417,8 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
             let data = entry.value.data();
             // A non-finite contribution is flagged where it is born, not at every edge it passes on.
             collector.magnitudes(node, step, site, data, adjoint_finite);
-            if let Some(reference) = reference_ledger {
-                let reference_value = reference.entries()[index].value.data();
+            if let Some(reference_entry) = &reference_entry {
+                let reference_value = reference_entry.value.data();
                 collector.flushed(node, step, site, data, reference_value);
                 if adjoint_finite {
                     collector.overflowed(node, step, site, data, reference_value);

@@ -68,4 +68,33 @@ impl Flag {
             count,
         })
     }
+
+    /// A flag for the non-finite partial `value` on input edge `slot` of `node`.
+    pub(super) fn partial(step: usize, node: usize, slot: usize, value: f64) -> Flag {
+        Flag {
+            step,
+            node,
+            kind: FlagKind::NonFinitePartial,
+            slot: Some(slot),
+            from: None,
+            element: 0,
+            value,
+            count: 1,
+        }
+    }
+
+    /// A flag for `input`'s adjoint made non-finite, `after`, by the
+    /// contribution `consumer` sent through input slot `slot`; `None` if it is finite.
+    pub(super) fn adjoint(
+        step: usize,
+        consumer: usize,
+        slot: usize,
+        input: usize,
+        after: &Value,
+    ) -> Option<Flag> {
+        let mut flag = Flag::for_value(step, input, FlagKind::NonFiniteAdjoint, after)?;
+        flag.slot = Some(slot);
+        flag.from = Some(consumer);
+        Some(flag)
+    }
 }

@@ -1,11 +1,17 @@
-//! The ledger: every contribution in the order it was made, threaded per
-//! receiving node, so a branch point's adjoint can be watched filling up. It
-//! doubles as the undo log: each entry keeps the adjoint it replaced.
+//! The ledger: every contribution in the order it was made, so a branch
+//! point's adjoint can be watched filling up. It doubles as the undo log.
+//!
+//! It is cheap enough to keep on for a million-node trace because a scalar
+//! contribution stores one number, the adjoint its receiver held before.
+//! Everything else is derived: which edge (the trace fixes each step's edges),
+//! the value added (the consumer's adjoint is final once its step runs, and
+//! pulling it back again through the same partial with the same rounding gives
+//! the same bits) and the sum after. Tensor contributions are stored whole.
 
+use super::Sweep;
+use super::scalar::Rounding;
 use crate::tensor::Value;
-
-/// No entry: end of a per-node list.
-const NONE: u32 = u32::MAX;
+use crate::trace::{Compact, StepKind};
 
 /// One contribution to one input's adjoint.
 #[derive(Debug, Clone, PartialEq)]
@@ -24,79 +30,278 @@ pub struct Contribution {
     pub before: Option<Value>,
     /// The receiver's adjoint after.
     pub after: Value,
-    /// Previous entry for the same receiver (set by the ledger).
-    pub(super) previous: u32,
 }
 
-/// All contributions so far.
+/// A contribution of a general (tensor, structured or recorded-partial) step, kept whole.
+#[derive(Debug, Clone, PartialEq)]
+pub(super) struct Stored {
+    /// The edge's index in the trace's sweep-order edge list.
+    pub edge: usize,
+    pub value: Value,
+    pub before: Option<Value>,
+    pub after: Value,
+}
+
+/// What the sweep writes as it goes.
 #[derive(Debug, Clone, Default, PartialEq)]
-pub struct Ledger {
-    entries: Vec<Contribution>,
-    /// Index of the first entry of each step.
-    step_starts: Vec<u32>,
-    /// Last entry received by each node.
-    last: Vec<u32>,
+pub(super) struct Store {
+    /// For every edge done, in sweep order, the scalar adjoint its receiver
+    /// held before the contribution (NaN, unused, on edges of general steps).
+    pub held: Vec<f64>,
+    /// The contributions of general steps, in order.
+    pub general: Vec<Stored>,
 }
 
-impl Ledger {
-    pub(super) fn new(nodes: usize) -> Ledger {
+impl Store {
+    /// Room for every edge of the sweep, reserved once: the trace fixes how
+    /// many contributions a full sweep makes.
+    pub(super) fn with_capacity(edges: usize) -> Store {
+        Store {
+            held: Vec::with_capacity(edges),
+            general: Vec::new(),
+        }
+    }
+}
+
+/// A read-only view of a sweep's ledger.
+#[derive(Debug, Clone, Copy)]
+pub struct Ledger<'s, 't> {
+    sweep: &'s Sweep<'t>,
+    store: &'s Store,
+    /// The trace's hot arrays and rounding, looked up once per view.
+    compact: &'t Compact,
+    rounding: Rounding,
+}
+
+impl<'s, 't> Ledger<'s, 't> {
+    pub(super) fn new(sweep: &'s Sweep<'t>, store: &'s Store) -> Ledger<'s, 't> {
         Ledger {
-            entries: Vec::new(),
-            step_starts: Vec::new(),
-            last: vec![NONE; nodes],
+            sweep,
+            store,
+            compact: sweep.trace().compact(),
+            rounding: Rounding::of(sweep.trace()),
         }
     }
 
-    pub(super) fn begin_step(&mut self) {
-        self.step_starts.push(self.entries.len() as u32);
+    /// Number of contributions made so far.
+    pub fn len(&self) -> usize {
+        self.store.held.len()
     }
 
-    /// Appends `entry`, threading it onto its receiver's list.
-    pub(super) fn record(&mut self, mut entry: Contribution) {
-        entry.previous = self.last[entry.input];
-        self.last[entry.input] = self.entries.len() as u32;
-        self.entries.push(entry);
+    /// True before the first contribution.
+    pub fn is_empty(&self) -> bool {
+        self.store.held.is_empty()
     }
 
-    /// Removes the last step's entries, newest first, handing each to `restore`.
-    pub(super) fn pop_step(&mut self, mut restore: impl FnMut(Contribution)) {
-        let Some(start) = self.step_starts.pop() else {
-            return;
-        };
-        while self.entries.len() > start as usize {
-            let entry = self.entries.pop().expect("entries after the step start");
-            self.last[entry.input] = entry.previous;
-            restore(entry);
-        }
+    /// Contribution number `index` (in the order made), if made.
+    pub fn entry(&self, index: usize) -> Option<Contribution> {
+        (index < self.len()).then(|| self.at(self.step_of(index), index))
     }
 
     /// Every contribution in the order made.
-    pub fn entries(&self) -> &[Contribution] {
-        &self.entries
+    pub fn entries(&self) -> impl ExactSizeIterator<Item = Contribution> + '_ {
+        let compact = self.compact;
+        let mut step = 0;
+        (0..self.len()).map(move |edge| {
+            // Edges run step after step: move on past steps whose edges are used up.
+            while compact.edge_start[step + 1] as usize <= edge {
+                step += 1;
+            }
+            self.at(step, edge)
+        })
     }
 
-    /// The contributions made by step `step`.
-    pub fn step_entries(&self, step: usize) -> &[Contribution] {
-        let Some(&start) = self.step_starts.get(step) else {
-            return &[];
-        };
-        let end = self
-            .step_starts
-            .get(step + 1)
-            .map_or(self.entries.len(), |&end| end as usize);
-        &self.entries[start as usize..end]
+    /// The contributions made by step `step` (none if it is not done).
+    pub fn step_entries(&self, step: usize) -> Vec<Contribution> {
+        if step >= self.sweep.cursor() {
+            return Vec::new();
+        }
+        self.compact
+            .edges_of(step)
+            .map(|edge| self.at(step, edge))
+            .collect()
     }
 
     /// The contributions `node` has received so far, oldest first.
-    pub fn received(&self, node: usize) -> Vec<&Contribution> {
-        let mut received = Vec::new();
-        let mut cursor = self.last[node];
-        while cursor != NONE {
-            let entry = &self.entries[cursor as usize];
-            received.push(entry);
-            cursor = entry.previous;
+    pub fn received(&self, node: usize) -> Vec<Contribution> {
+        let (trace, compact) = (self.sweep.trace(), self.compact);
+        let mut edges: Vec<usize> = trace
+            .consumers(node)
+            .into_iter()
+            .filter_map(|(consumer, slot)| {
+                let step = trace.sweep_rank(consumer)?;
+                (step < self.sweep.cursor()).then(|| compact.edges_of(step).start + slot)
+            })
+            .collect();
+        edges.sort_unstable();
+        edges
+            .into_iter()
+            .map(|edge| self.at(self.step_of(edge), edge))
+            .collect()
+    }
+
+    /// The step whose edge range holds `edge`: the last start at or before it.
+    fn step_of(&self, edge: usize) -> usize {
+        let starts = &self.compact.edge_start;
+        starts.partition_point(|&start| start as usize <= edge) - 1
+    }
+
+    /// The contribution on sweep-order edge `edge` of step `step`, which must be done.
+    #[inline]
+    fn at(&self, step: usize, edge: usize) -> Contribution {
+        let compact = self.compact;
+        let consumer = self.sweep.trace().sweep_order()[step];
+        let slot = edge - compact.edges_of(step).start;
+        let input = compact.edge_input[edge] as usize;
+        if compact.kind[step] == StepKind::General {
+            let index = self
+                .store
+                .general
+                .binary_search_by_key(&edge, |stored| stored.edge)
+                .expect("every edge of a general step done is stored");
+            let stored = &self.store.general[index];
+            return Contribution {
+                step,
+                consumer,
+                input,
+                slot,
+                value: stored.value.clone(),
+                before: stored.before.clone(),
+                after: stored.after.clone(),
+            };
         }
-        received.reverse();
-        received
+        let adjoint = self.sweep.scalar_adjoint(consumer);
+        let rounding = self.rounding;
+        let held = self.store.held[edge];
+        let value = rounding.apply(adjoint * compact.edge_partial[edge]);
+        let after = rounding.apply(held + value);
+        // First unless an earlier step, or an earlier edge of this one (x·x), sent one.
+        let earlier_edges = &compact.edge_input[edge - slot..edge];
+        let first = !compact.has_received(input, step) && !earlier_edges.contains(&(input as u32));
+        Contribution {
+            step,
+            consumer,
+            input,
+            slot,
+            value: Value::Scalar(value),
+            before: (!first).then_some(Value::Scalar(held)),
+            after: Value::Scalar(after),
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use crate::dtype::{Dtype, Subnormals};
+    use crate::sweep::{LedgerMode, Sweep};
+    use crate::tensor::Value;
+    use crate::trace::{Trace, validate};
+
+    fn bits(value: &Value) -> Vec<u64> {
+        value.data().iter().map(|x| x.to_bits()).collect()
+    }
+
+    /// Every demo, and each again in f16 with subnormals flushed (the
+    /// rounding the derived entries must reproduce bit for bit).
+    fn traces() -> Vec<Trace> {
+        crate::demos::all()
+            .into_iter()
+            .flat_map(|(_, file)| {
+                let trace = validate(file).expect("demos are valid");
+                let flushed = trace.retyped(Dtype::F16, Subnormals::Flush);
+                [trace, flushed]
+            })
+            .collect()
+    }
+
+    #[test]
+    fn each_nodes_contributions_chain_from_nothing_to_its_adjoint() {
+        for trace in traces() {
+            let mut sweep = Sweep::new(&trace, LedgerMode::On);
+            sweep.run_to_end();
+            let ledger = sweep.ledger().unwrap();
+            for node in 0..trace.nodes().len() {
+                let received = ledger.received(node);
+                let expected = trace
+                    .consumers(node)
+                    .iter()
+                    .filter(|(consumer, _)| trace.sweep_rank(*consumer).is_some())
+                    .count();
+                assert_eq!(received.len(), expected, "{}: node {node}", trace.title());
+                let mut held: Option<Value> = None;
+                for entry in &received {
+                    assert_eq!(entry.input, node);
+                    assert_eq!(
+                        entry.before.as_ref().map(bits),
+                        held.as_ref().map(bits),
+                        "{}: node {node} step {}",
+                        trace.title(),
+                        entry.step
+                    );
+                    held = Some(entry.after.clone());
+                }
+                if node != trace.output() {
+                    assert_eq!(
+                        sweep.adjoint(node).map(|adjoint| bits(&adjoint)),
+                        held.as_ref().map(bits),
+                        "{}: node {node}",
+                        trace.title()
+                    );
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn entries_steps_and_random_access_agree() {
+        for trace in traces() {
+            let mut sweep = Sweep::new(&trace, LedgerMode::On);
+            sweep.run_steps(sweep.len() / 2 + 1);
+            let ledger = sweep.ledger().unwrap();
+            let all: Vec<_> = ledger.entries().collect();
+            let by_step: Vec<_> = (0..=sweep.len())
+                .flat_map(|step| ledger.step_entries(step))
+                .collect();
+            assert_eq!(all.len(), ledger.len());
+            // Compared as text: NaN entries are equal to themselves there.
+            assert_eq!(
+                format!("{all:?}"),
+                format!("{by_step:?}"),
+                "{}",
+                trace.title()
+            );
+            for (index, entry) in all.iter().enumerate() {
+                assert_eq!(
+                    format!("{:?}", ledger.entry(index)),
+                    format!("{:?}", Some(entry))
+                );
+            }
+            assert!(ledger.entry(all.len()).is_none());
+            // Each step's entries come from the node the step processed, slot by slot.
+            for entry in &all {
+                let consumer = trace.sweep_order()[entry.step];
+                assert_eq!(entry.consumer, consumer);
+                assert_eq!(trace.node(consumer).inputs[entry.slot], entry.input);
+            }
+        }
+    }
+
+    #[test]
+    fn the_ledger_changes_no_adjoint() {
+        for trace in traces() {
+            let (mut on, mut off) = (
+                Sweep::new(&trace, LedgerMode::On),
+                Sweep::new(&trace, LedgerMode::Off),
+            );
+            on.run_to_end();
+            off.run_to_end();
+            for node in 0..trace.nodes().len() {
+                assert_eq!(
+                    on.adjoint(node).map(|adjoint| bits(&adjoint)),
+                    off.adjoint(node).map(|adjoint| bits(&adjoint)),
+                );
+            }
+            assert_eq!(format!("{:?}", on.flags()), format!("{:?}", off.flags()));
+        }
     }
 }

@@ -5,6 +5,7 @@
 mod flags;
 mod ledger;
 mod pullback;
+mod scalar;
 
 pub use flags::{Flag, FlagKind};
 pub use ledger::{Contribution, Ledger};
@@ -12,7 +13,9 @@ pub use pullback::{Pulled, accumulate, pull_back, push_forward};
 
 use crate::dtype::Subnormals;
 use crate::tensor::Value;
-use crate::trace::Trace;
+use crate::trace::{StepKind, Trace};
+use ledger::{Store, Stored};
+use std::borrow::Cow;
 
 /// Whether the sweep keeps its ledger.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -29,15 +32,19 @@ pub struct Sweep<'t> {
     trace: &'t Trace,
     /// Number of steps done; `trace.sweep_order()[cursor]` is next.
     cursor: usize,
-    /// Each node's adjoint slot. A scalar node's slot always holds a scalar,
-    /// −0.0 until its first contribution: −0.0 is the additive identity of
-    /// IEEE 754 arithmetic (−0 + x = x for every x, −0 and +0 included), so
-    /// adding every contribution gives exactly what assigning the first one
-    /// would, without a branch on "first or not" per edge.
-    adjoints: Vec<Option<Value>>,
-    /// Whether the node has received its first contribution (or is the output).
-    received: Vec<bool>,
-    ledger: Option<Ledger>,
+    /// The adjoint of every scalar node (unused for tensor nodes): a flat
+    /// array, so the hot loop touches 8 bytes per edge and no enum tag. Each
+    /// starts at −0.0, the additive identity of IEEE 754 arithmetic
+    /// (−0 + x = x for every x, −0 and +0 included), so adding every
+    /// contribution gives exactly what assigning the first one would, without
+    /// a branch on "first or not" per edge. Whether a node has received
+    /// anything yet follows from the cursor (see
+    /// `Compact::first_contribution`), so it is never stored.
+    scalar_adjoints: Vec<f64>,
+    /// The adjoint of every tensor node so far (`None` for scalar nodes, and
+    /// before a tensor node's first contribution).
+    tensor_adjoints: Vec<Option<Value>>,
+    ledger: Option<Store>,
     flags: Vec<Flag>,
     /// Flags raised by the seed itself, before any step; never undone.
     seed_flags: usize,
@@ -46,13 +53,14 @@ pub struct Sweep<'t> {
 impl<'t> Sweep<'t> {
     /// A sweep at its start: only the output holds an adjoint, the seed.
     pub fn new(trace: &'t Trace, mode: LedgerMode) -> Sweep<'t> {
-        let mut adjoints: Vec<Option<Value>> = (0..trace.nodes().len())
-            .map(|node| empty_slot(trace, node))
-            .collect();
-        let mut received = vec![false; trace.nodes().len()];
-        adjoints[trace.output()] = Some(trace.seed().clone());
-        received[trace.output()] = true;
-        let ledger = (mode == LedgerMode::On).then(|| Ledger::new(trace.nodes().len()));
+        let mut scalar_adjoints = vec![-0.0; trace.nodes().len()];
+        let mut tensor_adjoints = vec![None; trace.nodes().len()];
+        match trace.seed() {
+            Value::Scalar(seed) => scalar_adjoints[trace.output()] = *seed,
+            seed => tensor_adjoints[trace.output()] = Some(seed.clone()),
+        }
+        let ledger = (mode == LedgerMode::On)
+            .then(|| Store::with_capacity(trace.compact().edge_input.len()));
         let flags: Vec<Flag> =
             Flag::for_value(0, trace.output(), FlagKind::NonFiniteAdjoint, trace.seed())
                 .into_iter()
@@ -60,8 +68,8 @@ impl<'t> Sweep<'t> {
         Sweep {
             trace,
             cursor: 0,
-            adjoints,
-            received,
+            scalar_adjoints,
+            tensor_adjoints,
             ledger,
             seed_flags: flags.len(),
             flags,
@@ -113,17 +121,53 @@ impl<'t> Sweep<'t> {
     }
 
     /// The adjoint of `node` so far; `None` before its first contribution.
-    pub fn adjoint(&self, node: usize) -> Option<&Value> {
-        if self.received[node] {
-            self.adjoints[node].as_ref()
+    /// A tensor adjoint is borrowed; a scalar one is built from its slot.
+    pub fn adjoint(&self, node: usize) -> Option<Cow<'_, Value>> {
+        if !self.has_received(node) {
+            return None;
+        }
+        if self.trace.compact().is_scalar[node] {
+            Some(Cow::Owned(Value::Scalar(self.scalar_adjoints[node])))
         } else {
-            None
+            self.tensor_adjoints[node].as_ref().map(Cow::Borrowed)
+        }
+    }
+
+    /// True when `node` is the output or some step done so far sent it a contribution.
+    fn has_received(&self, node: usize) -> bool {
+        node == self.trace.output() || self.trace.compact().has_received(node, self.cursor)
+    }
+
+    /// The adjoint of a scalar node (−0.0 before its first contribution).
+    fn scalar_adjoint(&self, node: usize) -> f64 {
+        self.scalar_adjoints[node]
+    }
+
+    /// Takes `node`'s adjoint out of its slot (a scalar's stays in place).
+    fn take_slot(&mut self, node: usize) -> Option<Value> {
+        if self.trace.compact().is_scalar[node] {
+            Some(Value::Scalar(self.scalar_adjoints[node]))
+        } else {
+            self.tensor_adjoints[node].take()
+        }
+    }
+
+    /// Puts `adjoint` in `node`'s slot; `None` empties it (−0.0 for a scalar).
+    fn put_slot(&mut self, node: usize, adjoint: Option<Value>) {
+        if self.trace.compact().is_scalar[node] {
+            self.scalar_adjoints[node] = adjoint.map_or(-0.0, |adjoint| {
+                adjoint
+                    .as_scalar()
+                    .expect("contributions to a scalar node are scalars")
+            });
+        } else {
+            self.tensor_adjoints[node] = adjoint;
         }
     }
 
     /// The ledger, when on.
-    pub fn ledger(&self) -> Option<&Ledger> {
-        self.ledger.as_ref()
+    pub fn ledger(&self) -> Option<Ledger<'_, 't>> {
+        self.ledger.as_ref().map(|store| Ledger::new(self, store))
     }
 
     /// The flags raised so far, in the order raised.
@@ -153,104 +197,38 @@ impl<'t> Sweep<'t> {
     /// or `None` when the sweep is done.
     pub fn step(&mut self) -> Option<usize> {
         let node = self.current()?;
-        if let Some(ledger) = &mut self.ledger {
-            ledger.begin_step();
-        }
-        self.process(node);
-        self.cursor += 1;
+        self.run_until(self.cursor + 1);
         Some(node)
     }
 
-    /// Pulls `node`'s adjoint back along its edges: the fast path for scalar
-    /// nodes of elementwise ops, the general one for everything else.
-    fn process(&mut self, node: usize) {
-        match self.adjoints[node] {
-            Some(Value::Scalar(adjoint)) if self.trace.compact().fast[node] => {
-                self.step_scalar(node, adjoint)
+    /// Runs steps until `end` are done (or the sweep is): the one driver of
+    /// every step, taking runs of scalar steps through the hot loop.
+    fn run_until(&mut self, end: usize) {
+        let end = end.min(self.len());
+        while self.cursor < end {
+            if self.trace.compact().kind[self.cursor] == StepKind::General {
+                self.step_general();
+                self.cursor += 1;
+            } else {
+                self.run_scalar_steps(end);
             }
-            _ => self.step_general(node),
         }
     }
 
-    /// The fast path for a scalar node of an elementwise op: reads only the
-    /// trace's compact arrays and allocates nothing (but the ledger entries).
-    fn step_scalar(&mut self, node: usize, adjoint: f64) {
+    /// One step of any node: recorded partials, tensors, structured ops.
+    fn step_general(&mut self) {
         let (step, trace) = (self.cursor, self.trace);
         let (compact, dtype) = (trace.compact(), trace.dtype());
-        let output = compact.scalars[node];
-        if !output.is_finite() {
-            self.flags.extend(Flag::for_value(
-                step,
-                node,
-                FlagKind::NonFiniteValue,
-                &Value::Scalar(output),
-            ));
-        }
-        let (inputs, partials) = (compact.inputs_of(node), compact.partials_of(node));
-        // Flush-to-zero applies to every stored result: the contribution and the sum.
-        let flush = trace.subnormals() == Subnormals::Flush;
-        for (slot, (&input, &partial)) in inputs.iter().zip(partials).enumerate() {
-            let mut contribution = dtype.round(adjoint * partial);
-            if flush {
-                contribution = dtype.flush(contribution);
-            }
-            if !partial.is_finite() {
-                self.flag_partial(step, node, slot, partial);
-            }
-            let input = input as usize;
-            let Some(Value::Scalar(sum)) = &mut self.adjoints[input] else {
-                unreachable!("a scalar node's slot holds a scalar")
-            };
-            let held = *sum;
-            // Before the first contribution `held` is −0.0, and −0.0 + c = c exactly.
-            let mut after = dtype.round(held + contribution);
-            if flush {
-                after = dtype.flush(after);
-            }
-            *sum = after;
-            let before = std::mem::replace(&mut self.received[input], true).then_some(held);
-            if !after.is_finite() {
-                self.note_adjoint(
-                    step,
-                    node,
-                    slot,
-                    input,
-                    before.map(Value::Scalar).as_ref(),
-                    &Value::Scalar(after),
-                );
-            }
-            if let Some(ledger) = &mut self.ledger {
-                let (value, before, after) = (
-                    Value::Scalar(contribution),
-                    before.map(Value::Scalar),
-                    Value::Scalar(after),
-                );
-                ledger.record(Contribution {
-                    step,
-                    consumer: node,
-                    input,
-                    slot,
-                    value,
-                    before,
-                    after,
-                    previous: 0,
-                });
-            }
-        }
-    }
-
-    /// Any node: recorded partials, tensors, structured ops.
-    fn step_general(&mut self, node: usize) {
-        let (step, trace) = (self.cursor, self.trace);
-        let dtype = trace.dtype();
+        let node = trace.sweep_order()[step];
         let recorded = trace.node(node);
         if let Some(flag) = Flag::for_value(step, node, FlagKind::NonFiniteValue, &recorded.value) {
             self.flags.push(flag);
         }
-        let adjoint = self.adjoints[node]
-            .take()
+        let adjoint = self
+            .take_slot(node)
             .expect("a node's consumers are swept before it, so it holds an adjoint");
         let flush = trace.subnormals() == Subnormals::Flush;
+        let first_edge = compact.edges_of(step).start;
         for (slot, &input) in recorded.inputs.iter().enumerate() {
             let mut pulled = pull_back(trace, node, slot, &adjoint);
             if flush {
@@ -261,14 +239,13 @@ impl<'t> Sweep<'t> {
                     .for_each(|x| *x = dtype.flush(*x));
             }
             if let Some(bad) = pulled.bad_partial {
-                self.flag_partial(step, node, slot, bad);
+                self.flags.push(Flag::partial(step, node, slot, bad));
             }
-            let before = if self.received[input] {
-                self.adjoints[input].take()
-            } else {
-                None
-            };
-            self.received[input] = true;
+            // An input met earlier in this step (x·x) has received already.
+            let received =
+                compact.has_received(input, step) || recorded.inputs[..slot].contains(&input);
+            let held = self.take_slot(input);
+            let before = if received { held } else { None };
             let mut after = accumulate(before.as_ref(), &pulled.contribution, dtype);
             if flush {
                 after
@@ -276,58 +253,25 @@ impl<'t> Sweep<'t> {
                     .iter_mut()
                     .for_each(|x| *x = dtype.flush(*x));
             }
-            self.note_adjoint(step, node, slot, input, before.as_ref(), &after);
-            match &mut self.ledger {
-                Some(ledger) => {
-                    self.adjoints[input] = Some(after.clone());
-                    ledger.record(Contribution {
-                        step,
-                        consumer: node,
-                        input,
-                        slot,
-                        value: pulled.contribution,
-                        before,
-                        after,
-                        previous: 0,
-                    });
-                }
-                None => self.adjoints[input] = Some(after),
+            if before.as_ref().is_none_or(Value::is_finite) {
+                self.flags
+                    .extend(Flag::adjoint(step, node, slot, input, &after));
             }
+            if self.ledger.is_none() {
+                self.put_slot(input, Some(after));
+                continue;
+            }
+            self.put_slot(input, Some(after.clone()));
+            let store = self.ledger.as_mut().expect("checked above");
+            store.held.push(f64::NAN);
+            store.general.push(Stored {
+                edge: first_edge + slot,
+                value: pulled.contribution,
+                before,
+                after,
+            });
         }
-        self.adjoints[node] = Some(adjoint);
-    }
-
-    fn flag_partial(&mut self, step: usize, node: usize, slot: usize, value: f64) {
-        self.flags.push(Flag {
-            step,
-            node,
-            kind: FlagKind::NonFinitePartial,
-            slot: Some(slot),
-            from: None,
-            element: 0,
-            value,
-            count: 1,
-        });
-    }
-
-    /// Flags an adjoint that a contribution from `consumer` made non-finite.
-    fn note_adjoint(
-        &mut self,
-        step: usize,
-        consumer: usize,
-        slot: usize,
-        input: usize,
-        before: Option<&Value>,
-        after: &Value,
-    ) {
-        if after.is_finite() || !before.is_none_or(Value::is_finite) {
-            return;
-        }
-        if let Some(mut flag) = Flag::for_value(step, input, FlagKind::NonFiniteAdjoint, after) {
-            flag.slot = Some(slot);
-            flag.from = Some(consumer);
-            self.flags.push(flag);
-        }
+        self.put_slot(node, Some(adjoint));
     }
 
     /// Undoes the last step bit-exactly. Returns false at the start.
@@ -336,25 +280,36 @@ impl<'t> Sweep<'t> {
             return false;
         }
         let target = self.cursor - 1;
-        match &mut self.ledger {
-            Some(ledger) => {
-                let (adjoints, received, trace) =
-                    (&mut self.adjoints, &mut self.received, self.trace);
-                ledger.pop_step(|entry| {
-                    received[entry.input] = entry.before.is_some();
-                    adjoints[entry.input] = entry.before.or_else(|| empty_slot(trace, entry.input));
-                });
-                self.cursor = target;
-                while self.flags.len() > self.seed_flags
-                    && self.flags.last().is_some_and(|flag| flag.step >= target)
-                {
-                    self.flags.pop();
-                }
+        let Some(mut store) = self.ledger.take() else {
+            self.restart();
+            self.run_steps(target);
+            return true;
+        };
+        let compact = self.trace.compact();
+        let edges = compact.edges_of(target);
+        // Newest first, so an input met twice in the step (x·x) ends with
+        // what it held before the first.
+        if compact.kind[target] == StepKind::General {
+            while store
+                .general
+                .last()
+                .is_some_and(|stored| stored.edge >= edges.start)
+            {
+                let stored = store.general.pop().expect("checked above");
+                self.put_slot(compact.edge_input[stored.edge] as usize, stored.before);
             }
-            None => {
-                self.restart();
-                self.run_steps(target);
+        } else {
+            for edge in edges.clone().rev() {
+                self.scalar_adjoints[compact.edge_input[edge] as usize] = store.held[edge];
             }
+        }
+        store.held.truncate(edges.start);
+        self.ledger = Some(store);
+        self.cursor = target;
+        while self.flags.len() > self.seed_flags
+            && self.flags.last().is_some_and(|flag| flag.step >= target)
+        {
+            self.flags.pop();
         }
         true
     }
@@ -371,7 +326,9 @@ impl<'t> Sweep<'t> {
 
     /// Takes up to `count` steps; returns how many were taken.
     pub fn run_steps(&mut self, count: usize) -> usize {
-        (0..count).take_while(|_| self.step().is_some()).count()
+        let start = self.cursor;
+        self.run_until(start.saturating_add(count));
+        self.cursor - start
     }
 
     /// Steps until `stop` holds after a step, or the sweep ends. Returns the
@@ -396,16 +353,7 @@ impl<'t> Sweep<'t> {
     /// Runs every remaining step.
     pub fn run_to_end(&mut self) -> usize {
         let start = self.cursor;
-        if self.ledger.is_some() {
-            return self.run_to(|_| false);
-        }
-        // The same steps without the per-step bookkeeping of `run_to`: a full
-        // sweep with the ledger off is the engine's hot loop.
-        let order = self.trace.sweep_order();
-        while let Some(&node) = order.get(self.cursor) {
-            self.process(node);
-            self.cursor += 1;
-        }
+        self.run_until(self.len());
         self.cursor - start
     }
 
@@ -420,14 +368,5 @@ impl<'t> Sweep<'t> {
             self.restart();
         }
         self.run_steps(cursor - self.cursor);
-    }
-}
-
-/// A node's adjoint slot before any contribution: −0.0 for a scalar node
-/// (see `Sweep::adjoints`), nothing for a tensor node.
-fn empty_slot(trace: &Trace, node: usize) -> Option<Value> {
-    match trace.node(node).value {
-        Value::Scalar(_) => Some(Value::Scalar(-0.0)),
-        Value::Tensor(_) => None,
     }
 }

@@ -12,6 +12,7 @@ pub mod schema;
 mod store;
 mod validate;
 
+pub(crate) use compact::{Compact, StepKind};
 pub use error::{LoadError, Problem, SaveError};
 pub use load::{Encoding, SyntaxError, load, load_str, load_with, parse, to_text};
 pub use model::{Node, Partial, Trace};

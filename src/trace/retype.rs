@@ -32,7 +32,7 @@ impl Trace {
             }
         }
         // The sweep's fast path reads the compact copy of the values: rebuild it from the rounded ones.
-        retyped.compact = super::compact::Compact::new(&retyped.nodes, dtype);
+        retyped.compact = super::compact::Compact::new(&retyped.nodes, dtype, &retyped.order);
         retyped
     }
 
@@ -53,7 +53,8 @@ impl Trace {
             );
             node.value = value;
         }
-        replaced.compact = super::compact::Compact::new(&replaced.nodes, replaced.dtype);
+        replaced.compact =
+            super::compact::Compact::new(&replaced.nodes, replaced.dtype, &replaced.order);
         replaced
     }
 }
@@ -101,7 +102,10 @@ mod tests {
         let sweep = |trace: &Trace| {
             let mut sweep = crate::sweep::Sweep::new(trace, crate::sweep::LedgerMode::Off);
             sweep.run_to_end();
-            (sweep.adjoint(0).cloned(), sweep.adjoint(1).cloned())
+            (
+                sweep.adjoint(0).map(std::borrow::Cow::into_owned),
+                sweep.adjoint(1).map(std::borrow::Cow::into_owned),
+            )
         };
         let (a, b) = sweep(&retyped);
         assert_eq!((a.clone(), b), sweep(&native));

@@ -511,7 +511,7 @@ fn build(
     for (position, &node) in order.iter().enumerate() {
         rank[node] = position as u32;
     }
-    let compact = super::compact::Compact::new(&nodes, dtype);
+    let compact = super::compact::Compact::new(&nodes, dtype, &order);
     Trace {
         title,
         description,

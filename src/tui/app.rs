@@ -672,7 +672,7 @@ impl<'t> App<'t> {
             (self.node_scroll, self.inflow_scroll, self.edge_cursor) = (0, 0, 0);
         }
         if self.selection.node != Some(node) || self.selection.cursor != cursor {
-            self.selection.adjoint = match self.sweep.adjoint(node) {
+            self.selection.adjoint = match self.sweep.adjoint(node).as_deref() {
                 Some(adjoint @ Value::Tensor(_)) => {
                     Some(Summary::of(adjoint.data(), self.trace.dtype()))
                 }
@@ -684,7 +684,7 @@ impl<'t> App<'t> {
                     .as_ref()
                     .and_then(|compare| compare.adjoint(node)),
             ) {
-                (Some(here), Some(recorded)) => Some(Contrast::of(here, recorded)),
+                (Some(here), Some(recorded)) => Some(Contrast::of(&here, &recorded)),
                 _ => None,
             };
         }

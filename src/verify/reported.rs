@@ -39,7 +39,7 @@ pub fn check_reported(sweep: &Sweep, tolerance: f64) -> (Vec<ReportedComparison>
             let reported = recorded.reported.as_ref()?;
             let adjoint = sweep
                 .adjoint(node)
-                .cloned()
+                .map(std::borrow::Cow::into_owned)
                 .unwrap_or_else(|| crate::tensor::Value::filled(reported.shape(), 0.0));
             Some(ReportedComparison {
                 node,

@@ -26,7 +26,7 @@ pub fn swept(trace: &Trace) -> Sweep<'_> {
 }
 
 /// The adjoint of node `id` in a sweep.
-pub fn adjoint<'a>(sweep: &'a Sweep, id: &str) -> &'a Value {
+pub fn adjoint(sweep: &Sweep, id: &str) -> Value {
     let node = sweep
         .trace()
         .find(id)
@@ -34,6 +34,7 @@ pub fn adjoint<'a>(sweep: &'a Sweep, id: &str) -> &'a Value {
     sweep
         .adjoint(node)
         .unwrap_or_else(|| panic!("node {id} has no adjoint"))
+        .into_owned()
 }
 
 /// The scalar adjoint of node `id`.

@@ -174,13 +174,13 @@ impl Pane for NodePane {
         }
         let pending = app.sweep.pending_consumers(node).len();
         let adjoint = app.sweep.adjoint(node);
-        let adjoint_note = match (adjoint, pending) {
+        let adjoint_note = match (&adjoint, pending) {
             (None, _) if trace.sweep_rank(node).is_none() => String::new(),
             (None, _) => "none yet".to_string(),
             (Some(_), 0) => "  (final)".to_string(),
             (Some(_), more) => format!("  (so far; {more} to come)"),
         };
-        match (&app.selection.adjoint, adjoint) {
+        match (&app.selection.adjoint, adjoint.as_deref()) {
             (Some(summary), _) => {
                 lines.extend(summary_lines("adjoint", summary, app));
                 lines.push(labelled(
@@ -256,11 +256,14 @@ impl Pane for NodePane {
             } else {
                 "adjoint"
             };
-            let compared = app
+            let compared_adjoint = app
                 .compare
                 .as_ref()
                 .filter(|_| tangent.is_none())
-                .map(|compare| compare.adjoint(node).map(|value| value.data()));
+                .map(|compare| compare.adjoint(node));
+            let compared = compared_adjoint
+                .as_ref()
+                .map(|adjoint| adjoint.as_deref().map(|value| value.data()));
             let header = match compared {
                 None => format!("{:>8}  {:<24}{}", "element", "value", column),
                 Some(_) => format!(
@@ -275,7 +278,7 @@ impl Pane for NodePane {
             let shown = (area.height as usize).saturating_sub(lines.len());
             let adjoint_data = match tangent {
                 Some(tangent) => tangent.map(|tangent| tangent.map_or(&[][..], |t| t.data())),
-                None => adjoint.map(|value| value.data()),
+                None => adjoint.as_deref().map(|value| value.data()),
             };
             for index in app.node_scroll..tensor.data().len().min(app.node_scroll + shown) {
                 let value = fit(&number(tensor.data()[index]), 23);
@@ -316,11 +319,8 @@ fn precision_lines<'a>(app: &App, node: usize, width: usize) -> Vec<Line<'a>> {
     };
     let (dtype, recorded) = (app.trace.dtype(), app.recorded.dtype());
     let mut lines = Vec::new();
-    match (
-        app.sweep.adjoint(node),
-        compare.adjoint(node),
-        &app.contrast,
-    ) {
+    let (here, there) = (app.sweep.adjoint(node), compare.adjoint(node));
+    match (here.as_deref(), there.as_deref(), &app.contrast) {
         (
             Some(crate::tensor::Value::Scalar(here)),
             Some(crate::tensor::Value::Scalar(there)),
