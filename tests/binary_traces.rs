@@ -134,6 +134,29 @@ fn mapped_tensors_summarise_without_widening_and_agree_with_owned_ones() {
     );
 }
 
+/// Opening must not read the elements: a binary-backed f32 trace stays
+/// narrow and in the map until something asks for its values.
+#[test]
+fn opening_a_binary_trace_widens_no_tensor() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("s.tape");
+    trace::save(&special_trace(Dtype::F32), &path).unwrap();
+    let opened = trace::load(&path).unwrap();
+    let mapped: Vec<_> = opened
+        .nodes()
+        .iter()
+        .filter_map(|node| match &node.value {
+            Value::Tensor(tensor) if tensor.is_mapped() => Some(tensor),
+            _ => None,
+        })
+        .collect();
+    assert!(!mapped.is_empty());
+    assert!(mapped.iter().all(|tensor| !tensor.is_widened()));
+    // Reading the values is what widens them.
+    let _ = opened.node(0).value.data();
+    assert!(mapped[0].is_widened());
+}
+
 /// Copies the shipped medium demo into a fresh directory.
 fn medium_copy(dir: &Path) -> PathBuf {
     let traces = Path::new(env!("CARGO_MANIFEST_DIR")).join("traces");

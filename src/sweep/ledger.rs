@@ -304,4 +304,74 @@ mod tests {
             assert_eq!(format!("{:?}", on.flags()), format!("{:?}", off.flags()));
         }
     }
+
+    /// x·x sends two contributions to x in one step: the second must see the
+    /// first as its `before`, and undo must restore what x held before both.
+    /// (d/dx of x² + x is 2x + 1: closed form.)
+    #[test]
+    fn an_input_met_twice_in_one_step_is_logged_and_undone_in_order() {
+        let mut tape = crate::record::Tape::new("square plus x", Dtype::F64);
+        let x = tape.param("x", 3.0);
+        let square = tape.mul(x, x);
+        let square = tape.rename(square, "square");
+        let y = tape.add(square, x);
+        let trace = validate(tape.finish(y)).unwrap();
+        let x = trace.find("x").unwrap();
+        let mut sweep = Sweep::new(&trace, LedgerMode::On);
+        sweep.run_to_end();
+        let received = sweep.ledger().unwrap().received(x);
+        let summary: Vec<_> = received
+            .iter()
+            .map(|entry| {
+                (
+                    entry.before.as_ref().and_then(Value::as_scalar),
+                    entry.value.as_scalar(),
+                    entry.after.as_scalar(),
+                )
+            })
+            .collect();
+        assert_eq!(
+            summary,
+            [
+                (None, Some(1.0), Some(1.0)),
+                (Some(1.0), Some(3.0), Some(4.0)),
+                (Some(4.0), Some(3.0), Some(7.0)),
+            ]
+        );
+        assert_eq!(sweep.adjoint(x).as_deref(), Some(&Value::Scalar(7.0)));
+        // Back over the leaf x, then over x·x: x holds the add's 1 again.
+        sweep.back();
+        sweep.back();
+        assert_eq!(sweep.current(), trace.find("square"));
+        assert_eq!(sweep.adjoint(x).as_deref(), Some(&Value::Scalar(1.0)));
+        sweep.seek(0);
+        assert_eq!(sweep.adjoint(x), None);
+        assert!(sweep.ledger().unwrap().is_empty());
+    }
+
+    #[test]
+    fn a_tensor_input_met_twice_in_one_step_is_logged_and_undone_in_order() {
+        let mut tape = crate::record::Tape::new("sum of squares", Dtype::F64);
+        let x = tape.param("x", Value::from_parts(vec![2], vec![1.0, 2.0]));
+        let square = tape.mul(x, x);
+        let total = tape.sum(square);
+        let trace = validate(tape.finish(total)).unwrap();
+        let x = trace.find("x").unwrap();
+        let mut sweep = Sweep::new(&trace, LedgerMode::On);
+        sweep.run_to_end();
+        let received = sweep.ledger().unwrap().received(x);
+        assert_eq!(received.len(), 2);
+        assert_eq!(received[0].before, None);
+        assert_eq!(received[0].after.data(), [1.0, 2.0]);
+        assert_eq!(
+            received[1].before.as_ref().map(Value::data),
+            Some(&[1.0, 2.0][..])
+        );
+        assert_eq!(received[1].after.data(), [2.0, 4.0]);
+        assert_eq!(sweep.adjoint(x).unwrap().data(), [2.0, 4.0]);
+        sweep.back();
+        sweep.back();
+        assert_eq!(sweep.adjoint(x), None);
+        assert_eq!(sweep.ledger().unwrap().len(), 1);
+    }
 }

@@ -42,7 +42,8 @@ pub struct Sweep<'t> {
     /// `Compact::first_contribution`), so it is never stored.
     scalar_adjoints: Vec<f64>,
     /// The adjoint of every tensor node so far (`None` for scalar nodes, and
-    /// before a tensor node's first contribution).
+    /// before a tensor node's first contribution); empty when the trace has
+    /// no tensor node.
     tensor_adjoints: Vec<Option<Value>>,
     ledger: Option<Store>,
     flags: Vec<Flag>,
@@ -54,7 +55,13 @@ impl<'t> Sweep<'t> {
     /// A sweep at its start: only the output holds an adjoint, the seed.
     pub fn new(trace: &'t Trace, mode: LedgerMode) -> Sweep<'t> {
         let mut scalar_adjoints = vec![-0.0; trace.nodes().len()];
-        let mut tensor_adjoints = vec![None; trace.nodes().len()];
+        // Only tensor nodes use their slot: an all-scalar trace needs none.
+        let has_tensors = !trace.compact().is_scalar.iter().all(|&scalar| scalar);
+        let mut tensor_adjoints = if has_tensors {
+            vec![None; trace.nodes().len()]
+        } else {
+            Vec::new()
+        };
         match trace.seed() {
             Value::Scalar(seed) => scalar_adjoints[trace.output()] = *seed,
             seed => tensor_adjoints[trace.output()] = Some(seed.clone()),

@@ -59,6 +59,12 @@ impl Tensor {
         self.storage.is_mapped()
     }
 
+    /// True when the elements are mapped f32s and a widened f64 copy of them
+    /// is held (made by the first call to [`Value::data`]).
+    pub fn is_widened(&self) -> bool {
+        self.storage.is_widened()
+    }
+
     /// Summary statistics as values of `dtype`: computed once and cached, so
     /// views and reports may ask every frame. A mapped f32 tensor is
     /// summarised without widening it to f64.

@@ -105,6 +105,11 @@ impl Mapped {
             .get_or_init(|| self.narrow_elements().collect())
     }
 
+    /// True once a widened copy has been made.
+    pub fn is_widened(&self) -> bool {
+        self.widened.get().is_some()
+    }
+
     /// The elements decoded one by one, without keeping a widened copy.
     pub fn narrow_elements(&self) -> impl Iterator<Item = f64> + '_ {
         let element = self.element;
@@ -152,6 +157,11 @@ pub(crate) enum Storage {
 }
 
 impl Storage {
+    /// True when the elements are mapped and a widened f64 copy of them is held.
+    pub(crate) fn is_widened(&self) -> bool {
+        matches!(self, Storage::Mapped(mapped) if mapped.is_widened())
+    }
+
     pub(crate) fn data(&self) -> &[f64] {
         match self {
             Storage::Owned(data) => data,

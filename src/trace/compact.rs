@@ -52,9 +52,11 @@ impl Compact {
     pub(crate) fn new(nodes: &[Node], dtype: Dtype, order: &[usize]) -> Compact {
         let edges: usize = order.iter().map(|&node| nodes[node].inputs.len()).sum();
         let mut compact = Compact {
+            // Matched on the variant: `Value::data` would read (and widen) a
+            // binary-backed tensor's elements, which opening must not touch.
             scalars: nodes
                 .iter()
-                .map(|node| node.value.as_scalar().unwrap_or(f64::NAN))
+                .map(|node| scalar_of(node).unwrap_or(f64::NAN))
                 .collect(),
             is_scalar: nodes
                 .iter()
@@ -113,6 +115,14 @@ impl Compact {
     }
 }
 
+/// The value of a scalar node; `None` for a tensor node, whatever its size.
+fn scalar_of(node: &Node) -> Option<f64> {
+    match node.value {
+        Value::Scalar(x) => Some(x),
+        Value::Tensor(_) => None,
+    }
+}
+
 /// The partials on `node`'s input edges (the first `inputs.len()` entries)
 /// when its step can take the scalar path: the node, its inputs and (so) its
 /// adjoint are scalars, its op is elementwise or a leaf, it has at most two
@@ -129,7 +139,7 @@ fn scalar_partials(nodes: &[Node], node: &Node, dtype: Dtype) -> Option<[f64; 2]
     }
     let mut input_values = [0.0f64; 2];
     for (value, &input) in input_values.iter_mut().zip(&node.inputs) {
-        *value = nodes[input].value.as_scalar()?;
+        *value = scalar_of(&nodes[input])?;
     }
     let input_values = &input_values[..node.inputs.len()];
     let mut partials = [f64::NAN; 2];
