@@ -170,7 +170,7 @@ impl<'s, 't> Ledger<'s, 't> {
                 after: stored.after.clone(),
             };
         }
-        let adjoint = self.sweep.scalar_adjoint(consumer);
+        let adjoint = self.sweep.scalar_adjoints[consumer];
         let rounding = self.rounding;
         let held = self.store.held[edge];
         let value = rounding.apply(adjoint * compact.edge_partial[edge]);

@@ -145,11 +145,6 @@ impl<'t> Sweep<'t> {
         node == self.trace.output() || self.trace.compact().has_received(node, self.cursor)
     }
 
-    /// The adjoint of a scalar node (−0.0 before its first contribution).
-    fn scalar_adjoint(&self, node: usize) -> f64 {
-        self.scalar_adjoints[node]
-    }
-
     /// Takes `node`'s adjoint out of its slot (a scalar's stays in place).
     fn take_slot(&mut self, node: usize) -> Option<Value> {
         if self.trace.compact().is_scalar[node] {
