@@ -166,8 +166,11 @@ fn exponent_of(a: f64) -> i32 {
 
 /// Correctly rounded conversion of an f64 into a narrower binary format.
 ///
-/// Scaling by a power of two is exact, so `a / ulp` is exact and
-/// `round_ties_even` does the one rounding; the product back is exact too.
+/// Scaling by a power of two is exact, so `a · 2^-k` (k the ulp's exponent)
+/// is exact, and below 2^25 (the largest format here has 24 significant
+/// bits): adding and subtracting 2^52 then rounds it to an integer, ties to
+/// even, in IEEE 754's default rounding mode, the classic trick that needs no
+/// call to `rint`. The product back by the ulp is exact too.
 fn round_to_format(x: f64, limits: FormatLimits) -> f64 {
     if !x.is_finite() || x == 0.0 {
         return x;
@@ -177,9 +180,15 @@ fn round_to_format(x: f64, limits: FormatLimits) -> f64 {
     if magnitude < f64::MIN_POSITIVE {
         return 0.0f64.copysign(x);
     }
+    debug_assert!(
+        limits.precision <= 25,
+        "the 2^52 trick needs a narrow format"
+    );
     let exponent = exponent_of(magnitude).max(limits.min_exponent);
-    let ulp = pow2(exponent - (limits.precision - 1));
-    let rounded = (magnitude / ulp).round_ties_even() * ulp;
+    let ulp_exponent = exponent - (limits.precision - 1);
+    const INTEGER_ROUNDING: f64 = 4_503_599_627_370_496.0; // 2^52
+    let in_ulps = magnitude * pow2(-ulp_exponent);
+    let rounded = ((in_ulps + INTEGER_ROUNDING) - INTEGER_ROUNDING) * pow2(ulp_exponent);
     let result = if rounded > limits.max_finite() {
         f64::INFINITY
     } else {

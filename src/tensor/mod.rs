@@ -225,7 +225,11 @@ impl Value {
     /// Euclidean norm of all elements, computed in f64 with scaling so that it
     /// does not overflow for large finite entries.
     pub fn l2_norm(&self) -> f64 {
-        l2_norm(self.data())
+        match self {
+            // One element: the scaled sum is |x| exactly (NaN and ±inf included).
+            Value::Scalar(x) => x.abs(),
+            Value::Tensor(_) => l2_norm(self.data()),
+        }
     }
 }
 
@@ -460,5 +464,25 @@ mod tests {
         assert!(l2_norm(&[1.0, f64::NAN]).is_nan());
         assert_eq!(l2_norm(&[1.0, f64::NEG_INFINITY]), f64::INFINITY);
         assert_eq!(l2_norm(&[]), 0.0);
+    }
+
+    #[test]
+    fn a_scalars_norm_is_what_the_scaled_sum_gives_for_one_element() {
+        for x in [
+            0.0,
+            -0.0,
+            1.5,
+            -3e300,
+            5e-324,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+        ] {
+            assert_eq!(
+                Value::Scalar(x).l2_norm().to_bits(),
+                l2_norm(&[x]).to_bits(),
+                "{x}"
+            );
+        }
+        assert!(Value::Scalar(f64::NAN).l2_norm().is_nan());
     }
 }

@@ -9,6 +9,7 @@ use petgraph::Direction;
 use petgraph::graph::{DiGraph, NodeIndex};
 use petgraph::visit::EdgeRef;
 use std::collections::HashMap;
+use std::sync::Arc;
 
 /// A recorded partial on one edge, checked against the edge's shapes.
 #[derive(Debug, Clone, PartialEq)]
@@ -63,7 +64,8 @@ pub struct Trace {
     pub(super) nodes: Vec<Node>,
     pub(super) output: usize,
     pub(super) seed: Value,
-    pub(super) index: HashMap<String, usize>,
+    /// Shared by every re-typed copy: ids never change.
+    pub(super) index: Arc<HashMap<String, usize>>,
     /// Edges run from input to consumer; edge weight is the input slot.
     pub(super) graph: DiGraph<(), u32>,
     pub(super) order: Vec<usize>,

@@ -1,7 +1,7 @@
 //! A trace re-typed into another dtype, so the same recorded step can be swept
 //! in f16, bf16, f32 and f64 side by side.
 
-use super::model::{Partial, Trace};
+use super::model::{Node, Partial, Trace};
 use crate::dtype::{Dtype, Subnormals};
 use crate::tensor::Value;
 
@@ -15,25 +15,24 @@ impl Trace {
     /// ids and sweep order are shared unchanged.
     pub fn retyped(&self, dtype: Dtype, subnormals: Subnormals) -> Trace {
         let round = |value: &Value| value.map(|x| dtype.round_with(x, subnormals));
-        let mut retyped = self.clone();
-        retyped.dtype = dtype;
-        retyped.subnormals = subnormals;
-        retyped.seed = round(&self.seed);
-        for node in &mut retyped.nodes {
-            node.value = round(&node.value);
-            for partial in node.partials.iter_mut().flatten() {
-                match partial {
-                    Partial::Scalar(s) => *s = dtype.round_with(*s, subnormals),
-                    Partial::Diagonal(diagonal) => *diagonal = round(diagonal),
-                    Partial::Jacobian { data, .. } => data
-                        .iter_mut()
-                        .for_each(|x| *x = dtype.round_with(*x, subnormals)),
+        let nodes = self
+            .nodes
+            .iter()
+            .map(|node| {
+                let mut retyped = node.with_value(round(&node.value));
+                for partial in retyped.partials.iter_mut().flatten() {
+                    match partial {
+                        Partial::Scalar(s) => *s = dtype.round_with(*s, subnormals),
+                        Partial::Diagonal(diagonal) => *diagonal = round(diagonal),
+                        Partial::Jacobian { data, .. } => data
+                            .iter_mut()
+                            .for_each(|x| *x = dtype.round_with(*x, subnormals)),
+                    }
                 }
-            }
-        }
-        // The sweep's fast path reads the compact copy of the values: rebuild it from the rounded ones.
-        retyped.compact = super::compact::Compact::new(&retyped.nodes, dtype, &retyped.order);
-        retyped
+                retyped
+            })
+            .collect();
+        self.with_nodes(nodes, dtype, subnormals, round(&self.seed))
     }
 
     /// A copy with every node's forward value replaced, one per node in
@@ -44,18 +43,64 @@ impl Trace {
     /// If the count or a shape differs.
     pub fn with_values(&self, values: Vec<Value>) -> Trace {
         assert_eq!(values.len(), self.nodes.len(), "one value per node");
-        let mut replaced = self.clone();
-        for (node, value) in replaced.nodes.iter_mut().zip(values) {
-            assert_eq!(
-                node.value.shape(),
-                value.shape(),
-                "a replacement keeps the node's shape"
-            );
-            node.value = value;
+        let nodes = self
+            .nodes
+            .iter()
+            .zip(values)
+            .map(|(node, value)| {
+                assert_eq!(
+                    node.value.shape(),
+                    value.shape(),
+                    "a replacement keeps the node's shape"
+                );
+                node.with_value(value)
+            })
+            .collect();
+        self.with_nodes(nodes, self.dtype, self.subnormals, self.seed.clone())
+    }
+
+    /// This trace with other nodes (the same ids, inputs and shapes) and
+    /// arithmetic: the graph and the sweep order are kept; the compact copy
+    /// the sweep reads is rebuilt from the new values.
+    fn with_nodes(
+        &self,
+        nodes: Vec<Node>,
+        dtype: Dtype,
+        subnormals: Subnormals,
+        seed: Value,
+    ) -> Trace {
+        Trace {
+            title: self.title.clone(),
+            description: self.description.clone(),
+            dtype,
+            subnormals,
+            compact: super::compact::Compact::new(&nodes, dtype, &self.order),
+            nodes,
+            output: self.output,
+            seed,
+            index: self.index.clone(),
+            graph: self.graph.clone(),
+            order: self.order.clone(),
+            rank: self.rank.clone(),
         }
-        replaced.compact =
-            super::compact::Compact::new(&replaced.nodes, replaced.dtype, &replaced.order);
-        replaced
+    }
+}
+
+impl Node {
+    /// A copy of this node holding `value` instead of its own (which is not copied).
+    fn with_value(&self, value: Value) -> Node {
+        Node {
+            id: self.id.clone(),
+            op: self.op,
+            op_name: self.op_name.clone(),
+            inputs: self.inputs.clone(),
+            group: self.group.clone(),
+            site: self.site.clone(),
+            value,
+            attrs: self.attrs.clone(),
+            partials: self.partials.clone(),
+            reported: self.reported.clone(),
+        }
     }
 }
 

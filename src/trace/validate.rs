@@ -520,7 +520,7 @@ fn build(
         nodes,
         output,
         seed,
-        index,
+        index: std::sync::Arc::new(index),
         graph,
         order,
         rank,
