@@ -1,6 +1,7 @@
 //! Ebb: load a recorded trace of one training or evaluation step, replay its
 //! reverse sweep node by node, and point at where a bad gradient was born.
 
+pub mod closest;
 pub mod demos;
 pub mod diagnose;
 pub mod dtype;

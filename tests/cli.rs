@@ -241,3 +241,30 @@ fn verify_agrees_on_the_demo_and_names_a_wrong_partial() {
         Some(2)
     );
 }
+
+#[test]
+fn a_bad_key_file_is_one_line_with_its_place_and_exit_status_2() {
+    let dir = tempfile::tempdir().unwrap();
+    let keys = write_temp(
+        dir.path(),
+        "keys.ron",
+        "[\n    (action: \"step\", keys: [\"Right\"]),\n    (action: \"back\", keys: [\"Right\"]),\n]\n",
+    );
+    let output = ebb(&[
+        "open",
+        "traces/teaching.ron",
+        "--keys",
+        keys.to_str().unwrap(),
+    ]);
+    assert_eq!(output.status.code(), Some(2));
+    let message = stderr(&output);
+    assert_eq!(message.lines().count(), 1, "{message}");
+    assert!(
+        message.contains("keys.ron:3:")
+            && message.contains("key '→' is already bound to 'step' in global"),
+        "{message}"
+    );
+    // The key file is checked before the view asks for a terminal, and never written.
+    let after = std::fs::read_to_string(&keys).unwrap();
+    assert!(after.contains("(action: \"back\", keys: [\"Right\"])"));
+}

@@ -14,6 +14,9 @@ pub struct Cli {
     /// Theme of the view on the built-in demo: a shipped name (dark, light, contrast, colorblind) or a path to a .ron theme.
     #[arg(long, value_name = "NAME|PATH")]
     pub theme: Option<String>,
+    /// Keys of the view on the built-in demo, from a RON key file (as for `ebb open --keys`).
+    #[arg(long, value_name = "FILE")]
+    pub keys: Option<PathBuf>,
 }
 
 /// The subcommands.
@@ -23,7 +26,7 @@ pub enum Command {
     ///
     /// Needs a terminal; `ebb check` and `ebb sweep` give text output. NO_COLOR is honoured.
     #[command(
-        after_help = "Examples:\n  ebb open traces/teaching.ron\n  ebb open run.json --theme colorblind\n  ebb open run.json --theme my-theme.ron\n\nKeys: ? in the view lists them all."
+        after_help = "Examples:\n  ebb open traces/teaching.ron\n  ebb open run.json --theme colorblind\n  ebb open run.json --theme my-theme.ron\n  ebb open run.json --keys my-keys.ron\n\nKeys: ? in the view lists them all."
     )]
     Open {
         /// The trace file (.ron or .json).
@@ -31,6 +34,9 @@ pub enum Command {
         /// A shipped theme (dark, light, contrast, colorblind) or a path to a .ron theme.
         #[arg(long, value_name = "NAME|PATH")]
         theme: Option<String>,
+        /// A RON key file giving actions other keys, e.g. `[(action: "step", keys: ["Right"])]`.
+        #[arg(long, value_name = "FILE")]
+        keys: Option<PathBuf>,
         /// A RON settings file with the diagnosis's thresholds, as for `ebb check --rules`.
         #[arg(long, value_name = "FILE")]
         rules: Option<PathBuf>,

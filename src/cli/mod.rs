@@ -15,7 +15,7 @@ use ebb::ops::{CATALOG, Rule};
 use ebb::report::Report;
 use ebb::sweep::{LedgerMode, Sweep};
 use ebb::trace::{self, Encoding, LoadError, Trace};
-use ebb::tui::{self, Theme, ViewError};
+use ebb::tui::{self, KeyMap, Theme, ViewError};
 use ebb::verify::{Direction, VerifyOptions, verify};
 use std::io::{IsTerminal, Write};
 use std::path::Path;
@@ -44,16 +44,21 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
         None if std::io::stdout().is_terminal() => view(
             &load_demo()?,
             DEMO_NAME,
-            cli.theme.as_deref(),
+            Look::of(cli.theme.as_deref(), cli.keys.as_deref())?,
             Settings::default(),
         ),
         None => check(DEMO_NAME, &load_demo()?, false, &Settings::default(), out),
         Some(Command::Open {
             trace,
             theme,
+            keys,
             rules,
             set,
-        }) => open(&trace, theme.as_deref(), settings(rules.as_deref(), &set)?),
+        }) => open(
+            &trace,
+            Look::of(theme.as_deref(), keys.as_deref())?,
+            settings(rules.as_deref(), &set)?,
+        ),
         Some(Command::Check {
             trace,
             json,
@@ -107,23 +112,32 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
 )]
 pub struct NeedsTerminal(String);
 
-fn themes(theme: Option<&str>) -> Result<Vec<Theme>> {
-    let first = theme.map(Theme::resolve).transpose()?;
-    Ok(Theme::cycle(first, tui::no_color_requested()))
+/// How the view looks and which keys it takes, from `--theme` and `--keys`.
+struct Look {
+    themes: Vec<Theme>,
+    keymap: KeyMap,
 }
 
-fn open(path: &Path, theme: Option<&str>, settings: Settings) -> Result<Outcome> {
+impl Look {
+    fn of(theme: Option<&str>, keys: Option<&Path>) -> Result<Look> {
+        let first = theme.map(Theme::resolve).transpose()?;
+        Ok(Look {
+            themes: Theme::cycle(first, tui::no_color_requested()),
+            keymap: keys.map(KeyMap::load).transpose()?.unwrap_or_default(),
+        })
+    }
+}
+
+fn open(path: &Path, look: Look, settings: Settings) -> Result<Outcome> {
     if !std::io::stdout().is_terminal() {
         return Err(NeedsTerminal(path.display().to_string()).into());
     }
-    let themes = themes(theme)?;
-    tui::open(path, themes, settings).map_err(view_error)?;
+    tui::open(path, look.themes, look.keymap, settings).map_err(view_error)?;
     Ok(Outcome::Clean)
 }
 
-fn view(trace: &Trace, label: &str, theme: Option<&str>, settings: Settings) -> Result<Outcome> {
-    let themes = themes(theme)?;
-    tui::view(trace, label, themes, settings).map_err(view_error)?;
+fn view(trace: &Trace, label: &str, look: Look, settings: Settings) -> Result<Outcome> {
+    tui::view(trace, label, look.themes, look.keymap, settings).map_err(view_error)?;
     Ok(Outcome::Clean)
 }
 

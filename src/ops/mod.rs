@@ -436,27 +436,8 @@ impl Op {
 
     /// The catalog name closest to `name` by edit distance, for hints.
     pub fn closest_name(name: &str) -> Option<&'static str> {
-        CATALOG
-            .iter()
-            .map(|row| (edit_distance(name, row.name), row.name))
-            .filter(|(distance, _)| *distance <= 2)
-            .min_by_key(|(distance, _)| *distance)
-            .map(|(_, name)| name)
+        crate::closest::closest(name, CATALOG.iter().map(|row| row.name))
     }
-}
-
-fn edit_distance(a: &str, b: &str) -> usize {
-    let b: Vec<char> = b.chars().collect();
-    let mut previous: Vec<usize> = (0..=b.len()).collect();
-    for (i, ca) in a.chars().enumerate() {
-        let mut current = vec![i + 1; b.len() + 1];
-        for (j, cb) in b.iter().enumerate() {
-            let substitution = previous[j] + usize::from(ca != *cb);
-            current[j + 1] = substitution.min(previous[j + 1] + 1).min(current[j] + 1);
-        }
-        previous = current;
-    }
-    previous[b.len()]
 }
 
 /// The output shape of `op` for the given input shapes, or why they do not fit.

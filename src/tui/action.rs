@@ -149,7 +149,64 @@ pub enum Action {
     PreviousParameter,
 }
 
+/// Every action a key file may bind, under the name it uses there.
+pub const BINDABLE: &[(&str, Action)] = &[
+    ("step", Action::Step),
+    ("back", Action::Back),
+    ("run_to_flag", Action::RunToFlag),
+    ("run_to_end", Action::RunToEnd),
+    ("restart", Action::Restart),
+    ("select_current", Action::SelectCurrent),
+    ("open_jump", Action::OpenJump),
+    ("open_search", Action::OpenSearch),
+    ("search_next", Action::SearchNext),
+    ("search_previous", Action::SearchPrevious),
+    ("focus_next", Action::FocusNext),
+    ("focus_previous", Action::FocusPrevious),
+    ("focus_order", Action::Focus(PaneId::Order)),
+    ("focus_node", Action::Focus(PaneId::Node)),
+    ("focus_inflow", Action::Focus(PaneId::Inflow)),
+    ("focus_edges", Action::Focus(PaneId::Edges)),
+    ("focus_trend", Action::Focus(PaneId::Trend)),
+    ("focus_flags", Action::Focus(PaneId::Flags)),
+    ("focus_verify", Action::Focus(PaneId::Verify)),
+    ("focus_paths", Action::Focus(PaneId::Paths)),
+    ("zoom", Action::Zoom),
+    ("cycle_theme", Action::CycleTheme),
+    ("help", Action::Help),
+    ("quit", Action::Quit),
+    ("cancel", Action::Cancel),
+    ("down", Action::Down),
+    ("up", Action::Up),
+    ("page_down", Action::PageDown),
+    ("page_up", Action::PageUp),
+    ("top", Action::Top),
+    ("bottom", Action::Bottom),
+    ("enter", Action::Enter),
+    ("walk_back", Action::WalkBack),
+    ("erase", Action::Erase),
+    ("complete", Action::Complete),
+    ("submit", Action::Submit),
+    ("verify", Action::Verify),
+    ("toggle_forward", Action::ToggleForward),
+    ("cycle_direction", Action::CycleDirection),
+    ("diagnose", Action::Diagnose),
+    ("cycle_precision", Action::CyclePrecision),
+    ("jump_to_origin", Action::JumpToOrigin),
+    ("next_parameter", Action::NextParameter),
+    ("previous_parameter", Action::PreviousParameter),
+];
+
 impl Action {
+    /// The name a key file uses for this action (`None` for typed
+    /// characters and mouse events, which no key file binds).
+    pub fn name(self) -> Option<&'static str> {
+        BINDABLE
+            .iter()
+            .find(|(_, action)| *action == self)
+            .map(|(name, _)| *name)
+    }
+
     /// What the action does, for the help overlay.
     pub fn describe(self) -> &'static str {
         match self {

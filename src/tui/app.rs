@@ -202,6 +202,13 @@ impl<'t> App<'t> {
         self
     }
 
+    /// The view with `keymap` (`ebb open --keys`) in place of the default
+    /// keys; help and hints follow it.
+    pub fn with_keymap(mut self, keymap: KeyMap) -> App<'t> {
+        self.keymap = keymap;
+        self
+    }
+
     /// Diagnoses with these thresholds (`ebb open --rules/--set`) instead of the defaults.
     pub fn with_settings(mut self, settings: crate::diagnose::Settings) -> App<'t> {
         self.diagnoses = Diagnoses::with_settings(settings);

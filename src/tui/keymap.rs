@@ -16,6 +16,29 @@ pub enum Scope {
 }
 
 impl Scope {
+    /// Every scope under the name a key file uses for it.
+    pub fn named() -> Vec<(String, Scope)> {
+        let mut scopes = vec![
+            ("global".to_string(), Scope::Global),
+            ("prompt".to_string(), Scope::Prompt),
+        ];
+        scopes.extend(
+            PaneId::ALL
+                .iter()
+                .map(|&pane| (pane.name().to_lowercase(), Scope::Pane(pane))),
+        );
+        scopes
+    }
+
+    /// The name a key file uses for this scope.
+    pub fn name(self) -> String {
+        match self {
+            Scope::Global => "global".to_string(),
+            Scope::Prompt => "prompt".to_string(),
+            Scope::Pane(pane) => pane.name().to_lowercase(),
+        }
+    }
+
     /// A heading for the help overlay.
     pub fn heading(self) -> String {
         match self {
@@ -93,6 +116,51 @@ impl Key {
         } else {
             base
         }
+    }
+}
+
+/// Names of non-character keys, as written in help and key files
+/// (characters are written as themselves; "C-" marks Control).
+const KEY_NAMES: &[(&str, KeyCode)] = &[
+    ("Space", KeyCode::Char(' ')),
+    ("Up", KeyCode::Up),
+    ("↑", KeyCode::Up),
+    ("Down", KeyCode::Down),
+    ("↓", KeyCode::Down),
+    ("Left", KeyCode::Left),
+    ("←", KeyCode::Left),
+    ("Right", KeyCode::Right),
+    ("→", KeyCode::Right),
+    ("PgUp", KeyCode::PageUp),
+    ("PgDn", KeyCode::PageDown),
+    ("Home", KeyCode::Home),
+    ("End", KeyCode::End),
+    ("Enter", KeyCode::Enter),
+    ("Esc", KeyCode::Esc),
+    ("Tab", KeyCode::Tab),
+    ("S-Tab", KeyCode::BackTab),
+    ("Bksp", KeyCode::Backspace),
+    ("Backspace", KeyCode::Backspace),
+];
+
+impl Key {
+    /// A key as a key file writes it: one character (`s`, `?`), a name from
+    /// the help (`Enter`, `PgDn`, `Space`, `↑` or `Up`, `S-Tab`), or either
+    /// after `C-` for Control. `None` when it is none of these.
+    pub fn parse(text: &str) -> Option<Key> {
+        let (modifiers, base) = match text.strip_prefix("C-") {
+            Some(rest) if !rest.is_empty() => (KeyModifiers::CONTROL, rest),
+            _ => (KeyModifiers::NONE, text),
+        };
+        let named = KEY_NAMES.iter().find(|(name, _)| *name == base);
+        let mut chars = base.chars();
+        let code = match (named, chars.next(), chars.next()) {
+            // Names first: "↑" is one character but names the arrow key.
+            (Some((_, code)), _, _) => *code,
+            (None, Some(c), None) => KeyCode::Char(c),
+            _ => return None,
+        };
+        Some(Key { code, modifiers })
     }
 }
 
@@ -239,6 +307,37 @@ impl Default for KeyMap {
 }
 
 impl KeyMap {
+    /// Gives `action` exactly `keys` in `scope`, in place of the keys it had
+    /// there. Fails, naming both actions, when a key is already bound to
+    /// another action in the same scope.
+    pub fn rebind(&mut self, scope: Scope, action: Action, keys: &[Key]) -> Result<(), String> {
+        let at = self
+            .bindings
+            .iter()
+            .position(|binding| binding.scope == scope && binding.action == action);
+        self.bindings
+            .retain(|binding| !(binding.scope == scope && binding.action == action));
+        for &key in keys {
+            if let Some(taken) = self
+                .bindings
+                .iter()
+                .find(|binding| binding.scope == scope && binding.key == key)
+            {
+                return Err(format!(
+                    "key '{}' is already bound to '{}' in {}",
+                    key.label(),
+                    taken.action.name().unwrap_or("another action"),
+                    scope.name()
+                ));
+            }
+        }
+        // Where the action's first key was, so the help keeps its order.
+        let at = at.unwrap_or(self.bindings.len()).min(self.bindings.len());
+        let new = keys.iter().map(|&key| Binding { key, scope, action });
+        self.bindings.splice(at..at, new);
+        Ok(())
+    }
+
     /// Every binding.
     pub fn bindings(&self) -> &[Binding] {
         &self.bindings

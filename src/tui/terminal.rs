@@ -4,7 +4,7 @@
 
 use super::action::Action;
 use super::app::App;
-use super::keymap::Key;
+use super::keymap::{Key, KeyMap};
 use super::layout;
 use super::precision::Retyped;
 use super::theme::Theme;
@@ -73,20 +73,33 @@ pub fn view(
     trace: &Trace,
     label: &str,
     themes: Vec<Theme>,
+    keymap: KeyMap,
     settings: Settings,
 ) -> Result<(), ViewError> {
     let mut session = Session::start()?;
-    run(&mut session.terminal, trace, label, themes, settings)
+    run(
+        &mut session.terminal,
+        trace,
+        label,
+        themes,
+        keymap,
+        settings,
+    )
 }
 
 /// Loads `path` and opens the view on it. A large file loads on a worker
 /// thread behind a gauge; q or Ctrl-C abandons the load.
-pub fn open(path: &Path, themes: Vec<Theme>, settings: Settings) -> Result<(), ViewError> {
+pub fn open(
+    path: &Path,
+    themes: Vec<Theme>,
+    keymap: KeyMap,
+    settings: Settings,
+) -> Result<(), ViewError> {
     let size = std::fs::metadata(path).map(|meta| meta.len()).unwrap_or(0);
     let label = path.display().to_string();
     if size <= LARGE_FILE {
         let trace = trace::load(path)?;
-        return view(&trace, &label, themes, settings);
+        return view(&trace, &label, themes, keymap, settings);
     }
     let mut session = Session::start()?;
     let owned = path.to_path_buf();
@@ -117,11 +130,7 @@ pub fn open(path: &Path, themes: Vec<Theme>, settings: Settings) -> Result<(), V
             && let Event::Key(key) = event::read()?
             && key.kind == KeyEventKind::Press
             && matches!(
-                super::keymap::KeyMap::default().lookup(
-                    Key::from_event(&key),
-                    super::action::PaneId::Order,
-                    false
-                ),
+                keymap.lookup(Key::from_event(&key), super::action::PaneId::Order, false),
                 Some(Action::Quit)
             )
         {
@@ -131,7 +140,14 @@ pub fn open(path: &Path, themes: Vec<Theme>, settings: Settings) -> Result<(), V
     let trace = worker
         .join()
         .map_err(|_| io::Error::other("the loader thread panicked"))??;
-    run(&mut session.terminal, &trace, &label, themes, settings)
+    run(
+        &mut session.terminal,
+        &trace,
+        &label,
+        themes,
+        keymap,
+        settings,
+    )
 }
 
 /// The loader's progress, shared between the loading thread and the gauge.
@@ -178,11 +194,13 @@ fn run(
     trace: &Trace,
     label: &str,
     themes: Vec<Theme>,
+    keymap: KeyMap,
     settings: Settings,
 ) -> Result<(), ViewError> {
     let copies = Retyped::new(trace);
     let mut app = App::new(trace, label, themes)
         .with_copies(&copies)
+        .with_keymap(keymap)
         .with_settings(settings);
     while !app.quit {
         app.resize(terminal.size()?.into());

@@ -142,13 +142,12 @@ pub struct Theme {
 #[derive(Debug, thiserror::Error)]
 pub enum ThemeError {
     /// The file could not be read.
-    #[error("{}: cannot read the theme: {source} (hint: give a shipped theme name ({}) or a path to a .ron file)", path.display(), shipped_names())]
+    #[error("{}: cannot read the theme: {error} (hint: give a shipped theme name ({}) or a path to a .ron file)", path.display(), shipped_names())]
     Io {
         /// The file.
         path: PathBuf,
-        /// The I/O error.
-        #[source]
-        source: std::io::Error,
+        /// The I/O error (in the message, not as a source: the message is the one line).
+        error: std::io::Error,
     },
     /// The file is not a valid theme.
     #[error("{}:{line}:{column}: {message} (hint: copy themes/dark.ron and change the colours)", path.display())]
@@ -225,9 +224,9 @@ impl Theme {
             return Ok(theme);
         }
         let path = Path::new(name_or_path);
-        let text = std::fs::read_to_string(path).map_err(|source| ThemeError::Io {
+        let text = std::fs::read_to_string(path).map_err(|error| ThemeError::Io {
             path: path.to_path_buf(),
-            source,
+            error,
         })?;
         Theme::parse(&text, path)
     }
