@@ -62,8 +62,11 @@ impl<'t> Sweep<'t> {
         } else {
             Vec::new()
         };
+        // The seed has the output's shape (validated), so it goes where the output's adjoint lives.
         match trace.seed() {
-            Value::Scalar(seed) => scalar_adjoints[trace.output()] = *seed,
+            Value::Scalar(seed) if trace.compact().is_scalar[trace.output()] => {
+                scalar_adjoints[trace.output()] = *seed
+            }
             seed => tensor_adjoints[trace.output()] = Some(seed.clone()),
         }
         let ledger = (mode == LedgerMode::On)
