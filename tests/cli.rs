@@ -135,6 +135,9 @@ fn bad_input_is_one_line_with_exit_two() {
         message.contains("nope.ron") && message.contains("cannot read"),
         "{message}"
     );
+    // The operating system's reason is said once, before the hint.
+    assert_eq!(message.matches("os error").count(), 1, "{message}");
+    assert!(message.trim_end().ends_with("permissions)"), "{message}");
 
     let path = write_temp(
         dir.path(),

@@ -12,13 +12,12 @@ use std::path::{Path, PathBuf};
 #[derive(Debug, thiserror::Error)]
 pub enum SettingsError {
     /// The file could not be read.
-    #[error("{}: cannot read the settings: {source} (hint: check the path given to --rules)", path.display())]
+    #[error("{}: cannot read the settings: {error} (hint: check the path given to --rules)", path.display())]
     Io {
         /// The file.
         path: PathBuf,
-        /// The I/O error.
-        #[source]
-        source: std::io::Error,
+        /// The I/O error (in the message, not as a source, so it is printed once).
+        error: std::io::Error,
     },
     /// The file is not a RON settings struct.
     #[error("{}:{line}:{column}: {message} (hint: a settings file is a RON struct such as `(gain_above: 50.0)`; names: {})", path.display(), Settings::NAMES.join(", "))]
@@ -136,9 +135,9 @@ settings! {
 impl Settings {
     /// Reads a settings file over the defaults.
     pub fn load(path: &Path) -> Result<Settings, SettingsError> {
-        let text = std::fs::read_to_string(path).map_err(|source| SettingsError::Io {
+        let text = std::fs::read_to_string(path).map_err(|error| SettingsError::Io {
             path: path.to_path_buf(),
-            source,
+            error,
         })?;
         Settings::parse(&text, path)
     }

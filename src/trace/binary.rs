@@ -192,9 +192,9 @@ pub(crate) fn write(
 }
 
 fn staged_sidecar_len(staged: &store::Staged, path: &Path) -> Result<u64, SaveError> {
-    staged.len().map_err(|source| SaveError::Io {
+    staged.len().map_err(|error| SaveError::Io {
         path: path.to_path_buf(),
-        source,
+        error,
     })
 }
 
@@ -253,9 +253,9 @@ fn read_header(
     header: &Path,
     progress: &mut dyn Progress,
 ) -> Result<(HeaderFile, String), LoadError> {
-    let text = progress::read_text(header, progress).map_err(|source| LoadError::Io {
+    let text = progress::read_text(header, progress).map_err(|error| LoadError::Io {
         path: header.to_path_buf(),
-        source,
+        error,
     })?;
     progress.stage("parsing", None);
     let parsed = parse_as::<HeaderFile>(&text, Encoding::sniff(&text))

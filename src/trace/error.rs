@@ -64,13 +64,12 @@ impl fmt::Display for Problem {
 #[derive(Debug, thiserror::Error)]
 pub enum LoadError {
     /// The file could not be read.
-    #[error("{}: cannot read the trace: {source} (hint: check the path and permissions)", path.display())]
+    #[error("{}: cannot read the trace: {error} (hint: check the path and permissions)", path.display())]
     Io {
         /// The file.
         path: PathBuf,
-        /// The I/O error.
-        #[source]
-        source: std::io::Error,
+        /// The I/O error (in the message, not as a source, so it is printed once).
+        error: std::io::Error,
     },
     /// The text is not valid RON or JSON of the trace schema.
     #[error("{}:{line}:{column}: {message} (hint: see traces/FORMAT.md for the schema)", path.display())]
@@ -133,13 +132,12 @@ fn render_problems(path: &std::path::Path, problems: &[Problem]) -> String {
 #[derive(Debug, thiserror::Error)]
 pub enum SaveError {
     /// Writing, flushing or renaming failed; the target is left as it was.
-    #[error("{}: cannot write the trace: {source} (hint: check the directory exists and is writable)", path.display())]
+    #[error("{}: cannot write the trace: {error} (hint: check the directory exists and is writable)", path.display())]
     Io {
         /// The file being written.
         path: PathBuf,
-        /// The I/O error.
-        #[source]
-        source: std::io::Error,
+        /// The I/O error (in the message, not as a source, so it is printed once).
+        error: std::io::Error,
     },
     /// The extension names no trace format.
     #[error("{}: unknown trace extension (hint: use .ron or .json for text, .tape for a binary-backed trace)", path.display())]

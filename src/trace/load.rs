@@ -164,9 +164,9 @@ pub fn load_with(path: &Path, progress: &mut dyn Progress) -> Result<Trace, Load
     if super::store::Format::from_path(path) == Some(super::store::Format::Tape) {
         return super::binary::load(path, progress);
     }
-    let text = progress::read_text(path, progress).map_err(|source| LoadError::Io {
+    let text = progress::read_text(path, progress).map_err(|error| LoadError::Io {
         path: path.to_path_buf(),
-        source,
+        error,
     })?;
     let encoding = Encoding::from_path(path).unwrap_or_else(|| Encoding::sniff(&text));
     let trace = load_str_with(&text, encoding, path, progress);

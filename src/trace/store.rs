@@ -87,9 +87,9 @@ pub fn read_file(path: &Path, progress: &mut dyn Progress) -> Result<TraceFile, 
     if Format::from_path(path) == Some(Format::Tape) {
         return binary::read_inline(path, progress);
     }
-    let text = progress::read_text(path, progress).map_err(|source| LoadError::Io {
+    let text = progress::read_text(path, progress).map_err(|error| LoadError::Io {
         path: path.to_path_buf(),
-        source,
+        error,
     })?;
     let encoding = Encoding::from_path(path).unwrap_or_else(|| Encoding::sniff(&text));
     progress.stage("parsing", None);
@@ -122,9 +122,9 @@ pub(crate) fn stage(
     path: &Path,
     write: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
 ) -> Result<Staged, SaveError> {
-    let io = |source| SaveError::Io {
+    let io = |error| SaveError::Io {
         path: path.to_path_buf(),
-        source,
+        error,
     };
     let dir = match path.parent() {
         Some(dir) if !dir.as_os_str().is_empty() => dir,
@@ -149,7 +149,7 @@ pub(crate) fn stage(
 pub(crate) fn commit(staged: Staged, path: &Path) -> Result<(), SaveError> {
     staged.0.persist(path).map_err(|error| SaveError::Io {
         path: path.to_path_buf(),
-        source: error.error,
+        error: error.error,
     })?;
     Ok(())
 }
