@@ -9,7 +9,7 @@
 //! ]
 //! ```
 
-use super::action::BINDABLE;
+use super::action::{Action, BINDABLE};
 use super::keymap::{Key, KeyMap, Scope};
 use serde::Deserialize;
 use serde::de::{self, Deserializer, SeqAccess, Visitor};
@@ -150,6 +150,18 @@ impl<'de> Visitor<'de> for EntriesVisitor {
                     })
                 })
                 .collect::<Result<Vec<Key>, A::Error>>()?;
+            // Ctrl-C quits whatever a key file says: a way out is never lost.
+            let escape = Key::parse("C-c").expect("a key name");
+            let mut keys = keys;
+            if keys.contains(&escape) && action != Action::Quit {
+                return Err(de::Error::custom(format!(
+                    "C-c always quits and cannot be given to '{}'",
+                    entry.action
+                )));
+            }
+            if action == Action::Quit && !keys.contains(&escape) {
+                keys.push(escape);
+            }
             map.rebind(scope, action, &keys).map_err(|conflict| {
                 de::Error::custom(format!("{conflict}: give it to one action"))
             })?;
@@ -161,7 +173,7 @@ impl<'de> Visitor<'de> for EntriesVisitor {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::tui::{Action, PaneId};
+    use crate::tui::PaneId;
     use ratatui::crossterm::event::{KeyCode, KeyModifiers};
 
     fn parse(text: &str) -> Result<KeyMap, String> {
@@ -200,6 +212,12 @@ mod tests {
             map.hints(PaneId::Order)
                 .contains(&("→".to_string(), "step"))
         );
+    }
+
+    #[test]
+    fn control_c_still_quits_when_quit_gets_other_keys() {
+        let map = parse(r#"[(action: "quit", keys: ["x"])]"#).unwrap();
+        assert_eq!(map.keys_for(Scope::Global, Action::Quit), ["x", "C-c"]);
     }
 
     #[test]
@@ -272,6 +290,11 @@ mod tests {
                 "[\n  (action: \"quit\", keys: []),\n]",
                 "keys.ron:2:",
                 "'quit' needs at least one key",
+            ),
+            (
+                "[\n  (action: \"step\", keys: [\"C-c\"]),\n]",
+                "keys.ron:2:",
+                "C-c always quits and cannot be given to 'step'",
             ),
             (
                 "[\n  (action: \"step\", key: [\"x\"]),\n]",
