@@ -425,10 +425,14 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
                 }
             }
             let before_finite = entry.before.as_ref().is_none_or(Value::is_finite);
-            if before_finite && entry.value.is_finite() && !entry.after.is_finite() {
+            // The first non-finite element of a sum that was finite before: found once, used twice.
+            let became_non_finite = before_finite
+                .then(|| first_where(entry.after.data(), |_, x| !x.is_finite()))
+                .flatten();
+            if let Some(hit) = became_non_finite
+                && entry.value.is_finite()
+            {
                 // Finite contributions summing past the largest finite value at a branch.
-                let hit = first_where(entry.after.data(), |_, x| !x.is_finite())
-                    .expect("after is not finite");
                 collector.push(
                     Rule::Overflow,
                     entry.input,
@@ -439,9 +443,7 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
                     max,
                 );
             }
-            if before_finite
-                && let Some(hit) = first_where(entry.after.data(), |_, x| !x.is_finite())
-            {
+            if let Some(hit) = became_non_finite {
                 collector.push(
                     Rule::NonFinite,
                     entry.input,
