@@ -2,6 +2,7 @@
 //! reverse sweep node by node, and point at where a bad gradient was born.
 
 pub mod closest;
+pub mod control;
 pub mod demos;
 pub mod diagnose;
 pub mod dtype;

@@ -97,6 +97,23 @@ impl Trace {
         self.dtype
     }
 
+    /// The dtype `node`'s value and adjoint are stored in. Every node has the
+    /// trace's dtype until traces carry a dtype per node.
+    pub fn node_dtype(&self, node: usize) -> Dtype {
+        let _ = node;
+        self.dtype
+    }
+
+    /// The dtype matmul, convolution and reduction sums accumulate in before
+    /// one rounding into the output's dtype: f32 for f16, bf16 and f32 runs,
+    /// f64 for f64 runs (what mixed-precision hardware does; common practice).
+    pub fn accumulate(&self) -> Dtype {
+        match self.dtype {
+            Dtype::F64 => Dtype::F64,
+            _ => Dtype::F32,
+        }
+    }
+
     /// Whether the sweep keeps subnormal results or flushes them to zero
     /// (`Keep` for every loaded trace; see [`Trace::retyped`]).
     pub fn subnormals(&self) -> Subnormals {
