@@ -172,71 +172,93 @@ pub struct OpSpec {
     pub required: &'static [AttrName],
     /// One line for help and reports.
     pub summary: &'static str,
+    /// How the adjoint reaches the inputs, in one line of words: what the
+    /// view's Node pane teaches with (the numbers of the step are filled in
+    /// beside it). Every row has one; a test checks.
+    pub derivative: &'static str,
     /// Forward and derivative rules.
     pub rule: Rule,
 }
 
 /// The catalog, in the order help lists it.
 pub static CATALOG: &[OpSpec] = &[
-    leaf(Op::Input, "input", "a value fed to the step (data)"),
+    leaf(Op::Input, "input", "a value fed to the step (data)")
+        .says("a leaf: it keeps the adjoint it receives and passes nothing on"),
     leaf(
         Op::Param,
         "param",
         "a trainable parameter: its adjoint is the gradient",
-    ),
-    leaf(Op::Const, "const", "a constant"),
-    binary(Op::Add, "add", "a + b, broadcast", &elementwise::ADD),
-    binary(Op::Sub, "sub", "a − b, broadcast", &elementwise::SUB),
-    binary(Op::Mul, "mul", "a · b, broadcast", &elementwise::MUL),
-    binary(Op::Div, "div", "a / b, broadcast", &elementwise::DIV),
-    unary(Op::Neg, "neg", "−x", &elementwise::NEG, &[]),
+    )
+    .says("a leaf: the adjoint it receives is the parameter's gradient"),
+    leaf(Op::Const, "const", "a constant")
+        .says("a leaf: it keeps the adjoint it receives and passes nothing on"),
+    binary(Op::Add, "add", "a + b, broadcast", &elementwise::ADD)
+        .says("each input receives the adjoint unchanged (summed over broadcast axes)"),
+    binary(Op::Sub, "sub", "a − b, broadcast", &elementwise::SUB)
+        .says("a receives the adjoint, b receives −adjoint"),
+    binary(Op::Mul, "mul", "a · b, broadcast", &elementwise::MUL)
+        .says("each input receives adjoint × the other input"),
+    binary(Op::Div, "div", "a / b, broadcast", &elementwise::DIV)
+        .says("a receives adjoint / b, b receives −adjoint × a / b²"),
+    unary(Op::Neg, "neg", "−x", &elementwise::NEG, &[]).says("the input receives −adjoint"),
     unary(
         Op::Pow,
         "pow",
         "x^p for a constant exponent p",
         &elementwise::POW,
         &[AttrName::Exponent],
-    ),
-    unary(Op::Exp, "exp", "eˣ", &elementwise::EXP, &[]),
-    unary(Op::Log, "log", "natural logarithm", &elementwise::LOG, &[]),
-    unary(Op::Sqrt, "sqrt", "square root", &elementwise::SQRT, &[]),
+    )
+    .says("the input receives adjoint × p·x^(p−1)"),
+    unary(Op::Exp, "exp", "eˣ", &elementwise::EXP, &[])
+        .says("the input receives adjoint × eˣ, the node's own value"),
+    unary(Op::Log, "log", "natural logarithm", &elementwise::LOG, &[])
+        .says("the input receives adjoint / x"),
+    unary(Op::Sqrt, "sqrt", "square root", &elementwise::SQRT, &[])
+        .says("the input receives adjoint / (2√x), half the adjoint over the node's value"),
     unary(
         Op::Abs,
         "abs",
         "|x| (partial 0 at the kink)",
         &elementwise::ABS,
         &[],
-    ),
-    unary(Op::Sin, "sin", "sine", &elementwise::SIN, &[]),
-    unary(Op::Cos, "cos", "cosine", &elementwise::COS, &[]),
+    )
+    .says("the input receives adjoint × sign(x), 0 at x = 0"),
+    unary(Op::Sin, "sin", "sine", &elementwise::SIN, &[])
+        .says("the input receives adjoint × cos x"),
+    unary(Op::Cos, "cos", "cosine", &elementwise::COS, &[])
+        .says("the input receives adjoint × −sin x"),
     unary(
         Op::Tanh,
         "tanh",
         "hyperbolic tangent",
         &elementwise::TANH,
         &[],
-    ),
+    )
+    .says("the input receives adjoint × (1 − y²), y the node's value"),
     unary(
         Op::Sigmoid,
         "sigmoid",
         "1 / (1 + e⁻ˣ)",
         &elementwise::SIGMOID,
         &[],
-    ),
+    )
+    .says("the input receives adjoint × y(1 − y), y the node's value"),
     unary(
         Op::Relu,
         "relu",
         "max(x, 0) (partial 0 at the kink)",
         &elementwise::RELU,
         &[],
-    ),
+    )
+    .says("the input receives the adjoint where x > 0, else 0"),
     unary(
         Op::LeakyRelu,
         "leaky_relu",
         "x if x > 0 else slope·x",
         &elementwise::LEAKY_RELU,
         &[AttrName::Slope],
-    ),
+    )
+    .says("the input receives the adjoint where x > 0, else adjoint × slope"),
     structured(
         Op::Matmul,
         "matmul",
@@ -244,7 +266,8 @@ pub static CATALOG: &[OpSpec] = &[
         &[],
         "matrix product, batched over leading axes",
         &linalg::MATMUL,
-    ),
+    )
+    .says("A receives adjoint · Bᵀ, B receives Aᵀ · adjoint"),
     structured(
         Op::Transpose,
         "transpose",
@@ -252,7 +275,8 @@ pub static CATALOG: &[OpSpec] = &[
         &[],
         "permute axes (default: swap the last two)",
         &linalg::TRANSPOSE,
-    ),
+    )
+    .says("the input receives the adjoint with the axes permuted back"),
     structured(
         Op::Reshape,
         "reshape",
@@ -260,7 +284,8 @@ pub static CATALOG: &[OpSpec] = &[
         &[AttrName::Shape],
         "same elements, new shape",
         &linalg::RESHAPE,
-    ),
+    )
+    .says("the input receives the adjoint in its own shape"),
     structured(
         Op::Sum,
         "sum",
@@ -268,7 +293,8 @@ pub static CATALOG: &[OpSpec] = &[
         &[],
         "sum of all elements, or along axis",
         &reduce::SUM,
-    ),
+    )
+    .says("every summed element receives the adjoint"),
     structured(
         Op::Mean,
         "mean",
@@ -276,7 +302,8 @@ pub static CATALOG: &[OpSpec] = &[
         &[],
         "mean of all elements, or along axis",
         &reduce::MEAN,
-    ),
+    )
+    .says("every averaged element receives adjoint / n"),
     structured(
         Op::Max,
         "max",
@@ -284,7 +311,8 @@ pub static CATALOG: &[OpSpec] = &[
         &[AttrName::Axis],
         "maximum along axis (ties: first)",
         &reduce::MAX,
-    ),
+    )
+    .says("the (first) largest element receives the adjoint, the others 0"),
     structured(
         Op::Softmax,
         "softmax",
@@ -292,7 +320,8 @@ pub static CATALOG: &[OpSpec] = &[
         &[],
         "softmax along axis (default −1)",
         &reduce::SOFTMAX,
-    ),
+    )
+    .says("the input receives y ⊙ (adjoint − Σ adjoint ⊙ y) along the axis"),
     structured(
         Op::LogSoftmax,
         "log_softmax",
@@ -300,7 +329,8 @@ pub static CATALOG: &[OpSpec] = &[
         &[],
         "log of softmax along axis (default −1)",
         &reduce::LOG_SOFTMAX,
-    ),
+    )
+    .says("the input receives adjoint − softmax(x) × Σ adjoint along the axis"),
     structured(
         Op::Logsumexp,
         "logsumexp",
@@ -308,7 +338,8 @@ pub static CATALOG: &[OpSpec] = &[
         &[],
         "log Σ eˣ of all elements, or along axis",
         &reduce::LOGSUMEXP,
-    ),
+    )
+    .says("each element receives adjoint × softmax(x)"),
     structured(
         Op::CrossEntropy,
         "cross_entropy",
@@ -316,7 +347,8 @@ pub static CATALOG: &[OpSpec] = &[
         &[AttrName::Targets],
         "mean cross-entropy of logits [N, C] against class indices",
         &loss::CROSS_ENTROPY,
-    ),
+    )
+    .says("the logits receive adjoint × (softmax(logits) − one-hot(targets)) / N"),
     structured(
         Op::Mse,
         "mse",
@@ -324,7 +356,8 @@ pub static CATALOG: &[OpSpec] = &[
         &[],
         "mean squared error of prediction against target",
         &loss::MSE,
-    ),
+    )
+    .says("the prediction receives adjoint × 2(p − t) / n, the target its negative"),
 ];
 
 /// The catalog row standing in for custom ops.
@@ -334,6 +367,7 @@ static CUSTOM: OpSpec = OpSpec {
     arity: Arity::AtLeast(1),
     required: &[],
     summary: "an op outside the catalog, with recorded partials on every edge",
+    derivative: "each input receives adjoint × the recorded partial on its edge",
     rule: Rule::Custom,
 };
 
@@ -344,6 +378,7 @@ const fn leaf(op: Op, name: &'static str, summary: &'static str) -> OpSpec {
         arity: Arity::Exactly(0),
         required: &[],
         summary,
+        derivative: "",
         rule: Rule::Leaf,
     }
 }
@@ -361,6 +396,7 @@ const fn unary(
         arity: Arity::Exactly(1),
         required,
         summary,
+        derivative: "",
         rule: Rule::Unary(rule),
     }
 }
@@ -377,6 +413,7 @@ const fn binary(
         arity: Arity::Exactly(2),
         required: &[],
         summary,
+        derivative: "",
         rule: Rule::Binary(rule),
     }
 }
@@ -395,7 +432,15 @@ const fn structured(
         arity: Arity::Exactly(arity),
         required,
         summary,
+        derivative: "",
         rule: Rule::Structured(rule),
+    }
+}
+
+impl OpSpec {
+    /// The row with its derivative in words (see [`OpSpec::derivative`]).
+    const fn says(self, derivative: &'static str) -> OpSpec {
+        OpSpec { derivative, ..self }
     }
 }
 
@@ -715,6 +760,17 @@ mod tests {
             assert_eq!(Op::from_name(row.name), Some(row.op));
         }
         assert_eq!(Op::from_name("gelu_custom"), None);
+    }
+
+    #[test]
+    fn every_row_says_how_its_derivative_is_formed() {
+        for row in CATALOG.iter().chain([Op::Custom.spec()]) {
+            assert!(
+                !row.derivative.is_empty() && !row.derivative.contains('\n'),
+                "{} needs a one-line derivative text",
+                row.name
+            );
+        }
     }
 
     #[test]
