@@ -4,118 +4,14 @@
 //! back, then quit and find the terminal restored. Needs no controlling
 //! terminal, so it runs in CI.
 
-use portable_pty::{CommandBuilder, NativePtySystem, PtySize, PtySystem};
-use std::io::{Read, Write};
+mod common;
+
+use common::pty::Screen;
 use std::process::Command;
-use std::sync::{Arc, Mutex};
-use std::time::{Duration, Instant};
 
 // Closed form for the teaching demo (see tests/view_render.rs): q = e⁻¹ and the
 // adjoint of demand collects −kq, −kq, then p − c, with k = 0.1 and p − c = 1.5.
 const Q: f64 = 0.36787944117144233;
-
-struct Screen {
-    parser: Arc<Mutex<vt100::Parser>>,
-    keys: Box<dyn Write + Send>,
-    child: Box<dyn portable_pty::Child + Send + Sync>,
-}
-
-impl Screen {
-    fn open(rows: u16, cols: u16, args: &[&str]) -> Screen {
-        let pair = NativePtySystem::default()
-            .openpty(PtySize {
-                rows,
-                cols,
-                pixel_width: 0,
-                pixel_height: 0,
-            })
-            .unwrap();
-        let mut command = CommandBuilder::new(env!("CARGO_BIN_EXE_ebb"));
-        command.args(args);
-        command.cwd(env!("CARGO_MANIFEST_DIR"));
-        command.env("TERM", "xterm-256color");
-        command.env_remove("NO_COLOR");
-        let child = pair.slave.spawn_command(command).unwrap();
-        drop(pair.slave);
-        let parser = Arc::new(Mutex::new(vt100::Parser::new(
-            rows.try_into().unwrap(),
-            cols.try_into().unwrap(),
-            0,
-        )));
-        let (sink, mut reader) = (parser.clone(), pair.master.try_clone_reader().unwrap());
-        std::thread::spawn(move || {
-            let mut buf = [0u8; 8192];
-            while let Ok(n) = reader.read(&mut buf) {
-                if n == 0 {
-                    break;
-                }
-                sink.lock().unwrap().process(&buf[..n]);
-            }
-        });
-        let keys = pair.master.take_writer().unwrap();
-        // Keep the master alive as long as the writer: dropping it would hang up the child.
-        std::mem::forget(pair.master);
-        Screen {
-            parser,
-            keys,
-            child,
-        }
-    }
-
-    fn send(&mut self, keys: &str) {
-        // One key at a time, as a person types: an Esc followed at once by a
-        // character would read as Alt+character.
-        for key in keys.chars() {
-            self.keys.write_all(key.to_string().as_bytes()).unwrap();
-            self.keys.flush().unwrap();
-            std::thread::sleep(Duration::from_millis(30));
-        }
-    }
-
-    #[track_caller]
-    fn wait_for(&self, needle: &str) -> String {
-        let deadline = Instant::now() + Duration::from_secs(20);
-        loop {
-            let screen = self.parser.lock().unwrap().screen().contents();
-            if screen.contains(needle) {
-                return screen;
-            }
-            assert!(
-                Instant::now() < deadline,
-                "never saw {needle:?}; screen was:\n{screen}"
-            );
-            std::thread::sleep(Duration::from_millis(20));
-        }
-    }
-
-    /// The number shown after `label` once `needle` is on screen.
-    #[track_caller]
-    fn number_after(&self, needle: &str, label: &str) -> f64 {
-        let screen = self.wait_for(needle);
-        let line = screen
-            .lines()
-            .find(|line| line.contains(label))
-            .unwrap_or_else(|| panic!("no {label:?} in\n{screen}"));
-        let rest = line.split(label).nth(1).unwrap();
-        rest.split_whitespace()
-            .next()
-            .and_then(|word| word.parse().ok())
-            .unwrap_or_else(|| panic!("no number after {label:?} in {line}"))
-    }
-
-    fn wait_exit(&mut self) -> portable_pty::ExitStatus {
-        let deadline = Instant::now() + Duration::from_secs(20);
-        loop {
-            if let Some(status) = self.child.try_wait().unwrap() {
-                // Let the reader thread drain the last bytes.
-                std::thread::sleep(Duration::from_millis(200));
-                return status;
-            }
-            assert!(Instant::now() < deadline, "ebb did not exit");
-            std::thread::sleep(Duration::from_millis(20));
-        }
-    }
-}
 
 #[track_caller]
 fn near(shown: f64, expected: f64) {

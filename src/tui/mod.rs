@@ -16,6 +16,7 @@ mod neighbours;
 mod panes;
 mod precision;
 mod prompt;
+mod signals;
 mod symbols;
 mod tally;
 mod terminal;

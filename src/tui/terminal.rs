@@ -46,7 +46,17 @@ struct Session {
 
 impl Session {
     fn start() -> io::Result<Session> {
-        let terminal = ratatui::try_init()?;
+        // Signals restore the terminal from the moment it is changed.
+        super::signals::arm()?;
+        super::signals::entered();
+        let terminal = match ratatui::try_init() {
+            Ok(terminal) => terminal,
+            Err(error) => {
+                ratatui::restore();
+                super::signals::left();
+                return Err(error);
+            }
+        };
         // ratatui's hook restores raw mode and the screen; mouse capture is ours to undo.
         let previous = std::panic::take_hook();
         std::panic::set_hook(Box::new(move |info| {
@@ -55,6 +65,7 @@ impl Session {
         }));
         if let Err(error) = execute!(io::stdout(), EnableMouseCapture) {
             ratatui::restore();
+            super::signals::left();
             return Err(error);
         }
         Ok(Session { terminal })
@@ -65,6 +76,7 @@ impl Drop for Session {
     fn drop(&mut self) {
         let _ = execute!(io::stdout(), DisableMouseCapture);
         ratatui::restore();
+        super::signals::left();
     }
 }
 
@@ -233,4 +245,86 @@ fn run(
         }
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Session;
+    use portable_pty::{CommandBuilder, NativePtySystem, PtySize, PtySystem};
+    use std::io::Read;
+    use std::sync::{Arc, Mutex};
+    use std::time::{Duration, Instant};
+
+    /// Not a test: run by the one below inside a pseudo-terminal, it takes the
+    /// terminal as the view does and then panics.
+    #[test]
+    #[ignore = "run inside a pseudo-terminal by a_panic_in_the_view_restores_the_terminal"]
+    fn panicking_view() {
+        let _session = Session::start().expect("inside a pseudo-terminal");
+        panic!("a bug in the view");
+    }
+
+    #[test]
+    fn a_panic_in_the_view_restores_the_terminal() {
+        let pair = NativePtySystem::default()
+            .openpty(PtySize {
+                rows: 24,
+                cols: 80,
+                pixel_width: 0,
+                pixel_height: 0,
+            })
+            .unwrap();
+        let mut command = CommandBuilder::new(std::env::current_exe().unwrap());
+        command.args([
+            "--exact",
+            "tui::terminal::tests::panicking_view",
+            "--ignored",
+            "--nocapture",
+            "--test-threads=1",
+        ]);
+        command.env("TERM", "xterm-256color");
+        let dir = tempfile::tempdir().unwrap();
+        command.cwd(dir.path());
+        let mut child = pair.slave.spawn_command(command).unwrap();
+        drop(pair.slave);
+        let parser = Arc::new(Mutex::new(vt100::Parser::new(
+            24.try_into().unwrap(),
+            80.try_into().unwrap(),
+            0,
+        )));
+        let (sink, mut reader) = (parser.clone(), pair.master.try_clone_reader().unwrap());
+        std::thread::spawn(move || {
+            let mut buf = [0u8; 8192];
+            while let Ok(n) = reader.read(&mut buf) {
+                if n == 0 {
+                    break;
+                }
+                sink.lock().unwrap().process(&buf[..n]);
+            }
+        });
+        let deadline = Instant::now() + Duration::from_secs(60);
+        let status = loop {
+            if let Some(status) = child.try_wait().unwrap() {
+                break status;
+            }
+            assert!(Instant::now() < deadline, "the child never ended");
+            std::thread::sleep(Duration::from_millis(20));
+        };
+        std::thread::sleep(Duration::from_millis(200));
+        // libtest's status for a failed (panicked) test.
+        assert_eq!(status.exit_code(), 101, "{status:?}");
+        let modes: libc::termios = pair.master.get_termios().unwrap().into();
+        assert!(
+            modes.c_lflag & libc::ECHO != 0 && modes.c_lflag & libc::ICANON != 0,
+            "echo and canonical input are back"
+        );
+        let parser = parser.lock().unwrap();
+        let screen = parser.screen();
+        assert!(!screen.alternate_screen() && !screen.hide_cursor());
+        assert!(
+            screen.contents().contains("a bug in the view"),
+            "{}",
+            screen.contents()
+        );
+    }
 }

@@ -1,6 +1,7 @@
 //! Helpers shared by the integration tests: recording, validating and sweeping.
 #![allow(dead_code)]
 
+pub mod pty;
 pub mod screen;
 
 use ebb::record::Tape;
