@@ -98,6 +98,25 @@ impl Dtype {
         }
     }
 
+    /// The dtype sums accumulate in by default for values of this dtype:
+    /// f32 for f16, bf16 and f32 (what mixed-precision hardware and
+    /// frameworks do; common practice), f64 for f64.
+    pub fn default_accumulate(self) -> Dtype {
+        match self {
+            Dtype::F64 => Dtype::F64,
+            _ => Dtype::F32,
+        }
+    }
+
+    /// Bytes per element.
+    pub fn width(self) -> usize {
+        match self {
+            Dtype::F16 | Dtype::Bf16 => 2,
+            Dtype::F32 => 4,
+            Dtype::F64 => 8,
+        }
+    }
+
     /// The name used in trace files and reports.
     pub fn name(self) -> &'static str {
         match self {

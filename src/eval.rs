@@ -92,9 +92,9 @@ fn linearised(trace: &Trace, node: usize, values: &[Value], dtype: Dtype) -> Val
         let delta = Value::from_parts(
             before.shape().to_vec(),
             values[input]
-                .data()
+                .to_f64()
                 .iter()
-                .zip(before.data())
+                .zip(before.to_f64().iter())
                 .map(|(&now, &then)| dtype.round(now - then))
                 .collect(),
         );

@@ -11,8 +11,8 @@ pub fn describe_value(value: &Value) -> String {
     match value {
         Value::Scalar(x) => number(*x),
         Value::Tensor(t) => {
-            let shown: Vec<String> = t.data().iter().take(4).map(|&x| compact(x)).collect();
-            let more = if t.data().len() > 4 { ", …" } else { "" };
+            let shown: Vec<String> = t.to_f64().iter().take(4).map(|&x| compact(x)).collect();
+            let more = if t.len() > 4 { ", …" } else { "" };
             format!(
                 "{} norm {} [{}{more}]",
                 show(t.shape()),

@@ -17,7 +17,6 @@ pub use diagnosis::DiagnosisReport;
 
 use crate::diagnose::Diagnosis;
 use crate::format::{compact, shape as show};
-use crate::stats::Summary;
 use crate::sweep::{Flag, FlagKind, Sweep};
 use crate::trace::{Num, Trace};
 use serde::Serialize;
@@ -134,7 +133,7 @@ impl Report {
                 let shape = recorded.value.shape().to_vec();
                 match sweep.adjoint(node) {
                     Some(adjoint) => {
-                        let summary = Summary::of(adjoint.data(), dtype);
+                        let summary = adjoint.summary(dtype);
                         Gradient {
                             id: recorded.id.clone(),
                             group: recorded.group.clone(),

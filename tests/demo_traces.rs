@@ -55,7 +55,7 @@ fn gradient(trace: &Trace, sweep: &Sweep, id: &str) -> Vec<f64> {
     sweep
         .adjoint(trace.find(id).unwrap_or_else(|| panic!("no node {id}")))
         .unwrap_or_else(|| panic!("{id} has no adjoint"))
-        .data()
+        .to_f64()
         .to_vec()
 }
 
@@ -78,12 +78,12 @@ fn nan_hunt_takes_the_log_of_an_exact_zero() {
     let trace = open("nan_hunt.ron");
     let ln_p = trace.find("ln_p").unwrap();
     // IEEE 754-2019 §9.2.1: log(±0) is −inf (divideByZero).
-    let predicted = trace.node(trace.find("predicted").unwrap()).value.data();
+    let predicted = trace.node(trace.find("predicted").unwrap()).value.to_f64();
     let zero = predicted
         .iter()
         .position(|&p| p == 0.0)
         .expect("one prediction is exactly 0");
-    assert_eq!(trace.node(ln_p).value.data()[zero], f64::NEG_INFINITY);
+    assert_eq!(trace.node(ln_p).value.get(zero), f64::NEG_INFINITY);
     let sweep = swept(&trace);
     assert!(
         sweep
@@ -177,9 +177,9 @@ fn wrong_partial_disagrees_with_the_reference_only_upstream_of_the_gate() {
             .as_ref()
             .expect("every node carries the reference gradient");
         let ours = sweep.adjoint(node).unwrap();
-        ours.data()
+        ours.to_f64()
             .iter()
-            .zip(reported.data())
+            .zip(reported.to_f64().iter())
             .any(|(a, b)| (a - b).abs() > 1e-9 * (1.0 + b.abs()))
     };
     for id in ["loss", "out.w", "out.b", "gated"] {

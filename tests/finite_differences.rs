@@ -50,16 +50,16 @@ fn check(name: &str, build: impl Fn(&mut Tape, &mut Rng) -> Var) {
             .adjoint(param)
             .unwrap_or_else(|| panic!("{name}: param without adjoint"));
         for k in 0..value.len() {
-            let x = value.data()[k];
+            let x = value.get(k);
             let h = f64::EPSILON.cbrt() * x.abs().max(1.0);
             let evaluate = |shift: f64| {
                 let mut moved = value.clone();
-                moved.data_mut()[k] = x + shift;
+                moved.set(k, x + shift);
                 let values = reevaluate(&trace, &[(param, moved)], Dtype::F64).unwrap();
                 values[trace.output()].as_scalar().unwrap()
             };
             let central = (evaluate(h) - evaluate(-h)) / (2.0 * h);
-            let reverse = adjoint.data()[k];
+            let reverse = adjoint.get(k);
             let error = (central - reverse).abs() / reverse.abs().max(1.0);
             assert!(
                 error < 1e-7,

@@ -47,7 +47,11 @@ fn readme_example_runs() -> Result<(), Box<dyn Error>> {
             // own forward value ln(1 + eᶻ) and its partial σ(z) on the input edge.
             let zs = tape.value(z).clone();
             let value = zs.map(|x| (1.0 + x.exp()).ln());
-            let partial = zs.data().iter().map(|x| 1.0 / (1.0 + (-x).exp())).collect();
+            let partial = zs
+                .to_f64()
+                .iter()
+                .map(|x| 1.0 / (1.0 + (-x).exp()))
+                .collect();
             tape.custom(
                 "softplus",
                 &[z],
@@ -70,7 +74,10 @@ fn readme_example_runs() -> Result<(), Box<dyn Error>> {
     let out_w = opened.find("out.w").expect("recorded above");
     println!(
         "d loss / d out.w = {:?}",
-        sweep.adjoint(out_w).expect("out.w reaches the loss").data()
+        sweep
+            .adjoint(out_w)
+            .expect("out.w reaches the loss")
+            .to_f64()
     );
     assert!(sweep.flags().is_empty());
     // README:end

@@ -25,7 +25,7 @@ fn adjoint_bits(sweep: &Sweep) -> Vec<Option<Vec<u64>>> {
         .map(|node| {
             sweep
                 .adjoint(node)
-                .map(|value| value.data().iter().map(|x| x.to_bits()).collect())
+                .map(|value| value.to_f64().iter().map(|x| x.to_bits()).collect())
         })
         .collect()
 }

@@ -17,7 +17,7 @@ fn snapshot(sweep: &Sweep) -> String {
         value.map(|v| {
             (
                 v.shape().to_vec(),
-                v.data().iter().map(|x| x.to_bits()).collect::<Vec<_>>(),
+                v.to_f64().iter().map(|x| x.to_bits()).collect::<Vec<_>>(),
             )
         })
     };

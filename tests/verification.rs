@@ -145,21 +145,21 @@ fn with_recorded_partials(file: TraceFile) -> TraceFile {
                     &node.attrs,
                     trace.dtype(),
                 ) {
-                    Some(diagonal) => PartialRepr::Diagonal(diagonal.data().to_vec()),
+                    Some(diagonal) => PartialRepr::Diagonal(diagonal.to_f64().to_vec()),
                     None => {
                         let rows = (0..node.value.len())
                             .map(|row| {
                                 let mut unit = Value::filled(node.value.shape(), 0.0);
-                                unit.data_mut()[row] = 1.0;
+                                unit.set(row, 1.0);
                                 let args = VjpArgs {
                                     slot,
                                     inputs: &inputs,
                                     output: &node.value,
                                     adjoint: &unit,
                                     attrs: &node.attrs,
-                                    dtype: trace.dtype(),
+                                    precision: trace.dtype().into(),
                                 };
-                                ops::vjp(node.op, &args).data().to_vec()
+                                ops::vjp(node.op, &args).to_f64().to_vec()
                             })
                             .collect();
                         PartialRepr::Jacobian(rows)
@@ -250,7 +250,7 @@ fn an_injected_sign_flip_is_found_at_its_node() {
                 .collect();
             if trace.node(flipped).partials[0]
                 .as_ref()
-                .is_some_and(|p| matches!(p, ebb::trace::Partial::Diagonal(d) if d.data().iter().all(|&x| x == 0.0)))
+                .is_some_and(|p| matches!(p, ebb::trace::Partial::Diagonal(d) if d.to_f64().iter().all(|&x| x == 0.0)))
             {
                 continue;
             }
@@ -275,7 +275,7 @@ fn reported_gradients_lead_to_the_node_with_the_wrong_backward() {
     let w = tape.param("w", Value::from_parts(vec![3], vec![0.5, -1.0, 2.0]));
     let scale = tape.constant("scale", 3.0);
     let h = tape.mul(w, scale);
-    let h_value = tape.value(h).data().to_vec();
+    let h_value = tape.value(h).to_f64().to_vec();
     let squared: Vec<f64> = h_value.iter().map(|x| x * x).collect();
     let wrong: Vec<f64> = h_value.iter().map(|x| -2.0 * x).collect();
     let custom = tape

@@ -50,7 +50,7 @@ pub fn underflow_in(dtype: Dtype) -> TraceFile {
     let loss = tape.scoped("loss", |tape| {
         let measured: Vec<f64> = tape
             .value(prediction)
-            .data()
+            .to_f64()
             .iter()
             .map(|p| p + rng.symmetric(0.004))
             .collect();

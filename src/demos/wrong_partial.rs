@@ -90,7 +90,7 @@ fn record_gate(tape: &mut Tape, x: Var, sign_error: bool) -> Var {
     } else {
         gate_partial
     };
-    let diagonal = input.data().iter().map(|&xi| partial(xi)).collect();
+    let diagonal = input.to_f64().iter().map(|&xi| partial(xi)).collect();
     let gated = tape
         .custom(GATE, &[x], value, vec![PartialRepr::Diagonal(diagonal)])
         .expect("the gate is a custom op");

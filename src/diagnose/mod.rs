@@ -245,17 +245,18 @@ pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
         .sweep_order()
         .iter()
         .filter_map(|&node| reference.adjoint(node))
-        .flat_map(|adjoint| adjoint.data().to_vec())
+        .flat_map(|adjoint| adjoint.to_f64().to_vec())
         .collect();
     let loss_scale = loss_scale(&entries, settings.subnormals);
     let gradient_values: Vec<_> = trace
         .params()
         .filter_map(|param| sweep.adjoint(param))
         .collect();
-    let gradients: Vec<&[f64]> = gradient_values
+    let gradient_data: Vec<_> = gradient_values
         .iter()
-        .map(|adjoint| adjoint.data())
+        .map(|adjoint| adjoint.to_f64())
         .collect();
+    let gradients: Vec<&[f64]> = gradient_data.iter().map(|data| &data[..]).collect();
     let clipping = ClipPreview::new(&gradients, settings.clip_norm);
     let gradient_norms = trace
         .params()

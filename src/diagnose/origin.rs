@@ -118,7 +118,7 @@ impl NanHow {
 }
 
 fn has_nan(value: &Value) -> bool {
-    value.data().iter().any(|x| x.is_nan())
+    value.to_f64().iter().any(|x| x.is_nan())
 }
 
 /// Why a node's adjoint is non-finite.
@@ -210,7 +210,7 @@ pub(super) fn edge_partial(trace: &Trace, node: usize, slot: usize) -> Option<Va
 
 /// Element `index` of a value, reading a one-element value as broadcast.
 fn element(value: &Value, index: usize) -> f64 {
-    let data = value.data();
+    let data = value.to_f64();
     if data.len() == 1 {
         data[0]
     } else {
@@ -247,7 +247,7 @@ fn input_elements(trace: &Trace, node: usize, index: usize) -> Vec<f64> {
             let sources = broadcast_source_indices(value.shape(), recorded.value.shape());
             sources
                 .get(index)
-                .map_or(f64::NAN, |&source| value.data()[source])
+                .map_or(f64::NAN, |&source| value.get(source))
         })
         .collect()
 }
@@ -357,7 +357,7 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
             } else if let Some(&bad) = bad_partials.get(&(u, slot)) {
                 let p = partial_element.filter(|p| !p.is_finite()).unwrap_or(bad);
                 let zero_times_inf =
-                    result.is_nan() && p.is_infinite() && adjoint.data().contains(&0.0);
+                    result.is_nan() && p.is_infinite() && adjoint.to_f64().contains(&0.0);
                 origin.class = if zero_times_inf {
                     OriginClass::NanFromInfinity
                 } else {
@@ -408,7 +408,7 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
                 });
             } else if !has_nan(&adjoint) {
                 let zero_partial = edge_partial(trace, entry.consumer, entry.slot)
-                    .is_some_and(|partial| partial.data().contains(&0.0));
+                    .is_some_and(|partial| partial.to_f64().contains(&0.0));
                 let how = if zero_partial {
                     NanHow::ZeroTimesInf
                 } else {

@@ -138,11 +138,14 @@ pub fn replay(
         .filter_map(|param| {
             let here = sweep.adjoint(param)?;
             let there = reference.adjoint(param)?;
-            let scale = there.data().iter().fold(0.0f64, |acc, x| acc.max(x.abs()));
-            let error = here
-                .data()
+            let scale = there
+                .to_f64()
                 .iter()
-                .zip(there.data())
+                .fold(0.0f64, |acc, x| acc.max(x.abs()));
+            let error = here
+                .to_f64()
+                .iter()
+                .zip(there.to_f64().iter())
                 .fold(0.0f64, |acc, (a, b)| acc.max((a - b).abs()));
             let relative_error = if scale > 0.0 { error / scale } else { error };
             Some(ReplayGradient {
@@ -181,9 +184,9 @@ pub fn lost_contributions(sweep: &Sweep, fraction: f64) -> (Vec<LostContribution
             if seen.insert(entry.input) {
                 let at = |value: &Value| {
                     if value.len() == 1 {
-                        value.data()[0]
+                        value.get(0)
                     } else {
-                        value.data()[element]
+                        value.get(element)
                     }
                 };
                 first.push(LostContribution {
@@ -210,7 +213,7 @@ fn lost_element(
     after: &Value,
     fraction: f64,
 ) -> Option<(usize, f64)> {
-    let (b, c, a) = (before.data(), contribution.data(), after.data());
+    let (b, c, a) = (before.to_f64(), contribution.to_f64(), after.to_f64());
     (0..a.len()).find_map(|k| {
         let (b, c, a) = (b[k.min(b.len() - 1)], c[k.min(c.len() - 1)], a[k]);
         if c == 0.0 || !(b.is_finite() && c.is_finite() && a.is_finite()) {

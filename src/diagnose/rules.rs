@@ -371,22 +371,22 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
         .map(|reference| reference.entries());
     for (step, &node) in trace.sweep_order().iter().enumerate() {
         let recorded = trace.node(node);
-        collector.magnitudes(node, step, Site::Value, recorded.value.data(), true);
+        collector.magnitudes(node, step, Site::Value, &recorded.value.to_f64(), true);
         if let Some(reference) = input.reference {
-            let reference_value = reference.trace().node(node).value.data();
+            let reference_value = reference.trace().node(node).value.to_f64();
             collector.flushed(
                 node,
                 step,
                 Site::Value,
-                recorded.value.data(),
-                reference_value,
+                &recorded.value.to_f64(),
+                &reference_value,
             );
             collector.overflowed(
                 node,
                 step,
                 Site::Value,
-                recorded.value.data(),
-                reference_value,
+                &recorded.value.to_f64(),
+                &reference_value,
             );
         }
         while let Some(flag) = partial_flags.next_if(|flag| flag.step == step) {
@@ -414,20 +414,20 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
                 slot: entry.slot,
                 to: entry.input,
             };
-            let data = entry.value.data();
+            let data = entry.value.to_f64();
             // A non-finite contribution is flagged where it is born, not at every edge it passes on.
-            collector.magnitudes(node, step, site, data, adjoint_finite);
+            collector.magnitudes(node, step, site, &data, adjoint_finite);
             if let Some(reference_entry) = &reference_entry {
-                let reference_value = reference_entry.value.data();
-                collector.flushed(node, step, site, data, reference_value);
+                let reference_value = reference_entry.value.to_f64();
+                collector.flushed(node, step, site, &data, &reference_value);
                 if adjoint_finite {
-                    collector.overflowed(node, step, site, data, reference_value);
+                    collector.overflowed(node, step, site, &data, &reference_value);
                 }
             }
             let before_finite = entry.before.as_ref().is_none_or(Value::is_finite);
             // The first non-finite element of a sum that was finite before: found once, used twice.
             let became_non_finite = before_finite
-                .then(|| first_where(entry.after.data(), |_, x| !x.is_finite()))
+                .then(|| first_where(&entry.after.to_f64(), |_, x| !x.is_finite()))
                 .flatten();
             if let Some(hit) = became_non_finite
                 && entry.value.is_finite()
@@ -461,9 +461,9 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
         }
         // Final adjoint of this node (it is final once the node is processed).
         if let Some(adjoint) = sweep.adjoint(node) {
-            let data = adjoint.data();
+            let data = adjoint.to_f64();
             let limits = trace.dtype().limits();
-            if let Some(hit) = first_where(data, |_, x| trace.dtype().is_subnormal(x)) {
+            if let Some(hit) = first_where(&data, |_, x| trace.dtype().is_subnormal(x)) {
                 collector.push(
                     Rule::Underflow,
                     node,
@@ -478,7 +478,7 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
                 .reference
                 .and_then(|reference| reference.adjoint(node))
             {
-                collector.flushed(node, step, Site::Adjoint, data, reference.data());
+                collector.flushed(node, step, Site::Adjoint, &data, &reference.to_f64());
             }
         }
         gain(&mut collector, node, step, adjoint_norms[node], &outgoing);

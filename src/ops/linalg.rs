@@ -1,6 +1,8 @@
 //! Matrix product (batched, with broadcast batch axes), transpose and reshape.
 
-use super::{Attrs, JvpArgs, StructuredRule, VjpArgs};
+use super::kernels::gemm::{Accumulator, Layout, Operands};
+use super::kernels::map::add;
+use super::{Attrs, JvpArgs, Precision, StructuredRule, VjpArgs};
 use crate::dtype::Dtype;
 use crate::format::shape as show;
 use crate::tensor::{
@@ -81,108 +83,130 @@ fn batch_sources(a: &[usize], b: &[usize], batch: &[usize]) -> (Vec<usize>, Vec<
     )
 }
 
-fn matmul_forward(inputs: &[&Value], _: &Attrs, dtype: Dtype) -> Value {
+/// True when `b` is one matrix shared by every batch of a batch-contiguous
+/// `a`: then the batches stack into the rows of one larger product.
+fn stacks(b: &Value, a_batches: &[usize]) -> bool {
+    numel(&b.shape()[..b.shape().len() - 2]) == 1
+        && a_batches
+            .iter()
+            .enumerate()
+            .all(|(batch, &source)| batch == source)
+}
+
+fn matmul_forward(inputs: &[&Value], _: &Attrs, p: Precision) -> Value {
     let (a, b) = (inputs[0], inputs[1]);
     let dims = matmul_dims(a.shape(), b.shape()).expect("shapes checked by the validator");
     let MatmulDims { m, k, n, .. } = dims;
     let (a_batches, b_batches) = batch_sources(a.shape(), b.shape(), &dims.batch);
-    let mut out = vec![0.0; a_batches.len() * m * n];
-    for (batch, (&ab, &bb)) in a_batches.iter().zip(&b_batches).enumerate() {
-        let (a_block, b_block) = (
-            &a.data()[ab * m * k..][..m * k],
-            &b.data()[bb * k * n..][..k * n],
+    let operands = Operands::new(p.accumulate, a.elements(), b.elements());
+    let mut out = Accumulator::zeros(p.accumulate, a_batches.len() * m * n);
+    if stacks(b, &a_batches) {
+        let rows = a_batches.len() * m;
+        out.product(
+            &operands,
+            (rows, k, n),
+            Layout::rows(0, k),
+            Layout::rows(0, n),
+            0,
+            false,
         );
-        let out_block = &mut out[batch * m * n..][..m * n];
-        for i in 0..m {
-            for j in 0..n {
-                out_block[i * n + j] = dot(
-                    dtype,
-                    (0..k).map(|p| (a_block[i * k + p], b_block[p * n + j])),
-                );
-            }
+    } else {
+        for (batch, (&ab, &bb)) in a_batches.iter().zip(&b_batches).enumerate() {
+            out.product(
+                &operands,
+                (m, k, n),
+                Layout::rows(ab * m * k, k),
+                Layout::rows(bb * k * n, n),
+                batch * m * n,
+                false,
+            );
         }
     }
     let mut shape = dims.batch;
     shape.extend([m, n]);
-    Value::from_parts(shape, out)
+    Value::from_buffer(shape, out.finish(p.dtype))
 }
 
-/// A dot product with every product and partial sum rounded into `dtype`.
-fn dot(dtype: Dtype, pairs: impl Iterator<Item = (f64, f64)>) -> f64 {
-    let mut sum: Option<f64> = None;
-    for (x, y) in pairs {
-        let product = dtype.round(x * y);
-        sum = Some(match sum {
-            None => product,
-            Some(s) => dtype.round(s + product),
-        });
-    }
-    sum.unwrap_or(0.0)
-}
-
-/// ∂L/∂A = Ḡ Bᵀ and ∂L/∂B = Aᵀ Ḡ per batch, summed over broadcast batches.
+/// ∂L/∂A = Ḡ Bᵀ and ∂L/∂B = Aᵀ Ḡ per batch, summed over broadcast batches
+/// in the accumulation dtype and rounded once.
 fn matmul_vjp(args: &VjpArgs) -> Value {
-    let (a, b, adjoint, dtype) = (args.inputs[0], args.inputs[1], args.adjoint, args.dtype);
+    let (a, b, g, p) = (args.inputs[0], args.inputs[1], args.adjoint, args.precision);
     let dims = matmul_dims(a.shape(), b.shape()).expect("shapes checked by the validator");
     let MatmulDims { m, k, n, .. } = dims;
     let (a_batches, b_batches) = batch_sources(a.shape(), b.shape(), &dims.batch);
     let target = args.inputs[args.slot];
-    let mut contribution = vec![0.0; target.len()];
-    let mut touched = vec![false; target.len()];
-    let mut add = |index: usize, x: f64| {
-        contribution[index] = if touched[index] {
-            dtype.round(contribution[index] + x)
+    let mut out = Accumulator::zeros(p.accumulate, target.len());
+    let stacked = stacks(b, &a_batches);
+    if args.slot == 0 {
+        let operands = Operands::new(p.accumulate, g.elements(), b.elements());
+        if stacked {
+            let rows = a_batches.len() * m;
+            out.product(
+                &operands,
+                (rows, n, k),
+                Layout::rows(0, n),
+                Layout::transposed(0, n),
+                0,
+                false,
+            );
         } else {
-            x
-        };
-        touched[index] = true;
-    };
-    for (batch, (&ab, &bb)) in a_batches.iter().zip(&b_batches).enumerate() {
-        let g = &adjoint.data()[batch * m * n..][..m * n];
-        let (a_block, b_block) = (
-            &a.data()[ab * m * k..][..m * k],
-            &b.data()[bb * k * n..][..k * n],
-        );
-        if args.slot == 0 {
-            for i in 0..m {
-                for p in 0..k {
-                    add(
-                        ab * m * k + i * k + p,
-                        dot(dtype, (0..n).map(|j| (g[i * n + j], b_block[p * n + j]))),
-                    );
-                }
+            let mut written = vec![false; numel(&a.shape()[..a.shape().len() - 2])];
+            for (batch, (&ab, &bb)) in a_batches.iter().zip(&b_batches).enumerate() {
+                let add = std::mem::replace(&mut written[ab], true);
+                out.product(
+                    &operands,
+                    (m, n, k),
+                    Layout::rows(batch * m * n, n),
+                    Layout::transposed(bb * k * n, n),
+                    ab * m * k,
+                    add,
+                );
             }
+        }
+    } else {
+        let operands = Operands::new(p.accumulate, a.elements(), g.elements());
+        if stacked {
+            let rows = a_batches.len() * m;
+            out.product(
+                &operands,
+                (k, rows, n),
+                Layout::transposed(0, k),
+                Layout::rows(0, n),
+                0,
+                false,
+            );
         } else {
-            for p in 0..k {
-                for j in 0..n {
-                    add(
-                        bb * k * n + p * n + j,
-                        dot(dtype, (0..m).map(|i| (a_block[i * k + p], g[i * n + j]))),
-                    );
-                }
+            let mut written = vec![false; numel(&b.shape()[..b.shape().len() - 2])];
+            for (batch, (&ab, &bb)) in a_batches.iter().zip(&b_batches).enumerate() {
+                let add = std::mem::replace(&mut written[bb], true);
+                out.product(
+                    &operands,
+                    (k, m, n),
+                    Layout::transposed(ab * m * k, k),
+                    Layout::rows(batch * m * n, n),
+                    bb * k * n,
+                    add,
+                );
             }
         }
     }
-    Value::from_parts(target.shape().to_vec(), contribution)
+    Value::from_buffer(target.shape().to_vec(), out.finish(p.dtype))
 }
 
 /// Elementwise sum of two values of one shape, rounded into `dtype`.
 pub fn add_rounded(a: &Value, b: &Value, dtype: Dtype) -> Value {
-    let data = a
-        .data()
-        .iter()
-        .zip(b.data())
-        .map(|(&x, &y)| dtype.round(x + y))
-        .collect();
-    Value::from_parts(a.shape().to_vec(), data)
+    if let (Value::Scalar(x), Value::Scalar(y)) = (a, b) {
+        return Value::Scalar(dtype.round(x + y));
+    }
+    Value::from_buffer(a.shape().to_vec(), add(a.elements(), b.elements(), dtype))
 }
 
 /// The product is bilinear: ṫ = Ȧ B + A Ḃ.
 fn matmul_jvp(args: &JvpArgs) -> Value {
-    let (a, b, dtype) = (args.inputs[0], args.inputs[1], args.dtype);
-    let first = matmul_forward(&[args.tangents[0], b], args.attrs, dtype);
-    let second = matmul_forward(&[a, args.tangents[1]], args.attrs, dtype);
-    add_rounded(&first, &second, dtype)
+    let (a, b, p) = (args.inputs[0], args.inputs[1], args.precision);
+    let first = matmul_forward(&[args.tangents[0], b], args.attrs, p);
+    let second = matmul_forward(&[a, args.tangents[1]], args.attrs, p);
+    add_rounded(&first, &second, p.dtype)
 }
 
 /// The permutation in force: the attribute, or a swap of the last two axes.
@@ -223,14 +247,15 @@ fn permute(value: &Value, perm: &[usize]) -> Value {
     let out_shape: Vec<usize> = perm.iter().map(|&axis| in_shape[axis]).collect();
     let in_strides = strides(in_shape);
     let steps: Vec<usize> = perm.iter().map(|&axis| in_strides[axis]).collect();
+    let elements = value.elements();
     let out = strided_indices(&out_shape, &steps)
         .into_iter()
-        .map(|source| value.data()[source])
+        .map(|source| elements.get(source))
         .collect();
-    Value::from_parts(out_shape, out)
+    Value::from_parts_in(value.storage_dtype(), out_shape, out)
 }
 
-fn transpose_forward(inputs: &[&Value], attrs: &Attrs, _: Dtype) -> Value {
+fn transpose_forward(inputs: &[&Value], attrs: &Attrs, _: Precision) -> Value {
     permute(inputs[0], &permutation(inputs[0].shape().len(), attrs))
 }
 
@@ -245,7 +270,7 @@ fn transpose_vjp(args: &VjpArgs) -> Value {
 
 /// Linear: the tangent is permuted like the value.
 fn transpose_jvp(args: &JvpArgs) -> Value {
-    transpose_forward(args.tangents, args.attrs, args.dtype)
+    transpose_forward(args.tangents, args.attrs, args.precision)
 }
 
 fn reshape_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String> {
@@ -262,7 +287,7 @@ fn reshape_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, Strin
     Ok(target)
 }
 
-fn reshape_forward(inputs: &[&Value], attrs: &Attrs, _: Dtype) -> Value {
+fn reshape_forward(inputs: &[&Value], attrs: &Attrs, _: Precision) -> Value {
     inputs[0].reshaped(attrs.shape.as_deref().unwrap_or(&[]))
 }
 
@@ -288,7 +313,7 @@ mod tests {
         // [[1,2],[3,4]] @ [[5,6],[7,8]] = [[19,22],[43,50]] (hand computation).
         let a = tensor(&[2, 2], &[1.0, 2.0, 3.0, 4.0]);
         let b = tensor(&[2, 2], &[5.0, 6.0, 7.0, 8.0]);
-        let y = matmul_forward(&[&a, &b], &Attrs::default(), Dtype::F64);
+        let y = matmul_forward(&[&a, &b], &Attrs::default(), Dtype::F64.into());
         assert_eq!(y, tensor(&[2, 2], &[19.0, 22.0, 43.0, 50.0]));
     }
 
@@ -297,7 +322,7 @@ mod tests {
         // x: [3, 1, 2] batches against a shared w: [2, 2]; w's contribution sums the batches.
         let x = tensor(&[3, 1, 2], &[1.0, 0.0, 0.0, 1.0, 1.0, 1.0]);
         let w = tensor(&[2, 2], &[1.0, 2.0, 3.0, 4.0]);
-        let y = matmul_forward(&[&x, &w], &Attrs::default(), Dtype::F64);
+        let y = matmul_forward(&[&x, &w], &Attrs::default(), Dtype::F64.into());
         assert_eq!(y.shape(), &[3, 1, 2]);
         let g = Value::filled(&[3, 1, 2], 1.0);
         let args = VjpArgs {
@@ -306,7 +331,7 @@ mod tests {
             output: &y,
             adjoint: &g,
             attrs: &Attrs::default(),
-            dtype: Dtype::F64,
+            precision: Dtype::F64.into(),
         };
         // Σ_batches xᵀ·1 = rows [2, 2] for both columns.
         assert_eq!(matmul_vjp(&args), tensor(&[2, 2], &[2.0, 2.0, 2.0, 2.0]));
@@ -315,7 +340,7 @@ mod tests {
     #[test]
     fn transpose_round_trips_through_its_vjp() {
         let x = tensor(&[2, 3], &[1.0, 2.0, 3.0, 4.0, 5.0, 6.0]);
-        let y = transpose_forward(&[&x], &Attrs::default(), Dtype::F64);
+        let y = transpose_forward(&[&x], &Attrs::default(), Dtype::F64.into());
         assert_eq!(y, tensor(&[3, 2], &[1.0, 4.0, 2.0, 5.0, 3.0, 6.0]));
         let args = VjpArgs {
             slot: 0,
@@ -323,7 +348,7 @@ mod tests {
             output: &y,
             adjoint: &y,
             attrs: &Attrs::default(),
-            dtype: Dtype::F64,
+            precision: Dtype::F64.into(),
         };
         assert_eq!(transpose_vjp(&args), x);
     }

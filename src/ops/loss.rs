@@ -2,8 +2,7 @@
 //! squared error.
 
 use super::reduce::{logsumexp_of, softmax_of};
-use super::{Attrs, JvpArgs, StructuredRule, VjpArgs};
-use crate::dtype::Dtype;
+use super::{Attrs, JvpArgs, Precision, StructuredRule, VjpArgs};
 use crate::format::shape as show;
 use crate::tensor::Value;
 
@@ -55,48 +54,57 @@ fn cross_entropy_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>,
     Ok(Vec::new())
 }
 
-fn rows(logits: &Value) -> impl Iterator<Item = &[f64]> {
-    let (_, classes) = rows_and_classes(logits.shape()).expect("shape checked by the validator");
-    logits.data().chunks(classes.max(1))
+fn rows<'a>(logits: &'a [f64], shape: &[usize]) -> impl Iterator<Item = &'a [f64]> {
+    let (_, classes) = rows_and_classes(shape).expect("shape checked by the validator");
+    logits.chunks(classes.max(1))
 }
 
 fn targets(attrs: &Attrs) -> &[usize] {
     attrs.targets.as_deref().unwrap_or_default()
 }
 
-fn cross_entropy_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
-    let logits = inputs[0];
+fn cross_entropy_forward(inputs: &[&Value], attrs: &Attrs, p: Precision) -> Value {
+    let (logits, dtype) = (inputs[0].to_f64(), p.accumulate);
     let mut total: Option<f64> = None;
     let mut count = 0.0;
-    for (row, &target) in rows(logits).zip(targets(attrs)) {
+    for (row, &target) in rows(&logits, inputs[0].shape()).zip(targets(attrs)) {
         let loss = dtype.round(logsumexp_of(dtype, row) - row[target]);
         total = Some(total.map_or(loss, |t| dtype.round(t + loss)));
         count += 1.0;
     }
-    Value::Scalar(dtype.round(total.unwrap_or(0.0) / count))
+    Value::Scalar(p.round(dtype.round(total.unwrap_or(0.0) / count)))
 }
 
 /// z̄ₙ = ḡ · (softmax(zₙ) − onehot(tₙ)) / N.
 fn cross_entropy_vjp(args: &VjpArgs) -> Value {
-    let (logits, dtype) = (args.inputs[0], args.dtype);
-    let adjoint = args.adjoint.data()[0];
+    let precision = args.precision;
+    let (logits, dtype) = (args.inputs[0].to_f64(), precision.accumulate);
+    let adjoint = args.adjoint.get(0);
     let count = targets(args.attrs).len() as f64;
     let mut out = Vec::with_capacity(logits.len());
-    for (row, &target) in rows(logits).zip(targets(args.attrs)) {
+    for (row, &target) in rows(&logits, args.inputs[0].shape()).zip(targets(args.attrs)) {
         for (class, p) in softmax_of(dtype, row).into_iter().enumerate() {
             let indicator = if class == target { 1.0 } else { 0.0 };
-            out.push(dtype.round(adjoint * dtype.round(dtype.round(p - indicator) / count)));
+            out.push(
+                precision
+                    .round(dtype.round(adjoint * dtype.round(dtype.round(p - indicator) / count))),
+            );
         }
     }
-    Value::from_parts(logits.shape().to_vec(), out)
+    Value::from_parts_in(precision.dtype, args.inputs[0].shape().to_vec(), out)
 }
 
 /// ẏ = (1/N) Σₙ Σ_c (softmax(zₙ) − onehot(tₙ))_c żₙ_c.
 fn cross_entropy_jvp(args: &JvpArgs) -> Value {
-    let (logits, tangent, dtype) = (args.inputs[0], args.tangents[0], args.dtype);
+    let (logits, tangent) = (args.inputs[0].to_f64(), args.tangents[0].to_f64());
+    let dtype = args.precision.accumulate;
+    let shape = args.inputs[0].shape();
     let count = targets(args.attrs).len() as f64;
     let mut total: Option<f64> = None;
-    for ((row, tangent_row), &target) in rows(logits).zip(rows(tangent)).zip(targets(args.attrs)) {
+    for ((row, tangent_row), &target) in rows(&logits, shape)
+        .zip(rows(&tangent, shape))
+        .zip(targets(args.attrs))
+    {
         for (class, (p, &t)) in softmax_of(dtype, row)
             .into_iter()
             .zip(tangent_row)
@@ -107,7 +115,10 @@ fn cross_entropy_jvp(args: &JvpArgs) -> Value {
             total = Some(total.map_or(term, |s| dtype.round(s + term)));
         }
     }
-    Value::Scalar(dtype.round(total.unwrap_or(0.0) / count))
+    Value::Scalar(
+        args.precision
+            .round(dtype.round(total.unwrap_or(0.0) / count)),
+    )
 }
 
 fn mse_shape(inputs: &[&[usize]], _: &Attrs) -> Result<Vec<usize>, String> {
@@ -121,45 +132,54 @@ fn mse_shape(inputs: &[&[usize]], _: &Attrs) -> Result<Vec<usize>, String> {
     Ok(Vec::new())
 }
 
-fn mse_forward(inputs: &[&Value], _: &Attrs, dtype: Dtype) -> Value {
-    let (prediction, target) = (inputs[0], inputs[1]);
+fn mse_forward(inputs: &[&Value], _: &Attrs, precision: Precision) -> Value {
+    let (prediction, target) = (inputs[0].to_f64(), inputs[1].to_f64());
+    let dtype = precision.accumulate;
     let mut total: Option<f64> = None;
-    for (&p, &t) in prediction.data().iter().zip(target.data()) {
+    for (&p, &t) in prediction.iter().zip(target.iter()) {
         let difference = dtype.round(p - t);
         let square = dtype.round(difference * difference);
         total = Some(total.map_or(square, |s| dtype.round(s + square)));
     }
-    Value::Scalar(dtype.round(total.unwrap_or(0.0) / prediction.len() as f64))
+    Value::Scalar(precision.round(dtype.round(total.unwrap_or(0.0) / prediction.len() as f64)))
 }
 
 /// p̄ = ḡ · 2(p − t)/n; the target receives the negation.
 fn mse_vjp(args: &VjpArgs) -> Value {
-    let (prediction, target, dtype) = (args.inputs[0], args.inputs[1], args.dtype);
-    let adjoint = args.adjoint.data()[0];
+    let precision = args.precision;
+    let (prediction, target) = (args.inputs[0].to_f64(), args.inputs[1].to_f64());
+    let dtype = precision.accumulate;
+    let adjoint = args.adjoint.get(0);
     let scale = dtype.round(2.0 / prediction.len() as f64);
     let sign = if args.slot == 0 { 1.0 } else { -1.0 };
     let data = prediction
-        .data()
         .iter()
-        .zip(target.data())
-        .map(|(&p, &t)| sign * dtype.round(adjoint * dtype.round(scale * dtype.round(p - t))))
+        .zip(target.iter())
+        .map(|(&p, &t)| {
+            sign * precision.round(dtype.round(adjoint * dtype.round(scale * dtype.round(p - t))))
+        })
         .collect();
-    Value::from_parts(prediction.shape().to_vec(), data)
+    Value::from_parts_in(precision.dtype, args.inputs[0].shape().to_vec(), data)
 }
 
 /// ẏ = (2/n) Σ (p − t)(ṗ − ṫ).
 fn mse_jvp(args: &JvpArgs) -> Value {
-    let (prediction, target, dtype) = (args.inputs[0], args.inputs[1], args.dtype);
-    let (prediction_tangent, target_tangent) = (args.tangents[0], args.tangents[1]);
+    let (prediction, target) = (args.inputs[0].to_f64(), args.inputs[1].to_f64());
+    let (prediction_tangent, target_tangent) =
+        (args.tangents[0].to_f64(), args.tangents[1].to_f64());
+    let dtype = args.precision.accumulate;
     let scale = dtype.round(2.0 / prediction.len() as f64);
     let mut total: Option<f64> = None;
     for k in 0..prediction.len() {
-        let difference = dtype.round(prediction.data()[k] - target.data()[k]);
-        let tangent = dtype.round(prediction_tangent.data()[k] - target_tangent.data()[k]);
+        let difference = dtype.round(prediction[k] - target[k]);
+        let tangent = dtype.round(prediction_tangent[k] - target_tangent[k]);
         let term = dtype.round(difference * tangent);
         total = Some(total.map_or(term, |s| dtype.round(s + term)));
     }
-    Value::Scalar(dtype.round(scale * total.unwrap_or(0.0)))
+    Value::Scalar(
+        args.precision
+            .round(dtype.round(scale * total.unwrap_or(0.0))),
+    )
 }
 
 #[cfg(test)]

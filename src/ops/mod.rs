@@ -4,11 +4,14 @@
 
 mod attrs;
 mod elementwise;
+pub mod kernels;
 mod linalg;
 mod loss;
+mod precision;
 mod reduce;
 
 pub use attrs::{AttrName, Attrs};
+pub use precision::Precision;
 
 use crate::dtype::Dtype;
 use crate::tensor::{Value, broadcast_shapes, broadcast_source_indices, numel};
@@ -110,8 +113,8 @@ pub struct VjpArgs<'a> {
     pub adjoint: &'a Value,
     /// The node's attributes.
     pub attrs: &'a Attrs,
-    /// Arithmetic format.
-    pub dtype: Dtype,
+    /// The node's precision: its dtype, and the dtype its sums accumulate in.
+    pub precision: Precision,
 }
 
 /// Everything a Jacobian-vector product (tangent) needs.
@@ -124,8 +127,8 @@ pub struct JvpArgs<'a> {
     pub tangents: &'a [&'a Value],
     /// The node's attributes.
     pub attrs: &'a Attrs,
-    /// Arithmetic format.
-    pub dtype: Dtype,
+    /// The node's precision: its dtype, and the dtype its sums accumulate in.
+    pub precision: Precision,
 }
 
 /// A shape rule: the output shape for the input shapes, or why they do not fit.
@@ -136,8 +139,9 @@ pub type ShapeRule = fn(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>
 pub struct StructuredRule {
     /// The output shape for the given input shapes, or why they do not fit.
     pub shape: ShapeRule,
-    /// Forward rule.
-    pub forward: fn(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value,
+    /// Forward rule: computes in the accumulation dtype and rounds each
+    /// result once into the storage dtype.
+    pub forward: fn(inputs: &[&Value], attrs: &Attrs, precision: Precision) -> Value,
     /// The contribution to input `slot`: the adjoint pulled back through the
     /// op's Jacobian, in the input's shape.
     pub vjp: fn(args: &VjpArgs) -> Value,
@@ -508,40 +512,72 @@ pub fn infer_shape(
     }
 }
 
-/// Evaluates `op` on forward values, rounding every result into `dtype`.
+/// Evaluates `op` on forward values: elementwise results rounded into the
+/// precision's dtype, sums accumulated in its accumulation dtype and rounded
+/// once. The result is stored in the precision's dtype.
 ///
 /// # Panics
 /// For leaves and custom ops, which have no forward rule, and for inputs whose
 /// shapes [`infer_shape`] rejects.
-pub fn forward(op: Op, inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
+pub fn forward(op: Op, inputs: &[&Value], attrs: &Attrs, precision: impl Into<Precision>) -> Value {
+    let p: Precision = precision.into();
     match &op.spec().rule {
         Rule::Leaf | Rule::Custom => panic!("{} has no forward rule", op.name()),
-        Rule::Unary(rule) => inputs[0].map(|x| dtype.round((rule.value)(x, attrs))),
+        Rule::Unary(rule) => match inputs[0] {
+            Value::Scalar(x) => Value::Scalar(p.round((rule.value)(*x, attrs))),
+            x => Value::from_buffer(
+                x.shape().to_vec(),
+                kernels::map::unary(x.elements(), p.dtype, |v| p.round((rule.value)(v, attrs))),
+            ),
+        },
         Rule::Binary(rule) => {
             let (a, b) = (inputs[0], inputs[1]);
             if let (Value::Scalar(x), Value::Scalar(y)) = (a, b) {
-                return Value::Scalar(dtype.round((rule.value)(*x, *y)));
+                return Value::Scalar(p.round((rule.value)(*x, *y)));
             }
             let shape =
                 broadcast_shapes(a.shape(), b.shape()).expect("shapes checked by the validator");
-            let (ia, ib) = (
-                broadcast_source_indices(a.shape(), &shape),
-                broadcast_source_indices(b.shape(), &shape),
-            );
-            let data = ia
-                .iter()
-                .zip(&ib)
-                .map(|(&i, &j)| dtype.round((rule.value)(a.data()[i], b.data()[j])))
-                .collect();
-            Value::from_parts(shape, data)
+            zip_broadcast(a, b, &shape, p.dtype, |x, y| p.round((rule.value)(x, y)))
         }
-        Rule::Structured(rule) => (rule.forward)(inputs, attrs, dtype),
+        Rule::Structured(rule) => (rule.forward)(inputs, attrs, p).stored_as(p.dtype),
     }
 }
 
+/// `f(a, b)` over the broadcast of two values into `shape`, stored in `dtype`.
+fn zip_broadcast(
+    a: &Value,
+    b: &Value,
+    shape: &[usize],
+    dtype: Dtype,
+    f: impl Fn(f64, f64) -> f64 + Sync,
+) -> Value {
+    let len = numel(shape);
+    let direct = |v: &Value| v.shape() == shape || v.len() == 1;
+    if direct(a) && direct(b) {
+        let buffer = kernels::map::ternary(
+            len,
+            [a.elements(), b.elements(), a.elements()],
+            dtype,
+            |x, y, _| f(x, y),
+        );
+        return Value::from_buffer(shape.to_vec(), buffer);
+    }
+    let (ia, ib) = (
+        broadcast_source_indices(a.shape(), shape),
+        broadcast_source_indices(b.shape(), shape),
+    );
+    let (ea, eb) = (a.elements(), b.elements());
+    let data = ia
+        .iter()
+        .zip(&ib)
+        .map(|(&i, &j)| f(ea.get(i), eb.get(j)))
+        .collect();
+    Value::from_parts_in(dtype, shape.to_vec(), data)
+}
+
 /// The local partial of an elementwise op on edge `slot`, one entry per
-/// output element (the diagonal of the Jacobian), rounded into `dtype`.
-/// `None` for ops whose Jacobian is not diagonal.
+/// output element (the diagonal of the Jacobian), rounded into and stored in
+/// `dtype`. `None` for ops whose Jacobian is not diagonal.
 pub fn elementwise_partial(
     op: Op,
     slot: usize,
@@ -551,34 +587,63 @@ pub fn elementwise_partial(
     dtype: Dtype,
 ) -> Option<Value> {
     match &op.spec().rule {
-        Rule::Unary(rule) => {
-            let x = inputs[0];
-            let data = x
-                .data()
-                .iter()
-                .zip(output.data())
-                .map(|(&xi, &yi)| dtype.round((rule.partial)(xi, yi, attrs)))
-                .collect();
-            Some(Value::from_parts(output.shape().to_vec(), data))
-        }
+        Rule::Unary(rule) => Some(match (inputs[0], output) {
+            (Value::Scalar(x), Value::Scalar(y)) => {
+                Value::Scalar(dtype.round((rule.partial)(*x, *y, attrs)))
+            }
+            (x, y) => Value::from_buffer(
+                output.shape().to_vec(),
+                kernels::map::ternary(
+                    x.len(),
+                    [x.elements(), y.elements(), y.elements()],
+                    dtype,
+                    |xi, yi, _| dtype.round((rule.partial)(xi, yi, attrs)),
+                ),
+            ),
+        }),
         Rule::Binary(rule) => {
             let (a, b) = (inputs[0], inputs[1]);
-            let shape = output.shape();
-            let (ia, ib) = (
-                broadcast_source_indices(a.shape(), shape),
-                broadcast_source_indices(b.shape(), shape),
-            );
             let partial = rule.partials[slot];
-            let data = ia
-                .iter()
-                .zip(&ib)
-                .zip(output.data())
-                .map(|((&i, &j), &y)| dtype.round(partial(a.data()[i], b.data()[j], y)))
-                .collect();
-            Some(Value::from_parts(shape.to_vec(), data))
+            if let (Value::Scalar(x), Value::Scalar(y), Value::Scalar(z)) = (a, b, output) {
+                return Some(Value::Scalar(dtype.round(partial(*x, *y, *z))));
+            }
+            Some(binary_partial(a, b, output, dtype, partial))
         }
         _ => None,
     }
+}
+
+/// A binary op's partial on one edge over the output's shape.
+fn binary_partial(
+    a: &Value,
+    b: &Value,
+    output: &Value,
+    dtype: Dtype,
+    partial: fn(f64, f64, f64) -> f64,
+) -> Value {
+    let shape = output.shape();
+    let direct = |v: &Value| v.shape() == shape || v.len() == 1;
+    if direct(a) && direct(b) {
+        let buffer = kernels::map::ternary(
+            output.len(),
+            [a.elements(), b.elements(), output.elements()],
+            dtype,
+            |x, y, z| dtype.round(partial(x, y, z)),
+        );
+        return Value::from_buffer(shape.to_vec(), buffer);
+    }
+    let (ia, ib) = (
+        broadcast_source_indices(a.shape(), shape),
+        broadcast_source_indices(b.shape(), shape),
+    );
+    let (ea, eb, ey) = (a.elements(), b.elements(), output.elements());
+    let data = ia
+        .iter()
+        .zip(&ib)
+        .enumerate()
+        .map(|(k, (&i, &j))| dtype.round(partial(ea.get(i), eb.get(j), ey.get(k))))
+        .collect();
+    Value::from_parts_in(dtype, shape.to_vec(), data)
 }
 
 /// The scalar local partial of an elementwise op whose inputs are all scalars.
@@ -602,32 +667,64 @@ pub fn scalar_partial(
 }
 
 /// The contribution to input `slot` of a catalog op: the adjoint pulled back
-/// through the op's Jacobian (a vector-Jacobian product), in the input's shape.
-/// Elementwise ops multiply by their diagonal partial and sum over broadcast axes.
+/// through the op's Jacobian (a vector-Jacobian product), in the input's
+/// shape, stored in the node's dtype. Elementwise ops multiply by their
+/// diagonal partial and sum over broadcast axes.
 ///
 /// # Panics
 /// For leaves and custom ops.
 pub fn vjp(op: Op, args: &VjpArgs) -> Value {
+    let p = args.precision;
     match &op.spec().rule {
         Rule::Leaf | Rule::Custom => panic!("{} has no derivative rule", op.name()),
-        Rule::Unary(_) | Rule::Binary(_) => {
-            let partial = elementwise_partial(
-                op,
-                args.slot,
-                args.inputs,
-                args.output,
-                args.attrs,
-                args.dtype,
-            )
-            .expect("elementwise ops have a diagonal partial");
-            scale_and_reduce(
-                args.adjoint,
-                &partial,
-                args.inputs[args.slot].shape(),
-                args.dtype,
-            )
+        Rule::Unary(rule) => {
+            let (x, y, g) = (args.inputs[0], args.output, args.adjoint);
+            if let (Value::Scalar(x), Value::Scalar(y), Value::Scalar(g)) = (x, y, g) {
+                return Value::Scalar(p.round(g * p.round((rule.partial)(*x, *y, args.attrs))));
+            }
+            // Fused: the partial is never stored, each element is rounded as
+            // the two-step product would round it.
+            let buffer = kernels::map::ternary(
+                y.len(),
+                [g.elements(), x.elements(), y.elements()],
+                p.dtype,
+                |gi, xi, yi| p.round(gi * p.round((rule.partial)(xi, yi, args.attrs))),
+            );
+            Value::from_buffer(y.shape().to_vec(), buffer)
         }
-        Rule::Structured(rule) => (rule.vjp)(args),
+        Rule::Binary(rule) => {
+            let (a, b, y, g) = (args.inputs[0], args.inputs[1], args.output, args.adjoint);
+            let target_shape = args.inputs[args.slot].shape();
+            let partial = rule.partials[args.slot];
+            if let (Value::Scalar(x0), Value::Scalar(x1), Value::Scalar(z), Value::Scalar(gs)) =
+                (a, b, y, g)
+            {
+                return Value::Scalar(p.round(gs * p.round(partial(*x0, *x1, *z))));
+            }
+            let shape = y.shape();
+            let direct = |v: &Value| v.shape() == shape || v.len() == 1;
+            if direct(a) && direct(b) && g.shape() == shape {
+                // Partial and product in one pass over the output's shape.
+                let (ea, eb, ey) = (a.elements(), b.elements(), y.elements());
+                let product = kernels::map::build(p.dtype, y.len(), |start, out| {
+                    let mut wide = [[0.0f64; kernels::CHUNK]; 3];
+                    let [wa, wb, wy] = &mut wide;
+                    let n = out.len();
+                    kernels::map::widen(ea, start, &mut wa[..n]);
+                    kernels::map::widen(eb, start, &mut wb[..n]);
+                    kernels::map::widen(ey, start, &mut wy[..n]);
+                    kernels::map::widen(g.elements(), start, out);
+                    for k in 0..n {
+                        out[k] = p.round(out[k] * p.round(partial(wa[k], wb[k], wy[k])));
+                    }
+                });
+                let product = Value::from_buffer(shape.to_vec(), product);
+                return reduce_to_shape(&product, target_shape, p);
+            }
+            let partial = binary_partial(a, b, y, p.dtype, partial);
+            scale_and_reduce(g, &partial, target_shape, p)
+        }
+        Rule::Structured(rule) => (rule.vjp)(args).stored_as(p.dtype),
     }
 }
 
@@ -638,6 +735,7 @@ pub fn vjp(op: Op, args: &VjpArgs) -> Value {
 /// # Panics
 /// For leaves and custom ops.
 pub fn jvp(op: Op, args: &JvpArgs) -> Value {
+    let dtype = args.precision.dtype;
     match &op.spec().rule {
         Rule::Leaf | Rule::Custom => panic!("{} has no derivative rule", op.name()),
         Rule::Unary(_) | Rule::Binary(_) => {
@@ -645,28 +743,30 @@ pub fn jvp(op: Op, args: &JvpArgs) -> Value {
             let mut total: Option<Vec<f64>> = None;
             for (slot, tangent) in args.tangents.iter().enumerate() {
                 let partial =
-                    elementwise_partial(op, slot, args.inputs, args.output, args.attrs, args.dtype)
+                    elementwise_partial(op, slot, args.inputs, args.output, args.attrs, dtype)
                         .expect("elementwise ops have a diagonal partial");
                 let sources = broadcast_source_indices(tangent.shape(), shape);
+                let (partial, tangent) = (partial.to_f64(), tangent.elements());
                 let term = sources
                     .iter()
-                    .zip(partial.data())
-                    .map(|(&k, &p)| args.dtype.round(p * tangent.data()[k]));
+                    .zip(partial.iter())
+                    .map(|(&k, &p)| dtype.round(p * tangent.get(k)));
                 total = Some(match total {
                     None => term.collect(),
                     Some(sum) => sum
                         .iter()
                         .zip(term)
-                        .map(|(&s, t)| args.dtype.round(s + t))
+                        .map(|(&s, t)| dtype.round(s + t))
                         .collect(),
                 });
             }
-            Value::from_parts(
+            Value::from_parts_in(
+                dtype,
                 shape.to_vec(),
                 total.unwrap_or_else(|| vec![0.0; numel(shape)]),
             )
         }
-        Rule::Structured(rule) => (rule.jvp)(args),
+        Rule::Structured(rule) => (rule.jvp)(args).stored_as(dtype),
     }
 }
 
@@ -679,7 +779,7 @@ pub fn kink_state(op: Op, inputs: &[&Value], attrs: &Attrs) -> Option<Vec<i64>> 
     match op {
         Op::Relu | Op::LeakyRelu | Op::Abs => Some(
             inputs[0]
-                .data()
+                .to_f64()
                 .iter()
                 .map(|&x| {
                     if x > 0.0 {
@@ -702,51 +802,72 @@ pub fn on_kink(state: &[i64]) -> bool {
     state.iter().any(|&side| side <= 0)
 }
 
-/// `adjoint ⊙ partial` (both of the output's shape, or a scalar partial), then
-/// summed over the axes along which the input was broadcast.
+/// `adjoint ⊙ partial` (both of the output's shape, or a one-element partial),
+/// each product rounded into the dtype, then summed over the axes along which
+/// the input was broadcast (in the accumulation dtype, rounded once).
 pub fn scale_and_reduce(
     adjoint: &Value,
     partial: &Value,
     input_shape: &[usize],
-    dtype: Dtype,
+    precision: impl Into<Precision>,
 ) -> Value {
-    let product: Vec<f64> = if partial.len() == 1 {
-        let p = partial.data()[0];
-        adjoint.data().iter().map(|&a| dtype.round(a * p)).collect()
-    } else {
-        adjoint
-            .data()
-            .iter()
-            .zip(partial.data())
-            .map(|(&a, &p)| dtype.round(a * p))
-            .collect()
-    };
-    reduce_to_shape(&product, adjoint.shape(), input_shape, dtype)
+    let p: Precision = precision.into();
+    if let (Value::Scalar(g), Value::Scalar(d)) = (adjoint, partial) {
+        return reduce_to_shape(&Value::Scalar(p.round(g * d)), input_shape, p);
+    }
+    let buffer = kernels::map::ternary(
+        adjoint.len(),
+        [adjoint.elements(), partial.elements(), partial.elements()],
+        p.dtype,
+        |g, d, _| p.round(g * d),
+    );
+    let product = Value::from_buffer(adjoint.shape().to_vec(), buffer);
+    reduce_to_shape(&product, input_shape, p)
 }
 
-/// Sums a value of `from_shape` down to `to_shape`, undoing a broadcast.
+/// Sums a value down to `to_shape`, undoing a broadcast: in the accumulation
+/// dtype, rounded once into the dtype, stored in the dtype.
 pub fn reduce_to_shape(
-    data: &[f64],
-    from_shape: &[usize],
+    value: &Value,
     to_shape: &[usize],
-    dtype: Dtype,
+    precision: impl Into<Precision>,
 ) -> Value {
+    let p: Precision = precision.into();
+    let from_shape = value.shape();
     if from_shape == to_shape {
-        return Value::from_parts(to_shape.to_vec(), data.to_vec());
+        return value.clone().stored_as(p.dtype);
+    }
+    // Broadcast over leading axes only (a bias): whole rows sum into one row.
+    let inner = numel(to_shape);
+    let kept = &to_shape[to_shape.iter().take_while(|&&d| d == 1).count()..];
+    let trailing = from_shape.len() >= kept.len()
+        && kept
+            .iter()
+            .rev()
+            .zip(from_shape.iter().rev())
+            .all(|(t, f)| t == f)
+        && inner > 0;
+    if trailing {
+        let rows = value.len() / inner;
+        let buffer = kernels::map::sum_rows(value.elements(), rows, inner, p.accumulate, p.dtype);
+        return Value::from_buffer(to_shape.to_vec(), buffer);
     }
     let targets = broadcast_source_indices(to_shape, from_shape);
     let mut reduced = vec![0.0; numel(to_shape)];
     let mut touched = vec![false; reduced.len()];
-    for (&target, &x) in targets.iter().zip(data) {
+    let elements = value.elements();
+    for (k, &target) in targets.iter().enumerate() {
+        let x = elements.get(k);
         // The first term is taken as is so that −0 survives, as a framework's sum would keep it.
         reduced[target] = if touched[target] {
-            dtype.round(reduced[target] + x)
+            p.acc(reduced[target] + x)
         } else {
             x
         };
         touched[target] = true;
     }
-    Value::from_parts(to_shape.to_vec(), reduced)
+    reduced.iter_mut().for_each(|x| *x = p.round(*x));
+    Value::from_parts_in(p.dtype, to_shape.to_vec(), reduced)
 }
 
 #[cfg(test)]
@@ -793,7 +914,7 @@ mod tests {
             output: &y,
             adjoint: &adjoint,
             attrs: &Attrs::default(),
-            dtype: Dtype::F64,
+            precision: Dtype::F64.into(),
         };
         assert_eq!(
             vjp(Op::Add, &args),

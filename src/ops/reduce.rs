@@ -1,7 +1,7 @@
 //! Reductions and normalisations along an axis: sum, mean, max, softmax,
 //! log_softmax and logsumexp.
 
-use super::{Attrs, JvpArgs, StructuredRule, VjpArgs};
+use super::{Attrs, JvpArgs, Precision, StructuredRule, VjpArgs};
 use crate::dtype::Dtype;
 use crate::format::shape as show;
 use crate::tensor::{Value, resolve_axis, split_at_axis};
@@ -128,31 +128,31 @@ fn same_shape_with_axis(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>
     Ok(input.to_vec())
 }
 
-/// Applies `reduce` to every lane and shapes the result like the reduction's output.
+/// Applies `reduce` to every lane and shapes the result like the reduction's
+/// output, each result rounded once into the storage dtype.
 fn reduce_lanes(
     x: &Value,
     attrs: &Attrs,
+    p: Precision,
     reduce: impl Fn(&mut dyn Iterator<Item = f64>) -> f64,
 ) -> Value {
     let axis = checked_axis(attrs, x.shape().len(), None);
     let lanes = Lanes::of(x.shape(), axis);
+    let elements = x.elements();
     let data: Vec<f64> = (0..lanes.count())
-        .map(|lane| reduce(&mut lanes.indices(lane).map(|index| x.data()[index])))
+        .map(|lane| {
+            p.round(reduce(
+                &mut lanes.indices(lane).map(|index| elements.get(index)),
+            ))
+        })
         .collect();
     let shape = reduced_shape(&[x.shape()], attrs).expect("axis checked by the validator");
-    Value::from_parts(shape, data)
+    Value::from_parts_in(p.dtype, shape, data)
 }
 
 /// A sequential sum rounded into `dtype` after every addition.
 fn rounded_sum(dtype: Dtype, values: &mut dyn Iterator<Item = f64>) -> f64 {
-    let mut sum = match values.next() {
-        Some(first) => first,
-        None => return 0.0,
-    };
-    for x in values {
-        sum = dtype.round(sum + x);
-    }
-    sum
+    Precision::new(dtype, dtype).sum(values)
 }
 
 /// Spreads a reduction's adjoint back over its lanes: element k of a lane gets
@@ -166,17 +166,18 @@ fn spread(
     let axis = checked_axis(args.attrs, x.shape().len(), default_axis);
     let lanes = Lanes::of(x.shape(), axis);
     let mut out = vec![0.0; x.len()];
+    let adjoint = args.adjoint.elements();
     for lane in 0..lanes.count() {
         let indices: Vec<usize> = lanes.indices(lane).collect();
         for (k, &index) in indices.iter().enumerate() {
-            out[index] = each(args.adjoint.data()[lane], k, &indices);
+            out[index] = each(adjoint.get(lane), k, &indices);
         }
     }
-    Value::from_parts(x.shape().to_vec(), out)
+    Value::from_parts_in(args.precision.dtype, x.shape().to_vec(), out)
 }
 
-fn sum_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
-    reduce_lanes(inputs[0], attrs, |lane| rounded_sum(dtype, lane))
+fn sum_forward(inputs: &[&Value], attrs: &Attrs, p: Precision) -> Value {
+    reduce_lanes(inputs[0], attrs, p, |lane| p.sum(lane))
 }
 
 fn sum_vjp(args: &VjpArgs) -> Value {
@@ -187,16 +188,15 @@ fn lane_length(x: &Value, attrs: &Attrs) -> f64 {
     Lanes::of(x.shape(), checked_axis(attrs, x.shape().len(), None)).length as f64
 }
 
-fn mean_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
+fn mean_forward(inputs: &[&Value], attrs: &Attrs, p: Precision) -> Value {
     let n = lane_length(inputs[0], attrs);
-    reduce_lanes(inputs[0], attrs, |lane| {
-        dtype.round(rounded_sum(dtype, lane) / n)
-    })
+    reduce_lanes(inputs[0], attrs, p, |lane| p.acc(p.sum(lane) / n))
 }
 
 fn mean_vjp(args: &VjpArgs) -> Value {
     let n = lane_length(args.inputs[0], args.attrs);
-    spread(args, None, |adjoint, _, _| args.dtype.round(adjoint / n))
+    let p = args.precision;
+    spread(args, None, |adjoint, _, _| p.round(p.acc(adjoint / n)))
 }
 
 /// NaN-propagating maximum and the position of its first occurrence.
@@ -213,14 +213,14 @@ fn first_max(values: impl Iterator<Item = f64>) -> (f64, usize) {
     best
 }
 
-fn max_forward(inputs: &[&Value], attrs: &Attrs, _: Dtype) -> Value {
-    reduce_lanes(inputs[0], attrs, |lane| first_max(lane).0)
+fn max_forward(inputs: &[&Value], attrs: &Attrs, p: Precision) -> Value {
+    reduce_lanes(inputs[0], attrs, p, |lane| first_max(lane).0)
 }
 
 fn max_vjp(args: &VjpArgs) -> Value {
-    let x = args.inputs[0];
+    let x = args.inputs[0].elements();
     spread(args, None, |adjoint, k, lane| {
-        let (_, winner) = first_max(lane.iter().map(|&index| x.data()[index]));
+        let (_, winner) = first_max(lane.iter().map(|&index| x.get(index)));
         if k == winner { adjoint } else { 0.0 }
     })
 }
@@ -251,114 +251,117 @@ fn logsumexp_lane(dtype: Dtype, lane: &[f64]) -> f64 {
     dtype.round(m + dtype.round(total.ln()))
 }
 
-/// Maps every lane along `axis` (default −1) through `f`, keeping the shape.
-fn map_lanes(x: &Value, attrs: &Attrs, f: impl Fn(&[f64]) -> Vec<f64>) -> Value {
+/// Maps every lane along `axis` (default −1) through `f`, keeping the shape;
+/// each result rounded once into the storage dtype.
+fn map_lanes(x: &Value, attrs: &Attrs, p: Precision, f: impl Fn(&[f64]) -> Vec<f64>) -> Value {
     let axis = checked_axis(attrs, x.shape().len(), Some(-1));
     let lanes = Lanes::of(x.shape(), axis);
     let mut out = vec![0.0; x.len()];
+    let elements = x.elements();
     for lane in 0..lanes.count() {
         let indices: Vec<usize> = lanes.indices(lane).collect();
-        let values: Vec<f64> = indices.iter().map(|&index| x.data()[index]).collect();
+        let values: Vec<f64> = indices.iter().map(|&index| elements.get(index)).collect();
         for (&index, y) in indices.iter().zip(f(&values)) {
-            out[index] = y;
+            out[index] = p.round(y);
         }
     }
-    Value::from_parts(x.shape().to_vec(), out)
+    Value::from_parts_in(p.dtype, x.shape().to_vec(), out)
 }
 
-fn softmax_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
-    map_lanes(inputs[0], attrs, |lane| softmax_lane(dtype, lane))
+fn softmax_forward(inputs: &[&Value], attrs: &Attrs, p: Precision) -> Value {
+    map_lanes(inputs[0], attrs, p, |lane| softmax_lane(p.accumulate, lane))
 }
 
 /// x̄ₖ = yₖ (ḡₖ − Σⱼ ḡⱼ yⱼ) along each lane.
 fn softmax_vjp(args: &VjpArgs) -> Value {
-    let (y, g, dtype) = (args.output, args.adjoint, args.dtype);
+    let (y, g, p) = (args.output.to_f64(), args.adjoint.to_f64(), args.precision);
+    let acc = p.accumulate;
     let lanes = Lanes::of(
-        y.shape(),
-        checked_axis(args.attrs, y.shape().len(), Some(-1)),
+        args.output.shape(),
+        checked_axis(args.attrs, args.output.shape().len(), Some(-1)),
     );
     let mut out = vec![0.0; y.len()];
     for lane in 0..lanes.count() {
         let indices: Vec<usize> = lanes.indices(lane).collect();
-        let weighted = rounded_sum(
-            dtype,
-            &mut indices
-                .iter()
-                .map(|&i| dtype.round(g.data()[i] * y.data()[i])),
-        );
+        let weighted = rounded_sum(acc, &mut indices.iter().map(|&i| acc.round(g[i] * y[i])));
         for &i in &indices {
-            out[i] = dtype.round(y.data()[i] * dtype.round(g.data()[i] - weighted));
+            out[i] = p.round(acc.round(y[i] * acc.round(g[i] - weighted)));
         }
     }
-    Value::from_parts(y.shape().to_vec(), out)
+    Value::from_parts_in(p.dtype, args.output.shape().to_vec(), out)
 }
 
-fn log_softmax_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
-    map_lanes(inputs[0], attrs, |lane| {
-        let normaliser = logsumexp_lane(dtype, lane);
-        lane.iter().map(|&x| dtype.round(x - normaliser)).collect()
+fn log_softmax_forward(inputs: &[&Value], attrs: &Attrs, p: Precision) -> Value {
+    let acc = p.accumulate;
+    map_lanes(inputs[0], attrs, p, |lane| {
+        let normaliser = logsumexp_lane(acc, lane);
+        lane.iter().map(|&x| acc.round(x - normaliser)).collect()
     })
 }
 
 /// x̄ₖ = ḡₖ − softmax(x)ₖ Σⱼ ḡⱼ, with softmax(x) = exp(y).
 fn log_softmax_vjp(args: &VjpArgs) -> Value {
-    let (y, g, dtype) = (args.output, args.adjoint, args.dtype);
+    let (y, g, p) = (args.output.to_f64(), args.adjoint.to_f64(), args.precision);
+    let acc = p.accumulate;
     let lanes = Lanes::of(
-        y.shape(),
-        checked_axis(args.attrs, y.shape().len(), Some(-1)),
+        args.output.shape(),
+        checked_axis(args.attrs, args.output.shape().len(), Some(-1)),
     );
     let mut out = vec![0.0; y.len()];
     for lane in 0..lanes.count() {
         let indices: Vec<usize> = lanes.indices(lane).collect();
-        let total = rounded_sum(dtype, &mut indices.iter().map(|&i| g.data()[i]));
+        let total = rounded_sum(acc, &mut indices.iter().map(|&i| g[i]));
         for &i in &indices {
-            let probability = dtype.round(y.data()[i].exp());
-            out[i] = dtype.round(g.data()[i] - dtype.round(probability * total));
+            let probability = acc.round(y[i].exp());
+            out[i] = p.round(acc.round(g[i] - acc.round(probability * total)));
         }
     }
-    Value::from_parts(y.shape().to_vec(), out)
+    Value::from_parts_in(p.dtype, args.output.shape().to_vec(), out)
 }
 
-fn logsumexp_forward(inputs: &[&Value], attrs: &Attrs, dtype: Dtype) -> Value {
-    reduce_lanes(inputs[0], attrs, |lane| {
-        logsumexp_lane(dtype, &lane.collect::<Vec<_>>())
+fn logsumexp_forward(inputs: &[&Value], attrs: &Attrs, p: Precision) -> Value {
+    reduce_lanes(inputs[0], attrs, p, |lane| {
+        logsumexp_lane(p.accumulate, &lane.collect::<Vec<_>>())
     })
 }
 
 /// x̄ₖ = ḡ · exp(xₖ − y): the adjoint spread by the lane's softmax.
 fn logsumexp_vjp(args: &VjpArgs) -> Value {
-    let (x, y, dtype) = (args.inputs[0], args.output, args.dtype);
+    let (x, y, p) = (args.inputs[0], args.output, args.precision);
+    let acc = p.accumulate;
+    let (xs, ys, gs) = (x.elements(), y.elements(), args.adjoint.elements());
     let lanes = Lanes::of(x.shape(), checked_axis(args.attrs, x.shape().len(), None));
     let mut out = vec![0.0; x.len()];
     for lane in 0..lanes.count() {
-        let (adjoint, total) = (args.adjoint.data()[lane], y.data()[lane]);
+        let (adjoint, total) = (gs.get(lane), ys.get(lane));
         for i in lanes.indices(lane) {
-            out[i] = dtype.round(adjoint * dtype.round(dtype.round(x.data()[i] - total).exp()));
+            out[i] = p.round(acc.round(adjoint * acc.round(acc.round(xs.get(i) - total).exp())));
         }
     }
-    Value::from_parts(x.shape().to_vec(), out)
+    Value::from_parts_in(p.dtype, x.shape().to_vec(), out)
 }
 
 fn sum_jvp(args: &JvpArgs) -> Value {
-    sum_forward(args.tangents, args.attrs, args.dtype)
+    sum_forward(args.tangents, args.attrs, args.precision)
 }
 
 fn mean_jvp(args: &JvpArgs) -> Value {
-    mean_forward(args.tangents, args.attrs, args.dtype)
+    mean_forward(args.tangents, args.attrs, args.precision)
 }
 
 /// The tangent of the first maximum of each lane.
 fn max_jvp(args: &JvpArgs) -> Value {
     let (x, tangent) = (args.inputs[0], args.tangents[0]);
     let lanes = Lanes::of(x.shape(), checked_axis(args.attrs, x.shape().len(), None));
+    let (xs, ts) = (x.elements(), tangent.elements());
     let data = (0..lanes.count())
         .map(|lane| {
             let indices: Vec<usize> = lanes.indices(lane).collect();
-            let (_, winner) = first_max(indices.iter().map(|&i| x.data()[i]));
-            tangent.data()[indices[winner]]
+            let (_, winner) = first_max(indices.iter().map(|&i| xs.get(i)));
+            ts.get(indices[winner])
         })
         .collect();
-    Value::from_parts(args.output.shape().to_vec(), data)
+    Value::from_parts_in(args.precision.dtype, args.output.shape().to_vec(), data)
 }
 
 /// Applies `per_lane(values, tangents, outputs)` along each lane of the node's axis.
@@ -373,21 +376,23 @@ fn jvp_lanes(
         checked_axis(args.attrs, x.shape().len(), default_axis),
     );
     let same_shape = y.shape() == x.shape();
+    let (xs, ts, ys) = (x.elements(), tangent.elements(), y.elements());
+    let p = args.precision;
     let mut out = vec![0.0; y.len()];
     for lane in 0..lanes.count() {
         let indices: Vec<usize> = lanes.indices(lane).collect();
-        let values: Vec<f64> = indices.iter().map(|&i| x.data()[i]).collect();
-        let tangents: Vec<f64> = indices.iter().map(|&i| tangent.data()[i]).collect();
+        let values: Vec<f64> = indices.iter().map(|&i| xs.get(i)).collect();
+        let tangents: Vec<f64> = indices.iter().map(|&i| ts.get(i)).collect();
         if same_shape {
-            let outputs: Vec<f64> = indices.iter().map(|&i| y.data()[i]).collect();
+            let outputs: Vec<f64> = indices.iter().map(|&i| ys.get(i)).collect();
             for (&i, result) in indices.iter().zip(per_lane(&values, &tangents, &outputs)) {
-                out[i] = result;
+                out[i] = p.round(result);
             }
         } else {
-            out[lane] = per_lane(&values, &tangents, &[y.data()[lane]])[0];
+            out[lane] = p.round(per_lane(&values, &tangents, &[ys.get(lane)])[0]);
         }
     }
-    Value::from_parts(y.shape().to_vec(), out)
+    Value::from_parts_in(p.dtype, y.shape().to_vec(), out)
 }
 
 /// Σₖ aₖ bₖ rounded into `dtype`.
@@ -400,7 +405,7 @@ fn rounded_dot(dtype: Dtype, a: &[f64], b: &[f64]) -> f64 {
 
 /// ẏₖ = yₖ (ẋₖ − Σⱼ yⱼ ẋⱼ).
 fn softmax_jvp(args: &JvpArgs) -> Value {
-    let dtype = args.dtype;
+    let dtype = args.precision.accumulate;
     jvp_lanes(args, Some(-1), |_, tangents, outputs| {
         let weighted = rounded_dot(dtype, outputs, tangents);
         outputs
@@ -413,7 +418,7 @@ fn softmax_jvp(args: &JvpArgs) -> Value {
 
 /// ẏₖ = ẋₖ − Σⱼ softmax(x)ⱼ ẋⱼ, with softmax(x) = exp(y).
 fn log_softmax_jvp(args: &JvpArgs) -> Value {
-    let dtype = args.dtype;
+    let dtype = args.precision.accumulate;
     jvp_lanes(args, Some(-1), |_, tangents, outputs| {
         let probabilities: Vec<f64> = outputs.iter().map(|&y| dtype.round(y.exp())).collect();
         let weighted = rounded_dot(dtype, &probabilities, tangents);
@@ -426,7 +431,7 @@ fn log_softmax_jvp(args: &JvpArgs) -> Value {
 
 /// ẏ = Σₖ exp(xₖ − y) ẋₖ.
 fn logsumexp_jvp(args: &JvpArgs) -> Value {
-    let dtype = args.dtype;
+    let dtype = args.precision.accumulate;
     jvp_lanes(args, None, |values, tangents, outputs| {
         let weights: Vec<f64> = values
             .iter()
@@ -439,9 +444,10 @@ fn logsumexp_jvp(args: &JvpArgs) -> Value {
 /// Per lane: the first maximum's position plus one, negated when tied.
 pub(super) fn max_kink_state(x: &Value, attrs: &Attrs) -> Vec<i64> {
     let lanes = Lanes::of(x.shape(), checked_axis(attrs, x.shape().len(), None));
+    let xs = x.elements();
     (0..lanes.count())
         .map(|lane| {
-            let values: Vec<f64> = lanes.indices(lane).map(|i| x.data()[i]).collect();
+            let values: Vec<f64> = lanes.indices(lane).map(|i| xs.get(i)).collect();
             let (best, winner) = first_max(values.iter().copied());
             let tied = values.iter().filter(|&&v| v == best).count() > 1;
             let position = winner as i64 + 1;
@@ -479,18 +485,18 @@ mod tests {
     fn sum_along_an_axis_and_back() {
         let x = tensor(&[2, 3], &[1.0, 2.0, 3.0, 4.0, 5.0, 6.0]);
         assert_eq!(
-            sum_forward(&[&x], &axis(0), Dtype::F64),
+            sum_forward(&[&x], &axis(0), Dtype::F64.into()),
             tensor(&[3], &[5.0, 7.0, 9.0])
         );
         assert_eq!(
-            sum_forward(&[&x], &axis(1), Dtype::F64),
+            sum_forward(&[&x], &axis(1), Dtype::F64.into()),
             tensor(&[2], &[6.0, 15.0])
         );
         assert_eq!(
-            sum_forward(&[&x], &Attrs::default(), Dtype::F64),
+            sum_forward(&[&x], &Attrs::default(), Dtype::F64.into()),
             Value::Scalar(21.0)
         );
-        let y = sum_forward(&[&x], &axis(1), Dtype::F64);
+        let y = sum_forward(&[&x], &axis(1), Dtype::F64.into());
         let g = tensor(&[2], &[1.0, 10.0]);
         let args = VjpArgs {
             slot: 0,
@@ -498,7 +504,7 @@ mod tests {
             output: &y,
             adjoint: &g,
             attrs: &axis(1),
-            dtype: Dtype::F64,
+            precision: Dtype::F64.into(),
         };
         assert_eq!(
             sum_vjp(&args),
@@ -509,7 +515,7 @@ mod tests {
     #[test]
     fn max_sends_the_adjoint_to_the_first_maximum() {
         let x = tensor(&[2, 3], &[1.0, 5.0, 5.0, 7.0, 0.0, -1.0]);
-        let y = max_forward(&[&x], &axis(1), Dtype::F64);
+        let y = max_forward(&[&x], &axis(1), Dtype::F64.into());
         assert_eq!(y, tensor(&[2], &[5.0, 7.0]));
         let g = tensor(&[2], &[2.0, 3.0]);
         let args = VjpArgs {
@@ -518,7 +524,7 @@ mod tests {
             output: &y,
             adjoint: &g,
             attrs: &axis(1),
-            dtype: Dtype::F64,
+            precision: Dtype::F64.into(),
         };
         assert_eq!(
             max_vjp(&args),
@@ -529,14 +535,14 @@ mod tests {
     #[test]
     fn softmax_lanes_sum_to_one_and_log_softmax_agrees() {
         let x = tensor(&[2, 3], &[1.0, 2.0, 3.0, 1000.0, 1000.0, 1000.0]);
-        let y = softmax_forward(&[&x], &Attrs::default(), Dtype::F64);
-        assert!((y.data()[..3].iter().sum::<f64>() - 1.0).abs() < 1e-15);
+        let y = softmax_forward(&[&x], &Attrs::default(), Dtype::F64.into());
+        assert!((y.to_f64()[..3].iter().sum::<f64>() - 1.0).abs() < 1e-15);
         assert!(
-            (y.data()[3] - 1.0 / 3.0).abs() < 1e-15,
+            (y.get(3) - 1.0 / 3.0).abs() < 1e-15,
             "stable at large logits"
         );
-        let log_y = log_softmax_forward(&[&x], &Attrs::default(), Dtype::F64);
-        for (p, lp) in y.data().iter().zip(log_y.data()) {
+        let log_y = log_softmax_forward(&[&x], &Attrs::default(), Dtype::F64.into());
+        for (p, lp) in y.to_f64().iter().zip(log_y.to_f64().iter()) {
             assert!(
                 (p.ln() - lp).abs() < 1e-12,
                 "x − logsumexp cancels to about ulp(1000)"
@@ -548,12 +554,12 @@ mod tests {
     fn logsumexp_handles_infinite_lanes() {
         let x = tensor(&[2], &[f64::NEG_INFINITY, f64::NEG_INFINITY]);
         assert_eq!(
-            logsumexp_forward(&[&x], &Attrs::default(), Dtype::F64),
+            logsumexp_forward(&[&x], &Attrs::default(), Dtype::F64.into()),
             Value::Scalar(f64::NEG_INFINITY)
         );
         let x = tensor(&[2], &[0.0, 0.0]);
         assert_eq!(
-            logsumexp_forward(&[&x], &Attrs::default(), Dtype::F64),
+            logsumexp_forward(&[&x], &Attrs::default(), Dtype::F64.into()),
             Value::Scalar(2f64.ln())
         );
     }

@@ -61,7 +61,7 @@ pub fn value_repr(value: &Value) -> ValueRepr {
         Value::Scalar(x) => ValueRepr::Scalar(*x),
         Value::Tensor(t) => ValueRepr::Tensor {
             shape: t.shape().to_vec(),
-            data: t.data().to_vec(),
+            data: t.to_f64().into_owned(),
         },
     }
 }

@@ -237,11 +237,7 @@ impl<'t> Sweep<'t> {
         for (slot, &input) in recorded.inputs.iter().enumerate() {
             let mut pulled = pull_back(trace, node, slot, &adjoint);
             if flush {
-                pulled
-                    .contribution
-                    .data_mut()
-                    .iter_mut()
-                    .for_each(|x| *x = dtype.flush(*x));
+                pulled.contribution.map_in_place(|x| dtype.flush(x));
             }
             if let Some(bad) = pulled.bad_partial {
                 self.flags.push(Flag::partial(step, node, slot, bad));
@@ -253,10 +249,7 @@ impl<'t> Sweep<'t> {
             let before = if received { held } else { None };
             let mut after = accumulate(before.as_ref(), &pulled.contribution, dtype);
             if flush {
-                after
-                    .data_mut()
-                    .iter_mut()
-                    .for_each(|x| *x = dtype.flush(*x));
+                after.map_in_place(|x| dtype.flush(x));
             }
             if before.as_ref().is_none_or(Value::is_finite) {
                 self.flags

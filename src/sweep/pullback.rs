@@ -52,7 +52,7 @@ fn jacobian_transpose_product(
     shape: &[usize],
     dtype: crate::dtype::Dtype,
 ) -> Value {
-    let g = adjoint.data();
+    let g = adjoint.to_f64();
     let mut out = vec![0.0; cols];
     for (j, slot) in out.iter_mut().enumerate() {
         let mut sum: Option<f64> = None;
@@ -94,7 +94,7 @@ fn derived(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
         output: &recorded.value,
         adjoint,
         attrs: &recorded.attrs,
-        dtype,
+        precision: trace.precision(node),
     };
     // A structured op's partials are its recorded forward values, checked as values.
     Pulled {
@@ -112,9 +112,9 @@ pub fn accumulate(before: Option<&Value>, contribution: &Value, dtype: Dtype) ->
         (Some(Value::Scalar(a)), Value::Scalar(c)) => Value::Scalar(dtype.round(a + c)),
         (Some(before), _) => {
             let data = before
-                .data()
+                .to_f64()
                 .iter()
-                .zip(contribution.data())
+                .zip(contribution.to_f64().iter())
                 .map(|(&a, &c)| dtype.round(a + c))
                 .collect();
             Value::from_parts(before.shape().to_vec(), data)
@@ -138,7 +138,7 @@ pub fn push_forward(
                 output_shape.to_vec(),
                 sources
                     .iter()
-                    .map(|&k| dtype.round(s * tangent.data()[k]))
+                    .map(|&k| dtype.round(s * tangent.get(k)))
                     .collect(),
             )
         }
@@ -146,13 +146,13 @@ pub fn push_forward(
             let sources = crate::tensor::broadcast_source_indices(tangent.shape(), output_shape);
             let data = sources
                 .iter()
-                .zip(diagonal.data())
-                .map(|(&k, &d)| dtype.round(d * tangent.data()[k]))
+                .zip(diagonal.to_f64().iter())
+                .map(|(&k, &d)| dtype.round(d * tangent.get(k)))
                 .collect();
             Value::from_parts(output_shape.to_vec(), data)
         }
         Partial::Jacobian { rows, cols, data } => {
-            let t = tangent.data();
+            let t = tangent.to_f64();
             let out = (0..*rows)
                 .map(|i| {
                     let mut sum: Option<f64> = None;

@@ -1,20 +1,26 @@
-//! Values held by nodes, partials and adjoints: a scalar or a row-major tensor,
-//! plus the shape arithmetic (NumPy broadcasting, axes) the op rules share.
+//! Values held by nodes, partials and adjoints: a scalar or a row-major tensor
+//! stored in its own dtype, plus the shape arithmetic (NumPy broadcasting,
+//! axes) the op rules share.
 
+mod float;
 mod storage;
 
-pub use storage::{Element, Mapped};
+pub use float::{Buffer, Elements, Float, convert, elements_as, narrow};
+pub use storage::Mapped;
 
 use crate::dtype::Dtype;
 use crate::stats::Summary;
+use std::borrow::Cow;
 use std::fmt;
 use std::sync::OnceLock;
 use storage::Storage;
 
-/// A scalar or a dense row-major tensor of `f64`s.
+/// A scalar or a dense row-major tensor.
 ///
-/// A rank-0 value is always `Scalar`: scalar traces, the common case for
-/// teaching and for million-node chains, never allocate.
+/// A rank-0 value is always `Scalar`, held as an `f64` (already rounded into
+/// its node's dtype): scalar traces, the common case for teaching and for
+/// million-node chains, never allocate. A tensor's elements are stored in
+/// their own dtype: 4 bytes an element for f32, 2 for f16 and bf16.
 #[derive(Debug, Clone, PartialEq)]
 pub enum Value {
     /// A rank-0 value.
@@ -25,8 +31,8 @@ pub enum Value {
 
 /// A dense tensor of rank one or more, row-major.
 ///
-/// Its elements are owned, or a range of a memory-mapped binary sidecar
-/// (see [`Mapped`]); either way [`Tensor::data`] gives them as `f64`s.
+/// Its elements are owned, or a range of a memory-mapped sidecar (see
+/// [`Mapped`]); either way [`Tensor::elements`] gives them typed, in place.
 #[derive(Clone)]
 pub struct Tensor {
     shape: Vec<usize>,
@@ -36,10 +42,10 @@ pub struct Tensor {
 }
 
 impl Tensor {
-    fn owned(shape: Vec<usize>, data: Vec<f64>) -> Tensor {
+    fn new(shape: Vec<usize>, storage: Storage) -> Tensor {
         Tensor {
             shape,
-            storage: Storage::Owned(data),
+            storage,
             summary: OnceLock::new(),
         }
     }
@@ -49,9 +55,32 @@ impl Tensor {
         &self.shape
     }
 
-    /// The elements in row-major order.
-    pub fn data(&self) -> &[f64] {
-        self.storage.data()
+    /// The elements, typed, in place.
+    pub fn elements(&self) -> Elements<'_> {
+        self.storage.elements()
+    }
+
+    /// Number of elements.
+    pub fn len(&self) -> usize {
+        self.elements().len()
+    }
+
+    /// True when a dimension is zero.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// Element `i` (row-major), widened.
+    pub fn get(&self, i: usize) -> f64 {
+        self.elements().get(i)
+    }
+
+    /// The elements as f64s: borrowed when stored as f64, else a widened copy.
+    pub fn to_f64(&self) -> Cow<'_, [f64]> {
+        match self.elements() {
+            Elements::F64(s) => Cow::Borrowed(s),
+            other => Cow::Owned(other.to_vec_f64()),
+        }
     }
 
     /// True when the elements live in a mapped sidecar rather than in memory.
@@ -59,15 +88,8 @@ impl Tensor {
         self.storage.is_mapped()
     }
 
-    /// True when the elements are mapped f32s and a widened f64 copy of them
-    /// is held (made by the first call to [`Value::data`]).
-    pub fn is_widened(&self) -> bool {
-        self.storage.is_widened()
-    }
-
     /// Summary statistics as values of `dtype`: computed once and cached, so
-    /// views and reports may ask every frame. A mapped f32 tensor is
-    /// summarised without widening it to f64.
+    /// views and reports may ask every frame. Never widens the tensor.
     pub fn summary(&self, dtype: Dtype) -> Summary {
         if let Some((cached_dtype, summary)) = self.summary.get()
             && *cached_dtype == dtype
@@ -75,7 +97,7 @@ impl Tensor {
             return *summary;
         }
         let mut builder = Summary::builder(dtype);
-        self.storage.for_each(|x| builder.push(x));
+        self.elements().for_each(|x| builder.push(x));
         let summary = builder.finish();
         // Keeps the first dtype asked for; another dtype is computed afresh.
         let _ = self.summary.set((dtype, summary));
@@ -84,32 +106,56 @@ impl Tensor {
 }
 
 impl fmt::Debug for Tensor {
-    /// The same text for owned and mapped storage, so debug comparisons do not depend on it.
+    /// The same text for every storage, so debug comparisons do not depend on it.
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         f.debug_struct("Tensor")
             .field("shape", &self.shape)
-            .field("data", &self.data())
+            .field("data", &self.elements().to_vec_f64())
             .finish()
     }
 }
 
 impl PartialEq for Tensor {
+    /// Equal shapes and equal numbers, whatever the storage.
     fn eq(&self, other: &Tensor) -> bool {
-        self.shape == other.shape && self.data() == other.data()
+        if self.shape != other.shape {
+            return false;
+        }
+        let (a, b) = (self.elements(), other.elements());
+        (0..a.len()).all(|i| a.get(i) == b.get(i))
     }
 }
 
 impl Value {
-    /// Builds a value from a shape and row-major data; an empty shape gives a scalar.
+    /// Builds an f64 value from a shape and row-major data; an empty shape gives a scalar.
     ///
     /// # Panics
     /// If `data.len()` differs from the product of `shape` (callers validate first).
     pub fn from_parts(shape: Vec<usize>, data: Vec<f64>) -> Value {
-        assert_eq!(numel(&shape), data.len(), "data length must match shape");
+        Value::from_buffer(shape, Buffer::F64(data))
+    }
+
+    /// Builds a value stored in `dtype` from f64 data already rounded into it.
+    ///
+    /// # Panics
+    /// As [`Value::from_parts`].
+    pub fn from_parts_in(dtype: Dtype, shape: Vec<usize>, data: Vec<f64>) -> Value {
         if shape.is_empty() {
-            Value::Scalar(data[0])
+            return Value::from_parts(shape, data);
+        }
+        Value::from_buffer(shape, Buffer::from_vec(dtype, data))
+    }
+
+    /// Builds a value from a shape and typed elements; an empty shape gives a scalar.
+    ///
+    /// # Panics
+    /// If the number of elements differs from the product of `shape`.
+    pub fn from_buffer(shape: Vec<usize>, buffer: Buffer) -> Value {
+        assert_eq!(numel(&shape), buffer.len(), "data length must match shape");
+        if shape.is_empty() {
+            Value::Scalar(buffer.elements().get(0))
         } else {
-            Value::Tensor(Box::new(Tensor::owned(shape, data)))
+            Value::Tensor(Box::new(Tensor::new(shape, Storage::Owned(buffer))))
         }
     }
 
@@ -122,14 +168,10 @@ impl Value {
             !shape.is_empty() && numel(&shape) == mapped.len(),
             "a mapped tensor's shape must match its range"
         );
-        Value::Tensor(Box::new(Tensor {
-            shape,
-            storage: Storage::Mapped(mapped),
-            summary: OnceLock::new(),
-        }))
+        Value::Tensor(Box::new(Tensor::new(shape, Storage::Mapped(mapped))))
     }
 
-    /// A value of `shape` with every element equal to `x`.
+    /// An f64 value of `shape` with every element equal to `x`.
     pub fn filled(shape: &[usize], x: f64) -> Value {
         if shape.is_empty() {
             Value::Scalar(x)
@@ -146,22 +188,78 @@ impl Value {
         }
     }
 
-    /// The elements in row-major order (one for a scalar).
-    pub fn data(&self) -> &[f64] {
+    /// The elements, typed, in place (one f64 for a scalar).
+    pub fn elements(&self) -> Elements<'_> {
         match self {
-            Value::Scalar(x) => std::slice::from_ref(x),
-            Value::Tensor(t) => t.data(),
+            Value::Scalar(x) => Elements::F64(std::slice::from_ref(x)),
+            Value::Tensor(t) => t.elements(),
         }
     }
 
-    /// Mutable access to the elements. A mapped tensor is copied into memory
-    /// first; the cached summary is dropped.
-    pub fn data_mut(&mut self) -> &mut [f64] {
+    /// The dtype the elements are stored in (f64 for a scalar).
+    pub fn storage_dtype(&self) -> Dtype {
+        self.elements().dtype()
+    }
+
+    /// The elements as f64s in row-major order: borrowed when they are stored
+    /// as f64, else widened into a temporary copy for one computation. Bind
+    /// it once outside loops.
+    pub fn to_f64(&self) -> Cow<'_, [f64]> {
         match self {
-            Value::Scalar(x) => std::slice::from_mut(x),
+            Value::Scalar(x) => Cow::Borrowed(std::slice::from_ref(x)),
+            Value::Tensor(t) => t.to_f64(),
+        }
+    }
+
+    /// Element `i` (row-major), widened.
+    #[inline]
+    pub fn get(&self, i: usize) -> f64 {
+        match self {
+            Value::Scalar(x) => *x,
+            Value::Tensor(t) => t.elements().get(i),
+        }
+    }
+
+    /// The same value stored in `dtype` (a scalar stays an f64). Elements are
+    /// rounded into `dtype` if they are not representable in it.
+    pub fn stored_as(self, dtype: Dtype) -> Value {
+        match self {
+            Value::Scalar(x) => Value::Scalar(dtype.round(x)),
+            Value::Tensor(t) if t.elements().dtype() != dtype => {
+                let buffer = Buffer::converted(t.elements(), dtype);
+                Value::Tensor(Box::new(Tensor::new(t.shape, Storage::Owned(buffer))))
+            }
+            other => other,
+        }
+    }
+
+    /// Applies `f` to every element in place, keeping the shape and the
+    /// storage dtype (a mapped tensor is copied into memory first; the cached
+    /// summary is dropped).
+    pub fn map_in_place(&mut self, f: impl Fn(f64) -> f64) {
+        match self {
+            Value::Scalar(x) => *x = f(*x),
             Value::Tensor(t) => {
                 t.summary = OnceLock::new();
-                t.storage.make_owned()
+                t.storage.make_owned().map_in_place(f);
+            }
+        }
+    }
+
+    /// Sets element `i` (row-major) to `x`, rounded into the storage dtype (a
+    /// mapped tensor is copied into memory first).
+    ///
+    /// # Panics
+    /// If `i` is out of range.
+    pub fn set(&mut self, i: usize, x: f64) {
+        match self {
+            Value::Scalar(y) => {
+                assert_eq!(i, 0, "a scalar has one element");
+                *y = x;
+            }
+            Value::Tensor(t) => {
+                t.summary = OnceLock::new();
+                t.storage.make_owned().set(i, x);
             }
         }
     }
@@ -176,50 +274,57 @@ impl Value {
 
     /// Number of elements.
     pub fn len(&self) -> usize {
-        self.data().len()
+        match self {
+            Value::Scalar(_) => 1,
+            Value::Tensor(t) => t.elements().len(),
+        }
     }
 
     /// True when the value has no elements (a tensor with a zero dimension).
     pub fn is_empty(&self) -> bool {
-        self.data().is_empty()
+        self.len() == 0
     }
 
     /// The single element of a scalar, or of a one-element tensor.
     pub fn as_scalar(&self) -> Option<f64> {
-        match self.data() {
-            [x] => Some(*x),
-            _ => None,
-        }
+        (self.len() == 1).then(|| self.get(0))
     }
 
-    /// Applies `f` to every element, keeping the shape.
+    /// Applies `f` to every element, keeping the shape; the result is stored as f64.
     pub fn map(&self, f: impl Fn(f64) -> f64) -> Value {
         match self {
             Value::Scalar(x) => Value::Scalar(f(*x)),
-            Value::Tensor(t) => Value::Tensor(Box::new(Tensor::owned(
-                t.shape.clone(),
-                t.data().iter().map(|&x| f(x)).collect(),
-            ))),
+            Value::Tensor(t) => {
+                let mut data = Vec::with_capacity(t.elements().len());
+                t.elements().for_each(|x| data.push(f(x)));
+                Value::from_parts(t.shape.clone(), data)
+            }
         }
     }
 
-    /// The same elements under another shape of equal size.
+    /// The same elements under another shape of equal size, in the same storage.
     pub fn reshaped(&self, shape: &[usize]) -> Value {
-        Value::from_parts(shape.to_vec(), self.data().to_vec())
+        match self {
+            Value::Tensor(t) if !shape.is_empty() => {
+                assert_eq!(numel(shape), t.elements().len(), "reshape keeps the size");
+                Value::Tensor(Box::new(Tensor::new(shape.to_vec(), t.storage.clone())))
+            }
+            _ => Value::from_parts(shape.to_vec(), self.to_f64().into_owned()),
+        }
     }
 
     /// True when every element is finite.
     pub fn is_finite(&self) -> bool {
-        self.data().iter().all(|x| x.is_finite())
+        self.first_non_finite().is_none()
     }
 
     /// The first non-finite element, if any, with its flat index.
     pub fn first_non_finite(&self) -> Option<(usize, f64)> {
-        self.data()
+        crate::with_elements!(self.elements(), s => s
             .iter()
-            .copied()
+            .map(|x| x.to_f64())
             .enumerate()
-            .find(|(_, x)| !x.is_finite())
+            .find(|(_, x)| !x.is_finite()))
     }
 
     /// Euclidean norm of all elements, computed in f64 with scaling so that it
@@ -228,7 +333,19 @@ impl Value {
         match self {
             // One element: the scaled sum is |x| exactly (NaN and ±inf included).
             Value::Scalar(x) => x.abs(),
-            Value::Tensor(_) => l2_norm(self.data()),
+            Value::Tensor(t) => {
+                let mut norm = NormAccumulator::default();
+                t.elements().for_each(|x| norm.push(x));
+                norm.finish()
+            }
+        }
+    }
+
+    /// Bytes the elements take in their storage.
+    pub fn bytes(&self) -> usize {
+        match self {
+            Value::Scalar(_) => 8,
+            Value::Tensor(t) => t.elements().bytes(),
         }
     }
 }

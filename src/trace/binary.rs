@@ -15,7 +15,36 @@ use super::store;
 use super::validate::validate_with;
 use crate::dtype::Dtype;
 use crate::format::shape as show;
-use crate::tensor::{Element, Mapped, Value};
+use crate::tensor::{Mapped, Value};
+
+/// How elements are stored in a sidecar: little-endian IEEE 754.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Element {
+    /// binary32, 4 bytes.
+    F32,
+    /// binary64, 8 bytes.
+    F64,
+}
+
+impl Element {
+    /// Bytes per element.
+    pub fn width(self) -> usize {
+        self.dtype().width()
+    }
+
+    /// The name used in headers and messages.
+    pub fn name(self) -> &'static str {
+        self.dtype().name()
+    }
+
+    fn dtype(self) -> Dtype {
+        match self {
+            Element::F32 => Dtype::F32,
+            Element::F64 => Dtype::F64,
+        }
+    }
+}
 use memmap2::Mmap;
 use serde::{Deserialize, Serialize};
 use std::io::Write;
@@ -451,8 +480,13 @@ pub(crate) fn load(header: &Path, progress: &mut dyn Progress) -> Result<Trace, 
             sidecar.map.len() as u64,
             &sidecar.name,
         )?;
-        let mapped = Mapped::new(Arc::clone(&sidecar.map), start, count, sidecar.element)
-            .ok_or("range outside the sidecar")?;
+        let mapped = Mapped::new(
+            Arc::clone(&sidecar.map),
+            start,
+            count,
+            sidecar.element.dtype(),
+        )
+        .ok_or("range outside the sidecar")?;
         Ok(Value::from_mapped(shape.to_vec(), mapped))
     };
     let trace =
@@ -475,11 +509,16 @@ pub(crate) fn read_inline(
         if let ValueRepr::Stored { shape, offset } = value {
             let (start, count) = checked_range(shape, *offset, sidecar.element, len, &sidecar.name)
                 .map_err(|message| sidecar_error(header, Some(node), message, REGENERATE))?;
-            let mapped = Mapped::new(Arc::clone(&sidecar.map), start, count, sidecar.element)
-                .expect("range checked");
+            let mapped = Mapped::new(
+                Arc::clone(&sidecar.map),
+                start,
+                count,
+                sidecar.element.dtype(),
+            )
+            .expect("range checked");
             *value = ValueRepr::Tensor {
                 shape: std::mem::take(shape),
-                data: mapped.narrow_elements().collect(),
+                data: mapped.elements().to_vec_f64(),
             };
         }
         Ok(())

@@ -114,6 +114,12 @@ impl Trace {
         }
     }
 
+    /// The precision `node`'s op computes in: its dtype and the trace's
+    /// accumulation dtype.
+    pub fn precision(&self, node: usize) -> crate::ops::Precision {
+        crate::ops::Precision::new(self.node_dtype(node), self.accumulate())
+    }
+
     /// Whether the sweep keeps subnormal results or flushes them to zero
     /// (`Keep` for every loaded trace; see [`Trace::retyped`]).
     pub fn subnormals(&self) -> Subnormals {

@@ -671,7 +671,7 @@ impl<'t> App<'t> {
                     *self
                         .value_summaries
                         .entry(node)
-                        .or_insert_with(|| Summary::of(value.data(), self.trace.dtype())),
+                        .or_insert_with(|| value.summary(self.trace.dtype())),
                 ),
                 Value::Scalar(_) => None,
             };
@@ -680,9 +680,7 @@ impl<'t> App<'t> {
         }
         if self.selection.node != Some(node) || self.selection.cursor != cursor {
             self.selection.adjoint = match self.sweep.adjoint(node).as_deref() {
-                Some(adjoint @ Value::Tensor(_)) => {
-                    Some(Summary::of(adjoint.data(), self.trace.dtype()))
-                }
+                Some(adjoint @ Value::Tensor(_)) => Some(adjoint.summary(self.trace.dtype())),
                 _ => None,
             };
             self.contrast = match (

@@ -71,7 +71,7 @@ pub struct Contrast {
 impl Contrast {
     /// Compares two adjoints of one node entry by entry (a one-element value broadcasts).
     pub fn of(here: &Value, recorded: &Value) -> Contrast {
-        let (a, b) = (here.data(), recorded.data());
+        let (a, b) = (here.to_f64(), recorded.to_f64());
         let len = a.len().max(b.len());
         let at = |data: &[f64], k: usize| if data.len() == 1 { data[0] } else { data[k] };
         let mut contrast = Contrast {
@@ -83,7 +83,7 @@ impl Contrast {
             len,
         };
         for k in 0..len {
-            let (x, y) = (at(a, k), at(b, k));
+            let (x, y) = (at(&a, k), at(&b, k));
             contrast.zero_here_only += usize::from(x == 0.0 && y != 0.0);
             contrast.zero_recorded_only += usize::from(y == 0.0 && x != 0.0);
             contrast.finiteness_differs += usize::from(x.is_finite() != y.is_finite());

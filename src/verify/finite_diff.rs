@@ -109,9 +109,9 @@ fn sample(len: usize, count: usize, seed: u64) -> Vec<usize> {
 fn objective(values: &[Value], trace: &Trace) -> f64 {
     let output = &values[trace.output()];
     output
-        .data()
+        .to_f64()
         .iter()
-        .zip(trace.seed().data())
+        .zip(trace.seed().to_f64().iter())
         .map(|(&y, &s)| y * s)
         .sum()
 }
@@ -156,11 +156,11 @@ pub fn check_finite_differences(sweep: &Sweep, samples: usize, seed: u64) -> Vec
             samples,
             seed ^ (param as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15),
         ) {
-            let x = value.data()[element];
+            let x = value.get(element);
             let step = f64::EPSILON.cbrt() * x.abs().max(1.0);
             let evaluate = |shift: f64| {
                 let mut moved = value.clone();
-                moved.data_mut()[element] = x + shift;
+                moved.set(element, x + shift);
                 reevaluate(trace, &[(param, moved)], Dtype::F64)
                     .expect("a parameter keeps its shape")
             };
@@ -173,7 +173,7 @@ pub fn check_finite_differences(sweep: &Sweep, samples: usize, seed: u64) -> Vec
             let (above, below) = (objective(&plus, trace), objective(&minus, trace));
             let central = (above - below) / (2.0 * step);
             let floor = 10.0 * f64::EPSILON * above.abs().max(below.abs()) / step;
-            let reverse = adjoint.data()[element];
+            let reverse = adjoint.get(element);
             entries.push(DifferenceEntry {
                 element,
                 step,

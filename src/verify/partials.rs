@@ -107,10 +107,12 @@ fn dense_pair(
     ) {
         // Elementwise: compare diagonals directly where the recording is one.
         match partial {
-            Partial::Scalar(s) => return Ok((vec![*s; diagonal.len()], diagonal.data().to_vec())),
-            Partial::Diagonal(d) => return Ok((d.data().to_vec(), diagonal.data().to_vec())),
+            Partial::Scalar(s) => {
+                return Ok((vec![*s; diagonal.len()], diagonal.to_f64().to_vec()));
+            }
+            Partial::Diagonal(d) => return Ok((d.to_f64().to_vec(), diagonal.to_f64().to_vec())),
             Partial::Jacobian { .. } => {
-                let expected = dense_from_diagonal(diagonal.data(), output_shape, input_shape)?;
+                let expected = dense_from_diagonal(&diagonal.to_f64(), output_shape, input_shape)?;
                 return Ok((dense_of(partial, output_shape, input_shape)?, expected));
             }
         }
@@ -125,16 +127,16 @@ fn dense_pair(
     let mut expected = Vec::with_capacity(rows * cols);
     for row in 0..rows {
         let mut unit = Value::filled(output_shape, 0.0);
-        unit.data_mut()[row] = 1.0;
+        unit.set(row, 1.0);
         let args = VjpArgs {
             slot,
             inputs: &inputs,
             output: &recorded.value,
             adjoint: &unit,
             attrs: &recorded.attrs,
-            dtype,
+            precision: dtype.into(),
         };
-        expected.extend_from_slice(ops::vjp(recorded.op, &args).data());
+        expected.extend_from_slice(&ops::vjp(recorded.op, &args).to_f64());
     }
     Ok((dense_of(partial, output_shape, input_shape)?, expected))
 }
@@ -150,7 +152,7 @@ fn dense_of(
         Partial::Scalar(s) => {
             dense_from_diagonal(&vec![*s; numel(output_shape)], output_shape, input_shape)
         }
-        Partial::Diagonal(d) => dense_from_diagonal(d.data(), output_shape, input_shape),
+        Partial::Diagonal(d) => dense_from_diagonal(&d.to_f64(), output_shape, input_shape),
     }
 }
 

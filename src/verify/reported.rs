@@ -43,7 +43,7 @@ pub fn check_reported(sweep: &Sweep, tolerance: f64) -> (Vec<ReportedComparison>
                 .unwrap_or_else(|| crate::tensor::Value::filled(reported.shape(), 0.0));
             Some(ReportedComparison {
                 node,
-                worst: Worst::of(adjoint.data(), reported.data())?,
+                worst: Worst::of(&adjoint.to_f64(), &reported.to_f64())?,
             })
         })
         .collect();

@@ -43,8 +43,8 @@ impl<'t> TangentSweep<'t> {
         match direction {
             &Direction::Unit { node, element } => {
                 let mut unit = Value::filled(trace.node(node).value.shape(), 0.0);
-                if let Some(entry) = unit.data_mut().get_mut(element) {
-                    *entry = 1.0;
+                if element < unit.len() {
+                    unit.set(element, 1.0);
                 }
                 seeds[node] = Some(unit);
             }
@@ -170,7 +170,7 @@ impl<'t> TangentSweep<'t> {
             output: &recorded.value,
             tangents,
             attrs: &recorded.attrs,
-            dtype: self.trace.dtype(),
+            precision: self.trace.dtype().into(),
         };
         ops::jvp(recorded.op, &args)
     }
@@ -212,9 +212,9 @@ impl<'t> TangentSweep<'t> {
             return None;
         }
         Some(self.tangents[output].as_ref().map_or(0.0, |t| {
-            t.data()
+            t.to_f64()
                 .iter()
-                .zip(self.trace.seed().data())
+                .zip(self.trace.seed().to_f64().iter())
                 .map(|(&a, &b)| a * b)
                 .sum()
         }))
@@ -228,9 +228,9 @@ impl<'t> TangentSweep<'t> {
                 let adjoint = sweep.adjoint(node)?;
                 Some(
                     direction
-                        .data()
+                        .to_f64()
                         .iter()
-                        .zip(adjoint.data())
+                        .zip(adjoint.to_f64().iter())
                         .map(|(&v, &g)| v * g)
                         .sum::<f64>(),
                 )

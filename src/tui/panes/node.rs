@@ -263,7 +263,7 @@ impl Pane for NodePane {
                 .map(|compare| compare.adjoint(node));
             let compared = compared_adjoint
                 .as_ref()
-                .map(|adjoint| adjoint.as_deref().map(|value| value.data()));
+                .map(|adjoint| adjoint.as_deref().map(|value| value.to_f64()));
             let header = match compared {
                 None => format!("{:>8}  {:<24}{}", "element", "value", column),
                 Some(_) => format!(
@@ -277,22 +277,27 @@ impl Pane for NodePane {
             lines.push(Line::styled(header, theme.muted));
             let shown = (area.height as usize).saturating_sub(lines.len());
             let adjoint_data = match tangent {
-                Some(tangent) => tangent.map(|tangent| tangent.map_or(&[][..], |t| t.data())),
-                None => adjoint.as_deref().map(|value| value.data()),
+                Some(tangent) => tangent.map(|tangent| {
+                    tangent.map_or(std::borrow::Cow::Borrowed(&[][..]), |t| t.to_f64())
+                }),
+                None => adjoint.as_deref().map(|value| value.to_f64()),
             };
-            for index in app.node_scroll..tensor.data().len().min(app.node_scroll + shown) {
-                let value = fit(&number(tensor.data()[index]), 23);
+            for index in app.node_scroll..tensor.len().min(app.node_scroll + shown) {
+                let value = fit(&number(tensor.get(index)), 23);
                 let zero = matches!(tangent, Some(Some(None)));
                 let adjoint = adjoint_data
+                    .as_ref()
                     .and_then(|data| data.get(index))
                     .map_or(if zero { "0" } else { "—" }.to_string(), |&x| number(x));
-                let row = match compared {
+                let row = match &compared {
                     None => format!("{index:>8}  {value} {adjoint}"),
                     Some(data) => {
                         let here = adjoint_data
+                            .as_ref()
                             .and_then(|data| data.get(index))
                             .map_or("—".to_string(), |&x| fit_number(x, 23));
                         let there = data
+                            .as_ref()
                             .and_then(|data| data.get(index))
                             .map_or("—".to_string(), |&x| fit_number(x, 23));
                         format!("{index:>8}  {value} {here:<23} {there}")

@@ -1,0 +1,330 @@
+//! The element types a tensor can be stored in, one per dtype, and the
+//! conversions between them and the `f64` the op rules compute in.
+
+use crate::dtype::Dtype;
+use half::{bf16, f16};
+
+/// An element type of tensor storage.
+///
+/// Values are rounded into their dtype before they are stored (see
+/// [`Dtype::round`]), so `from_f64` only ever sees representable numbers and
+/// never rounds; it still rounds to nearest, ties to even, if given one that
+/// is not.
+pub trait Float: Copy + Send + Sync + PartialEq + std::fmt::Debug + 'static {
+    /// The dtype this type stores.
+    const DTYPE: Dtype;
+    /// Widens exactly.
+    fn to_f64(self) -> f64;
+    /// Narrows, rounding to nearest even.
+    fn from_f64(x: f64) -> Self;
+    /// The elements as a slice of this type, when they are of it.
+    fn view(elements: Elements<'_>) -> Option<&[Self]>;
+    /// Owned elements of this type as a buffer.
+    fn buffer(data: Vec<Self>) -> Buffer;
+}
+
+impl Float for f64 {
+    const DTYPE: Dtype = Dtype::F64;
+    #[inline]
+    fn view(elements: Elements<'_>) -> Option<&[f64]> {
+        match elements {
+            Elements::F64(s) => Some(s),
+            _ => None,
+        }
+    }
+    fn buffer(data: Vec<f64>) -> Buffer {
+        Buffer::F64(data)
+    }
+    #[inline]
+    fn to_f64(self) -> f64 {
+        self
+    }
+    #[inline]
+    fn from_f64(x: f64) -> f64 {
+        x
+    }
+}
+
+impl Float for f32 {
+    const DTYPE: Dtype = Dtype::F32;
+    #[inline]
+    fn view(elements: Elements<'_>) -> Option<&[f32]> {
+        match elements {
+            Elements::F32(s) => Some(s),
+            _ => None,
+        }
+    }
+    fn buffer(data: Vec<f32>) -> Buffer {
+        Buffer::F32(data)
+    }
+    #[inline]
+    fn to_f64(self) -> f64 {
+        self as f64
+    }
+    #[inline]
+    fn from_f64(x: f64) -> f32 {
+        x as f32
+    }
+}
+
+impl Float for f16 {
+    const DTYPE: Dtype = Dtype::F16;
+    #[inline]
+    fn view(elements: Elements<'_>) -> Option<&[f16]> {
+        match elements {
+            Elements::F16(s) => Some(s),
+            _ => None,
+        }
+    }
+    fn buffer(data: Vec<f16>) -> Buffer {
+        Buffer::F16(data)
+    }
+    #[inline]
+    fn to_f64(self) -> f64 {
+        f16::to_f64(self)
+    }
+    #[inline]
+    fn from_f64(x: f64) -> f16 {
+        // Through the engine's own correctly rounded conversion: exact for
+        // every representable input, and one rounding (never two) otherwise.
+        f16::from_f64(Dtype::F16.round(x))
+    }
+}
+
+impl Float for bf16 {
+    const DTYPE: Dtype = Dtype::Bf16;
+    #[inline]
+    fn view(elements: Elements<'_>) -> Option<&[bf16]> {
+        match elements {
+            Elements::Bf16(s) => Some(s),
+            _ => None,
+        }
+    }
+    fn buffer(data: Vec<bf16>) -> Buffer {
+        Buffer::Bf16(data)
+    }
+    #[inline]
+    fn to_f64(self) -> f64 {
+        bf16::to_f64(self)
+    }
+    #[inline]
+    fn from_f64(x: f64) -> bf16 {
+        bf16::from_f64(Dtype::Bf16.round(x))
+    }
+}
+
+/// A tensor's elements as a typed slice.
+#[derive(Debug, Clone, Copy)]
+pub enum Elements<'a> {
+    /// binary64.
+    F64(&'a [f64]),
+    /// binary32.
+    F32(&'a [f32]),
+    /// binary16.
+    F16(&'a [f16]),
+    /// bfloat16.
+    Bf16(&'a [bf16]),
+}
+
+/// Runs `$body` with `$s` bound to the typed slice inside an [`Elements`].
+#[macro_export]
+#[doc(hidden)]
+macro_rules! with_elements {
+    ($elements:expr, $s:ident => $body:expr) => {
+        match $elements {
+            $crate::tensor::Elements::F64($s) => $body,
+            $crate::tensor::Elements::F32($s) => $body,
+            $crate::tensor::Elements::F16($s) => $body,
+            $crate::tensor::Elements::Bf16($s) => $body,
+        }
+    };
+}
+
+impl<'a> Elements<'a> {
+    /// The dtype of the elements.
+    pub fn dtype(&self) -> Dtype {
+        match self {
+            Elements::F64(_) => Dtype::F64,
+            Elements::F32(_) => Dtype::F32,
+            Elements::F16(_) => Dtype::F16,
+            Elements::Bf16(_) => Dtype::Bf16,
+        }
+    }
+
+    /// Number of elements.
+    pub fn len(&self) -> usize {
+        with_elements!(self, s => s.len())
+    }
+
+    /// True when there are none.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// Element `i`, widened.
+    #[inline]
+    pub fn get(&self, i: usize) -> f64 {
+        with_elements!(self, s => s[i].to_f64())
+    }
+
+    /// Visits every element in order, widened one at a time.
+    #[inline]
+    pub fn for_each(&self, mut visit: impl FnMut(f64)) {
+        with_elements!(self, s => s.iter().for_each(|x| visit(x.to_f64())))
+    }
+
+    /// All elements widened into a new vector.
+    pub fn to_vec_f64(&self) -> Vec<f64> {
+        with_elements!(self, s => s.iter().map(|x| x.to_f64()).collect())
+    }
+
+    /// The elements as f64s in place, when they are f64s.
+    pub fn as_f64(&self) -> Option<&'a [f64]> {
+        match self {
+            Elements::F64(s) => Some(s),
+            _ => None,
+        }
+    }
+
+    /// Size in bytes.
+    pub fn bytes(&self) -> usize {
+        self.len() * self.dtype().width()
+    }
+}
+
+/// Owned elements of one dtype.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Buffer {
+    /// binary64.
+    F64(Vec<f64>),
+    /// binary32.
+    F32(Vec<f32>),
+    /// binary16.
+    F16(Vec<f16>),
+    /// bfloat16.
+    Bf16(Vec<bf16>),
+}
+
+impl Buffer {
+    /// The elements as a typed slice.
+    pub fn elements(&self) -> Elements<'_> {
+        match self {
+            Buffer::F64(v) => Elements::F64(v),
+            Buffer::F32(v) => Elements::F32(v),
+            Buffer::F16(v) => Elements::F16(v),
+            Buffer::Bf16(v) => Elements::Bf16(v),
+        }
+    }
+
+    /// `data` (already rounded into `dtype`, or rounded here) stored as `dtype`.
+    pub fn from_f64(dtype: Dtype, data: &[f64]) -> Buffer {
+        match dtype {
+            Dtype::F64 => Buffer::F64(data.to_vec()),
+            Dtype::F32 => Buffer::F32(narrow(data)),
+            Dtype::F16 => Buffer::F16(narrow(data)),
+            Dtype::Bf16 => Buffer::Bf16(narrow(data)),
+        }
+    }
+
+    /// `data` stored as `dtype`, taking the vector when it is f64 already.
+    pub fn from_vec(dtype: Dtype, data: Vec<f64>) -> Buffer {
+        match dtype {
+            Dtype::F64 => Buffer::F64(data),
+            _ => Buffer::from_f64(dtype, &data),
+        }
+    }
+
+    /// Elements converted into `dtype` (a copy; the same storage when equal).
+    pub fn converted(elements: Elements<'_>, dtype: Dtype) -> Buffer {
+        fn from<T: Float>(s: &[T], dtype: Dtype) -> Buffer {
+            match dtype {
+                Dtype::F64 => Buffer::F64(convert(s)),
+                Dtype::F32 => Buffer::F32(convert(s)),
+                Dtype::F16 => Buffer::F16(convert(s)),
+                Dtype::Bf16 => Buffer::Bf16(convert(s)),
+            }
+        }
+        with_elements!(elements, s => from(s, dtype))
+    }
+
+    /// Applies `f` to every element in place, computing in f64 and rounding
+    /// the result into the buffer's dtype.
+    pub fn map_in_place(&mut self, f: impl Fn(f64) -> f64) {
+        fn apply<T: Float>(v: &mut [T], f: impl Fn(f64) -> f64) {
+            v.iter_mut().for_each(|x| *x = T::from_f64(f(x.to_f64())));
+        }
+        match self {
+            Buffer::F64(v) => apply(v, f),
+            Buffer::F32(v) => apply(v, f),
+            Buffer::F16(v) => apply(v, f),
+            Buffer::Bf16(v) => apply(v, f),
+        }
+    }
+
+    /// Sets element `i`, rounding `x` into the buffer's dtype.
+    pub fn set(&mut self, i: usize, x: f64) {
+        match self {
+            Buffer::F64(v) => v[i] = x,
+            Buffer::F32(v) => v[i] = Float::from_f64(x),
+            Buffer::F16(v) => v[i] = Float::from_f64(x),
+            Buffer::Bf16(v) => v[i] = Float::from_f64(x),
+        }
+    }
+
+    /// Number of elements.
+    pub fn len(&self) -> usize {
+        self.elements().len()
+    }
+
+    /// True when there are none.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
+/// The elements as a slice of `T`: borrowed when they are of that type,
+/// else converted (a temporary for one computation).
+pub fn elements_as<T: Float>(elements: Elements<'_>) -> std::borrow::Cow<'_, [T]> {
+    match T::view(elements) {
+        Some(s) => std::borrow::Cow::Borrowed(s),
+        None => std::borrow::Cow::Owned(with_elements!(elements, s => convert(s))),
+    }
+}
+
+/// `f64`s narrowed into `T`.
+pub fn narrow<T: Float>(data: &[f64]) -> Vec<T> {
+    data.iter().map(|&x| T::from_f64(x)).collect()
+}
+
+/// Elements of one type converted into another through f64.
+pub fn convert<S: Float, T: Float>(data: &[S]) -> Vec<T> {
+    data.iter().map(|x| T::from_f64(x.to_f64())).collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn conversions_are_exact_for_representable_values_and_round_otherwise() {
+        // 2^-24 is the smallest f16 subnormal; 65504 its largest finite value
+        // (IEEE 754-2019, table 3.5, binary16).
+        for x in [0.0, -0.0, 1.0, 65504.0, 2f64.powi(-24), -3.5] {
+            assert_eq!(f16::from_f64(x).to_f64(), x);
+            assert_eq!(<f16 as Float>::from_f64(x).to_f64(), x);
+        }
+        assert_eq!(<f16 as Float>::from_f64(1e6).to_f64(), f64::INFINITY);
+        // 1 + 2^-11 is halfway between f16's 1 and 1 + 2^-10: ties to even.
+        assert_eq!(<f16 as Float>::from_f64(1.0 + 2f64.powi(-11)).to_f64(), 1.0);
+        assert_eq!(<bf16 as Float>::from_f64(1.0 + 2f64.powi(-8)).to_f64(), 1.0);
+        let buffer = Buffer::from_f64(Dtype::F32, &[0.1, f64::NAN]);
+        assert_eq!(buffer.elements().get(0), 0.1f32 as f64);
+        assert!(buffer.elements().get(1).is_nan());
+        assert_eq!(
+            Buffer::converted(buffer.elements(), Dtype::F64)
+                .elements()
+                .dtype(),
+            Dtype::F64
+        );
+    }
+}
