@@ -368,7 +368,12 @@ fn table<const N: usize>(title: &str, header: [&str; N], rows: &[[String; N]]) -
         let padded: Vec<String> = cells
             .iter()
             .zip(&widths)
-            .map(|(cell, &width)| format!("{cell:<width$}"))
+            // Padded by hand: a `{:<width$}` width must fit in u16, and an
+            // id from a file can be longer.
+            .map(|(cell, &width)| {
+                let pad = width.saturating_sub(cell.chars().count());
+                format!("{cell}{}", " ".repeat(pad))
+            })
             .collect();
         format!("  {}\n", padded.join("  ").trim_end())
     };

@@ -14,10 +14,18 @@ pub struct Attrs {
     #[serde(default, skip_serializing_if = "std::ops::Not::not")]
     pub keepdims: bool,
     /// The constant exponent of `pow`.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(
+        default,
+        skip_serializing_if = "Option::is_none",
+        with = "crate::trace::schema::opt_num"
+    )]
     pub exponent: Option<f64>,
     /// The negative slope of `leaky_relu`.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(
+        default,
+        skip_serializing_if = "Option::is_none",
+        with = "crate::trace::schema::opt_num"
+    )]
     pub slope: Option<f64>,
     /// Target class indices of `cross_entropy`, one per row of logits.
     #[serde(default, skip_serializing_if = "Option::is_none")]

@@ -275,13 +275,17 @@ fn transpose_jvp(args: &JvpArgs) -> Value {
 
 fn reshape_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String> {
     let target = attrs.shape.clone().unwrap_or_default();
-    if numel(&target) != numel(inputs[0]) {
+    // The target comes from a file: multiply in checked arithmetic.
+    let Some(count) = target.iter().try_fold(1usize, |acc, &d| acc.checked_mul(d)) else {
+        return Err(format!("reshape target {} is too large", show(&target)));
+    };
+    if count != numel(inputs[0]) {
         return Err(format!(
             "cannot reshape {} ({} elements) to {} ({} elements)",
             show(inputs[0]),
             numel(inputs[0]),
             show(&target),
-            numel(&target)
+            count
         ));
     }
     Ok(target)

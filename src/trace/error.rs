@@ -9,9 +9,12 @@ use std::path::PathBuf;
 pub struct Problem {
     /// The node at fault, if the problem belongs to one.
     pub node: Option<String>,
-    /// Which declaration of the node's id the problem is about (0 = the
-    /// first); only duplicates have more than one.
-    pub occurrence: usize,
+    /// The place of that node in the file's list of nodes (0-based), which
+    /// tells duplicates apart; the validator sets it for every node problem.
+    pub index: Option<usize>,
+    /// A short name of the kind of problem (`duplicate id`), used to count
+    /// the problems beyond those reported in full; empty when not named.
+    pub kind: &'static str,
     /// 1-based line and column in the file, where known.
     pub position: Option<(usize, usize)>,
     /// What is wrong.
@@ -25,7 +28,8 @@ impl Problem {
     pub fn general(message: impl Into<String>, hint: impl Into<String>) -> Problem {
         Problem {
             node: None,
-            occurrence: 0,
+            index: None,
+            kind: "",
             position: None,
             message: message.into(),
             hint: hint.into(),
@@ -36,13 +40,30 @@ impl Problem {
     pub fn at_node(node: &str, message: impl Into<String>, hint: impl Into<String>) -> Problem {
         Problem {
             node: Some(node.to_string()),
-            occurrence: 0,
+            index: None,
+            kind: "",
             position: None,
             message: message.into(),
             hint: hint.into(),
         }
     }
+
+    /// Names the kind of problem.
+    pub fn kind(mut self, kind: &'static str) -> Problem {
+        self.kind = kind;
+        self
+    }
+
+    /// Sets the place of the node in the file's list of nodes.
+    pub fn at(mut self, index: usize) -> Problem {
+        self.index = Some(index);
+        self
+    }
 }
+
+/// How many problems an invalid trace reports in full; the rest are counted
+/// by kind, so a file with a million bad nodes still gets a short message.
+pub const PROBLEMS_SHOWN: usize = 20;
 
 impl fmt::Display for Problem {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
@@ -64,12 +85,36 @@ impl fmt::Display for Problem {
 #[derive(Debug, thiserror::Error)]
 pub enum LoadError {
     /// The file could not be read.
-    #[error("{}: cannot read the trace: {error} (hint: check the path and permissions)", path.display())]
+    #[error("{}: cannot read the trace: {error} (hint: {})", path.display(), read_hint(error))]
     Io {
         /// The file.
         path: PathBuf,
         /// The I/O error (in the message, not as a source, so it is printed once).
         error: std::io::Error,
+    },
+    /// The file is not text: it holds a NUL byte or bytes that are not
+    /// UTF-8 (a binary file, or the wrong file).
+    #[error("{}:{line}:{column}: not a text trace: {what} at byte {byte} (hint: a trace is RON or JSON text, or a .tape header beside its sidecar; see traces/FORMAT.md)", path.display())]
+    NotText {
+        /// The file.
+        path: PathBuf,
+        /// 1-based line of the first offending byte.
+        line: usize,
+        /// 1-based column (in characters) of the first offending byte.
+        column: usize,
+        /// 0-based byte offset of the first offending byte.
+        byte: u64,
+        /// What was found there.
+        what: String,
+    },
+    /// The file is longer than a text trace may be, or never ends (a
+    /// device or a pipe that keeps writing).
+    #[error("{}: the trace is longer than {} bytes, the most Ebb reads as text (hint: is this the right file? store big traces binary-backed, see traces/FORMAT.md)", path.display(), limit)]
+    TooLong {
+        /// The file.
+        path: PathBuf,
+        /// The limit in bytes.
+        limit: u64,
     },
     /// The text is not valid RON or JSON of the trace schema.
     #[error("{}:{line}:{column}: {message} (hint: see traces/FORMAT.md for the schema)", path.display())]
@@ -107,6 +152,17 @@ pub enum LoadError {
     },
 }
 
+/// What to do about a failed read, by its kind.
+fn read_hint(error: &std::io::Error) -> &'static str {
+    match error.kind() {
+        std::io::ErrorKind::NotFound | std::io::ErrorKind::PermissionDenied => {
+            "check the path and permissions"
+        }
+        std::io::ErrorKind::IsADirectory => "give the path of a trace file, not of a directory",
+        _ => "check that the file is a readable trace and try again",
+    }
+}
+
 impl LoadError {
     /// The problems of an invalid trace (empty for other errors).
     pub fn problems(&self) -> &[Problem] {
@@ -117,15 +173,53 @@ impl LoadError {
     }
 }
 
+/// The first [`PROBLEMS_SHOWN`] problems one a line, then one line counting
+/// the rest by kind.
 fn render_problems(path: &std::path::Path, problems: &[Problem]) -> String {
-    let lines: Vec<String> = problems
+    let mut lines: Vec<String> = problems
         .iter()
+        .take(PROBLEMS_SHOWN)
         .map(|problem| match problem.position {
             Some(_) => format!("{}:{problem}", path.display()),
             None => format!("{}: {problem}", path.display()),
         })
         .collect();
+    let rest = &problems[problems.len().min(PROBLEMS_SHOWN)..];
+    if !rest.is_empty() {
+        lines.push(format!(
+            "{}: and {} more {}: {} (hint: fix the problems above and check again; `ebb` reports the first {PROBLEMS_SHOWN} in full)",
+            path.display(),
+            rest.len(),
+            if rest.len() == 1 { "problem" } else { "problems" },
+            count_kinds(rest)
+        ));
+    }
     lines.join("\n")
+}
+
+/// `99980 duplicate id, 20 unknown input id`: counts by kind, most frequent
+/// first (ties in order of first appearance).
+fn count_kinds(problems: &[Problem]) -> String {
+    let mut counts: Vec<(&str, usize)> = Vec::new();
+    let mut slots = std::collections::HashMap::new();
+    for problem in problems {
+        let kind = if problem.kind.is_empty() {
+            "other"
+        } else {
+            problem.kind
+        };
+        let slot = *slots.entry(kind).or_insert_with(|| {
+            counts.push((kind, 0));
+            counts.len() - 1
+        });
+        counts[slot].1 += 1;
+    }
+    counts.sort_by_key(|&(_, count)| std::cmp::Reverse(count));
+    let parts: Vec<String> = counts
+        .iter()
+        .map(|(kind, count)| format!("{count} {kind}"))
+        .collect();
+    parts.join(", ")
 }
 
 /// Why a trace could not be written.

@@ -3,6 +3,8 @@
 
 use super::error::{LoadError, Problem};
 use super::model::Trace;
+use super::overflow;
+use super::positions;
 use super::progress::{self, Progress, Silent};
 use super::schema::TraceFile;
 use super::validate::validate;
@@ -70,22 +72,45 @@ pub(crate) fn parse_as<T: DeserializeOwned>(
         Encoding::Ron => ron_options().from_str(text).map_err(|error| SyntaxError {
             line: error.span.start.line,
             column: error.span.start.col,
-            message: error.code.to_string(),
+            message: match error.code {
+                ron::Error::ExceededRecursionLimit => TOO_DEEP.to_string(),
+                code => code.to_string(),
+            },
         }),
-        Encoding::Json => serde_json::from_str(text).map_err(|error| {
-            let message = error.to_string();
-            // serde_json appends " at line L column C"; the position is reported separately.
-            let message = message
-                .split(" at line ")
-                .next()
-                .unwrap_or(&message)
-                .to_string();
-            SyntaxError {
-                line: error.line(),
-                column: error.column(),
-                message,
+        Encoding::Json => match serde_json::from_str(text).map_err(json_error) {
+            Err(error) if error.message == "number out of range" => {
+                match overflow::widen_overflowing_numbers(text) {
+                    Some(widened) => serde_json::from_str(&widened).map_err(json_error),
+                    None => Err(error),
+                }
             }
-        }),
+            parsed => parsed,
+        },
+    }
+}
+
+/// How a file nested deeper than the parsers allow is described: both stop
+/// at 128 levels (serde_json always, RON by default), and a trace nests a
+/// handful.
+const TOO_DEEP: &str =
+    "nested more than 128 levels deep, which no trace needs (a trace nests 8 levels at most)";
+
+fn json_error(error: serde_json::Error) -> SyntaxError {
+    let message = error.to_string();
+    // serde_json appends " at line L column C"; the position is reported separately.
+    let message = message
+        .split(" at line ")
+        .next()
+        .unwrap_or(&message)
+        .to_string();
+    SyntaxError {
+        line: error.line(),
+        column: error.column(),
+        message: if message == "recursion limit exceeded" {
+            TOO_DEEP.to_string()
+        } else {
+            message
+        },
     }
 }
 
@@ -139,13 +164,25 @@ pub(crate) fn syntax_error(path: &Path, error: SyntaxError) -> LoadError {
     }
 }
 
-/// Validation problems with the line and column of their nodes in `text`.
+/// Validation problems with the line and column of their nodes in `text`,
+/// in file order (problems of the whole trace first). The text is scanned
+/// once, however many problems there are.
 pub(crate) fn placed(text: &str, path: &Path, mut problems: Vec<Problem>) -> LoadError {
-    for problem in &mut problems {
-        if let Some(node) = &problem.node {
-            problem.position = locate_node(text, node, problem.occurrence);
+    if problems.iter().any(|problem| problem.index.is_some()) {
+        let keys = positions::id_keys(text);
+        for problem in &mut problems {
+            let (Some(index), Some(node)) = (problem.index, &problem.node) else {
+                continue;
+            };
+            // The k-th key belongs to the k-th node; its written id confirms it.
+            let Some(key) = keys.get(index) else { continue };
+            let written = &text[key.value.0..key.value.1];
+            if written == node || written.contains('\\') {
+                problem.position = Some(key.place);
+            }
         }
     }
+    problems.sort_by_key(|problem| problem.index.map_or(0, |index| index + 1));
     LoadError::Invalid {
         path: path.to_path_buf(),
         problems,
@@ -164,69 +201,17 @@ pub fn load_with(path: &Path, progress: &mut dyn Progress) -> Result<Trace, Load
     if super::store::Format::from_path(path) == Some(super::store::Format::Tape) {
         return super::binary::load(path, progress);
     }
-    let text = progress::read_text(path, progress).map_err(|error| LoadError::Io {
-        path: path.to_path_buf(),
-        error,
-    })?;
+    let text =
+        progress::read_text(path, progress).map_err(|error| LoadError::reading(path, error))?;
     let encoding = Encoding::from_path(path).unwrap_or_else(|| Encoding::sniff(&text));
     let trace = load_str_with(&text, encoding, path, progress);
     progress.finish();
     trace
 }
 
-/// The 1-based line and column where node `id` is declared (its
-/// `occurrence`-th declaration), found by looking for its `id` field in either
-/// encoding. Only used to place error messages.
-pub(crate) fn locate_node(text: &str, id: &str, occurrence: usize) -> Option<(usize, usize)> {
-    let quoted = format!("\"{id}\"");
-    let mut skip = occurrence;
-    let mut from = 0;
-    while let Some(found) = text[from..].find(&quoted) {
-        let at = from + found;
-        let before = text[..at].trim_end();
-        if let Some(rest) = before.strip_suffix(':') {
-            let key = rest.trim_end();
-            let is_id_key = key.ends_with("\"id\"")
-                || key.ends_with("(id")
-                || key.ends_with(" id")
-                || key.ends_with("\tid")
-                || key.ends_with("\nid");
-            if is_id_key && skip > 0 {
-                skip -= 1;
-            } else if is_id_key {
-                let line = text[..at].matches('\n').count() + 1;
-                let line_start = text[..at].rfind('\n').map_or(0, |newline| newline + 1);
-                let key_start = key
-                    .rfind(|c: char| c == '"' || c == '(' || c.is_whitespace())
-                    .map_or(0, |p| p + 1);
-                let key_start = if key.ends_with("\"id\"") {
-                    key.len() - 4
-                } else {
-                    key_start
-                };
-                let column = text[line_start..key_start.max(line_start)].chars().count() + 1;
-                return Some((line, column));
-            }
-        }
-        from = at + quoted.len();
-    }
-    None
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn node_positions_are_found_in_both_encodings() {
-        let ron = "(\n  nodes: [\n    (id: \"a\", op: \"input\"),\n    (id: \"b\", op: \"neg\"),\n  ],\n)";
-        assert_eq!(locate_node(ron, "b", 0), Some((4, 6)));
-        let json = "{\n  \"nodes\": [\n    {\"id\": \"a\"},\n    {\"id\": \"b\"}\n  ]\n}";
-        assert_eq!(locate_node(json, "b", 0), Some((4, 6)));
-        assert_eq!(locate_node(json, "zz", 0), None);
-        let twice = "[(id: \"a\"),\n (id: \"a\")]";
-        assert_eq!(locate_node(twice, "a", 1), Some((2, 3)));
-    }
 
     #[test]
     fn encodings_are_chosen_by_extension_then_content() {

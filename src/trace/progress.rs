@@ -25,25 +25,4 @@ pub struct Silent;
 
 impl Progress for Silent {}
 
-/// Reads a whole file as text in chunks, reporting bytes read.
-pub(crate) fn read_text(
-    path: &std::path::Path,
-    progress: &mut dyn Progress,
-) -> std::io::Result<String> {
-    use std::io::Read;
-    let mut file = std::fs::File::open(path)?;
-    let total = file.metadata()?.len();
-    progress.stage("reading", Some(total));
-    let mut bytes = Vec::with_capacity(usize::try_from(total).unwrap_or(0));
-    let mut chunk = vec![0u8; 1 << 20];
-    loop {
-        let read = file.read(&mut chunk)?;
-        if read == 0 {
-            break;
-        }
-        bytes.extend_from_slice(&chunk[..read]);
-        progress.advance(bytes.len() as u64);
-    }
-    String::from_utf8(bytes)
-        .map_err(|error| std::io::Error::new(std::io::ErrorKind::InvalidData, error))
-}
+pub(crate) use super::text::read_text;

@@ -183,6 +183,26 @@ impl<'de> Deserialize<'de> for Num {
     }
 }
 
+/// An optional number that may be non-finite, for `#[serde(with)]` on an
+/// `Option<f64>` field (the attributes `exponent` and `slope`): written and
+/// read like [`Num`], so NaN and ±inf survive JSON too.
+pub mod opt_num {
+    use super::Num;
+    use serde::{Deserialize, Deserializer, Serialize, Serializer};
+
+    /// Writes `Some(x)` as [`Num`] (`None` is skipped by the field).
+    pub fn serialize<S: Serializer>(value: &Option<f64>, serializer: S) -> Result<S::Ok, S::Error> {
+        value.map(Num).serialize(serializer)
+    }
+
+    /// Reads a number or one of the strings for NaN and ±inf.
+    pub fn deserialize<'de, D: Deserializer<'de>>(
+        deserializer: D,
+    ) -> Result<Option<f64>, D::Error> {
+        Ok(Option::<Num>::deserialize(deserializer)?.map(|num| num.0))
+    }
+}
+
 /// A forward value, seed or reported gradient: a number for a scalar,
 /// `(shape: [..], data: [..])` for a tensor, or a bare list for a vector.
 #[derive(Debug, Clone, PartialEq)]

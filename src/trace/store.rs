@@ -87,10 +87,8 @@ pub fn read_file(path: &Path, progress: &mut dyn Progress) -> Result<TraceFile, 
     if Format::from_path(path) == Some(Format::Tape) {
         return binary::read_inline(path, progress);
     }
-    let text = progress::read_text(path, progress).map_err(|error| LoadError::Io {
-        path: path.to_path_buf(),
-        error,
-    })?;
+    let text =
+        progress::read_text(path, progress).map_err(|error| LoadError::reading(path, error))?;
     let encoding = Encoding::from_path(path).unwrap_or_else(|| Encoding::sniff(&text));
     progress.stage("parsing", None);
     parse(&text, encoding).map_err(|error| syntax_error(path, error))

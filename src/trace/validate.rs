@@ -10,6 +10,7 @@ use crate::tensor::{Value, broadcast_shapes, numel};
 use petgraph::graph::{DiGraph, NodeIndex};
 use petgraph::visit::{Bfs, Reversed};
 use std::collections::HashMap;
+use std::collections::hash_map::Entry;
 
 impl TryFrom<TraceFile> for Trace {
     type Error = Vec<Problem>;
@@ -37,13 +38,16 @@ pub fn validate(file: TraceFile) -> Result<Trace, Vec<Problem>> {
 pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace, Vec<Problem>> {
     let mut problems = Vec::new();
     if file.format != FORMAT_VERSION {
-        problems.push(Problem::general(
-            format!(
-                "unsupported format version {} (this build reads version {FORMAT_VERSION})",
-                file.format
-            ),
-            "re-record the trace, or convert it with a matching release of ebb",
-        ));
+        problems.push(
+            Problem::general(
+                format!(
+                    "unsupported format version {} (this build reads version {FORMAT_VERSION})",
+                    file.format
+                ),
+                "re-record the trace, or convert it with a matching release of ebb",
+            )
+            .kind("format version"),
+        );
     }
     let index = index_ids(&file.nodes, &mut problems);
     let mut nodes: Vec<Option<Node>> = Vec::with_capacity(file.nodes.len());
@@ -59,8 +63,13 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
             &mut edges,
             &mut forward_edges,
         );
+        let before = problems.len();
         let checked =
             inputs.and_then(|inputs| check_node(raw, inputs, &nodes, &mut problems, resolve));
+        // Every problem of this node knows where the node is, for its line and column.
+        for problem in &mut problems[before..] {
+            problem.index = problem.index.or(Some(position));
+        }
         nodes.push(checked);
     }
     let output = resolve_output(&file.output.0, &index, &mut problems);
@@ -109,21 +118,27 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
     ))
 }
 
+/// Maps each id to its node's place, naming every repeated id (one lookup
+/// per node, so a file of a million duplicates is still linear).
 fn index_ids(nodes: &[NodeFile], problems: &mut Vec<Problem>) -> HashMap<String, usize> {
     let mut index = HashMap::with_capacity(nodes.len());
     for (position, node) in nodes.iter().enumerate() {
-        if let Some(first) = index.insert(node.id.0.clone(), position) {
-            index.insert(node.id.0.clone(), first);
-            let mut problem = Problem::at_node(
-                &node.id.0,
-                format!("duplicate id (node #{position} repeats the id of node #{first})"),
-                "give every node a unique id",
-            );
-            problem.occurrence = nodes[..position]
-                .iter()
-                .filter(|earlier| earlier.id == node.id)
-                .count();
-            problems.push(problem);
+        match index.entry(node.id.0.clone()) {
+            Entry::Vacant(slot) => {
+                slot.insert(position);
+            }
+            Entry::Occupied(first) => problems.push(
+                Problem::at_node(
+                    &node.id.0,
+                    format!(
+                        "duplicate id (node #{position} repeats the id of node #{})",
+                        first.get()
+                    ),
+                    "give every node a unique id",
+                )
+                .kind("duplicate id")
+                .at(position),
+            ),
         }
     }
     index
@@ -146,11 +161,15 @@ fn resolve_inputs(
         }
         match source.as_ref() {
             None => {
-                problems.push(Problem::at_node(
-                    &node.id.0,
-                    format!("unknown input id '{input}'"),
-                    "every input must be the id of a node in this trace",
-                ));
+                problems.push(
+                    Problem::at_node(
+                        &node.id.0,
+                        format!("unknown input id '{input}'"),
+                        "every input must be the id of a node in this trace",
+                    )
+                    .kind("unknown input id")
+                    .at(position),
+                );
                 ok = false;
             }
             Some(&source) if source >= position => {
@@ -160,11 +179,15 @@ fn resolve_inputs(
                 } else {
                     format!("'{input}', recorded later (node #{source})")
                 };
-                problems.push(Problem::at_node(
-                    &node.id.0,
-                    format!("input refers forward to {what}"),
-                    "list nodes in recording order: each node after all of its inputs",
-                ));
+                problems.push(
+                    Problem::at_node(
+                        &node.id.0,
+                        format!("input refers forward to {what}"),
+                        "list nodes in recording order: each node after all of its inputs",
+                    )
+                    .kind("forward input")
+                    .at(position),
+                );
                 ok = false;
             }
             Some(&source) => inputs.push(source),
@@ -179,20 +202,48 @@ fn resolve_output(
     problems: &mut Vec<Problem>,
 ) -> Option<usize> {
     if id.is_empty() {
-        problems.push(Problem::general(
-            "the header names no output node",
-            "set `output` to the id of the loss node",
-        ));
+        problems.push(
+            Problem::general(
+                "the header names no output node",
+                "set `output` to the id of the loss node",
+            )
+            .kind("output"),
+        );
         return None;
     }
     let found = index.get(id).copied();
     if found.is_none() {
-        problems.push(Problem::general(
-            format!("output node '{id}' is not in the trace"),
-            "set `output` to the id of the loss node",
-        ));
+        problems.push(
+            Problem::general(
+                format!("output node '{id}' is not in the trace"),
+                "set `output` to the id of the loss node",
+            )
+            .kind("output"),
+        );
     }
     found
+}
+
+/// The most elements a shape read from a file may describe, counting every
+/// zero dimension as one. Sizes, strides and byte offsets computed from a
+/// checked shape then fit in `usize` in any order of multiplication, even
+/// for an empty tensor whose other dimensions are huge.
+pub const MAX_ELEMENTS: usize = isize::MAX as usize / 8;
+
+/// The number of elements of a shape read from a file, in checked
+/// arithmetic; an error when the shape exceeds [`MAX_ELEMENTS`].
+pub(crate) fn checked_numel(shape: &[usize]) -> Result<usize, String> {
+    let extent = shape
+        .iter()
+        .try_fold(1usize, |acc, &d| acc.checked_mul(d.max(1)))
+        .filter(|&extent| extent <= MAX_ELEMENTS);
+    match extent {
+        Some(_) => Ok(shape.iter().product()),
+        None => Err(format!(
+            "shape {} is too large: its dimensions multiply to more than {MAX_ELEMENTS}",
+            show(shape)
+        )),
+    }
 }
 
 /// A value's data must fill its shape. Takes the data by value so that a
@@ -201,18 +252,21 @@ fn checked_value(raw: ValueRepr, resolve: Resolver) -> Result<Value, String> {
     match raw {
         ValueRepr::Scalar(x) => Ok(Value::Scalar(x)),
         ValueRepr::Tensor { shape, data } => {
-            let expected = shape.iter().try_fold(1usize, |acc, &d| acc.checked_mul(d));
-            match expected {
-                Some(expected) if expected == data.len() => Ok(Value::from_parts(shape, data)),
-                Some(expected) => Err(format!(
+            let expected = checked_numel(&shape)?;
+            if expected == data.len() {
+                Ok(Value::from_parts(shape, data))
+            } else {
+                Err(format!(
                     "data has {} elements but shape {} needs {expected}",
                     data.len(),
                     show(&shape)
-                )),
-                None => Err(format!("shape {} is too large", show(&shape))),
+                ))
             }
         }
-        ValueRepr::Stored { shape, offset } => resolve(&shape, offset),
+        ValueRepr::Stored { shape, offset } => {
+            checked_numel(&shape)?;
+            resolve(&shape, offset)
+        }
     }
 }
 
@@ -235,34 +289,53 @@ fn check_node(
         } else {
             "give the op its inputs in argument order"
         };
-        problems.push(Problem::at_node(
-            &id,
-            format!("{} takes {}, got {}", raw.op, spec.arity, inputs.len()),
-            hint,
-        ));
+        problems.push(
+            Problem::at_node(
+                &id,
+                format!("{} takes {}, got {}", raw.op, spec.arity, inputs.len()),
+                hint,
+            )
+            .kind("wrong number of inputs"),
+        );
     }
     if op == Op::Custom {
         check_custom_partials(&id, &raw, problems);
     }
     for attr in spec.required {
         if !attr.is_set(&raw.attrs) {
-            problems.push(Problem::at_node(
-                &id,
-                format!("{} needs the attribute `{}`", raw.op, attr.as_str()),
-                format!("add attrs: ({}: ..)", attr.as_str()),
-            ));
+            problems.push(
+                Problem::at_node(
+                    &id,
+                    format!("{} needs the attribute `{}`", raw.op, attr.as_str()),
+                    format!("add attrs: ({}: ..)", attr.as_str()),
+                )
+                .kind("missing attribute"),
+            );
         }
     }
+    if let Some(Err(message)) = raw.attrs.shape.as_deref().map(checked_numel) {
+        problems.push(
+            Problem::at_node(
+                &id,
+                format!("attribute `shape`: {message}"),
+                "give the target shape of the reshape",
+            )
+            .kind("bad attribute"),
+        );
+    }
     if raw.partials.len() > raw.inputs.len() {
-        problems.push(Problem::at_node(
-            &id,
-            format!(
-                "{} partials recorded for {} input edges",
-                raw.partials.len(),
-                raw.inputs.len()
-            ),
-            "record at most one partial per input, in input order",
-        ));
+        problems.push(
+            Problem::at_node(
+                &id,
+                format!(
+                    "{} partials recorded for {} input edges",
+                    raw.partials.len(),
+                    raw.inputs.len()
+                ),
+                "record at most one partial per input, in input order",
+            )
+            .kind("too many partials"),
+        );
     }
     let value = match checked_value(
         std::mem::replace(&mut raw.value, ValueRepr::Scalar(0.0)),
@@ -270,11 +343,14 @@ fn check_node(
     ) {
         Ok(value) => Some(value),
         Err(message) => {
-            problems.push(Problem::at_node(
-                &id,
-                format!("value: {message}"),
-                "the data length must equal the product of the shape",
-            ));
+            problems.push(
+                Problem::at_node(
+                    &id,
+                    format!("value: {message}"),
+                    "the data length must equal the product of the shape",
+                )
+                .kind("bad value"),
+            );
             None
         }
     };
@@ -284,11 +360,14 @@ fn check_node(
         .map(|reported| checked_value(reported, resolve))
         .transpose()
         .unwrap_or_else(|message| {
-            problems.push(Problem::at_node(
-                &id,
-                format!("reported gradient: {message}"),
-                "the data length must equal the product of the shape",
-            ));
+            problems.push(
+                Problem::at_node(
+                    &id,
+                    format!("reported gradient: {message}"),
+                    "the data length must equal the product of the shape",
+                )
+                .kind("bad reported gradient"),
+            );
             None
         });
     let input_values: Option<Vec<&Value>> = inputs
@@ -304,49 +383,61 @@ fn check_node(
     }
     let input_shapes: Vec<&[usize]> = input_values.iter().map(|value| value.shape()).collect();
     match ops::infer_shape(op, &input_shapes, &raw.attrs) {
-        Err(message) => problems.push(Problem::at_node(
-            &id,
-            message,
-            "check the shapes of the inputs against the op",
-        )),
-        Ok(Some(expected)) if expected != value.shape() => problems.push(Problem::at_node(
-            &id,
-            format!(
-                "recorded value has shape {} but {} of these inputs gives {}",
-                show(value.shape()),
-                raw.op,
-                show(&expected)
-            ),
-            "record the value the op produced",
-        )),
+        Err(message) => problems.push(
+            Problem::at_node(
+                &id,
+                message,
+                "check the shapes of the inputs against the op",
+            )
+            .kind("shape"),
+        ),
+        Ok(Some(expected)) if expected != value.shape() => problems.push(
+            Problem::at_node(
+                &id,
+                format!(
+                    "recorded value has shape {} but {} of these inputs gives {}",
+                    show(value.shape()),
+                    raw.op,
+                    show(&expected)
+                ),
+                "record the value the op produced",
+            )
+            .kind("shape"),
+        ),
         Ok(_) => {}
     }
     if let Some(reported) = &reported
         && reported.shape() != value.shape()
     {
-        problems.push(Problem::at_node(
-            &id,
-            format!(
-                "reported gradient has shape {} but the value has shape {}",
-                show(reported.shape()),
-                show(value.shape())
-            ),
-            "a gradient has the shape of its node's value",
-        ));
+        problems.push(
+            Problem::at_node(
+                &id,
+                format!(
+                    "reported gradient has shape {} but the value has shape {}",
+                    show(reported.shape()),
+                    show(value.shape())
+                ),
+                "a gradient has the shape of its node's value",
+            )
+            .kind("shape"),
+        );
     }
     let mut partials = Vec::with_capacity(inputs.len());
     for (slot, input_shape) in input_shapes.iter().enumerate() {
         let raw_partial = raw.partials.get(slot).unwrap_or(&PartialRepr::Absent);
         match check_partial(raw_partial, value.shape(), input_shape) {
             Ok(partial) => partials.push(partial),
-            Err(message) => problems.push(Problem::at_node(
-                &id,
-                format!(
-                    "partial on edge {slot} (from '{}'): {message}",
-                    raw.inputs[slot]
-                ),
-                "see traces/FORMAT.md, partials",
-            )),
+            Err(message) => problems.push(
+                Problem::at_node(
+                    &id,
+                    format!(
+                        "partial on edge {slot} (from '{}'): {message}",
+                        raw.inputs[slot]
+                    ),
+                    "see traces/FORMAT.md, partials",
+                )
+                .kind("bad partial"),
+            ),
         }
     }
     if problems.len() > before {
@@ -382,7 +473,7 @@ fn check_custom_partials(id: &str, raw: &NodeFile, problems: &mut Vec<Problem>) 
         id,
         format!("'{}' is not a catalog op, so it is a custom op, and it has no recorded partial on edge {}", raw.op, edges.join(", ")),
         format!("{suggestion}a custom op must record a partial on every input edge"),
-    ));
+    ).kind("custom op without partials"));
 }
 
 /// Checks a recorded partial against its edge: the node's output shape and the input's shape.
@@ -467,11 +558,15 @@ fn report_cycles(
         if members.len() > 6 {
             names.push(format!("and {} more", members.len() - 6));
         }
-        problems.push(Problem::at_node(
-            ids[members[0]],
-            format!("cycle through {}", names.join(", ")),
-            "a trace records one forward pass: no node may depend on itself",
-        ));
+        problems.push(
+            Problem::at_node(
+                ids[members[0]],
+                format!("cycle through {}", names.join(", ")),
+                "a trace records one forward pass: no node may depend on itself",
+            )
+            .kind("cycle")
+            .at(members[0]),
+        );
     }
 }
 
