@@ -1,10 +1,13 @@
 //! `ebb convert IN OUT`: rewrite a trace in another form, chosen by OUT's
 //! extension. Never writes over its input; the library writes through a
-//! temporary file and a rename.
+//! temporary file and a rename, and a signal removes the temporary files
+//! before the process ends.
 
 use super::{BadInput, Outcome, progress};
 use anyhow::{Context, Result, bail};
 use ebb::trace::{self, Format, LoadError};
+use signal_hook::consts::{SIGHUP, SIGINT, SIGTERM};
+use signal_hook::iterator::Signals;
 use std::io::Write;
 use std::path::{Path, PathBuf};
 
@@ -29,6 +32,23 @@ fn name(format: Option<Format>) -> &'static str {
     }
 }
 
+/// From now on SIGINT, SIGTERM and SIGHUP remove the temporary files the
+/// conversion is writing, then end the process as the signal would have (a
+/// shell sees 128 + its number). A handler thread does the work, outside
+/// signal context, so it may take the lock the saves take.
+fn remove_temporaries_on_signals() -> Result<()> {
+    let mut signals = Signals::new([SIGINT, SIGTERM, SIGHUP])
+        .context("installing the handler that removes temporary files on a signal")?;
+    std::thread::spawn(move || {
+        if let Some(signal) = signals.forever().next() {
+            trace::abandon_saves();
+            let _ = signal_hook::low_level::emulate_default_handler(signal);
+            std::process::exit(128 + signal);
+        }
+    });
+    Ok(())
+}
+
 /// Runs the conversion and reports it on `out`.
 pub fn convert(input: &Path, output: &Path, out: &mut dyn Write) -> Result<Outcome> {
     let Some(target) = Format::from_path(output) else {
@@ -51,6 +71,7 @@ pub fn convert(input: &Path, output: &Path, out: &mut dyn Write) -> Result<Outco
             );
         }
     }
+    remove_temporaries_on_signals()?;
     let file = trace::read_file(input, progress::for_trace(input).as_mut()).map_err(BadInput)?;
     let nodes = file.nodes.len();
     trace::validate(file.clone()).map_err(|problems| {

@@ -21,6 +21,6 @@ pub use load::{Encoding, SyntaxError, load, load_str, load_with, parse, to_text}
 pub use model::{Node, Partial, Trace};
 pub use progress::{Progress, Silent};
 pub use schema::{FORMAT_VERSION, NodeFile, NodeId, Num, PartialRepr, TraceFile, ValueRepr};
-pub use store::{Format, read_file, save, save_with};
+pub use store::{Format, abandon_saves, read_file, save, save_with};
 pub use text::TEXT_LIMIT;
 pub use validate::validate;

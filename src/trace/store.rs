@@ -11,6 +11,7 @@ use super::progress::{self, Progress, Silent};
 use super::schema::TraceFile;
 use std::io::Write;
 use std::path::{Path, PathBuf};
+use std::sync::{Mutex, MutexGuard, PoisonError};
 
 /// The three forms a trace can be stored in.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -105,13 +106,48 @@ pub(crate) fn write_atomically(
     commit(staged, path)
 }
 
-/// A finished temporary file waiting to be renamed into place.
-pub(crate) struct Staged(tempfile::NamedTempFile);
+/// The temporary files saves are writing in this process, so that a process
+/// ending on a signal can remove them ([`abandon_saves`]). Creating,
+/// renaming and abandoning hold the lock, so none happens halfway through
+/// another.
+static STAGED: Mutex<Vec<PathBuf>> = Mutex::new(Vec::new());
+
+fn staged_files() -> MutexGuard<'static, Vec<PathBuf>> {
+    STAGED.lock().unwrap_or_else(PoisonError::into_inner)
+}
+
+/// Removes every temporary file this process is writing a trace to, and
+/// keeps any save from creating or renaming another: for a process about to
+/// end on a signal (`ebb convert` on SIGINT or SIGTERM). Only files this
+/// process created are removed; a stale `.ebb-*.tmp` left by another process
+/// is not touched. Every save still running blocks for good.
+pub fn abandon_saves() {
+    let staged = staged_files();
+    for path in staged.iter() {
+        let _ = std::fs::remove_file(path);
+    }
+    std::mem::forget(staged);
+}
+
+/// A finished temporary file waiting to be renamed into place. Dropping it
+/// removes the file.
+pub(crate) struct Staged(Option<tempfile::NamedTempFile>);
 
 impl Staged {
     /// The staged file's length in bytes.
     pub(crate) fn len(&self) -> std::io::Result<u64> {
-        self.0.as_file().metadata().map(|meta| meta.len())
+        let file = self.0.as_ref().expect("a staged file until committed");
+        file.as_file().metadata().map(|meta| meta.len())
+    }
+}
+
+impl Drop for Staged {
+    fn drop(&mut self) {
+        if let Some(file) = self.0.take() {
+            let mut staged = staged_files();
+            staged.retain(|path| path != file.path());
+            drop(file);
+        }
     }
 }
 
@@ -134,20 +170,65 @@ pub(crate) fn stage(
     // usual permissions of a new file (subject to the umask).
     #[cfg(unix)]
     builder.permissions(std::os::unix::fs::PermissionsExt::from_mode(0o644));
-    let temp = builder.tempfile_in(dir).map_err(io)?;
+    let staged = {
+        let mut registry = staged_files();
+        let temp = builder.tempfile_in(dir).map_err(io)?;
+        registry.push(temp.path().to_path_buf());
+        Staged(Some(temp))
+    };
+    let temp = staged.0.as_ref().expect("just staged");
     let mut out = std::io::BufWriter::with_capacity(1 << 20, temp.as_file());
     write(&mut out).map_err(io)?;
     out.flush().map_err(io)?;
     drop(out);
     temp.as_file().sync_all().map_err(io)?;
-    Ok(Staged(temp))
+    Ok(staged)
 }
 
 /// Renames a staged file over `path`.
-pub(crate) fn commit(staged: Staged, path: &Path) -> Result<(), SaveError> {
-    staged.0.persist(path).map_err(|error| SaveError::Io {
+pub(crate) fn commit(mut staged: Staged, path: &Path) -> Result<(), SaveError> {
+    let file = staged.0.take().expect("a staged file is committed once");
+    let mut registry = staged_files();
+    let temp = file.path().to_path_buf();
+    // On failure the error holds the temporary file and removes it when dropped.
+    let result = file.persist(path);
+    registry.retain(|path| *path != temp);
+    result.map_err(|error| SaveError::Io {
         path: path.to_path_buf(),
         error: error.error,
     })?;
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn temporaries(dir: &Path) -> Vec<String> {
+        let mut names: Vec<String> = std::fs::read_dir(dir)
+            .unwrap()
+            .map(|entry| entry.unwrap().file_name().to_string_lossy().into_owned())
+            .filter(|name| name.starts_with(".ebb-"))
+            .collect();
+        names.sort();
+        names
+    }
+
+    #[test]
+    fn staged_files_are_registered_until_committed_or_dropped() {
+        let dir = tempfile::tempdir().unwrap();
+        let target = dir.path().join("t.ron");
+        let staged = stage(&target, |out| out.write_all(b"()")).unwrap();
+        let temp = staged.0.as_ref().unwrap().path().to_path_buf();
+        assert!(staged_files().contains(&temp));
+        commit(staged, &target).unwrap();
+        assert!(!staged_files().contains(&temp));
+        assert_eq!(std::fs::read(&target).unwrap(), b"()");
+        let staged = stage(&target, |out| out.write_all(b"(x)")).unwrap();
+        let temp = staged.0.as_ref().unwrap().path().to_path_buf();
+        drop(staged);
+        assert!(!staged_files().contains(&temp));
+        assert!(!temp.exists());
+        assert!(temporaries(dir.path()).is_empty());
+    }
 }
