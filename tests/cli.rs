@@ -246,6 +246,19 @@ fn verify_agrees_on_the_demo_and_names_a_wrong_partial() {
 }
 
 #[test]
+fn verify_exits_one_on_a_nan_run_and_says_it_cannot_judge() {
+    let output = ebb(&["verify", "traces/nan_hunt.ron"]);
+    assert_eq!(output.status.code(), Some(1), "{}", stdout(&output));
+    assert!(stdout(&output).starts_with("verdict  cannot judge"));
+    let output = ebb(&["verify", "traces/nan_hunt.ron", "--json"]);
+    assert_eq!(output.status.code(), Some(1));
+    let json: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap();
+    assert_eq!(json["verdict"], "cannot_judge");
+    assert_eq!(json["agrees"], false);
+    assert_eq!(json["tangent"]["relative"], "NaN");
+}
+
+#[test]
 fn a_bad_key_file_is_one_line_with_its_place_and_exit_status_2() {
     let dir = tempfile::tempdir().unwrap();
     let keys = write_temp(

@@ -390,3 +390,116 @@ fn the_other_demos_verify_clean() {
         );
     }
 }
+
+fn demo(name: &str) -> ebb::trace::Trace {
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("traces")
+        .join(name);
+    ebb::trace::load(&path).unwrap_or_else(|error| panic!("{error}"))
+}
+
+// NaN compares unordered with everything, itself included (IEEE 754-2019
+// §5.11): a NaN gradient can never be shown to agree with a NaN difference.
+#[test]
+fn a_nan_run_cannot_be_judged_and_never_verifies() {
+    let trace = demo("nan_hunt.ron");
+    let verification = verify(&trace, &VerifyOptions::default());
+    assert_eq!(verification.verdict(), ebb::verify::Verdict::CannotJudge);
+    assert!(!verification.agrees());
+    for check in &verification.differences {
+        assert_eq!(check.band(), Band::NotFinite, "{:?}", check.worst());
+    }
+    let tangent = verification.tangent.unwrap();
+    assert!(tangent.tangent.is_nan() && tangent.reverse.is_nan());
+    assert!(tangent.relative.is_nan(), "NaN against NaN is no agreement");
+    assert!(
+        verification
+            .not_finite
+            .contains(&ebb::verify::NotFinite::Tangent)
+    );
+    let text = verification.to_text(&trace);
+    assert!(text.starts_with("verdict  cannot judge"), "{text}");
+    assert!(!text.contains("(good)"), "{text}");
+    assert!(!text.contains("relative error 0)"), "{text}");
+    assert!(text.contains("not finite: cannot judge"), "{text}");
+}
+
+// Press, Teukolsky, Vetterling & Flannery, "Numerical Recipes", 3rd ed.,
+// 2007, §5.7: the central difference's rounding error is about ε·|f|/h, so a
+// derivative of 1e-20 at |f| = 1 is far below what it can resolve.
+#[test]
+fn a_derivative_below_the_difference_resolution_is_unresolved_not_good() {
+    let mut tape = Tape::new("tiny slope", Dtype::F64);
+    let w = tape.param("w", 0.5);
+    let slope = tape.constant("slope", 1e-20);
+    let one = tape.constant("one", 1.0);
+    let scaled = tape.mul(w, slope);
+    let f = tape.add(scaled, one);
+    let trace = checked(tape.finish(f));
+    let verification = verify(&trace, &VerifyOptions::default());
+    let check = &verification.differences[0];
+    assert_eq!(check.entries[0].reverse, 1e-20);
+    assert_eq!(check.entries[0].band(), Band::Unresolved);
+    assert_eq!(check.band(), Band::Unresolved);
+    assert_eq!(check.unresolved(), 1);
+    assert!(verification.agrees(), "unresolved is no mismatch");
+    let text = verification.to_text(&trace);
+    assert!(text.contains("'w'  1 entry  unresolved"), "{text}");
+    assert!(!text.contains("(good)"), "{text}");
+}
+
+#[test]
+fn a_check_through_a_custom_op_says_it_cannot_judge_that_op() {
+    let trace = demo("wrong_partial.ron");
+    let verification = verify(&trace, &VerifyOptions::default());
+    let gated = trace.find("gated").unwrap();
+    assert_eq!(verification.custom, vec![gated]);
+    let text = verification.to_text(&trace);
+    let hidden = text
+        .lines()
+        .find(|line| line.starts_with("  'hidden.w'"))
+        .unwrap();
+    assert!(
+        hidden.contains("through custom 'gated' by its recorded partials: cannot judge it"),
+        "{hidden}"
+    );
+    assert!(
+        text.lines()
+            .any(|line| line.starts_with("custom   'gated' (smooth_gate)")
+                && line.contains("cannot judge it")),
+        "{text}"
+    );
+    let json: serde_json::Value = serde_json::from_str(&verification.to_json(&trace)).unwrap();
+    assert_eq!(json["verdict"], "disagrees");
+    assert_eq!(json["custom"][0]["node"], "gated");
+    assert_eq!(json["custom"][0]["judged_by_reported"], true);
+}
+
+#[test]
+fn verification_reports_progress_and_stops_when_cancelled() {
+    use ebb::control::{Cancelled, Control};
+    use std::sync::Mutex;
+    use std::sync::atomic::AtomicBool;
+    let trace = demo("teaching.ron");
+    let stages = Mutex::new(Vec::new());
+    let report = |stage: &str, _: f64| stages.lock().unwrap().push(stage.to_string());
+    let verification = ebb::verify::verify_with(
+        &trace,
+        &VerifyOptions::default(),
+        &Control::new(Some(&report), None),
+    )
+    .unwrap();
+    assert!(verification.agrees());
+    let stages = stages.into_inner().unwrap();
+    assert!(
+        stages.iter().any(|stage| stage == "finite differences"),
+        "{stages:?}"
+    );
+    let cancel = AtomicBool::new(true);
+    let result = ebb::verify::verify_with(
+        &trace,
+        &VerifyOptions::default(),
+        &Control::new(None, Some(&cancel)),
+    );
+    assert_eq!(result.err(), Some(Cancelled));
+}

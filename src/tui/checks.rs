@@ -151,6 +151,9 @@ impl<'t> App<'t> {
         let verification = self.checks.verification.as_ref().expect("just run");
         let took = format!("{:.2} s", self.checks.seconds);
         self.message = Some(match verification.suspects.len() {
+            0 if !verification.agrees() => format!(
+                "verified in {took}: cannot judge: values are NaN or infinite, and NaN never agrees with anything"
+            ),
             0 => format!(
                 "verified in {took}: every check agrees within {:e}",
                 verification.tolerance

@@ -44,6 +44,8 @@ pub fn band_symbol(band: Band) -> &'static str {
         Band::Doubtful => "△",
         Band::Acceptable => "≈",
         Band::Good => "=",
+        Band::Unresolved => "?",
+        Band::NotFinite => "⊘",
     }
 }
 
@@ -54,6 +56,8 @@ pub fn band_style(theme: &Theme, band: Band) -> Style {
         Band::Doubtful => theme.current,
         Band::Acceptable => theme.muted,
         Band::Good => theme.done,
+        Band::Unresolved => theme.muted,
+        Band::NotFinite => theme.flag_value,
     }
 }
 
@@ -158,6 +162,8 @@ mod tests {
             Band::Doubtful,
             Band::Acceptable,
             Band::Good,
+            Band::Unresolved,
+            Band::NotFinite,
         ]
         .map(band_symbol)
         .to_vec();

@@ -3,26 +3,44 @@
 
 use serde::Serialize;
 
-/// |a − b| / (|a| + |b|), 0 when both are zero (or equal, infinities
-/// included), and 1 when exactly one is NaN. Symmetric and bounded by 1, so a
-/// sign error scores exactly 1. Common practice for gradient checks.
+/// |a − b| / (|a| + |b|) for two finite numbers, 0 when they are equal.
+/// Symmetric and bounded by 1, so a sign error scores exactly 1. Common
+/// practice for gradient checks.
+///
+/// A number and a non-finite value disagree completely (1). Two non-finite
+/// values — NaN against anything non-finite, or two infinities — cannot be
+/// compared at all: the result is NaN, which [`Band::of`] reads as
+/// [`Band::NotFinite`]. NaN never agrees with anything, itself included.
 pub fn relative_error(a: f64, b: f64) -> f64 {
-    if a == b || (a.is_nan() && b.is_nan()) {
-        return 0.0;
+    match (a.is_finite(), b.is_finite()) {
+        (true, true) if a == b => 0.0,
+        (true, true) => (a - b).abs() / (a.abs() + b.abs()),
+        (false, false) => f64::NAN,
+        _ => 1.0,
     }
-    if a.is_nan() || b.is_nan() || a.is_infinite() || b.is_infinite() {
-        return 1.0;
-    }
-    (a - b).abs() / (a.abs() + b.abs())
+}
+
+/// Whether `a` and `b` are not shown to agree within `tolerance`: they
+/// disagree, or they cannot be compared because both are non-finite.
+pub fn differs(a: f64, b: f64, tolerance: f64) -> bool {
+    let error = relative_error(a, b);
+    error.is_nan() || error > tolerance
 }
 
 /// How far apart two derivatives are. Thresholds are common practice for
 /// gradient checks in f64: above 1e-2 the derivative is probably wrong; 1e-4 to
 /// 1e-2 is doubtful; below 1e-4 is acceptable for functions with kinks; below
-/// 1e-7 is good.
+/// 1e-7 is good. Two more outcomes are no judgement at all: a finite
+/// difference too small to resolve, and numbers that are not finite.
+///
+/// Ordered from least to most worrying: `Unresolved` first (nothing was
+/// shown), `NotFinite` last (the check could not be made, and the run is broken).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Band {
+    /// A finite difference below its rounding resolution: it cannot tell the
+    /// derivative from zero, so it neither confirms nor refutes it.
+    Unresolved,
     /// Below 1e-7.
     Good,
     /// 1e-7 to 1e-4: fine near kinks, and for f32 traces.
@@ -31,12 +49,16 @@ pub enum Band {
     Doubtful,
     /// Above 1e-2.
     ProbablyWrong,
+    /// A value compared is NaN or infinite: no derivative can be judged.
+    NotFinite,
 }
 
 impl Band {
-    /// The band of a relative error.
+    /// The band of a relative error (NaN: the numbers were not finite).
     pub fn of(error: f64) -> Band {
-        if error.is_nan() || error > 1e-2 {
+        if error.is_nan() {
+            Band::NotFinite
+        } else if error > 1e-2 {
             Band::ProbablyWrong
         } else if error > 1e-4 {
             Band::Doubtful
@@ -50,11 +72,19 @@ impl Band {
     /// A short name for reports.
     pub fn name(self) -> &'static str {
         match self {
+            Band::Unresolved => "unresolved",
             Band::Good => "good",
             Band::Acceptable => "acceptable",
             Band::Doubtful => "doubtful",
             Band::ProbablyWrong => "probably wrong",
+            Band::NotFinite => "not finite: cannot judge",
         }
+    }
+
+    /// True for the bands that are a judgement of the derivative (not
+    /// `Unresolved`, not `NotFinite`).
+    pub fn is_judgement(self) -> bool {
+        !matches!(self, Band::Unresolved | Band::NotFinite)
     }
 }
 
@@ -74,7 +104,9 @@ pub struct Worst {
 }
 
 impl Worst {
-    /// Compares two equally long slices element by element; `None` when empty.
+    /// Compares two equally long slices element by element; `None` when
+    /// empty. An element that cannot be compared (both non-finite) is the
+    /// worst of all: its relative error is NaN.
     pub fn of(actual: &[f64], expected: &[f64]) -> Option<Worst> {
         actual
             .iter()
@@ -88,9 +120,17 @@ impl Worst {
                 relative: relative_error(a, e),
             })
             .max_by(|x, y| {
-                x.relative
-                    .total_cmp(&y.relative)
+                let severity = |w: &Worst| {
+                    if w.relative.is_nan() {
+                        f64::INFINITY
+                    } else {
+                        w.relative
+                    }
+                };
+                severity(x)
+                    .total_cmp(&severity(y))
                     .then(x.absolute.total_cmp(&y.absolute))
+                    .then(y.element.cmp(&x.element))
             })
     }
 
@@ -109,8 +149,8 @@ mod tests {
         assert_eq!(relative_error(0.0, 0.0), 0.0);
         assert_eq!(relative_error(2.0, -2.0), 1.0, "a sign error scores 1");
         assert_eq!(relative_error(1.0, 0.0), 1.0);
-        assert_eq!(relative_error(f64::INFINITY, f64::INFINITY), 0.0);
         assert_eq!(relative_error(f64::NAN, 1.0), 1.0);
+        assert_eq!(relative_error(-1.0, f64::INFINITY), 1.0);
         assert!((relative_error(1.0, 1.0 + 2e-8) - 1e-8).abs() < 1e-15);
         assert_eq!(relative_error(3.0, 1.0), relative_error(1.0, 3.0));
     }
@@ -121,6 +161,29 @@ mod tests {
         assert_eq!(Band::of(1e-3), Band::Doubtful);
         assert_eq!(Band::of(1e-5), Band::Acceptable);
         assert_eq!(Band::of(1e-9), Band::Good);
-        assert_eq!(Band::of(f64::NAN), Band::ProbablyWrong);
+        assert_eq!(Band::of(f64::NAN), Band::NotFinite);
+    }
+
+    // IEEE 754-2019 §5.11: NaN is unordered with everything, itself included,
+    // so no comparison involving it can show agreement; two infinities carry
+    // no magnitude to compare.
+    #[test]
+    fn nan_never_agrees_and_two_non_finite_values_cannot_be_judged() {
+        assert!(relative_error(f64::NAN, f64::NAN).is_nan());
+        assert!(relative_error(f64::INFINITY, f64::INFINITY).is_nan());
+        assert!(relative_error(f64::NAN, f64::NEG_INFINITY).is_nan());
+        assert!(differs(f64::NAN, f64::NAN, 1.0));
+        assert!(differs(f64::INFINITY, f64::INFINITY, 1e-4));
+        assert!(!differs(1.0, 1.0, 0.0));
+        assert_eq!(
+            Band::of(relative_error(f64::NAN, f64::NAN)),
+            Band::NotFinite
+        );
+        let worst = Worst::of(&[1.0, f64::NAN, 3.0], &[2.0, f64::NAN, 3.0]).unwrap();
+        assert_eq!(
+            worst.element, 1,
+            "the element that cannot be judged is the worst"
+        );
+        assert_eq!(worst.band(), Band::NotFinite);
     }
 }

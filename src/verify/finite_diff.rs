@@ -9,6 +9,7 @@
 //! §5.7).
 
 use super::compare::{Band, relative_error};
+use crate::control::{Cancelled, Control};
 use crate::dtype::Dtype;
 use crate::eval::reevaluate;
 use crate::ops::{self, Op};
@@ -36,18 +37,44 @@ pub struct DifferenceEntry {
 }
 
 impl DifferenceEntry {
-    /// True when the two agree to within the difference's rounding floor: a
-    /// vanishing gradient that the difference cannot resolve is no mismatch.
+    /// True when the difference and the gradient are both finite numbers.
+    pub fn is_finite(&self) -> bool {
+        self.central.is_finite() && self.reverse.is_finite()
+    }
+
+    /// True when the difference can resolve the derivative: the gradient or
+    /// the difference stands above the rounding floor. Below it the
+    /// difference cannot tell the derivative from zero.
+    pub fn resolved(&self) -> bool {
+        self.central.abs() > self.floor || self.reverse.abs() > self.floor
+    }
+
+    /// True when the two agree to within the difference's rounding floor.
     pub fn within_floor(&self) -> bool {
         (self.reverse - self.central).abs() <= self.floor
     }
 
-    /// The relative error that counts: zero within the floor.
+    /// The relative error that counts: NaN when both numbers are non-finite
+    /// (nothing to judge), 0 for a resolved entry that agrees within the
+    /// floor (rounding noise), else the relative error.
     pub fn counted(&self) -> f64 {
-        if self.within_floor() {
+        if self.is_finite() && self.resolved() && self.within_floor() {
             0.0
         } else {
             self.relative
+        }
+    }
+
+    /// How this entry judges the derivative: `NotFinite` when the numbers are
+    /// not finite, `Unresolved` below the floor (never `Good`), else the band
+    /// of the counted error.
+    pub fn band(&self) -> Band {
+        if !self.is_finite() {
+            Band::of(self.relative)
+        } else if !self.resolved() {
+            Band::Unresolved
+        } else {
+            Band::of(self.counted())
         }
     }
 }
@@ -68,26 +95,40 @@ pub struct DifferenceCheck {
 }
 
 impl DifferenceCheck {
-    /// The entry with the largest counted relative error.
+    /// The most worrying entry: by band (not finite, then probably wrong, …,
+    /// then unresolved), then by counted relative error.
     pub fn worst(&self) -> Option<&DifferenceEntry> {
         self.entries.iter().max_by(|a, b| {
-            a.counted()
-                .total_cmp(&b.counted())
-                .then(a.relative.total_cmp(&b.relative))
+            let counted = |e: &DifferenceEntry| {
+                let c = e.counted();
+                if c.is_nan() { f64::INFINITY } else { c }
+            };
+            a.band()
+                .cmp(&b.band())
+                .then(counted(a).total_cmp(&counted(b)))
+                .then(b.element.cmp(&a.element))
         })
     }
 
-    /// The band of the worst entry.
+    /// The band of the worst entry: `Unresolved` when no entry could be
+    /// resolved, `Good` for a parameter with no entry.
     pub fn band(&self) -> Band {
-        self.worst()
-            .map_or(Band::Good, |worst| Band::of(worst.counted()))
+        self.worst().map_or(Band::Good, DifferenceEntry::band)
     }
 
     /// Entries too small for the difference to resolve.
-    pub fn below_floor(&self) -> usize {
+    pub fn unresolved(&self) -> usize {
         self.entries
             .iter()
-            .filter(|entry| entry.within_floor() && entry.relative > 0.0)
+            .filter(|entry| entry.band() == Band::Unresolved)
+            .count()
+    }
+
+    /// Entries where the difference or the gradient is NaN or infinite.
+    pub fn not_finite(&self) -> usize {
+        self.entries
+            .iter()
+            .filter(|entry| !entry.is_finite())
             .count()
     }
 }
@@ -129,9 +170,24 @@ fn downstream(trace: &Trace, source: usize) -> Vec<bool> {
 /// Checks up to `samples` entries of every parameter that reaches the output
 /// against central differences. `sweep` must have run to the end.
 pub fn check_finite_differences(sweep: &Sweep, samples: usize, seed: u64) -> Vec<DifferenceCheck> {
+    check_finite_differences_with(sweep, samples, seed, &Control::NONE)
+        .expect("Control::NONE never cancels")
+}
+
+/// [`check_finite_differences`], reporting progress per parameter to
+/// `control` and stopping between parameters when it is cancelled.
+pub fn check_finite_differences_with(
+    sweep: &Sweep,
+    samples: usize,
+    seed: u64,
+    control: &Control,
+) -> Result<Vec<DifferenceCheck>, Cancelled> {
     let trace = sweep.trace();
     let mut checks = Vec::new();
-    for param in trace.params() {
+    let params: Vec<usize> = trace.params().collect();
+    for (done, &param) in params.iter().enumerate() {
+        control.check()?;
+        control.progress("finite differences", done as f64 / params.len() as f64);
         let Some(adjoint) = sweep.adjoint(param) else {
             continue;
         };
@@ -191,7 +247,7 @@ pub fn check_finite_differences(sweep: &Sweep, samples: usize, seed: u64) -> Vec
             linearised,
         });
     }
-    checks
+    Ok(checks)
 }
 
 fn kink_state<'v>(

@@ -10,12 +10,15 @@ mod render;
 mod reported;
 mod tangent;
 
-pub use compare::{Band, Worst, relative_error};
-pub use finite_diff::{DifferenceCheck, DifferenceEntry, check_finite_differences};
+pub use compare::{Band, Worst, differs, relative_error};
+pub use finite_diff::{
+    DifferenceCheck, DifferenceEntry, check_finite_differences, check_finite_differences_with,
+};
 pub use partials::{MAX_DENSE_ENTRIES, PartialCheck, Unchecked, check_partials, partial_pair};
 pub use reported::{ReportedComparison, Walk, check_reported};
 pub use tangent::{Direction, TangentSweep};
 
+use crate::control::{Cancelled, Control};
 use crate::dtype::{Dtype, Subnormals};
 use crate::sweep::{LedgerMode, Sweep};
 use crate::trace::Trace;
@@ -85,6 +88,58 @@ pub struct Suspect {
     pub detail: String,
 }
 
+/// A check that could not be made because the numbers it compares are NaN
+/// or infinite. It is neither an agreement nor a suspect; `ebb verify` exits 1.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case", tag = "check")]
+pub enum NotFinite {
+    /// A recorded partial and the op table's are both non-finite somewhere.
+    Partial {
+        /// The node.
+        node: usize,
+        /// The input slot.
+        slot: usize,
+    },
+    /// Central differences of a parameter where the difference and the gradient are not finite.
+    FiniteDifference {
+        /// The parameter.
+        param: usize,
+        /// Entries that could not be judged.
+        entries: usize,
+    },
+    /// A reported gradient and the sweep's adjoint are both non-finite somewhere.
+    Reported {
+        /// The node.
+        node: usize,
+    },
+    /// The tangent sweep's ∂f/∂v and the reverse sweep's ⟨v, ∇f⟩ are not finite.
+    Tangent,
+}
+
+/// What `ebb verify` concludes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Verdict {
+    /// Every check that could be made agrees within the tolerance, and every number is finite.
+    Agrees,
+    /// Some check disagrees: see the suspects.
+    Disagrees,
+    /// No suspect, but the sweep or some check is not finite: nothing can be
+    /// said about the derivatives there (`ebb check` finds where it started).
+    CannotJudge,
+}
+
+impl Verdict {
+    /// The name used in JSON.
+    pub fn name(self) -> &'static str {
+        match self {
+            Verdict::Agrees => "agrees",
+            Verdict::Disagrees => "disagrees",
+            Verdict::CannotJudge => "cannot_judge",
+        }
+    }
+}
+
 /// Everything `ebb verify` found.
 #[derive(Debug, Clone)]
 pub struct Verification {
@@ -109,12 +164,38 @@ pub struct Verification {
     pub sweep_flags: usize,
     /// The dtype finite differences and the tangent sweep ran in.
     pub derivatives_in: Dtype,
+    /// Checks that could not be made because their numbers are not finite.
+    pub not_finite: Vec<NotFinite>,
+    /// Custom ops that reach the output, in recording order. The op table has
+    /// no rule for them, and finite differences and the tangent sweep go
+    /// through their recorded partials, so only reported gradients can judge them.
+    pub custom: Vec<usize>,
 }
 
 impl Verification {
-    /// True when every check agrees within the tolerance.
+    /// What the checks conclude: a suspect makes it `Disagrees`; otherwise a
+    /// non-finite sweep or check makes it `CannotJudge`.
+    pub fn verdict(&self) -> Verdict {
+        if !self.suspects.is_empty() {
+            Verdict::Disagrees
+        } else if self.sweep_flags > 0 || !self.not_finite.is_empty() {
+            Verdict::CannotJudge
+        } else {
+            Verdict::Agrees
+        }
+    }
+
+    /// True when every check agrees within the tolerance and every number is
+    /// finite: the only outcome `ebb verify` exits 0 on.
     pub fn agrees(&self) -> bool {
-        self.suspects.is_empty()
+        self.verdict() == Verdict::Agrees
+    }
+
+    /// True when a reported gradient judges custom op `node`: the node or one
+    /// of its inputs carries one.
+    pub fn custom_judged_by_reported(&self, trace: &Trace, node: usize) -> bool {
+        let carries = |n: usize| self.reported.iter().any(|c| c.node == n);
+        carries(node) || trace.node(node).inputs.iter().any(|&input| carries(input))
     }
 }
 
@@ -128,10 +209,26 @@ impl Verification {
 /// and reported gradients are compared in the trace's own dtype, the one they
 /// were produced in.
 pub fn verify(trace: &Trace, options: &VerifyOptions) -> Verification {
+    verify_with(trace, options, &Control::NONE).expect("Control::NONE never cancels")
+}
+
+/// [`verify`], reporting progress to `control` and returning `Err(Cancelled)`
+/// between checks (and between parameters of the finite-difference check)
+/// once it is cancelled.
+pub fn verify_with(
+    trace: &Trace,
+    options: &VerifyOptions,
+    control: &Control,
+) -> Result<Verification, Cancelled> {
+    control.progress("reverse sweep", 0.0);
     let mut sweep = Sweep::new(trace, LedgerMode::Off);
     sweep.run_to_end();
+    control.check()?;
+    control.progress("recorded partials", 0.0);
     let (partials, unchecked) = check_partials(trace);
+    control.check()?;
     let (reported, walk) = check_reported(&sweep, options.tolerance);
+    control.check()?;
     let wide = (trace.dtype() != Dtype::F64).then(|| {
         let retyped = trace.retyped(Dtype::F64, Subnormals::Keep);
         let values = crate::eval::forward_pass(&retyped, Dtype::F64);
@@ -140,7 +237,11 @@ pub fn verify(trace: &Trace, options: &VerifyOptions) -> Verification {
     let exact = wide.as_ref().unwrap_or(trace);
     let mut exact_sweep = Sweep::new(exact, LedgerMode::Off);
     exact_sweep.run_to_end();
-    let differences = check_finite_differences(&exact_sweep, options.samples, options.seed);
+    control.check()?;
+    let differences =
+        check_finite_differences_with(&exact_sweep, options.samples, options.seed, control)?;
+    control.check()?;
+    control.progress("tangent sweep", 0.0);
     let direction = options
         .direction
         .clone()
@@ -156,6 +257,14 @@ pub fn verify(trace: &Trace, options: &VerifyOptions) -> Verification {
         }
     });
     let sweep_flags = sweep.flags().len();
+    let not_finite = not_finite(&partials, &differences, &reported, tangent.as_ref());
+    let custom = trace
+        .sweep_order()
+        .iter()
+        .rev()
+        .copied()
+        .filter(|&node| trace.node(node).op == crate::ops::Op::Custom)
+        .collect();
     let mut verification = Verification {
         tolerance: options.tolerance,
         partials,
@@ -167,9 +276,50 @@ pub fn verify(trace: &Trace, options: &VerifyOptions) -> Verification {
         suspects: Vec::new(),
         sweep_flags,
         derivatives_in: exact.dtype(),
+        not_finite,
+        custom,
     };
     verification.suspects = rank(trace, &verification);
-    verification
+    control.progress("verification", 1.0);
+    Ok(verification)
+}
+
+/// The checks whose numbers are not finite: neither agreements nor suspects.
+fn not_finite(
+    partials: &[PartialCheck],
+    differences: &[DifferenceCheck],
+    reported: &[ReportedComparison],
+    tangent: Option<&TangentCheck>,
+) -> Vec<NotFinite> {
+    let mut found: Vec<NotFinite> = partials
+        .iter()
+        .filter(|check| check.worst.band() == Band::NotFinite)
+        .map(|check| NotFinite::Partial {
+            node: check.node,
+            slot: check.slot,
+        })
+        .collect();
+    found.extend(
+        differences
+            .iter()
+            .filter(|check| check.not_finite() > 0)
+            .map(|check| NotFinite::FiniteDifference {
+                param: check.param,
+                entries: check.not_finite(),
+            }),
+    );
+    found.extend(
+        reported
+            .iter()
+            .filter(|comparison| comparison.worst.band() == Band::NotFinite)
+            .map(|comparison| NotFinite::Reported {
+                node: comparison.node,
+            }),
+    );
+    if tangent.is_some_and(|t| Band::of(t.relative) == Band::NotFinite) {
+        found.push(NotFinite::Tangent);
+    }
+    found
 }
 
 /// Collects the suspects of every check, worst first.
@@ -224,7 +374,9 @@ fn rank(trace: &Trace, found: &Verification) -> Vec<Suspect> {
     }
     for check in &found.differences {
         let Some(worst) = check.worst() else { continue };
-        if worst.counted() <= tolerance {
+        // Unresolved and non-finite entries judge nothing; a one-sided
+        // non-finite entry (a NaN gradient where the difference is a number) does.
+        if !worst.band().is_judgement() || worst.counted() <= tolerance {
             continue;
         }
         let explained = if check.kinks.is_empty() {
@@ -241,7 +393,7 @@ fn rank(trace: &Trace, found: &Verification) -> Vec<Suspect> {
             node: check.param,
             evidence: Evidence::FiniteDifference,
             relative: worst.counted(),
-            band: Band::of(worst.counted()),
+            band: worst.band(),
             detail: format!(
                 "gradient entry {} is {} but central differences give {}{explained}",
                 worst.element, worst.reverse, worst.central

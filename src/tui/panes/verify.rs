@@ -184,6 +184,7 @@ impl Pane for VerifyPane {
         match &app.checks.verification {
             None => "not run".to_string(),
             Some(verification) if verification.agrees() => "all agree".to_string(),
+            Some(verification) if verification.suspects.is_empty() => "cannot judge".to_string(),
             Some(verification) => format!("{} suspect(s)", verification.suspects.len()),
         }
     }
@@ -205,6 +206,22 @@ impl Pane for VerifyPane {
         };
         if verification.agrees() {
             Paragraph::new(agreement_lines(app, verification)).render(area, buf);
+            return;
+        }
+        if verification.suspects.is_empty() {
+            // No suspect, yet no agreement: the numbers are not finite.
+            let text = format!(
+                "{} cannot judge: {} check(s) compare NaN or infinite numbers and the sweep raised {} flag(s); NaN never agrees with anything. The Flags pane shows where it started.",
+                band_symbol(crate::verify::Band::NotFinite),
+                verification.not_finite.len(),
+                verification.sweep_flags
+            );
+            Paragraph::new(Line::styled(
+                text,
+                band_style(theme, crate::verify::Band::NotFinite),
+            ))
+            .wrap(ratatui::widgets::Wrap { trim: true })
+            .render(area, buf);
             return;
         }
         let mut lines = vec![Line::styled(
