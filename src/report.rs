@@ -42,6 +42,9 @@ pub struct Report {
     /// The diagnosis, when one was made.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub diagnosis: Option<DiagnosisReport>,
+    /// The sweep's flags by node index, to place the origin among them.
+    #[serde(skip)]
+    sweep_flags: Vec<Flag>,
 }
 
 /// The trace's header.
@@ -116,6 +119,10 @@ pub struct FlagEntry {
     pub from: Option<String>,
     /// True for the first flag of the sweep.
     pub first: bool,
+    /// True for the flag at the diagnosis's first origin (the cause, not a
+    /// symptom); absent when no diagnosis ran.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub origin: Option<bool>,
     /// For a non-finite adjoint, the letter of its root-cause class (a–e, or `seed`).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub class: Option<&'static str>,
@@ -183,13 +190,16 @@ impl Report {
             clean: flags.is_empty(),
             flags,
             diagnosis: None,
+            sweep_flags: sweep.flags().to_vec(),
         }
     }
 
     /// Adds the diagnosis: its section, the root-cause class of each
     /// non-finite adjoint flag, and its findings in `clean`.
     pub fn with_diagnosis(mut self, trace: &Trace, diagnosis: &Diagnosis) -> Report {
-        for flag in &mut self.flags {
+        let origin_flag = diagnosis.origin_flag(&self.sweep_flags);
+        for (k, flag) in self.flags.iter_mut().enumerate() {
+            flag.origin = Some(origin_flag == Some(k));
             if flag.kind == FlagKind::NonFiniteAdjoint
                 && let Some(node) = trace.find(&flag.node)
             {
@@ -281,9 +291,19 @@ impl Report {
         if self.flags.is_empty() {
             return "flags    none: every value, partial and adjoint is finite\n".to_string();
         }
-        let mut out = format!("flags    {} in sweep order (* first)\n", self.flags.len());
+        let marked = self.flags.iter().any(|flag| flag.origin == Some(true));
+        let mut out = format!(
+            "flags    {} in sweep order (* {})\n",
+            self.flags.len(),
+            if marked { "the origin" } else { "first" }
+        );
         for flag in &self.flags {
-            let marker = if flag.first { '*' } else { ' ' };
+            let star = if marked {
+                flag.origin == Some(true)
+            } else {
+                flag.first
+            };
+            let marker = if star { '*' } else { ' ' };
             out.push_str(&format!(
                 "  {marker} step {:<5} {:<12} {}\n",
                 flag.step,
@@ -343,6 +363,7 @@ fn flag_entry(trace: &Trace, flag: &Flag, first: bool) -> FlagEntry {
         slot: flag.slot,
         from: flag.from.map(|from| trace.node(from).id.clone()),
         first,
+        origin: None,
         class: None,
     }
 }

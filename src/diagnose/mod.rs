@@ -137,9 +137,41 @@ impl Diagnosis {
         self.findings.is_empty()
     }
 
-    /// The earliest origin of a non-finite adjoint.
+    /// The origin that spoiled the sweep first: the one whose first
+    /// non-finite adjoint appeared earliest.
     pub fn first_origin(&self) -> Option<&Origin> {
-        self.origins.iter().min_by_key(|origin| origin.step)
+        self.origins
+            .iter()
+            .min_by_key(|origin| (origin.first_adjoint_step, origin.step))
+    }
+
+    /// The flag (index into `flags`, the sweep's flags in order) that marks
+    /// the first origin itself rather than a symptom downstream of it: the
+    /// non-finite forward value (a), the partial (b), the adjoint made
+    /// non-finite by its pull-back (c, e), at the branch point (d) or the seed.
+    pub fn origin_flag(&self, flags: &[crate::sweep::Flag]) -> Option<usize> {
+        use crate::sweep::FlagKind;
+        let origin = self.first_origin()?;
+        let slot = origin.edge.map(|(_, slot)| slot);
+        flags.iter().position(|flag| match origin.class {
+            OriginClass::NonFiniteValue => {
+                flag.node == origin.node && flag.kind == FlagKind::NonFiniteValue
+            }
+            OriginClass::NonFinitePartial => {
+                flag.node == origin.node
+                    && flag.kind == FlagKind::NonFinitePartial
+                    && (slot.is_none() || flag.slot == slot)
+            }
+            OriginClass::ProductOverflow | OriginClass::NanFromInfinity => {
+                flag.kind == FlagKind::NonFiniteAdjoint && flag.from == Some(origin.node)
+            }
+            OriginClass::SumOverflow => {
+                flag.kind == FlagKind::NonFiniteAdjoint && flag.node == origin.node
+            }
+            OriginClass::NonFiniteSeed => {
+                flag.kind == FlagKind::NonFiniteAdjoint && flag.from.is_none()
+            }
+        })
     }
 
     /// The origin behind `node`'s non-finite adjoint, if it has one.
@@ -150,9 +182,18 @@ impl Diagnosis {
     }
 
     /// The chain of nodes from the origin of `node`'s non-finite adjoint to
-    /// `node`, in sweep order; empty when its adjoint is finite.
+    /// `node`; empty when its adjoint is finite. Every consecutive pair is an
+    /// edge of the graph: the first [`Diagnosis::forward_hops`] hops follow a
+    /// non-finite forward value from its origin to the consumer that carried
+    /// it into the sweep (each node an input of the next), the rest follow
+    /// the non-finite adjoint through inputs (each node an input of the one before).
     pub fn chain_to(&self, node: usize) -> Vec<usize> {
         self.causes.chain(node)
+    }
+
+    /// How many of [`Diagnosis::chain_to`]'s first hops run forward.
+    pub fn forward_hops(&self, node: usize) -> usize {
+        self.causes.forward_hops(node)
     }
 
     /// Where infinite adjoints turned into NaN downstream of their origins, in sweep order.

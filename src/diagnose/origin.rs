@@ -63,10 +63,14 @@ pub struct Origin {
     /// Where: the node with the non-finite value (a), the node whose pull-back
     /// went bad (b, c, e), the branch point whose sum overflowed (d), the output (seed).
     pub node: usize,
-    /// The sweep step (0-based) at which the first non-finite adjoint appeared.
+    /// The origin node's own sweep step (0-based): where it is processed.
     pub step: usize,
     /// The node whose adjoint became non-finite first.
     pub first_adjoint: usize,
+    /// The sweep step (0-based) at which that first non-finite adjoint
+    /// appeared. For a forward value that travels to a consumer before it
+    /// spoils an adjoint, this can come before `step`.
+    pub first_adjoint_step: usize,
     /// For a pull-back: the node pulled back and the input slot of the edge.
     pub edge: Option<(usize, usize)>,
     /// The numbers involved: the op's input elements (a); the input and the
@@ -126,9 +130,16 @@ fn has_nan(value: &Value) -> bool {
 pub(super) enum Cause {
     /// Finite adjoint.
     Finite,
-    /// Born here: index into the origins.
-    Origin(usize),
-    /// Carried in by the contribution of this consumer.
+    /// Born here, from an origin (index into the origins), through the
+    /// contribution of consumer `via` (the node itself for the seed and for
+    /// a sum that overflowed at it).
+    Origin {
+        /// Index into the origins.
+        index: usize,
+        /// The consumer whose contribution made the adjoint non-finite.
+        via: usize,
+    },
+    /// Carried in by the contribution of this consumer, whose adjoint was already non-finite.
     From(usize),
 }
 
@@ -141,10 +152,18 @@ pub(super) struct RootCauses {
     origin_index: Vec<Option<usize>>,
     /// Where infinities turned into NaN, in sweep order.
     pub nan_births: Vec<NanBirth>,
+    /// For each node whose forward value is not finite, its first input whose value is not finite either.
+    forward_input: HashMap<usize, usize>,
 }
 
 impl RootCauses {
-    /// The chain of nodes from the origin to `node`, in sweep order; empty when `node`'s adjoint is finite.
+    /// The chain of nodes from the origin to `node`; empty when `node`'s
+    /// adjoint is finite. Consecutive nodes are joined by an edge of the graph:
+    /// the chain opens with the forward path from a non-finite forward value
+    /// to the consumer that pulled it back (each node an input of the next;
+    /// [`RootCauses::forward_hops`] says how many), then follows the
+    /// non-finite adjoint through inputs (each node an input of the one
+    /// before) down to `node`.
     pub fn chain(&self, node: usize) -> Vec<usize> {
         let mut chain = Vec::new();
         let mut cursor = node;
@@ -155,22 +174,54 @@ impl RootCauses {
                     chain.push(cursor);
                     cursor = consumer;
                 }
-                Cause::Origin(index) => {
+                Cause::Origin { index, via } => {
                     chain.push(cursor);
                     let origin = &self.origins[index];
-                    // A pull-back's origin enters the sweep through the node pulled back;
-                    // an overflowing sum is born at the branch point itself.
-                    if let Some((via, _)) = origin.edge
-                        && via != cursor
-                        && origin.class != OriginClass::SumOverflow
-                    {
+                    if via != cursor {
                         chain.push(via);
                     }
-                    if *chain.last().expect("pushed above") != origin.node {
-                        chain.push(origin.node);
+                    if origin.class == OriginClass::NonFiniteValue && origin.node != via {
+                        // The non-finite value travelled forward from its origin to `via`.
+                        let mut at = via;
+                        while let Some(&input) = self.forward_input.get(&at) {
+                            chain.push(input);
+                            at = input;
+                            if input == origin.node {
+                                break;
+                            }
+                        }
                     }
                     chain.reverse();
                     return chain;
+                }
+            }
+        }
+    }
+
+    /// How many of the chain's first hops run forward (from a non-finite
+    /// value to the consumer that carried it into the sweep); the rest run
+    /// along the adjoint. 0 when `node`'s adjoint is finite.
+    pub fn forward_hops(&self, node: usize) -> usize {
+        let mut cursor = node;
+        loop {
+            match self.causes[cursor] {
+                Cause::Finite => return 0,
+                Cause::From(consumer) => cursor = consumer,
+                Cause::Origin { index, via } => {
+                    let origin = &self.origins[index];
+                    if origin.class != OriginClass::NonFiniteValue || origin.node == via {
+                        return 0;
+                    }
+                    let mut hops = 0;
+                    let mut at = via;
+                    while let Some(&input) = self.forward_input.get(&at) {
+                        hops += 1;
+                        at = input;
+                        if input == origin.node {
+                            break;
+                        }
+                    }
+                    return hops;
                 }
             }
         }
@@ -218,16 +269,21 @@ fn element(value: &Value, index: usize) -> f64 {
     }
 }
 
+/// The first input of `node` whose forward value is not finite.
+fn first_non_finite_input(trace: &Trace, node: usize) -> Option<usize> {
+    trace
+        .node(node)
+        .inputs
+        .iter()
+        .copied()
+        .find(|&input| !trace.node(input).value.is_finite())
+}
+
 /// Follows non-finite forward values from `node` back to the first node whose
 /// inputs are all finite.
 fn forward_origin(trace: &Trace, node: usize) -> usize {
     let mut cursor = node;
-    while let Some(&input) = trace
-        .node(cursor)
-        .inputs
-        .iter()
-        .find(|&&input| !trace.node(input).value.is_finite())
-    {
+    while let Some(input) = first_non_finite_input(trace, cursor) {
         cursor = input;
     }
     cursor
@@ -281,13 +337,17 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
             node: output,
             step: 0,
             first_adjoint: output,
+            first_adjoint_step: 0,
             edge: None,
             operands: Vec::new(),
             result: bad,
             explanation,
             reached: Vec::new(),
         };
-        causes[output] = Cause::Origin(add_origin(origin, &mut origins));
+        causes[output] = Cause::Origin {
+            index: add_origin(origin, &mut origins),
+            via: output,
+        };
     }
     for entry in ledger.entries() {
         if causes[entry.input] != Cause::Finite
@@ -310,13 +370,15 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
             node: x,
             step: entry.step,
             first_adjoint: x,
+            first_adjoint_step: entry.step,
             edge: Some((u, slot)),
             operands: Vec::new(),
             result,
             explanation: String::new(),
             reached: Vec::new(),
         };
-        if entry.value.is_finite() {
+        let origin_is_sum = entry.value.is_finite();
+        if origin_is_sum {
             // Finite before, finite contribution, non-finite sum: overflow at a branch.
             let before = entry
                 .before
@@ -382,13 +444,19 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
                 };
             }
         }
+        origin.step = trace
+            .sweep_rank(origin.node)
+            .expect("an origin reaches the output");
         origin.explanation = explain::origin(trace, &origin);
-        causes[x] = Cause::Origin(add_origin(origin, &mut origins));
+        causes[x] = Cause::Origin {
+            index: add_origin(origin, &mut origins),
+            via: if origin_is_sum { x } else { u },
+        };
     }
     // A consumer's adjoint turns non-finite before it is pulled back, so one
     // pass in ledger order sees every cause before the causes that point at it.
     let mut origin_index = vec![None; causes.len()];
-    if let Cause::Origin(index) = causes[output] {
+    if let Cause::Origin { index, .. } = causes[output] {
         origin_index[output] = Some(index);
     }
     let mut nan_births = Vec::new();
@@ -425,16 +493,21 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
         if origin_index[x].is_none() {
             origin_index[x] = match causes[x] {
                 Cause::Finite => None,
-                Cause::Origin(index) => Some(index),
+                Cause::Origin { index, .. } => Some(index),
                 Cause::From(consumer) => origin_index[consumer],
             };
         }
     }
+    let forward_input = (0..trace.nodes().len())
+        .filter(|&node| !trace.node(node).value.is_finite())
+        .filter_map(|node| first_non_finite_input(trace, node).map(|input| (node, input)))
+        .collect();
     let mut causes = RootCauses {
         origins,
         causes,
         origin_index,
         nan_births,
+        forward_input,
     };
     for param in trace.params() {
         if let Some(index) = causes.origin_of(param) {

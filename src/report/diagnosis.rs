@@ -69,6 +69,10 @@ pub struct ChainEntry {
     pub length: usize,
     /// Nodes left out of `chain` in its middle.
     pub omitted: usize,
+    /// How many of the chain's first hops follow the non-finite forward value
+    /// (each node an input of the next) before the adjoint takes over (each
+    /// node an input of the one before).
+    pub forward: usize,
 }
 
 /// One origin.
@@ -84,10 +88,12 @@ pub struct OriginEntry {
     pub node: String,
     /// That node's op.
     pub op: String,
-    /// 1-based step at which the first non-finite adjoint appeared.
+    /// The origin node's own 1-based step.
     pub step: usize,
     /// The node whose adjoint became non-finite first.
     pub first_adjoint: String,
+    /// The 1-based step at which that adjoint became non-finite.
+    pub first_adjoint_step: usize,
     /// The node pulled back, for an edge.
     pub from: Option<String>,
     /// The edge's input slot.
@@ -319,7 +325,7 @@ fn finding_entry(trace: &Trace, finding: &Finding) -> FindingEntry {
 fn origin_entry(
     trace: &Trace,
     origin: &Origin,
-    chain_of: &dyn Fn(usize) -> Vec<usize>,
+    chain_of: &dyn Fn(usize) -> (Vec<usize>, usize),
 ) -> OriginEntry {
     let id = |node: usize| trace.node(node).id.clone();
     OriginEntry {
@@ -330,6 +336,7 @@ fn origin_entry(
         op: trace.node(origin.node).op_name.clone(),
         step: origin.step + 1,
         first_adjoint: id(origin.first_adjoint),
+        first_adjoint_step: origin.first_adjoint_step + 1,
         from: origin.edge.map(|(from, _)| id(from)),
         slot: origin.edge.map(|(_, slot)| slot),
         operands: origin.operands.iter().map(|&x| Num(x)).collect(),
@@ -339,13 +346,14 @@ fn origin_entry(
             .reached
             .iter()
             .map(|&param| {
-                let chain = chain_of(param);
+                let (chain, forward) = chain_of(param);
                 let (kept, omitted) = ends(&chain);
                 ChainEntry {
                     param: id(param),
                     chain: kept.into_iter().map(id).collect(),
                     length: chain.len(),
                     omitted,
+                    forward,
                 }
             })
             .collect(),
@@ -377,7 +385,7 @@ impl DiagnosisReport {
     /// The section for `diagnosis` of `trace`.
     pub fn new(trace: &Trace, diagnosis: &Diagnosis) -> DiagnosisReport {
         let id = |node: usize| trace.node(node).id.clone();
-        let chain_of = |node: usize| diagnosis.chain_to(node);
+        let chain_of = |node: usize| (diagnosis.chain_to(node), diagnosis.forward_hops(node));
         let origins: Vec<OriginEntry> = diagnosis
             .origins
             .iter()
@@ -440,7 +448,7 @@ impl DiagnosisReport {
                 origins: run
                     .origins
                     .iter()
-                    .map(|origin| origin_entry(trace, origin, &|_| Vec::new()))
+                    .map(|origin| origin_entry(trace, origin, &|_| (Vec::new(), 0)))
                     .collect(),
                 gradients: run
                     .gradients
@@ -813,15 +821,44 @@ fn hops_text(path: &PathEntry) -> String {
     parts.join(" → ")
 }
 
+/// A chain as `'a' ⇒ 'b' → 'c' → 'd'`: `⇒` where the non-finite forward
+/// value feeds a consumer, `→` where the adjoint flows to an input.
 fn chain_text(reached: &ChainEntry) -> String {
-    let mut parts: Vec<String> = reached.chain.iter().map(|id| format!("'{id}'")).collect();
-    if reached.omitted > 0 {
-        parts.insert(CHAIN_LIMIT / 2, format!("… {} nodes …", reached.omitted));
+    let mut out = String::new();
+    for (k, id) in reached.chain.iter().enumerate() {
+        if k > 0 {
+            // Position in the whole chain of the hop that ends at this node.
+            let hop = if reached.omitted > 0 && k >= CHAIN_LIMIT / 2 {
+                k + reached.omitted
+            } else {
+                k
+            };
+            out.push_str(if hop <= reached.forward {
+                " ⇒ "
+            } else {
+                " → "
+            });
+        }
+        if reached.omitted > 0 && k == CHAIN_LIMIT / 2 {
+            out.push_str(&format!("… {} nodes … → ", reached.omitted));
+        }
+        out.push_str(&format!("'{id}'"));
     }
     let hops = reached.length.saturating_sub(1);
+    let forward = if reached.forward > 0 {
+        format!(
+            "; the value feeds ⇒ for {}, then the adjoint flows →",
+            if reached.forward == 1 {
+                "1 hop".to_string()
+            } else {
+                format!("{} hops", reached.forward)
+            }
+        )
+    } else {
+        String::new()
+    };
     format!(
-        "{}  ({hops} {} to '{}')",
-        parts.join(" → "),
+        "{out}  ({hops} {} to '{}'{forward})",
         if hops == 1 { "hop" } else { "hops" },
         reached.param
     )
