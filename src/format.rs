@@ -27,6 +27,13 @@ pub fn compact(x: f64) -> String {
 /// 10^`log10` in [`compact`] form, or as `10^x` when beyond f64's range (a
 /// product of many gains can be).
 pub fn power_of_ten(log10: f64) -> String {
+    if log10 == f64::NEG_INFINITY {
+        // A product with a zero factor.
+        return "0".to_string();
+    }
+    if !log10.is_finite() {
+        return number(10f64.powf(log10));
+    }
     let value = 10f64.powf(log10);
     if value.is_finite() && value > 0.0 {
         compact(value)
@@ -57,5 +64,8 @@ mod tests {
         assert_eq!(shape(&[2, 3]), "[2, 3]");
         assert_eq!(power_of_ten(-1.0), "0.1");
         assert_eq!(power_of_ten(400.0), "10^400.0");
+        assert_eq!(power_of_ten(f64::NEG_INFINITY), "0");
+        assert_eq!(power_of_ten(f64::INFINITY), "inf");
+        assert_eq!(power_of_ten(f64::NAN), "NaN");
     }
 }

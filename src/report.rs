@@ -86,14 +86,31 @@ pub struct Gradient {
     pub shape: Vec<usize>,
     /// L2 norm.
     pub norm: Num,
-    /// Smallest finite entry.
+    /// Smallest entry that is not NaN (−inf included); NaN when every entry is NaN.
     pub min: Num,
-    /// Largest finite entry.
+    /// Largest entry that is not NaN (+inf included); NaN when every entry is NaN.
     pub max: Num,
     /// NaN and ±inf entries.
     pub non_finite: usize,
+    /// Smallest finite entry (NaN when none is finite).
+    pub finite_min: Num,
+    /// Largest finite entry (NaN when none is finite).
+    pub finite_max: Num,
+    /// NaN entries.
+    pub nan: usize,
+    /// +inf entries.
+    pub pos_inf: usize,
+    /// −inf entries.
+    pub neg_inf: usize,
     /// False when the parameter does not reach the output (no gradient).
     pub reaches_output: bool,
+}
+
+impl Gradient {
+    /// The non-finite entries in words: `0`, `20 NaN`, `1 +inf`, `3 (1 NaN, 2 -inf)`.
+    pub fn non_finite_text(&self) -> String {
+        crate::stats::non_finite_text(self.nan, self.pos_inf, self.neg_inf)
+    }
 }
 
 /// One flag.
@@ -149,6 +166,11 @@ impl Report {
                             min: Num(summary.min),
                             max: Num(summary.max),
                             non_finite: summary.non_finite(),
+                            finite_min: Num(summary.finite_min),
+                            finite_max: Num(summary.finite_max),
+                            nan: summary.nan,
+                            pos_inf: summary.pos_inf,
+                            neg_inf: summary.neg_inf,
                             reaches_output: true,
                         }
                     }
@@ -160,6 +182,11 @@ impl Report {
                         min: Num(0.0),
                         max: Num(0.0),
                         non_finite: 0,
+                        finite_min: Num(0.0),
+                        finite_max: Num(0.0),
+                        nan: 0,
+                        pos_inf: 0,
+                        neg_inf: 0,
                         reaches_output: false,
                     },
                 }
@@ -276,7 +303,7 @@ impl Report {
                     compact(g.norm.0),
                     compact(g.min.0),
                     compact(g.max.0),
-                    g.non_finite.to_string(),
+                    g.non_finite_text(),
                 ]
             })
             .collect();

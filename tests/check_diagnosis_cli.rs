@@ -220,3 +220,77 @@ fn help_names_every_setting() {
         assert!(help.contains(name), "--help lists {name}");
     }
 }
+
+fn write(dir: &Path, name: &str, file: &ebb::trace::TraceFile) -> PathBuf {
+    let path = dir.join(name);
+    std::fs::write(&path, to_text(file, Encoding::Ron)).unwrap();
+    path
+}
+
+// d√w/dw = 1/(2√w) is +inf at w = 0 (IEEE 754-2019 §7.3, division by zero):
+// a scalar gradient of +inf, whose min and max are +inf (infinities are
+// ordered, §5.10), not NaN.
+#[test]
+fn numbers_that_do_not_mislead() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut tape = Tape::new("sqrt at zero", Dtype::F64);
+    let w = tape.param("w", 0.0);
+    let y = tape.sqrt(w);
+    let path = write(dir.path(), "sqrt.ron", &tape.finish(y));
+    let output = ebb(&["check", path.to_str().unwrap()]);
+    let text = stdout(&output);
+    let row = text
+        .lines()
+        .find(|line| line.starts_with("  w "))
+        .unwrap_or_else(|| panic!("{text}"));
+    let cells: Vec<&str> = row.split_whitespace().collect();
+    assert_eq!(
+        cells,
+        ["w", "[]", "inf", "inf", "inf", "1", "+inf"],
+        "{text}"
+    );
+    // A non-finite number has no threshold worth printing.
+    let findings: Vec<&str> = text
+        .lines()
+        .skip_while(|line| !line.starts_with("findings"))
+        .skip(1)
+        .take_while(|line| line.starts_with("  step"))
+        .collect();
+    assert!(!findings.is_empty(), "{text}");
+    for line in findings.iter().filter(|line| line.contains("non_finite")) {
+        assert!(!line.contains("threshold"), "{line}");
+    }
+    let output = ebb(&["check", path.to_str().unwrap(), "--json"]);
+    let json: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap();
+    let gradient = &json["gradients"][0];
+    assert_eq!(gradient["min"], "inf");
+    assert_eq!(gradient["max"], "inf");
+    assert_eq!(gradient["finite_min"], "NaN");
+    assert_eq!(gradient["pos_inf"], 1);
+}
+
+// Speelpenning's product ∏ xᵢ (Griewank & Walther, "Evaluating Derivatives",
+// 2nd ed., SIAM 2008, ch. 3) at x = (0, 2, 3, 4): every path to x2, x3, x4
+// crosses a factor 0, so the product of gains is exactly 0.
+#[test]
+fn a_path_through_a_zero_factor_has_gain_zero_not_ten_to_minus_infinity() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut tape = Tape::new("Speelpenning", Dtype::F64);
+    let xs: Vec<_> = [0.0, 2.0, 3.0, 4.0]
+        .iter()
+        .enumerate()
+        .map(|(i, &x)| tape.param(&format!("x{}", i + 1), x))
+        .collect();
+    let mut product = xs[0];
+    for &x in &xs[1..] {
+        product = tape.mul(product, x);
+    }
+    let path = write(dir.path(), "speelpenning.ron", &tape.finish(product));
+    let text = stdout(&ebb(&["check", path.to_str().unwrap()]));
+    assert!(!text.contains("10^-inf"), "{text}");
+    assert!(
+        text.lines()
+            .any(|line| line.starts_with("  x4") && line.contains("gain 0 ")),
+        "{text}"
+    );
+}

@@ -132,3 +132,92 @@ fn underflow_in_f16_gets_loss_scale_advice() {
     assert!(scale.underflow_scaled < scale.underflow_unscaled);
     assert!(diagnosis.advice.iter().any(|a| a.topic == Topic::LossScale));
 }
+
+fn rules_at(diagnosis: &Diagnosis, node: usize) -> Vec<Rule> {
+    diagnosis.findings_at(node).map(|f| f.rule).collect()
+}
+
+// The healthy top of a vanishing tower is large only against a median that
+// vanishes itself: no "exploding" there, and one finding per node and rule.
+#[test]
+fn vanishing_has_no_exploding_top_and_one_finding_per_node_and_rule() {
+    let (trace, diagnosis) = load("vanishing.ron");
+    assert!(
+        !diagnosis.findings.iter().any(|f| f.rule == Rule::Exploding),
+        "{:?}",
+        diagnosis
+            .findings
+            .iter()
+            .filter(|f| f.rule == Rule::Exploding)
+            .map(|f| &trace.node(f.node).id)
+            .collect::<Vec<_>>()
+    );
+    let mut seen = std::collections::HashSet::new();
+    for finding in &diagnosis.findings {
+        assert!(
+            seen.insert((finding.rule, finding.node)),
+            "two {:?} findings at '{}'",
+            finding.rule,
+            trace.node(finding.node).id
+        );
+    }
+    let bottom = node(&trace, "layer01.b");
+    assert_eq!(rules_at(&diagnosis, bottom), vec![Rule::Vanishing]);
+    let finding = diagnosis.findings_at(bottom).next().unwrap();
+    let measures: Vec<(ebb::diagnose::Measure, bool)> = finding
+        .measures
+        .iter()
+        .map(|m| (m.measure, m.crossed))
+        .collect();
+    use ebb::diagnose::Measure;
+    assert_eq!(
+        measures,
+        vec![
+            (Measure::Norm, true),
+            (Measure::NormToSeed, true),
+            (Measure::NormToMedian, false)
+        ],
+        "every measure is carried; the median vanishes itself, so it does not count"
+    );
+}
+
+// Micikevicius et al. 2018, §3.2: loss scaling exists to keep small
+// gradients from rounding to zero; where none does, there is nothing to advise.
+#[test]
+fn a_clean_f16_trace_gets_no_loss_scale_advice() {
+    let mut tape = ebb::record::Tape::new("clean f16", Dtype::F16);
+    let w = tape.param("w", 0.5);
+    let x = tape.input("x", 3.0);
+    let y = tape.mul(w, x);
+    let trace = Trace::try_from(tape.finish(y)).unwrap();
+    let diagnosis = diagnose(&trace, &Settings::default());
+    assert_eq!(diagnosis.loss_scale.unwrap().underflow_unscaled, 0.0);
+    assert!(
+        !diagnosis.advice.iter().any(|a| a.topic == Topic::LossScale),
+        "{:?}",
+        diagnosis.advice
+    );
+}
+
+// The exploding river model's loss is about 1e6 in f32, beyond f16's largest
+// finite value 65504 (IEEE 754-2019 table 3.5): the forward value overflows
+// in f16 before any adjoint does.
+#[test]
+fn the_f16_overflow_advice_names_the_forward_value() {
+    let (trace, diagnosis) = load("exploding.ron");
+    let run = diagnosis.replay_in(Dtype::F16).unwrap();
+    let first = run.first_overflow().unwrap();
+    assert_eq!(trace.node(first.node).id, "loss");
+    assert_eq!(first.site, ebb::diagnose::Site::Value);
+    let advice = diagnosis
+        .advice
+        .iter()
+        .find(|a| a.topic == Topic::Overflow)
+        .expect("f16 overflow advice");
+    assert!(
+        advice.text.contains("the forward value of 'loss'"),
+        "{}",
+        advice.text
+    );
+    assert!(!advice.text.contains("adjoint"), "{}", advice.text);
+}

@@ -36,7 +36,7 @@ pub use groups::{GroupNorm, group_norms};
 pub use origin::{NanBirth, NanHow, Origin, OriginClass};
 pub use paths::{DominantPath, Hop, dominant_paths, edge_gains};
 pub use replay::{LostContribution, ReplayGradient, ReplayRun, replay};
-pub use rules::{Finding, Measure, Rule, Site};
+pub use rules::{Finding, Measure, Measurement, Rule, Site};
 pub use settings::{Settings, SettingsError};
 
 use crate::dtype::{Dtype, Subnormals};
@@ -61,7 +61,12 @@ fn analyse(sweep: &Sweep, reference: Option<&Sweep>, settings: &Settings) -> Swe
     });
     let causes = origin::trace_back(sweep);
     for finding in &mut findings {
-        if finding.rule == Rule::NonFinite && finding.site == Site::Adjoint {
+        if finding.rule == Rule::NonFinite
+            && finding
+                .measures
+                .iter()
+                .any(|measured| measured.site == Site::Adjoint)
+        {
             finding.class = causes
                 .origin_of(finding.node)
                 .map(|index| causes.origins[index].class);
@@ -81,21 +86,23 @@ fn analyse(sweep: &Sweep, reference: Option<&Sweep>, settings: &Settings) -> Swe
                 slot,
                 to: origin.first_adjoint,
             };
-            if !findings.iter().any(|finding| {
-                finding.rule == Rule::Overflow && finding.node == via && finding.site == site
-            }) {
-                findings.push(Finding {
-                    rule: Rule::Overflow,
-                    node: via,
-                    step: origin.step,
-                    site,
-                    measure: Measure::Element,
-                    value: origin.result,
-                    threshold: max,
-                    element: 0,
-                    count: 1,
-                    class: Some(OriginClass::ProductOverflow),
-                });
+            let mut finding = Finding::single(
+                Rule::Overflow,
+                via,
+                origin.step,
+                site,
+                Measure::Element,
+                (0, origin.result, 1),
+                max,
+            );
+            finding.class = Some(OriginClass::ProductOverflow);
+            match findings
+                .iter_mut()
+                .find(|f| f.rule == Rule::Overflow && f.node == via)
+            {
+                Some(existing) if existing.measures.iter().any(|m| m.site == site) => {}
+                Some(existing) => existing.measures.extend(finding.measures),
+                None => findings.push(finding),
             }
         }
         findings.sort_by_key(|finding| (finding.step, finding.rule));
@@ -416,30 +423,12 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
     let half = diagnosis.replay_in(Dtype::F16);
     if let (Some(scale), Some(run)) = (&diagnosis.loss_scale, half)
         && (run.first_underflow().is_some() || diagnosis.dtype == Dtype::F16)
+        && scale.underflow_unscaled > 0.0
     {
-        let head = format!(
-            "In f16, {:.1}% of the non-zero adjoint entries round to zero.",
-            100.0 * scale.underflow_unscaled
-        );
-        let text = if scale.underflow_scaled < scale.underflow_unscaled {
-            format!(
-                "{head} Scale the loss by S = 2^{} = {} (the largest power of two keeping max |adjoint| {} · S below 65504) and divide the gradients by S before the update: then {:.1}% round to zero.",
-                scale.exponent,
-                compact(scale.scale),
-                compact(scale.max_abs),
-                100.0 * scale.underflow_scaled
-            )
-        } else {
-            format!(
-                "{head} Loss scaling cannot rescue them: the largest adjoint {} leaves room for S = 2^{} only, and these entries are smaller than 2^-24 by more than that. Keep those adjoints in f32 or bf16.",
-                compact(scale.max_abs),
-                scale.exponent
-            )
-        };
         advice.push(Advice {
             topic: Topic::LossScale,
             node: run.first_underflow().map(|finding| finding.node),
-            text,
+            text: loss_scale_advice(scale),
         });
     }
     for run in &diagnosis.replays {
@@ -457,12 +446,7 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
             advice.push(Advice {
                 topic: Topic::Overflow,
                 node: Some(finding.node),
-                text: format!(
-                    "In {}, the sweep first overflows at '{}' (step {}). Keep that node's adjoint in range: a smaller loss scale, clipping, or bf16, which has f32's exponent range.",
-                    run.dtype,
-                    id(finding.node),
-                    finding.step + 1
-                ),
+                text: overflow_advice(trace, run.dtype, finding),
             });
         }
         if let Some(lost) = run.first_lost()
@@ -485,6 +469,56 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
         }
     }
     advice
+}
+
+/// Loss-scale advice for entries that round to zero in f16 (only asked for
+/// when some do): scale when the scale rescues them, else say why it cannot.
+fn loss_scale_advice(scale: &LossScale) -> String {
+    let head = format!(
+        "In f16, {:.1}% of the non-zero adjoint entries ({} of {}) round to zero.",
+        100.0 * scale.underflow_unscaled,
+        (scale.underflow_unscaled * scale.nonzero as f64).round(),
+        scale.nonzero
+    );
+    if scale.underflow_scaled < scale.underflow_unscaled {
+        format!(
+            "{head} Scale the loss by S = 2^{} = {} (the largest power of two keeping max |adjoint| {} · S below 65504) and divide the gradients by S before the update: then {:.1}% round to zero.",
+            scale.exponent,
+            compact(scale.scale),
+            compact(scale.max_abs),
+            100.0 * scale.underflow_scaled
+        )
+    } else {
+        format!(
+            "{head} Loss scaling cannot rescue them: the largest adjoint {} leaves room for S = 2^{} only, and these entries are smaller than 2^-24 by more than that. Keep those adjoints in f32 or bf16.",
+            compact(scale.max_abs),
+            scale.exponent
+        )
+    }
+}
+
+/// Advice for the first overflow of a narrower dtype, by where it happened:
+/// a forward value is out of that dtype's range before any adjoint is.
+fn overflow_advice(trace: &Trace, dtype: Dtype, finding: &Finding) -> String {
+    let id = &trace.node(finding.node).id;
+    let step = finding.step + 1;
+    let max = compact(dtype.limits().max_finite());
+    match finding.site {
+        Site::Value => format!(
+            "In {dtype}, the forward value of '{id}' (step {step}) overflows: {} is beyond {dtype}'s largest finite value {max}. Compute '{id}' in f32 (or bf16, which has f32's exponent range), or rescale what feeds it.",
+            compact(finding.value)
+        ),
+        Site::Partial { slot } => format!(
+            "In {dtype}, the partial of '{id}' on input {slot} (step {step}) overflows {dtype}'s largest finite value {max}. Keep its inputs in range, or compute it in f32 or bf16."
+        ),
+        Site::Contribution { to, .. } => format!(
+            "In {dtype}, the contribution '{id}' sends to '{}' (step {step}) overflows {dtype}'s largest finite value {max}. Keep that adjoint in range: a smaller loss scale, clipping, or bf16, which has f32's exponent range.",
+            trace.node(to).id
+        ),
+        Site::Adjoint | Site::Outgoing => format!(
+            "In {dtype}, the adjoint of '{id}' (step {step}) overflows {dtype}'s largest finite value {max}. Keep it in range: a smaller loss scale, clipping, or bf16, which has f32's exponent range."
+        ),
+    }
 }
 
 /// The advice for the first origin, by class and op.

@@ -1,7 +1,7 @@
 //! Precision replay: the same recorded step swept again in another dtype and
 //! compared, contribution by contribution, with a sweep in f64.
 
-use super::rules::{Finding, Measure, Rule, Site};
+use super::rules::{Finding, Rule};
 use super::settings::Settings;
 use super::{SweepAnalysis, analyse};
 use crate::dtype::{Dtype, Subnormals};
@@ -77,9 +77,12 @@ impl ReplayRun {
     /// Where this dtype first overflows where f64 does not: the first overflow,
     /// or the first non-finite number, whichever comes first.
     pub fn first_overflow(&self) -> Option<&Finding> {
+        // At one step, the overflow (which knows the finite value that did
+        // not fit) is preferred to the infinity it left.
         self.findings
             .iter()
-            .find(|finding| finding.rule == Rule::Overflow || finding.rule == Rule::NonFinite)
+            .filter(|finding| finding.rule == Rule::Overflow || finding.rule == Rule::NonFinite)
+            .min_by_key(|finding| (finding.step, finding.rule != Rule::Overflow))
     }
 
     /// Where this dtype first underflows where f64 does not.
@@ -100,9 +103,10 @@ impl ReplayRun {
     }
 }
 
-/// What makes two findings the same for the comparison with the reference.
-fn key(finding: &Finding) -> (Rule, usize, Site, Measure) {
-    (finding.rule, finding.node, finding.site, finding.measure)
+/// What makes two findings the same for the comparison with the reference:
+/// one finding per rule and node.
+fn key(finding: &Finding) -> (Rule, usize) {
+    (finding.rule, finding.node)
 }
 
 /// Sweeps `trace` re-typed into `dtype` and compares it with the f64

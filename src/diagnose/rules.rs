@@ -102,7 +102,31 @@ pub enum Measure {
     Gain,
 }
 
-/// One flag raised by a rule.
+/// One number a rule measured at a node: where, what, against which threshold.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Measurement {
+    /// Where.
+    pub site: Site,
+    /// What was measured.
+    pub measure: Measure,
+    /// The number.
+    pub value: f64,
+    /// The threshold it is compared with (for a non-finite number, the
+    /// dtype's largest finite value, for reference only).
+    pub threshold: f64,
+    /// Flat index of the first offending element.
+    pub element: usize,
+    /// Offending elements.
+    pub count: usize,
+    /// Whether it crossed its threshold. A gradient-norm finding carries all
+    /// three measures (norm, over the seed's norm, over the median), crossed or not.
+    pub crossed: bool,
+}
+
+/// One rule's finding at one node: the first measurement that crossed its
+/// threshold (in `site` … `count`) and every measurement of that rule at that
+/// node (in `measures`, the first one included). There is at most one
+/// finding per node and rule.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Finding {
     /// The rule.
@@ -125,9 +149,52 @@ pub struct Finding {
     pub count: usize,
     /// For a non-finite adjoint, the class of its root cause.
     pub class: Option<OriginClass>,
+    /// Every measurement of this rule at this node, in the order made; the
+    /// first crossed one is the finding's own.
+    pub measures: Vec<Measurement>,
 }
 
 impl Finding {
+    /// A finding made of one measurement.
+    #[allow(clippy::too_many_arguments)]
+    pub fn single(
+        rule: Rule,
+        node: usize,
+        step: usize,
+        site: Site,
+        measure: Measure,
+        (element, value, count): (usize, f64, usize),
+        threshold: f64,
+    ) -> Finding {
+        Finding {
+            rule,
+            node,
+            step,
+            site,
+            measure,
+            value,
+            threshold,
+            element,
+            count,
+            class: None,
+            measures: vec![Measurement {
+                site,
+                measure,
+                value,
+                threshold,
+                element,
+                count,
+                crossed: true,
+            }],
+        }
+    }
+
+    /// Whether the threshold means anything for this finding: not for a
+    /// non-finite number, whatever the rule that saw it.
+    pub fn has_threshold(&self) -> bool {
+        self.rule != Rule::NonFinite && self.value.is_finite()
+    }
+
     /// One line for a flags pane: what was found where, against which
     /// threshold, in `dtype` (the dtype of the sweep that raised it).
     pub fn describe(&self, trace: &crate::trace::Trace, dtype: Dtype) -> String {
@@ -209,16 +276,29 @@ fn first_where(data: &[f64], bad: impl Fn(usize, f64) -> bool) -> Option<(usize,
     first.map(|(index, x)| (index, x, count))
 }
 
-/// Collects findings for one sweep.
-struct Collector<'a> {
-    settings: &'a Settings,
-    dtype: Dtype,
-    findings: Vec<Finding>,
+/// Collects findings for one sweep, one per node and rule.
+pub(super) struct Collector<'a> {
+    pub settings: &'a Settings,
+    pub dtype: Dtype,
+    pub findings: Vec<Finding>,
+    /// Where the finding of each (rule, node) is in `findings`.
+    at: std::collections::HashMap<(Rule, usize), usize>,
 }
 
-impl Collector<'_> {
+impl<'a> Collector<'a> {
+    pub fn new(settings: &'a Settings, dtype: Dtype) -> Collector<'a> {
+        Collector {
+            settings,
+            dtype,
+            findings: Vec::new(),
+            at: std::collections::HashMap::new(),
+        }
+    }
+
+    /// Records a crossed measurement: a new finding, or one more measure of
+    /// the finding this rule already has at this node.
     #[allow(clippy::too_many_arguments)]
-    fn push(
+    pub fn push(
         &mut self,
         rule: Rule,
         node: usize,
@@ -228,21 +308,33 @@ impl Collector<'_> {
         hit: (usize, f64, usize),
         threshold: f64,
     ) {
-        if self.settings.is_on(rule) {
-            let (element, value, count) = hit;
-            self.findings.push(Finding {
-                rule,
-                node,
-                step,
-                site,
-                measure,
-                value,
-                threshold,
-                element,
-                count,
-                class: None,
-            });
+        if !self.settings.is_on(rule) {
+            return;
         }
+        let finding = Finding::single(rule, node, step, site, measure, hit, threshold);
+        self.add(finding);
+    }
+
+    /// Adds a finding, merging it into the one this rule already has at its node.
+    pub fn add(&mut self, finding: Finding) {
+        if !self.settings.is_on(finding.rule) {
+            return;
+        }
+        match self.at.get(&(finding.rule, finding.node)) {
+            Some(&index) => self.findings[index].measures.extend(finding.measures),
+            None => {
+                self.at
+                    .insert((finding.rule, finding.node), self.findings.len());
+                self.findings.push(finding);
+            }
+        }
+    }
+
+    /// The findings, sorted by step then rule.
+    pub fn finish(mut self) -> Vec<Finding> {
+        self.findings
+            .sort_by_key(|finding| (finding.step, finding.rule));
+        self.findings
     }
 
     /// Magnitude rules for a value: overflow beyond the largest finite value,
@@ -350,11 +442,7 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
         .reference
         .and_then(|reference| reference.ledger())
         .filter(|other| other.len() == ledger.len());
-    let mut collector = Collector {
-        settings: input.settings,
-        dtype: trace.dtype(),
-        findings: Vec::new(),
-    };
+    let mut collector = Collector::new(input.settings, trace.dtype());
     let max = trace.dtype().limits().max_finite();
     // The sweep raises flags in step order, so one cursor walks them alongside the steps.
     let mut partial_flags = sweep
@@ -484,10 +572,7 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
         gain(&mut collector, node, step, adjoint_norms[node], &outgoing);
     }
     gradient_norms(&mut collector, sweep);
-    collector
-        .findings
-        .sort_by_key(|finding| (finding.step, finding.rule));
-    collector.findings
+    collector.finish()
 }
 
 /// The gain rule: outgoing contributions' norm over the adjoint's norm.
@@ -520,8 +605,13 @@ fn gain(collector: &mut Collector, node: usize, step: usize, adjoint_norm: f64, 
     }
 }
 
-/// The vanishing and exploding rules on parameter gradients: absolute, relative
-/// to the seed and relative to the median parameter gradient norm.
+/// The vanishing and exploding rules on parameter gradients: one finding
+/// per parameter carrying all three measures — the norm, the norm over the
+/// seed's norm and over the median parameter gradient norm — each marked
+/// crossed or not. A measure that contradicts an earlier one (absolute, then
+/// seed, then median) does not count, and the median does not count when it
+/// is itself vanishing or exploding: in a network whose lower layers vanish,
+/// the healthy top looks huge against them, which is no explosion.
 fn gradient_norms(collector: &mut Collector, sweep: &Sweep) {
     let trace = sweep.trace();
     let norms: Vec<(usize, f64)> = trace
@@ -536,58 +626,105 @@ fn gradient_norms(collector: &mut Collector, sweep: &Sweep) {
     let median = median(norms.iter().map(|&(_, norm)| norm).collect());
     let seed = trace.seed().l2_norm();
     let settings = collector.settings;
+    let direction = |value: f64, below: f64, above: f64| {
+        if !value.is_finite() {
+            None
+        } else if value < below {
+            Some(Rule::Vanishing)
+        } else if value > above {
+            Some(Rule::Exploding)
+        } else {
+            None
+        }
+    };
+    // The median's own verdict, by the absolute and the seed thresholds.
+    let median_is = direction(median, settings.vanishing_below, settings.exploding_above).or((seed
+        > 0.0)
+        .then(|| {
+            direction(
+                median / seed,
+                settings.vanishing_vs_seed,
+                settings.exploding_vs_seed,
+            )
+        })
+        .flatten());
     for &(param, norm) in &norms {
         let step = trace
             .sweep_rank(param)
             .expect("a param with an adjoint is swept");
-        let mut check = |measure: Measure, value: f64, below: f64, above: f64| {
-            if !value.is_finite() {
-                return;
-            }
-            if value < below {
-                collector.push(
-                    Rule::Vanishing,
-                    param,
-                    step,
-                    Site::Adjoint,
-                    measure,
-                    (0, value, 1),
-                    below,
-                );
-            } else if value > above {
-                collector.push(
-                    Rule::Exploding,
-                    param,
-                    step,
-                    Site::Adjoint,
-                    measure,
-                    (0, value, 1),
-                    above,
-                );
-            }
-        };
-        check(
+        let mut measures: Vec<(Measure, f64, f64, f64)> = vec![(
             Measure::Norm,
             norm,
             settings.vanishing_below,
             settings.exploding_above,
-        );
+        )];
         if seed > 0.0 {
-            check(
+            measures.push((
                 Measure::NormToSeed,
                 norm / seed,
                 settings.vanishing_vs_seed,
                 settings.exploding_vs_seed,
-            );
+            ));
         }
         if norms.len() > 1 && median > 0.0 {
-            check(
+            measures.push((
                 Measure::NormToMedian,
                 norm / median,
                 settings.vanishing_vs_median,
                 settings.exploding_vs_median,
-            );
+            ));
         }
+        let mut rule = None;
+        let mut readings = Vec::new();
+        for (measure, value, below, above) in measures {
+            let mut crossed = direction(value, below, above);
+            if measure == Measure::NormToMedian && median_is.is_some() {
+                crossed = None;
+            }
+            if let (Some(first), Some(this)) = (rule, crossed)
+                && first != this
+            {
+                crossed = None;
+            }
+            rule = rule.or(crossed);
+            readings.push((measure, value, below, above, crossed.is_some()));
+        }
+        let Some(rule) = rule else { continue };
+        // Every measure is shown against the threshold of the finding's direction.
+        let measures: Vec<Measurement> = readings
+            .into_iter()
+            .map(|(measure, value, below, above, crossed)| Measurement {
+                site: Site::Adjoint,
+                measure,
+                value,
+                threshold: if rule == Rule::Exploding {
+                    above
+                } else {
+                    below
+                },
+                element: 0,
+                count: 1,
+                crossed,
+            })
+            .collect();
+        let own = measures
+            .iter()
+            .find(|m| m.crossed)
+            .copied()
+            .expect("a crossed measure decided the rule");
+        collector.add(Finding {
+            rule,
+            node: param,
+            step,
+            site: Site::Adjoint,
+            measure: own.measure,
+            value: own.value,
+            threshold: own.threshold,
+            element: 0,
+            count: 1,
+            class: None,
+            measures,
+        });
     }
 }
 

@@ -150,6 +150,32 @@ pub struct FindingEntry {
     pub count: usize,
     /// Root-cause class letter, for a non-finite adjoint.
     pub class: Option<&'static str>,
+    /// Every measurement of this rule at this node (the finding's own first):
+    /// there is one finding per node and rule.
+    pub measures: Vec<MeasurementEntry>,
+}
+
+/// One measurement of a finding.
+#[derive(Debug, Clone, Serialize)]
+pub struct MeasurementEntry {
+    /// `value`, `partial`, `contribution`, `adjoint` or `outgoing`.
+    pub site: &'static str,
+    /// Input slot, for a partial or contribution.
+    pub slot: Option<usize>,
+    /// Receiving node, for a contribution.
+    pub to: Option<String>,
+    /// What was measured.
+    pub measure: Measure,
+    /// The number.
+    pub value: Num,
+    /// The threshold.
+    pub threshold: Num,
+    /// First offending element.
+    pub element: usize,
+    /// Offending elements.
+    pub count: usize,
+    /// Whether it crossed the threshold.
+    pub crossed: bool,
 }
 
 /// One hop of a dominant path.
@@ -319,6 +345,24 @@ fn finding_entry(trace: &Trace, finding: &Finding) -> FindingEntry {
         element: finding.element,
         count: finding.count,
         class: finding.class.map(|class| class.letter()),
+        measures: finding
+            .measures
+            .iter()
+            .map(|measured| {
+                let (site, slot, to) = site_name(measured.site);
+                MeasurementEntry {
+                    site,
+                    slot,
+                    to: to.map(|to| trace.node(to).id.clone()),
+                    measure: measured.measure,
+                    value: Num(measured.value),
+                    threshold: Num(measured.threshold),
+                    element: measured.element,
+                    count: measured.count,
+                    crossed: measured.crossed,
+                }
+            })
+            .collect(),
     }
 }
 
@@ -630,28 +674,21 @@ impl DiagnosisReport {
         const SHOWN: usize = 40;
         let mut out = format!("findings {} in sweep order\n", self.findings.len());
         for finding in self.findings.iter().take(SHOWN) {
-            let place = match (&finding.to, finding.slot) {
-                (Some(to), Some(slot)) => format!("{} to '{to}' (input {slot})", finding.site),
-                (None, Some(slot)) => format!("{} on input {slot}", finding.site),
-                _ => finding.site.to_string(),
-            };
             let class = finding
                 .class
                 .map_or(String::new(), |letter| format!("  origin ({letter})"));
-            let many = if finding.count > 1 {
-                format!(" ({} elements)", finding.count)
-            } else {
-                String::new()
-            };
+            let measures: Vec<String> = finding
+                .measures
+                .iter()
+                .map(|measured| measurement_text(finding.rule, measured))
+                .collect();
             let _ = writeln!(
                 out,
-                "  step {:<5} {:<12} {:<13} {place}: {} {} (threshold {}){many}{class}",
+                "  step {:<5} {:<12} {:<13} {}{class}",
                 finding.step,
                 format!("'{}'", finding.node),
                 finding.rule_name(),
-                measure_name(finding.measure),
-                compact(finding.value.0),
-                compact(finding.threshold.0)
+                measures.join("; ")
             );
         }
         if self.findings.len() > SHOWN {
@@ -763,6 +800,34 @@ impl FindingEntry {
     fn rule_name(&self) -> &'static str {
         self.rule.name()
     }
+}
+
+/// One measurement as `site: measure value (threshold t)`, without the
+/// threshold for non-finite numbers and marked when it did not cross.
+fn measurement_text(rule: Rule, measured: &MeasurementEntry) -> String {
+    let place = match (&measured.to, measured.slot) {
+        (Some(to), Some(slot)) => format!("{} to '{to}' (input {slot})", measured.site),
+        (None, Some(slot)) => format!("{} on input {slot}", measured.site),
+        _ => measured.site.to_string(),
+    };
+    let many = if measured.count > 1 {
+        format!(" ({} elements)", measured.count)
+    } else {
+        String::new()
+    };
+    let value = compact(measured.value.0);
+    if rule == Rule::NonFinite || !measured.value.0.is_finite() {
+        return format!("{place}: {} {value}{many}", measure_name(measured.measure));
+    }
+    let against = if measured.crossed {
+        format!("threshold {}", compact(measured.threshold.0))
+    } else {
+        format!("threshold {}: not crossed", compact(measured.threshold.0))
+    };
+    format!(
+        "{place}: {} {value} ({against}){many}",
+        measure_name(measured.measure)
+    )
 }
 
 fn measure_name(measure: Measure) -> &'static str {

@@ -179,17 +179,16 @@ mod tests {
     #[test]
     fn finding_symbols_differ_from_each_other_and_from_flags() {
         use crate::diagnose::Site;
-        let finding = |rule, value| Finding {
-            rule,
-            node: 0,
-            step: 0,
-            site: Site::Outgoing,
-            measure: Measure::Gain,
-            value,
-            threshold: 100.0,
-            element: 0,
-            count: 1,
-            class: None,
+        let finding = |rule, value| {
+            Finding::single(
+                rule,
+                0,
+                0,
+                Site::Outgoing,
+                Measure::Gain,
+                (0, value, 1),
+                100.0,
+            )
         };
         let mut findings: Vec<Finding> = Rule::ALL.iter().map(|&rule| finding(rule, 1e3)).collect();
         findings.push(finding(Rule::Gain, 1e-3));
