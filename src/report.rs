@@ -4,12 +4,14 @@
 //! JSON fields (stable; documented in README): `report` (schema version, 1),
 //! `trace` {`path`, `title`, `dtype`}, `counts` {`nodes`, `edges`, `groups`,
 //! `params`, `swept`, `unreached`}, `gradients` [{`id`, `group`, `shape`,
-//! `norm`, `min`, `max`, `non_finite`, `reaches_output`}], `flags` [{`step`,
-//! `node`, `op`, `kind`, `value`, `element`, `count`, `slot`, `from`,
-//! `first`, `class`}], `clean`, `diagnosis` (see [`diagnosis`]). Non-finite
-//! numbers are the strings "NaN", "inf", "-inf". `class` (the root-cause
-//! letter of a non-finite adjoint) and `diagnosis` were added to schema 1
-//! without changing any earlier field; both are absent when no diagnosis ran.
+//! `norm`, `min`, `max`, `non_finite`, `reaches_output`, `finite_min`,
+//! `finite_max`, `nan`, `pos_inf`, `neg_inf`}], `flags` [{`step`, `node`,
+//! `op`, `kind`, `value`, `element`, `count`, `slot`, `from`, `first`,
+//! `origin`, `class`}], `clean`, `diagnosis` (see [`diagnosis`]). Non-finite
+//! numbers are the strings "NaN", "inf", "-inf". Fields after the first
+//! version (`class`, `origin`, `diagnosis`, the gradients' finite and
+//! non-finite counts) were added to schema 1 without changing any earlier
+//! field; `class`, `origin` and `diagnosis` are absent when no diagnosis ran.
 
 pub mod diagnosis;
 
