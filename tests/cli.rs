@@ -68,13 +68,13 @@ fn check_flags_a_log_of_zero_and_exits_one() {
     let output = ebb(&["check", path.to_str().unwrap()]);
     assert_eq!(output.status.code(), Some(1), "{}", stderr(&output));
     let text = stdout(&output);
-    let first = text
+    let marked = text
         .lines()
         .find(|line| line.contains(" * "))
-        .expect("the first flag is marked");
+        .expect("the origin's flag is marked");
     assert!(
-        first.contains("'loss'") && first.contains("forward value is -inf"),
-        "{text}"
+        marked.contains("'logp'") && marked.contains("forward value is -inf"),
+        "the origin, not the first symptom at 'loss': {text}"
     );
     assert!(text.contains("'logp'") && text.contains("(log)"), "{text}");
     assert_eq!(
