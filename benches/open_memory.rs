@@ -40,7 +40,7 @@ fn main() {
     }
     let dir = tempfile::tempdir().expect("a temporary directory");
     let path = fixtures::wide_tape(dir.path(), 10_000, 5_000);
-    let sidecar = std::fs::metadata(ebb::trace::binary::sidecar_path(&path))
+    let sidecar = std::fs::metadata(ebb::trace::sidecar::sidecar_path(&path))
         .expect("the sidecar")
         .len();
     let output = Command::new(std::env::current_exe().expect("this binary"))

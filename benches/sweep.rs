@@ -34,6 +34,7 @@ fn generated(nodes: usize) -> TraceFile {
     };
     let node = |id: String, op: &str, inputs: Vec<NodeId>| NodeFile {
         id: NodeId(id),
+        dtype: None,
         op: op.into(),
         inputs,
         group: String::new(),
@@ -58,6 +59,8 @@ fn generated(nodes: usize) -> TraceFile {
     }
     TraceFile {
         format: 1,
+        accumulate: None,
+        sidecar: None,
         title: format!("generated {nodes}"),
         description: String::new(),
         dtype: Dtype::F64,

@@ -108,6 +108,24 @@ impl Dtype {
         }
     }
 
+    /// The dtype a binary op on values of `self` and `other` computes in:
+    /// the wider of the two, and f32 for f16 with bf16 (neither holds the
+    /// other); the floating-point rule of NumPy's and PyTorch's type
+    /// promotion (common practice).
+    pub fn promote(self, other: Dtype) -> Dtype {
+        match (self, other) {
+            (a, b) if a == b => a,
+            (Dtype::F16, Dtype::Bf16) | (Dtype::Bf16, Dtype::F16) => Dtype::F32,
+            (a, b) => {
+                if a.limits().precision >= b.limits().precision {
+                    a
+                } else {
+                    b
+                }
+            }
+        }
+    }
+
     /// Bytes per element.
     pub fn width(self) -> usize {
         match self {

@@ -63,7 +63,7 @@ fn readme_example_runs() -> Result<(), Box<dyn Error>> {
     let loss = tape.scoped("loss", |tape| tape.mse(prediction, litres));
     let file = tape.finish(loss);
 
-    // Save in any form: .ron, .json, or .tape (binary-backed: header + .bin sidecar).
+    // Save in any form: .ron, .json, or .tape (RON header + .safetensors sidecar).
     let path = std::env::temp_dir().join(format!("watering-{}.tape", std::process::id()));
     trace::save(&file, &path)?;
 
@@ -82,7 +82,7 @@ fn readme_example_runs() -> Result<(), Box<dyn Error>> {
     assert!(sweep.flags().is_empty());
     // README:end
     std::fs::remove_file(&path)?;
-    std::fs::remove_file(trace::binary::sidecar_path(&path))?;
+    std::fs::remove_file(trace::sidecar::sidecar_path(&path))?;
     Ok(())
 }
 

@@ -34,6 +34,8 @@ pub fn wide_tape(dir: &Path, nodes: usize, elements: usize) -> PathBuf {
     };
     let mut file = TraceFile {
         format: FORMAT_VERSION,
+        accumulate: None,
+        sidecar: None,
         title: "wide tensors".into(),
         description: String::new(),
         dtype: Dtype::F32,
@@ -44,6 +46,7 @@ pub fn wide_tape(dir: &Path, nodes: usize, elements: usize) -> PathBuf {
     for k in 0..nodes {
         file.nodes.push(NodeFile {
             id: NodeId(format!("n{k}")),
+            dtype: None,
             op: if k == 0 { "param" } else { "neg" }.into(),
             inputs: if k == 0 {
                 vec![]

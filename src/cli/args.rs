@@ -102,12 +102,12 @@ pub enum Command {
         #[arg(long, value_name = "NODE[:K]")]
         direction: Option<String>,
     },
-    /// Rewrite a trace in another form: .ron, .json, or .tape (binary-backed:
-    /// a RON header plus a .bin sidecar), chosen by OUT's extension.
+    /// Rewrite a trace in another form: .ron, .json, or .tape (a RON header
+    /// with its tensors in a .safetensors sidecar), chosen by OUT's extension.
     ///
     /// Never writes over its input; writes a temporary file and renames it.
     #[command(
-        after_help = "Examples:\n  ebb convert run.json run.tape    binary-backed: run.tape + run.bin\n  ebb convert run.tape run.ron     back to text"
+        after_help = "Examples:\n  ebb convert run.json run.tape    run.tape + run.safetensors\n  ebb convert run.tape run.ron     back to text"
     )]
     Convert {
         /// The trace to read (.ron, .json or .tape).

@@ -27,7 +27,7 @@ fn name(format: Option<Format>) -> &'static str {
     match format {
         Some(Format::Ron) => "RON",
         Some(Format::Json) => "JSON",
-        Some(Format::Tape) => "binary-backed",
+        Some(Format::Tape) => "with a safetensors sidecar",
         None => "text",
     }
 }
@@ -53,7 +53,7 @@ fn remove_temporaries_on_signals() -> Result<()> {
 pub fn convert(input: &Path, output: &Path, out: &mut dyn Write) -> Result<Outcome> {
     let Some(target) = Format::from_path(output) else {
         bail!(
-            "{}: unknown trace extension (hint: use .ron, .json, or .tape for a binary-backed trace)",
+            "{}: unknown trace extension (hint: use .ron, .json, or .tape for a trace with a safetensors sidecar)",
             output.display()
         );
     };

@@ -1,7 +1,7 @@
 //! The progress bar of headless commands: drawn on stderr with indicatif for
 //! traces over a few MB, and only when stderr is a terminal.
 
-use ebb::trace::{Format, Progress, Silent, binary};
+use ebb::trace::{Format, Progress, Silent, sidecar};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use std::io::IsTerminal;
 use std::path::Path;
@@ -48,10 +48,10 @@ impl Progress for Bar {
     }
 }
 
-/// Bytes on disk of the trace at `path` (header and sidecar for a binary-backed one).
+/// Bytes on disk of the trace at `path` (header and sidecar for a `.tape` trace).
 fn size_on_disk(path: &Path) -> u64 {
     let files = match Format::from_path(path) {
-        Some(Format::Tape) => vec![path.to_path_buf(), binary::sidecar_path(path)],
+        Some(Format::Tape) => vec![path.to_path_buf(), sidecar::sidecar_path(path)],
         _ => vec![path.to_path_buf()],
     };
     files

@@ -3,6 +3,7 @@
 //! written; the sweep engine, the recorder and the checks all call through it.
 
 mod attrs;
+mod cast;
 mod elementwise;
 pub mod kernels;
 mod linalg;
@@ -44,6 +45,7 @@ pub enum Op {
     Matmul,
     Transpose,
     Reshape,
+    Cast,
     Sum,
     Mean,
     Max,
@@ -290,6 +292,15 @@ pub static CATALOG: &[OpSpec] = &[
         &linalg::RESHAPE,
     )
     .says("the input receives the adjoint in its own shape"),
+    structured(
+        Op::Cast,
+        "cast",
+        1,
+        &[],
+        "the value converted into the node's dtype",
+        &cast::CAST,
+    )
+    .says("the input receives the adjoint unchanged, rounded into the input's dtype"),
     structured(
         Op::Sum,
         "sum",

@@ -270,6 +270,7 @@ mod tests {
             tape.logsumexp_axis(m, 1, false),
             tape.cross_entropy(m, &[2, 0]),
             tape.mse(m, m),
+            tape.cast(m, crate::dtype::Dtype::F32),
         ];
         let file = tape.finish(recorded[0]);
         let mut names: Vec<&str> = file.nodes.iter().map(|node| node.op.as_str()).collect();

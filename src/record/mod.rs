@@ -9,7 +9,7 @@
 mod methods;
 
 use crate::dtype::Dtype;
-use crate::ops::{self, Attrs, Op};
+use crate::ops::{self, Attrs, Op, Precision};
 use crate::tensor::Value;
 use crate::trace::{FORMAT_VERSION, NodeFile, NodeId, PartialRepr, TraceFile, ValueRepr};
 use std::panic::Location;
@@ -50,8 +50,11 @@ pub struct Tape {
     title: String,
     description: String,
     dtype: Dtype,
+    accumulate: Option<Dtype>,
     nodes: Vec<NodeFile>,
     values: Vec<Value>,
+    /// Each recorded node's dtype.
+    dtypes: Vec<Dtype>,
     scopes: Vec<String>,
 }
 
@@ -77,10 +80,32 @@ impl Tape {
             title: title.to_string(),
             description: String::new(),
             dtype,
+            accumulate: None,
             nodes: Vec::new(),
             values: Vec::new(),
+            dtypes: Vec::new(),
             scopes: Vec::new(),
         }
+    }
+
+    /// Sets the dtype sums accumulate in (the trace's `accumulate`); by
+    /// default the tape's dtype's default ([`Dtype::default_accumulate`]).
+    pub fn accumulate_in(&mut self, accumulate: Dtype) {
+        self.accumulate = Some(accumulate);
+    }
+
+    /// The precision an op whose result has `dtype` computes in.
+    fn precision(&self, dtype: Dtype) -> Precision {
+        Precision::new(
+            dtype,
+            self.accumulate
+                .unwrap_or_else(|| self.dtype.default_accumulate()),
+        )
+    }
+
+    /// The dtype `var` was recorded in.
+    pub fn dtype_of(&self, var: Var) -> Dtype {
+        self.dtypes[var.0]
     }
 
     /// Sets the trace's description.
@@ -88,7 +113,7 @@ impl Tape {
         self.description = description.to_string();
     }
 
-    /// The dtype values are rounded into.
+    /// The trace's default dtype: leaves are recorded in it unless told otherwise.
     pub fn dtype(&self) -> Dtype {
         self.dtype
     }
@@ -146,21 +171,26 @@ impl Tape {
         self.nodes.is_empty()
     }
 
+    #[allow(clippy::too_many_arguments)]
     fn push(
         &mut self,
         id: Option<&str>,
         op: &str,
         inputs: &[Var],
         value: Value,
+        dtype: Dtype,
         extras: Extras,
         location: &Location,
     ) -> Var {
         let Extras { attrs, partials } = extras;
         let index = self.nodes.len();
         let id = id.map_or_else(|| format!("{op}_{index}"), str::to_string);
+        let value = value.stored_as(dtype);
+        self.dtypes.push(dtype);
         self.nodes.push(NodeFile {
             id: NodeId(id),
             op: op.to_string(),
+            dtype: (dtype != self.dtype).then_some(dtype),
             inputs: inputs
                 .iter()
                 .map(|input| self.nodes[input.0].id.clone())
@@ -176,13 +206,49 @@ impl Tape {
         Var(index)
     }
 
-    fn leaf(&mut self, op: Op, name: &str, value: Value, location: &Location) -> Var {
-        let value = value.map(|x| self.dtype.round(x));
+    fn leaf(&mut self, op: Op, name: &str, value: Value, dtype: Dtype, location: &Location) -> Var {
+        let value = value.map(|x| dtype.round(x));
         self.push(
             Some(name),
             op.name(),
             &[],
             value,
+            dtype,
+            Extras::default(),
+            location,
+        )
+    }
+
+    /// Records data fed to the step, stored in `dtype` rather than the tape's.
+    #[track_caller]
+    pub fn input_in(&mut self, name: &str, value: impl Into<Value>, dtype: Dtype) -> Var {
+        self.leaf(Op::Input, name, value.into(), dtype, Location::caller())
+    }
+
+    /// Records a trainable parameter stored in `dtype` rather than the tape's
+    /// (f32 master weights in a half-precision step, say).
+    #[track_caller]
+    pub fn param_in(&mut self, name: &str, value: impl Into<Value>, dtype: Dtype) -> Var {
+        self.leaf(Op::Param, name, value.into(), dtype, Location::caller())
+    }
+
+    /// Records a conversion of `x` into `dtype` (its value rounded once; its
+    /// derivative the identity, each contribution rounded into `x`'s dtype).
+    #[track_caller]
+    pub fn cast(&mut self, x: Var, dtype: Dtype) -> Var {
+        let location = Location::caller();
+        let value = ops::forward(
+            Op::Cast,
+            &[&self.values[x.0]],
+            &Attrs::default(),
+            self.precision(dtype),
+        );
+        self.push(
+            None,
+            Op::Cast.name(),
+            &[x],
+            value,
+            dtype,
             Extras::default(),
             location,
         )
@@ -191,19 +257,37 @@ impl Tape {
     /// Records data fed to the step.
     #[track_caller]
     pub fn input(&mut self, name: &str, value: impl Into<Value>) -> Var {
-        self.leaf(Op::Input, name, value.into(), Location::caller())
+        self.leaf(
+            Op::Input,
+            name,
+            value.into(),
+            self.dtype,
+            Location::caller(),
+        )
     }
 
     /// Records a trainable parameter.
     #[track_caller]
     pub fn param(&mut self, name: &str, value: impl Into<Value>) -> Var {
-        self.leaf(Op::Param, name, value.into(), Location::caller())
+        self.leaf(
+            Op::Param,
+            name,
+            value.into(),
+            self.dtype,
+            Location::caller(),
+        )
     }
 
     /// Records a constant.
     #[track_caller]
     pub fn constant(&mut self, name: &str, value: impl Into<Value>) -> Var {
-        self.leaf(Op::Const, name, value.into(), Location::caller())
+        self.leaf(
+            Op::Const,
+            name,
+            value.into(),
+            self.dtype,
+            Location::caller(),
+        )
     }
 
     /// Records a catalog op, computing its value with the op table.
@@ -236,7 +320,7 @@ impl Tape {
             site: site(location),
             message,
         };
-        if op.is_leaf() || op == Op::Custom {
+        if op.is_leaf() || op == Op::Custom || op == Op::Cast {
             return Err(error(
                 "use input, param, constant or custom to record this node".to_string(),
             ));
@@ -251,12 +335,19 @@ impl Tape {
         let values: Vec<&Value> = inputs.iter().map(|input| &self.values[input.0]).collect();
         let shapes: Vec<&[usize]> = values.iter().map(|value| value.shape()).collect();
         ops::infer_shape(op, &shapes, &attrs).map_err(error)?;
-        let value = ops::forward(op, &values, &attrs, self.dtype);
+        // Mixed inputs compute in their promoted dtype, as frameworks do.
+        let dtype = inputs
+            .iter()
+            .map(|input| self.dtypes[input.0])
+            .reduce(Dtype::promote)
+            .unwrap_or(self.dtype);
+        let value = ops::forward(op, &values, &attrs, self.precision(dtype));
         Ok(self.push(
             None,
             op.name(),
             inputs,
             value,
+            dtype,
             Extras {
                 attrs,
                 partials: Vec::new(),
@@ -290,12 +381,18 @@ impl Tape {
                 message: "a custom op needs a partial on every input edge".to_string(),
             });
         }
-        let value = value.into().map(|x| self.dtype.round(x));
+        let dtype = inputs
+            .iter()
+            .map(|input| self.dtypes[input.0])
+            .reduce(Dtype::promote)
+            .unwrap_or(self.dtype);
+        let value = value.into().map(|x| dtype.round(x));
         Ok(self.push(
             None,
             name,
             inputs,
             value,
+            dtype,
             Extras {
                 attrs: Attrs::default(),
                 partials,
@@ -307,7 +404,8 @@ impl Tape {
     /// Attaches the gradient the original framework reported for `var`, so
     /// that checks can compare it with Ebb's sweep. Rounded into the dtype.
     pub fn report(&mut self, var: Var, gradient: impl Into<Value>) {
-        let gradient = gradient.into().map(|x| self.dtype.round(x));
+        let dtype = self.dtypes[var.0];
+        let gradient = gradient.into().map(|x| dtype.round(x));
         self.nodes[var.0].reported = Some(value_repr(&gradient));
     }
 
@@ -320,7 +418,8 @@ impl Tape {
     /// Finishes the recording with `output` seeded by `seed` (a scalar, or a
     /// tensor of the output's shape): the vector of a vector-Jacobian product.
     pub fn finish_seeded(self, output: Var, seed: impl Into<Value>) -> TraceFile {
-        let seed = seed.into().map(|x| self.dtype.round(x));
+        let dtype = self.dtypes[output.0];
+        let seed = seed.into().map(|x| dtype.round(x));
         self.finish_with_seed(output, Some(value_repr(&seed)))
     }
 
@@ -330,6 +429,8 @@ impl Tape {
             title: self.title,
             description: self.description,
             dtype: self.dtype,
+            accumulate: self.accumulate,
+            sidecar: None,
             output: self.nodes[output.0].id.clone(),
             seed,
             nodes: self.nodes,

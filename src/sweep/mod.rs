@@ -223,7 +223,7 @@ impl<'t> Sweep<'t> {
     /// One step of any node: recorded partials, tensors, structured ops.
     fn step_general(&mut self) {
         let (step, trace) = (self.cursor, self.trace);
-        let (compact, dtype) = (trace.compact(), trace.dtype());
+        let compact = trace.compact();
         let node = trace.sweep_order()[step];
         let recorded = trace.node(node);
         if let Some(flag) = Flag::for_value(step, node, FlagKind::NonFiniteValue, &recorded.value) {
@@ -235,7 +235,11 @@ impl<'t> Sweep<'t> {
         let flush = trace.subnormals() == Subnormals::Flush;
         let first_edge = compact.edges_of(step).start;
         for (slot, &input) in recorded.inputs.iter().enumerate() {
+            // The contribution is formed in the node's precision and lives,
+            // like the input's adjoint, in the input's dtype.
+            let dtype = trace.node_dtype(input);
             let mut pulled = pull_back(trace, node, slot, &adjoint);
+            pulled.contribution = pulled.contribution.stored_as(dtype);
             if flush {
                 pulled.contribution.map_in_place(|x| dtype.flush(x));
             }

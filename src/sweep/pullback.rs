@@ -2,7 +2,7 @@
 //! on one input edge, recorded or derived from the op table.
 
 use crate::dtype::Dtype;
-use crate::ops::{self, VjpArgs};
+use crate::ops::{self, Precision, VjpArgs};
 use crate::tensor::Value;
 use crate::trace::{Partial, Trace};
 
@@ -16,7 +16,7 @@ pub struct Pulled {
 
 /// Pulls `adjoint` (the adjoint of `node`) back along input edge `slot`.
 pub fn pull_back(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
-    let dtype = trace.dtype();
+    let dtype = trace.precision(node);
     let recorded = &trace.node(node);
     let input_shape = trace.node(recorded.inputs[slot]).value.shape();
     match &recorded.partials[slot] {
@@ -43,31 +43,30 @@ pub fn pull_back(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pu
     }
 }
 
-/// x̄ⱼ = Σᵢ ḡᵢ Jᵢⱼ, rounded after every product and sum.
+/// x̄ⱼ = Σᵢ ḡᵢ Jᵢⱼ: each product rounded into the node's dtype, the sum
+/// carried in the accumulation dtype and rounded once.
 fn jacobian_transpose_product(
     adjoint: &Value,
     rows: usize,
     cols: usize,
     data: &[f64],
     shape: &[usize],
-    dtype: crate::dtype::Dtype,
+    precision: Precision,
 ) -> Value {
     let g = adjoint.to_f64();
-    let mut out = vec![0.0; cols];
-    for (j, slot) in out.iter_mut().enumerate() {
-        let mut sum: Option<f64> = None;
-        for i in 0..rows {
-            let product = dtype.round(g[i] * data[i * cols + j]);
-            sum = Some(sum.map_or(product, |s| dtype.round(s + product)));
-        }
-        *slot = sum.unwrap_or(0.0);
-    }
-    Value::from_parts(shape.to_vec(), out)
+    let out = (0..cols)
+        .map(|j| {
+            let products = (0..rows).map(|i| precision.round(g[i] * data[i * cols + j]));
+            precision.round(precision.sum(products))
+        })
+        .collect();
+    Value::from_parts_in(precision.dtype, shape.to_vec(), out)
 }
 
 /// The contribution from the op's own rule.
 fn derived(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
-    let dtype = trace.dtype();
+    let precision = trace.precision(node);
+    let dtype = precision.dtype;
     let recorded = trace.node(node);
     let inputs: Vec<&Value> = recorded
         .inputs
@@ -84,7 +83,7 @@ fn derived(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
     ) {
         let input_shape = inputs[slot].shape();
         return Pulled {
-            contribution: ops::scale_and_reduce(adjoint, &partial, input_shape, dtype),
+            contribution: ops::scale_and_reduce(adjoint, &partial, input_shape, precision),
             bad_partial: partial.first_non_finite().map(|(_, x)| x),
         };
     }
@@ -103,22 +102,18 @@ fn derived(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
     }
 }
 
-/// Adds a contribution to an adjoint, rounding into the dtype. The first
-/// contribution becomes the adjoint as it is, as frameworks assign the first
-/// gradient rather than adding it to zero (which would turn −0 into +0).
+/// Adds a contribution to an adjoint, rounding into the dtype (the result is
+/// stored in it). The first contribution becomes the adjoint as it is, as
+/// frameworks assign the first gradient rather than adding it to zero (which
+/// would turn −0 into +0).
 pub fn accumulate(before: Option<&Value>, contribution: &Value, dtype: Dtype) -> Value {
     match (before, contribution) {
-        (None, _) => contribution.clone(),
+        (None, _) => contribution.clone().stored_as(dtype),
         (Some(Value::Scalar(a)), Value::Scalar(c)) => Value::Scalar(dtype.round(a + c)),
-        (Some(before), _) => {
-            let data = before
-                .to_f64()
-                .iter()
-                .zip(contribution.to_f64().iter())
-                .map(|(&a, &c)| dtype.round(a + c))
-                .collect();
-            Value::from_parts(before.shape().to_vec(), data)
-        }
+        (Some(before), _) => Value::from_buffer(
+            before.shape().to_vec(),
+            crate::ops::kernels::map::add(before.elements(), contribution.elements(), dtype),
+        ),
     }
 }
 

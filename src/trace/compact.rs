@@ -53,7 +53,7 @@ impl Compact {
         let edges: usize = order.iter().map(|&node| nodes[node].inputs.len()).sum();
         let mut compact = Compact {
             // Matched on the variant: `Value::data` would read (and widen) a
-            // binary-backed tensor's elements, which opening must not touch.
+            // sidecar tensor's elements, which opening must not touch.
             scalars: nodes
                 .iter()
                 .map(|node| scalar_of(node).unwrap_or(f64::NAN))
@@ -131,9 +131,13 @@ fn scalar_partials(nodes: &[Node], node: &Node, dtype: Dtype) -> Option<[f64; 2]
     let Value::Scalar(output) = node.value else {
         return None;
     };
+    // The hot loop rounds in the trace's one dtype: nodes of another dtype
+    // (a mixed-precision trace) take the general path.
     let scalar_path = node.inputs.len() <= 2
         && (node.op.is_leaf() || node.op.is_elementwise())
-        && node.partials.iter().all(Option::is_none);
+        && node.partials.iter().all(Option::is_none)
+        && node.dtype == dtype
+        && node.inputs.iter().all(|&input| nodes[input].dtype == dtype);
     if !scalar_path {
         return None;
     }

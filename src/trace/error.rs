@@ -109,7 +109,7 @@ pub enum LoadError {
     },
     /// The file is longer than a text trace may be, or never ends (a
     /// device or a pipe that keeps writing).
-    #[error("{}: the trace is longer than {} bytes, the most Ebb reads as text (hint: is this the right file? store big traces binary-backed, see traces/FORMAT.md)", path.display(), limit)]
+    #[error("{}: the trace is longer than {} bytes, the most Ebb reads as text (hint: is this the right file? store big tensors in a safetensors sidecar, see traces/FORMAT.md)", path.display(), limit)]
     TooLong {
         /// The file.
         path: PathBuf,
@@ -128,9 +128,8 @@ pub enum LoadError {
         /// The parser's message.
         message: String,
     },
-    /// A binary-backed trace whose sidecar is missing, truncated or does not
-    /// match its header. Nothing of the sidecar was read beyond its length
-    /// and preamble.
+    /// A trace whose safetensors sidecar is missing, damaged, or does not
+    /// match the references in its header.
     #[error("{}: {}{message} (hint: {hint})", path.display(), node.as_ref().map(|node| format!("node '{node}': ")).unwrap_or_default())]
     Sidecar {
         /// The header file.
@@ -234,7 +233,7 @@ pub enum SaveError {
         error: std::io::Error,
     },
     /// The extension names no trace format.
-    #[error("{}: unknown trace extension (hint: use .ron or .json for text, .tape for a binary-backed trace)", path.display())]
+    #[error("{}: unknown trace extension (hint: use .ron or .json for text, .tape for a trace with a safetensors sidecar)", path.display())]
     UnknownExtension {
         /// The path given.
         path: PathBuf,

@@ -7,7 +7,9 @@ use super::overflow;
 use super::positions;
 use super::progress::{self, Progress, Silent};
 use super::schema::TraceFile;
-use super::validate::validate;
+use super::sidecar::Sidecar;
+use super::validate::validate_with;
+use crate::dtype::Dtype;
 use serde::Serialize;
 use serde::de::DeserializeOwned;
 use std::path::Path;
@@ -150,9 +152,23 @@ fn load_str_with(
 ) -> Result<Trace, LoadError> {
     progress.stage("parsing", None);
     let file = parse(text, encoding).map_err(|error| syntax_error(path, error))?;
+    let sidecar = match &file.sidecar {
+        Some(name) => {
+            progress.stage("opening sidecar", None);
+            Some(Sidecar::open(path, name)?)
+        }
+        None => None,
+    };
     progress.stage("checking", None);
-    validate(file).map_err(|problems| placed(text, path, problems))
+    let resolve = |tensor: &str, shape: Option<&[usize]>, dtype: Dtype| match &sidecar {
+        Some(sidecar) => sidecar.value(tensor, shape, dtype),
+        None => Err(NO_SIDECAR.to_string()),
+    };
+    validate_with(file, &resolve).map_err(|problems| placed(text, path, problems))
 }
+
+const NO_SIDECAR: &str =
+    "refers to a sidecar tensor, but the trace names no `sidecar` file in its header";
 
 /// A syntax error of the file at `path`.
 pub(crate) fn syntax_error(path: &Path, error: SyntaxError) -> LoadError {
@@ -190,17 +206,15 @@ pub(crate) fn placed(text: &str, path: &Path, mut problems: Vec<Problem>) -> Loa
 }
 
 /// Reads, parses and validates a trace file. The encoding comes from the
-/// extension, or from the content when the extension names none; a `.tape`
-/// path opens a binary-backed trace.
+/// extension, or from the content when the extension names none (a `.tape`
+/// file is sniffed); tensors written `(tensor: "name")` are mapped from the
+/// safetensors sidecar the header names.
 pub fn load(path: &Path) -> Result<Trace, LoadError> {
     load_with(path, &mut Silent)
 }
 
 /// [`load`], reporting progress.
 pub fn load_with(path: &Path, progress: &mut dyn Progress) -> Result<Trace, LoadError> {
-    if super::store::Format::from_path(path) == Some(super::store::Format::Tape) {
-        return super::binary::load(path, progress);
-    }
     let text =
         progress::read_text(path, progress).map_err(|error| LoadError::reading(path, error))?;
     let encoding = Encoding::from_path(path).unwrap_or_else(|| Encoding::sniff(&text));

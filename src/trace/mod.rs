@@ -1,7 +1,6 @@
 //! Traces: the file schema, loading and saving, and validation into a checked
 //! [`Trace`].
 
-pub mod binary;
 pub(crate) mod compact;
 mod error;
 mod load;
@@ -11,6 +10,7 @@ mod positions;
 mod progress;
 mod retype;
 pub mod schema;
+pub mod sidecar;
 mod store;
 mod text;
 mod validate;
@@ -18,9 +18,11 @@ mod validate;
 pub(crate) use compact::{Compact, StepKind};
 pub use error::{LoadError, Problem, SaveError};
 pub use load::{Encoding, SyntaxError, load, load_str, load_with, parse, to_text};
-pub use model::{Node, Partial, Trace};
+pub use model::{Node, Partial, Rounding, Trace};
 pub use progress::{Progress, Silent};
-pub use schema::{FORMAT_VERSION, NodeFile, NodeId, Num, PartialRepr, TraceFile, ValueRepr};
+pub use schema::{
+    FORMAT_VERSION, NodeFile, NodeId, Num, PartialRepr, READABLE_VERSIONS, TraceFile, ValueRepr,
+};
 pub use store::{Format, abandon_saves, read_file, save, save_with};
 pub use text::TEXT_LIMIT;
 pub use validate::validate;

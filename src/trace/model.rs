@@ -38,6 +38,9 @@ pub struct Node {
     pub op: Op,
     /// The op's name as written (the custom name for custom ops).
     pub op_name: String,
+    /// The dtype the value and adjoint are stored in: the node's own, or the
+    /// header's default.
+    pub dtype: Dtype,
     /// Input nodes by index, in argument order; each is earlier in the trace.
     pub inputs: Vec<usize>,
     /// Scope path, possibly empty.
@@ -54,12 +57,30 @@ pub struct Node {
     pub reported: Option<Value>,
 }
 
+/// A node whose recorded numbers were rounded into its dtype on load.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Rounding {
+    /// The node.
+    pub node: usize,
+    /// The first element that changed (flat index; 0 for a scalar).
+    pub index: usize,
+    /// The number as written in the file.
+    pub written: f64,
+    /// The value it became in the node's dtype.
+    pub stored: f64,
+    /// How many elements changed.
+    pub count: usize,
+}
+
 /// A validated trace.
 #[derive(Debug, Clone)]
 pub struct Trace {
     pub(super) title: String,
     pub(super) description: String,
     pub(super) dtype: Dtype,
+    pub(super) accumulate: Dtype,
+    /// Nodes whose recorded numbers were not representable in their dtype.
+    pub(super) rounded: Vec<Rounding>,
     pub(super) subnormals: Subnormals,
     pub(super) nodes: Vec<Node>,
     pub(super) output: usize,
@@ -97,21 +118,30 @@ impl Trace {
         self.dtype
     }
 
-    /// The dtype `node`'s value and adjoint are stored in. Every node has the
-    /// trace's dtype until traces carry a dtype per node.
+    /// The dtype `node`'s value and adjoint are stored in: its own, or the
+    /// header's default.
     pub fn node_dtype(&self, node: usize) -> Dtype {
-        let _ = node;
-        self.dtype
+        self.nodes[node].dtype
     }
 
     /// The dtype matmul, convolution and reduction sums accumulate in before
-    /// one rounding into the output's dtype: f32 for f16, bf16 and f32 runs,
-    /// f64 for f64 runs (what mixed-precision hardware does; common practice).
+    /// one rounding into the output's dtype: the header's `accumulate`, by
+    /// default f32 for f16, bf16 and f32 runs and f64 for f64 runs (what
+    /// mixed-precision hardware does; common practice).
     pub fn accumulate(&self) -> Dtype {
-        match self.dtype {
-            Dtype::F64 => Dtype::F64,
-            _ => Dtype::F32,
-        }
+        self.accumulate
+    }
+
+    /// True when some node's dtype differs from the header's.
+    pub fn is_mixed(&self) -> bool {
+        self.nodes.iter().any(|node| node.dtype != self.dtype)
+    }
+
+    /// Nodes whose recorded numbers were not representable in their dtype
+    /// and were rounded on load, in recording order: every sweep uses the
+    /// rounded values.
+    pub fn rounded_on_load(&self) -> &[Rounding] {
+        &self.rounded
     }
 
     /// The precision `node`'s op computes in: its dtype and the trace's

@@ -14,12 +14,19 @@ impl Trace {
     /// forward pass would store for a value it computed exactly. The graph,
     /// ids and sweep order are shared unchanged.
     pub fn retyped(&self, dtype: Dtype, subnormals: Subnormals) -> Trace {
-        let round = |value: &Value| value.map(|x| dtype.round_with(x, subnormals));
+        let round = |value: &Value| {
+            let mut value = value.clone().stored_as(dtype);
+            if subnormals == Subnormals::Flush {
+                value.map_in_place(|x| dtype.flush(x));
+            }
+            value
+        };
         let nodes = self
             .nodes
             .iter()
             .map(|node| {
                 let mut retyped = node.with_value(round(&node.value));
+                retyped.dtype = dtype;
                 for partial in retyped.partials.iter_mut().flatten() {
                     match partial {
                         Partial::Scalar(s) => *s = dtype.round_with(*s, subnormals),
@@ -32,7 +39,8 @@ impl Trace {
                 retyped
             })
             .collect();
-        self.with_nodes(nodes, dtype, subnormals, round(&self.seed))
+        let accumulate = dtype.default_accumulate();
+        self.with_nodes(nodes, (dtype, accumulate), subnormals, round(&self.seed))
     }
 
     /// A copy with every node's forward value replaced, one per node in
@@ -56,7 +64,12 @@ impl Trace {
                 node.with_value(value)
             })
             .collect();
-        self.with_nodes(nodes, self.dtype, self.subnormals, self.seed.clone())
+        self.with_nodes(
+            nodes,
+            (self.dtype, self.accumulate),
+            self.subnormals,
+            self.seed.clone(),
+        )
     }
 
     /// This trace with other nodes (the same ids, inputs and shapes) and
@@ -65,7 +78,7 @@ impl Trace {
     fn with_nodes(
         &self,
         nodes: Vec<Node>,
-        dtype: Dtype,
+        (dtype, accumulate): (Dtype, Dtype),
         subnormals: Subnormals,
         seed: Value,
     ) -> Trace {
@@ -73,6 +86,8 @@ impl Trace {
             title: self.title.clone(),
             description: self.description.clone(),
             dtype,
+            accumulate,
+            rounded: self.rounded.clone(),
             subnormals,
             compact: super::compact::Compact::new(&nodes, dtype, &self.order),
             nodes,
@@ -93,6 +108,7 @@ impl Node {
             id: self.id.clone(),
             op: self.op,
             op_name: self.op_name.clone(),
+            dtype: self.dtype,
             inputs: self.inputs.clone(),
             group: self.group.clone(),
             site: self.site.clone(),

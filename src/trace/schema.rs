@@ -1,5 +1,5 @@
-//! The trace file format, version 1: plain serde types shared by the RON and
-//! JSON encodings. Nothing here is checked; `validate` turns a [`TraceFile`]
+//! The trace file format, version 2 (version 1 is read too): plain serde
+//! types shared by the RON and JSON encodings. Nothing here is checked; `validate` turns a [`TraceFile`]
 //! into a checked `Trace`.
 //!
 //! Numbers may be written as numbers or as the strings `"NaN"`, `"inf"` and
@@ -14,8 +14,12 @@ use serde::ser::{SerializeMap, SerializeStruct, Serializer};
 use serde::{Deserialize, Serialize};
 use std::fmt;
 
-/// The format version this build reads and writes.
-pub const FORMAT_VERSION: u32 = 1;
+/// The format version this build writes.
+pub const FORMAT_VERSION: u32 = 2;
+
+/// The format versions this build reads: version 1 is version 2 without
+/// per-node dtypes, `accumulate`, `sidecar` or `cast`.
+pub const READABLE_VERSIONS: [u32; 2] = [1, 2];
 
 /// A whole trace file, as written.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -28,8 +32,16 @@ pub struct TraceFile {
     /// Free text: what was run, why the trace was kept.
     #[serde(default, skip_serializing_if = "String::is_empty")]
     pub description: String,
-    /// The dtype the run computed in.
+    /// The dtype of every node that does not name its own.
     pub dtype: Dtype,
+    /// The dtype matmul, convolution and reduction sums accumulate in; by
+    /// default f32 for f16, bf16 and f32 traces, f64 for f64 ones.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub accumulate: Option<Dtype>,
+    /// A safetensors file beside the trace holding the tensors that are
+    /// written `(tensor: "name")`: a plain file name, no directories.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sidecar: Option<String>,
     /// The node whose adjoint is seeded.
     pub output: NodeId,
     /// The seed; default 1 (ones of the output's shape for a tensor output).
@@ -50,6 +62,9 @@ pub struct NodeFile {
     /// Input node ids, in argument order.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub inputs: Vec<NodeId>,
+    /// The node's dtype, when it differs from the header's.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub dtype: Option<Dtype>,
     /// Scope path such as `encoder/block2/mlp`.
     #[serde(default, skip_serializing_if = "String::is_empty")]
     pub group: String,
@@ -216,13 +231,13 @@ pub enum ValueRepr {
         /// Elements, row-major.
         data: Vec<f64>,
     },
-    /// A tensor whose elements live in the binary sidecar of a binary-backed
-    /// trace, written `(shape: [..], offset: N)`; see traces/FORMAT.md.
-    Stored {
-        /// Dimensions.
-        shape: Vec<usize>,
-        /// Byte offset of the first element in the sidecar.
-        offset: u64,
+    /// A tensor stored in the trace's safetensors sidecar under `tensor`,
+    /// written `(tensor: "name")`, optionally with the shape to check.
+    Sidecar {
+        /// The tensor's name in the sidecar.
+        tensor: String,
+        /// The shape the sidecar entry must have, when given.
+        shape: Option<Vec<usize>>,
     },
 }
 
@@ -245,10 +260,12 @@ impl Serialize for ValueRepr {
                 s.serialize_field("data", &NumSlice(data))?;
                 s.end()
             }
-            ValueRepr::Stored { shape, offset } => {
+            ValueRepr::Sidecar { tensor, shape } => {
                 let mut s = serializer.serialize_struct("Tensor", 2)?;
-                s.serialize_field("shape", shape)?;
-                s.serialize_field("offset", offset)?;
+                s.serialize_field("tensor", tensor)?;
+                if let Some(shape) = shape {
+                    s.serialize_field("shape", shape)?;
+                }
                 s.end()
             }
         }
@@ -282,7 +299,7 @@ impl<'de> Deserialize<'de> for Numbers {
     }
 }
 
-const VALUE_EXPECTED: &str = "a number, a list of numbers, (shape: [..], data: [..]), or (shape: [..], offset: N) in a binary-backed trace";
+const VALUE_EXPECTED: &str = "a number, a list of numbers, (shape: [..], data: [..]), or (tensor: \"name\") for a tensor in the trace's sidecar";
 
 impl<'de> Deserialize<'de> for ValueRepr {
     fn deserialize<D: Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
@@ -312,27 +329,35 @@ impl<'de> Deserialize<'de> for ValueRepr {
                 })
             }
             fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> Result<ValueRepr, A::Error> {
-                let (mut shape, mut data, mut offset) = (None, None, None);
+                let (mut shape, mut data, mut tensor) = (None, None, None);
                 while let Some(key) = map.next_key::<String>()? {
                     match key.as_str() {
                         "shape" => shape = Some(map.next_value::<Vec<usize>>()?),
                         "data" => data = Some(map.next_value::<Numbers>()?.0),
-                        "offset" => offset = Some(map.next_value::<u64>()?),
+                        "tensor" => tensor = Some(map.next_value::<String>()?),
+                        "offset" => {
+                            return Err(de::Error::custom(
+                                "`offset` refers to a format-1 `.bin` sidecar, which Ebb no longer reads; \
+                                 write the tensor as (tensor: \"name\") in a safetensors sidecar",
+                            ));
+                        }
                         other => {
                             return Err(de::Error::unknown_field(
                                 other,
-                                &["shape", "data", "offset"],
+                                &["shape", "data", "tensor"],
                             ));
                         }
                     }
                 }
-                let shape = shape.ok_or_else(|| de::Error::missing_field("shape"))?;
-                match (data, offset) {
-                    (Some(data), None) => Ok(ValueRepr::Tensor { shape, data }),
-                    (None, Some(offset)) => Ok(ValueRepr::Stored { shape, offset }),
+                match (data, tensor) {
+                    (Some(data), None) => {
+                        let shape = shape.ok_or_else(|| de::Error::missing_field("shape"))?;
+                        Ok(ValueRepr::Tensor { shape, data })
+                    }
+                    (None, Some(tensor)) => Ok(ValueRepr::Sidecar { tensor, shape }),
                     (None, None) => Err(de::Error::missing_field("data")),
                     (Some(_), Some(_)) => Err(de::Error::custom(
-                        "a tensor has either `data` or a sidecar `offset`, not both",
+                        "a tensor has either `data` or a sidecar `tensor`, not both",
                     )),
                 }
             }

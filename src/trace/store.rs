@@ -1,14 +1,14 @@
 //! Saving traces and reading them back whole, in any of the three forms,
-//! chosen by extension: `.ron`, `.json`, or `.tape` (a binary-backed trace:
-//! a RON header and a `.bin` sidecar). Every write goes to a temporary file
-//! in the target directory and is renamed into place, so a failed write
-//! leaves no half-written trace.
+//! chosen by extension: `.ron`, `.json`, or `.tape` (a RON trace whose
+//! tensors live in a safetensors sidecar beside it). Every write goes to a
+//! temporary file in the target directory and is renamed into place, so a
+//! failed write leaves no half-written trace.
 
-use super::binary;
 use super::error::{LoadError, SaveError};
 use super::load::{Encoding, parse, syntax_error, to_text};
 use super::progress::{self, Progress, Silent};
 use super::schema::TraceFile;
+use super::sidecar;
 use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::sync::{Mutex, MutexGuard, PoisonError};
@@ -20,7 +20,7 @@ pub enum Format {
     Ron,
     /// JSON text.
     Json,
-    /// A binary-backed trace: header `NAME.tape`, sidecar `NAME.bin`.
+    /// A trace with a sidecar: header `NAME.tape`, tensors in `NAME.safetensors`.
     Tape,
 }
 
@@ -36,10 +36,10 @@ impl Format {
     }
 
     /// The files a trace of this form at `path` occupies: the path itself,
-    /// plus the sidecar for a binary-backed trace.
+    /// plus the sidecar of a `.tape` trace.
     pub fn files(self, path: &Path) -> Vec<PathBuf> {
         match self {
-            Format::Tape => vec![path.to_path_buf(), binary::sidecar_path(path)],
+            Format::Tape => vec![path.to_path_buf(), sidecar::sidecar_path(path)],
             Format::Ron | Format::Json => vec![path.to_path_buf()],
         }
     }
@@ -60,9 +60,12 @@ pub fn save_with(
         None => Err(SaveError::UnknownExtension {
             path: path.to_path_buf(),
         }),
-        Some(Format::Tape) => binary::write(file, path, progress),
+        Some(Format::Tape) => {
+            progress.stage("writing", None);
+            sidecar::write(file, path)
+        }
         Some(text @ (Format::Ron | Format::Json)) => {
-            if let Some(node) = binary::first_stored(file) {
+            if let Some(node) = sidecar::first_in_sidecar(file) {
                 return Err(SaveError::NotInline {
                     path: path.to_path_buf(),
                     node,
@@ -83,16 +86,17 @@ pub fn save_with(
 }
 
 /// Reads a trace in any form into the schema types with every tensor's data
-/// inline (a binary-backed trace's sidecar is read in full). Not validated.
+/// inline (a sidecar is read in full). Not validated.
 pub fn read_file(path: &Path, progress: &mut dyn Progress) -> Result<TraceFile, LoadError> {
-    if Format::from_path(path) == Some(Format::Tape) {
-        return binary::read_inline(path, progress);
-    }
     let text =
         progress::read_text(path, progress).map_err(|error| LoadError::reading(path, error))?;
     let encoding = Encoding::from_path(path).unwrap_or_else(|| Encoding::sniff(&text));
     progress.stage("parsing", None);
-    parse(&text, encoding).map_err(|error| syntax_error(path, error))
+    let mut file = parse(&text, encoding).map_err(|error| syntax_error(path, error))?;
+    drop(text);
+    progress.stage("reading sidecar", None);
+    sidecar::inline(&mut file, path)?;
+    Ok(file)
 }
 
 /// Writes through `write` into a temporary file beside `path`, then renames
@@ -132,14 +136,6 @@ pub fn abandon_saves() {
 /// A finished temporary file waiting to be renamed into place. Dropping it
 /// removes the file.
 pub(crate) struct Staged(Option<tempfile::NamedTempFile>);
-
-impl Staged {
-    /// The staged file's length in bytes.
-    pub(crate) fn len(&self) -> std::io::Result<u64> {
-        let file = self.0.as_ref().expect("a staged file until committed");
-        file.as_file().metadata().map(|meta| meta.len())
-    }
-}
 
 impl Drop for Staged {
     fn drop(&mut self) {
@@ -182,6 +178,25 @@ pub(crate) fn stage(
     out.flush().map_err(io)?;
     drop(out);
     temp.as_file().sync_all().map_err(io)?;
+    Ok(staged)
+}
+
+/// Lets `write` create a temporary file beside `path` by its path (for
+/// writers that open the file themselves), then checks it was written.
+pub(crate) fn stage_path(
+    path: &Path,
+    write: impl FnOnce(&Path) -> std::io::Result<()>,
+) -> Result<Staged, SaveError> {
+    let io = |error| SaveError::Io {
+        path: path.to_path_buf(),
+        error,
+    };
+    let staged = stage(path, |_| Ok(()))?;
+    let temp = staged.0.as_ref().expect("just staged").path().to_path_buf();
+    write(&temp).map_err(io)?;
+    std::fs::File::open(&temp)
+        .and_then(|file| file.sync_all())
+        .map_err(io)?;
     Ok(staged)
 }
 

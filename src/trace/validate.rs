@@ -2,8 +2,10 @@
 //! problem instead of stopping at the first.
 
 use super::error::Problem;
+use super::model::Rounding;
 use super::model::{Node, Partial, Trace, UNREACHED};
-use super::schema::{FORMAT_VERSION, NodeFile, PartialRepr, TraceFile, ValueRepr};
+use super::schema::{NodeFile, PartialRepr, READABLE_VERSIONS, TraceFile, ValueRepr};
+use crate::dtype::Dtype;
 use crate::format::shape as show;
 use crate::ops::{self, Op};
 use crate::tensor::{Value, broadcast_shapes, numel};
@@ -20,12 +22,12 @@ impl TryFrom<TraceFile> for Trace {
     }
 }
 
-/// Turns a sidecar reference (shape, byte offset) into a value. The binary
-/// loader supplies one backed by its mapping; plain text traces have none.
-pub(crate) type Resolver<'a> = &'a dyn Fn(&[usize], u64) -> Result<Value, String>;
+/// Turns a sidecar reference (tensor name, declared shape, the node's dtype)
+/// into a value. The loader supplies one backed by the mapped sidecar.
+pub(crate) type Resolver<'a> = &'a dyn Fn(&str, Option<&[usize]>, Dtype) -> Result<Value, String>;
 
-fn no_sidecar(_: &[usize], _: u64) -> Result<Value, String> {
-    Err("refers to a binary sidecar, but this trace is not binary-backed (open its .tape header instead)".to_string())
+fn no_sidecar(_: &str, _: Option<&[usize]>, _: Dtype) -> Result<Value, String> {
+    Err("refers to a sidecar tensor, but the trace is checked without its sidecar (load it from its file)".to_string())
 }
 
 /// Checks a parsed trace file and builds the [`Trace`]; on failure returns
@@ -37,11 +39,11 @@ pub fn validate(file: TraceFile) -> Result<Trace, Vec<Problem>> {
 /// [`validate`], resolving sidecar references with `resolve`.
 pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace, Vec<Problem>> {
     let mut problems = Vec::new();
-    if file.format != FORMAT_VERSION {
+    if !READABLE_VERSIONS.contains(&file.format) {
         problems.push(
             Problem::general(
                 format!(
-                    "unsupported format version {} (this build reads version {FORMAT_VERSION})",
+                    "unsupported format version {} (this build reads versions {READABLE_VERSIONS:?})",
                     file.format
                 ),
                 "re-record the trace, or convert it with a matching release of ebb",
@@ -49,6 +51,8 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
             .kind("format version"),
         );
     }
+    let default_dtype = file.dtype;
+    let mut rounded = Vec::new();
     let index = index_ids(&file.nodes, &mut problems);
     let mut nodes: Vec<Option<Node>> = Vec::with_capacity(file.nodes.len());
     // Every resolvable edge, forward ones included, so a cycle can be named.
@@ -64,8 +68,14 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
             &mut forward_edges,
         );
         let before = problems.len();
-        let checked =
-            inputs.and_then(|inputs| check_node(raw, inputs, &nodes, &mut problems, resolve));
+        let checked = inputs.and_then(|inputs| {
+            let context = NodeContext {
+                position,
+                default_dtype,
+                rounded: &mut rounded,
+            };
+            check_node(raw, inputs, &nodes, &mut problems, resolve, context)
+        });
         // Every problem of this node knows where the node is, for its line and column.
         for problem in &mut problems[before..] {
             problem.index = problem.index.or(Some(position));
@@ -84,9 +94,10 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
         .map(|node| node.expect("a node without problems is checked"))
         .collect();
     let output = output.expect("output resolved");
+    let output_dtype = nodes[output].dtype;
     let seed = match file.seed {
-        None => Value::filled(nodes[output].value.shape(), 1.0),
-        Some(raw) => match checked_value(raw, resolve) {
+        None => Value::filled(nodes[output].value.shape(), 1.0).stored_as(output_dtype),
+        Some(raw) => match checked_value(raw, resolve, output_dtype, &mut None) {
             Ok(seed) if seed.shape() == nodes[output].value.shape() => seed,
             Ok(seed) => {
                 return Err(vec![Problem::general(
@@ -108,13 +119,19 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
         },
     };
     Ok(build(
-        file.title,
-        file.description,
-        file.dtype,
+        Header {
+            title: file.title,
+            description: file.description,
+            dtype: file.dtype,
+            accumulate: file
+                .accumulate
+                .unwrap_or_else(|| file.dtype.default_accumulate()),
+        },
         nodes,
         output,
         seed,
         index,
+        rounded,
     ))
 }
 
@@ -246,15 +263,43 @@ pub(crate) fn checked_numel(shape: &[usize]) -> Result<usize, String> {
     }
 }
 
-/// A value's data must fill its shape. Takes the data by value so that a
-/// big trace is not held twice while it is checked.
-fn checked_value(raw: ValueRepr, resolve: Resolver) -> Result<Value, String> {
+/// Where a node's values were rounded into its dtype on load, if anywhere:
+/// the first element that changed and how many did.
+type RoundingSlot<'a> = Option<&'a mut Option<(usize, f64, f64, usize)>>;
+
+/// A value's data must fill its shape; inline numbers are rounded into
+/// `dtype` (and the first one that changed is noted in `rounding`). Takes the
+/// data by value so that a big trace is not held twice while it is checked.
+fn checked_value(
+    raw: ValueRepr,
+    resolve: Resolver,
+    dtype: Dtype,
+    rounding: &mut RoundingSlot,
+) -> Result<Value, String> {
+    let mut note = |data: &[f64]| {
+        let Some(slot) = rounding.as_deref_mut() else {
+            return;
+        };
+        for (index, &x) in data.iter().enumerate() {
+            let stored = dtype.round(x);
+            if stored.to_bits() != x.to_bits() && !x.is_nan() {
+                match slot {
+                    Some((_, _, _, count)) => *count += 1,
+                    None => *slot = Some((index, x, stored, 1)),
+                }
+            }
+        }
+    };
     match raw {
-        ValueRepr::Scalar(x) => Ok(Value::Scalar(x)),
+        ValueRepr::Scalar(x) => {
+            note(std::slice::from_ref(&x));
+            Ok(Value::Scalar(dtype.round(x)))
+        }
         ValueRepr::Tensor { shape, data } => {
             let expected = checked_numel(&shape)?;
             if expected == data.len() {
-                Ok(Value::from_parts(shape, data))
+                note(&data);
+                Ok(Value::from_parts_in(dtype, shape, data))
             } else {
                 Err(format!(
                     "data has {} elements but shape {} needs {expected}",
@@ -263,11 +308,20 @@ fn checked_value(raw: ValueRepr, resolve: Resolver) -> Result<Value, String> {
                 ))
             }
         }
-        ValueRepr::Stored { shape, offset } => {
-            checked_numel(&shape)?;
-            resolve(&shape, offset)
+        ValueRepr::Sidecar { tensor, shape } => {
+            if let Some(shape) = &shape {
+                checked_numel(shape)?;
+            }
+            resolve(&tensor, shape.as_deref(), dtype)
         }
     }
+}
+
+/// What checking one node needs besides the node itself.
+struct NodeContext<'a> {
+    position: usize,
+    default_dtype: Dtype,
+    rounded: &'a mut Vec<Rounding>,
 }
 
 /// Checks one node whose inputs resolved; `earlier` holds the checked nodes
@@ -278,9 +332,12 @@ fn check_node(
     earlier: &[Option<Node>],
     problems: &mut Vec<Problem>,
     resolve: Resolver,
+    context: NodeContext,
 ) -> Option<Node> {
     let id = std::mem::take(&mut raw.id.0);
     let before = problems.len();
+    let dtype = raw.dtype.unwrap_or(context.default_dtype);
+    let mut first_rounded = None;
     let op = Op::from_name(&raw.op).unwrap_or(Op::Custom);
     let spec = op.spec();
     if !spec.arity.accepts(inputs.len()) && raw.inputs.len() == inputs.len() {
@@ -340,6 +397,8 @@ fn check_node(
     let value = match checked_value(
         std::mem::replace(&mut raw.value, ValueRepr::Scalar(0.0)),
         resolve,
+        dtype,
+        &mut Some(&mut first_rounded),
     ) {
         Ok(value) => Some(value),
         Err(message) => {
@@ -357,7 +416,7 @@ fn check_node(
     let reported = raw
         .reported
         .take()
-        .map(|reported| checked_value(reported, resolve))
+        .map(|reported| checked_value(reported, resolve, dtype, &mut None))
         .transpose()
         .unwrap_or_else(|message| {
             problems.push(
@@ -443,11 +502,21 @@ fn check_node(
     if problems.len() > before {
         return None;
     }
+    if let Some((index, written, stored, count)) = first_rounded {
+        context.rounded.push(Rounding {
+            node: context.position,
+            index,
+            written,
+            stored,
+            count,
+        });
+    }
     let op_name = raw.op;
     Some(Node {
         id,
         op,
         op_name,
+        dtype,
         inputs,
         group: raw.group,
         site: raw.site,
@@ -570,15 +639,28 @@ fn report_cycles(
     }
 }
 
-fn build(
+/// The header fields a checked trace keeps.
+struct Header {
     title: String,
     description: String,
-    dtype: crate::dtype::Dtype,
+    dtype: Dtype,
+    accumulate: Dtype,
+}
+
+fn build(
+    header: Header,
     nodes: Vec<Node>,
     output: usize,
     seed: Value,
     index: HashMap<String, usize>,
+    rounded: Vec<Rounding>,
 ) -> Trace {
+    let Header {
+        title,
+        description,
+        dtype,
+        accumulate,
+    } = header;
     let edge_total: usize = nodes.iter().map(|node| node.inputs.len()).sum();
     let mut graph = DiGraph::<(), u32>::with_capacity(nodes.len(), edge_total);
     for _ in &nodes {
@@ -611,6 +693,8 @@ fn build(
         title,
         description,
         dtype,
+        accumulate,
+        rounded,
         subnormals: crate::dtype::Subnormals::Keep,
         nodes,
         output,
