@@ -9,7 +9,7 @@ use std::path::Path;
 
 /// The most bytes Ebb reads as a text trace (4 GiB). A text trace of a
 /// million scalar nodes is about 200 MB; anything near this limit should be
-/// stored binary-backed. Endless inputs (devices, pipes that keep writing)
+/// keep its tensors in a safetensors sidecar. Endless inputs (devices, pipes that keep writing)
 /// stop here instead of exhausting memory.
 pub const TEXT_LIMIT: u64 = 1 << 32;
 
