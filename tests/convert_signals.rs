@@ -35,6 +35,8 @@ fn temporaries(dir: &Path) -> Vec<String> {
 fn big_trace(elements: usize) -> TraceFile {
     TraceFile {
         format: FORMAT_VERSION,
+        accumulate: None,
+        sidecar: None,
         title: "big".into(),
         description: String::new(),
         dtype: Dtype::F64,
@@ -42,6 +44,7 @@ fn big_trace(elements: usize) -> TraceFile {
         seed: None,
         nodes: vec![NodeFile {
             id: NodeId("w".into()),
+            dtype: None,
             op: "param".into(),
             inputs: vec![],
             group: String::new(),
