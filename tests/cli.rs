@@ -38,8 +38,9 @@ fn no_arguments_checks_the_built_in_demo() {
     assert_eq!(output.status.code(), Some(0), "{}", stderr(&output));
     let text = stdout(&output);
     assert!(text.contains("market stall"), "{text}");
+    // ∂profit/∂p = 0.42q + 0.08q² with q = e⁻¹ (closed form, tests/view_verify.rs) = 0.165336.
     assert!(
-        text.contains("price") && text.contains("0.157979"),
+        text.contains("price") && text.contains("0.165336"),
         "{text}"
     );
 }
@@ -50,11 +51,13 @@ fn check_reports_gradients_and_exits_zero_when_clean() {
     assert_eq!(output.status.code(), Some(0));
     let text = stdout(&output);
     assert!(
-        text.contains("12 nodes, 14 edges, 3 groups, 2 params"),
+        text.contains("15 nodes, 18 edges, 3 groups, 2 params"),
         "{text}"
     );
+    // ∂profit/∂s = ((p − c) − 2kq − f)·(−p·q) with q = e^(−s·p) (closed form, chain rule):
+    // (1.45 − 0.2/e)·(−2.5/e) = −1.265895.
     assert!(
-        text.contains("sensitivity") && text.contains("-1.31188"),
+        text.contains("sensitivity") && text.contains("-1.265895"),
         "{text}"
     );
     assert!(text.contains("flags    none"), "{text}");
@@ -103,21 +106,26 @@ fn check_flags_a_log_of_zero_and_exits_one() {
 
 #[test]
 fn sweep_lists_steps_and_stops_early() {
-    let output = ebb(&["sweep", "traces/teaching.ron", "--steps", "3"]);
+    let output = ebb(&["sweep", "traces/teaching.ron", "--steps", "5"]);
     assert_eq!(output.status.code(), Some(0));
     let text = stdout(&output);
     assert_eq!(
         text.lines()
             .filter(|line| line.starts_with("step "))
             .count(),
-        3,
+        5,
         "{text}"
     );
-    assert!(text.starts_with("step 1/12  profit (sub)"), "{text}");
-    // demand_sq = demand·demand: both contributions go to `demand`, the second on top of the first.
-    assert!(text.contains("-> demand (input 0)  contribution -0.036787944117144235  adjoint none -> -0.036787944117144235"), "{text}");
+    assert!(text.starts_with("step 1/15  profit (sub)"), "{text}");
+    // fee = f·demand sends −f first; then demand_sq = demand·demand sends both of its
+    // contributions to `demand`, each on top of the one before.
     assert!(
-        text.contains("-> demand (input 1)  contribution -0.036787944117144235  adjoint -0.036787944117144235 -> -0.07357588823428847"),
+        text.contains("-> demand (input 1)  contribution -0.05  adjoint none -> -0.05"),
+        "{text}"
+    );
+    assert!(text.contains("-> demand (input 0)  contribution -0.036787944117144235  adjoint -0.05 -> -0.08678794411714424"), "{text}");
+    assert!(
+        text.contains("-> demand (input 1)  contribution -0.036787944117144235  adjoint -0.08678794411714424 -> -0.12357588823428847"),
         "{text}"
     );
 }

@@ -5,12 +5,14 @@
 
 mod common;
 
+use common::view::{jump, pane, selected};
+
 use common::screen::{contains, draw, find, row_with, rows, screen};
 
 use ebb::dtype::Dtype;
 use ebb::sweep::{LedgerMode, Sweep};
 use ebb::trace::{self, Trace};
-use ebb::tui::{Action, App, PaneId, Retyped, Theme};
+use ebb::tui::{Action, App, Theme};
 use ratatui::buffer::Buffer;
 use std::path::Path;
 
@@ -24,17 +26,13 @@ fn demo(name: &str) -> Trace {
 }
 
 /// The view as `ebb open` makes it, with the work queued on open (the diagnosis) done.
-fn open<'t>(trace: &'t Trace, copies: &'t Retyped<'t>) -> App<'t> {
-    let mut app = App::new(trace, "test", vec![Theme::default_theme()]).with_copies(copies);
-    settle(&mut app);
-    app
+fn open(trace: &Trace) -> App<'static> {
+    common::view::open_with(trace, vec![Theme::default_theme()])
 }
 
-/// Does queued work, as the event loop does after drawing the frame that announces it.
+/// Does queued work, as the worker does while the view keeps answering keys.
 fn settle(app: &mut App) {
-    while app.has_work() {
-        app.work();
-    }
+    app.work();
 }
 
 /// The text inside the pane whose title holds `title`, one string per row.
@@ -67,8 +65,7 @@ fn pane_rows(buf: &Buffer, title: &str) -> Vec<String> {
 #[test]
 fn nan_hunt_names_the_origin_its_class_and_its_sentence() {
     let trace = demo("nan_hunt.ron");
-    let copies = Retyped::new(&trace);
-    let mut app = open(&trace, &copies);
+    let mut app = open(&trace);
     let ln_p = trace.find("ln_p").unwrap();
     // ln_p takes the log of 'predicted'; one of its entries is an exact 0 and ln 0 = −inf
     // (IEEE 754-2019 §9.2.1: log(±0) is −∞), so the origin is a non-finite forward value, class (a).
@@ -96,7 +93,7 @@ fn nan_hunt_names_the_origin_its_class_and_its_sentence() {
     );
 
     app.update(Action::JumpToOrigin);
-    assert_eq!(app.selected, ln_p);
+    assert_eq!(selected(&app), ln_p);
     let buf = draw(&mut app, 200, 50);
     let node = pane_rows(&buf, "2 Node · ln_p").join(" ");
     let node = node.split_whitespace().collect::<Vec<_>>().join(" ");
@@ -112,7 +109,7 @@ fn nan_hunt_names_the_origin_its_class_and_its_sentence() {
 
     // After the sweep, a parameter's NaN gradient is explained from its own side.
     app.update(Action::RunToEnd);
-    app.jump(trace.find("out.w").unwrap());
+    jump(&mut app, trace.find("out.w").unwrap());
     let buf = draw(&mut app, 200, 50);
     let node = pane_rows(&buf, "2 Node · out.w").join(" ");
     let node = node.split_whitespace().collect::<Vec<_>>().join(" ");
@@ -131,8 +128,7 @@ fn nan_hunt_names_the_origin_its_class_and_its_sentence() {
 #[test]
 fn nan_hunt_fits_80_by_24() {
     let trace = demo("nan_hunt.ron");
-    let copies = Retyped::new(&trace);
-    let mut app = open(&trace, &copies);
+    let mut app = open(&trace);
     let buf = draw(&mut app, 80, 24);
     assert!(
         row_with(&buf, "◆ step").contains("ln_p"),
@@ -173,9 +169,8 @@ fn exploding_shows_the_dominant_path_hop_by_hop() {
             );
         }
     }
-    let copies = Retyped::new(&trace);
-    let mut app = open(&trace, &copies);
-    app.update(Action::Focus(PaneId::Paths));
+    let mut app = open(&trace);
+    app.update(Action::Focus(pane("Paths")));
     app.update(Action::Zoom);
     let buf = draw(&mut app, 200, 50);
     // The advice names cell.w, the parameter with the largest exploding gradient.
@@ -224,7 +219,7 @@ fn exploding_shows_the_dominant_path_hop_by_hop() {
     );
     // ] selects the next parameter and shows its path.
     app.update(Action::NextParameter);
-    assert_eq!(trace.node(app.selected).id, "cell.u");
+    assert_eq!(trace.node(selected(&app)).id, "cell.u");
     let buf = draw(&mut app, 200, 50);
     assert!(
         screen(&buf).contains("8 Paths · cell.u"),
@@ -236,8 +231,7 @@ fn exploding_shows_the_dominant_path_hop_by_hop() {
 #[test]
 fn vanishing_shows_group_norms_and_the_ratio_between_neighbours() {
     let trace = demo("vanishing.ron");
-    let copies = Retyped::new(&trace);
-    let mut app = open(&trace, &copies);
+    let mut app = open(&trace);
     // Group norms from a plain sweep: the L2 norm of all of a group's adjoints together (common practice).
     let mut sweep = Sweep::new(&trace, LedgerMode::Off);
     sweep.run_to_end();
@@ -252,7 +246,7 @@ fn vanishing_shows_group_norms_and_the_ratio_between_neighbours() {
         squares.sqrt()
     };
     let expected = norm("tower/layer01") / norm("tower/layer02");
-    app.update(Action::Focus(PaneId::Paths));
+    app.update(Action::Focus(pane("Paths")));
     app.update(Action::Zoom);
     app.update(Action::Bottom);
     let buf = draw(&mut app, 200, 50);
@@ -296,13 +290,12 @@ fn vanishing_shows_group_norms_and_the_ratio_between_neighbours() {
 fn the_precision_toggle_shows_f16_zeros_that_f32_keeps() {
     let trace = demo("underflow_f16.ron");
     assert_eq!(trace.dtype(), Dtype::F16);
-    let copies = Retyped::new(&trace);
-    let mut app = open(&trace, &copies);
+    let mut app = open(&trace);
     let param = trace.find("hidden.w").unwrap();
     app.update(Action::RunToEnd);
-    app.jump(param);
+    jump(&mut app, param);
     app.update(Action::CyclePrecision);
-    assert!(app.has_work(), "re-sweeping waits for a frame that says so");
+    assert!(app.is_working(), "re-typing runs on the worker");
     assert!(
         draw(&mut app, 200, 50)
             .content()
@@ -311,16 +304,16 @@ fn the_precision_toggle_shows_f16_zeros_that_f32_keeps() {
     );
     settle(&mut app);
     assert_eq!(
-        app.trace.dtype(),
+        app.session().trace().dtype(),
         Dtype::Bf16,
         "the cycle after the recorded f16 is bf16"
     );
     app.update(Action::CyclePrecision);
     settle(&mut app);
-    assert_eq!(app.trace.dtype(), Dtype::F32);
+    assert_eq!(app.session().trace().dtype(), Dtype::F32);
     assert_eq!(
-        app.sweep.cursor(),
-        app.sweep.len(),
+        app.session().sweep().cursor(),
+        app.session().sweep().len(),
         "the sweep is at the same step as before"
     );
 
@@ -364,7 +357,7 @@ fn the_precision_toggle_shows_f16_zeros_that_f32_keeps() {
         "{node}"
     );
     // The element table puts the two side by side.
-    app.update(Action::Focus(PaneId::Node));
+    app.update(Action::Focus(pane("Node")));
     app.update(Action::Zoom);
     for _ in 0..zeros[0] {
         app.update(Action::Down);
@@ -375,34 +368,35 @@ fn the_precision_toggle_shows_f16_zeros_that_f32_keeps() {
         "{}",
         screen(&buf)
     );
+    // Elements go by their multi-index.
+    let index = ebb::format::multi_index(zeros[0], trace.node(param).value.shape());
     let row = rows(&buf)
         .into_iter()
-        .find(|row| row.starts_with(&format!("│{:>8}  ", zeros[0])))
+        .find(|row| {
+            row.trim_start_matches('│')
+                .trim_start()
+                .starts_with(&format!("{index}  "))
+        })
         .unwrap();
     let numbers: Vec<f64> = row
         .trim_matches('│')
         .split_whitespace()
         .filter_map(|word| word.parse().ok())
         .collect();
-    // Shown to five significant digits.
-    assert!(
-        (numbers[2] - s[zeros[0]]).abs() <= 1e-4 * s[zeros[0]].abs(),
-        "{row}"
-    );
-    assert_eq!(numbers[3], 0.0, "{row}");
+    // Value, the f32 adjoint, the f16 one. The f32 number is shown as the shortest
+    // decimal that reads back to the same f32 (IEEE 754-2019 §5.12.2, round trip).
+    assert_eq!(Dtype::F32.round(numbers[1]), s[zeros[0]], "{row}");
+    assert_eq!(numbers[2], 0.0, "{row}");
 
     // Once round: back to the recorded dtype.
     app.update(Action::CyclePrecision);
     settle(&mut app);
-    assert_eq!(app.trace.dtype(), Dtype::F64);
+    assert_eq!(app.session().trace().dtype(), Dtype::F64);
     app.update(Action::CyclePrecision);
     settle(&mut app);
-    assert_eq!(app.trace.dtype(), Dtype::F16);
-    assert!(app.compare.is_none());
-    assert_eq!(
-        app.message.as_deref(),
-        Some("back to the recorded dtype f16")
-    );
+    assert_eq!(app.session().trace().dtype(), Dtype::F16);
+    assert!(app.session().compare().is_none());
+    assert_eq!(app.message(), Some("back to the recorded dtype f16"));
 }
 
 #[test]
@@ -412,8 +406,7 @@ fn toggling_exploding_into_f16_reports_where_it_first_overflows() {
     // so the f16 sweep overflows at its very first step.
     let loss = trace.node(trace.output()).value.as_scalar().unwrap();
     assert!(loss > 65504.0, "{loss}");
-    let copies = Retyped::new(&trace);
-    let mut app = open(&trace, &copies);
+    let mut app = open(&trace);
     app.update(Action::CyclePrecision);
     settle(&mut app);
     let buf = draw(&mut app, 200, 50);
@@ -434,8 +427,7 @@ fn toggling_exploding_into_f16_reports_where_it_first_overflows() {
 #[test]
 fn the_keys_are_in_the_help() {
     let trace = demo("nan_hunt.ron");
-    let copies = Retyped::new(&trace);
-    let mut app = open(&trace, &copies);
+    let mut app = open(&trace);
     app.update(Action::Help);
     let buf = draw(&mut app, 200, 50);
     // The rest of the help, a page at a time.
@@ -454,7 +446,7 @@ fn the_keys_are_in_the_help() {
         assert!(row.contains(&format!("  {key} ")), "{row}");
     }
     assert!(
-        below.contains("8 Paths (dominant paths, group norms)"),
+        below.contains("8 Paths: the dominant path to a parameter"),
         "{below}"
     );
     assert!(
@@ -465,13 +457,12 @@ fn the_keys_are_in_the_help() {
 
 #[test]
 fn open_with_settings_uses_their_thresholds() {
-    // The teaching demo's output `profit = gross − storage` passes its adjoint 1
+    // The teaching demo's output `profit = gross − costs` passes its adjoint 1
     // on as +1 and −1, a gain of √2 ≈ 1.414 (closed form); with the gain rule's
     // upper threshold at 1.2 that is a finding, with the default 100 it is not.
     let trace = demo("teaching.ron");
-    let copies = Retyped::new(&trace);
-    let mut default = open(&trace, &copies);
-    default.update(Action::Focus(PaneId::Flags));
+    let mut default = open(&trace);
+    default.update(Action::Focus(pane("Flags")));
     let buf = draw(&mut default, 200, 50);
     assert!(
         row_with(&buf, "6 Flags").contains("0 findings"),
@@ -483,11 +474,10 @@ fn open_with_settings_uses_their_thresholds() {
         gain_above: 1.2,
         ..ebb::diagnose::Settings::default()
     };
-    let mut strict = App::new(&trace, "test", vec![Theme::default_theme()])
-        .with_copies(&copies)
-        .with_settings(settings);
+    let traces = Box::leak(Box::new(ebb::tui::Traces::new(trace.clone())));
+    let mut strict = App::new(traces, "test", vec![Theme::default_theme()]).with_settings(settings);
     settle(&mut strict);
-    strict.update(Action::Focus(PaneId::Flags));
+    strict.update(Action::Focus(pane("Flags")));
     let buf = draw(&mut strict, 200, 50);
     assert!(
         !row_with(&buf, "6 Flags").contains("0 findings"),

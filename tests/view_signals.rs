@@ -48,7 +48,7 @@ fn ends_by_signal(signal: &str, number: libc::c_int) {
     let dir = tempfile::tempdir().unwrap();
     let mut screen = open_teaching(dir.path());
     screen.send("ss");
-    screen.wait_for("step 2/12");
+    screen.wait_for("step 2/15");
     screen.kill(signal);
     let status = screen.wait_exit();
     // The name the C library gives the signal (what portable-pty reports).

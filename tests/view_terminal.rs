@@ -10,8 +10,9 @@ use common::pty::Screen;
 use std::process::Command;
 
 // Closed form for the teaching demo (see tests/view_render.rs): q = e⁻¹ and the
-// adjoint of demand collects −kq, −kq, then p − c, with k = 0.1 and p − c = 1.5.
+// adjoint of demand collects −f, −kq, −kq, then p − c, with f = 0.05, k = 0.1 and p − c = 1.5.
 const Q: f64 = 0.36787944117144233;
+const F: f64 = 0.05;
 
 #[track_caller]
 fn near(shown: f64, expected: f64) {
@@ -24,7 +25,7 @@ fn near(shown: f64, expected: f64) {
 #[test]
 fn stepping_the_teaching_demo_in_a_real_terminal() {
     let mut screen = Screen::open(50, 200, &["open", "traces/teaching.ron"]);
-    screen.wait_for("step 0/12 │ next profit (sub)");
+    screen.wait_for("step 0/15 │ next profit (sub)");
     assert!(
         screen.parser.lock().unwrap().screen().alternate_screen(),
         "the view runs on the alternate screen"
@@ -33,26 +34,27 @@ fn stepping_the_teaching_demo_in_a_real_terminal() {
     screen.wait_for("Inflow · demand");
     screen.wait_for("adjoint  none yet");
     screen.send("ss");
-    screen.wait_for("step 2/12");
+    screen.wait_for("step 2/15");
     screen.wait_for("adjoint  none yet");
-    // Step 3 processes demand_sq = q·q: two contributions of −kq each.
+    // Step 3 processes fee = f·q: the first contribution, −f.
     screen.send("s");
-    near(screen.number_after("step 3/12", "adjoint  "), -0.2 * Q);
+    near(screen.number_after("step 3/15", "adjoint  "), -F);
+    // Step 5 processes demand_sq = q·q: two contributions of −kq each.
+    screen.send("ss");
+    near(screen.number_after("step 5/15", "adjoint  "), -F - 0.2 * Q);
+    // Step 6 processes gross = (p − c)·q: the last contribution, p − c.
+    screen.send("s");
     near(
-        screen.number_after("step 3/12", "   3 demand_sq        1 "),
-        -0.1 * Q,
+        screen.number_after("step 6/15", "adjoint  "),
+        1.5 - F - 0.2 * Q,
     );
-    // Step 4 processes gross = (p − c)·q: the last contribution, p − c.
-    screen.send("s");
-    near(screen.number_after("step 4/12", "adjoint  "), 1.5 - 0.2 * Q);
-    screen.wait_for("complete: 3 contribution(s), the adjoint is final");
-    // Back over step 4: the adjoint is −2kq again and gross is still to come.
+    screen.wait_for("complete: 4 contribution(s), the adjoint is final");
+    // Back over step 6: gross is still to come.
     screen.send("b");
-    near(screen.number_after("step 3/12", "adjoint  "), -0.2 * Q);
+    near(screen.number_after("step 5/15", "adjoint  "), -F - 0.2 * Q);
     screen.wait_for("to come (1):");
-    screen.send("b");
-    screen.wait_for("step 2/12");
-    screen.wait_for("adjoint  none yet");
+    screen.send("bb");
+    screen.wait_for("step 3/15");
     // Help, a theme change and the run to the end keep working.
     screen.send("?");
     screen.wait_for("Keys (? or Esc closes");
@@ -76,14 +78,14 @@ fn ctrl_c_quits_and_restores_at_80_by_24() {
     let mut screen = Screen::open(24, 80, &["open", "traces/teaching.ron"]);
     screen.wait_for("1 Order");
     screen.send("s");
-    screen.wait_for("step 1/12");
+    screen.wait_for("step 1/15");
     screen.send("\u{3}");
     assert!(screen.wait_exit().success());
     assert!(!screen.parser.lock().unwrap().screen().alternate_screen());
 }
 
 #[test]
-fn a_bad_trace_is_one_line_and_exit_2_without_entering_the_view() {
+fn a_bad_trace_is_one_line_and_exit_2_with_the_terminal_restored() {
     let dir = tempfile::tempdir().unwrap();
     let path = dir.path().join("broken.ron");
     std::fs::write(&path, "(format: 1, title: \"x\",").unwrap();
@@ -150,27 +152,27 @@ fn a_bad_theme_is_one_line_with_its_position() {
 
 #[test]
 fn forward_mode_in_a_real_terminal() {
-    // Along v = e_price the tangent sweep's ∂f/∂v is ∂profit/∂p = 0.4q + 0.08q²
+    // Along v = e_price the tangent sweep's ∂f/∂v is ∂profit/∂p = 0.42q + 0.08q²
     // (closed form by the chain rule, derived in tests/view_verify.rs).
     let mut screen = Screen::open(50, 200, &["open", "traces/teaching.ron"]);
-    screen.wait_for("step 0/12");
+    screen.wait_for("step 0/15");
     screen.send(":price\r");
     screen.wait_for("Node · price");
     screen.send("m");
     screen.wait_for("FORWARD MODE");
-    screen.send("sssssss");
-    screen.wait_for("tangent step 7/12 │ next margin (sub)");
+    screen.send("ssssssss");
+    screen.wait_for("tangent step 8/15 │ next margin (sub)");
     screen.send("e");
     near(
         screen.number_after("= agree", "∂f/∂v   "),
-        0.4 * Q + 0.08 * Q * Q,
+        0.42 * Q + 0.08 * Q * Q,
     );
     near(
         screen.number_after("= agree", "⟨v, ∇f⟩ "),
-        0.4 * Q + 0.08 * Q * Q,
+        0.42 * Q + 0.08 * Q * Q,
     );
     screen.send("m");
-    screen.wait_for("reverse sweep: step 0/12");
+    screen.wait_for("reverse sweep: step 0/15");
     screen.send("q");
     assert!(screen.wait_exit().success());
 }

@@ -6,6 +6,8 @@
 
 mod common;
 
+use common::view::{pane, select, selected};
+
 use common::screen::{contains, draw, find, numbers_in, row_with, rows};
 
 use ebb::dtype::Dtype;
@@ -13,11 +15,11 @@ use ebb::ops::{Attrs, Op};
 use ebb::record::Tape;
 use ebb::tensor::Value;
 use ebb::trace::{PartialRepr, Trace, validate};
-use ebb::tui::{Action, App, PaneId, Theme};
+use ebb::tui::{Action, App, Theme};
 use ratatui::buffer::Buffer;
 
-fn app(trace: &Trace) -> App<'_> {
-    App::new(trace, "test", vec![Theme::default_theme()])
+fn app(trace: &Trace) -> App<'static> {
+    common::view::open_with(trace, vec![Theme::default_theme()])
 }
 
 /// The columns `from..from + width` of every row: one pane of the wide layout.
@@ -58,9 +60,11 @@ fn the_verify_pane_names_the_node_with_the_wrong_partial_and_its_band() {
         contains(&buf, "7 Verify") || contains(&buf, "5 Trend"),
         "the corner slot is titled"
     );
-    // Showing the pane runs the checks once.
-    app.update(Action::Focus(PaneId::Verify));
-    assert!(app.checks.verification.is_some());
+    // Showing the pane asks the worker for the checks, once.
+    app.update(Action::Focus(pane("Verify")));
+    assert!(app.is_working() && app.session().verified().is_none());
+    app.work();
+    assert!(app.session().verified().is_some());
     let buf = draw(&mut app, 200, 50);
     assert!(
         contains(&buf, "5 Trend │ 7 Verify"),
@@ -104,37 +108,35 @@ fn the_verify_pane_names_the_node_with_the_wrong_partial_and_its_band() {
 fn recorded_and_recomputed_partials_side_by_side_with_the_difference_marked() {
     let trace = wrong_exp_partial();
     let mut app = app(&trace);
-    app.update(Action::Focus(PaneId::Verify));
+    app.update(Action::Focus(pane("Verify")));
+    app.work();
     let buf = draw(&mut app, 200, 50);
     assert!(contains(
         &buf,
         "growth ∂ in 0 ← x: recorded vs exp's rule · 1 of 3 differ"
     ));
-    // d/dx eˣ = eˣ (closed form): element 1 was recorded as −e⁻¹ where the rule gives e⁻¹.
-    let differs = row_with(&buf, "≠       1");
-    let found = numbers_in(differs.split("≠").nth(1).unwrap());
-    assert_eq!(
-        found[..3],
-        [1.0, -(-1.0f64).exp(), (-1.0f64).exp()],
-        "{differs}"
-    );
+    // d/dx eˣ = eˣ (closed form): element [1] was recorded as −e⁻¹ where the rule gives e⁻¹.
+    let differs = row_with(&buf, "≠     [1]");
+    let found = numbers_in(differs.split("[1]").nth(1).unwrap());
+    assert_eq!(found[..2], [-(-1.0f64).exp(), (-1.0f64).exp()], "{differs}");
     for (element, expected) in [(0, 0.5f64.exp()), (2, 2.0f64.exp())] {
-        let row = row_with(&buf, &format!("=       {element}  "));
-        let found = numbers_in(row.split("=       ").nth(1).unwrap());
-        assert_eq!(found[..3], [element as f64, expected, expected], "{row}");
+        let label = format!("=     [{element}]  ");
+        let row = row_with(&buf, &label);
+        let found = numbers_in(row.split(&label).nth(1).unwrap());
+        assert_eq!(found[..2], [expected, expected], "{row}");
     }
     let theme = Theme::default_theme();
-    let (x, y) = find(&buf, "≠       1");
+    let (x, y) = find(&buf, "≠     [1]");
     assert_eq!(
         buf[(x, y)].fg,
         theme.flag_value.fg.unwrap(),
         "the mark is a symbol and a colour"
     );
-    let (x, y) = find(&buf, "=       0");
+    let (x, y) = find(&buf, "=     [0]");
     assert_eq!(buf[(x, y)].fg, theme.done.fg.unwrap());
     // Enter selects the suspect's node in the other panes.
     app.update(Action::Enter);
-    assert_eq!(trace.node(app.selected).id, "growth");
+    assert_eq!(trace.node(selected(&app)).id, "growth");
     let buf = draw(&mut app, 200, 50);
     assert!(contains(&buf, "2 Node · growth"));
     assert!(contains(&buf, "growth: probably wrong (recorded partial)"));
@@ -153,8 +155,9 @@ fn the_verify_pane_says_plainly_when_everything_agrees() {
         !contains(&buf, "Verify ·"),
         "not shown, and not run, until asked"
     );
-    assert!(app.checks.verification.is_none());
+    assert!(app.session().verified().is_none());
     app.update(Action::Verify);
+    app.work();
     let buf = draw(&mut app, 80, 24);
     // At 80 columns Verify joins the shared slot; unfocused tabs go by number.
     assert!(
@@ -166,19 +169,19 @@ fn the_verify_pane_says_plainly_when_everything_agrees() {
     assert!(contains(&buf, "verified in"));
 }
 
-// Teaching demo, closed form: profit = (p − c)·q − k·q², q = exp(−s·p), at p = 2.5,
-// c = 1, s = 0.4, k = 0.1, so q = e⁻¹. By the chain rule (derived by hand):
-//   ∂profit/∂p = q + (p − c)·(−s·q) − 2kq·(−s·q) = 0.4q + 0.08q²,
-//   ∂profit/∂s = (p − c)·(−p·q) − 2kq·(−p·q) = −2.5q·(1.5 − 0.2q).
+// Teaching demo, closed form: profit = (p − c)·q − (k·q² + f·q), q = exp(−s·p), at
+// p = 2.5, c = 1, s = 0.4, k = 0.1, f = 0.05, so q = e⁻¹. By the chain rule (by hand):
+//   ∂profit/∂p = q + ((p − c) − 2kq − f)·(−s·q) = 0.42q + 0.08q²,
+//   ∂profit/∂s = ((p − c) − 2kq − f)·(−p·q) = −2.5q·(1.45 − 0.2q).
 // Along v = e_p the tangent of q is −s·q = −0.4q.
 const Q: f64 = 0.36787944117144233; // e⁻¹ (from memory; checked against f64::exp below)
 
 fn d_price() -> f64 {
-    0.4 * Q + 0.08 * Q * Q
+    0.42 * Q + 0.08 * Q * Q
 }
 
 fn d_sensitivity() -> f64 {
-    -2.5 * Q * (1.5 - 0.2 * Q)
+    -2.5 * Q * (1.45 - 0.2 * Q)
 }
 
 #[track_caller]
@@ -194,21 +197,21 @@ fn forward_mode_shows_dual_numbers_in_recording_order() {
     assert_eq!(Q, (-1f64).exp());
     let trace = validate(ebb::demos::teaching()).unwrap();
     let mut app = app(&trace);
-    app.select(trace.find("price").unwrap());
+    select(&mut app, trace.find("price").unwrap());
     app.update(Action::ToggleForward);
     let buf = draw(&mut app, 200, 50);
     assert!(contains(&buf, "forward mode, v = unit along price"));
     assert!(contains(&buf, "FORWARD MODE │"));
-    assert!(contains(&buf, "tangent step 0/12 │ next price (param)"));
-    // Seven steps: price, unit_cost, sensitivity, storage_rate, s_times_p, minus_sp, demand.
-    for _ in 0..7 {
+    assert!(contains(&buf, "tangent step 0/15 │ next price (param)"));
+    // Eight steps: price, unit_cost, sensitivity, storage_rate, fee_rate, s_times_p, minus_sp, demand.
+    for _ in 0..8 {
         app.update(Action::Step);
     }
     let buf = draw(&mut app, 200, 50);
-    assert!(contains(&buf, "tangent step 7/12 │ next margin (sub)"));
-    // Order lists the recording order: demand (row 7) done, margin (row 8) current.
-    assert!(contains(&buf, "│✓  7 demand "), "{}", rows(&buf).join("\n"));
-    assert!(contains(&buf, "│▶  8 margin "));
+    assert!(contains(&buf, "tangent step 8/15 │ next margin (sub)"));
+    // Order lists the recording order: demand (row 8) done, margin (row 9) current.
+    assert!(contains(&buf, "│✓  8 demand "), "{}", rows(&buf).join("\n"));
+    assert!(contains(&buf, "│▶  9 margin "));
     let price_row = row_with(&buf, "│✓  1 price ");
     assert_eq!(
         numbers_in(&price_row.chars().take(63).collect::<String>())[1..],
@@ -216,7 +219,7 @@ fn forward_mode_shows_dual_numbers_in_recording_order() {
         "price is (2.5, 1): the seed"
     );
     // The dual number of demand: (q, −s·q).
-    app.select(trace.find("demand").unwrap());
+    select(&mut app, trace.find("demand").unwrap());
     let buf = draw(&mut app, 200, 50);
     let dual = numbers_in(
         row_with(&buf, "dual     (")
@@ -226,7 +229,23 @@ fn forward_mode_shows_dual_numbers_in_recording_order() {
     );
     near(dual[0], Q);
     near(dual[1], -0.4 * Q);
-    assert!(contains(&buf, "✓ tangent known (forward step 7)"));
+    assert!(contains(&buf, "✓ tangent known (forward step 8)"));
+    // How it was formed: ∂exp/∂x = eˣ = q times minus_sp's tangent −s = −0.4 (closed form).
+    let formed = row_with(&buf, "tangent  Σ ∂ × input tangent:");
+    assert!(
+        formed.contains(&format!("{Q} × -0.4 (minus_sp) = ")),
+        "{formed}"
+    );
+    // Inflow and Edges speak of tangents.
+    assert!(
+        contains(&buf, "tangents flowing in"),
+        "{}",
+        rows(&buf).join("\n")
+    );
+    assert!(contains(
+        &buf,
+        "inputs → their tangents × ∂ flow into demand"
+    ));
     // Status hints come from the key map and follow the mode.
     app.update(Action::Cancel);
     let buf = draw(&mut app, 200, 50);
@@ -240,20 +259,20 @@ fn forward_mode_shows_dual_numbers_in_recording_order() {
     app.update(Action::Back);
     let buf = draw(&mut app, 200, 50);
     assert!(row_with(&buf, "dual     (").contains("(0.36787944117144233, —)"));
-    assert_eq!(app.sweep.cursor(), 0);
+    assert_eq!(app.session().sweep().cursor(), 0);
 }
 
 #[test]
 fn at_the_end_the_directional_derivative_matches_the_reverse_sweep() {
     let trace = validate(ebb::demos::teaching()).unwrap();
     let mut app = app(&trace);
-    app.select(trace.find("price").unwrap());
+    select(&mut app, trace.find("price").unwrap());
     app.update(Action::ToggleForward);
     let buf = draw(&mut app, 200, 50);
     assert!(contains(&buf, "∂f/∂v and ⟨v, ∇f⟩ appear once"));
     app.update(Action::RunToEnd);
     let buf = draw(&mut app, 200, 50);
-    // Along v = e_p both numbers are ∂profit/∂p = 0.4q + 0.08q² (closed form above).
+    // Along v = e_p both numbers are ∂profit/∂p = 0.42q + 0.08q² (closed form above).
     let order = columns(&buf, 0, 64);
     let tangent = order
         .iter()
@@ -279,7 +298,7 @@ fn at_the_end_the_directional_derivative_matches_the_reverse_sweep() {
     app.update(Action::CycleDirection);
     let buf = draw(&mut app, 200, 50);
     assert!(contains(&buf, "v = random over 2 parameter(s), seed 0xebb"));
-    let forward = app.forward.as_ref().unwrap();
+    let forward = app.session().forward().unwrap();
     let v = |id: &str| {
         forward
             .sweep
@@ -316,7 +335,7 @@ fn at_the_end_the_directional_derivative_matches_the_reverse_sweep() {
 fn forward_mode_fits_80_by_24() {
     let trace = validate(ebb::demos::teaching()).unwrap();
     let mut app = app(&trace);
-    app.select(trace.find("price").unwrap());
+    select(&mut app, trace.find("price").unwrap());
     app.update(Action::ToggleForward);
     app.update(Action::RunToEnd);
     let buf = draw(&mut app, 80, 24);
@@ -326,5 +345,5 @@ fn forward_mode_fits_80_by_24() {
         near(numbers_in(pane)[0], d_price());
     }
     assert!(contains(&buf, "= agree"));
-    assert!(contains(&buf, "FORWARD MODE │ f64 │ tangent step 12/12"));
+    assert!(contains(&buf, "FORWARD MODE │ f64 │ tangent step 15/15"));
 }

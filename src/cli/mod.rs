@@ -42,7 +42,7 @@ pub struct BadInput(#[from] pub LoadError);
 pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
     match cli.command {
         None if std::io::stdout().is_terminal() => view(
-            &load_demo()?,
+            load_demo()?,
             DEMO_NAME,
             Look::of(cli.theme.as_deref(), cli.keys.as_deref())?,
             Settings::default(),
@@ -136,7 +136,7 @@ fn open(path: &Path, look: Look, settings: Settings) -> Result<Outcome> {
     Ok(Outcome::Clean)
 }
 
-fn view(trace: &Trace, label: &str, look: Look, settings: Settings) -> Result<Outcome> {
+fn view(trace: Trace, label: &str, look: Look, settings: Settings) -> Result<Outcome> {
     tui::view(trace, label, look.themes, look.keymap, settings).map_err(view_error)?;
     Ok(Outcome::Clean)
 }

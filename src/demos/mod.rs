@@ -26,20 +26,24 @@ use crate::trace::TraceFile;
 
 /// The teaching trace: a market stall's profit at one price.
 ///
-/// Demand falls exponentially with price, q = exp(−s·p); profit is the margin
-/// times demand minus a storage cost growing with the square of demand:
-/// profit = (p − c)·q − k·q². The price `p` feeds two nodes (a branch point),
-/// and demand `q` feeds both inputs of one multiply (a second branch point,
-/// one input used twice). Twelve nodes, small enough to step by hand.
+/// Demand falls exponentially with price, q = exp(−s·p); profit is the
+/// margin times demand minus the costs, a storage cost growing with the
+/// square of demand plus a pitch fee per customer:
+/// profit = (p − c)·q − (k·q² + f·q). The price `p` feeds two nodes (a
+/// branch point); demand `q` is used by three nodes, one of which uses it
+/// twice (q·q), so its adjoint collects four contributions; the costs are an
+/// add, which passes its adjoint on unchanged. Fifteen nodes, small enough
+/// to step by hand.
 pub fn teaching() -> TraceFile {
     let mut tape = Tape::new("market stall: profit at one price", Dtype::F64);
-    tape.describe("A stall sells at price p with demand q = exp(-s*p); profit = (p - c)*q - k*q^2. Step it to watch p and q collect adjoints from two branches.");
-    let (price, cost, sensitivity, storage) = tape.scoped("inputs", |tape| {
+    tape.describe("A stall sells at price p with demand q = exp(-s*p); profit = (p - c)*q - (k*q^2 + f*q). Step it to watch q collect adjoints from three nodes, one of them using it twice.");
+    let (price, cost, sensitivity, storage, fee_rate) = tape.scoped("inputs", |tape| {
         (
             tape.param("price", 2.5),
             tape.input("unit_cost", 1.0),
             tape.param("sensitivity", 0.4),
             tape.constant("storage_rate", 0.1),
+            tape.constant("fee_rate", 0.05),
         )
     });
     let demand = tape.scoped("demand", |tape| {
@@ -59,7 +63,11 @@ pub fn teaching() -> TraceFile {
         let square = tape.rename(square, "demand_sq");
         let storage_cost = tape.mul(storage, square);
         let storage_cost = tape.rename(storage_cost, "storage");
-        let profit = tape.sub(revenue, storage_cost);
+        let fee = tape.mul(fee_rate, demand);
+        let fee = tape.rename(fee, "fee");
+        let costs = tape.add(storage_cost, fee);
+        let costs = tape.rename(costs, "costs");
+        let profit = tape.sub(revenue, costs);
         tape.rename(profit, "profit")
     });
     tape.finish(profit)

@@ -1,62 +1,49 @@
 //! Everything a user can ask of the view, as named actions: keys and mouse
-//! events become these, and `App::update` is the only place that acts on them.
+//! events become these, and `App::update` is the only place that acts on
+//! them. Panes are named by [`PaneId`], which the pane registry hands out.
 
-/// The panes, which are also what can hold focus.
+use super::panes;
+
+/// A pane, by the name its title shows. Only the registry in
+/// `panes/mod.rs` makes them, so every `PaneId` names a registered pane.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
-pub enum PaneId {
-    /// The sweep order: every node that reaches the output.
-    Order,
-    /// The selected node: op, value, summary, partials, adjoint.
-    Node,
-    /// The contributions the selected node has received and those still to come.
-    Inflow,
-    /// The selected node's inputs and consumers, and a drawing of small graphs.
-    Edges,
-    /// log10 of the adjoint norm along the sweep and per group.
-    Trend,
-    /// The flags raised so far.
-    Flags,
-    /// The suspects of `ebb verify`, and recorded against recomputed partials.
-    Verify,
-    /// The dominant path to a parameter, hop by hop, and the adjoint norm per group.
-    Paths,
-}
+pub struct PaneId(&'static str);
 
 impl PaneId {
-    /// Every pane in focus order.
-    pub const ALL: [PaneId; 8] = [
-        PaneId::Order,
-        PaneId::Node,
-        PaneId::Inflow,
-        PaneId::Edges,
-        PaneId::Trend,
-        PaneId::Flags,
-        PaneId::Verify,
-        PaneId::Paths,
-    ];
+    /// The id of the pane titled `name` (for the registry's entries).
+    pub(super) const fn new(name: &'static str) -> PaneId {
+        PaneId(name)
+    }
 
     /// The pane's name as shown in its title, the help and README.
     pub fn name(self) -> &'static str {
-        match self {
-            PaneId::Order => "Order",
-            PaneId::Node => "Node",
-            PaneId::Inflow => "Inflow",
-            PaneId::Edges => "Edges",
-            PaneId::Trend => "Trend",
-            PaneId::Flags => "Flags",
-            PaneId::Verify => "Verify",
-            PaneId::Paths => "Paths",
-        }
+        self.0
+    }
+
+    /// The registered pane with this name (any case), if any.
+    pub fn named(name: &str) -> Option<PaneId> {
+        panes::ids().find(|id| id.0.eq_ignore_ascii_case(name))
+    }
+
+    /// Every registered pane, in focus order.
+    pub fn all() -> Vec<PaneId> {
+        panes::ids().collect()
+    }
+
+    /// The pane's place in focus order, from 1 (its number key).
+    pub fn number(self) -> usize {
+        panes::ids()
+            .position(|id| id == self)
+            .expect("every PaneId is registered")
+            + 1
     }
 
     /// The next pane in focus order (wrapping), or the previous one.
     pub fn cycle(self, forward: bool) -> PaneId {
-        let at = PaneId::ALL
-            .iter()
-            .position(|&pane| pane == self)
-            .expect("every pane is listed");
-        let len = PaneId::ALL.len();
-        PaneId::ALL[if forward {
+        let all = PaneId::all();
+        let at = self.number() - 1;
+        let len = all.len();
+        all[if forward {
             (at + 1) % len
         } else {
             (at + len - 1) % len
@@ -71,7 +58,7 @@ pub enum Action {
     Step,
     /// Undo the last step exactly.
     Back,
-    /// Step until a new flag is raised.
+    /// Step until a flag is raised or a step with a diagnosis finding is done.
     RunToFlag,
     /// Step to the end of the sweep.
     RunToEnd,
@@ -83,6 +70,8 @@ pub enum Action {
     OpenJump,
     /// Open the prompt to search by id, op or group.
     OpenSearch,
+    /// Open the prompt to run the sweep until a condition holds.
+    OpenWatch,
     /// Select the next match of the last search.
     SearchNext,
     /// Select the previous match of the last search.
@@ -101,7 +90,7 @@ pub enum Action {
     Help,
     /// Leave Ebb.
     Quit,
-    /// Close the prompt, the help or the zoom.
+    /// Cancel the work under way, or close the prompt, the help or the zoom.
     Cancel,
     /// Move down one row in the focused pane.
     Down,
@@ -115,7 +104,7 @@ pub enum Action {
     Top,
     /// Go to the last row.
     Bottom,
-    /// Open what the row names: follow an edge, jump to a flag, select a node.
+    /// Open what the row names (what it does depends on the pane).
     Enter,
     /// Go back along the walk history.
     WalkBack,
@@ -149,8 +138,9 @@ pub enum Action {
     PreviousParameter,
 }
 
-/// Every action a key file may bind, under the name it uses there.
-pub const BINDABLE: &[(&str, Action)] = &[
+/// Every action a key file may bind except focusing one pane (those are
+/// `focus_` and the pane's name, see [`bindable`]), under the name it uses there.
+const NAMED: &[(&str, Action)] = &[
     ("step", Action::Step),
     ("back", Action::Back),
     ("run_to_flag", Action::RunToFlag),
@@ -159,18 +149,11 @@ pub const BINDABLE: &[(&str, Action)] = &[
     ("select_current", Action::SelectCurrent),
     ("open_jump", Action::OpenJump),
     ("open_search", Action::OpenSearch),
+    ("open_watch", Action::OpenWatch),
     ("search_next", Action::SearchNext),
     ("search_previous", Action::SearchPrevious),
     ("focus_next", Action::FocusNext),
     ("focus_previous", Action::FocusPrevious),
-    ("focus_order", Action::Focus(PaneId::Order)),
-    ("focus_node", Action::Focus(PaneId::Node)),
-    ("focus_inflow", Action::Focus(PaneId::Inflow)),
-    ("focus_edges", Action::Focus(PaneId::Edges)),
-    ("focus_trend", Action::Focus(PaneId::Trend)),
-    ("focus_flags", Action::Focus(PaneId::Flags)),
-    ("focus_verify", Action::Focus(PaneId::Verify)),
-    ("focus_paths", Action::Focus(PaneId::Paths)),
     ("zoom", Action::Zoom),
     ("cycle_theme", Action::CycleTheme),
     ("help", Action::Help),
@@ -197,27 +180,56 @@ pub const BINDABLE: &[(&str, Action)] = &[
     ("previous_parameter", Action::PreviousParameter),
 ];
 
+/// Every action a key file may bind, under the name it uses there: the named
+/// ones, then `focus_order`, `focus_node`, … for each registered pane.
+pub fn bindable() -> Vec<(String, Action)> {
+    let mut all: Vec<(String, Action)> = NAMED
+        .iter()
+        .map(|(name, action)| (name.to_string(), *action))
+        .collect();
+    all.extend(PaneId::all().into_iter().map(|pane| {
+        (
+            format!("focus_{}", pane.name().to_lowercase()),
+            Action::Focus(pane),
+        )
+    }));
+    all
+}
+
 impl Action {
     /// The name a key file uses for this action (`None` for typed
     /// characters and mouse events, which no key file binds).
-    pub fn name(self) -> Option<&'static str> {
-        BINDABLE
-            .iter()
-            .find(|(_, action)| *action == self)
-            .map(|(name, _)| *name)
+    pub fn name(self) -> Option<String> {
+        match self {
+            Action::Focus(pane) => Some(format!("focus_{}", pane.name().to_lowercase())),
+            _ => NAMED
+                .iter()
+                .find(|(_, action)| *action == self)
+                .map(|(name, _)| name.to_string()),
+        }
     }
 
-    /// What the action does, for the help overlay.
+    /// The action a key file or a `{key:NAME}` placeholder names.
+    pub fn named(name: &str) -> Option<Action> {
+        bindable()
+            .into_iter()
+            .find(|(listed, _)| listed == name)
+            .map(|(_, action)| action)
+    }
+
+    /// What the action does wherever no pane gives it a meaning of its own,
+    /// for the help and the status line.
     pub fn describe(self) -> &'static str {
         match self {
             Action::Step => "step: process the next node",
             Action::Back => "step back (exact undo)",
-            Action::RunToFlag => "run to the next flag",
+            Action::RunToFlag => "run to the next flag or diagnosis finding",
             Action::RunToEnd => "run to the end of the sweep",
             Action::Restart => "restart the sweep",
             Action::SelectCurrent => "select the current node and follow the sweep",
-            Action::OpenJump => "jump to a node by id (Tab completes)",
+            Action::OpenJump => "jump to a node by id (the prompt completes ids)",
             Action::OpenSearch => "search by id, op or group",
+            Action::OpenWatch => "watch: run the sweep until a condition holds",
             Action::SearchNext => "next search match",
             Action::SearchPrevious => "previous search match",
             Action::FocusNext => "focus the next pane",
@@ -227,15 +239,15 @@ impl Action {
             Action::CycleTheme => "next theme",
             Action::Help => "show / hide this help",
             Action::Quit => "quit",
-            Action::Cancel => "close prompt, help or zoom",
+            Action::Cancel => "cancel the work under way; close prompt, help or zoom",
             Action::Down => "down one row",
             Action::Up => "up one row",
             Action::PageDown => "down one page",
             Action::PageUp => "up one page",
             Action::Top => "first row",
             Action::Bottom => "last row",
-            Action::Enter => "open the row: follow edge / jump to flag",
-            Action::WalkBack => "walk back to the previous node",
+            Action::Enter => "open the row",
+            Action::WalkBack => "walk back to the node selected before",
             Action::Type(_) => "type",
             Action::Erase => "delete a character",
             Action::Complete => "complete the node id",
@@ -257,7 +269,7 @@ impl Action {
         }
     }
 
-    /// A one-word name for the status-line hints.
+    /// A few words for the status-line hints, where no pane gives its own.
     pub fn hint(self) -> &'static str {
         match self {
             Action::Step => "step",
@@ -268,6 +280,7 @@ impl Action {
             Action::SelectCurrent => "current",
             Action::OpenJump => "jump",
             Action::OpenSearch => "search",
+            Action::OpenWatch => "watch",
             Action::SearchNext => "next match",
             Action::SearchPrevious => "prev match",
             Action::FocusNext => "pane",
@@ -277,7 +290,7 @@ impl Action {
             Action::CycleTheme => "theme",
             Action::Help => "help",
             Action::Quit => "quit",
-            Action::Cancel => "close",
+            Action::Cancel => "cancel",
             Action::Down | Action::Up => "move",
             Action::PageDown | Action::PageUp => "page",
             Action::Top | Action::Bottom => "ends",

@@ -1,26 +1,26 @@
-//! The view's state and its one `update(Action)`: the sweep, what is
-//! selected and focused, the overlays, and the caches panes read per frame.
+//! The app: the session, the panes, the layout state, the overlays, the key
+//! map and the work queue, and its one `update(Action)`. Actions aimed at a
+//! pane go to the pane; what panes ask for comes back as messages, drained
+//! here in order; long work is queued for the worker.
 
 use super::action::{Action, PaneId};
-use super::checks::Checks;
-use super::diagnosis::{AUTO_NODES, Diagnosed, Diagnoses, Work};
-use super::forward::Forward;
+use super::diagnosis::AUTO_NODES;
+use super::ids::NodeIx;
 use super::keymap::{Key, KeyMap};
-use super::layers::Layers;
-use super::layout;
-use super::neighbours::{EdgeRow, edges};
-use super::panes::{self, Move};
-use super::precision::{Contrast, Retyped, next_dtype};
-use super::prompt::{Prompt, PromptKind, matches, sorted_ids};
-use super::tally::Tally;
+use super::layout::{self, LayoutState};
+use super::message::{Msg, Outbox};
+use super::panes::{self, Ctx, Pane};
+use super::precision::{Traces, next_dtype};
+use super::prompt::{Prompt, PromptKind};
+use super::session::{Note, Session};
 use super::theme::Theme;
-use crate::dtype::Dtype;
-use crate::stats::Summary;
-use crate::sweep::{LedgerMode, Sweep};
-use crate::tensor::Value;
-use crate::trace::Trace;
+use super::watch::Condition;
+use super::work::{Finished, Job, Outcome, Progress, Running, Task};
+use crate::diagnose::Settings;
 use ratatui::layout::Rect;
-use std::collections::HashMap;
+use std::collections::VecDeque;
+use std::sync::Arc;
+use std::time::Instant;
 
 /// What covers the panes, if anything.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -29,328 +29,126 @@ pub enum Overlay {
     None,
     /// The list of keys, scrolled by some rows.
     Help(usize),
-    /// The jump or search prompt.
+    /// The jump, search or watch prompt.
     Prompt(Prompt),
-}
-
-/// Summaries of the selected node, computed when the selection or the sweep
-/// changes, never per frame.
-#[derive(Debug, Clone, Default)]
-pub struct Selection {
-    /// Summary of the forward value (tensors only).
-    pub value: Option<Summary>,
-    /// Summary of the adjoint so far (tensors only).
-    pub adjoint: Option<Summary>,
-    /// The node's input and consumer edges with their partials.
-    pub edges: Vec<EdgeRow>,
-    /// The node these describe.
-    node: Option<usize>,
-    /// The sweep position the adjoint summary is for.
-    cursor: usize,
 }
 
 /// The state of the terminal view.
 pub struct App<'t> {
-    /// The trace on screen.
-    pub trace: &'t Trace,
-    /// The sweep being stepped (its ledger is on).
-    pub sweep: Sweep<'t>,
-    /// Where the trace came from, for the status line.
-    pub label: String,
-    /// Keys to actions.
-    pub keymap: KeyMap,
-    /// The themes `t` cycles through; `theme_at` is in use.
-    pub themes: Vec<Theme>,
-    /// Index of the theme in use.
-    pub theme_at: usize,
-    /// The focused pane.
-    pub focus: PaneId,
-    /// The pane shown in the shared slot of the narrow layout.
-    pub side: PaneId,
-    /// Whether the focused pane fills the screen.
-    pub zoomed: bool,
-    /// The help or the prompt, if open.
-    pub overlay: Overlay,
-    /// The node shown in Node, Inflow and Edges.
-    pub selected: usize,
-    /// Whether the selection follows the sweep's current node.
-    pub follow: bool,
-    /// First sweep step shown in Order.
-    pub order_offset: usize,
-    /// First element row shown in Node.
-    pub node_scroll: usize,
-    /// First row shown in Inflow.
-    pub inflow_scroll: usize,
-    /// Highlighted edge in Edges.
-    pub edge_cursor: usize,
-    /// Nodes walked from, most recent last.
-    pub walk: Vec<usize>,
-    /// Highlighted flag in Flags.
-    pub flag_cursor: usize,
-    /// The last search.
-    pub search: Option<String>,
-    /// A one-line message for the status line, until the next action.
-    pub message: Option<String>,
-    /// Set by the quit action.
-    pub quit: bool,
-    /// The terminal's size at the last draw.
-    pub area: Rect,
-    /// Per-node norms, group norms and flag marks.
-    pub tally: Tally,
-    /// Summaries and edges of the selected node.
-    pub selection: Selection,
-    /// The layered drawing, for small traces.
-    pub layers: Option<Layers>,
-    /// Summaries of forward values already computed (they never change).
-    value_summaries: HashMap<usize, Summary>,
-    /// Node indices sorted by id, built on the first jump.
-    by_id: Option<Vec<usize>>,
-    /// The pane in the Trend slot of the wide layout: Trend or Verify.
-    pub corner: PaneId,
-    /// The verification checks and the Verify pane's cursor.
-    pub checks: Checks,
-    /// Forward mode's tangent sweep, while it is on.
-    pub forward: Option<Forward<'t>>,
-    /// The trace as loaded; `trace` is a re-typed copy of it while the precision toggle is on.
-    pub recorded: &'t Trace,
-    /// The diagnosis of each dtype swept so far.
-    pub diagnoses: Diagnoses,
-    /// While the precision toggle is on: the sweep over the recorded trace, kept at the view sweep's cursor.
-    pub compare: Option<Sweep<'t>>,
-    /// Work queued for after the next frame, which says it is under way.
-    pub work: Option<Work>,
-    /// Highlighted row in Paths.
-    pub paths_cursor: usize,
-    /// The parameter Paths showed last, kept while the selection is not a parameter.
-    pub paths_param: Option<usize>,
-    /// While the precision toggle is on: the selected node's adjoint against the recorded dtype's.
-    pub contrast: Option<Contrast>,
-    /// The re-typed copies the precision toggle sweeps over (see [`App::with_copies`]).
-    copies: Option<&'t Retyped<'t>>,
+    session: Session<'t>,
+    panes: Vec<Box<dyn Pane>>,
+    layout: LayoutState,
+    overlay: Overlay,
+    keymap: KeyMap,
+    themes: Vec<Theme>,
+    theme_at: usize,
+    label: String,
+    message: Option<String>,
+    quit: bool,
+    settings: Settings,
+    queue: VecDeque<Job>,
+    running: Option<Running>,
+    next_id: u64,
+    outbox: Outbox,
+    last_watch: String,
 }
 
 impl<'t> App<'t> {
-    /// The view of a fresh sweep over `trace`, with `themes` to cycle (the first in use).
-    pub fn new(trace: &'t Trace, label: &str, themes: Vec<Theme>) -> App<'t> {
-        let sweep = Sweep::new(trace, LedgerMode::On);
-        let tally = Tally::new(&sweep);
+    /// The view of a fresh sweep over `traces`' recorded trace, with
+    /// `themes` to cycle (the first in use). Nothing costly runs here: the
+    /// diagnosis (traces up to [`AUTO_NODES`] nodes) and the forward-value
+    /// survey are queued for the worker.
+    pub fn new(traces: &'t Arc<Traces>, label: &str, themes: Vec<Theme>) -> App<'t> {
+        let session = Session::new(traces);
         let themes = if themes.is_empty() {
             vec![Theme::default_theme()]
         } else {
             themes
         };
+        let nodes = session.trace().nodes().len();
         let mut app = App {
-            trace,
-            label: label.to_string(),
+            panes: panes::specs().iter().map(|spec| (spec.make)()).collect(),
+            session,
+            layout: LayoutState::new(),
+            overlay: Overlay::None,
             keymap: KeyMap::default(),
             themes,
             theme_at: 0,
-            focus: PaneId::Order,
-            side: PaneId::Inflow,
-            zoomed: false,
-            overlay: Overlay::None,
-            selected: trace.output(),
-            follow: true,
-            order_offset: 0,
-            node_scroll: 0,
-            inflow_scroll: 0,
-            edge_cursor: 0,
-            walk: Vec::new(),
-            flag_cursor: 0,
-            search: None,
+            label: label.to_string(),
             message: None,
             quit: false,
-            area: Rect::new(0, 0, 80, 24),
-            tally,
-            selection: Selection::default(),
-            layers: Layers::of(trace),
-            value_summaries: HashMap::new(),
-            by_id: None,
-            corner: PaneId::Trend,
-            checks: Checks::default(),
-            forward: None,
-            sweep,
-            recorded: trace,
-            diagnoses: Diagnoses::default(),
-            compare: None,
-            work: None,
-            paths_cursor: 0,
-            paths_param: None,
-            contrast: None,
-            copies: None,
+            settings: Settings::default(),
+            queue: VecDeque::new(),
+            running: None,
+            next_id: 0,
+            outbox: Outbox::default(),
+            last_watch: String::new(),
         };
-        if trace.nodes().len() <= AUTO_NODES {
-            app.work = Some(Work::Diagnose);
+        app.queue.push_back(Job::Survey);
+        if nodes <= AUTO_NODES {
+            app.queue
+                .push_back(Job::Diagnose(app.session.trace().dtype()));
         } else {
-            app.message = Some(format!(
-                "{} nodes: D runs the diagnosis (it sweeps the trace several times)",
-                trace.nodes().len()
+            app.message = Some(app.keymap.fill(
+                &format!("{nodes} nodes: {{key:diagnose}} runs the diagnosis (it sweeps the trace several times)"),
+                app.layout.focus,
             ));
         }
-        app.refresh();
+        app.sync_panes();
         app
     }
 
-    /// Lets the precision toggle sweep re-typed copies of the trace; `copies`
-    /// must be made from this app's trace.
-    pub fn with_copies(mut self, copies: &'t Retyped<'t>) -> App<'t> {
-        debug_assert!(
-            std::ptr::eq(copies.recorded(), self.recorded),
-            "copies of another trace"
-        );
-        self.copies = Some(copies);
-        self
-    }
-
     /// The view with `keymap` (`ebb open --keys`) in place of the default
-    /// keys; help and hints follow it.
+    /// keys; help, hints and messages follow it.
     pub fn with_keymap(mut self, keymap: KeyMap) -> App<'t> {
         self.keymap = keymap;
         self
     }
 
     /// Diagnoses with these thresholds (`ebb open --rules/--set`) instead of the defaults.
-    pub fn with_settings(mut self, settings: crate::diagnose::Settings) -> App<'t> {
-        self.diagnoses = Diagnoses::with_settings(settings);
+    pub fn with_settings(mut self, settings: Settings) -> App<'t> {
+        self.settings = settings;
         self
     }
 
-    /// The diagnosis of the sweep on screen (in the view's dtype), once made.
-    pub fn diagnosis(&self) -> Option<&Diagnosed> {
-        self.diagnoses.get(self.trace.dtype())
+    /// The session.
+    pub fn session(&self) -> &Session<'t> {
+        &self.session
     }
 
-    /// Whether work is queued: the event loop draws a frame, then calls [`App::work`].
-    pub fn has_work(&self) -> bool {
-        self.work.is_some()
+    /// The layout state.
+    pub fn layout(&self) -> &LayoutState {
+        &self.layout
     }
 
-    /// Does the queued work: a diagnosis, or the sweep in another dtype.
-    pub fn work(&mut self) {
-        match self.work.take() {
-            None => return,
-            Some(Work::Diagnose) => {
-                let replays = self.trace.dtype() == self.recorded.dtype();
-                let diagnosed = self.diagnoses.run(self.trace, replays);
-                self.message = Some(diagnosis_message(self.trace, diagnosed));
-            }
-            Some(Work::Retype(dtype)) => self.retype(dtype),
-        }
-        self.refresh();
+    /// The focused pane.
+    pub fn focus(&self) -> PaneId {
+        self.layout.focus
     }
 
-    /// Sweeps the trace re-typed into `dtype` up to the same step, and diagnoses it if the recorded one was.
-    fn retype(&mut self, dtype: Dtype) {
-        let Some(copies) = self.copies else { return };
-        // The tangent sweep runs over the trace it was started on: forward mode ends here.
-        let left_forward = self.forward.take().is_some();
-        let cursor = self.sweep.cursor();
-        self.trace = copies.get(dtype);
-        self.sweep = Sweep::new(self.trace, LedgerMode::On);
-        self.tally = Tally::new(&self.sweep);
-        self.value_summaries.clear();
-        self.selection = Selection::default();
-        self.seek(cursor);
-        let recorded = self.recorded;
-        self.compare = (dtype != recorded.dtype()).then(|| Sweep::new(recorded, LedgerMode::On));
-        if self.diagnoses.get(recorded.dtype()).is_some() {
-            self.diagnoses.run(self.trace, false);
-        }
-        let note = if left_forward {
-            "; forward mode ended (m starts it again)"
-        } else {
-            ""
-        };
-        self.message = Some(precision_message(self) + note);
+    /// The key map.
+    pub fn keymap(&self) -> &KeyMap {
+        &self.keymap
     }
 
-    fn cycle_precision(&mut self) {
-        if self.copies.is_none() {
-            self.message = Some(
-                "the precision toggle needs the trace's copies (App::with_copies)".to_string(),
-            );
-            return;
-        }
-        let dtype = next_dtype(self.recorded.dtype(), self.trace.dtype());
-        self.work = Some(Work::Retype(dtype));
-        self.message = Some(format!("sweeping in {dtype} …"));
+    /// The overlay, if any.
+    pub fn overlay(&self) -> &Overlay {
+        &self.overlay
     }
 
-    fn ask_diagnosis(&mut self) {
-        match self.diagnosis() {
-            Some(diagnosed) => self.message = Some(diagnosis_message(self.trace, diagnosed)),
-            None => {
-                self.work = Some(Work::Diagnose);
-                self.message = Some(format!(
-                    "diagnosing {} nodes in {} …",
-                    self.trace.nodes().len(),
-                    self.trace.dtype()
-                ));
-            }
-        }
+    /// The status line's message, until the next action.
+    pub fn message(&self) -> Option<&str> {
+        self.message.as_deref()
     }
 
-    /// Selects the origin behind the selected node, else the first origin.
-    fn jump_to_origin(&mut self) {
-        let Some(diagnosed) = self.diagnosis() else {
-            self.message = Some("no diagnosis yet: D runs it".to_string());
-            return;
-        };
-        let origin = diagnosed
-            .origin_for(self.selected)
-            .or(diagnosed.diagnosis.first_origin());
-        match origin {
-            Some(origin) => {
-                let (node, letter) = (origin.node, origin.class.letter());
-                let text = format!(
-                    "origin ({letter}) at '{}': {}",
-                    self.trace.node(node).id,
-                    origin.explanation
-                );
-                self.jump(node);
-                self.message = Some(text);
-            }
-            None => {
-                self.message = Some(format!(
-                    "every adjoint is finite in {}: no origin to trace back",
-                    self.trace.dtype()
-                ))
-            }
-        }
+    /// Where the trace came from.
+    pub fn label(&self) -> &str {
+        &self.label
     }
 
-    /// Selects the next (or previous) parameter that has a dominant path.
-    fn step_parameter(&mut self, forward: bool) {
-        let Some(diagnosed) = self.diagnosis() else {
-            self.message = Some("no diagnosis yet: D runs it".to_string());
-            return;
-        };
-        let params: Vec<usize> = diagnosed
-            .diagnosis
-            .paths
-            .iter()
-            .map(|path| path.param)
-            .collect();
-        if params.is_empty() {
-            self.message =
-                Some("no parameter reaches the output through edges of known gain".to_string());
-            return;
-        }
-        let shown = panes::paths_param(self);
-        let at = shown.and_then(|param| params.iter().position(|&listed| listed == param));
-        let len = params.len();
-        let next = match at {
-            Some(at) if forward => (at + 1) % len,
-            Some(at) => (at + len - 1) % len,
-            None => 0,
-        };
-        self.jump(params[next]);
-        self.paths_cursor = 0;
-    }
-
-    /// Rows in Flags: the sweep's flags so far, then the diagnosis's rows.
-    pub fn flag_rows(&self) -> usize {
-        self.sweep.flags().len() + self.diagnosis().map_or(0, |diagnosed| diagnosed.rows.len())
+    /// Set once the user quits.
+    pub fn has_quit(&self) -> bool {
+        self.quit
     }
 
     /// The theme in use.
@@ -358,21 +156,50 @@ impl<'t> App<'t> {
         &self.themes[self.theme_at]
     }
 
+    /// The work under way, if any.
+    pub fn running(&self) -> Option<&Running> {
+        self.running.as_ref()
+    }
+
+    /// Whether work is under way or waiting.
+    pub fn is_working(&self) -> bool {
+        self.running.is_some() || !self.queue.is_empty()
+    }
+
     /// Records the terminal size (before each draw and on resize).
     pub fn resize(&mut self, area: Rect) {
-        self.area = area;
-        self.keep_order_visible();
+        if self.layout.area != area {
+            self.layout.area = area;
+            self.sync_panes();
+        }
     }
 
     /// Handles one key press: looks it up in the key map and updates.
     pub fn key(&mut self, key: Key) {
         let prompt = matches!(self.overlay, Overlay::Prompt(_));
-        if let Some(action) = self.keymap.lookup(key, self.focus, prompt) {
+        if let Some(action) = self.keymap.lookup(key, self.layout.focus, prompt) {
             self.update(action);
         }
     }
 
-    /// Applies one action. The only place state changes.
+    /// A pane's context.
+    pub(super) fn ctx(&self, pane: PaneId) -> Ctx<'_, 't> {
+        ctx_of(
+            &self.session,
+            &self.themes[self.theme_at],
+            &self.keymap,
+            &self.layout,
+            self.running.as_ref(),
+            pane,
+        )
+    }
+
+    /// The pane with id `id`.
+    pub(super) fn pane(&self, id: PaneId) -> &dyn Pane {
+        self.panes[id.number() - 1].as_ref()
+    }
+
+    /// Applies one action. The only place state changes on a key.
     pub fn update(&mut self, action: Action) {
         self.message = None;
         match std::mem::replace(&mut self.overlay, Overlay::None) {
@@ -386,113 +213,202 @@ impl<'t> App<'t> {
                 }
                 Action::PageDown => self.overlay = Overlay::Help(scroll + 10),
                 Action::PageUp => self.overlay = Overlay::Help(scroll.saturating_sub(10)),
-                other => self.pane_action(other),
+                _ => self.overlay = Overlay::Help(scroll),
             },
-            Overlay::None => self.pane_action(action),
+            Overlay::None => self.act(action),
         }
-        self.refresh();
+        self.drain();
     }
 
-    fn pane_action(&mut self, action: Action) {
-        if self.forward_action(action) {
-            return;
-        }
-        match action {
-            Action::Step => {
-                if !self.advance() {
-                    self.message = Some(
-                        "the sweep is done: every adjoint is final (b steps back, r restarts)"
-                            .to_string(),
-                    );
-                }
-            }
-            Action::Back => {
-                if !self.retreat() {
-                    self.message = Some("at the start: only the output holds its seed".to_string());
-                }
-            }
-            Action::RunToFlag => self.run_to_flag(),
-            Action::RunToEnd => while self.advance() {},
+    fn act(&mut self, action: Action) {
+        let session = &mut self.session;
+        let note: Note = match action {
+            Action::Step => session.step(),
+            Action::Back => session.back(),
+            Action::RunToFlag => session.run_to_flag(),
+            Action::RunToEnd => session.run_to_end(),
             Action::Restart => {
-                self.sweep.restart();
-                self.tally.reset(&self.sweep);
-                self.follow = true;
+                session.restart();
+                None
             }
-            Action::SelectCurrent => self.follow = true,
-            Action::OpenJump => {
-                let by_id = self.by_id.get_or_insert_with(|| sorted_ids(self.trace));
-                let mut prompt = Prompt::new(PromptKind::Jump);
-                prompt.refresh(self.trace, by_id);
-                self.overlay = Overlay::Prompt(prompt);
+            Action::SelectCurrent => {
+                session.follow_current();
+                None
             }
-            Action::OpenSearch => self.overlay = Overlay::Prompt(Prompt::new(PromptKind::Search)),
-            Action::SearchNext => self.search_from(true),
-            Action::SearchPrevious => self.search_from(false),
-            Action::FocusNext => self.set_focus(self.focus.cycle(true)),
-            Action::FocusPrevious => self.set_focus(self.focus.cycle(false)),
+            Action::OpenJump => self.open_prompt(PromptKind::Jump),
+            Action::OpenSearch => self.open_prompt(PromptKind::Search),
+            Action::OpenWatch => self.open_prompt(PromptKind::Watch),
+            Action::SearchNext => session.search(None, true),
+            Action::SearchPrevious => session.search(None, false),
+            Action::FocusNext => self.set_focus(self.layout.focus.cycle(true)),
+            Action::FocusPrevious => self.set_focus(self.layout.focus.cycle(false)),
             Action::Focus(pane) => self.set_focus(pane),
-            Action::Zoom => self.zoomed = !self.zoomed,
-            Action::Cancel => self.zoomed = false,
+            Action::Zoom => {
+                self.layout.zoomed = !self.layout.zoomed;
+                None
+            }
+            Action::Cancel => self.cancel(),
             Action::CycleTheme => {
                 self.theme_at = (self.theme_at + 1) % self.themes.len();
-                self.message = Some(format!("theme: {}", self.theme().name));
+                Some(format!("theme: {}", self.theme().name))
             }
-            Action::Help => self.overlay = Overlay::Help(0),
-            Action::Quit => self.quit = true,
-            Action::Down => self.move_focused(Move::By(1)),
-            Action::Up => self.move_focused(Move::By(-1)),
-            Action::PageDown => self.move_focused(Move::By(self.page() as isize)),
-            Action::PageUp => self.move_focused(Move::By(-(self.page() as isize))),
-            Action::Top => self.move_focused(Move::Top),
-            Action::Bottom => self.move_focused(Move::Bottom),
-            Action::Enter => panes::pane(self.focus).enter(self),
-            Action::WalkBack => match self.walk.pop() {
-                Some(node) => self.select(node),
-                None => {
-                    self.message = Some(
-                        "the walk history is empty (Enter on an edge in Edges walks along it)"
-                            .to_string(),
-                    )
-                }
-            },
-            Action::Click(pane, row) => {
-                self.set_focus(pane);
-                panes::pane(pane).click(self, row as usize);
+            Action::Help => {
+                self.overlay = Overlay::Help(0);
+                None
             }
-            Action::Scroll(pane, rows) => {
-                panes::pane(pane).move_cursor(self, Move::By(rows as isize))
+            Action::Quit => {
+                self.quit = true;
+                None
             }
+            Action::WalkBack => session.walk_back(),
             Action::Diagnose => self.ask_diagnosis(),
             Action::CyclePrecision => self.cycle_precision(),
-            Action::JumpToOrigin => self.jump_to_origin(),
-            Action::NextParameter => self.step_parameter(true),
-            Action::PreviousParameter => self.step_parameter(false),
-            Action::Type(_) | Action::Erase | Action::Complete | Action::Submit => {}
+            Action::JumpToOrigin => session.jump_to_origin(),
+            Action::ToggleForward => session.toggle_forward(),
+            Action::CycleDirection => session.cycle_direction(),
             Action::Verify => {
-                // Focusing the pane runs the checks the first time; the key reruns them after that.
-                let rerun = self.checks.verification.is_some();
-                self.set_focus(PaneId::Verify);
+                let verify = PaneId::named("Verify").expect("the Verify pane is registered");
+                let rerun = self.session.verified().is_some();
+                let note = self.set_focus(verify);
                 if rerun {
-                    self.request_verification();
+                    self.request(Job::Verify(self.session.trace().dtype()));
                 }
+                note
             }
-            Action::ToggleForward => self.toggle_forward(),
-            Action::CycleDirection => self.cycle_direction(),
+            Action::Click(pane, _) => {
+                let note = self.set_focus(pane);
+                self.send_to_pane(pane, action);
+                note
+            }
+            Action::Scroll(pane, _) => {
+                self.send_to_pane(pane, action);
+                None
+            }
+            Action::Type(_) | Action::Erase | Action::Complete | Action::Submit => None,
+            // Movement, Enter and the panes' own keys go to the focused pane.
+            _ => {
+                self.send_to_pane(self.layout.focus, action);
+                None
+            }
+        };
+        if let Some(note) = note {
+            self.say(&note);
         }
+    }
+
+    /// Hands `action` to pane `pane`; its messages wait in the outbox.
+    fn send_to_pane(&mut self, pane: PaneId, action: Action) {
+        let at = pane.number() - 1;
+        let ctx = ctx_of(
+            &self.session,
+            &self.themes[self.theme_at],
+            &self.keymap,
+            &self.layout,
+            self.running.as_ref(),
+            pane,
+        );
+        self.panes[at].handle(action, &ctx, &mut self.outbox);
+    }
+
+    /// Applies one message, as a pane would send it.
+    pub fn apply(&mut self, message: Msg) {
+        self.outbox.send(message);
+        self.drain();
+    }
+
+    /// Applies every queued message, then lets each pane catch up with the
+    /// session (which may queue more: bounded, a pane asks once).
+    fn drain(&mut self) {
+        for _ in 0..8 {
+            for message in self.outbox.drain() {
+                self.receive(message);
+            }
+            self.sync_panes();
+            if self.outbox.is_empty() {
+                return;
+            }
+        }
+    }
+
+    fn receive(&mut self, message: Msg) {
+        let note = match message {
+            Msg::Select(node) => {
+                self.session.select(node);
+                None
+            }
+            Msg::Jump(node) => {
+                self.session.jump(node);
+                None
+            }
+            Msg::Seek(step) => {
+                let keep = self.session.selected();
+                self.session.seek(step);
+                self.session.select(keep);
+                None
+            }
+            Msg::SeekTangent(node) => {
+                self.session.seek_tangent(node);
+                None
+            }
+            Msg::Status(text) => Some(text),
+            Msg::Request(job) => {
+                self.request(job);
+                None
+            }
+            Msg::Focus(pane) => self.set_focus(pane),
+        };
+        if let Some(note) = note {
+            self.say(&note);
+        }
+    }
+
+    /// Lets every pane catch up with the session and the layout.
+    fn sync_panes(&mut self) {
+        for (at, spec) in panes::specs().iter().enumerate() {
+            let ctx = ctx_of(
+                &self.session,
+                &self.themes[self.theme_at],
+                &self.keymap,
+                &self.layout,
+                self.running.as_ref(),
+                spec.id,
+            );
+            self.panes[at].sync(&ctx, &mut self.outbox);
+        }
+    }
+
+    /// Shows `text` in the status line, its `{key:NAME}`s filled in.
+    fn say(&mut self, text: &str) {
+        self.message = Some(self.keymap.fill(text, self.layout.focus));
+    }
+
+    fn set_focus(&mut self, pane: PaneId) -> Note {
+        self.layout.focus(pane);
+        None
+    }
+
+    fn open_prompt(&mut self, kind: PromptKind) -> Note {
+        let mut prompt = Prompt::new(kind);
+        if kind == PromptKind::Watch {
+            prompt.text = self.last_watch.clone();
+        }
+        prompt.refresh(self.session.trace(), self.session.by_id());
+        self.overlay = Overlay::Prompt(prompt);
+        None
     }
 
     fn prompt_action(&mut self, mut prompt: Prompt, action: Action) {
-        let by_id = self.by_id.get_or_insert_with(|| sorted_ids(self.trace));
+        let trace = self.session.trace();
         match action {
             Action::Type(c) => {
                 prompt.text.push(c);
-                prompt.refresh(self.trace, by_id);
+                prompt.refresh(trace, self.session.by_id());
             }
             Action::Erase => {
                 prompt.text.pop();
-                prompt.refresh(self.trace, by_id);
+                prompt.refresh(trace, self.session.by_id());
             }
-            Action::Complete => prompt.complete(self.trace, by_id),
+            Action::Complete => prompt.complete(trace, self.session.by_id()),
             Action::Down if !prompt.candidates.is_empty() => {
                 prompt.pick = (prompt.pick + 1) % prompt.candidates.len()
             }
@@ -505,278 +421,181 @@ impl<'t> App<'t> {
                 return;
             }
             Action::Submit => {
-                match prompt.kind {
-                    PromptKind::Jump => match prompt.target(self.trace) {
-                        Some(node) => self.jump(node),
-                        None => {
-                            self.message = Some(format!(
-                                "no node has the id '{}' (Tab completes ids)",
-                                prompt.text
-                            ))
+                let note = match prompt.kind {
+                    PromptKind::Jump => match prompt.target(trace) {
+                        Some(node) => {
+                            self.session.jump(NodeIx::new(node));
+                            None
+                        }
+                        None => self.session.jump_to_id(&prompt.text),
+                    },
+                    PromptKind::Search => self.session.search(Some(&prompt.text), true),
+                    PromptKind::Watch => match Condition::parse(&prompt.text, trace) {
+                        Ok(condition) => {
+                            self.last_watch = prompt.text.clone();
+                            self.session.run_until(&condition, &prompt.text)
+                        }
+                        Err(error) => {
+                            prompt.error = Some(error);
+                            self.overlay = Overlay::Prompt(prompt);
+                            return;
                         }
                     },
-                    PromptKind::Search => {
-                        self.search = (!prompt.text.is_empty()).then(|| prompt.text.clone());
-                        self.search_from(true);
-                    }
+                };
+                if let Some(note) = note {
+                    self.say(&note);
                 }
                 return;
             }
             _ => {}
         }
+        prompt.error = None;
         self.overlay = Overlay::Prompt(prompt);
     }
 
-    /// Takes one step, keeping the tally in line. False when done.
-    pub fn advance(&mut self) -> bool {
-        let step = self.sweep.cursor();
-        if self.sweep.step().is_none() {
-            return false;
-        }
-        self.tally.stepped(&self.sweep, step);
-        true
-    }
+    // ----- work -----
 
-    /// Undoes one step, keeping the tally in line. False at the start.
-    pub fn retreat(&mut self) -> bool {
-        let Some(node) = self.sweep.last_done() else {
-            return false;
-        };
-        let step = self.sweep.cursor() - 1;
-        let receivers: Vec<usize> = self
-            .sweep
-            .ledger()
-            .map(|ledger| {
-                ledger
-                    .step_entries(step)
-                    .iter()
-                    .map(|entry| entry.input)
-                    .collect()
-            })
-            .unwrap_or_default();
-        self.sweep.back();
-        self.tally.stepped_back(&self.sweep, node, &receivers);
-        true
-    }
-
-    fn run_to_flag(&mut self) {
-        let seen = self.sweep.flags().len();
-        while self.sweep.flags().len() == seen && self.advance() {}
-        match self.sweep.flags().get(seen).cloned() {
-            Some(flag) => {
-                self.follow = false;
-                self.select(flag.node);
-                self.flag_cursor = seen;
-                self.message = Some(format!(
-                    "{} {} at {} (step {})",
-                    super::symbols::flag_symbol(flag.kind),
-                    flag.kind.name(),
-                    self.trace.node(flag.node).id,
-                    flag.step + 1
-                ));
-            }
-            None => self.message = Some("no further flag: the sweep ran to the end".to_string()),
+    /// Queues `job` unless it is queued or running already.
+    fn request(&mut self, job: Job) {
+        let running = self
+            .running
+            .as_ref()
+            .is_some_and(|running| running.job == job);
+        if !running && !self.queue.contains(&job) {
+            self.queue.push_back(job);
         }
     }
 
-    /// Steps forward or back until the node at sweep position `rank` is the current one.
-    pub fn seek(&mut self, rank: usize) {
-        while self.sweep.cursor() > rank && self.retreat() {}
-        while self.sweep.cursor() < rank && self.advance() {}
+    fn ask_diagnosis(&mut self) -> Note {
+        let dtype = self.session.trace().dtype();
+        if let Some(diagnosed) = self.session.diagnosis() {
+            return Some(super::session::diagnosis_message(
+                self.session.trace(),
+                diagnosed,
+            ));
+        }
+        self.request(Job::Diagnose(dtype));
+        None
     }
 
-    /// Selects `node` without walking; the selection stops following the sweep.
-    pub fn select(&mut self, node: usize) {
-        self.follow = false;
-        self.selected = node;
+    fn cycle_precision(&mut self) -> Note {
+        let recorded = self.session.recorded().dtype();
+        let dtype = next_dtype(recorded, self.session.trace().dtype());
+        if !self.session.has_dtype(dtype) {
+            self.request(Job::Retype(dtype));
+            return Some(format!(
+                "making the trace in {dtype} (the view switches when it is ready)"
+            ));
+        }
+        self.switch_dtype(dtype)
     }
 
-    /// Selects `node` from a jump, search or flag: the old selection goes onto the walk history.
-    pub fn jump(&mut self, node: usize) {
-        if node != self.selected {
-            self.walk.push(self.selected);
+    fn switch_dtype(&mut self, dtype: crate::dtype::Dtype) -> Note {
+        let note = self.session.switch_dtype(dtype);
+        let recorded = self.session.recorded().dtype();
+        if self.session.diagnosis_in(recorded).is_some() && self.session.diagnosis().is_none() {
+            self.request(Job::Diagnose(dtype));
         }
-        self.select(node);
+        note
     }
 
-    fn set_focus(&mut self, pane: PaneId) {
-        self.focus = pane;
-        if layout::shares_slot(pane) {
-            self.side = pane;
+    /// Esc: stops the work under way (and what waits), else closes the zoom.
+    fn cancel(&mut self) -> Note {
+        if let Some(running) = self.running.take() {
+            running.progress.cancel();
+            self.queue.clear();
+            return Some(format!(
+                "cancelled: {} (the view carries on without it)",
+                running.job.describe()
+            ));
         }
-        if layout::takes_corner(pane) {
-            self.corner = pane;
+        if !self.queue.is_empty() {
+            self.queue.clear();
+            return Some("cancelled the waiting work".to_string());
         }
-        // The checks run once, when their pane is first shown.
-        if pane == PaneId::Verify && self.checks.verification.is_none() && !self.checks.requested {
-            self.request_verification();
-        }
+        self.layout.zoomed = false;
+        None
     }
 
-    fn move_focused(&mut self, motion: Move) {
-        panes::pane(self.focus).move_cursor(self, motion);
-    }
-
-    /// Rows inside the focused pane, for paging.
-    fn page(&self) -> usize {
-        layout::pane_area(self, self.focus)
-            .map_or(10, |area| area.height.saturating_sub(3).max(1) as usize)
-    }
-
-    fn search_from(&mut self, forward: bool) {
-        let Some(query) = self.search.clone() else {
-            self.message = Some("no search yet: / starts one".to_string());
-            return;
-        };
-        let order = self.trace.sweep_order();
-        let start = self.trace.sweep_rank(self.selected).unwrap_or(0);
-        let len = order.len();
-        let found = (1..=len)
-            .map(|offset| {
-                if forward {
-                    (start + offset) % len
-                } else {
-                    (start + len - offset) % len
-                }
-            })
-            .find(|&rank| matches(self.trace, order[rank], &query));
-        match found {
-            Some(rank) => {
-                self.jump(order[rank]);
-                self.message = Some(format!("'{query}': step {} of {len}", rank + 1));
-            }
-            None => self.message = Some(format!("nothing in the sweep matches '{query}'")),
+    /// The next task for the worker, when none runs; the event loop hands it
+    /// to a thread and returns what it produced through [`App::finish`].
+    pub fn next_task(&mut self) -> Option<Task> {
+        if self.running.is_some() {
+            return None;
         }
-    }
-
-    /// Brings the selection in line with the sweep and recomputes what
-    /// depends on the selected node or on the sweep's position.
-    fn refresh(&mut self) {
-        if self.follow {
-            self.selected = match &self.forward {
-                Some(forward) => forward.current().or(forward.last_done()),
-                None => self.sweep.current().or(self.sweep.last_done()),
-            }
-            .unwrap_or(self.trace.output());
-        }
-        let node = self.selected;
-        let cursor = self.sweep.cursor();
-        if let Some(compare) = &mut self.compare {
-            compare.seek(cursor);
-        }
-        if self.selection.node != Some(node) {
-            let value = &self.trace.node(node).value;
-            self.selection.value = match value {
-                Value::Tensor(_) => Some(
-                    *self
-                        .value_summaries
-                        .entry(node)
-                        .or_insert_with(|| value.summary(self.trace.dtype())),
-                ),
-                Value::Scalar(_) => None,
-            };
-            self.selection.edges = edges(self.trace, node);
-            (self.node_scroll, self.inflow_scroll, self.edge_cursor) = (0, 0, 0);
-        }
-        if self.selection.node != Some(node) || self.selection.cursor != cursor {
-            self.selection.adjoint = match self.sweep.adjoint(node).as_deref() {
-                Some(adjoint @ Value::Tensor(_)) => Some(adjoint.summary(self.trace.dtype())),
-                _ => None,
-            };
-            self.contrast = match (
-                self.sweep.adjoint(node),
-                self.compare
-                    .as_ref()
-                    .and_then(|compare| compare.adjoint(node)),
-            ) {
-                (Some(here), Some(recorded)) => Some(Contrast::of(&here, &recorded)),
-                _ => None,
-            };
-        }
-        (self.selection.node, self.selection.cursor) = (Some(node), cursor);
-        let param = panes::paths_param(self);
-        if param != self.paths_param {
-            (self.paths_param, self.paths_cursor) = (param, 0);
-        }
-        self.flag_cursor = self.flag_cursor.min(self.flag_rows().saturating_sub(1));
-        self.keep_order_visible();
-    }
-
-    /// Scrolls Order so the selected node (or the current one) is in view.
-    fn keep_order_visible(&mut self) {
-        let rows = layout::pane_area(self, PaneId::Order)
-            .map_or(10, |area| area.height.saturating_sub(3).max(1) as usize);
-        let Some(rank) = self.order_rank(self.selected) else {
-            return;
-        };
-        if rank < self.order_offset {
-            self.order_offset = rank;
-        } else if rank >= self.order_offset + rows {
-            self.order_offset = rank + 1 - rows;
-        }
-    }
-}
-
-/// What the diagnosis found, in one line for the status line.
-fn diagnosis_message(trace: &Trace, diagnosed: &Diagnosed) -> String {
-    let diagnosis = &diagnosed.diagnosis;
-    if let Some(origin) = diagnosis.first_origin() {
-        let more = diagnosis.origins.len() - 1;
-        let more = if more > 0 {
-            format!(" (+{more} more)")
-        } else {
-            String::new()
-        };
-        return format!(
-            "diagnosis: origin ({}) {} at '{}'{more}; o jumps to it",
-            origin.class.letter(),
-            origin.class.title(),
-            trace.node(origin.node).id
-        );
-    }
-    if diagnosis.is_clean() {
-        return format!("diagnosis: clean, no rule fired in {}", diagnosis.dtype);
-    }
-    let mut rules: Vec<&str> = diagnosis
-        .findings
-        .iter()
-        .map(|finding| super::diagnosis::rule_label(finding.rule))
-        .collect();
-    rules.dedup();
-    rules.sort();
-    rules.dedup();
-    format!(
-        "diagnosis: every adjoint finite; {} findings ({}) in Flags, paths in 8",
-        diagnosis.findings.len(),
-        rules.join(", ")
-    )
-}
-
-/// What changes in the view's dtype, from the recorded trace's replay against f64.
-fn precision_message(app: &App) -> String {
-    let (dtype, recorded) = (app.trace.dtype(), app.recorded.dtype());
-    if dtype == recorded {
-        return format!("back to the recorded dtype {dtype}");
-    }
-    let Some(run) = app
-        .diagnoses
-        .get(recorded)
-        .and_then(|diagnosed| diagnosed.diagnosis.replay_in(dtype))
-    else {
-        return format!("swept in {dtype} (recorded {recorded}); D diagnoses it");
-    };
-    let id = |node: usize| app.trace.node(node).id.as_str();
-    let at = |finding: Option<&crate::diagnose::Finding>| {
-        finding.map_or("none".to_string(), |finding| {
-            format!("'{}' step {}", id(finding.node), finding.step + 1)
+        let job = self.queue.pop_front()?;
+        self.next_id += 1;
+        let progress = Arc::new(Progress::default());
+        self.running = Some(Running {
+            id: self.next_id,
+            job,
+            progress: progress.clone(),
+            started: Instant::now(),
+        });
+        self.sync_panes();
+        Some(Task {
+            id: self.next_id,
+            job,
+            traces: self.session.traces().clone(),
+            settings: self.settings.clone(),
+            progress,
         })
-    };
-    let lost = run.first_lost().map_or("none".to_string(), |lost| {
-        format!("'{}' step {}", id(lost.node), lost.step + 1)
-    });
-    format!(
-        "{dtype} vs f64: first overflow {} · underflow {} · lost contribution {lost}",
-        at(run.first_overflow()),
-        at(run.first_underflow())
-    )
+    }
+
+    /// Takes in what a task produced; results of cancelled tasks are dropped.
+    pub fn finish(&mut self, finished: Finished) {
+        if self.running.as_ref().map(|running| running.id) != Some(finished.id) {
+            return;
+        }
+        self.running = None;
+        let note = match finished.outcome {
+            Outcome::Diagnosed(diagnosed) => self.session.diagnosed(*diagnosed),
+            Outcome::Retyped(dtype) => self.switch_dtype(dtype),
+            Outcome::Verified(verified) => self.session.keep_verification(*verified),
+            Outcome::Surveyed(survey) => {
+                self.session.surveyed(survey);
+                None
+            }
+            Outcome::Cancelled => Some(format!("cancelled: {}", finished.job.describe())),
+            Outcome::Failed(why) => Some(format!(
+                "{} failed: {why} (a bug in Ebb: please report it)",
+                finished.job.describe()
+            )),
+        };
+        // Results arriving do not wipe what a key just said.
+        if let Some(note) = note {
+            self.say(&note);
+        }
+        self.drain();
+    }
+
+    /// Runs every queued task here and now, one after another (tests and
+    /// benchmarks; the terminal runs them on a worker thread).
+    pub fn work(&mut self) {
+        while let Some(task) = self.next_task() {
+            let finished = task.run();
+            self.finish(finished);
+        }
+    }
+}
+
+/// A pane's context, from the app's fields (so a pane can be borrowed mutably beside it).
+fn ctx_of<'a, 't>(
+    session: &'a Session<'t>,
+    theme: &'a Theme,
+    keys: &'a KeyMap,
+    layout: &'a LayoutState,
+    work: Option<&'a Running>,
+    pane: PaneId,
+) -> Ctx<'a, 't> {
+    Ctx {
+        session,
+        theme,
+        keys,
+        pane,
+        focused: layout.focus == pane,
+        rows: layout::pane_area(layout, pane)
+            .map_or(0, |area| area.height.saturating_sub(2) as usize),
+        work,
+    }
 }

@@ -1,8 +1,8 @@
-//! The view's diagnosis: `diagnose` run once per dtype the view sweeps in —
-//! on open for traces up to [`AUTO_NODES`] nodes, on demand above — and never
-//! per frame; with the rows it adds to the Flags pane.
+//! The view's diagnosis: `diagnose` run on the worker once per dtype the
+//! view sweeps in — on open for traces up to [`AUTO_NODES`] nodes, on demand
+//! above — and never per frame; with the rows it adds to the Flags pane.
 
-use crate::diagnose::{Diagnosis, Finding, Origin, Rule, Settings, diagnose};
+use crate::diagnose::{Diagnosis, Finding, Origin, Rule};
 use crate::dtype::Dtype;
 use crate::trace::Trace;
 
@@ -10,15 +10,6 @@ use crate::trace::Trace;
 /// larger ones when asked (a diagnosis sweeps the trace several times with
 /// its ledger: about 0.3 s per 10⁵ nodes in a release build, README "Performance").
 pub const AUTO_NODES: usize = 100_000;
-
-/// Costly work the view does after drawing a frame that says it is under way.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Work {
-    /// Diagnose the trace in the dtype the view sweeps in.
-    Diagnose,
-    /// Sweep the trace re-typed into this dtype.
-    Retype(Dtype),
-}
 
 /// One row the diagnosis adds to the Flags pane.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -40,7 +31,8 @@ pub struct Diagnosed {
 }
 
 impl Diagnosed {
-    fn new(diagnosis: Diagnosis) -> Diagnosed {
+    /// The diagnosis with its rows.
+    pub fn new(diagnosis: Diagnosis) -> Diagnosed {
         let origins = diagnosis
             .origins
             .iter()
@@ -75,6 +67,31 @@ impl Diagnosed {
         match row {
             Row::Origin(at) => self.origin(at).node,
             Row::Finding(at) => self.finding(at).node,
+        }
+    }
+
+    /// The step (0-based) a row names.
+    pub fn row_step(&self, row: Row) -> usize {
+        match row {
+            Row::Origin(at) => self.origin(at).step,
+            Row::Finding(at) => self.finding(at).step,
+        }
+    }
+
+    /// A row in one sentence: the origin's account, or the finding described
+    /// against its threshold in `trace`'s dtype.
+    pub fn row_text(&self, trace: &Trace, row: Row) -> String {
+        match row {
+            Row::Origin(at) => {
+                let origin = self.origin(at);
+                format!(
+                    "origin ({}) at '{}': {}",
+                    origin.class.letter(),
+                    trace.node(origin.node).id,
+                    origin.explanation
+                )
+            }
+            Row::Finding(at) => self.finding(at).describe(trace, trace.dtype()),
         }
     }
 
@@ -123,19 +140,10 @@ impl Diagnosed {
 /// The diagnoses made so far, one per dtype.
 #[derive(Debug, Clone, Default)]
 pub struct Diagnoses {
-    settings: Settings,
     done: Vec<Diagnosed>,
 }
 
 impl Diagnoses {
-    /// No diagnosis yet; the ones to come use `settings`.
-    pub fn with_settings(settings: Settings) -> Diagnoses {
-        Diagnoses {
-            settings,
-            done: Vec::new(),
-        }
-    }
-
     /// The diagnosis of the sweep in `dtype`, if made.
     pub fn get(&self, dtype: Dtype) -> Option<&Diagnosed> {
         self.done
@@ -143,23 +151,11 @@ impl Diagnoses {
             .find(|diagnosed| diagnosed.diagnosis.dtype == dtype)
     }
 
-    /// Diagnoses `trace` in its own dtype unless that is done already. The
-    /// recorded trace gets the full diagnosis with its replays; a re-typed
-    /// copy (`replays` false) only its own rules, origins, paths and groups.
-    pub fn run(&mut self, trace: &Trace, replays: bool) -> &Diagnosed {
-        if let Some(at) = self
-            .done
-            .iter()
-            .position(|diagnosed| diagnosed.diagnosis.dtype == trace.dtype())
-        {
-            return &self.done[at];
-        }
-        let mut settings = self.settings.clone();
-        if !replays {
-            settings.replay.clear();
-        }
-        self.done.push(Diagnosed::new(diagnose(trace, &settings)));
-        self.done.last().expect("pushed")
+    /// Keeps a diagnosis, in place of an earlier one in the same dtype.
+    pub fn insert(&mut self, diagnosed: Diagnosed) {
+        let dtype = diagnosed.diagnosis.dtype;
+        self.done.retain(|kept| kept.diagnosis.dtype != dtype);
+        self.done.push(diagnosed);
     }
 }
 
@@ -173,6 +169,8 @@ pub fn rule_label(rule: Rule) -> &'static str {
         Rule::Vanishing => "vanishing",
         Rule::Exploding => "exploding",
         Rule::Gain => "gain",
+        #[allow(unreachable_patterns)]
+        other => other.name(),
     }
 }
 
@@ -213,6 +211,7 @@ pub fn value_against_threshold(finding: &Finding) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::diagnose::{Settings, diagnose};
     use crate::record::Tape;
 
     #[test]
@@ -222,7 +221,8 @@ mod tests {
         let y = tape.log(w);
         let trace = Trace::try_from(tape.finish(y)).unwrap();
         let mut diagnoses = Diagnoses::default();
-        let diagnosed = diagnoses.run(&trace, true);
+        diagnoses.insert(Diagnosed::new(diagnose(&trace, &Settings::default())));
+        let diagnosed = diagnoses.get(Dtype::F64).unwrap();
         assert!(
             diagnosed
                 .diagnosis
@@ -243,20 +243,13 @@ mod tests {
         let steps: Vec<usize> = diagnosed
             .rows
             .iter()
-            .map(|&row| match row {
-                Row::Origin(at) => diagnosed.origin(at).step,
-                Row::Finding(at) => diagnosed.finding(at).step,
-            })
+            .map(|&row| diagnosed.row_step(row))
             .collect();
         assert!(steps.windows(2).all(|pair| pair[0] <= pair[1]), "{steps:?}");
         let sentence = diagnosed
             .sentence(&trace, trace.find("log_1").unwrap())
             .unwrap();
         assert!(sentence.starts_with("Origin (a): "), "{sentence}");
-        assert_eq!(
-            diagnoses.get(Dtype::F64).map(|d| d.rows.len()),
-            Some(steps.len()),
-            "made once, then looked up"
-        );
+        assert!(diagnoses.get(Dtype::F32).is_none());
     }
 }

@@ -1,10 +1,11 @@
 //! Forward mode for teaching: a tangent sweep stepped in recording order along
 //! one direction, each node's dual number (value, tangent), and at the end the
 //! directional derivative beside the reverse sweep's ⟨v, ∇f⟩ for the same v.
-//! Also the `App` actions that drive it, kept here so `app.rs` stays small.
+//! Also the session's actions that drive it.
 
-use super::app::App;
-use crate::format::number;
+use super::ids::NodeIx;
+use super::session::{Note, Session};
+use crate::format::{number, readable};
 use crate::sweep::{LedgerMode, Sweep};
 use crate::tensor::Value;
 use crate::trace::Trace;
@@ -143,7 +144,7 @@ impl<'t> Forward<'t> {
         match self.tangent(node) {
             None => "—".to_string(),
             Some(None) => "0".to_string(),
-            Some(Some(Value::Scalar(t))) => super::panes::fit_number(*t, width),
+            Some(Some(Value::Scalar(t))) => super::panes::fit_number(*t, self.trace.dtype(), width),
             Some(Some(tangent)) => format!("‖·‖ {}", crate::format::compact(tangent.l2_norm())),
         }
     }
@@ -154,10 +155,15 @@ impl<'t> Forward<'t> {
         match (value, self.tangent(node)) {
             (Value::Scalar(x), Some(tangent)) => format!(
                 "({}, {})",
-                number(*x),
-                number(tangent.and_then(Value::as_scalar).unwrap_or(0.0))
+                readable(*x, self.trace.node_dtype(node)),
+                readable(
+                    tangent.and_then(Value::as_scalar).unwrap_or(0.0),
+                    self.trace.node_dtype(node)
+                )
             ),
-            (Value::Scalar(x), None) => format!("({}, —)", number(*x)),
+            (Value::Scalar(x), None) => {
+                format!("({}, —)", readable(*x, self.trace.node_dtype(node)))
+            }
             (_, Some(tangent)) => {
                 let norm = tangent.map_or(0.0, Value::l2_norm);
                 format!(
@@ -171,151 +177,100 @@ impl<'t> Forward<'t> {
     }
 }
 
-/// What `d` does next, as words for the message.
-fn along_for(app: &App) -> Result<Along, String> {
-    let selected = app.selected;
-    let current = app.forward.as_ref().map(|forward| forward.along);
-    let is_leaf =
-        app.trace.node(selected).op.is_leaf() && !app.trace.node(selected).value.is_empty();
+/// Where the direction goes next: along the selected leaf, else (or when
+/// it already goes along it) a seeded random direction over the parameters.
+fn along_for(session: &Session) -> Result<Along, String> {
+    let selected = session.selected().index();
+    let trace = session.trace();
+    let current = session.forward().map(|forward| forward.along);
+    let is_leaf = trace.node(selected).op.is_leaf() && !trace.node(selected).value.is_empty();
     match current {
-        Some(Along::Leaf(node)) if node == selected || !is_leaf => Ok(Along::Random(VerifyOptions::default().seed)),
+        Some(Along::Leaf(node)) if node == selected || !is_leaf => {
+            Ok(Along::Random(VerifyOptions::default().seed))
+        }
         _ if is_leaf => Ok(Along::Leaf(selected)),
-        _ => Err("select a leaf (an input, parameter or constant) first: d then goes along its first element".to_string()),
+        _ => Err("select a leaf (an input, parameter or constant) first: {key:cycle_direction} then goes along its first element".to_string()),
     }
 }
 
-impl<'t> App<'t> {
-    /// Enters forward mode (along the selected leaf, else a seeded random
-    /// direction over the parameters) or returns to the reverse sweep.
-    pub(super) fn toggle_forward(&mut self) {
-        if self.forward.take().is_some() {
-            self.follow = true;
-            self.message = Some(format!(
-                "reverse sweep: step {}/{} (m returns to forward mode)",
-                self.sweep.cursor(),
-                self.sweep.len()
-            ));
-            return;
-        }
-        let node = self.trace.node(self.selected);
-        let along = if node.op.is_leaf() && !node.value.is_empty() {
-            Along::Leaf(self.selected)
-        } else {
-            Along::Random(VerifyOptions::default().seed)
-        };
-        self.forward = Some(Forward::new(self.trace, along));
-        self.follow = true;
-        let hint = if self.trace.params().next().is_none() && matches!(along, Along::Random(_)) {
-            " — no parameters, so every tangent is 0: select a leaf and press d"
-        } else {
-            ""
-        };
-        self.message = Some(format!(
-            "forward mode, {}: s steps the tangent sweep in recording order{hint}",
-            along.describe(self.trace)
-        ));
-    }
-
-    /// Forward mode: switches the direction, keeping the tangent sweep's position.
-    pub(super) fn cycle_direction(&mut self) {
-        let Some(cursor) = self.forward.as_ref().map(|forward| forward.sweep.cursor()) else {
-            self.message = Some("the direction is for forward mode: m enters it".to_string());
-            return;
-        };
-        match along_for(self) {
-            Ok(along) => {
-                let mut forward = Forward::new(self.trace, along);
-                forward.seek(cursor);
-                self.forward = Some(forward);
-                self.message = Some(format!(
-                    "{}: tangents recomputed up to step {cursor}",
-                    along.describe(self.trace)
-                ));
-            }
-            Err(message) => self.message = Some(message),
-        }
-    }
-
-    /// The sweep actions in forward mode; false for actions it leaves alone.
-    pub(super) fn forward_action(&mut self, action: super::action::Action) -> bool {
-        use super::action::Action;
-        let Some(forward) = self.forward.as_mut() else {
-            return false;
-        };
-        match action {
-            Action::Step => {
-                if forward.step() {
-                    self.follow_forward_end();
-                } else {
-                    self.message = Some("the tangent sweep is done (b steps back, r restarts, m returns to the reverse sweep)".to_string());
-                }
-            }
-            Action::Back => {
-                if !forward.sweep.back() {
-                    self.message = Some(
-                        "at the start of the tangent sweep: no node has its tangent yet"
-                            .to_string(),
-                    );
-                }
-            }
-            Action::RunToEnd => {
-                while forward.step() {}
-                self.follow_forward_end();
-            }
-            Action::Restart => {
-                forward.seek(0);
-                self.follow = true;
-            }
-            Action::RunToFlag => {
-                self.message =
-                    Some("flags belong to the reverse sweep: m returns to it".to_string())
-            }
-            _ => return false,
-        }
-        true
-    }
-
-    /// At the end of the tangent sweep, says how the two modes compare.
-    fn follow_forward_end(&mut self) {
-        let Some(comparison) = self.forward.as_ref().and_then(Forward::comparison) else {
-            return;
-        };
+impl Forward<'_> {
+    /// At the end of the tangent sweep: how the two modes compare.
+    pub fn end_note(&self) -> Note {
+        let comparison = self.comparison()?;
         let verdict = if comparison.agrees(VerifyOptions::default().tolerance) {
             "they agree"
         } else {
             "they DISAGREE"
         };
-        self.message = Some(format!(
+        Some(format!(
             "∂f/∂v = {} (tangent) · ⟨v, ∇f⟩ = {} (reverse): {verdict}",
             number(comparison.tangent),
             number(comparison.reverse)
-        ));
+        ))
+    }
+}
+
+impl Session<'_> {
+    /// Enters forward mode (along the selected leaf, else a seeded random
+    /// direction over the parameters) or returns to the reverse sweep.
+    pub fn toggle_forward(&mut self) -> Note {
+        if self.forward.take().is_some() {
+            self.follow = true;
+            self.refresh();
+            return Some(format!(
+                "reverse sweep: step {}/{} ({{key:toggle_forward}} returns to forward mode)",
+                self.sweep().cursor(),
+                self.sweep().len()
+            ));
+        }
+        let trace = self.trace();
+        let node = trace.node(self.selected().index());
+        let along = if node.op.is_leaf() && !node.value.is_empty() {
+            Along::Leaf(self.selected().index())
+        } else {
+            Along::Random(VerifyOptions::default().seed)
+        };
+        self.forward = Some(Forward::new(trace, along));
+        self.follow = true;
+        self.refresh();
+        let hint = if trace.params().next().is_none() && matches!(along, Along::Random(_)) {
+            " — no parameters, so every tangent is 0: select a leaf and press {key:cycle_direction}"
+        } else {
+            ""
+        };
+        Some(format!(
+            "forward mode, {}: {{key:step}} steps the tangent sweep in recording order{hint}",
+            along.describe(trace)
+        ))
     }
 
-    /// Rows of Order: the sweep order, or every node in recording order in forward mode.
-    pub fn order_len(&self) -> usize {
-        if self.forward.is_some() {
-            self.trace.nodes().len()
-        } else {
-            self.trace.sweep_order().len()
-        }
+    /// Forward mode: switches the direction, keeping the tangent sweep's position.
+    pub fn cycle_direction(&mut self) -> Note {
+        let Some(cursor) = self.forward().map(|forward| forward.sweep.cursor()) else {
+            return Some(
+                "the direction is for forward mode: {key:toggle_forward} enters it".to_string(),
+            );
+        };
+        let note = match along_for(self) {
+            Ok(along) => {
+                let trace = self.trace();
+                let mut forward = Forward::new(trace, along);
+                forward.seek(cursor);
+                self.forward = Some(forward);
+                format!(
+                    "{}: tangents recomputed up to step {cursor}",
+                    along.describe(trace)
+                )
+            }
+            Err(message) => message,
+        };
+        self.refresh();
+        Some(note)
     }
 
-    /// The node on row `rank` of Order.
-    pub fn order_node(&self, rank: usize) -> usize {
-        if self.forward.is_some() {
-            rank
-        } else {
-            self.trace.sweep_order()[rank]
-        }
-    }
-
-    /// The row of `node` in Order, if listed.
-    pub fn order_rank(&self, node: usize) -> Option<usize> {
-        if self.forward.is_some() {
-            Some(node)
-        } else {
-            self.trace.sweep_rank(node)
-        }
+    /// Forward mode: whether the tangent sweep has processed `node`.
+    pub fn tangent_done(&self, node: NodeIx) -> bool {
+        self.forward()
+            .is_some_and(|forward| forward.is_done(node.index()))
     }
 }

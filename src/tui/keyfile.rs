@@ -9,7 +9,7 @@
 //! ]
 //! ```
 
-use super::action::{Action, BINDABLE};
+use super::action::{Action, bindable};
 use super::keymap::{Key, KeyMap, Scope};
 use serde::Deserialize;
 use serde::de::{self, Deserializer, SeqAccess, Visitor};
@@ -100,19 +100,16 @@ impl<'de> Visitor<'de> for EntriesVisitor {
         let mut map = KeyMap::default();
         let mut seen: Vec<(Scope, String)> = Vec::new();
         while let Some(entry) = entries.next_element::<Entry>()? {
-            let action = BINDABLE
-                .iter()
-                .find(|(name, _)| *name == entry.action)
-                .map(|(_, action)| *action)
-                .ok_or_else(|| {
-                    let names = BINDABLE.iter().map(|(name, _)| *name);
-                    de::Error::custom(match crate::closest::closest(&entry.action, names) {
-                        Some(near) => {
-                            format!("unknown action '{}' (did you mean '{near}'?)", entry.action)
-                        }
-                        None => format!("unknown action '{}'", entry.action),
-                    })
-                })?;
+            let action = Action::named(&entry.action).ok_or_else(|| {
+                let all = bindable();
+                let names = all.iter().map(|(name, _)| name.as_str());
+                de::Error::custom(match crate::closest::closest(&entry.action, names) {
+                    Some(near) => {
+                        format!("unknown action '{}' (did you mean '{near}'?)", entry.action)
+                    }
+                    None => format!("unknown action '{}'", entry.action),
+                })
+            })?;
             let scope_name = entry.scope.as_deref().unwrap_or("global");
             let scope = Scope::named()
                 .into_iter()
@@ -176,6 +173,10 @@ mod tests {
     use crate::tui::PaneId;
     use ratatui::crossterm::event::{KeyCode, KeyModifiers};
 
+    fn pane(name: &str) -> PaneId {
+        PaneId::named(name).expect("a registered pane")
+    }
+
     fn parse(text: &str) -> Result<KeyMap, String> {
         KeyMap::parse(text, Path::new("keys.ron")).map_err(|error| error.to_string())
     }
@@ -190,26 +191,26 @@ mod tests {
         )
         .unwrap();
         let right = Key::parse("Right").unwrap();
-        assert_eq!(map.lookup(right, PaneId::Order, false), Some(Action::Step));
+        assert_eq!(map.lookup(right, pane("Order"), false), Some(Action::Step));
         let ctrl_n = Key {
             code: KeyCode::Char('n'),
             modifiers: KeyModifiers::CONTROL,
         };
-        assert_eq!(map.lookup(ctrl_n, PaneId::Order, false), Some(Action::Step));
+        assert_eq!(map.lookup(ctrl_n, pane("Order"), false), Some(Action::Step));
         // The defaults of step are gone; back keeps its own.
         assert_eq!(
-            map.lookup(Key::parse("s").unwrap(), PaneId::Order, false),
+            map.lookup(Key::parse("s").unwrap(), pane("Order"), false),
             None
         );
         assert_eq!(map.keys_for(Scope::Global, Action::Step), ["→", "C-n"]);
         assert_eq!(map.keys_for(Scope::Global, Action::Back), ["b", "u"]);
         assert_eq!(
-            map.keys_for(Scope::Pane(PaneId::Edges), Action::Enter),
+            map.keys_for(Scope::Pane(pane("Edges")), Action::Enter),
             ["o"]
         );
         // Help and hints come from the same map.
         assert!(
-            map.hints(PaneId::Order)
+            map.hints(pane("Order"))
                 .contains(&("→".to_string(), "step"))
         );
     }
@@ -233,8 +234,8 @@ mod tests {
 
     #[test]
     fn every_bindable_action_has_one_name_and_every_bound_action_is_bindable() {
-        for (name, action) in BINDABLE {
-            assert_eq!(action.name(), Some(*name));
+        for (name, action) in bindable() {
+            assert_eq!(action.name(), Some(name));
         }
         assert_eq!(Action::Type('x').name(), None);
         for binding in KeyMap::default().bindings() {
@@ -253,7 +254,7 @@ mod tests {
         let map = parse(example).unwrap();
         assert_eq!(map.keys_for(Scope::Global, Action::Back), ["←", "b"]);
         assert_eq!(
-            map.keys_for(Scope::Pane(PaneId::Edges), Action::Enter),
+            map.keys_for(Scope::Pane(pane("Edges")), Action::Enter),
             ["o"]
         );
     }

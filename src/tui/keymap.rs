@@ -23,9 +23,9 @@ impl Scope {
             ("prompt".to_string(), Scope::Prompt),
         ];
         scopes.extend(
-            PaneId::ALL
-                .iter()
-                .map(|&pane| (pane.name().to_lowercase(), Scope::Pane(pane))),
+            PaneId::all()
+                .into_iter()
+                .map(|pane| (pane.name().to_lowercase(), Scope::Pane(pane))),
         );
         scopes
     }
@@ -173,6 +173,8 @@ pub struct Binding {
     pub scope: Scope,
     /// What it does.
     pub action: Action,
+    /// What it does there, in a few words (a pane's own text, else the action's).
+    pub hint: &'static str,
 }
 
 /// All bindings, narrowest scope first when looked up.
@@ -207,21 +209,14 @@ impl Default for KeyMap {
             (Key::char('c'), SelectCurrent),
             (Key::char(':'), OpenJump),
             (Key::char('/'), OpenSearch),
+            (Key::char('w'), OpenWatch),
             (Key::char('n'), SearchNext),
             (Key::char('N'), SearchPrevious),
             (Key::plain(K::Tab), FocusNext),
             (Key::plain(K::BackTab), FocusPrevious),
-            (Key::char('1'), Focus(PaneId::Order)),
-            (Key::char('2'), Focus(PaneId::Node)),
-            (Key::char('3'), Focus(PaneId::Inflow)),
-            (Key::char('4'), Focus(PaneId::Edges)),
-            (Key::char('5'), Focus(PaneId::Trend)),
-            (Key::char('6'), Focus(PaneId::Flags)),
-            (Key::char('7'), Focus(PaneId::Verify)),
             (Key::char('v'), Verify),
             (Key::char('m'), ToggleForward),
             (Key::char('d'), CycleDirection),
-            (Key::char('8'), Focus(PaneId::Paths)),
             (Key::char('D'), Diagnose),
             (Key::char('p'), CyclePrecision),
             (Key::char('o'), JumpToOrigin),
@@ -245,13 +240,6 @@ impl Default for KeyMap {
             (Key::plain(K::End), Bottom),
             (Key::plain(K::Backspace), WalkBack),
         ];
-        let edges = [
-            (Key::plain(K::Enter), Enter),
-            (Key::char('l'), Enter),
-            (Key::plain(K::Right), Enter),
-            (Key::char('h'), WalkBack),
-            (Key::plain(K::Left), WalkBack),
-        ];
         let prompt = [
             (Key::plain(K::Enter), Submit),
             (Key::plain(K::Tab), Complete),
@@ -266,42 +254,39 @@ impl Default for KeyMap {
             key,
             scope: Scope::Prompt,
             action,
+            hint: action.hint(),
         }));
-        bindings.extend(edges.map(|(key, action)| Binding {
-            key,
-            scope: Scope::Pane(PaneId::Edges),
-            action,
-        }));
-        bindings.push(Binding {
-            key: Key::plain(K::Enter),
-            scope: Scope::Pane(PaneId::Flags),
-            action: Enter,
-        });
-        bindings.push(Binding {
-            key: Key::plain(K::Enter),
-            scope: Scope::Pane(PaneId::Order),
-            action: Enter,
-        });
-        bindings.push(Binding {
-            key: Key::plain(K::Enter),
-            scope: Scope::Pane(PaneId::Verify),
-            action: Enter,
-        });
-        let paths = [
-            (Key::plain(K::Enter), Enter),
-            (Key::char(']'), NextParameter),
-            (Key::char('['), PreviousParameter),
-        ];
-        bindings.extend(paths.map(|(key, action)| Binding {
-            key,
-            scope: Scope::Pane(PaneId::Paths),
-            action,
-        }));
-        bindings.extend(global.map(|(key, action)| Binding {
-            key,
-            scope: Scope::Global,
-            action,
-        }));
+        // Each pane's own keys, with what they do there, from the pane registry.
+        for spec in super::panes::specs() {
+            for &(key, action, hint) in spec.keys {
+                bindings.push(Binding {
+                    key: Key::parse(key).expect("the registry writes keys as key files do"),
+                    scope: Scope::Pane(spec.id),
+                    action,
+                    hint,
+                });
+            }
+        }
+        for (key, action) in global {
+            bindings.push(Binding {
+                key,
+                scope: Scope::Global,
+                action,
+                hint: action.hint(),
+            });
+            // Number keys focus the panes in registry order, listed after the focus keys.
+            if action == FocusPrevious {
+                for pane in PaneId::all().into_iter().take(9) {
+                    let digit = char::from_digit(pane.number() as u32, 10).expect("at most nine");
+                    bindings.push(Binding {
+                        key: Key::char(digit),
+                        scope: Scope::Global,
+                        action: Action::Focus(pane),
+                        hint: Action::Focus(pane).hint(),
+                    });
+                }
+            }
+        }
         KeyMap { bindings }
     }
 }
@@ -315,6 +300,8 @@ impl KeyMap {
             .bindings
             .iter()
             .position(|binding| binding.scope == scope && binding.action == action);
+        // What the action does there stays what it did.
+        let hint = at.map_or(action.hint(), |at| self.bindings[at].hint);
         self.bindings
             .retain(|binding| !(binding.scope == scope && binding.action == action));
         for &key in keys {
@@ -326,14 +313,19 @@ impl KeyMap {
                 return Err(format!(
                     "key '{}' is already bound to '{}' in {}",
                     key.label(),
-                    taken.action.name().unwrap_or("another action"),
+                    taken.action.name().unwrap_or("another action".to_string()),
                     scope.name()
                 ));
             }
         }
         // Where the action's first key was, so the help keeps its order.
         let at = at.unwrap_or(self.bindings.len()).min(self.bindings.len());
-        let new = keys.iter().map(|&key| Binding { key, scope, action });
+        let new = keys.iter().map(|&key| Binding {
+            key,
+            scope,
+            action,
+            hint,
+        });
         self.bindings.splice(at..at, new);
         Ok(())
     }
@@ -401,7 +393,7 @@ impl KeyMap {
                     .filter(|binding| binding.scope == scope)
                 {
                     let action = match binding.action {
-                        Action::Focus(_) => Action::Focus(PaneId::Order),
+                        Action::Focus(_) => Action::Focus(PaneId::all()[0]),
                         other => other,
                     };
                     if seen.contains(&action) {
@@ -423,7 +415,11 @@ impl KeyMap {
                     } else {
                         keys.join(" ")
                     };
-                    rows.push((keys, action.describe()));
+                    let what = match scope {
+                        Scope::Pane(_) => binding.hint,
+                        _ => action.describe(),
+                    };
+                    rows.push((keys, what));
                 }
                 (scope.heading(), rows)
             })
@@ -442,7 +438,7 @@ impl KeyMap {
         {
             if !seen.contains(&binding.action) {
                 seen.push(binding.action);
-                hints.push((binding.key.label(), binding.action.hint()));
+                hints.push((binding.key.label(), binding.hint));
             }
         }
         for &action in GLOBAL_HINTS {
@@ -451,16 +447,66 @@ impl KeyMap {
                 .iter()
                 .find(|binding| binding.scope == Scope::Global && binding.action == action)
             {
-                hints.push((binding.key.label(), action.hint()));
+                // A pane that gives the key its own meaning has listed it already.
+                if !hints.iter().any(|(key, _)| *key == binding.key.label()) {
+                    hints.push((binding.key.label(), binding.hint));
+                }
             }
         }
         hints
+    }
+
+    /// `text` with every `{key:NAME}` replaced by the first key bound to the
+    /// action NAME (a key-file name) in `focus`'s pane, else everywhere: the
+    /// view's sentences name keys only this way, so they follow `--keys`.
+    pub fn fill(&self, text: &str, focus: PaneId) -> String {
+        let mut out = String::with_capacity(text.len());
+        let mut rest = text;
+        while let Some(at) = rest.find("{key:") {
+            out.push_str(&rest[..at]);
+            let after = &rest[at + 5..];
+            let Some(end) = after.find('}') else {
+                out.push_str(&rest[at..]);
+                return out;
+            };
+            let name = &after[..end];
+            out.push_str(&self.label_for(name, focus));
+            rest = &after[end + 1..];
+        }
+        out.push_str(rest);
+        out
+    }
+
+    /// The first key bound to the action named `name` in `focus`'s pane,
+    /// else everywhere; `(unbound)` when no key is.
+    pub fn label_for(&self, name: &str, focus: PaneId) -> String {
+        let Some(action) = Action::named(name) else {
+            debug_assert!(false, "no action is named {name}");
+            return format!("({name})");
+        };
+        let find = |scope: Scope| {
+            self.bindings
+                .iter()
+                .find(|binding| binding.scope == scope && binding.action == action)
+        };
+        find(Scope::Pane(focus))
+            .or_else(|| find(Scope::Global))
+            .or_else(|| {
+                self.bindings
+                    .iter()
+                    .find(|binding| binding.action == action)
+            })
+            .map_or("(unbound)".to_string(), |binding| binding.key.label())
     }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    fn pane(name: &str) -> PaneId {
+        PaneId::named(name).expect("a registered pane")
+    }
 
     fn press(code: KeyCode, modifiers: KeyModifiers) -> Key {
         Key::from_event(&KeyEvent::new(code, modifiers))
@@ -471,17 +517,17 @@ mod tests {
         let map = KeyMap::default();
         let backspace = press(KeyCode::Backspace, KeyModifiers::NONE);
         assert_eq!(
-            map.lookup(backspace, PaneId::Order, false),
+            map.lookup(backspace, pane("Order"), false),
             Some(Action::WalkBack)
         );
         assert_eq!(
-            map.lookup(backspace, PaneId::Order, true),
+            map.lookup(backspace, pane("Order"), true),
             Some(Action::Erase)
         );
         assert_eq!(
             map.lookup(
                 press(KeyCode::Enter, KeyModifiers::NONE),
-                PaneId::Edges,
+                pane("Edges"),
                 false
             ),
             Some(Action::Enter)
@@ -489,7 +535,7 @@ mod tests {
         assert_eq!(
             map.lookup(
                 press(KeyCode::Char('G'), KeyModifiers::SHIFT),
-                PaneId::Order,
+                pane("Order"),
                 false
             ),
             Some(Action::Bottom)
@@ -497,7 +543,7 @@ mod tests {
         assert_eq!(
             map.lookup(
                 press(KeyCode::Char('s'), KeyModifiers::NONE),
-                PaneId::Order,
+                pane("Order"),
                 true
             ),
             Some(Action::Type('s'))
@@ -505,7 +551,7 @@ mod tests {
         assert_eq!(
             map.lookup(
                 press(KeyCode::Char('c'), KeyModifiers::CONTROL),
-                PaneId::Trend,
+                pane("Trend"),
                 false
             ),
             Some(Action::Quit)
@@ -541,8 +587,96 @@ mod tests {
         assert_eq!(step.0, "s Space");
         assert!(help.iter().any(|(heading, rows)| heading == "In Edges"
             && rows.iter().any(|(keys, _)| keys == "Enter l →")));
-        let hints = map.hints(PaneId::Edges);
-        assert_eq!(hints[0], ("Enter".to_string(), "open"));
+        let hints = map.hints(pane("Edges"));
+        assert_eq!(hints[0], ("Enter".to_string(), "walk the edge"));
+        assert!(hints.contains(&("h".to_string(), "walk back")));
         assert!(hints.contains(&("?".to_string(), "help")));
+    }
+
+    #[test]
+    fn every_hint_names_a_key_bound_to_what_it_says() {
+        let map = KeyMap::default();
+        for pane in PaneId::all() {
+            let hints = map.hints(pane);
+            assert!(!hints.is_empty());
+            for (label, hint) in hints {
+                let key = Key::parse(&label)
+                    .unwrap_or_else(|| panic!("hint key {label:?} is not a key name"));
+                let action = map
+                    .lookup(key, pane, false)
+                    .unwrap_or_else(|| panic!("{label} ({hint}) is not bound in {}", pane.name()));
+                let binding = map
+                    .bindings()
+                    .iter()
+                    .find(|binding| {
+                        binding.key == key
+                            && binding.action == action
+                            && (binding.scope == Scope::Pane(pane)
+                                || binding.scope == Scope::Global)
+                    })
+                    .expect("the binding the lookup found");
+                assert_eq!(binding.hint, hint, "{label} in {}", pane.name());
+            }
+        }
+    }
+
+    /// Every `{key:NAME}` the view's sentences use names an action a key can be bound to.
+    #[test]
+    fn every_key_placeholder_names_a_bound_action() {
+        let map = KeyMap::default();
+        let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("src/tui");
+        let mut files = vec![root.clone()];
+        let mut seen = 0;
+        while let Some(path) = files.pop() {
+            if path.is_dir() {
+                files.extend(
+                    std::fs::read_dir(&path)
+                        .unwrap()
+                        .map(|entry| entry.unwrap().path()),
+                );
+                continue;
+            }
+            let text = std::fs::read_to_string(&path).unwrap();
+            for piece in text.split("{key:").skip(1) {
+                let name = piece.split('}').next().unwrap();
+                // Only sentences: the code that reads the syntax, and its docs, are not.
+                if name.is_empty() || !name.chars().all(|c| c.is_ascii_lowercase() || c == '_') {
+                    continue;
+                }
+                seen += 1;
+                let action = Action::named(name)
+                    .unwrap_or_else(|| panic!("{}: no action is named {name}", path.display()));
+                assert!(
+                    map.bindings()
+                        .iter()
+                        .any(|binding| binding.action == action),
+                    "{name} has no key"
+                );
+            }
+        }
+        assert!(
+            seen > 20,
+            "the view's sentences name keys this way ({seen} found)"
+        );
+    }
+
+    #[test]
+    fn sentences_follow_a_rebound_key() {
+        let mut map = KeyMap::default();
+        map.rebind(Scope::Global, Action::Diagnose, &[Key::parse("Z").unwrap()])
+            .unwrap();
+        assert_eq!(
+            map.fill("no diagnosis yet: {key:diagnose} runs it", pane("Order")),
+            "no diagnosis yet: Z runs it"
+        );
+        // A pane's own key comes first where the sentence is about that pane.
+        assert_eq!(
+            map.fill("{key:walk_back} goes back", pane("Edges")),
+            "h goes back"
+        );
+        assert_eq!(
+            map.fill("{key:walk_back} goes back", pane("Order")),
+            "Bksp goes back"
+        );
     }
 }

@@ -1,7 +1,7 @@
 //! The neighbourhood of one node: its input edges and its consumer edges,
 //! each with the local partial it carries, computed once per selection.
 
-use crate::format::{compact, number};
+use crate::format::{compact, readable};
 use crate::ops;
 use crate::tensor::Value;
 use crate::trace::{Partial, Trace};
@@ -57,10 +57,10 @@ pub fn edges(trace: &Trace, node: usize) -> Vec<EdgeRow> {
 /// op table's rule (never a derivative written here).
 pub fn partial_text(trace: &Trace, consumer: usize, slot: usize) -> String {
     let recorded = trace.node(consumer);
-    let dtype = trace.dtype();
+    let dtype = trace.node_dtype(consumer);
     match &recorded.partials[slot] {
-        Some(Partial::Scalar(s)) => return number(*s),
-        Some(Partial::Diagonal(diagonal)) => return value_text(diagonal, "diagonal"),
+        Some(Partial::Scalar(s)) => return readable(*s, dtype),
+        Some(Partial::Diagonal(diagonal)) => return value_text(diagonal, dtype, "diagonal"),
         Some(Partial::Jacobian { rows, cols, data }) => {
             return format!(
                 "Jacobian {rows}×{cols}, ‖·‖ {}",
@@ -84,7 +84,7 @@ pub fn partial_text(trace: &Trace, consumer: usize, slot: usize) -> String {
         && let Some(partial) =
             ops::scalar_partial(recorded.op, slot, &scalars, *y, &recorded.attrs, dtype)
     {
-        return number(partial);
+        return readable(partial, dtype);
     }
     match ops::elementwise_partial(
         recorded.op,
@@ -94,14 +94,14 @@ pub fn partial_text(trace: &Trace, consumer: usize, slot: usize) -> String {
         &recorded.attrs,
         dtype,
     ) {
-        Some(partial) => value_text(&partial, "diagonal"),
+        Some(partial) => value_text(&partial, dtype, "diagonal"),
         None => format!("{} rule (vector-Jacobian product)", recorded.op_name),
     }
 }
 
-fn value_text(value: &Value, what: &str) -> String {
+fn value_text(value: &Value, dtype: crate::dtype::Dtype, what: &str) -> String {
     match value.as_scalar() {
-        Some(x) if matches!(value, Value::Scalar(_)) => number(x),
+        Some(x) if matches!(value, Value::Scalar(_)) => readable(x, dtype),
         _ => format!(
             "{what} {}, ‖·‖ {}",
             crate::format::shape(value.shape()),

@@ -1,53 +1,55 @@
-//! The precision toggle's copies of the trace: the recorded trace re-typed
-//! into each other dtype, made on first use and kept as long as the view, so
-//! the view's sweep can run over a copy that lives as long as the trace.
+//! The trace the view shows and the precision toggle's copies of it: the
+//! recorded trace re-typed into each other dtype, each made once (on the
+//! worker, when first asked for) and kept as long as the view. Shared with
+//! the worker through an `Arc`, so work can outlive a key press.
 
 use crate::dtype::Dtype;
 use crate::tensor::Value;
 use crate::trace::Trace;
-use std::cell::OnceCell;
+use std::sync::{Arc, OnceLock};
 
 /// The recorded trace and its re-typed copies, one per dtype, each made when first asked for.
-pub struct Retyped<'t> {
-    recorded: &'t Trace,
-    copies: [OnceCell<Trace>; 4],
+pub struct Traces {
+    recorded: Trace,
+    copies: [OnceLock<Trace>; 4],
 }
 
-impl<'t> Retyped<'t> {
-    /// No copies yet.
-    pub fn new(recorded: &'t Trace) -> Retyped<'t> {
-        Retyped {
+impl Traces {
+    /// The recorded trace, with no copies yet, ready to share with the worker.
+    pub fn new(recorded: Trace) -> Arc<Traces> {
+        Arc::new(Traces {
             recorded,
             copies: Default::default(),
-        }
+        })
     }
 
     /// The trace as recorded.
-    pub fn recorded(&self) -> &'t Trace {
-        self.recorded
+    pub fn recorded(&self) -> &Trace {
+        &self.recorded
     }
 
     /// The trace in `dtype`: the recorded one in its own dtype, else a copy
-    /// (values and partials rounded into `dtype`, subnormals as recorded).
+    /// (values and partials rounded into `dtype`, subnormals as recorded),
+    /// made on first call: a sweep over the whole trace, so the view asks the worker.
     pub fn get(&self, dtype: Dtype) -> &Trace {
         if dtype == self.recorded.dtype() {
-            return self.recorded;
+            return &self.recorded;
         }
-        let at = Dtype::ALL
-            .iter()
-            .position(|&listed| listed == dtype)
-            .expect("every dtype is listed");
-        self.copies[at].get_or_init(|| self.recorded.retyped(dtype, self.recorded.subnormals()))
+        self.copies[slot(dtype)]
+            .get_or_init(|| self.recorded.retyped(dtype, self.recorded.subnormals()))
     }
 
-    /// Whether the copy in `dtype` exists already (the recorded dtype always does).
+    /// Whether the trace in `dtype` exists already (the recorded dtype always does).
     pub fn has(&self, dtype: Dtype) -> bool {
-        dtype == self.recorded.dtype()
-            || Dtype::ALL
-                .iter()
-                .position(|&listed| listed == dtype)
-                .is_some_and(|at| self.copies[at].get().is_some())
+        dtype == self.recorded.dtype() || self.copies[slot(dtype)].get().is_some()
     }
+}
+
+fn slot(dtype: Dtype) -> usize {
+    Dtype::ALL
+        .iter()
+        .position(|&listed| listed == dtype)
+        .expect("every dtype is listed")
 }
 
 /// One node's adjoint in the view's dtype against the same sweep over the
@@ -132,7 +134,7 @@ mod tests {
         let w = tape.param("w", 1.0 + 2f64.powi(-11));
         let y = tape.mul(w, w);
         let trace = Trace::try_from(tape.finish(y)).unwrap();
-        let copies = Retyped::new(&trace);
+        let copies = Traces::new(trace);
         assert!(copies.has(Dtype::F64) && !copies.has(Dtype::F16));
         let half = copies.get(Dtype::F16);
         assert_eq!(half.dtype(), Dtype::F16);
@@ -142,7 +144,7 @@ mod tests {
         );
         assert!(std::ptr::eq(half, copies.get(Dtype::F16)), "made once");
         assert!(
-            std::ptr::eq(copies.get(Dtype::F64), &trace),
+            std::ptr::eq(copies.get(Dtype::F64), copies.recorded()),
             "the recorded dtype is the trace itself"
         );
     }

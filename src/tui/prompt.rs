@@ -1,5 +1,6 @@
 //! The one-line prompt: jump to a node by id (with completion over a sorted
-//! id index) or search by id, op or group.
+//! id index), search by id, op or group, or watch for a condition
+//! (`watch.rs` holds its syntax).
 
 use crate::trace::Trace;
 
@@ -10,6 +11,8 @@ pub enum PromptKind {
     Jump,
     /// Search ids, ops and groups.
     Search,
+    /// Run the sweep until a condition holds.
+    Watch,
 }
 
 impl PromptKind {
@@ -18,6 +21,7 @@ impl PromptKind {
         match self {
             PromptKind::Jump => "jump to node: ",
             PromptKind::Search => "search id, op or group: ",
+            PromptKind::Watch => "run until: ",
         }
     }
 }
@@ -35,6 +39,8 @@ pub struct Prompt {
     pub matches: usize,
     /// The highlighted candidate.
     pub pick: usize,
+    /// Why the text was refused (a watch condition that does not parse).
+    pub error: Option<String>,
 }
 
 /// Candidates listed under the prompt.
@@ -49,6 +55,7 @@ impl Prompt {
             candidates: Vec::new(),
             matches: 0,
             pick: 0,
+            error: None,
         }
     }
 
@@ -156,9 +163,10 @@ mod tests {
                 .filter(|&node| matches(&trace, node, query))
                 .count()
         };
-        assert_eq!(hits("mul"), 4);
-        // The group profit holds margin, gross, demand_sq, storage and profit itself.
-        assert_eq!(hits("profit"), 5);
+        // s_times_p, gross, demand_sq, storage and fee multiply.
+        assert_eq!(hits("mul"), 5);
+        // The group profit holds margin, gross, demand_sq, storage, fee, costs and profit itself.
+        assert_eq!(hits("profit"), 7);
         assert_eq!(hits("zzz"), 0);
     }
 }

@@ -77,6 +77,9 @@ fn is_large(finding: &Finding) -> bool {
         Rule::Overflow | Rule::NearOverflow | Rule::Exploding => true,
         Rule::Gain => finding.measure == Measure::Gain && finding.value >= finding.threshold,
         Rule::NonFinite | Rule::Underflow | Rule::Vanishing => false,
+        // Rules added to the library later read as neither.
+        #[allow(unreachable_patterns)]
+        _ => false,
     }
 }
 
@@ -92,6 +95,8 @@ pub fn finding_symbol(finding: &Finding) -> &'static str {
         Rule::Exploding => "↑",
         Rule::Gain if is_large(finding) => "≫",
         Rule::Gain => "≪",
+        #[allow(unreachable_patterns)]
+        _ => "•",
     }
 }
 
@@ -104,24 +109,25 @@ pub fn finding_style(theme: &Theme, finding: &Finding) -> Style {
     }
 }
 
-/// A log-scale bar of `width` cells for a norm: one cell per two decades
-/// from 1e-8 (empty) to 1e8 (full), with eighth-cell steps. Non-finite
-/// norms fill the bar with `!`.
-pub fn magnitude_bar(norm: Option<f64>, width: usize) -> String {
+/// A log-scale bar of `width` cells for a magnitude: empty at 10^`low` and
+/// below (and for zero), full at 10^`high`, with eighth-cell steps; any
+/// non-zero magnitude gets at least an eighth. Non-finite magnitudes fill
+/// the bar with `!`.
+pub fn magnitude_bar(magnitude: Option<f64>, width: usize, (low, high): (i32, i32)) -> String {
     const EIGHTHS: [&str; 8] = ["", "▏", "▎", "▍", "▌", "▋", "▊", "▉"];
-    let Some(norm) = norm else {
+    let Some(magnitude) = magnitude.map(f64::abs) else {
         return " ".repeat(width);
     };
-    if !norm.is_finite() {
+    if !magnitude.is_finite() {
         return "!".repeat(width);
     }
-    let decades = if norm > 0.0 {
-        norm.log10()
+    let eighths = if magnitude > 0.0 {
+        let span = f64::from(high - low).max(1.0);
+        let fraction = ((magnitude.log10() - f64::from(low)) / span).clamp(0.0, 1.0);
+        ((fraction * (width * 8) as f64).round() as usize).max(1)
     } else {
-        f64::NEG_INFINITY
+        0
     };
-    let fraction = ((decades + 8.0) / 16.0).clamp(0.0, 1.0);
-    let eighths = (fraction * (width * 8) as f64).round() as usize;
     let mut bar = "█".repeat(eighths / 8);
     bar.push_str(EIGHTHS[eighths % 8]);
     let used = eighths / 8 + usize::from(!eighths.is_multiple_of(8));
@@ -135,14 +141,21 @@ mod tests {
     use ratatui::text::Span;
 
     #[test]
-    fn bars_grow_two_decades_per_cell() {
-        assert_eq!(magnitude_bar(Some(1.0), 8), "████    ");
-        assert_eq!(magnitude_bar(Some(1e8), 8), "████████");
-        assert_eq!(magnitude_bar(Some(0.0), 8), "        ");
-        assert_eq!(magnitude_bar(Some(10.0), 8), "████▌   ");
-        assert_eq!(magnitude_bar(Some(f64::NAN), 4), "!!!!");
+    fn bars_follow_the_range_they_are_given() {
+        let wide = (-8, 8);
+        assert_eq!(magnitude_bar(Some(1.0), 8, wide), "████    ");
+        assert_eq!(magnitude_bar(Some(-1e8), 8, wide), "████████");
+        assert_eq!(magnitude_bar(Some(0.0), 8, wide), "        ");
+        assert_eq!(magnitude_bar(Some(10.0), 8, wide), "████▌   ");
+        assert_eq!(magnitude_bar(Some(f64::NAN), 4, wide), "!!!!");
+        // A range that reaches down to 1e-10 gives 3.3e-10 a bar.
+        let deep = (-10, 2);
+        assert_ne!(magnitude_bar(Some(3.3e-10), 8, deep).trim(), "");
+        assert_eq!(magnitude_bar(Some(100.0), 8, deep), "████████");
+        // Below the range, still an eighth: not zero.
+        assert_eq!(magnitude_bar(Some(1e-30), 8, deep), "▏       ");
         for norm in [1e-9, 3e-3, 0.5, 7.0, 2e5] {
-            assert_eq!(Span::raw(magnitude_bar(Some(norm), 8)).width(), 8);
+            assert_eq!(Span::raw(magnitude_bar(Some(norm), 8, wide)).width(), 8);
         }
     }
 

@@ -1,7 +1,9 @@
 //! What the panes read on every frame, kept up to date step by step instead
-//! of recomputed per frame: each node's adjoint norm, each group's norm and
-//! the flags per node. Every entry is a function of the sweep's cursor, so
-//! stepping back restores it exactly.
+//! of recomputed per frame: each node's adjoint (a scalar's value with its
+//! sign, a tensor's norm), each group's norm and the flags per node. Every
+//! entry is a function of the sweep's cursor, so stepping back restores it
+//! exactly — except the range of magnitudes met, which only widens, so
+//! Order's bars keep their scale while stepping back and forth.
 
 use crate::sweep::{FlagKind, Sweep};
 use crate::trace::Trace;
@@ -10,8 +12,11 @@ use std::collections::HashMap;
 /// Norms, group sums and flag marks for the sweep's current position.
 #[derive(Debug, Clone)]
 pub struct Tally {
-    /// L2 norm of each node's adjoint so far (`None`: no contribution yet).
+    /// Each node's adjoint so far: a scalar's value, a tensor's L2 norm
+    /// (`None`: no contribution yet).
     norms: Vec<Option<f64>>,
+    /// log10 of the smallest and largest non-zero finite magnitude met so far.
+    range: (f64, f64),
     /// Index into `groups` of each node's group.
     group_of: Vec<u32>,
     /// Group names, in the order the sweep first meets them.
@@ -33,6 +38,7 @@ impl Tally {
         let (group_of, groups) = group_index(trace);
         let mut tally = Tally {
             norms: Vec::new(),
+            range: (f64::INFINITY, f64::NEG_INFINITY),
             group_squares: vec![0.0; groups.len()],
             group_of,
             groups,
@@ -48,9 +54,8 @@ impl Tally {
     pub fn reset(&mut self, sweep: &Sweep) {
         let trace = sweep.trace();
         self.norms = vec![None; trace.nodes().len()];
-        self.norms[trace.output()] = sweep
-            .adjoint(trace.output())
-            .map(|adjoint| adjoint.l2_norm());
+        self.norms[trace.output()] = sweep.adjoint(trace.output()).map(|adjoint| shown(&adjoint));
+        self.widen(self.norms[trace.output()]);
         self.group_squares.iter_mut().for_each(|sum| *sum = 0.0);
         self.group_undo.clear();
         self.node_flags.clear();
@@ -64,7 +69,9 @@ impl Tally {
         let node = trace.sweep_order()[step];
         if let Some(ledger) = sweep.ledger() {
             for entry in ledger.step_entries(step) {
-                self.norms[entry.input] = Some(entry.after.l2_norm());
+                let value = shown(&entry.after);
+                self.norms[entry.input] = Some(value);
+                self.widen(Some(value));
             }
         }
         let group = self.group_of[node] as usize;
@@ -78,7 +85,7 @@ impl Tally {
     /// step had contributed to, and `node` the node it had processed.
     pub fn stepped_back(&mut self, sweep: &Sweep, node: usize, receivers: &[usize]) {
         for &receiver in receivers {
-            self.norms[receiver] = sweep.adjoint(receiver).map(|adjoint| adjoint.l2_norm());
+            self.norms[receiver] = sweep.adjoint(receiver).map(|adjoint| shown(&adjoint));
         }
         if let Some(previous) = self.group_undo.pop() {
             self.group_squares[self.group_of[node] as usize] = previous;
@@ -112,7 +119,34 @@ impl Tally {
 
     /// The norm of `node`'s adjoint so far.
     pub fn norm(&self, node: usize) -> Option<f64> {
+        self.norms[node].map(f64::abs)
+    }
+
+    /// `node`'s adjoint so far as Order shows it: a scalar's value with its
+    /// sign, a tensor's norm.
+    pub fn signed(&self, node: usize) -> Option<f64> {
         self.norms[node]
+    }
+
+    /// The decades Order's bars span: from the smallest to the largest
+    /// non-zero finite magnitude met so far, whole decades, at least one.
+    pub fn decades(&self) -> (i32, i32) {
+        let (low, high) = self.range;
+        if !(low.is_finite() && high.is_finite()) {
+            return (-1, 1);
+        }
+        let (low, high) = (low.floor() as i32, high.ceil() as i32);
+        (low, high.max(low + 1))
+    }
+
+    fn widen(&mut self, value: Option<f64>) {
+        if let Some(magnitude) = value.map(f64::abs)
+            && magnitude.is_finite()
+            && magnitude > 0.0
+        {
+            let decade = magnitude.log10();
+            self.range = (self.range.0.min(decade), self.range.1.max(decade));
+        }
     }
 
     /// The flag kinds raised at `node`.
@@ -138,6 +172,14 @@ impl Tally {
     /// The group name of `node`.
     pub fn group(&self, node: usize) -> &str {
         &self.groups[self.group_of[node] as usize]
+    }
+}
+
+/// A value as the tally keeps it: a scalar itself, a tensor's L2 norm.
+fn shown(value: &crate::tensor::Value) -> f64 {
+    match value {
+        crate::tensor::Value::Scalar(x) => *x,
+        tensor => tensor.l2_norm(),
     }
 }
 
@@ -180,13 +222,20 @@ mod tests {
             tally.stepped(&sweep, sweep.cursor() - 1);
             snapshots.push((node, tally.norms.clone(), tally.group_squares.clone()));
         }
-        // Every norm is the norm of the adjoint the sweep holds (common practice: L2 norm).
+        // Every norm is the norm of the adjoint the sweep holds (common practice: L2 norm),
+        // and a scalar keeps its sign.
         for node in 0..trace.nodes().len() {
             assert_eq!(
                 tally.norm(node),
                 sweep.adjoint(node).map(|adjoint| adjoint.l2_norm())
             );
+            assert_eq!(
+                tally.signed(node),
+                sweep.adjoint(node).and_then(|adjoint| adjoint.as_scalar())
+            );
         }
+        let (low, high) = tally.decades();
+        assert!(low < high);
         while let Some((node, norms, squares)) = snapshots.pop() {
             assert_eq!((&tally.norms, &tally.group_squares), (&norms, &squares));
             let step = sweep.cursor() - 1;

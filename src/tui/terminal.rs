@@ -1,13 +1,18 @@
-//! The terminal's lifecycle and the event loop: raw mode and the alternate
-//! screen through `ratatui::try_init` (whose panic hook restores them), mouse
-//! capture on top, and the terminal restored on every way out.
+//! The terminal's lifecycle and the event loop. The terminal is taken
+//! through `ratatui::try_init` (raw mode, alternate screen, a panic hook that
+//! restores both) with mouse capture on top, and given back on every way
+//! out: return, error, panic, or a signal (`signals`). The loop draws, hands
+//! queued work to worker threads, and waits for a key or a result, so keys
+//! keep working while a diagnosis runs; the first frame of any trace is
+//! drawn before it is even loaded.
 
 use super::action::Action;
 use super::app::App;
 use super::keymap::{Key, KeyMap};
 use super::layout;
-use super::precision::Retyped;
+use super::precision::Traces;
 use super::theme::Theme;
+use super::work::{Finished, Outcome, Task};
 use crate::diagnose::Settings;
 use crate::trace::{self, LoadError, Trace};
 use ratatui::DefaultTerminal;
@@ -20,10 +25,16 @@ use ratatui::text::Line;
 use ratatui::widgets::{Block, Gauge, Widget};
 use std::io;
 use std::path::Path;
+use std::sync::mpsc::{self, Receiver, Sender};
+use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant};
 
-/// Files above this size load behind a progress gauge.
-const LARGE_FILE: u64 = 4 * 1024 * 1024;
+/// The name of worker threads: a panic there is reported in the view, not
+/// by tearing the terminal down under it.
+const WORKER: &str = "ebb-work";
+
+/// How often the screen is redrawn while work is under way (its progress moves).
+const TICK: Duration = Duration::from_millis(50);
 
 /// Why the view could not run.
 #[derive(Debug, thiserror::Error)]
@@ -38,14 +49,17 @@ pub enum ViewError {
     Terminal(#[from] io::Error),
 }
 
-/// Enters the full-screen view, restoring the terminal on drop (also on an
-/// early return or an unwinding panic).
-struct Session {
+/// The terminal, held by the view until dropped (also on an early return or
+/// an unwinding panic).
+struct Held {
     terminal: DefaultTerminal,
 }
 
-impl Session {
-    fn start() -> io::Result<Session> {
+/// What a worker thread's panic said, for the status line.
+static WORKER_PANIC: Mutex<Option<String>> = Mutex::new(None);
+
+impl Held {
+    fn start() -> io::Result<Held> {
         // Signals restore the terminal from the moment it is changed.
         super::signals::arm()?;
         super::signals::entered();
@@ -57,9 +71,24 @@ impl Session {
                 return Err(error);
             }
         };
-        // ratatui's hook restores raw mode and the screen; mouse capture is ours to undo.
+        // ratatui's hook restores raw mode and the screen; mouse capture is
+        // ours to undo. A worker's panic leaves the terminal alone: the view
+        // says what happened and carries on.
         let previous = std::panic::take_hook();
         std::panic::set_hook(Box::new(move |info| {
+            if std::thread::current().name() == Some(WORKER) {
+                let text = info
+                    .payload()
+                    .downcast_ref::<&str>()
+                    .map(|text| text.to_string())
+                    .or_else(|| info.payload().downcast_ref::<String>().cloned())
+                    .unwrap_or_else(|| "a panic".to_string());
+                let place = info.location().map_or(String::new(), |at| {
+                    format!(" at {}:{}", at.file(), at.line())
+                });
+                *WORKER_PANIC.lock().unwrap_or_else(|p| p.into_inner()) = Some(text + &place);
+                return;
+            }
             let _ = execute!(io::stdout(), DisableMouseCapture);
             previous(info);
         }));
@@ -68,11 +97,11 @@ impl Session {
             super::signals::left();
             return Err(error);
         }
-        Ok(Session { terminal })
+        Ok(Held { terminal })
     }
 }
 
-impl Drop for Session {
+impl Drop for Held {
     fn drop(&mut self) {
         let _ = execute!(io::stdout(), DisableMouseCapture);
         ratatui::restore();
@@ -82,25 +111,22 @@ impl Drop for Session {
 
 /// Opens the view on an already loaded trace; `settings` are the diagnosis's thresholds.
 pub fn view(
-    trace: &Trace,
+    trace: Trace,
     label: &str,
     themes: Vec<Theme>,
     keymap: KeyMap,
     settings: Settings,
 ) -> Result<(), ViewError> {
-    let mut session = Session::start()?;
-    run(
-        &mut session.terminal,
-        trace,
-        label,
-        themes,
-        keymap,
-        settings,
-    )
+    let mut held = Held::start()?;
+    let traces = Traces::new(trace);
+    let app = App::new(&traces, label, themes)
+        .with_keymap(keymap)
+        .with_settings(settings);
+    run(&mut held.terminal, app)
 }
 
-/// Loads `path` and opens the view on it. A large file loads on a worker
-/// thread behind a gauge; q or Ctrl-C abandons the load.
+/// Opens the view and loads `path` on a worker thread behind a gauge (the
+/// first frame appears at once); the quit key abandons the load.
 pub fn open(
     path: &Path,
     themes: Vec<Theme>,
@@ -109,27 +135,26 @@ pub fn open(
 ) -> Result<(), ViewError> {
     let size = std::fs::metadata(path).map(|meta| meta.len()).unwrap_or(0);
     let label = path.display().to_string();
-    if size <= LARGE_FILE {
-        let trace = trace::load(path)?;
-        return view(&trace, &label, themes, keymap, settings);
-    }
-    let mut session = Session::start()?;
+    let mut held = Held::start()?;
     let owned = path.to_path_buf();
     let progress = SharedProgress::default();
     let mut reporter = progress.clone();
-    let worker = std::thread::spawn(move || trace::load_with(&owned, &mut reporter));
+    let loader = std::thread::Builder::new()
+        .name("ebb-load".to_string())
+        .spawn(move || trace::load_with(&owned, &mut reporter))?;
     let started = Instant::now();
-    while !worker.is_finished() {
+    while !loader.is_finished() {
         let elapsed = started.elapsed().as_secs_f64();
         let (stage, fraction) = progress.read();
-        session.terminal.draw(|frame| {
+        let quit = keymap.label_for("quit", super::action::PaneId::all()[0]);
+        held.terminal.draw(|frame| {
             let area = frame.area();
             let [middle] =
                 area.layout(&Layout::vertical([Constraint::Length(3)]).flex(Flex::Center));
             // Stages that know their size fill the gauge; the others sweep it to show the load is alive.
             let ratio = fraction.unwrap_or((elapsed / 2.0).fract());
             let text = format!(
-                "{stage} {label} ({:.1} MB) … {elapsed:.1} s   q cancels",
+                "{stage} {label} ({:.1} MB) … {elapsed:.1} s   {quit} cancels",
                 size as f64 / 1e6
             );
             Gauge::default()
@@ -138,34 +163,35 @@ pub fn open(
                 .label(text)
                 .render(middle, frame.buffer_mut());
         })?;
-        if event::poll(Duration::from_millis(100))?
+        if event::poll(Duration::from_millis(50))?
             && let Event::Key(key) = event::read()?
             && key.kind == KeyEventKind::Press
             && matches!(
-                keymap.lookup(Key::from_event(&key), super::action::PaneId::Order, false),
+                keymap.lookup(
+                    Key::from_event(&key),
+                    super::action::PaneId::all()[0],
+                    false
+                ),
                 Some(Action::Quit)
             )
         {
             return Ok(());
         }
     }
-    let trace = worker
+    let trace = loader
         .join()
         .map_err(|_| io::Error::other("the loader thread panicked"))??;
-    run(
-        &mut session.terminal,
-        &trace,
-        &label,
-        themes,
-        keymap,
-        settings,
-    )
+    let traces = Traces::new(trace);
+    let app = App::new(&traces, &label, themes)
+        .with_keymap(keymap)
+        .with_settings(settings);
+    run(&mut held.terminal, app)
 }
 
 /// The loader's progress, shared between the loading thread and the gauge.
 #[derive(Debug, Clone, Default)]
 struct SharedProgress {
-    state: std::sync::Arc<std::sync::Mutex<(&'static str, Option<u64>, u64)>>,
+    state: Arc<Mutex<(&'static str, Option<u64>, u64)>>,
 }
 
 impl SharedProgress {
@@ -201,55 +227,86 @@ impl trace::Progress for SharedProgress {
     }
 }
 
-fn run(
-    terminal: &mut DefaultTerminal,
-    trace: &Trace,
-    label: &str,
-    themes: Vec<Theme>,
-    keymap: KeyMap,
-    settings: Settings,
-) -> Result<(), ViewError> {
-    let copies = Retyped::new(trace);
-    let mut app = App::new(trace, label, themes)
-        .with_copies(&copies)
-        .with_keymap(keymap)
-        .with_settings(settings);
-    while !app.quit {
+/// Hands `task` to a worker thread; what it produces arrives on `results`.
+/// The thread is detached: quitting never waits for it.
+fn spawn(task: Task, results: &Sender<Finished>) -> io::Result<()> {
+    let results = results.clone();
+    let (id, job) = (task.id, task.job);
+    std::thread::Builder::new()
+        .name(WORKER.to_string())
+        .spawn(move || {
+            let finished = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| task.run()))
+                .unwrap_or_else(|_| Finished {
+                    id,
+                    job,
+                    outcome: Outcome::Failed(
+                        WORKER_PANIC
+                            .lock()
+                            .unwrap_or_else(|p| p.into_inner())
+                            .take()
+                            .unwrap_or_else(|| "a panic".to_string()),
+                    ),
+                });
+            // The view may have quit already; then nobody listens.
+            let _ = results.send(finished);
+        })?;
+    Ok(())
+}
+
+fn run(terminal: &mut DefaultTerminal, mut app: App) -> Result<(), ViewError> {
+    let (results, finished): (Sender<Finished>, Receiver<Finished>) = mpsc::channel();
+    loop {
         app.resize(terminal.size()?.into());
         terminal.draw(|frame| frame.render_widget(&app, frame.area()))?;
-        // Long work (verifying a big trace) runs once its message is on screen.
-        if app.has_pending() {
-            app.run_pending();
+        if app.has_quit() {
+            return Ok(());
+        }
+        if let Some(task) = app.next_task() {
+            spawn(task, &results)?;
             continue;
         }
-        // The frame just drawn says what is under way; do it, then draw again.
-        if app.has_work() {
-            app.work();
-            continue;
-        }
-        match event::read()? {
-            Event::Key(key) if key.kind == KeyEventKind::Press => app.key(Key::from_event(&key)),
-            Event::Mouse(mouse) => {
-                let Some((pane, row)) = layout::hit(&app, mouse.column, mouse.row) else {
-                    continue;
-                };
-                match mouse.kind {
-                    MouseEventKind::Down(MouseButton::Left) => app.update(Action::Click(pane, row)),
-                    MouseEventKind::ScrollDown => app.update(Action::Scroll(pane, 3)),
-                    MouseEventKind::ScrollUp => app.update(Action::Scroll(pane, -3)),
-                    _ => {}
-                }
+        // While work runs, wake up to move its progress and take its result.
+        let wait = if app.running().is_some() {
+            TICK
+        } else {
+            Duration::from_secs(1)
+        };
+        if event::poll(wait)? {
+            handle(&mut app, event::read()?);
+            // Keys typed ahead are answered before the next frame.
+            while event::poll(Duration::ZERO)? && !app.has_quit() {
+                handle(&mut app, event::read()?);
             }
-            // A resize redraws on the next turn of the loop.
-            _ => {}
+        }
+        while let Ok(result) = finished.try_recv() {
+            app.finish(result);
         }
     }
-    Ok(())
+}
+
+/// One terminal event.
+fn handle(app: &mut App, event: Event) {
+    match event {
+        Event::Key(key) if key.kind == KeyEventKind::Press => app.key(Key::from_event(&key)),
+        Event::Mouse(mouse) => {
+            let Some((pane, row)) = layout::hit(app.layout(), mouse.column, mouse.row) else {
+                return;
+            };
+            match mouse.kind {
+                MouseEventKind::Down(MouseButton::Left) => app.update(Action::Click(pane, row)),
+                MouseEventKind::ScrollDown => app.update(Action::Scroll(pane, 3)),
+                MouseEventKind::ScrollUp => app.update(Action::Scroll(pane, -3)),
+                _ => {}
+            }
+        }
+        // A resize redraws on the next turn of the loop.
+        _ => {}
+    }
 }
 
 #[cfg(test)]
 mod tests {
-    use super::Session;
+    use super::Held;
     use portable_pty::{CommandBuilder, NativePtySystem, PtySize, PtySystem};
     use std::io::Read;
     use std::sync::{Arc, Mutex};
@@ -260,7 +317,7 @@ mod tests {
     #[test]
     #[ignore = "run inside a pseudo-terminal by a_panic_in_the_view_restores_the_terminal"]
     fn panicking_view() {
-        let _session = Session::start().expect("inside a pseudo-terminal");
+        let _session = Held::start().expect("inside a pseudo-terminal");
         panic!("a bug in the view");
     }
 

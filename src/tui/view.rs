@@ -6,7 +6,7 @@ use super::app::{App, Overlay};
 use super::keymap::Scope;
 use super::layout::{self, MIN_HEIGHT, MIN_WIDTH, Screen};
 use super::panes;
-use super::prompt::Prompt;
+use super::prompt::{Prompt, PromptKind};
 use super::symbols::{self, CURRENT, DONE, FLAG_KINDS, ORIGIN, PENDING};
 use crate::verify::Band;
 use ratatui::buffer::Buffer;
@@ -18,23 +18,19 @@ impl Widget for &App<'_> {
     fn render(self, area: Rect, buf: &mut Buffer) {
         let theme = self.theme();
         buf.set_style(area, theme.text);
-        let Screen::Panes { panes, status } =
-            layout::arrange(area, self.focus, self.side, self.corner, self.zoomed)
-        else {
+        // The layout state's area is the one the app was last resized to; draw into this one.
+        let mut state = self.layout().clone();
+        state.area = area;
+        let Screen::Panes { panes, status } = layout::arrange(&state) else {
             too_small(self, area, buf);
             return;
         };
-        let narrow = area.width < layout::WIDE && !self.zoomed;
         for (pane, pane_area) in panes {
-            let tabs = if self.zoomed {
-                &[]
-            } else {
-                layout::slot_tabs(pane, narrow)
-            };
-            frame(self, pane, pane_area, tabs, buf);
+            let tabs = layout::tabs(&state, pane);
+            frame(self, pane, pane_area, &tabs, buf);
         }
         status_line(self, status, buf);
-        match &self.overlay {
+        match self.overlay() {
             Overlay::None => {}
             Overlay::Help(scroll) => help(self, *scroll, area, buf),
             Overlay::Prompt(prompt) => prompt_box(self, prompt, status, buf),
@@ -43,18 +39,14 @@ impl Widget for &App<'_> {
 }
 
 fn pane_number(pane: PaneId) -> usize {
-    PaneId::ALL
-        .iter()
-        .position(|&shown| shown == pane)
-        .expect("listed")
-        + 1
+    pane.number()
 }
 
 /// A pane in its border, the title naming it (or, in a shared slot, every
 /// pane of the slot as tabs; the others by number alone when names do not fit).
 fn frame(app: &App, pane: PaneId, area: Rect, tabs: &[PaneId], buf: &mut Buffer) {
     let theme = app.theme();
-    let focused = app.focus == pane;
+    let focused = app.focus() == pane;
     let border = if focused { theme.focus } else { theme.border };
     let title_style = if focused { theme.focus } else { theme.title };
     let mut title: Vec<Span> = Vec::new();
@@ -88,71 +80,100 @@ fn frame(app: &App, pane: PaneId, area: Rect, tabs: &[PaneId], buf: &mut Buffer)
             title_style,
         ));
     }
-    let shown = panes::pane(pane);
-    debug_assert_eq!(
-        shown.id(),
-        pane,
-        "the pane registry maps each id to its pane"
-    );
-    let detail = shown.title_detail(app);
+    let shown = app.pane(pane);
+    let mut ctx = app.ctx(pane);
+    let detail = shown.title(&ctx);
     if !detail.is_empty() {
         title.push(Span::styled(format!("· {detail} "), theme.muted));
     }
-    if app.zoomed {
-        title.push(Span::styled("(zoomed: z or Esc returns) ", theme.muted));
+    if app.layout().zoomed {
+        let keys = app.keymap();
+        title.push(Span::styled(
+            format!(
+                "(zoomed: {} or {} returns) ",
+                keys.label_for("zoom", pane),
+                keys.label_for("cancel", pane)
+            ),
+            theme.muted,
+        ));
     }
     let block = Block::bordered()
         .border_style(border)
         .title(Line::from(title));
     let inner = block.inner(area);
     block.render(area, buf);
-    shown.draw(app, inner, buf);
+    ctx.rows = inner.height as usize;
+    shown.draw(&ctx, inner, buf);
 }
 
-/// Title, dtype, step k of n, the current node, then a message or the focused pane's hints.
+/// Title, dtype, step k of n, the current node, the work under way, then a
+/// message or the focused pane's hints.
 fn status_line(app: &App, area: Rect, buf: &mut Buffer) {
     let theme = app.theme();
-    let sweep = &app.sweep;
-    let next = match sweep.current() {
-        Some(node) => format!(
-            "next {} ({})",
-            app.trace.node(node).id,
-            app.trace.node(node).op_name
-        ),
-        None => "sweep done".to_string(),
-    };
+    let session = app.session();
+    let trace = session.trace();
+    let sweep = session.sweep();
+    let node_text = |node: usize| format!("{} ({})", trace.node(node).id, trace.node(node).op_name);
     // The title only where there is room: at 80 columns the hints matter more.
     let title = if area.width >= layout::WIDE {
-        format!(" {} │", app.trace.title())
+        format!(" {} │", trace.title())
     } else {
         String::new()
     };
-    let dtype = if app.trace.dtype() == app.recorded.dtype() {
-        app.trace.dtype().to_string()
+    let dtype = if trace.dtype() == session.recorded().dtype() {
+        trace.dtype().to_string()
     } else {
-        format!("{} (recorded {})", app.trace.dtype(), app.recorded.dtype())
+        format!(
+            "{} (recorded {})",
+            trace.dtype(),
+            session.recorded().dtype()
+        )
     };
-    let left = match &app.forward {
+    let left = match session.forward() {
         Some(forward) => {
-            let next = match forward.current() {
-                Some(node) => format!(
-                    "next {} ({})",
-                    app.trace.node(node).id,
-                    app.trace.node(node).op_name
-                ),
-                None => "tangent sweep done".to_string(),
-            };
+            let next = forward
+                .current()
+                .map_or("tangent sweep done".to_string(), |node| {
+                    format!("next {}", node_text(node))
+                });
             let (cursor, len) = (forward.sweep.cursor(), forward.sweep.len());
             format!(" ebb │ FORWARD MODE │{title} {dtype} │ tangent step {cursor}/{len} │ {next} ")
         }
-        None => format!(
-            " ebb │{title} {dtype} │ step {}/{} │ {next} ",
-            sweep.cursor(),
-            sweep.len()
-        ),
+        None => {
+            let next = sweep.current().map_or("sweep done".to_string(), |node| {
+                format!("next {}", node_text(node))
+            });
+            format!(
+                " ebb │{title} {dtype} │ step {}/{} │ {next} ",
+                sweep.cursor(),
+                sweep.len()
+            )
+        }
     };
     let mut spans = vec![Span::styled(left, theme.status)];
-    match &app.message {
+    if let Some(running) = app.running() {
+        let (stage, fraction) = running.progress.read();
+        let seconds = running.started.elapsed().as_secs_f64();
+        let done = if fraction > 0.0 {
+            format!(" {:.0}%", fraction * 100.0)
+        } else {
+            String::new()
+        };
+        let stage = if stage.is_empty() {
+            String::new()
+        } else {
+            format!(" ({stage})")
+        };
+        spans.push(Span::styled(
+            format!(
+                " ⟳ {}{stage}{done} {seconds:.1} s, {} cancels │",
+                running.job.describe(),
+                app.keymap().label_for("cancel", app.focus())
+            ),
+            theme.current,
+        ));
+    }
+    match app.message() {
         Some(message) => spans.push(Span::styled(format!(" {message}"), theme.key)),
         None => {
             for (key, hint) in mode_hints(app) {
@@ -166,15 +187,11 @@ fn status_line(app: &App, area: Rect, buf: &mut Buffer) {
 
 /// The key map's hints, adjusted to the mode: forward mode has no flags to
 /// run to, and its own keys for the direction and the way back.
-fn mode_hints(app: &App) -> Vec<(String, &'static str)> {
-    let mut hints = app.keymap.hints(app.focus);
-    let key = |action: Action| {
-        app.keymap
-            .keys_for(Scope::Global, action)
-            .into_iter()
-            .next()
-    };
-    if app.forward.is_some() {
+pub fn mode_hints(app: &App) -> Vec<(String, &'static str)> {
+    let keymap = app.keymap();
+    let mut hints = keymap.hints(app.focus());
+    let key = |action: Action| keymap.keys_for(Scope::Global, action).into_iter().next();
+    if app.session().forward().is_some() {
         hints.retain(|(_, hint)| *hint != Action::RunToFlag.hint());
         let at = hints
             .iter()
@@ -196,8 +213,8 @@ fn mode_hints(app: &App) -> Vec<(String, &'static str)> {
 
 /// One line on the mode in effect, its keys from the live key map.
 fn mode_line(app: &App) -> String {
-    let keys = |action: Action| app.keymap.keys_for(Scope::Global, action).join("/");
-    match &app.forward {
+    let keys = |action: Action| app.keymap().keys_for(Scope::Global, action).join("/");
+    match app.session().forward() {
         Some(forward) => format!(
             "Now: FORWARD MODE, {}. {} steps the tangent sweep in recording order, {} steps back, {} runs to the end, {} restarts; {} changes the direction; {} returns to the reverse sweep.",
             forward.description.clone(),
@@ -230,7 +247,10 @@ fn too_small(app: &App, area: Rect, buf: &mut Buffer) {
             "Enlarge the window, or use `ebb sweep TRACE` or `ebb check TRACE` for text output.",
             theme.text,
         ),
-        Line::styled("q quits.", theme.muted),
+        Line::styled(
+            format!("{} quits.", app.keymap().label_for("quit", app.focus())),
+            theme.muted,
+        ),
     ];
     let [middle] = area.layout(&Layout::vertical([Constraint::Length(4)]).flex(Flex::Center));
     Paragraph::new(text)
@@ -243,7 +263,7 @@ fn too_small(app: &App, area: Rect, buf: &mut Buffer) {
 fn help(app: &App, scroll: usize, area: Rect, buf: &mut Buffer) {
     let theme = app.theme();
     let mut lines: Vec<Line> = vec![Line::styled(mode_line(app), theme.current), Line::raw("")];
-    for (heading, rows) in app.keymap.help() {
+    for (heading, rows) in app.keymap().help() {
         lines.push(Line::styled(heading, theme.title));
         for (keys, what) in rows {
             lines.push(Line::from(vec![
@@ -279,17 +299,16 @@ fn help(app: &App, scroll: usize, area: Rect, buf: &mut Buffer) {
         Span::styled("⇓ underflow  ↓ vanishing  ≪ gain below", theme.flag_small),
     ]));
     lines.push(Line::styled(
-        "  bar: log10 ‖adjoint‖, one cell per two decades from 1e-8 to 1e8",
+        "  bar: log10 of |adjoint| (‖adjoint‖ for tensors) over the range the sweep has met, shown in Order's header",
         theme.muted,
     ));
-    lines.push(Line::styled(
-        "  Panes: 1 Order (sweep order)  2 Node (detail)  3 Inflow (contributions)  4 Edges (neighbours)  5 Trend (magnitudes)  6 Flags",
-        theme.muted,
-    ));
-    lines.push(Line::styled(
-        "  7 Verify (suspects of a wrong derivative, recorded against recomputed partials)",
-        theme.muted,
-    ));
+    lines.push(Line::styled("Panes", theme.title));
+    for spec in panes::specs() {
+        lines.push(Line::styled(
+            format!("  {} {}: {}", spec.id.number(), spec.id.name(), spec.about),
+            theme.muted,
+        ));
+    }
     let mut band_line = vec![Span::raw("  ")];
     for band in [
         Band::ProbablyWrong,
@@ -310,8 +329,9 @@ fn help(app: &App, scroll: usize, area: Rect, buf: &mut Buffer) {
         theme.flag_value,
     ));
     lines.push(Line::from(band_line));
+    lines.push(Line::styled("Watch conditions", theme.title));
     lines.push(Line::styled(
-        "  8 Paths (dominant paths, group norms)",
+        format!("  {}", super::watch::SYNTAX),
         theme.muted,
     ));
     let width = area.width.saturating_sub(4).min(100);
@@ -322,7 +342,13 @@ fn help(app: &App, scroll: usize, area: Rect, buf: &mut Buffer) {
     let block = Block::bordered()
         .border_style(theme.focus)
         .title(Line::styled(
-            " Keys (? or Esc closes, j/k scroll) ",
+            format!(
+                " Keys ({} or {} closes, {}/{} scroll) ",
+                app.keymap().label_for("help", app.focus()),
+                app.keymap().label_for("cancel", app.focus()),
+                app.keymap().label_for("down", app.focus()),
+                app.keymap().label_for("up", app.focus())
+            ),
             theme.focus,
         ));
     let scroll = scroll.min(lines.len().saturating_sub(1)) as u16;
@@ -334,25 +360,18 @@ fn help(app: &App, scroll: usize, area: Rect, buf: &mut Buffer) {
         .render(popup, buf);
 }
 
-/// The prompt above the status line, with completion candidates for a jump.
+/// The prompt above the status line, with completion candidates for a jump
+/// and the syntax (or what is wrong) for a watch.
 fn prompt_box(app: &App, prompt: &Prompt, status: Rect, buf: &mut Buffer) {
     let theme = app.theme();
-    let height =
-        3 + prompt.candidates.len() as u16 + u16::from(prompt.matches > prompt.candidates.len());
-    let area = Rect::new(
-        status.x,
-        status.y.saturating_sub(height),
-        status.width.min(72),
-        height,
-    );
-    Clear.render(area, buf);
+    let trace = app.session().trace();
     let mut lines = vec![Line::from(vec![
         Span::styled(prompt.kind.label(), theme.muted),
         Span::styled(prompt.text.clone(), theme.text),
         Span::styled("▏", theme.focus),
     ])];
     for (at, &node) in prompt.candidates.iter().enumerate() {
-        let recorded = app.trace.node(node);
+        let recorded = trace.node(node);
         let line = Line::from(vec![
             Span::styled(format!("  {}", recorded.id), theme.text),
             Span::styled(
@@ -372,7 +391,38 @@ fn prompt_box(app: &App, prompt: &Prompt, status: Rect, buf: &mut Buffer) {
             theme.muted,
         ));
     }
-    let title = " Enter goes · Tab completes · Esc cancels ";
+    if prompt.kind == PromptKind::Watch {
+        match &prompt.error {
+            Some(error) => lines.push(Line::styled(format!("  {error}"), theme.flag_value)),
+            None => lines.push(Line::styled(
+                format!("  {}", super::watch::SYNTAX),
+                theme.muted,
+            )),
+        }
+    }
+    let width = status.width.min(if prompt.kind == PromptKind::Watch {
+        100
+    } else {
+        72
+    });
+    let height = lines.len() as u16 + 2;
+    let area = Rect::new(status.x, status.y.saturating_sub(height), width, height);
+    Clear.render(area, buf);
+    let keys = app.keymap();
+    let focus = app.focus();
+    let mut title = format!(
+        " {} goes · {} cancels ",
+        keys.label_for("submit", focus),
+        keys.label_for("cancel", focus)
+    );
+    if prompt.kind == PromptKind::Jump {
+        title = format!(
+            " {} goes · {} completes · {} cancels ",
+            keys.label_for("submit", focus),
+            keys.label_for("complete", focus),
+            keys.label_for("cancel", focus)
+        );
+    }
     Paragraph::new(lines)
         .block(
             Block::bordered()

@@ -3,6 +3,7 @@
 
 pub mod pty;
 pub mod screen;
+pub mod view;
 
 use ebb::record::Tape;
 use ebb::sweep::{LedgerMode, Sweep};

@@ -3,61 +3,74 @@
 //! sweep: each origin with its class, and each other rule's finding with its
 //! value against the threshold. Enter (or a click) selects the node.
 
-use super::{Move, Pane, fit};
-use crate::format::number;
+use super::{Ctx, Move, Pane, Spec, fit, scrolled};
+use crate::format::readable;
 use crate::sweep::FlagKind;
-use crate::tui::action::PaneId;
-use crate::tui::app::App;
+use crate::tui::action::{Action, PaneId};
 use crate::tui::diagnosis::{Row, rule_label, value_against_threshold};
+use crate::tui::ids::NodeIx;
+use crate::tui::layout::Slot;
+use crate::tui::message::{Msg, Outbox};
 use crate::tui::symbols::{ORIGIN, finding_style, finding_symbol, flag_style, flag_symbol};
+use crate::tui::work::Job;
 use ratatui::buffer::Buffer;
 use ratatui::layout::Rect;
 use ratatui::text::{Line, Span};
 
-/// The flags pane.
-pub struct FlagsPane;
+/// The pane's registration.
+pub const SPEC: Spec = Spec {
+    id: PaneId::new("Flags"),
+    slot: Slot::Flags,
+    about: "flags as the sweep raises them, then the diagnosis's origins and findings",
+    keys: &[("Enter", Action::Enter, "select its node")],
+    make: || Box::new(FlagsPane::default()),
+};
 
-fn first_shown(app: &App, rows: usize) -> usize {
-    app.flag_cursor.saturating_sub(rows.saturating_sub(1))
+/// The flags pane: the highlighted row and the first row shown.
+#[derive(Debug, Default)]
+pub struct FlagsPane {
+    cursor: usize,
+    offset: usize,
+}
+
+/// Rows in Flags: the sweep's flags so far, then the diagnosis's rows.
+fn row_count(ctx: &Ctx) -> usize {
+    ctx.session.sweep().flags().len()
+        + ctx
+            .session
+            .diagnosis()
+            .map_or(0, |diagnosed| diagnosed.rows.len())
 }
 
 /// The node a row of the pane names, and what the status line says on opening it.
-fn row_target(app: &App, at: usize) -> Option<(usize, String)> {
-    let flags = app.sweep.flags();
+fn row_target(ctx: &Ctx, at: usize) -> Option<(usize, String)> {
+    let session = ctx.session;
+    let trace = session.trace();
+    let flags = session.sweep().flags();
     if let Some(flag) = flags.get(at) {
         return Some((
             flag.node,
-            format!("{} at {}", flag.kind.name(), app.trace.node(flag.node).id),
+            format!("{} at '{}'", flag.kind.name(), trace.node(flag.node).id),
         ));
     }
-    let diagnosed = app.diagnosis()?;
+    let diagnosed = session.diagnosis()?;
     let row = *diagnosed.rows.get(at - flags.len())?;
-    let node = diagnosed.row_node(row);
-    let text = match row {
-        Row::Origin(index) => {
-            let origin = diagnosed.origin(index);
-            format!(
-                "origin ({}) at '{}': {}",
-                origin.class.letter(),
-                app.trace.node(node).id,
-                origin.explanation
-            )
-        }
-        Row::Finding(index) => diagnosed
-            .finding(index)
-            .describe(app.trace, app.trace.dtype()),
-    };
-    Some((node, text))
+    Some((diagnosed.row_node(row), diagnosed.row_text(trace, row)))
+}
+
+impl FlagsPane {
+    fn first(&self, rows: usize) -> usize {
+        scrolled(self.offset, self.cursor, rows)
+    }
 }
 
 impl Pane for FlagsPane {
-    fn id(&self) -> PaneId {
-        PaneId::Flags
-    }
-
-    fn title_detail(&self, app: &App) -> String {
-        let raised = format!("{} raised", app.sweep.flags().len());
-        match app.diagnosis() {
+    fn title(&self, ctx: &Ctx) -> String {
+        let raised = format!("{} raised", ctx.session.sweep().flags().len());
+        let diagnosing = ctx
+            .work
+            .is_some_and(|running| matches!(running.job, Job::Diagnose(_)));
+        match ctx.session.diagnosis() {
             Some(diagnosed) => {
                 let origins = diagnosed.diagnosis.origins.len();
                 let findings = diagnosed.rows.len() - origins;
@@ -67,33 +80,51 @@ impl Pane for FlagsPane {
                     plural(findings, "finding")
                 )
             }
-            None if app.has_work() => format!("{raised} · diagnosing …"),
-            None => format!("{raised} · D diagnoses"),
+            None if diagnosing => format!("{raised} · diagnosing …"),
+            None => ctx.say(&format!("{raised} · {{key:diagnose}} diagnoses")),
         }
     }
 
-    fn draw(&self, app: &App, area: Rect, buf: &mut Buffer) {
-        let theme = app.theme();
-        let flags = app.sweep.flags();
-        let total = app.flag_rows();
+    fn draw(&self, ctx: &Ctx, area: Rect, buf: &mut Buffer) {
+        let theme = ctx.theme;
+        let session = ctx.session;
+        let trace = session.trace();
+        let flags = session.sweep().flags();
+        let total = row_count(ctx);
+        let done = session.sweep().is_done();
         if total == 0 {
-            let text = match app.diagnosis() {
-                Some(_) if app.sweep.is_done() => {
+            let text = match session.diagnosis() {
+                Some(_) if done => {
                     "none: every value, partial and adjoint is finite, and no rule fired"
                 }
                 Some(_) => "none so far, and no rule fires on the whole sweep",
-                None if app.sweep.is_done() => "none: every value, partial and adjoint is finite",
-                None => "none so far (f runs to the next flag)",
+                None if done => "none: every value, partial and adjoint is finite",
+                None => "none so far ({key:run_to_flag} runs to the next flag)",
             };
-            buf.set_stringn(area.x, area.y, text, area.width as usize, theme.muted);
+            buf.set_stringn(
+                area.x,
+                area.y,
+                ctx.say(text),
+                area.width as usize,
+                theme.muted,
+            );
             return;
         }
         let rows = area.height as usize;
-        let first = first_shown(app, rows);
-        let id_width = (area.width as usize / 4).clamp(6, 20);
-        let diagnosed = app.diagnosis();
-        for (line, at) in (first..total.min(first + rows)).enumerate() {
-            let id = |node: usize| fit(&app.trace.node(node).id, id_width) + " ";
+        let first = self.first(rows);
+        let shown: Vec<usize> = (first..total.min(first + rows)).collect();
+        let id_width = shown
+            .iter()
+            .filter_map(|&at| row_target(ctx, at))
+            .map(|(node, _)| trace.node(node).id.chars().count())
+            .max()
+            .unwrap_or(4)
+            .clamp(4, (area.width as usize / 3).max(4));
+        let step_width = session.sweep().len().to_string().len();
+        let diagnosed = session.diagnosis();
+        for (line, &at) in shown.iter().enumerate() {
+            let id = |node: usize| fit(&trace.node(node).id, id_width) + " ";
+            let step = |step: usize| format!("step {:<step_width$} ", step + 1);
             let spans = match (flags.get(at), diagnosed) {
                 (Some(flag), _) => {
                     let style = flag_style(theme, flag.kind);
@@ -105,10 +136,13 @@ impl Pane for FlagsPane {
                         });
                     vec![
                         Span::styled(format!("{} ", flag_symbol(flag.kind)), style),
-                        Span::styled(format!("step {:<5} ", flag.step + 1), theme.muted),
+                        Span::styled(step(flag.step), theme.muted),
                         Span::styled(id(flag.node), theme.text),
                         Span::styled(format!("{} ", flag.kind.name()), style),
-                        Span::styled(number(flag.value), theme.text),
+                        Span::styled(
+                            readable(flag.value, trace.node_dtype(flag.node)),
+                            theme.text,
+                        ),
                         Span::styled(class, style),
                     ]
                 }
@@ -117,7 +151,7 @@ impl Pane for FlagsPane {
                         let origin = diagnosed.origin(index);
                         vec![
                             Span::styled(format!("{ORIGIN} "), theme.flag_origin),
-                            Span::styled(format!("step {:<5} ", origin.step + 1), theme.muted),
+                            Span::styled(step(origin.step), theme.muted),
                             Span::styled(id(origin.node), theme.text),
                             Span::styled(
                                 format!("origin ({}) ", origin.class.letter()),
@@ -134,7 +168,7 @@ impl Pane for FlagsPane {
                             .map_or(String::new(), |class| format!(" ({})", class.letter()));
                         vec![
                             Span::styled(format!("{} ", finding_symbol(finding)), style),
-                            Span::styled(format!("step {:<5} ", finding.step + 1), theme.muted),
+                            Span::styled(step(finding.step), theme.muted),
                             Span::styled(id(finding.node), theme.text),
                             Span::styled(format!("{}{class} ", rule_label(finding.rule)), style),
                             Span::styled(value_against_threshold(finding), theme.text),
@@ -145,31 +179,39 @@ impl Pane for FlagsPane {
             };
             let y = area.y + line as u16;
             buf.set_line(area.x, y, &Line::from(spans), area.width);
-            if at == app.flag_cursor && app.focus == PaneId::Flags {
+            if at == self.cursor && ctx.focused {
                 buf.set_style(Rect::new(area.x, y, area.width, 1), theme.selection);
             }
         }
     }
 
-    fn move_cursor(&self, app: &mut App, motion: Move) {
-        app.flag_cursor = motion.apply(app.flag_cursor, app.flag_rows());
-    }
-
-    fn enter(&self, app: &mut App) {
-        if let Some((node, text)) = row_target(app, app.flag_cursor) {
-            app.jump(node);
-            app.message = Some(text);
+    fn handle(&mut self, action: Action, ctx: &Ctx, out: &mut Outbox) {
+        let total = row_count(ctx);
+        if let Some(motion) = Move::of(action, ctx.rows) {
+            self.cursor = motion.apply(self.cursor, total);
+            self.offset = self.first(ctx.rows);
+            return;
+        }
+        let open = match action {
+            Action::Enter => true,
+            Action::Click(_, row) => {
+                let at = self.first(ctx.rows) + row as usize;
+                if at < total {
+                    self.cursor = at;
+                }
+                at < total
+            }
+            _ => false,
+        };
+        if open && let Some((node, text)) = row_target(ctx, self.cursor) {
+            out.send(Msg::Jump(NodeIx::new(node)));
+            out.send(Msg::Status(text));
         }
     }
 
-    fn click(&self, app: &mut App, row: usize) {
-        let rows = crate::tui::layout::pane_area(app, PaneId::Flags)
-            .map_or(1, |area| area.height.saturating_sub(2) as usize);
-        let at = first_shown(app, rows) + row;
-        if at < app.flag_rows() {
-            app.flag_cursor = at;
-            self.enter(app);
-        }
+    fn sync(&mut self, ctx: &Ctx, _out: &mut Outbox) {
+        self.cursor = self.cursor.min(row_count(ctx).saturating_sub(1));
+        self.offset = self.first(ctx.rows);
     }
 }
 
@@ -178,5 +220,35 @@ fn plural(count: usize, word: &str) -> String {
         word.to_string()
     } else {
         format!("{word}s")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use crate::dtype::Dtype;
+    use crate::record::Tape;
+    use crate::tui::action::Action;
+    use crate::tui::panes::tests::{Fixture, assert_lines};
+
+    #[test]
+    fn flags_then_the_diagnosis_rows_in_sweep_order() {
+        // ln 0 = −inf (IEEE 754-2019 §9.2.1), and its partial 1/0 = +inf (§7.3): all three
+        // flags are raised while step 1 processes y, p's adjoint by y's contribution.
+        let mut tape = Tape::new("log of zero", Dtype::F64);
+        let p = tape.param("p", 0.0);
+        let y = tape.log(p);
+        let y = tape.rename(y, "y");
+        let mut fixture = Fixture::new(tape.finish(y));
+        fixture.app.update(Action::RunToEnd);
+        assert_lines(
+            &fixture.render_own("Flags", 60, 5),
+            [
+                "✗ step 1 y    non-finite value -inf                         ",
+                "∂ step 1 y    non-finite partial inf                        ",
+                "! step 1 p    non-finite adjoint inf (a)                    ",
+                "◆ step 1 y    origin (a) non-finite forward value           ",
+                "                                                            ",
+            ],
+        );
     }
 }

@@ -1,26 +1,125 @@
-//! The panes: one module each, all behind the small [`Pane`] trait. A pane
-//! draws from the app's state and never changes it while drawing; moving a
-//! cursor or opening a row goes through `App::update`, which calls the
-//! focused pane's `move_cursor`, `enter` or `click`.
+//! The panes: one module each, all behind the small [`Pane`] trait, and the
+//! one registry that lists them. A pane owns its cursor and scroll state,
+//! draws from a read-only [`Ctx`] (never changing anything while drawing),
+//! and answers actions by changing its own state and sending [`Msg`]s for
+//! everything else. Adding a pane is its file and one line in [`REGISTRY`]:
+//! its number key, its `focus_` action, its key-file scope, its place in
+//! the layout and its keys in the help all come from its [`Spec`].
 
 mod edges;
 mod flags;
 mod inflow;
 mod node;
+mod node_findings;
 mod order;
 mod order_forward;
 mod paths;
 mod trend;
 mod verify;
 
-pub use paths::shown_param as paths_param;
-
-use super::action::PaneId;
-use super::app::App;
-use crate::format::{compact, number};
+use super::action::{Action, PaneId};
+use super::keymap::KeyMap;
+use super::layout::Slot;
+use super::message::Outbox;
+use super::session::Session;
+use super::theme::Theme;
+use super::work::Running;
+use crate::dtype::Dtype;
+use crate::format::{compact, readable};
 use crate::tensor::Value;
 use ratatui::buffer::Buffer;
 use ratatui::layout::Rect;
+
+/// Every pane, in focus order (which gives its number key). The one place a
+/// new pane is registered.
+static REGISTRY: [Spec; 8] = [
+    order::SPEC,
+    node::SPEC,
+    inflow::SPEC,
+    edges::SPEC,
+    trend::SPEC,
+    flags::SPEC,
+    verify::SPEC,
+    paths::SPEC,
+];
+
+/// What the view needs to know of a pane besides the pane itself.
+pub struct Spec {
+    /// Its id (its title's name).
+    pub id: PaneId,
+    /// Where the layout puts it.
+    pub slot: Slot,
+    /// What it shows, in a few words, for the help.
+    pub about: &'static str,
+    /// Its own keys: (key as a key file writes it, action, what it does here).
+    pub keys: &'static [(&'static str, Action, &'static str)],
+    /// A fresh pane.
+    pub make: fn() -> Box<dyn Pane>,
+}
+
+/// Every registered pane's spec, in focus order.
+pub fn specs() -> &'static [Spec] {
+    &REGISTRY
+}
+
+/// Every registered pane's id, in focus order.
+pub fn ids() -> impl Iterator<Item = PaneId> {
+    REGISTRY.iter().map(|spec| spec.id)
+}
+
+/// The spec of `id`.
+pub fn spec(id: PaneId) -> &'static Spec {
+    REGISTRY
+        .iter()
+        .find(|spec| spec.id == id)
+        .expect("every PaneId is registered")
+}
+
+/// What a pane sees of the view: read-only.
+pub struct Ctx<'a, 't> {
+    /// The session.
+    pub session: &'a Session<'t>,
+    /// The theme in use.
+    pub theme: &'a Theme,
+    /// The key map, for sentences that name keys.
+    pub keys: &'a KeyMap,
+    /// The pane this context is for.
+    pub pane: PaneId,
+    /// Whether it has focus.
+    pub focused: bool,
+    /// Rows inside its border at the last layout (0 when not shown).
+    pub rows: usize,
+    /// The work under way, if any.
+    pub work: Option<&'a Running>,
+}
+
+impl Ctx<'_, '_> {
+    /// `text` with its `{key:NAME}` placeholders filled from the key map (this pane's keys first).
+    pub fn say(&self, text: &str) -> String {
+        self.keys.fill(text, self.pane)
+    }
+
+    /// The dtype values of the trace on screen are stored in.
+    pub fn dtype(&self) -> Dtype {
+        self.session.trace().dtype()
+    }
+}
+
+/// One pane.
+pub trait Pane {
+    /// What follows the pane's name in its title (counts, the node shown).
+    fn title(&self, _ctx: &Ctx) -> String {
+        String::new()
+    }
+    /// Draws the pane's content inside its border.
+    fn draw(&self, ctx: &Ctx, area: Rect, buf: &mut Buffer);
+    /// Answers an action aimed at the pane (movement, Enter, a click, a
+    /// scroll, its own keys): changes its own state, asks the rest through `out`.
+    fn handle(&mut self, action: Action, ctx: &Ctx, out: &mut Outbox);
+    /// The session or the layout changed (a step, a new selection, new
+    /// results, a resize): clamp or reset state, ask for what it needs.
+    fn sync(&mut self, _ctx: &Ctx, _out: &mut Outbox) {}
+}
 
 /// A cursor movement inside a pane.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -34,6 +133,21 @@ pub enum Move {
 }
 
 impl Move {
+    /// The movement an action asks for, with `page` rows to a page.
+    pub fn of(action: Action, page: usize) -> Option<Move> {
+        let page = page.max(1) as isize;
+        match action {
+            Action::Down => Some(Move::By(1)),
+            Action::Up => Some(Move::By(-1)),
+            Action::PageDown => Some(Move::By(page)),
+            Action::PageUp => Some(Move::By(-page)),
+            Action::Top => Some(Move::Top),
+            Action::Bottom => Some(Move::Bottom),
+            Action::Scroll(_, rows) => Some(Move::By(rows as isize)),
+            _ => None,
+        }
+    }
+
     /// The new position of a cursor at `at` in a list of `len` rows.
     pub fn apply(self, at: usize, len: usize) -> usize {
         let last = len.saturating_sub(1);
@@ -45,43 +159,24 @@ impl Move {
     }
 }
 
-/// One pane.
-pub trait Pane {
-    /// Which pane this is.
-    fn id(&self) -> PaneId;
-    /// What follows the pane's name in its title (counts, the node shown).
-    fn title_detail(&self, _app: &App) -> String {
-        String::new()
-    }
-    /// Draws the pane's content inside its border.
-    fn draw(&self, app: &App, area: Rect, buf: &mut Buffer);
-    /// Moves the pane's cursor or scroll position.
-    fn move_cursor(&self, _app: &mut App, _motion: Move) {}
-    /// Opens the highlighted row (Enter).
-    fn enter(&self, _app: &mut App) {}
-    /// A mouse click on row `row` inside the border.
-    fn click(&self, _app: &mut App, _row: usize) {}
-}
-
-/// The pane with a given id.
-pub fn pane(id: PaneId) -> &'static dyn Pane {
-    match id {
-        PaneId::Order => &order::OrderPane,
-        PaneId::Node => &node::NodePane,
-        PaneId::Inflow => &inflow::InflowPane,
-        PaneId::Edges => &edges::EdgesPane,
-        PaneId::Trend => &trend::TrendPane,
-        PaneId::Flags => &flags::FlagsPane,
-        PaneId::Verify => &verify::VerifyPane,
-        PaneId::Paths => &paths::PathsPane,
+/// The first row to show so that `cursor` is in view with `rows` rows, kept
+/// as close to `offset` as possible.
+pub fn scrolled(offset: usize, cursor: usize, rows: usize) -> usize {
+    let rows = rows.max(1);
+    if cursor < offset {
+        cursor
+    } else if cursor >= offset + rows {
+        cursor + 1 - rows
+    } else {
+        offset
     }
 }
 
-/// A value in at most `width` columns: exact when it fits, else six
-/// significant digits; tensors by shape and norm.
-pub fn value_text(value: &Value, width: usize) -> String {
+/// A value in at most `width` columns: at its dtype's precision when it
+/// fits, else six significant digits; tensors by shape and norm.
+pub fn value_text(value: &Value, dtype: Dtype, width: usize) -> String {
     match value {
-        Value::Scalar(x) => fit_number(*x, width),
+        Value::Scalar(x) => fit_number(*x, dtype, width),
         Value::Tensor(t) => format!(
             "{} ‖·‖ {}",
             crate::format::shape(t.shape()),
@@ -90,9 +185,10 @@ pub fn value_text(value: &Value, width: usize) -> String {
     }
 }
 
-/// A number exactly when it fits in `width` columns, else in short form.
-pub fn fit_number(x: f64, width: usize) -> String {
-    let exact = number(x);
+/// A number at its dtype's precision ([`readable`]) when it fits in
+/// `width` columns, else in short form.
+pub fn fit_number(x: f64, dtype: Dtype, width: usize) -> String {
+    let exact = readable(x, dtype);
     if exact.chars().count() <= width {
         exact
     } else {
@@ -171,7 +267,7 @@ pub fn chain_text(ids: &[&str], width: usize) -> String {
 }
 
 #[cfg(test)]
-mod tests {
+mod text_tests {
     use super::*;
 
     #[test]
@@ -194,5 +290,73 @@ mod tests {
             short.contains('…') && short.chars().count() <= 20,
             "{short}"
         );
+    }
+}
+
+/// What pane tests share: an app over a trace, and a pane rendered alone
+/// into a buffer, compared with `Buffer::with_lines` as ratatui's own widget
+/// tests do.
+#[cfg(test)]
+pub(crate) mod tests {
+    use super::{Pane, PaneId};
+    use crate::trace::{TraceFile, validate};
+    use crate::tui::app::App;
+    use crate::tui::precision::Traces;
+    use crate::tui::theme::Theme;
+    use ratatui::buffer::Buffer;
+    use ratatui::layout::Rect;
+    use ratatui::style::Style;
+    use std::sync::Arc;
+
+    /// An app over one trace, its queued work done.
+    pub struct Fixture {
+        /// The app.
+        pub app: App<'static>,
+    }
+
+    impl Fixture {
+        /// The app over `file`, diagnosed and surveyed.
+        pub fn new(file: TraceFile) -> Fixture {
+            // A test's traces live as long as the test process.
+            let traces: &'static Arc<Traces> = Box::leak(Box::new(Traces::new(
+                validate(file).expect("a valid trace"),
+            )));
+            let mut app = App::new(traces, "test", vec![Theme::default_theme()]);
+            app.work();
+            Fixture { app }
+        }
+
+        /// `pane` drawn alone into a `width`×`height` buffer, as pane `id`.
+        pub fn render(&self, pane: &dyn Pane, id: PaneId, width: u16, height: u16) -> Buffer {
+            let mut buffer = Buffer::empty(Rect::new(0, 0, width, height));
+            let mut ctx = self.app.ctx(id);
+            ctx.rows = height as usize;
+            pane.draw(&ctx, buffer.area, &mut buffer);
+            buffer
+        }
+
+        /// The app's own pane `name`, drawn alone.
+        pub fn render_own(&self, name: &str, width: u16, height: u16) -> Buffer {
+            let id = PaneId::named(name).expect("a registered pane");
+            self.render(self.app.pane(id), id, width, height)
+        }
+    }
+
+    /// The buffer's text equals `lines` (styles are checked elsewhere).
+    #[track_caller]
+    pub fn assert_lines<'a>(buffer: &Buffer, lines: impl IntoIterator<Item = &'a str>) {
+        let mut plain = buffer.clone();
+        plain.set_style(plain.area, Style::reset());
+        let expected = Buffer::with_lines(lines);
+        if plain != expected {
+            let shown: Vec<String> = (0..plain.area.height)
+                .map(|y| {
+                    (0..plain.area.width)
+                        .map(|x| plain[(x, y)].symbol().to_string())
+                        .collect()
+                })
+                .collect();
+            panic!("the pane drew:\n{}", shown.join("\n"));
+        }
     }
 }

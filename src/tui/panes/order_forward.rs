@@ -2,9 +2,8 @@
 //! the tangent sweep and its dual number (value, tangent), and at the foot
 //! the directional derivative beside the reverse sweep's ⟨v, ∇f⟩.
 
-use super::{fit, fit_number, value_text};
-use crate::format::number;
-use crate::tui::app::App;
+use super::{Ctx, fit, fit_number, value_text};
+use crate::format::readable;
 use crate::tui::forward::Forward;
 use crate::tui::symbols::{AGREES, CURRENT, DIFFERS, DONE, PENDING};
 use crate::verify::VerifyOptions;
@@ -17,8 +16,8 @@ pub const FOOT: usize = 3;
 
 /// The foot: what the tangent sweep is computing, or at the end the
 /// directional derivative beside the reverse sweep's ⟨v, ∇f⟩ and whether they agree.
-pub fn foot<'a>(app: &App, forward: &Forward, width: usize) -> [Line<'a>; FOOT] {
-    let theme = app.theme();
+pub fn foot<'a>(ctx: &Ctx, forward: &Forward, width: usize) -> [Line<'a>; FOOT] {
+    let theme = ctx.theme;
     let number_width = width.saturating_sub(17).max(8);
     match forward.comparison() {
         Some(comparison) => {
@@ -31,7 +30,10 @@ pub fn foot<'a>(app: &App, forward: &Forward, width: usize) -> [Line<'a>; FOOT] 
             let number = |label: &str, x: f64, by: &str| {
                 Line::from(vec![
                     Span::styled(label.to_string(), theme.muted),
-                    Span::styled(fit_number(x, number_width), theme.text),
+                    Span::styled(
+                        fit_number(x, crate::dtype::Dtype::F64, number_width),
+                        theme.text,
+                    ),
                     Span::styled(format!("  {by}"), theme.muted),
                 ])
             };
@@ -60,8 +62,9 @@ pub fn foot<'a>(app: &App, forward: &Forward, width: usize) -> [Line<'a>; FOOT] 
 
 /// The Node pane's lines in forward mode: the dual number, the node's state in
 /// the tangent sweep, and the direction's component on a leaf.
-pub fn node_lines<'a>(app: &App, forward: &Forward, node: usize, width: usize) -> Vec<Line<'a>> {
-    let theme = app.theme();
+pub fn node_lines<'a>(ctx: &Ctx, forward: &Forward, node: usize, width: usize) -> Vec<Line<'a>> {
+    let theme = ctx.theme;
+    let dtype = ctx.session.trace().node_dtype(node);
     let label = |text: &str| Span::styled(fit(text, 9), theme.muted);
     let cursor = forward.sweep.cursor();
     let (state, style) = match node.cmp(&cursor) {
@@ -93,7 +96,7 @@ pub fn node_lines<'a>(app: &App, forward: &Forward, node: usize, width: usize) -
     ];
     if let Some(direction) = forward.sweep.direction(node) {
         let text = match direction.as_scalar() {
-            Some(v) if direction.shape().is_empty() => format!("v here: {}", number(v)),
+            Some(v) if direction.shape().is_empty() => format!("v here: {}", readable(v, dtype)),
             _ => format!(
                 "v here: {} ‖·‖ {}",
                 crate::format::shape(direction.shape()),
@@ -105,16 +108,17 @@ pub fn node_lines<'a>(app: &App, forward: &Forward, node: usize, width: usize) -
             Span::styled(text, theme.muted),
         ]));
     }
-    if node == app.trace.output() {
-        lines.extend(foot(app, forward, width));
+    if node == ctx.session.trace().output() {
+        lines.extend(foot(ctx, forward, width));
     }
     lines
 }
 
 /// Draws Order's rows from `first`, `rows` of them, with the foot on the last line.
-pub fn draw(app: &App, forward: &Forward, first: usize, area: Rect, buf: &mut Buffer) {
-    let theme = app.theme();
-    let nodes = app.trace.nodes();
+pub fn draw(ctx: &Ctx, forward: &Forward, first: usize, area: Rect, buf: &mut Buffer) {
+    let theme = ctx.theme;
+    let trace = ctx.session.trace();
+    let nodes = trace.nodes();
     let width = area.width as usize;
     let step_width = nodes.len().to_string().len();
     // Ids stay readable first; the two numbers share what is left, exact when there is room.
@@ -154,7 +158,10 @@ pub fn draw(app: &App, forward: &Forward, first: usize, area: Rect, buf: &mut Bu
                 theme.muted,
             ),
             Span::styled(
-                fit(&value_text(&recorded.value, number_width), number_width) + " ",
+                fit(
+                    &value_text(&recorded.value, trace.node_dtype(node), number_width),
+                    number_width,
+                ) + " ",
                 theme.text,
             ),
             Span::styled(
@@ -168,12 +175,12 @@ pub fn draw(app: &App, forward: &Forward, first: usize, area: Rect, buf: &mut Bu
         ];
         let y = area.y + 1 + line as u16;
         buf.set_line(area.x, y, &Line::from(spans), area.width);
-        if node == app.selected {
+        if node == ctx.session.selected().index() {
             buf.set_style(Rect::new(area.x, y, area.width, 1), theme.selection);
         }
     }
     if area.height as usize > FOOT + 1 {
-        for (at, line) in foot(app, forward, width).iter().enumerate() {
+        for (at, line) in foot(ctx, forward, width).iter().enumerate() {
             buf.set_line(
                 area.x,
                 area.y + area.height - FOOT as u16 + at as u16,

@@ -1,10 +1,13 @@
 //! Trend: log10 of the adjoint norm of each processed node along the sweep,
-//! and the norm of each group, so a collapse or a blow-up shows at a glance.
+//! then per group the norm of its forward values beside the norm of its
+//! adjoints so far, so a collapse or a blow-up in either direction shows at
+//! a glance.
 
-use super::{Pane, fit};
+use super::{Ctx, Pane, Spec, fit};
 use crate::format::compact;
-use crate::tui::action::PaneId;
-use crate::tui::app::App;
+use crate::tui::action::{Action, PaneId};
+use crate::tui::layout::Slot;
+use crate::tui::message::Outbox;
 use crate::tui::symbols::magnitude_bar;
 use ratatui::buffer::Buffer;
 use ratatui::layout::{Constraint, Layout, Rect};
@@ -12,14 +15,24 @@ use ratatui::symbols::Marker;
 use ratatui::text::{Line, Span};
 use ratatui::widgets::{Axis, Chart, Dataset, GraphType, Paragraph, Widget};
 
-/// The magnitude chart pane.
+/// The pane's registration.
+pub const SPEC: Spec = Spec {
+    id: PaneId::new("Trend"),
+    slot: Slot::Corner,
+    about: "log10 ‖adjoint‖ along the sweep; per group ‖forward value‖ beside ‖adjoint‖",
+    keys: &[],
+    make: || Box::new(TrendPane),
+};
+
+/// The magnitude chart pane (no state of its own).
 pub struct TrendPane;
 
 /// Points of log10 ‖adjoint‖ for steps done, at most two per column: the
 /// lowest and highest of each bucket, so neither a dip nor a spike is lost.
-pub fn series(app: &App, columns: usize) -> Vec<(f64, f64)> {
-    let order = app.trace.sweep_order();
-    let done = app.sweep.cursor();
+pub fn series(ctx: &Ctx, columns: usize) -> Vec<(f64, f64)> {
+    let order = ctx.session.trace().sweep_order();
+    let done = ctx.session.sweep().cursor();
+    let tally = ctx.session.tally();
     let bucket = done.div_ceil(columns.max(1)).max(1);
     let mut points = Vec::new();
     for start in (0..done).step_by(bucket) {
@@ -27,7 +40,7 @@ pub fn series(app: &App, columns: usize) -> Vec<(f64, f64)> {
         let mut high: Option<(f64, f64)> = None;
         let end = (start + bucket).min(done);
         for (step, &node) in order.iter().enumerate().take(end).skip(start) {
-            let Some(norm) = app.tally.norm(node) else {
+            let Some(norm) = tally.norm(node) else {
                 continue;
             };
             if !(norm.is_finite() && norm > 0.0) {
@@ -46,26 +59,23 @@ pub fn series(app: &App, columns: usize) -> Vec<(f64, f64)> {
 }
 
 impl Pane for TrendPane {
-    fn id(&self) -> PaneId {
-        PaneId::Trend
+    fn title(&self, _ctx: &Ctx) -> String {
+        "log10 ‖adjoint‖ · groups".to_string()
     }
 
-    fn title_detail(&self, _app: &App) -> String {
-        "log10 ‖adjoint‖".to_string()
-    }
-
-    fn draw(&self, app: &App, area: Rect, buf: &mut Buffer) {
-        let theme = app.theme();
-        let groups: Vec<(&str, Option<f64>)> = app.tally.group_norms().collect();
+    fn draw(&self, ctx: &Ctx, area: Rect, buf: &mut Buffer) {
+        let theme = ctx.theme;
+        let tally = ctx.session.tally();
+        let groups: Vec<(&str, Option<f64>)> = tally.group_norms().collect();
         let group_rows = (groups.len() as u16 + 1).min(area.height / 2);
         let [chart_area, group_area] = area.layout(&Layout::vertical([
             Constraint::Fill(1),
             Constraint::Length(group_rows),
         ]));
-        let points = series(app, chart_area.width as usize);
+        let points = series(ctx, chart_area.width as usize);
         if points.is_empty() {
             Paragraph::new(Line::styled(
-                "no step done yet: s steps the sweep",
+                ctx.say("no step done yet: {key:step} steps the sweep"),
                 theme.muted,
             ))
             .render(chart_area, buf);
@@ -81,7 +91,7 @@ impl Pane for TrendPane {
                 .fold(f64::NEG_INFINITY, f64::max)
                 .ceil()
                 .max(low + 1.0);
-            let steps = app.sweep.cursor().max(1) as f64;
+            let done = ctx.session.sweep().cursor();
             let dataset = Dataset::default()
                 .marker(Marker::Braille)
                 .graph_type(GraphType::Line)
@@ -89,8 +99,8 @@ impl Pane for TrendPane {
                 .data(&points);
             let x_axis = Axis::default()
                 .style(theme.muted)
-                .bounds([1.0, steps.max(2.0)])
-                .labels(["1".to_string(), format!("step {}", app.sweep.cursor())]);
+                .bounds([1.0, (done.max(1) as f64).max(2.0)])
+                .labels(["1".to_string(), format!("step {done}")]);
             let y_axis = Axis::default()
                 .style(theme.muted)
                 .bounds([low, high])
@@ -101,19 +111,81 @@ impl Pane for TrendPane {
                 .style(theme.text)
                 .render(chart_area, buf);
         }
-        let width = group_area.width as usize;
-        let name_width = (width / 3).clamp(6, 24);
-        let mut lines = vec![Line::styled(
-            "per group, ‖adjoint‖ of processed nodes (sweep order)",
-            theme.muted,
-        )];
-        for (name, norm) in groups.iter().take(group_rows.saturating_sub(1) as usize) {
-            lines.push(Line::from(vec![
-                Span::styled(fit(name, name_width) + " ", theme.text),
-                Span::styled(magnitude_bar(*norm, 10) + " ", theme.chart_group),
-                Span::styled(norm.map_or("—".to_string(), compact), theme.text),
-            ]));
-        }
-        Paragraph::new(lines).render(group_area, buf);
+        Paragraph::new(group_lines(ctx, &groups, group_area)).render(group_area, buf);
     }
+
+    fn handle(&mut self, _action: Action, _ctx: &Ctx, _out: &mut Outbox) {}
+}
+
+/// Per group: ‖forward value‖ and ‖adjoint‖ so far, each with a bar over
+/// the range its column spans.
+fn group_lines<'a>(ctx: &Ctx, groups: &[(&str, Option<f64>)], area: Rect) -> Vec<Line<'a>> {
+    let theme = ctx.theme;
+    let width = area.width as usize;
+    let survey = ctx.session.survey();
+    let values: Vec<Option<f64>> = groups
+        .iter()
+        .map(|(name, _)| survey.and_then(|survey| survey.norms.get(*name).copied()))
+        .collect();
+    let decades = |column: &mut dyn Iterator<Item = f64>| {
+        let logs: Vec<f64> = column
+            .filter(|x| x.is_finite() && *x > 0.0)
+            .map(f64::log10)
+            .collect();
+        let low = logs.iter().copied().fold(f64::INFINITY, f64::min);
+        let high = logs.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        if logs.is_empty() {
+            (-1, 1)
+        } else {
+            (
+                low.floor() as i32,
+                (high.ceil() as i32).max(low.floor() as i32 + 1),
+            )
+        }
+    };
+    let value_range = decades(&mut values.iter().flatten().copied());
+    let adjoint_range = decades(&mut groups.iter().filter_map(|(_, norm)| *norm));
+    let name_width = groups
+        .iter()
+        .map(|(name, _)| name.chars().count())
+        .max()
+        .unwrap_or(5)
+        .clamp(5, (width / 3).max(5));
+    let bar = if width >= 60 { 8 } else { 4 };
+    let number = 10;
+    let value_header = if survey.is_some() {
+        "‖forward value‖"
+    } else {
+        "‖forward value‖ (summing…)"
+    };
+    let mut lines = vec![Line::styled(
+        format!(
+            "{} {:<w$} {}",
+            fit("group", name_width),
+            value_header,
+            "‖adjoint‖ of processed nodes",
+            w = bar + number + 1
+        ),
+        theme.muted,
+    )];
+    for ((name, norm), value) in groups
+        .iter()
+        .zip(&values)
+        .take((area.height as usize).saturating_sub(1))
+    {
+        lines.push(Line::from(vec![
+            Span::styled(fit(name, name_width) + " ", theme.text),
+            Span::styled(magnitude_bar(*value, bar, value_range) + " ", theme.chart),
+            Span::styled(
+                format!("{:<number$} ", value.map_or("—".to_string(), compact)),
+                theme.text,
+            ),
+            Span::styled(
+                magnitude_bar(*norm, bar, adjoint_range) + " ",
+                theme.chart_group,
+            ),
+            Span::styled(norm.map_or("—".to_string(), compact), theme.text),
+        ]));
+    }
+    lines
 }

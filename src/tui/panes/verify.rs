@@ -3,20 +3,40 @@
 //! its recorded and recomputed partials side by side, differing elements
 //! marked `≠`. When every check agrees it says so.
 
-use super::{Move, Pane, fit, fit_number};
+use super::{Ctx, Move, Pane, Spec, fit, fit_number};
 use crate::format::compact;
-use crate::tui::action::PaneId;
-use crate::tui::app::App;
-use crate::tui::checks::EdgePair;
+use crate::tui::action::{Action, PaneId};
+use crate::tui::checks::{EdgePair, pairs_for};
+use crate::tui::ids::NodeIx;
+use crate::tui::layout::Slot;
+use crate::tui::message::{Msg, Outbox};
 use crate::tui::symbols::{AGREES, DIFFERS, band_style, band_symbol};
+use crate::tui::work::Job;
 use crate::verify::{Evidence, Verification};
 use ratatui::buffer::Buffer;
 use ratatui::layout::Rect;
 use ratatui::text::{Line, Span};
 use ratatui::widgets::{Paragraph, Widget};
 
-/// The verification pane.
-pub struct VerifyPane;
+/// The pane's registration.
+pub const SPEC: Spec = Spec {
+    id: PaneId::new("Verify"),
+    slot: Slot::Corner,
+    about: "suspects of a wrong derivative, worst first; recorded against recomputed partials",
+    keys: &[("Enter", Action::Enter, "select its node")],
+    make: || Box::new(VerifyPane::default()),
+};
+
+/// The verification pane: the highlighted suspect, its side-by-side
+/// partials, and whether it has asked for the checks.
+#[derive(Debug, Default)]
+pub struct VerifyPane {
+    cursor: usize,
+    pairs: Vec<EdgePair>,
+    /// Which run the pairs were built from: (seconds it took, suspects), as an identity.
+    built: Option<(u64, usize, usize)>,
+    asked: bool,
+}
 
 /// What a check is called in the list.
 pub fn evidence_name(evidence: Evidence) -> &'static str {
@@ -29,13 +49,12 @@ pub fn evidence_name(evidence: Evidence) -> &'static str {
 }
 
 /// Rows given to the suspect list: all of them unless partials are shown below.
-fn list_rows(app: &App, height: usize) -> usize {
-    let suspects = app
-        .checks
-        .verification
-        .as_ref()
-        .map_or(0, |v| v.suspects.len());
-    let room = if app.checks.pairs.is_empty() {
+fn list_rows(ctx: &Ctx, pairs: &[EdgePair], height: usize) -> usize {
+    let suspects = ctx
+        .session
+        .verified()
+        .map_or(0, |verified| verified.verification.suspects.len());
+    let room = if pairs.is_empty() {
         height.saturating_sub(3)
     } else {
         (height / 3).max(3)
@@ -48,8 +67,8 @@ fn first_shown(cursor: usize, rows: usize) -> usize {
     cursor.saturating_sub(rows.saturating_sub(1))
 }
 
-fn agreement_lines<'a>(app: &App, verification: &Verification) -> Vec<Line<'a>> {
-    let theme = app.theme();
+fn agreement_lines<'a>(ctx: &Ctx, verification: &Verification) -> Vec<Line<'a>> {
+    let theme = ctx.theme;
     let mut lines = vec![Line::styled(
         format!(
             "{AGREES} every check agrees within {:e}: no suspect",
@@ -104,14 +123,16 @@ fn agreement_lines<'a>(app: &App, verification: &Verification) -> Vec<Line<'a>> 
 
 /// One edge's recorded and recomputed partials, the rows around the worst element.
 fn pair_lines<'a>(
-    app: &App,
+    ctx: &Ctx,
     pair: &EdgePair,
     tolerance: f64,
     rows: usize,
     width: usize,
 ) -> Vec<Line<'a>> {
-    let theme = app.theme();
-    let trace = app.trace;
+    let theme = ctx.theme;
+    let trace = ctx.session.trace();
+    let dtype = trace.node_dtype(pair.node);
+    let shape = trace.node(pair.node).value.shape();
     let consumer = trace.node(pair.node);
     let input = &trace.node(consumer.inputs[pair.slot]).id;
     let total = pair.recorded.len();
@@ -129,7 +150,10 @@ fn pair_lines<'a>(
         ),
     ])];
     let label_width = if pair.columns == 1 {
-        total.to_string().len().max(7)
+        pair.label(total.saturating_sub(1), shape)
+            .chars()
+            .count()
+            .max(7)
     } else {
         12
     };
@@ -164,48 +188,82 @@ fn pair_lines<'a>(
         };
         lines.push(Line::from(vec![
             Span::styled(format!("{mark} "), style),
-            Span::styled(format!("{:>label_width$}  ", pair.label(at)), theme.muted),
             Span::styled(
-                fit(&fit_number(pair.recorded[at], number_width), number_width) + " ",
+                format!("{:>label_width$}  ", pair.label(at, shape)),
+                theme.muted,
+            ),
+            Span::styled(
+                fit(
+                    &fit_number(pair.recorded[at], dtype, number_width),
+                    number_width,
+                ) + " ",
                 recorded_style,
             ),
-            Span::styled(fit_number(pair.recomputed[at], number_width), theme.text),
+            Span::styled(
+                fit_number(pair.recomputed[at], dtype, number_width),
+                theme.text,
+            ),
         ]));
     }
     lines
 }
 
-impl Pane for VerifyPane {
-    fn id(&self) -> PaneId {
-        PaneId::Verify
+impl VerifyPane {
+    /// Builds the highlighted suspect's side-by-side partials when the run or the highlight changed.
+    fn rebuild(&mut self, ctx: &Ctx) {
+        let Some(verified) = ctx.session.verified() else {
+            (self.pairs, self.built) = (Vec::new(), None);
+            return;
+        };
+        let suspects = verified.verification.suspects.len();
+        self.cursor = self.cursor.min(suspects.saturating_sub(1));
+        let key = (verified.seconds.to_bits(), suspects, self.cursor);
+        if self.built != Some(key) {
+            self.pairs = pairs_for(ctx.session.trace(), &verified.verification, self.cursor);
+            self.built = Some(key);
+        }
     }
+}
 
-    fn title_detail(&self, app: &App) -> String {
-        match &app.checks.verification {
+impl Pane for VerifyPane {
+    fn title(&self, ctx: &Ctx) -> String {
+        match ctx.session.verified() {
+            None if ctx
+                .work
+                .is_some_and(|running| matches!(running.job, Job::Verify(_))) =>
+            {
+                "verifying …".to_string()
+            }
             None => "not run".to_string(),
-            Some(verification) if verification.agrees() => "all agree".to_string(),
-            Some(verification) if verification.suspects.is_empty() => "cannot judge".to_string(),
-            Some(verification) => format!("{} suspect(s)", verification.suspects.len()),
+            Some(verified) if verified.verification.agrees() => "all agree".to_string(),
+            Some(verified) if verified.verification.suspects.is_empty() => {
+                "cannot judge".to_string()
+            }
+            Some(verified) => format!("{} suspect(s)", verified.verification.suspects.len()),
         }
     }
 
-    fn draw(&self, app: &App, area: Rect, buf: &mut Buffer) {
-        let theme = app.theme();
-        let trace = app.trace;
+    fn draw(&self, ctx: &Ctx, area: Rect, buf: &mut Buffer) {
+        let theme = ctx.theme;
+        let trace = ctx.session.trace();
         let width = area.width as usize;
-        let Some(verification) = &app.checks.verification else {
-            let text = if app.checks.requested {
-                "verifying… the view resumes when the checks finish"
+        let Some(verified) = ctx.session.verified() else {
+            let running = ctx
+                .work
+                .is_some_and(|running| matches!(running.job, Job::Verify(_)));
+            let text = if running {
+                ctx.say("verifying… keys keep working; {key:cancel} stops it")
             } else {
-                "not run yet: v runs every check (recorded partials, finite differences, reported gradients, tangent sweep)"
+                ctx.say("not run yet: {key:verify} runs every check (recorded partials, finite differences, reported gradients, tangent sweep)")
             };
             Paragraph::new(Line::styled(text, theme.muted))
                 .wrap(ratatui::widgets::Wrap { trim: true })
                 .render(area, buf);
             return;
         };
+        let verification = &verified.verification;
         if verification.agrees() {
-            Paragraph::new(agreement_lines(app, verification)).render(area, buf);
+            Paragraph::new(agreement_lines(ctx, verification)).render(area, buf);
             return;
         }
         if verification.suspects.is_empty() {
@@ -225,16 +283,22 @@ impl Pane for VerifyPane {
             return;
         }
         let mut lines = vec![Line::styled(
-            format!(
-                "{} suspect(s), worst first · tolerance {:e} · Enter selects · v reruns",
+            ctx.say(&format!(
+                "{} suspect(s), worst first · tolerance {:e} · {{key:enter}} selects · {{key:verify}} reruns",
                 verification.suspects.len(),
                 verification.tolerance
-            ),
+            )),
             theme.muted,
         )];
-        let rows = list_rows(app, area.height as usize);
-        let first = first_shown(app.checks.cursor, rows);
-        let id_width = (width / 5).clamp(6, 20);
+        let rows = list_rows(ctx, &self.pairs, area.height as usize);
+        let first = first_shown(self.cursor, rows);
+        let id_width = verification
+            .suspects
+            .iter()
+            .map(|suspect| trace.node(suspect.node).id.chars().count())
+            .max()
+            .unwrap_or(4)
+            .clamp(4, (width / 4).max(4));
         for (at, suspect) in verification
             .suspects
             .iter()
@@ -244,7 +308,7 @@ impl Pane for VerifyPane {
         {
             let node = trace.node(suspect.node);
             let style = band_style(theme, suspect.band);
-            let pointer = if at == app.checks.cursor { "›" } else { " " };
+            let pointer = if at == self.cursor { "›" } else { " " };
             let mut line = Line::from(vec![
                 Span::styled(format!("{pointer}{} ", band_symbol(suspect.band)), style),
                 Span::styled(fit(&node.id, id_width) + " ", theme.text),
@@ -255,12 +319,12 @@ impl Pane for VerifyPane {
                     theme.muted,
                 ),
             ]);
-            if at == app.checks.cursor && app.focus == PaneId::Verify {
+            if at == self.cursor && ctx.focused {
                 line = line.patch_style(theme.selection);
             }
             lines.push(line);
         }
-        if let Some(suspect) = verification.suspects.get(app.checks.cursor) {
+        if let Some(suspect) = verification.suspects.get(self.cursor) {
             // The evidence in words, over at most two lines.
             let chars: Vec<char> = suspect.detail.chars().collect();
             for (at, chunk) in chars.chunks(width.max(1)).take(2).enumerate() {
@@ -274,10 +338,10 @@ impl Pane for VerifyPane {
             }
         }
         let left = (area.height as usize).saturating_sub(lines.len());
-        let per_pair = left / app.checks.pairs.len().max(1);
-        for pair in &app.checks.pairs {
+        let per_pair = left / self.pairs.len().max(1);
+        for pair in &self.pairs {
             lines.extend(pair_lines(
-                app,
+                ctx,
                 pair,
                 verification.tolerance,
                 per_pair,
@@ -287,56 +351,61 @@ impl Pane for VerifyPane {
         Paragraph::new(lines).render(area, buf);
     }
 
-    fn move_cursor(&self, app: &mut App, motion: Move) {
-        let len = app
-            .checks
-            .verification
-            .as_ref()
-            .map_or(0, |v| v.suspects.len());
-        let at = motion.apply(app.checks.cursor, len);
-        let trace = app.trace;
-        app.checks.highlight(trace, at);
-    }
-
-    /// Selects the highlighted suspect's node in Order, Node, Inflow and Edges.
-    fn enter(&self, app: &mut App) {
-        let Some(suspect) = app
-            .checks
-            .verification
-            .as_ref()
-            .and_then(|v| v.suspects.get(app.checks.cursor))
-        else {
-            if app.checks.verification.is_none() {
-                app.message = Some("the checks have not run: v runs them".to_string());
+    fn handle(&mut self, action: Action, ctx: &Ctx, out: &mut Outbox) {
+        let Some(verified) = ctx.session.verified() else {
+            if matches!(action, Action::Enter | Action::Click(..)) {
+                out.send(Msg::Status(
+                    "the checks have not run: {key:verify} runs them".to_string(),
+                ));
             }
             return;
         };
-        let (node, band, evidence) = (suspect.node, suspect.band, suspect.evidence);
-        app.jump(node);
-        app.message = Some(format!(
-            "{} {}: {} ({})",
-            band_symbol(band),
-            app.trace.node(node).id,
-            band.name(),
-            evidence_name(evidence)
-        ));
+        let len = verified.verification.suspects.len();
+        if let Some(motion) = Move::of(action, ctx.rows) {
+            self.cursor = motion.apply(self.cursor, len);
+            self.rebuild(ctx);
+            return;
+        }
+        let open = match action {
+            Action::Enter => true,
+            Action::Click(_, row) => {
+                let rows = list_rows(ctx, &self.pairs, ctx.rows);
+                let row = row as usize;
+                if row == 0 || row > rows {
+                    return;
+                }
+                let at = first_shown(self.cursor, rows) + row - 1;
+                if at < len {
+                    self.cursor = at;
+                    self.rebuild(ctx);
+                }
+                at < len
+            }
+            _ => false,
+        };
+        if let Some(suspect) = verified
+            .verification
+            .suspects
+            .get(self.cursor)
+            .filter(|_| open)
+        {
+            out.send(Msg::Jump(NodeIx::new(suspect.node)));
+            out.send(Msg::Status(format!(
+                "{} {}: {} ({})",
+                band_symbol(suspect.band),
+                ctx.session.trace().node(suspect.node).id,
+                suspect.band.name(),
+                evidence_name(suspect.evidence)
+            )));
+        }
     }
 
-    fn click(&self, app: &mut App, row: usize) {
-        let Some(len) = app.checks.verification.as_ref().map(|v| v.suspects.len()) else {
-            return;
-        };
-        let height = crate::tui::layout::pane_area(app, PaneId::Verify)
-            .map_or(3, |area| area.height.saturating_sub(2) as usize);
-        let rows = list_rows(app, height);
-        if row == 0 || row > rows {
-            return;
+    fn sync(&mut self, ctx: &Ctx, out: &mut Outbox) {
+        // The checks run once, when the pane is first shown with focus.
+        if ctx.focused && !self.asked && ctx.session.verified().is_none() {
+            self.asked = true;
+            out.send(Msg::Request(Job::Verify(ctx.dtype())));
         }
-        let at = first_shown(app.checks.cursor, rows) + row - 1;
-        if at < len {
-            let trace = app.trace;
-            app.checks.highlight(trace, at);
-            self.enter(app);
-        }
+        self.rebuild(ctx);
     }
 }
