@@ -11,7 +11,7 @@ use crate::control::{Cancelled, Control};
 use crate::diagnose::{Settings, diagnose};
 use crate::dtype::Dtype;
 use crate::trace::Trace;
-use crate::verify::{Verification, VerifyOptions, verify};
+use crate::verify::{Verification, VerifyOptions, verify_with};
 use std::collections::HashMap;
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::{Arc, Mutex};
@@ -213,7 +213,8 @@ impl Task {
             Job::Verify(dtype) => {
                 control.progress("verifying", 0.0);
                 let started = Instant::now();
-                let verification = verify(traces.get(dtype), &VerifyOptions::default());
+                let verification =
+                    verify_with(traces.get(dtype), &VerifyOptions::default(), control)?;
                 Outcome::Verified(Box::new(Verified {
                     verification,
                     dtype,
