@@ -108,6 +108,35 @@ pub fn compact(x: f64) -> String {
     }
 }
 
+/// A short form for sentences: four significant digits, scientific outside
+/// [1e-3, 1e5).
+pub fn short(x: f64) -> String {
+    if !x.is_finite() {
+        return number(x);
+    }
+    let magnitude = x.abs();
+    if x == 0.0 {
+        "0".to_string()
+    } else if (1e-3..1e5).contains(&magnitude) {
+        let decimals = (3 - magnitude.log10().floor() as i32).max(0) as usize;
+        let text = format!("{x:.decimals$}");
+        if text.contains('.') {
+            text.trim_end_matches('0').trim_end_matches('.').to_string()
+        } else {
+            text
+        }
+    } else {
+        let text = format!("{x:.3e}");
+        let (mantissa, exponent) = text.split_once('e').expect("scientific");
+        let mantissa = if mantissa.contains('.') {
+            mantissa.trim_end_matches('0').trim_end_matches('.')
+        } else {
+            mantissa
+        };
+        format!("{mantissa}e{exponent}")
+    }
+}
+
 /// 10^`log10` in [`compact`] form, or as `10^x` when beyond f64's range (a
 /// product of many gains can be).
 pub fn power_of_ten(log10: f64) -> String {
@@ -149,6 +178,12 @@ mod tests {
         assert_eq!(power_of_ten(-1.0), "0.1");
         assert_eq!(power_of_ten(400.0), "10^400.0");
         assert_eq!(power_of_ten(f64::NEG_INFINITY), "0");
+        assert_eq!(short(7583.700867), "7584");
+        assert_eq!(short(1.2000000476837158), "1.2");
+        assert_eq!(short(0.18112), "0.1811");
+        assert_eq!(short(7.4043e-12), "7.404e-12");
+        assert_eq!(short(2.2403e8), "2.24e8");
+        assert_eq!(short(-0.5), "-0.5");
         assert_eq!(power_of_ten(f64::INFINITY), "inf");
         assert_eq!(power_of_ten(f64::NAN), "NaN");
     }

@@ -294,3 +294,81 @@ fn a_path_through_a_zero_factor_has_gain_zero_not_ten_to_minus_infinity() {
         "{text}"
     );
 }
+
+/// The first line of `ebb check` on a shipped demo.
+fn first_line(name: &str) -> String {
+    let path = Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("traces")
+        .join(name);
+    let text = stdout(&ebb(&["check", path.to_str().unwrap()]));
+    text.lines().next().unwrap_or_default().to_string()
+}
+
+// Each demo's story (src/demos/) fixes its true cause: ln 0 at ln_p; a
+// recurrent weight of gain 1.2 applied over 50 steps (49 multiplications
+// back from h50 to h01; Pascanu, Mikolov & Bengio, ICML 2013, §2); sixteen
+// sigmoid layers, σ' ≤ 1/4 (Goodfellow, Bengio & Courville, "Deep
+// Learning", 2016, §6.3.2); f16 gradients below 2^-24 that flush to zero,
+// kept by a loss scale of 2^15 (Micikevicius et al., ICLR 2018, §3.2).
+#[test]
+fn the_first_line_names_the_true_cause_on_every_demo() {
+    let line = first_line("nan_hunt.ron");
+    assert!(
+        line.starts_with("diagnosis  origin (a) non-finite forward value at 'ln_p' (log), step 9"),
+        "{line}"
+    );
+    let line = first_line("exploding.ron");
+    assert!(
+        line.starts_with("diagnosis  exploding gradients: a recurrent gain of ×1.2 per step through 'cell.w', repeated 49 times"),
+        "{line}"
+    );
+    let line = first_line("vanishing.ron");
+    assert!(
+        line.starts_with("diagnosis  vanishing gradients: the sigmoid layers")
+            && line.contains("16 of them")
+            && line.contains("at most 1/4"),
+        "{line}"
+    );
+    let line = first_line("underflow_f16.ron");
+    assert!(
+        line.starts_with("diagnosis  underflow in f16:")
+            && line.contains("flush to zero")
+            && line.contains("2^15 = 32768"),
+        "{line}"
+    );
+    assert_eq!(
+        first_line("teaching.ron"),
+        "diagnosis  clean: no rule fired in f64"
+    );
+}
+
+#[test]
+fn the_advice_names_the_repeating_factor_not_the_largest_hop() {
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("traces/exploding.ron");
+    let output = ebb(&["check", path.to_str().unwrap(), "--json"]);
+    let json: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap();
+    let diagnosis = &json["diagnosis"];
+    let advice = diagnosis["advice"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|a| a["topic"] == "exploding")
+        .unwrap()["text"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    assert!(!advice.contains("2150"), "{advice}");
+    assert!(advice.contains("×1.2 per step"), "{advice}");
+    let repeat = &diagnosis["repeats"][0];
+    assert_eq!(repeat["factor"], "weight");
+    assert_eq!(repeat["weight"], "cell.w");
+    assert_eq!(repeat["shared"], true);
+    assert_eq!(repeat["count"], 49);
+    assert_eq!(repeat["unit"], "step");
+    assert!(
+        diagnosis["headline"]
+            .as_str()
+            .unwrap()
+            .starts_with("exploding gradients")
+    );
+}

@@ -221,3 +221,37 @@ fn the_f16_overflow_advice_names_the_forward_value() {
     );
     assert!(!advice.text.contains("adjoint"), "{}", advice.text);
 }
+
+#[test]
+fn the_diagnosis_reports_progress_and_stops_when_cancelled() {
+    use ebb::control::{Cancelled, Control};
+    use std::sync::Mutex;
+    use std::sync::atomic::AtomicBool;
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("traces/exploding.ron");
+    let trace = ebb::trace::load(&path).unwrap();
+    let fractions = Mutex::new(Vec::new());
+    let report = |_: &str, fraction: f64| fractions.lock().unwrap().push(fraction);
+    let diagnosis = ebb::diagnose::diagnose_with(
+        &trace,
+        &Settings::default(),
+        &Control::new(Some(&report), None),
+    )
+    .unwrap();
+    assert_eq!(
+        diagnosis.headline,
+        diagnose(&trace, &Settings::default()).headline
+    );
+    let fractions = fractions.into_inner().unwrap();
+    assert!(
+        fractions.windows(2).all(|pair| pair[0] <= pair[1]),
+        "{fractions:?}"
+    );
+    assert_eq!(fractions.last(), Some(&1.0));
+    let cancel = AtomicBool::new(true);
+    let cancelled = ebb::diagnose::diagnose_with(
+        &trace,
+        &Settings::default(),
+        &Control::new(None, Some(&cancel)),
+    );
+    assert_eq!(cancelled.err(), Some(Cancelled));
+}

@@ -27,6 +27,7 @@ mod explain;
 pub mod groups;
 pub mod origin;
 pub mod paths;
+pub mod repeat;
 pub mod replay;
 pub mod rules;
 pub mod settings;
@@ -35,10 +36,12 @@ pub use advice::{Advice, ClipPreview, LossScale, Topic, loss_scale};
 pub use groups::{GroupNorm, group_norms};
 pub use origin::{NanBirth, NanHow, Origin, OriginClass};
 pub use paths::{DominantPath, Hop, dominant_paths, edge_gains};
+pub use repeat::{Factor, Repeat, find_repeat};
 pub use replay::{LostContribution, ReplayGradient, ReplayRun, replay};
 pub use rules::{Finding, Measure, Measurement, Rule, Site};
 pub use settings::{Settings, SettingsError};
 
+use crate::control::{Cancelled, Control};
 use crate::dtype::{Dtype, Subnormals};
 use crate::format::compact;
 use crate::sweep::{LedgerMode, Sweep};
@@ -135,6 +138,13 @@ pub struct Diagnosis {
     pub clipping: ClipPreview,
     /// What to do, most pressing first.
     pub advice: Vec<Advice>,
+    /// Repeating structures along the dominant paths of the parameters
+    /// flagged vanishing or exploding: the longest first.
+    pub repeats: Vec<Repeat>,
+    /// One line naming the cause: the first origin of a non-finite adjoint,
+    /// the repeated gain behind a vanishing or exploding gradient, the flush
+    /// to zero and the loss scale that prevents it, or what else fired.
+    pub headline: String,
     causes: RootCauses,
 }
 
@@ -263,9 +273,24 @@ impl Diagnosis {
 /// Diagnoses `trace`: sweeps it in its own dtype, in f64 as the reference and
 /// in every replay dtype, and analyses the results.
 pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
+    diagnose_with(trace, settings, &Control::NONE).expect("Control::NONE never cancels")
+}
+
+/// [`diagnose`], reporting each stage to `control` and returning
+/// `Err(Cancelled)` between sweeps, replays and passes once it is cancelled.
+pub fn diagnose_with(
+    trace: &Trace,
+    settings: &Settings,
+    control: &Control,
+) -> Result<Diagnosis, Cancelled> {
+    let stages = 4.0 + settings.replay.len() as f64;
+    let progress = |done: f64| control.progress("diagnosis", done / stages);
+    progress(0.0);
     let own = settings.swept_trace(trace);
     let mut sweep = Sweep::new(&own, LedgerMode::On);
     sweep.run_to_end();
+    control.check()?;
+    progress(1.0);
     let is_reference = trace.dtype() == Dtype::F64 && settings.subnormals == Subnormals::Keep;
     let reference_trace;
     let mut reference_sweep = None;
@@ -275,20 +300,33 @@ pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
         reference.run_to_end();
         reference_sweep = Some(reference);
     }
+    control.check()?;
+    progress(2.0);
     let reference = reference_sweep.as_ref().unwrap_or(&sweep);
     let SweepAnalysis { findings, causes } = analyse(&sweep, reference_sweep.as_ref(), settings);
     let reference_findings = match &reference_sweep {
         Some(reference) => analyse(reference, None, settings).findings,
         None => findings.clone(),
     };
+    control.check()?;
+    progress(3.0);
     let gains = edge_gains(&sweep);
     let paths = dominant_paths(&sweep, &gains);
     let groups = group_norms(&sweep);
-    let replays: Vec<ReplayRun> = settings
-        .replay
-        .iter()
-        .map(|&dtype| replay(trace, dtype, settings, reference, &reference_findings))
-        .collect();
+    control.check()?;
+    progress(4.0);
+    let mut replays: Vec<ReplayRun> = Vec::with_capacity(settings.replay.len());
+    for &dtype in &settings.replay {
+        replays.push(replay(
+            trace,
+            dtype,
+            settings,
+            reference,
+            &reference_findings,
+        ));
+        control.check()?;
+        progress(4.0 + replays.len() as f64);
+    }
     let entries: Vec<f64> = trace
         .sweep_order()
         .iter()
@@ -326,10 +364,182 @@ pub fn diagnose(trace: &Trace, settings: &Settings) -> Diagnosis {
         loss_scale,
         clipping,
         advice: Vec::new(),
+        repeats: Vec::new(),
+        headline: String::new(),
         causes,
     };
+    diagnosis.repeats = repeats(trace, &diagnosis);
     diagnosis.advice = advise(trace, &diagnosis);
-    diagnosis
+    diagnosis.headline = headline(trace, &diagnosis);
+    control.progress("diagnosis", 1.0);
+    Ok(diagnosis)
+}
+
+/// The repeating structure along the dominant path of every parameter
+/// flagged vanishing or exploding, the longest first.
+fn repeats(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Repeat> {
+    let mut found: Vec<Repeat> = diagnosis
+        .findings
+        .iter()
+        .filter(|finding| matches!(finding.rule, Rule::Vanishing | Rule::Exploding))
+        .filter_map(|finding| diagnosis.path_to(finding.node))
+        .filter_map(|path| find_repeat(trace, path))
+        .collect();
+    found.sort_by_key(|repeat| std::cmp::Reverse((repeat.count, repeat.hops)));
+    found
+}
+
+/// "'a' … 'b'": where a repeat's factor first and last acts, by group when
+/// the groups tell the repeats apart, else by node.
+fn repeat_span(trace: &Trace, repeat: &Repeat) -> String {
+    let (first, last) = repeat.factor_nodes;
+    let (a, b) = (&trace.node(first).group, &trace.node(last).group);
+    if a != b && !a.is_empty() && !b.is_empty() {
+        format!("'{a}' … '{b}'")
+    } else {
+        format!("'{}' … '{}'", trace.node(first).id, trace.node(last).id)
+    }
+}
+
+/// The repeated gain in one phrase: "a recurrent gain of ×1.2 per step,
+/// repeated 49 times ('unrolled/t50' … 'unrolled/t02'), ×7592 in all".
+fn repeat_phrase(trace: &Trace, repeat: &Repeat) -> String {
+    use crate::format::short;
+    let span = repeat_span(trace, repeat);
+    let total = short(repeat.total());
+    match repeat.factor {
+        Factor::Weight {
+            param,
+            shared: true,
+        } => format!(
+            "a recurrent gain of ×{} per step through '{}', repeated {} times ({span}), ×{total} in all",
+            short(repeat.gain),
+            trace.node(param).id,
+            repeat.count
+        ),
+        Factor::Activation { op } => format!(
+            "the {} layers ({span}, {} of them) multiply the adjoint by about ×{} per layer, ×{total} in all",
+            op.name(),
+            repeat.count,
+            short(repeat.gain)
+        ),
+        _ => format!(
+            "a gain of ×{} per {}, repeated {} times ({span}), ×{total} in all",
+            short(repeat.gain),
+            repeat.unit(),
+            repeat.count
+        ),
+    }
+}
+
+/// The one line naming the cause.
+fn headline(trace: &Trace, diagnosis: &Diagnosis) -> String {
+    let id = |node: usize| trace.node(node).id.as_str();
+    if let Some(origin) = diagnosis.first_origin() {
+        return format!(
+            "origin ({}) {} at '{}' ({}), step {}",
+            origin.class.letter(),
+            origin.class.title(),
+            id(origin.node),
+            trace.node(origin.node).op_name,
+            origin.step + 1
+        );
+    }
+    let worst = |rule: Rule| {
+        diagnosis
+            .findings
+            .iter()
+            .filter(move |finding| finding.rule == rule)
+            .map(|finding| finding.node)
+    };
+    if let Some(repeat) = diagnosis.repeats.first() {
+        let direction = if repeat.gain > 1.0 {
+            "exploding"
+        } else {
+            "vanishing"
+        };
+        // A shared weight is named in the phrase already; an activation's bound is worth a clause.
+        let why = match repeat.factor {
+            Factor::Weight { shared: true, .. } => String::new(),
+            _ => format!("; {}", repeat::factor_text(trace, repeat)),
+        };
+        return format!(
+            "{direction} gradients: {}{why}",
+            repeat_phrase(trace, repeat)
+        );
+    }
+    for rule in [Rule::Exploding, Rule::Vanishing] {
+        if let Some(param) = worst(rule).next() {
+            return format!(
+                "{} gradient at '{}'{}",
+                rule.name(),
+                id(param),
+                diagnosis
+                    .gradient_norms
+                    .iter()
+                    .find(|(node, _)| *node == param)
+                    .map_or(String::new(), |(_, norm)| format!(
+                        " (norm {})",
+                        compact(*norm)
+                    ))
+            );
+        }
+    }
+    if diagnosis.dtype == Dtype::F16
+        && let Some(scale) = &diagnosis.loss_scale
+        && scale.underflow_unscaled > 0.0
+    {
+        let zeros = (scale.underflow_unscaled * scale.nonzero as f64).round();
+        let first = diagnosis
+            .findings
+            .iter()
+            .find(|finding| {
+                finding.rule == Rule::Underflow
+                    && finding
+                        .measures
+                        .iter()
+                        .any(|m| m.measure == Measure::FlushedToZero)
+            })
+            .map_or(String::new(), |finding| {
+                format!(
+                    ", first at '{}' (step {})",
+                    id(finding.node),
+                    finding.step + 1
+                )
+            });
+        let fix = if scale.underflow_scaled < scale.underflow_unscaled {
+            format!(
+                "scaling the loss by 2^{} = {} keeps {}",
+                scale.exponent,
+                compact(scale.scale),
+                if scale.underflow_scaled == 0.0 {
+                    "every one".to_string()
+                } else {
+                    format!("all but {:.1}%", 100.0 * scale.underflow_scaled)
+                }
+            )
+        } else {
+            "loss scaling cannot keep them: accumulate those adjoints in f32".to_string()
+        };
+        return format!(
+            "underflow in f16: {zeros} of {} non-zero adjoint entries ({:.1}%) flush to zero{first}; {fix}",
+            scale.nonzero,
+            100.0 * scale.underflow_unscaled
+        );
+    }
+    if diagnosis.findings.is_empty() {
+        return format!("clean: no rule fired in {}", diagnosis.dtype);
+    }
+    let rules: std::collections::BTreeSet<&str> = diagnosis
+        .findings
+        .iter()
+        .map(|finding| finding.rule.name())
+        .collect();
+    format!(
+        "every adjoint is finite; {} findings ({})",
+        diagnosis.findings.len(),
+        rules.into_iter().collect::<Vec<_>>().join(", ")
+    )
 }
 
 /// The advice, most pressing first.
@@ -361,24 +571,51 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
         })
         .map(|finding| finding.node)
         .max_by(|&a, &b| norm_of(a).total_cmp(&norm_of(b)));
+    // The longest run tells the structure best, whichever parameter it ends at.
+    let repeat_of = |_: usize| diagnosis.repeats.first();
     if let Some(param) = exploding {
-        let path = diagnosis.path_to(param);
-        let along = path
-            .and_then(|path| path.strongest().map(|hop| (path, hop)))
-            .map_or(String::new(), |(path, hop)| {
-                along_path(path, hop, "largest", &id)
-            });
+        let clipping = format!(
+            "Clipping the global norm {} at {} would scale every gradient by {}.",
+            compact(clip.norm),
+            compact(clip.threshold),
+            compact(clip.factor)
+        );
+        let text = match repeat_of(param) {
+            Some(repeat) => {
+                let remedy = match repeat.factor {
+                    Factor::Weight { shared: true, .. } => {
+                        "Keep the recurrent weight's largest singular value at or below 1 (an orthogonal initialisation, or a gated cell), or shorten the unroll (truncated backpropagation through time)."
+                    }
+                    _ => {
+                        "Keep each layer's gain near 1 (initialisation scaled to the layer's width, normalisation between layers)."
+                    }
+                };
+                format!(
+                    "The gradient of '{}' is exploding (norm {}): {}; {}. {remedy} {clipping}",
+                    id(param),
+                    compact(norm_of(param)),
+                    repeat_phrase(trace, repeat),
+                    repeat::factor_text(trace, repeat)
+                )
+            }
+            None => {
+                let along = diagnosis
+                    .path_to(param)
+                    .and_then(|path| path.strongest().map(|hop| (path, hop)))
+                    .map_or(String::new(), |(path, hop)| {
+                        along_path(path, hop, "largest", &id)
+                    });
+                format!(
+                    "The gradient of '{}' is exploding (norm {}){along}. {clipping}",
+                    id(param),
+                    compact(norm_of(param))
+                )
+            }
+        };
         advice.push(Advice {
             topic: Topic::Exploding,
             node: Some(param),
-            text: format!(
-                "The gradient of '{}' is exploding (norm {}){along}. Clipping the global norm {} at {} would scale every gradient by {}.",
-                id(param),
-                compact(norm_of(param)),
-                compact(clip.norm),
-                compact(clip.threshold),
-                compact(clip.factor)
-            ),
+            text,
         });
     }
     let vanishing = diagnosis
@@ -388,36 +625,61 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
         .map(|finding| finding.node)
         .min_by(|&a, &b| norm_of(a).total_cmp(&norm_of(b)));
     if let Some(param) = vanishing {
-        let path = diagnosis.path_to(param);
-        let along = path
-            .and_then(|path| path.weakest().map(|hop| (path, hop)))
-            .map_or(String::new(), |(path, hop)| {
-                along_path(path, hop, "weakest", &id)
-            });
-        let steepest = diagnosis
-            .groups
-            .windows(2)
-            .filter_map(|pair| pair[1].ratio.map(|ratio| (pair, ratio)))
-            .min_by(|a, b| a.1.total_cmp(&b.1));
-        let groups =
-            steepest
-                .filter(|(_, ratio)| *ratio < 1.0)
-                .map_or(String::new(), |(pair, ratio)| {
-                    format!(
-                        " Group by group, the adjoint norm falls fastest from '{}' to '{}' (×{}).",
-                        pair[0].group,
-                        pair[1].group,
-                        compact(ratio)
-                    )
-                });
+        let text = match repeat_of(param) {
+            Some(repeat) => {
+                let remedy = match repeat.factor {
+                    Factor::Activation { .. } => {
+                        "Use an activation whose derivative stays near 1 where the units work (ReLU and its kin), add skip connections, or normalise between layers."
+                    }
+                    Factor::Weight { shared: true, .. } => {
+                        "A recurrent weight with gain below 1 forgets: a gated cell (LSTM, GRU) or an orthogonal initialisation keeps the gain near 1."
+                    }
+                    _ => {
+                        "Shorten that path (a skip connection), or initialise so that each layer's gain stays near 1."
+                    }
+                };
+                format!(
+                    "The gradient of '{}' is vanishing (norm {}): {}; {}. {remedy}",
+                    id(param),
+                    compact(norm_of(param)),
+                    repeat_phrase(trace, repeat),
+                    repeat::factor_text(trace, repeat)
+                )
+            }
+            None => {
+                let along = diagnosis
+                    .path_to(param)
+                    .and_then(|path| path.weakest().map(|hop| (path, hop)))
+                    .map_or(String::new(), |(path, hop)| {
+                        along_path(path, hop, "weakest", &id)
+                    });
+                let steepest = diagnosis
+                    .groups
+                    .windows(2)
+                    .filter_map(|pair| pair[1].ratio.map(|ratio| (pair, ratio)))
+                    .min_by(|a, b| a.1.total_cmp(&b.1));
+                let groups = steepest.filter(|(_, ratio)| *ratio < 1.0).map_or(
+                    String::new(),
+                    |(pair, ratio)| {
+                        format!(
+                            " Group by group, the adjoint norm falls fastest from '{}' to '{}' (×{}).",
+                            pair[0].group,
+                            pair[1].group,
+                            compact(ratio)
+                        )
+                    },
+                );
+                format!(
+                    "The gradient of '{}' is vanishing (norm {}){along}.{groups} Shorten that path (a skip connection), or use an activation or initialisation whose gains stay near 1.",
+                    id(param),
+                    compact(norm_of(param))
+                )
+            }
+        };
         advice.push(Advice {
             topic: Topic::Vanishing,
             node: Some(param),
-            text: format!(
-                "The gradient of '{}' is vanishing (norm {}){along}.{groups} Shorten that path (a skip connection), or use an activation or initialisation whose gains stay near 1.",
-                id(param),
-                compact(norm_of(param))
-            ),
+            text,
         });
     }
     let half = diagnosis.replay_in(Dtype::F16);

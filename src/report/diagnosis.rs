@@ -32,6 +32,10 @@ pub const CHAIN_LIMIT: usize = 64;
 /// The diagnosis section.
 #[derive(Debug, Clone, Serialize)]
 pub struct DiagnosisReport {
+    /// One line naming the cause (the report's first line after `diagnosis`).
+    pub headline: String,
+    /// Repeating structures behind vanishing or exploding gradients, longest first.
+    pub repeats: Vec<RepeatEntry>,
     /// True when no rule fired in the trace's own dtype.
     pub clean: bool,
     /// The thresholds and options used.
@@ -56,6 +60,43 @@ pub struct DiagnosisReport {
     pub clipping: ClipEntry,
     /// What to do, most pressing first.
     pub advice: Vec<AdviceEntry>,
+}
+
+/// A structure repeated along a dominant path.
+#[derive(Debug, Clone, Serialize)]
+pub struct RepeatEntry {
+    /// The parameter whose dominant path it is on.
+    pub param: String,
+    /// Hops per repeat.
+    pub period: usize,
+    /// Full repeats.
+    pub repeats: usize,
+    /// How many times the factor's hop occurs.
+    pub count: usize,
+    /// Gain per repeat (geometric mean).
+    pub gain: Num,
+    /// Gain of the whole run.
+    pub total: Num,
+    /// `activation`, `weight` or `op`.
+    pub factor: &'static str,
+    /// The op behind the factor (the activation, or the op of the hop).
+    pub op: String,
+    /// For a weight: the parameter.
+    pub weight: Option<String>,
+    /// For a weight: whether every repeat uses it (a recurrent weight).
+    pub shared: bool,
+    /// The factor's hop's median gain.
+    pub factor_gain: Num,
+    /// Where the factor first and last acts (nodes).
+    pub from: String,
+    /// Where it last acts.
+    pub to: String,
+    /// Their groups.
+    pub from_group: String,
+    /// The last one's group.
+    pub to_group: String,
+    /// "layer" or "step".
+    pub unit: &'static str,
 }
 
 /// A chain of node ids, both ends kept when long.
@@ -507,7 +548,45 @@ impl DiagnosisReport {
             })
             .collect();
         let clip = &diagnosis.clipping;
+        let repeats = diagnosis
+            .repeats
+            .iter()
+            .map(|repeat| {
+                use crate::diagnose::Factor;
+                let (factor, op, weight, shared) = match repeat.factor {
+                    Factor::Activation { op } => ("activation", op.name().to_string(), None, false),
+                    Factor::Weight { param, shared } => (
+                        "weight",
+                        trace.node(repeat.factor_nodes.0).op_name.clone(),
+                        Some(id(param)),
+                        shared,
+                    ),
+                    Factor::Op { op } => ("op", op.name().to_string(), None, false),
+                };
+                let (from, to) = repeat.factor_nodes;
+                RepeatEntry {
+                    param: id(repeat.param),
+                    period: repeat.period,
+                    repeats: repeat.repeats,
+                    count: repeat.count,
+                    gain: Num(repeat.gain),
+                    total: Num(repeat.total()),
+                    factor,
+                    op,
+                    weight,
+                    shared,
+                    factor_gain: Num(repeat.factor_gain),
+                    from: id(from),
+                    to: id(to),
+                    from_group: trace.node(from).group.clone(),
+                    to_group: trace.node(to).group.clone(),
+                    unit: repeat.unit(),
+                }
+            })
+            .collect();
         DiagnosisReport {
+            headline: diagnosis.headline.clone(),
+            repeats,
             clean: diagnosis.is_clean(),
             settings: diagnosis.settings.clone(),
             first_origin,
@@ -545,16 +624,14 @@ impl DiagnosisReport {
         }
     }
 
-    /// The short diagnosis printed before everything else.
+    /// The short diagnosis printed before everything else: the headline
+    /// naming the cause, the origin's chains, the advice.
     pub fn summary_text(&self, dtype: &str) -> String {
+        let _ = dtype;
         let mut out = String::new();
+        let _ = writeln!(out, "diagnosis  {}", self.headline);
         match &self.first_origin {
             Some(origin) => {
-                let _ = writeln!(
-                    out,
-                    "diagnosis  origin ({}) {} at '{}' ({}), step {}",
-                    origin.letter, origin.title, origin.node, origin.op, origin.step
-                );
                 let _ = writeln!(out, "           {}", origin.explanation);
                 for reached in origin.reached.iter().take(3) {
                     let _ = writeln!(out, "  chain    {}", chain_text(reached));
@@ -592,9 +669,7 @@ impl DiagnosisReport {
                     );
                 }
             }
-            None if self.clean => {
-                let _ = writeln!(out, "diagnosis  clean: no rule fired in {dtype}");
-            }
+            None if self.clean || self.headline.starts_with("every adjoint is finite") => {}
             None => {
                 let rules: Vec<&str> = self
                     .findings
@@ -605,7 +680,7 @@ impl DiagnosisReport {
                     .collect();
                 let _ = writeln!(
                     out,
-                    "diagnosis  every adjoint is finite; {} findings ({})",
+                    "           every adjoint is finite; {} findings ({})",
                     self.findings.len(),
                     rules.join(", ")
                 );
