@@ -193,6 +193,10 @@ impl fmt::Display for Dtype {
 
 /// 2^e for exponents within f64's normal range.
 fn pow2(e: i32) -> f64 {
+    if e < -1022 {
+        // Below f64's normal range (f64's own smallest subnormal is 2^-1074).
+        return 2f64.powi(e);
+    }
     f64::from_bits(((e + 1023) as u64) << 52)
 }
 
@@ -250,6 +254,8 @@ mod tests {
         assert_eq!(Dtype::F32.limits().min_normal(), 1.1754943508222875e-38);
         assert_eq!(Dtype::Bf16.limits().max_finite(), 3.3895313892515355e38);
         assert_eq!(Dtype::F64.limits().max_finite(), f64::MAX);
+        // binary64's smallest subnormal is 2^-1074, the least positive f64.
+        assert_eq!(Dtype::F64.limits().min_subnormal(), f64::from_bits(1));
     }
 
     // Rounding probes follow from round-to-nearest-even (IEEE 754-2019 §4.3.1).

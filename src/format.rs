@@ -137,6 +137,12 @@ pub fn short(x: f64) -> String {
     }
 }
 
+/// A fraction as a percentage for sentences: `0%`, `2.6%`, `0.004827%`
+/// (four significant digits, so a small fraction never reads as 0).
+pub fn percent(fraction: f64) -> String {
+    format!("{}%", short(100.0 * fraction))
+}
+
 /// 10^`log10` in [`compact`] form, or as `10^x` when beyond f64's range (a
 /// product of many gains can be).
 pub fn power_of_ten(log10: f64) -> String {
@@ -184,6 +190,9 @@ mod tests {
         assert_eq!(short(7.4043e-12), "7.404e-12");
         assert_eq!(short(2.2403e8), "2.24e8");
         assert_eq!(short(-0.5), "-0.5");
+        assert_eq!(percent(0.0), "0%");
+        assert_eq!(percent(12.0 / 248593.0), "0.004827%");
+        assert_eq!(percent(0.026), "2.6%");
         assert_eq!(power_of_ten(f64::INFINITY), "inf");
         assert_eq!(power_of_ten(f64::NAN), "NaN");
     }

@@ -37,6 +37,11 @@ pub struct Report {
     pub counts: Counts,
     /// One entry per parameter, in recording order.
     pub gradients: Vec<Gradient>,
+    /// Nodes whose recorded numbers were not representable in their dtype
+    /// and were rounded on load (every sweep uses the rounded values);
+    /// absent when there are none.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub rounded_on_load: Vec<RoundingEntry>,
     /// Flags in sweep order; the first is marked.
     pub flags: Vec<FlagEntry>,
     /// True when nothing was flagged.
@@ -112,6 +117,56 @@ impl Gradient {
     /// The non-finite entries in words: `0`, `20 NaN`, `1 +inf`, `3 (1 NaN, 2 -inf)`.
     pub fn non_finite_text(&self) -> String {
         crate::stats::non_finite_text(self.nan, self.pos_inf, self.neg_inf)
+    }
+}
+
+/// A node whose numbers were rounded into its dtype on load.
+#[derive(Debug, Clone, Serialize)]
+pub struct RoundingEntry {
+    /// Node id.
+    pub node: String,
+    /// Its dtype.
+    pub dtype: String,
+    /// The first element that changed.
+    pub element: usize,
+    /// The number as written in the file.
+    pub written: Num,
+    /// The value it became.
+    pub stored: Num,
+    /// Elements that changed.
+    pub count: usize,
+}
+
+impl RoundingEntry {
+    /// The roundings of `trace`, by node id.
+    pub fn all(trace: &Trace) -> Vec<RoundingEntry> {
+        trace
+            .rounded_on_load()
+            .iter()
+            .map(|rounding| RoundingEntry {
+                node: trace.node(rounding.node).id.clone(),
+                dtype: trace.node_dtype(rounding.node).name().to_string(),
+                element: rounding.index,
+                written: Num(rounding.written),
+                stored: Num(rounding.stored),
+                count: rounding.count,
+            })
+            .collect()
+    }
+
+    /// One line: `'w' (f16): 4.47e-8 is stored as 5.9605e-8 (element 3; 2 numbers in all)`.
+    pub fn text(&self) -> String {
+        let more = if self.count > 1 {
+            format!("; {} numbers in all", self.count)
+        } else {
+            String::new()
+        };
+        // Debug formatting: the shortest round-trip digits, in scientific
+        // notation for tiny and huge numbers.
+        format!(
+            "'{}' ({}): {:?} is stored as {:?} (element {}{more})",
+            self.node, self.dtype, self.written.0, self.stored.0, self.element
+        )
     }
 }
 
@@ -216,6 +271,7 @@ impl Report {
                 unreached: trace.unreached().count(),
             },
             gradients,
+            rounded_on_load: RoundingEntry::all(trace),
             clean: flags.is_empty(),
             flags,
             diagnosis: None,
@@ -273,6 +329,17 @@ impl Report {
             out.push_str(&format!(" ({} do not reach the output)", c.unreached));
         }
         out.push('\n');
+        if !self.rounded_on_load.is_empty() {
+            let count = self.rounded_on_load.len();
+            out.push_str(&format!(
+                "rounded  {count} {} numbers not representable in {} dtype, rounded on load (every sweep uses the stored value)\n",
+                if count == 1 { "node holds" } else { "nodes hold" },
+                if count == 1 { "its" } else { "their" }
+            ));
+            for rounding in &self.rounded_on_load {
+                out.push_str(&format!("  {}\n", rounding.text()));
+            }
+        }
         out.push_str(&self.gradients_text());
         out.push_str(&self.flags_text());
         if let Some(diagnosis) = &self.diagnosis {

@@ -486,3 +486,20 @@ fn open_with_settings_uses_their_thresholds() {
     );
     assert!(contains(&buf, "1.414214"), "{}", screen(&buf));
 }
+
+// σ(−827) rounds to exactly 0 in f32, so one of the six output units is
+// saturated: the Flags pane lists the finding with its own symbol.
+#[test]
+fn flags_lists_forward_health_findings() {
+    let trace = demo("nan_hunt.ron");
+    let copies = Retyped::new(&trace);
+    let mut app = open(&trace, &copies);
+    app.update(Action::Focus(PaneId::Flags));
+    app.update(Action::Zoom);
+    let buf = draw(&mut app, 200, 50);
+    let row = row_with(&buf, "⊓ step");
+    assert!(
+        row.contains("predicted") && row.contains("saturated"),
+        "{row}"
+    );
+}

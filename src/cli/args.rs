@@ -61,7 +61,8 @@ pub enum Command {
         rules: Option<PathBuf>,
         /// Override one setting, written as in a settings file; repeatable. Names: overflow_band,
         /// vanishing_below, exploding_above, vanishing_vs_seed, exploding_vs_seed, vanishing_vs_median,
-        /// exploding_vs_median, gain_above, gain_below, subnormals, replay, lost_fraction, clip_norm, off.
+        /// exploding_vs_median, gain_above, gain_below, subnormals, replay, lost_fraction, clip_norm,
+        /// forward_slack, saturated_below, saturated_fraction, dead_fraction, activation_growth, off.
         #[arg(long = "set", value_name = "NAME=VALUE")]
         set: Vec<String>,
     },

@@ -74,7 +74,11 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
                 out,
             )
         }
-        Some(Command::Sweep { trace, steps }) => sweep(&load(&trace)?, steps, out),
+        Some(Command::Sweep { trace, steps }) => {
+            let loaded = load(&trace)?;
+            warn_rounded(&trace, &loaded);
+            sweep(&loaded, steps, out)
+        }
         Some(Command::Verify {
             trace,
             json,
@@ -84,6 +88,7 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
             direction,
         }) => {
             let loaded = load(&trace)?;
+            warn_rounded(&trace, &loaded);
             let direction = direction
                 .map(|text| parse_direction(&loaded, &text))
                 .transpose()?;
@@ -151,6 +156,26 @@ fn view_error(error: ViewError) -> anyhow::Error {
 fn load(path: &Path) -> Result<Trace> {
     trace::load_with(path, progress::for_trace(path).as_mut())
         .map_err(|error| BadInput(error).into())
+}
+
+/// Says once, on standard error, that numbers were rounded into their
+/// dtype on load (`ebb check` lists them in its report instead).
+fn warn_rounded(path: &Path, trace: &Trace) {
+    let rounded = ebb::report::RoundingEntry::all(trace);
+    if let Some(first) = rounded.first() {
+        eprintln!(
+            "warning: {}: {} {} numbers not representable in {} dtype, rounded on load; first {} (every sweep uses the stored values; `ebb check` lists them)",
+            path.display(),
+            rounded.len(),
+            if rounded.len() == 1 {
+                "node holds"
+            } else {
+                "nodes hold"
+            },
+            if rounded.len() == 1 { "its" } else { "their" },
+            first.text()
+        );
+    }
 }
 
 /// Loads the demo embedded in the binary.

@@ -1,5 +1,7 @@
 //! Per-group adjoint norms ordered by depth, and the ratio between
-//! neighbouring groups: the table of where the signal grows or decays.
+//! neighbouring groups: the table of where the signal grows or decays; and
+//! beside them the group's activation norms (forward values of its non-leaf
+//! nodes), so exploding forward values are seen next to exploding adjoints.
 
 use crate::sweep::Sweep;
 use crate::tensor::l2_norm;
@@ -21,6 +23,13 @@ pub struct GroupNorm {
     pub param_norm: Option<f64>,
     /// This group's adjoint norm over the previous (shallower) group's; `None` for the first.
     pub ratio: Option<f64>,
+    /// L2 norm of the forward values of the group's activations (its
+    /// non-leaf nodes with more than one element, the output excepted);
+    /// `None` when it has none.
+    pub value_norm: Option<f64>,
+    /// Root mean square of those values, comparable between groups of
+    /// different sizes; `None` when it has none.
+    pub value_rms: Option<f64>,
 }
 
 /// Fewest hops from the output to every node (`usize::MAX` for unreached nodes), in one pass in sweep order.
@@ -50,6 +59,8 @@ pub fn group_norms(sweep: &Sweep) -> Vec<GroupNorm> {
     let index_of = |group: &str| positions[group];
     let mut adjoint_norms: Vec<Vec<f64>> = vec![Vec::new(); names.len()];
     let mut param_norms: Vec<Vec<f64>> = vec![Vec::new(); names.len()];
+    let mut value_norms: Vec<Vec<f64>> = vec![Vec::new(); names.len()];
+    let mut value_counts = vec![0usize; names.len()];
     let mut group_depth = vec![usize::MAX; names.len()];
     for &node in trace.sweep_order() {
         let recorded = trace.node(node);
@@ -58,6 +69,12 @@ pub fn group_norms(sweep: &Sweep) -> Vec<GroupNorm> {
         adjoint_norms[group].push(norm);
         if recorded.op == crate::ops::Op::Param {
             param_norms[group].push(norm);
+        }
+        // Activations: what non-leaf nodes pass on; the output (the loss) and
+        // other single numbers are summaries, not layers of units.
+        if !recorded.op.is_leaf() && node != trace.output() && recorded.value.len() > 1 {
+            value_norms[group].push(recorded.value.l2_norm());
+            value_counts[group] += recorded.value.len();
         }
         group_depth[group] = group_depth[group].min(depth[node]);
     }
@@ -70,6 +87,9 @@ pub fn group_norms(sweep: &Sweep) -> Vec<GroupNorm> {
             adjoint_norm: l2_norm(&adjoint_norms[group]),
             param_norm: (!param_norms[group].is_empty()).then(|| l2_norm(&param_norms[group])),
             ratio: None,
+            value_norm: (value_counts[group] > 0).then(|| l2_norm(&value_norms[group])),
+            value_rms: (value_counts[group] > 0)
+                .then(|| l2_norm(&value_norms[group]) / (value_counts[group] as f64).sqrt()),
         })
         .collect();
     groups.sort_by_key(|group| group.depth);

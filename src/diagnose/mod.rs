@@ -24,7 +24,9 @@
 
 pub mod advice;
 mod explain;
+pub mod forward;
 pub mod groups;
+pub mod health;
 pub mod origin;
 pub mod paths;
 pub mod repeat;
@@ -33,7 +35,9 @@ pub mod rules;
 pub mod settings;
 
 pub use advice::{Advice, ClipPreview, LossScale, Topic, loss_scale};
+pub use forward::{ForwardCheck, Mismatch, check_forward};
 pub use groups::{GroupNorm, group_norms};
+pub use health::{DeadUnits, Saturation, activation_spread, dead_units, saturation};
 pub use origin::{NanBirth, NanHow, Origin, OriginClass};
 pub use paths::{DominantPath, Hop, dominant_paths, edge_gains};
 pub use repeat::{Factor, Repeat, find_repeat};
@@ -141,6 +145,17 @@ pub struct Diagnosis {
     /// Repeating structures along the dominant paths of the parameters
     /// flagged vanishing or exploding: the longest first.
     pub repeats: Vec<Repeat>,
+    /// Forward consistency: recorded values against the op table's.
+    pub forward: ForwardCheck,
+    /// Sigmoid and tanh nodes with saturated units, in sweep order (flagged
+    /// when the fraction reaches `saturated_fraction`).
+    pub saturation: Vec<Saturation>,
+    /// ReLU nodes with units dead for the whole batch, in sweep order
+    /// (flagged when the fraction reaches `dead_fraction`).
+    pub dead: Vec<DeadUnits>,
+    /// The group whose activation RMS is furthest from the input side's:
+    /// (index into `groups`, ratio, index of the group nearest the inputs).
+    pub activation_spread: Option<(usize, f64, usize)>,
     /// One line naming the cause: the first origin of a non-finite adjoint,
     /// the repeated gain behind a vanishing or exploding gradient, the flush
     /// to zero and the loss scale that prevents it, or what else fired.
@@ -303,7 +318,10 @@ pub fn diagnose_with(
     control.check()?;
     progress(2.0);
     let reference = reference_sweep.as_ref().unwrap_or(&sweep);
-    let SweepAnalysis { findings, causes } = analyse(&sweep, reference_sweep.as_ref(), settings);
+    let SweepAnalysis {
+        mut findings,
+        causes,
+    } = analyse(&sweep, reference_sweep.as_ref(), settings);
     let reference_findings = match &reference_sweep {
         Some(reference) => analyse(reference, None, settings).findings,
         None => findings.clone(),
@@ -313,6 +331,10 @@ pub fn diagnose_with(
     let gains = edge_gains(&sweep);
     let paths = dominant_paths(&sweep, &gains);
     let groups = group_norms(&sweep);
+    control.check()?;
+    let health = forward_health(trace, settings, &groups);
+    findings.extend(health.findings);
+    findings.sort_by_key(|finding| (finding.step, finding.rule));
     control.check()?;
     progress(4.0);
     let mut replays: Vec<ReplayRun> = Vec::with_capacity(settings.replay.len());
@@ -365,6 +387,10 @@ pub fn diagnose_with(
         clipping,
         advice: Vec::new(),
         repeats: Vec::new(),
+        forward: health.forward,
+        saturation: health.saturation,
+        dead: health.dead,
+        activation_spread: health.spread,
         headline: String::new(),
         causes,
     };
@@ -373,6 +399,111 @@ pub fn diagnose_with(
     diagnosis.headline = headline(trace, &diagnosis);
     control.progress("diagnosis", 1.0);
     Ok(diagnosis)
+}
+
+/// The forward checks and the findings of their rules.
+struct ForwardHealth {
+    forward: ForwardCheck,
+    saturation: Vec<Saturation>,
+    dead: Vec<DeadUnits>,
+    spread: Option<(usize, f64, usize)>,
+    findings: Vec<Finding>,
+}
+
+/// Forward consistency and forward health, read from the recorded values.
+fn forward_health(trace: &Trace, settings: &Settings, groups: &[GroupNorm]) -> ForwardHealth {
+    let mut collector = rules::Collector::new(settings, trace.dtype());
+    let forward = if settings.is_on(Rule::ForwardMismatch) {
+        check_forward(trace, settings.forward_slack)
+    } else {
+        ForwardCheck::default()
+    };
+    for mismatch in &forward.mismatches {
+        collector.push(
+            Rule::ForwardMismatch,
+            mismatch.node,
+            mismatch.step,
+            Site::Value,
+            Measure::ForwardError,
+            (mismatch.element, mismatch.error(), mismatch.count),
+            mismatch.tolerance,
+        );
+    }
+    let saturation = saturation(trace, settings.saturated_below);
+    for found in saturation
+        .iter()
+        .filter(|found| found.fraction() >= settings.saturated_fraction)
+    {
+        collector.push(
+            Rule::Saturated,
+            found.node,
+            found.step,
+            Site::Value,
+            Measure::SaturatedFraction,
+            (found.element, found.fraction(), found.saturated),
+            settings.saturated_fraction,
+        );
+    }
+    let dead = dead_units(trace);
+    for found in dead
+        .iter()
+        .filter(|found| found.fraction() >= settings.dead_fraction)
+    {
+        collector.push(
+            Rule::DeadRelu,
+            found.node,
+            found.step,
+            Site::Value,
+            Measure::DeadFraction,
+            (found.first, found.fraction(), found.dead),
+            settings.dead_fraction,
+        );
+    }
+    let spread = activation_spread(groups);
+    if let Some((at, ratio, _)) = spread {
+        let growth = settings.activation_growth;
+        let crossed = if ratio > growth {
+            Some(growth)
+        } else if ratio < 1.0 / growth {
+            Some(1.0 / growth)
+        } else {
+            None
+        };
+        // The finding sits at the group's largest activation.
+        let node = trace
+            .sweep_order()
+            .iter()
+            .copied()
+            .filter(|&node| {
+                let recorded = trace.node(node);
+                recorded.group == groups[at].group && !recorded.op.is_leaf()
+            })
+            .max_by(|&a, &b| {
+                trace
+                    .node(a)
+                    .value
+                    .l2_norm()
+                    .total_cmp(&trace.node(b).value.l2_norm())
+            });
+        if let (Some(threshold), Some(node)) = (crossed, node) {
+            collector.push(
+                Rule::ActivationGrowth,
+                node,
+                trace.sweep_rank(node).expect("a swept node"),
+                Site::Value,
+                Measure::RmsToDeepest,
+                (0, ratio, 1),
+                threshold,
+            );
+        }
+    }
+    ForwardHealth {
+        forward,
+        saturation,
+        dead,
+        spread,
+        findings: collector.finish(),
+    }
 }
 
 /// The repeating structure along the dominant path of every parameter
@@ -445,6 +576,19 @@ fn headline(trace: &Trace, diagnosis: &Diagnosis) -> String {
             origin.step + 1
         );
     }
+    if let Some(mismatch) = diagnosis.forward.mismatches.first() {
+        let more = match diagnosis.forward.mismatches.len() {
+            1 => String::new(),
+            n => format!(" ({n} nodes disagree)"),
+        };
+        return format!(
+            "forward value of '{}' ({}) is {} where its op gives {}: the trace disagrees with its own inputs{more}",
+            id(mismatch.node),
+            trace.node(mismatch.node).op_name,
+            crate::format::short(mismatch.recorded),
+            crate::format::short(mismatch.recomputed)
+        );
+    }
     let worst = |rule: Rule| {
         diagnosis
             .findings
@@ -515,16 +659,16 @@ fn headline(trace: &Trace, diagnosis: &Diagnosis) -> String {
                 if scale.underflow_scaled == 0.0 {
                     "every one".to_string()
                 } else {
-                    format!("all but {:.1}%", 100.0 * scale.underflow_scaled)
+                    format!("all but {}", crate::format::percent(scale.underflow_scaled))
                 }
             )
         } else {
             "loss scaling cannot keep them: accumulate those adjoints in f32".to_string()
         };
         return format!(
-            "underflow in f16: {zeros} of {} non-zero adjoint entries ({:.1}%) flush to zero{first}; {fix}",
+            "underflow in f16: {zeros} of {} non-zero adjoint entries ({}) flush to zero{first}; {fix}",
             scale.nonzero,
-            100.0 * scale.underflow_unscaled
+            crate::format::percent(scale.underflow_unscaled)
         );
     }
     if diagnosis.findings.is_empty() {
@@ -737,18 +881,18 @@ fn advise(trace: &Trace, diagnosis: &Diagnosis) -> Vec<Advice> {
 /// when some do): scale when the scale rescues them, else say why it cannot.
 fn loss_scale_advice(scale: &LossScale) -> String {
     let head = format!(
-        "In f16, {:.1}% of the non-zero adjoint entries ({} of {}) round to zero.",
-        100.0 * scale.underflow_unscaled,
+        "In f16, {} of the non-zero adjoint entries ({} of {}) round to zero.",
+        crate::format::percent(scale.underflow_unscaled),
         (scale.underflow_unscaled * scale.nonzero as f64).round(),
         scale.nonzero
     );
     if scale.underflow_scaled < scale.underflow_unscaled {
         format!(
-            "{head} Scale the loss by S = 2^{} = {} (the largest power of two keeping max |adjoint| {} · S below 65504) and divide the gradients by S before the update: then {:.1}% round to zero.",
+            "{head} Scale the loss by S = 2^{} = {} (the largest power of two keeping max |adjoint| {} · S below 65504) and divide the gradients by S before the update: then {} round to zero.",
             scale.exponent,
             compact(scale.scale),
             compact(scale.max_abs),
-            100.0 * scale.underflow_scaled
+            crate::format::percent(scale.underflow_scaled)
         )
     } else {
         format!(

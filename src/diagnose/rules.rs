@@ -30,11 +30,21 @@ pub enum Rule {
     Exploding,
     /// A node whose contributions to non-leaf inputs are far larger or smaller than its adjoint.
     Gain,
+    /// A recorded forward value that its op, recomputed from the recorded
+    /// inputs under the precision model, does not give within tolerance.
+    ForwardMismatch,
+    /// A sigmoid or tanh node with too many units whose derivative is nearly 0.
+    Saturated,
+    /// A ReLU node with too many units that are 0 for every row of the batch.
+    DeadRelu,
+    /// Activations (forward values) that grow or shrink too much from the
+    /// group nearest the inputs to another group.
+    ActivationGrowth,
 }
 
 impl Rule {
     /// Every rule, in report order.
-    pub const ALL: [Rule; 7] = [
+    pub const ALL: [Rule; 11] = [
         Rule::NonFinite,
         Rule::Overflow,
         Rule::NearOverflow,
@@ -42,6 +52,10 @@ impl Rule {
         Rule::Vanishing,
         Rule::Exploding,
         Rule::Gain,
+        Rule::ForwardMismatch,
+        Rule::Saturated,
+        Rule::DeadRelu,
+        Rule::ActivationGrowth,
     ];
 
     /// The rule's name in settings and JSON.
@@ -54,7 +68,41 @@ impl Rule {
             Rule::Vanishing => "vanishing",
             Rule::Exploding => "exploding",
             Rule::Gain => "gain",
+            Rule::ForwardMismatch => "forward_mismatch",
+            Rule::Saturated => "saturated",
+            Rule::DeadRelu => "dead_relu",
+            Rule::ActivationGrowth => "activation_growth",
         }
+    }
+
+    /// The rule by its name in settings and JSON.
+    pub fn from_name(name: &str) -> Option<Rule> {
+        Rule::ALL.into_iter().find(|rule| rule.name() == name)
+    }
+
+    /// A short label for people: "non-finite", "dead ReLU", …
+    pub fn label(self) -> &'static str {
+        match self {
+            Rule::NonFinite => "non-finite",
+            Rule::Overflow => "overflow",
+            Rule::NearOverflow => "near overflow",
+            Rule::Underflow => "underflow",
+            Rule::Vanishing => "vanishing",
+            Rule::Exploding => "exploding",
+            Rule::Gain => "gain",
+            Rule::ForwardMismatch => "forward mismatch",
+            Rule::Saturated => "saturated",
+            Rule::DeadRelu => "dead ReLU",
+            Rule::ActivationGrowth => "activation growth",
+        }
+    }
+
+    /// True for the rules read from the forward values alone (no sweep).
+    pub fn is_forward(self) -> bool {
+        matches!(
+            self,
+            Rule::ForwardMismatch | Rule::Saturated | Rule::DeadRelu | Rule::ActivationGrowth
+        )
     }
 }
 
@@ -100,6 +148,14 @@ pub enum Measure {
     NormToMedian,
     /// Outgoing contributions' norm divided by the adjoint's norm.
     Gain,
+    /// |recorded − recomputed| forward value (`threshold`: that element's tolerance).
+    ForwardError,
+    /// The fraction of a node's units that are saturated.
+    SaturatedFraction,
+    /// The fraction of a ReLU node's units that are dead for the whole batch.
+    DeadFraction,
+    /// A group's activation RMS over that of the group nearest the inputs.
+    RmsToDeepest,
 }
 
 /// One number a rule measured at a node: where, what, against which threshold.
@@ -242,6 +298,18 @@ impl Finding {
             (Rule::Gain, _) => {
                 format!("passes on {value} times its adjoint's norm (threshold {threshold})")
             }
+            (Rule::ForwardMismatch, _) => {
+                format!("{place} is off by {value} from what its op gives (tolerance {threshold})")
+            }
+            (Rule::Saturated, _) => {
+                format!("a fraction {value} of its units is saturated (threshold {threshold})")
+            }
+            (Rule::DeadRelu, _) => {
+                format!("a fraction {value} of its units is 0 in every row (threshold {threshold})")
+            }
+            (Rule::ActivationGrowth, _) => format!(
+                "its group's activation RMS is {value} times the input side's (threshold {threshold})"
+            ),
         };
         let many = if self.count > 1 {
             format!(" ({} elements, first at {})", self.count, self.element)

@@ -128,7 +128,17 @@ settings! {
     lost_fraction: f64 = 0.5,
     /// The threshold of the gradient-clipping preview (global L2 norm).
     clip_norm: f64 = 1.0,
-    /// Rules to turn off, by name: non_finite, overflow, near_overflow, underflow, vanishing, exploding, gain.
+    /// Multiplies the forward consistency check's dtype-derived tolerance (traces/FORMAT.md, "Forward consistency").
+    forward_slack: f64 = 1.0,
+    /// A sigmoid or tanh unit is saturated where its derivative is below this fraction of its peak (1/4 for sigmoid, 1 for tanh).
+    saturated_below: f64 = 0.01,
+    /// Flag a sigmoid or tanh node when at least this fraction of its units is saturated.
+    saturated_fraction: f64 = 0.1,
+    /// Flag a ReLU node when at least this fraction of its units is 0 for every row of the batch.
+    dead_fraction: f64 = 0.25,
+    /// Flag activations whose RMS grows or shrinks by more than this factor from the group nearest the inputs.
+    activation_growth: f64 = 1e3,
+    /// Rules to turn off, by name: non_finite, overflow, near_overflow, underflow, vanishing, exploding, gain, forward_mismatch, saturated, dead_relu, activation_growth.
     off: Vec<super::rules::Rule> = Vec::new(),
 }
 
@@ -218,6 +228,29 @@ impl Settings {
             .find(|(_, value)| !(*value > 0.0 && value.is_finite()))
         {
             return Err(range(name, value, "must be a finite number above 0"));
+        }
+        for (name, value) in [
+            ("saturated_below", self.saturated_below),
+            ("saturated_fraction", self.saturated_fraction),
+            ("dead_fraction", self.dead_fraction),
+        ] {
+            if !(value > 0.0 && value <= 1.0) {
+                return Err(range(name, value, "must be in (0, 1]"));
+            }
+        }
+        if !(self.forward_slack > 0.0 && self.forward_slack.is_finite()) {
+            return Err(range(
+                "forward_slack",
+                self.forward_slack,
+                "must be a finite number above 0",
+            ));
+        }
+        if !(self.activation_growth > 1.0 && self.activation_growth.is_finite()) {
+            return Err(range(
+                "activation_growth",
+                self.activation_growth,
+                "must be a finite factor above 1",
+            ));
         }
         if !(self.lost_fraction > 0.0 && self.lost_fraction <= 1.0) {
             return Err(range(

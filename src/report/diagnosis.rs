@@ -52,6 +52,14 @@ pub struct DiagnosisReport {
     pub dominant_paths: Vec<PathEntry>,
     /// Per-group adjoint norms, shallowest first.
     pub groups: Vec<GroupEntry>,
+    /// Forward consistency: recorded values against the op table's.
+    pub forward: ForwardEntry,
+    /// Sigmoid and tanh nodes with saturated units.
+    pub saturation: Vec<SaturationEntry>,
+    /// ReLU nodes with units dead for the whole batch.
+    pub dead_units: Vec<DeadEntry>,
+    /// The group whose activations are furthest from the input side's.
+    pub activation_spread: Option<SpreadEntry>,
     /// One entry per replay dtype.
     pub replay: Vec<ReplayEntry>,
     /// Loss-scale advice for f16.
@@ -262,6 +270,92 @@ pub struct GroupEntry {
     pub param_norm: Option<Num>,
     /// Over the previous group's adjoint norm.
     pub ratio: Option<Num>,
+    /// L2 norm of the group's activations (non-leaf forward values with more
+    /// than one element, the output excepted).
+    pub value_norm: Option<Num>,
+    /// Their root mean square.
+    pub value_rms: Option<Num>,
+}
+
+/// The forward consistency check.
+#[derive(Debug, Clone, Serialize)]
+pub struct ForwardEntry {
+    /// Catalog nodes recomputed.
+    pub checked: usize,
+    /// Custom nodes (no forward rule).
+    pub custom: usize,
+    /// Nodes beyond tolerance.
+    pub mismatches: Vec<MismatchEntry>,
+}
+
+/// One node whose recorded forward value disagrees with its op.
+#[derive(Debug, Clone, Serialize)]
+pub struct MismatchEntry {
+    /// Node id.
+    pub node: String,
+    /// Its op.
+    pub op: String,
+    /// 1-based step.
+    pub step: usize,
+    /// The element furthest beyond tolerance.
+    pub element: usize,
+    /// Its recorded value.
+    pub recorded: Num,
+    /// The op table's value.
+    pub recomputed: Num,
+    /// Its tolerance.
+    pub tolerance: Num,
+    /// Elements beyond tolerance.
+    pub count: usize,
+}
+
+/// A sigmoid or tanh node with saturated units.
+#[derive(Debug, Clone, Serialize)]
+pub struct SaturationEntry {
+    /// Node id.
+    pub node: String,
+    /// Its op.
+    pub op: String,
+    /// 1-based step.
+    pub step: usize,
+    /// Saturated units.
+    pub saturated: usize,
+    /// All units.
+    pub units: usize,
+    /// The most saturated unit.
+    pub element: usize,
+    /// Its input.
+    pub input: Num,
+    /// Its derivative over the peak derivative.
+    pub relative_derivative: Num,
+}
+
+/// A ReLU node with dead units.
+#[derive(Debug, Clone, Serialize)]
+pub struct DeadEntry {
+    /// Node id.
+    pub node: String,
+    /// 1-based step.
+    pub step: usize,
+    /// Units 0 in every row.
+    pub dead: usize,
+    /// All units.
+    pub units: usize,
+    /// Rows of the batch.
+    pub rows: usize,
+    /// The first dead unit.
+    pub first: usize,
+}
+
+/// The group whose activations are furthest from the input side's.
+#[derive(Debug, Clone, Serialize)]
+pub struct SpreadEntry {
+    /// That group.
+    pub group: String,
+    /// Its activation RMS over the input side's.
+    pub ratio: Num,
+    /// The group nearest the inputs.
+    pub deepest: String,
 }
 
 /// One lost contribution.
@@ -511,8 +605,63 @@ impl DiagnosisReport {
                 adjoint_norm: Num(group.adjoint_norm),
                 param_norm: group.param_norm.map(Num),
                 ratio: group.ratio.map(Num),
+                value_norm: group.value_norm.map(Num),
+                value_rms: group.value_rms.map(Num),
             })
             .collect();
+        let forward = ForwardEntry {
+            checked: diagnosis.forward.checked,
+            custom: diagnosis.forward.custom,
+            mismatches: diagnosis
+                .forward
+                .mismatches
+                .iter()
+                .map(|m| MismatchEntry {
+                    node: id(m.node),
+                    op: trace.node(m.node).op_name.clone(),
+                    step: m.step + 1,
+                    element: m.element,
+                    recorded: Num(m.recorded),
+                    recomputed: Num(m.recomputed),
+                    tolerance: Num(m.tolerance),
+                    count: m.count,
+                })
+                .collect(),
+        };
+        let saturation = diagnosis
+            .saturation
+            .iter()
+            .map(|found| SaturationEntry {
+                node: id(found.node),
+                op: trace.node(found.node).op_name.clone(),
+                step: found.step + 1,
+                saturated: found.saturated,
+                units: found.units,
+                element: found.element,
+                input: Num(found.input),
+                relative_derivative: Num(found.relative_derivative),
+            })
+            .collect();
+        let dead_units = diagnosis
+            .dead
+            .iter()
+            .map(|found| DeadEntry {
+                node: id(found.node),
+                step: found.step + 1,
+                dead: found.dead,
+                units: found.units,
+                rows: found.rows,
+                first: found.first,
+            })
+            .collect();
+        let activation_spread =
+            diagnosis
+                .activation_spread
+                .map(|(at, ratio, deepest)| SpreadEntry {
+                    group: diagnosis.groups[at].group.clone(),
+                    ratio: Num(ratio),
+                    deepest: diagnosis.groups[deepest].group.clone(),
+                });
         let replay = diagnosis
             .replays
             .iter()
@@ -608,6 +757,10 @@ impl DiagnosisReport {
                 .collect(),
             dominant_paths,
             groups,
+            forward,
+            saturation,
+            dead_units,
+            activation_spread,
             replay,
             loss_scale: diagnosis.loss_scale,
             clipping: ClipEntry {
@@ -712,17 +865,18 @@ impl DiagnosisReport {
         }
         out.push_str(&self.paths_text());
         out.push_str(&self.groups_text());
+        out.push_str(&self.forward_text());
         out.push_str(&self.replay_text());
         if let Some(scale) = &self.loss_scale {
             let _ = writeln!(
                 out,
-                "loss scale (f16)  S = 2^{} = {}; max |adjoint| {}; {:.1}% of {} non-zero entries round to zero unscaled, {:.1}% at S",
+                "loss scale (f16)  S = 2^{} = {}; max |adjoint| {}; {} of {} non-zero entries round to zero unscaled, {} at S",
                 scale.exponent,
                 compact(scale.scale),
                 compact(scale.max_abs),
-                100.0 * scale.underflow_unscaled,
+                crate::format::percent(scale.underflow_unscaled),
                 scale.nonzero,
-                100.0 * scale.underflow_scaled
+                crate::format::percent(scale.underflow_scaled)
             );
         }
         let clip = &self.clipping;
@@ -800,8 +954,8 @@ impl DiagnosisReport {
         let mut out = String::from("groups  by depth from the output\n");
         let _ = writeln!(
             out,
-            "  {:<24} {:>5} {:>6} {:>13} {:>13} {:>11}",
-            "group", "depth", "nodes", "adjoint norm", "param norm", "ratio"
+            "  {:<24} {:>5} {:>6} {:>13} {:>13} {:>11} {:>14}",
+            "group", "depth", "nodes", "adjoint norm", "param norm", "ratio", "activation rms"
         );
         for group in &self.groups {
             let name = if group.group.is_empty() {
@@ -811,7 +965,7 @@ impl DiagnosisReport {
             };
             let _ = writeln!(
                 out,
-                "  {:<24} {:>5} {:>6} {:>13} {:>13} {:>11}",
+                "  {:<24} {:>5} {:>6} {:>13} {:>13} {:>11} {:>14}",
                 name,
                 group.depth,
                 group.nodes,
@@ -821,7 +975,82 @@ impl DiagnosisReport {
                     .map_or("—".to_string(), |norm| compact(norm.0)),
                 group
                     .ratio
-                    .map_or("—".to_string(), |ratio| compact(ratio.0))
+                    .map_or("—".to_string(), |ratio| compact(ratio.0)),
+                group
+                    .value_rms
+                    .map_or("—".to_string(), |rms| compact(rms.0))
+            );
+        }
+        out
+    }
+
+    /// Forward consistency and forward health.
+    fn forward_text(&self) -> String {
+        let mut out = String::new();
+        let forward = &self.forward;
+        let custom = if forward.custom > 0 {
+            format!(
+                "; {} custom {} not recomputed (no forward rule)",
+                forward.custom,
+                if forward.custom == 1 { "node" } else { "nodes" }
+            )
+        } else {
+            String::new()
+        };
+        let _ = writeln!(
+            out,
+            "forward  {} catalog nodes recomputed from their recorded inputs under the precision model{custom}: {}",
+            forward.checked,
+            match forward.mismatches.len() {
+                0 => "every value agrees within its dtype's tolerance".to_string(),
+                n => format!("{n} disagree"),
+            }
+        );
+        for m in &forward.mismatches {
+            let many = if m.count > 1 {
+                format!(", {} elements beyond tolerance", m.count)
+            } else {
+                String::new()
+            };
+            let _ = writeln!(
+                out,
+                "  step {:<5} '{}' ({}) recorded {} where the op gives {} (element {}; tolerance {}{many})",
+                m.step,
+                m.node,
+                m.op,
+                crate::format::number(m.recorded.0),
+                crate::format::number(m.recomputed.0),
+                m.element,
+                compact(m.tolerance.0)
+            );
+        }
+        for found in &self.saturation {
+            let _ = writeln!(
+                out,
+                "  saturated  '{}' ({}): {} of {} units, the most at element {} (input {}, derivative {} of its peak)",
+                found.node,
+                found.op,
+                found.saturated,
+                found.units,
+                found.element,
+                compact(found.input.0),
+                compact(found.relative_derivative.0)
+            );
+        }
+        for found in &self.dead_units {
+            let _ = writeln!(
+                out,
+                "  dead ReLU  '{}': {} of {} units are 0 in all {} rows (first unit {})",
+                found.node, found.dead, found.units, found.rows, found.first
+            );
+        }
+        if let Some(spread) = &self.activation_spread {
+            let _ = writeln!(
+                out,
+                "  activations  '{}' has {} times the activation RMS of '{}', the group nearest the inputs",
+                spread.group,
+                compact(spread.ratio.0),
+                spread.deepest
             );
         }
         out
@@ -914,6 +1143,10 @@ fn measure_name(measure: Measure) -> &'static str {
         Measure::NormToSeed => "norm/seed",
         Measure::NormToMedian => "norm/median",
         Measure::Gain => "gain",
+        Measure::ForwardError => "|recorded − recomputed|",
+        Measure::SaturatedFraction => "saturated fraction",
+        Measure::DeadFraction => "dead fraction",
+        Measure::RmsToDeepest => "activation RMS / the input side's",
     }
 }
 

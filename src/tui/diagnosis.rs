@@ -161,17 +161,7 @@ impl Diagnoses {
 
 /// A rule's name as the Flags pane writes it.
 pub fn rule_label(rule: Rule) -> &'static str {
-    match rule {
-        Rule::NonFinite => "non-finite",
-        Rule::Overflow => "overflow",
-        Rule::NearOverflow => "near overflow",
-        Rule::Underflow => "underflow",
-        Rule::Vanishing => "vanishing",
-        Rule::Exploding => "exploding",
-        Rule::Gain => "gain",
-        #[allow(unreachable_patterns)]
-        other => other.name(),
-    }
+    rule.label()
 }
 
 /// A finding's number against its threshold, short: `‖·‖ 2.24e8 > 1e4`.
@@ -186,9 +176,14 @@ pub fn value_against_threshold(finding: &Finding) -> String {
         Measure::NormToSeed => "‖·‖/seed ",
         Measure::NormToMedian => "‖·‖/median ",
         Measure::Gain => "",
+        Measure::ForwardError => "|recorded − op| ",
+        Measure::SaturatedFraction => "saturated ",
+        Measure::DeadFraction => "dead ",
+        Measure::RmsToDeepest => "rms/inputs' ",
     };
     let small = match finding.rule {
         Rule::Underflow | Rule::Vanishing => true,
+        Rule::ActivationGrowth => finding.value < 1.0,
         Rule::Gain => finding.value.abs() < finding.threshold,
         _ => false,
     };

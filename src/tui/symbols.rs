@@ -74,12 +74,12 @@ pub const ORIGIN: &str = "◆";
 /// Whether a finding is about a number too large (else too small, or non-finite).
 fn is_large(finding: &Finding) -> bool {
     match finding.rule {
-        Rule::Overflow | Rule::NearOverflow | Rule::Exploding => true,
+        Rule::Overflow | Rule::NearOverflow | Rule::Exploding | Rule::ForwardMismatch => true,
         Rule::Gain => finding.measure == Measure::Gain && finding.value >= finding.threshold,
-        Rule::NonFinite | Rule::Underflow | Rule::Vanishing => false,
-        // Rules added to the library later read as neither.
-        #[allow(unreachable_patterns)]
-        _ => false,
+        Rule::ActivationGrowth => finding.value >= 1.0,
+        Rule::NonFinite | Rule::Underflow | Rule::Vanishing | Rule::Saturated | Rule::DeadRelu => {
+            false
+        }
     }
 }
 
@@ -95,8 +95,10 @@ pub fn finding_symbol(finding: &Finding) -> &'static str {
         Rule::Exploding => "↑",
         Rule::Gain if is_large(finding) => "≫",
         Rule::Gain => "≪",
-        #[allow(unreachable_patterns)]
-        _ => "•",
+        Rule::ForwardMismatch => "≉",
+        Rule::Saturated => "⊓",
+        Rule::DeadRelu => "∅",
+        Rule::ActivationGrowth => "⇕",
     }
 }
 
