@@ -492,9 +492,8 @@ fn open_with_settings_uses_their_thresholds() {
 #[test]
 fn flags_lists_forward_health_findings() {
     let trace = demo("nan_hunt.ron");
-    let copies = Retyped::new(&trace);
-    let mut app = open(&trace, &copies);
-    app.update(Action::Focus(PaneId::Flags));
+    let mut app = open(&trace);
+    app.update(Action::Focus(pane("Flags")));
     app.update(Action::Zoom);
     let buf = draw(&mut app, 200, 50);
     let row = row_with(&buf, "⊓ step");
