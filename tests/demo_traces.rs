@@ -266,3 +266,66 @@ fn ebb_check_gives_each_demo_its_expected_status() {
         }
     }
 }
+
+#[test]
+fn dropout_is_a_multiply_by_its_recorded_mask() {
+    let trace = open("dropout.ron");
+    let sweep = swept(&trace);
+    let mask = trace
+        .node(trace.find("dropout.mask").unwrap())
+        .value
+        .to_f64()
+        .into_owned();
+    let keep = 1.0 / (1.0 - demos::DROP);
+    assert!(
+        mask.iter()
+            .all(|&m| m == 0.0 || m == ebb::dtype::Dtype::F32.round(keep))
+    );
+    assert!(mask.contains(&0.0), "some unit is dropped");
+    // d(a·m)/da = m (the product rule): a dropped unit passes back nothing,
+    // a kept one its adjoint times 1/(1 − p), rounded into f32.
+    let after = gradient(&trace, &sweep, "hidden.dropped");
+    let before = gradient(&trace, &sweep, "hidden.relu");
+    for ((&m, &a), &b) in mask.iter().zip(&after).zip(&before) {
+        assert_eq!(b, ebb::dtype::Dtype::F32.round(a * m));
+    }
+    let verification = ebb::verify::verify(&trace, &ebb::verify::VerifyOptions::default());
+    assert!(verification.agrees());
+}
+
+#[test]
+fn causal_attention_gives_masked_places_no_weight_and_no_adjoint() {
+    let trace = open("attention.ron");
+    let sweep = swept(&trace);
+    assert!(sweep.flags().is_empty(), "the fill is finite: no flags");
+    let weights = trace
+        .node(trace.find("weights").unwrap())
+        .value
+        .to_f64()
+        .into_owned();
+    let tokens = 4;
+    for row in 0..tokens {
+        for col in 0..tokens {
+            let w = weights[row * tokens + col];
+            if col > row {
+                // exp(−1e9 − max) underflows to exactly 0 (IEEE 754: the
+                // result is below the smallest subnormal).
+                assert_eq!(w, 0.0, "a later note gets no weight");
+            } else {
+                assert!(w > 0.0);
+            }
+        }
+        let total: f64 = weights[row * tokens..(row + 1) * tokens].iter().sum();
+        assert!((total - 1.0).abs() < 1e-6);
+    }
+    // Softmax's pull-back is y ⊙ (ḡ − Σ ḡ y): zero where y is zero, so the
+    // masked scores receive nothing.
+    let scores = gradient(&trace, &sweep, "scores");
+    for row in 0..tokens {
+        for col in row + 1..tokens {
+            assert_eq!(scores[row * tokens + col], 0.0);
+        }
+    }
+    let verification = ebb::verify::verify(&trace, &ebb::verify::VerifyOptions::default());
+    assert!(verification.agrees());
+}

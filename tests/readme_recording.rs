@@ -15,7 +15,7 @@ fn readme_example_runs() -> Result<(), Box<dyn Error>> {
     // One training step of a 2-4-1 network that predicts how many litres a
     // plant needs from soil dryness and hours of sun, computed in f32.
     let mut tape = Tape::new("watering: one step of a 2-4-1 network", Dtype::F32);
-    tape.describe("Litres of water from soil dryness and sunshine; a tanh layer, a softplus output, mean squared error.");
+    tape.describe("Litres of water from soil dryness and sunshine; a tanh layer, a squareplus output, mean squared error.");
     let readings = tape.input(
         "readings",
         Value::from_parts(vec![3, 2], vec![0.2, 0.9, 0.7, 0.4, 0.5, 0.5]),
@@ -43,17 +43,17 @@ fn readme_example_runs() -> Result<(), Box<dyn Error>> {
                 Value::from_parts(vec![4, 1], vec![0.9, -0.4, 0.6, 0.3]),
             );
             let z = tape.matmul(hidden, w);
-            // softplus is not in the catalog: record it as a custom op with our
-            // own forward value ln(1 + eᶻ) and its partial σ(z) on the input edge.
+            // squareplus, (z + √(z² + 4))/2, is not in the catalog: record it as a
+            // custom op with our own forward value and its partial on the input edge.
             let zs = tape.value(z).clone();
-            let value = zs.map(|x| (1.0 + x.exp()).ln());
+            let value = zs.map(|x| (x + (x * x + 4.0).sqrt()) / 2.0);
             let partial = zs
                 .to_f64()
                 .iter()
-                .map(|x| 1.0 / (1.0 + (-x).exp()))
+                .map(|x| (1.0 + x / (x * x + 4.0).sqrt()) / 2.0)
                 .collect();
             tape.custom(
-                "softplus",
+                "squareplus",
                 &[z],
                 value,
                 vec![PartialRepr::Diagonal(partial)],

@@ -11,7 +11,7 @@ use anyhow::{Context, Result};
 use clap::CommandFactory;
 use ebb::diagnose::{Settings, diagnose};
 use ebb::listing::list_steps;
-use ebb::ops::{CATALOG, Rule};
+use ebb::ops::CATALOG;
 use ebb::report::Report;
 use ebb::sweep::{LedgerMode, Sweep};
 use ebb::trace::{self, Encoding, LoadError, Trace};
@@ -282,29 +282,26 @@ fn verify_command(
 }
 
 fn ops(out: &mut dyn Write) -> Result<Outcome> {
-    let mut text =
-        String::from("op             inputs  attributes     derivative  what it computes\n");
+    let mut text = String::from(
+        "op               inputs     required       what it computes\n                 ∂ how the adjoint reaches the inputs\n",
+    );
     for row in CATALOG {
         let required: Vec<&str> = row.required.iter().map(|attr| attr.as_str()).collect();
-        let derivative = match row.rule {
-            Rule::Leaf => "—",
-            Rule::Unary(_) | Rule::Binary(_) => "diagonal",
-            Rule::Structured(_) => "vjp rule",
-            Rule::Custom => "recorded",
-        };
         text.push_str(&format!(
-            "{:<14} {:<7} {:<14} {:<11} {}\n",
+            "{:<16} {:<10} {:<14} {}\n{:<16} ∂ {}\n",
             row.name,
             row.arity
                 .to_string()
                 .replace(" inputs", "")
                 .replace(" input", ""),
             required.join(", "),
-            derivative,
-            row.summary
+            row.summary,
+            "",
+            row.derivative
         ));
     }
     text.push_str("any other name: a custom op; it must record a partial on every input edge\n");
+    text.push_str("attributes, defaults and index tensors: traces/FORMAT.md, \"Ops\"\n");
     out.write_all(text.as_bytes())
         .context("writing the catalog")?;
     Ok(Outcome::Clean)

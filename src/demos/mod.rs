@@ -82,6 +82,8 @@ pub fn all() -> Vec<(&'static str, TraceFile)> {
         ("exploding.ron", exploding()),
         ("underflow_f16.ron", underflow()),
         ("wrong_partial.ron", wrong_partial()),
+        ("dropout.ron", dropout()),
+        ("attention.ron", attention()),
         ("medium.tape", medium()),
     ]
 }
@@ -118,3 +120,10 @@ fn dense(
     let sum = tape.add(product, b);
     tape.rename(sum, &format!("{prefix}.pre"))
 }
+
+// Declared here, after the teaching demo, so that adding a scenario does not
+// move the teaching demo's recorded sites (traces/teaching.ron).
+mod attention;
+mod dropout;
+pub use attention::attention;
+pub use dropout::{DROP, dropout};

@@ -33,9 +33,103 @@ pub struct Attrs {
     /// Axis permutation of `transpose` (default: swap the last two axes).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub perm: Option<Vec<usize>>,
-    /// Target shape of `reshape`.
+    /// Target shape of `reshape` and `broadcast_to`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub shape: Option<Vec<usize>>,
+    /// Lower bound of `clamp`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub min: Option<f64>,
+    /// Upper bound of `clamp`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub max: Option<f64>,
+    /// Which form of `gelu`: exact (default) or the tanh approximation.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub approximate: Option<Approximate>,
+    /// β of `softplus` (default 1).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub beta: Option<f64>,
+    /// Threshold of `softplus` above which βx is returned as x (default 20).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub threshold: Option<f64>,
+    /// Scale of the negative branch of `elu` (default 1).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub alpha: Option<f64>,
+    /// First index of `slice` (Python's rules; default: the start of the walk).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub start: Option<i64>,
+    /// End of `slice`, exclusive (Python's rules; default: the end of the walk).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub end: Option<i64>,
+    /// Step of `slice` (default 1; negative walks backwards).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub step: Option<i64>,
+    /// Position of `select` along its axis.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub index: Option<i64>,
+    /// Counts of `pad`: every axis's start, then every axis's end.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub pads: Option<Vec<i64>>,
+    /// Padding value of `pad` (default 0).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub value: Option<f64>,
+    /// The row of `embedding` that receives no gradient.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub padding_idx: Option<i64>,
+    /// Subtracted from the count in the divisor of `var` and `std` (default 1).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub correction: Option<f64>,
+    /// Steps of a convolution or pooling window, per spatial axis or one for all.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub stride: Option<Vec<usize>>,
+    /// Zero (pooling: −∞) padding on both sides, per spatial axis or one for all.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub padding: Option<Vec<usize>>,
+    /// Spacing of kernel taps, per spatial axis or one for all.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub dilation: Option<Vec<usize>>,
+    /// Channel groups of a convolution or of `group_norm`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub groups: Option<usize>,
+    /// Window size of pooling, per spatial axis or one for all.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub kernel: Option<Vec<usize>>,
+    /// Whether `avg_pool2d` counts padding in its divisor (default true).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub count_include_pad: Option<bool>,
+    /// Added to the variance (or mean square) of a normalisation.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub eps: Option<f64>,
+    /// How a loss combines its per-element terms (default mean).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub reduction: Option<Reduction>,
+    /// A target of `nll_loss` that contributes nothing (default −100).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub ignore_index: Option<i64>,
+    /// Where `huber` turns from quadratic to linear (default 1).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub delta: Option<f64>,
+}
+
+/// The form of `gelu`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Approximate {
+    /// x Φ(x), with the normal distribution's Φ from erf.
+    None,
+    /// 0.5 x (1 + tanh(√(2/π) (x + 0.044715 x³))).
+    Tanh,
+}
+
+/// How a loss combines its per-element terms.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Reduction {
+    /// The mean (for `nll_loss`, over the targets not ignored).
+    Mean,
+    /// The sum.
+    Sum,
+    /// No reduction: one loss per element (per row for `nll_loss`).
+    None,
 }
 
 /// Names an attribute, for the catalog's list of required ones.
@@ -51,6 +145,14 @@ pub enum AttrName {
     Targets,
     /// [`Attrs::shape`]
     Shape,
+    /// [`Attrs::index`]
+    Index,
+    /// [`Attrs::pads`]
+    Pads,
+    /// [`Attrs::kernel`]
+    Kernel,
+    /// [`Attrs::groups`]
+    Groups,
 }
 
 impl AttrName {
@@ -62,6 +164,10 @@ impl AttrName {
             AttrName::Slope => "slope",
             AttrName::Targets => "targets",
             AttrName::Shape => "shape",
+            AttrName::Index => "index",
+            AttrName::Pads => "pads",
+            AttrName::Kernel => "kernel",
+            AttrName::Groups => "groups",
         }
     }
 
@@ -73,6 +179,10 @@ impl AttrName {
             AttrName::Slope => attrs.slope.is_some(),
             AttrName::Targets => attrs.targets.is_some(),
             AttrName::Shape => attrs.shape.is_some(),
+            AttrName::Index => attrs.index.is_some(),
+            AttrName::Pads => attrs.pads.is_some(),
+            AttrName::Kernel => attrs.kernel.is_some(),
+            AttrName::Groups => attrs.groups.is_some(),
         }
     }
 }

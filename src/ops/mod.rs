@@ -2,16 +2,26 @@
 //! derivative rule. This is the single place where an op's derivative is
 //! written; the sweep engine, the recorder and the checks all call through it.
 
+mod activation;
 mod attrs;
 mod cast;
+mod condition;
+mod conv;
 mod elementwise;
+mod index;
 pub mod kernels;
 mod linalg;
 mod loss;
+mod losses;
+mod moments;
+mod norm;
+mod pool;
 mod precision;
 mod reduce;
+mod scan;
+mod shape;
 
-pub use attrs::{AttrName, Attrs};
+pub use attrs::{Approximate, AttrName, Attrs, Reduction};
 pub use precision::Precision;
 
 use crate::dtype::Dtype;
@@ -30,6 +40,10 @@ pub enum Op {
     Sub,
     Mul,
     Div,
+    Maximum,
+    Minimum,
+    Powt,
+    Where,
     Neg,
     Pow,
     Exp,
@@ -38,22 +52,59 @@ pub enum Op {
     Abs,
     Sin,
     Cos,
+    Tan,
     Tanh,
     Sigmoid,
     Relu,
     LeakyRelu,
+    Square,
+    Reciprocal,
+    Rsqrt,
+    Log1p,
+    Expm1,
+    Erf,
+    Clamp,
+    Gelu,
+    Silu,
+    Softplus,
+    Elu,
     Matmul,
     Transpose,
     Reshape,
     Cast,
+    BroadcastTo,
+    Concat,
+    Stack,
+    Slice,
+    Select,
+    Pad,
+    Gather,
+    Embedding,
     Sum,
     Mean,
     Max,
+    Min,
+    Prod,
+    Var,
+    Std,
+    Cumsum,
     Softmax,
     LogSoftmax,
     Logsumexp,
+    Conv1d,
+    Conv2d,
+    MaxPool2d,
+    AvgPool2d,
+    LayerNorm,
+    RmsNorm,
+    BatchNorm,
+    GroupNorm,
     CrossEntropy,
     Mse,
+    NllLoss,
+    BceWithLogits,
+    Huber,
+    L1Loss,
     /// An op outside the catalog; its node names it and records every partial.
     Custom,
 }
@@ -65,6 +116,8 @@ pub enum Arity {
     Exactly(usize),
     /// Any number, at least this many.
     AtLeast(usize),
+    /// From the first to the second, inclusive (trailing inputs optional).
+    Between(usize, usize),
 }
 
 impl Arity {
@@ -73,6 +126,7 @@ impl Arity {
         match self {
             Arity::Exactly(k) => n == k,
             Arity::AtLeast(k) => n >= k,
+            Arity::Between(low, high) => (low..=high).contains(&n),
         }
     }
 }
@@ -83,6 +137,7 @@ impl std::fmt::Display for Arity {
             Arity::Exactly(1) => write!(f, "1 input"),
             Arity::Exactly(k) => write!(f, "{k} inputs"),
             Arity::AtLeast(k) => write!(f, "at least {k} inputs"),
+            Arity::Between(low, high) => write!(f, "{low} to {high} inputs"),
         }
     }
 }
@@ -184,6 +239,10 @@ pub struct OpSpec {
     pub derivative: &'static str,
     /// Forward and derivative rules.
     pub rule: Rule,
+    /// Input slots that carry indices or a condition: whole numbers (0 or 1
+    /// for a condition) checked on loading, never differentiated (they
+    /// receive a zero contribution) and never rounded into another dtype.
+    pub discrete: &'static [usize],
 }
 
 /// The catalog, in the order help lists it.
@@ -206,6 +265,37 @@ pub static CATALOG: &[OpSpec] = &[
         .says("each input receives adjoint × the other input"),
     binary(Op::Div, "div", "a / b, broadcast", &elementwise::DIV)
         .says("a receives adjoint / b, b receives −adjoint × a / b²"),
+    binary(
+        Op::Maximum,
+        "maximum",
+        "max(a, b), broadcast; NaN propagates",
+        &activation::MAXIMUM,
+    )
+    .says("a receives the adjoint where a > b, b where b > a; at a tie each receives half"),
+    binary(
+        Op::Minimum,
+        "minimum",
+        "min(a, b), broadcast; NaN propagates",
+        &activation::MINIMUM,
+    )
+    .says("a receives the adjoint where a < b, b where b < a; at a tie each receives half"),
+    binary(
+        Op::Powt,
+        "powt",
+        "aᵇ with a tensor exponent, broadcast",
+        &activation::POWT,
+    )
+    .says("a receives adjoint × b·a^(b−1), b receives adjoint × aᵇ·ln a"),
+    structured(
+        Op::Where,
+        "where",
+        3,
+        &[],
+        "a where condition is 1, b where it is 0 (condition, a, b broadcast)",
+        &condition::WHERE,
+    )
+    .indexed_by(&[0])
+    .says("a receives the adjoint where the condition is 1, b where it is 0; the condition 0"),
     unary(Op::Neg, "neg", "−x", &elementwise::NEG, &[]).says("the input receives −adjoint"),
     unary(
         Op::Pow,
@@ -233,6 +323,8 @@ pub static CATALOG: &[OpSpec] = &[
         .says("the input receives adjoint × cos x"),
     unary(Op::Cos, "cos", "cosine", &elementwise::COS, &[])
         .says("the input receives adjoint × −sin x"),
+    unary(Op::Tan, "tan", "tangent", &activation::TAN, &[])
+        .says("the input receives adjoint × (1 + tan² x)"),
     unary(
         Op::Tanh,
         "tanh",
@@ -265,6 +357,52 @@ pub static CATALOG: &[OpSpec] = &[
         &[AttrName::Slope],
     )
     .says("the input receives the adjoint where x > 0, else adjoint × slope"),
+    unary(Op::Square, "square", "x²", &activation::SQUARE, &[])
+        .says("the input receives adjoint × 2x"),
+    unary(Op::Reciprocal, "reciprocal", "1/x", &activation::RECIPROCAL, &[])
+        .says("the input receives adjoint × −1/x²"),
+    unary(Op::Rsqrt, "rsqrt", "1/√x", &activation::RSQRT, &[])
+        .says("the input receives adjoint × −½ x^(−3/2)"),
+    unary(Op::Log1p, "log1p", "ln(1 + x), exact near 0", &activation::LOG1P, &[])
+        .says("the input receives adjoint / (1 + x)"),
+    unary(Op::Expm1, "expm1", "eˣ − 1, exact near 0", &activation::EXPM1, &[])
+        .says("the input receives adjoint × eˣ"),
+    unary(Op::Erf, "erf", "the error function", &activation::ERF, &[])
+        .says("the input receives adjoint × (2/√π) e^(−x²)"),
+    unary(
+        Op::Clamp,
+        "clamp",
+        "x held within [min, max] (either bound optional)",
+        &activation::CLAMP,
+        &[],
+    )
+    .says("the input receives the adjoint where min ≤ x ≤ max (bounds included), else 0"),
+    unary(
+        Op::Gelu,
+        "gelu",
+        "x Φ(x), or its tanh form (approximate: tanh)",
+        &activation::GELU,
+        &[],
+    )
+    .says("the input receives adjoint × (Φ(x) + x φ(x)), or the tanh form's derivative"),
+    unary(Op::Silu, "silu", "x σ(x)", &activation::SILU, &[])
+        .says("the input receives adjoint × σ(x)(1 + x(1 − σ(x)))"),
+    unary(
+        Op::Softplus,
+        "softplus",
+        "(1/β) ln(1 + e^(βx)); x where βx > threshold",
+        &activation::SOFTPLUS,
+        &[],
+    )
+    .says("the input receives adjoint × σ(βx), or the adjoint where βx > threshold"),
+    unary(
+        Op::Elu,
+        "elu",
+        "x if x > 0 else α(eˣ − 1)",
+        &activation::ELU,
+        &[],
+    )
+    .says("the input receives the adjoint where x > 0, else adjoint × α eˣ"),
     structured(
         Op::Matmul,
         "matmul",
@@ -302,6 +440,82 @@ pub static CATALOG: &[OpSpec] = &[
     )
     .says("the input receives the adjoint unchanged, rounded into the input's dtype"),
     structured(
+        Op::BroadcastTo,
+        "broadcast_to",
+        1,
+        &[AttrName::Shape],
+        "x broadcast to a shape (NumPy rules)",
+        &shape::BROADCAST_TO,
+    )
+    .says("the input receives the adjoint summed over the broadcast axes"),
+    structured(
+        Op::Concat,
+        "concat",
+        1,
+        &[AttrName::Axis],
+        "inputs joined along an existing axis",
+        &shape::CONCAT,
+    )
+    .takes(Arity::AtLeast(1))
+    .says("each input receives its own block of the adjoint along the axis"),
+    structured(
+        Op::Stack,
+        "stack",
+        1,
+        &[AttrName::Axis],
+        "inputs of one shape joined along a new axis",
+        &shape::STACK,
+    )
+    .takes(Arity::AtLeast(1))
+    .says("each input receives its own slice of the adjoint along the new axis"),
+    structured(
+        Op::Slice,
+        "slice",
+        1,
+        &[AttrName::Axis],
+        "x[start:end:step] along an axis (Python's rules)",
+        &shape::SLICE,
+    )
+    .says("the sliced elements receive their adjoint, the others 0"),
+    structured(
+        Op::Select,
+        "select",
+        1,
+        &[AttrName::Axis, AttrName::Index],
+        "one index along an axis, which is dropped",
+        &shape::SELECT,
+    )
+    .says("the selected elements receive the adjoint, the others 0"),
+    structured(
+        Op::Pad,
+        "pad",
+        1,
+        &[AttrName::Pads],
+        "constant padding (pads: every axis's start, then end)",
+        &shape::PAD,
+    )
+    .says("each kept element receives the adjoint at its padded place; the padding's is dropped"),
+    structured(
+        Op::Gather,
+        "gather",
+        2,
+        &[AttrName::Axis],
+        "data read at indices along an axis (take_along_axis)",
+        &index::GATHER,
+    )
+    .indexed_by(&[1])
+    .says("each read element receives the adjoint of every place it went to; indices 0"),
+    structured(
+        Op::Embedding,
+        "embedding",
+        2,
+        &[],
+        "rows of a table [V, D] by index",
+        &index::EMBEDDING,
+    )
+    .indexed_by(&[1])
+    .says("each looked-up row receives its output rows' adjoints (padding_idx none); indices 0"),
+    structured(
         Op::Sum,
         "sum",
         1,
@@ -328,6 +542,51 @@ pub static CATALOG: &[OpSpec] = &[
         &reduce::MAX,
     )
     .says("the (first) largest element receives the adjoint, the others 0"),
+    structured(
+        Op::Min,
+        "min",
+        1,
+        &[AttrName::Axis],
+        "minimum along axis (ties: first)",
+        &reduce::MIN,
+    )
+    .says("the (first) smallest element receives the adjoint, the others 0"),
+    structured(
+        Op::Prod,
+        "prod",
+        1,
+        &[],
+        "product of all elements, or along axis",
+        &scan::PROD,
+    )
+    .says("each element receives adjoint × the product of the others"),
+    structured(
+        Op::Var,
+        "var",
+        1,
+        &[],
+        "variance (÷ n − correction) of all elements, or along axis",
+        &moments::VAR,
+    )
+    .says("each element receives adjoint × 2(x − mean)/(n − correction)"),
+    structured(
+        Op::Std,
+        "std",
+        1,
+        &[],
+        "standard deviation (√var) of all elements, or along axis",
+        &moments::STD,
+    )
+    .says("each element receives adjoint × (x − mean)/((n − correction) · std)"),
+    structured(
+        Op::Cumsum,
+        "cumsum",
+        1,
+        &[AttrName::Axis],
+        "running sum along axis",
+        &scan::CUMSUM,
+    )
+    .says("each element receives the sum of the adjoints from its place to the end"),
     structured(
         Op::Softmax,
         "softmax",
@@ -356,6 +615,84 @@ pub static CATALOG: &[OpSpec] = &[
     )
     .says("each element receives adjoint × softmax(x)"),
     structured(
+        Op::Conv1d,
+        "conv1d",
+        2,
+        &[],
+        "convolution of x [N, C, L] by w [O, C/groups, K], optional bias [O]",
+        &conv::CONV1D,
+    )
+    .takes(Arity::Between(2, 3))
+    .says("x receives Wᵀ · adjoint folded back onto its windows, w adjoint · windowsᵀ, bias Σ adjoint"),
+    structured(
+        Op::Conv2d,
+        "conv2d",
+        2,
+        &[],
+        "convolution of x [N, C, H, W] by w [O, C/groups, kH, kW], optional bias [O]",
+        &conv::CONV2D,
+    )
+    .takes(Arity::Between(2, 3))
+    .says("x receives Wᵀ · adjoint folded back onto its windows, w adjoint · windowsᵀ, bias Σ adjoint"),
+    structured(
+        Op::MaxPool2d,
+        "max_pool2d",
+        1,
+        &[AttrName::Kernel],
+        "maximum over windows of x [N, C, H, W] (ties: first)",
+        &pool::MAX_POOL2D,
+    )
+    .says("each window's (first) largest element receives the window's adjoint"),
+    structured(
+        Op::AvgPool2d,
+        "avg_pool2d",
+        1,
+        &[AttrName::Kernel],
+        "mean over windows of x [N, C, H, W]",
+        &pool::AVG_POOL2D,
+    )
+    .says("each element of a window receives the window's adjoint / its divisor"),
+    structured(
+        Op::LayerNorm,
+        "layer_norm",
+        1,
+        &[],
+        "normalised over the axes from axis (−1) on, then · weight + bias",
+        &norm::LAYER_NORM,
+    )
+    .takes(Arity::Between(1, 3))
+    .says("x receives r(ĝ − mean ĝ − x̂ mean(ĝ x̂)), ĝ = weight · adjoint; weight Σ adjoint x̂, bias Σ adjoint"),
+    structured(
+        Op::RmsNorm,
+        "rms_norm",
+        1,
+        &[],
+        "x / √(mean(x²) + eps) over the axes from axis (−1) on, then · weight",
+        &norm::RMS_NORM,
+    )
+    .takes(Arity::Between(1, 2))
+    .says("x receives r(ĝ − x̂ mean(ĝ x̂)), ĝ = weight · adjoint; weight Σ adjoint x̂"),
+    structured(
+        Op::BatchNorm,
+        "batch_norm",
+        1,
+        &[],
+        "each channel of x [N, C, …] normalised by batch statistics, then · weight + bias",
+        &norm::BATCH_NORM,
+    )
+    .takes(Arity::Between(1, 3))
+    .says("x receives r(ĝ − mean ĝ − x̂ mean(ĝ x̂)) per channel; weight Σ adjoint x̂, bias Σ adjoint"),
+    structured(
+        Op::GroupNorm,
+        "group_norm",
+        1,
+        &[AttrName::Groups],
+        "each group of channels of each sample normalised, then · weight + bias",
+        &norm::GROUP_NORM,
+    )
+    .takes(Arity::Between(1, 3))
+    .says("x receives r(ĝ − mean ĝ − x̂ mean(ĝ x̂)) per sample and group; weight Σ adjoint x̂, bias Σ adjoint"),
+    structured(
         Op::CrossEntropy,
         "cross_entropy",
         1,
@@ -373,6 +710,43 @@ pub static CATALOG: &[OpSpec] = &[
         &loss::MSE,
     )
     .says("the prediction receives adjoint × 2(p − t) / n, the target its negative"),
+    structured(
+        Op::NllLoss,
+        "nll_loss",
+        2,
+        &[],
+        "−log_probs[n, target n], mean over targets not ignored (or sum, none)",
+        &losses::NLL_LOSS,
+    )
+    .indexed_by(&[1])
+    .says("each row's target log-probability receives −adjoint (÷ count for the mean), the rest 0"),
+    structured(
+        Op::BceWithLogits,
+        "bce_with_logits",
+        2,
+        &[],
+        "binary cross-entropy of logits against targets, stable",
+        &losses::BCE_WITH_LOGITS,
+    )
+    .says("the logits receive adjoint × (σ(z) − t), the targets adjoint × −z (÷ n for the mean)"),
+    structured(
+        Op::Huber,
+        "huber",
+        2,
+        &[],
+        "½d² within ±delta, else delta(|d| − ½delta), d = prediction − target",
+        &losses::HUBER,
+    )
+    .says("the prediction receives adjoint × d clipped to ±delta, the target its negative"),
+    structured(
+        Op::L1Loss,
+        "l1_loss",
+        2,
+        &[],
+        "|prediction − target|, mean (or sum, none)",
+        &losses::L1_LOSS,
+    )
+    .says("the prediction receives adjoint × sign(p − t), 0 at a tie; the target its negative"),
 ];
 
 /// The catalog row standing in for custom ops.
@@ -384,6 +758,7 @@ static CUSTOM: OpSpec = OpSpec {
     summary: "an op outside the catalog, with recorded partials on every edge",
     derivative: "each input receives adjoint × the recorded partial on its edge",
     rule: Rule::Custom,
+    discrete: &[],
 };
 
 const fn leaf(op: Op, name: &'static str, summary: &'static str) -> OpSpec {
@@ -395,6 +770,7 @@ const fn leaf(op: Op, name: &'static str, summary: &'static str) -> OpSpec {
         summary,
         derivative: "",
         rule: Rule::Leaf,
+        discrete: &[],
     }
 }
 
@@ -413,6 +789,7 @@ const fn unary(
         summary,
         derivative: "",
         rule: Rule::Unary(rule),
+        discrete: &[],
     }
 }
 
@@ -430,6 +807,7 @@ const fn binary(
         summary,
         derivative: "",
         rule: Rule::Binary(rule),
+        discrete: &[],
     }
 }
 
@@ -449,6 +827,7 @@ const fn structured(
         summary,
         derivative: "",
         rule: Rule::Structured(rule),
+        discrete: &[],
     }
 }
 
@@ -456,6 +835,19 @@ impl OpSpec {
     /// The row with its derivative in words (see [`OpSpec::derivative`]).
     const fn says(self, derivative: &'static str) -> OpSpec {
         OpSpec { derivative, ..self }
+    }
+
+    /// The row taking `arity` inputs (optional trailing inputs, or any number).
+    const fn takes(self, arity: Arity) -> OpSpec {
+        OpSpec { arity, ..self }
+    }
+
+    /// The row with index or condition inputs at `slots` (see [`OpSpec::discrete`]).
+    const fn indexed_by(self, slots: &'static [usize]) -> OpSpec {
+        OpSpec {
+            discrete: slots,
+            ..self
+        }
     }
 }
 
@@ -781,36 +1173,138 @@ pub fn jvp(op: Op, args: &JvpArgs) -> Value {
     }
 }
 
-/// Where an op is not differentiable everywhere, which side of each kink its
-/// inputs are on: per element −1, 0 or +1 for relu, leaky_relu and abs (0 is
-/// on the kink); per lane of max, the first maximum's position plus one,
-/// negated when the maximum is tied (on the kink). `None` for smooth ops.
-/// Two states that differ mean a change of the inputs crossed a kink.
+/// Whether `op` has kinks: points where it is not differentiable, at which
+/// the catalog takes a convention (traces/FORMAT.md, "Kinks and ties").
+pub fn has_kinks(op: Op) -> bool {
+    matches!(
+        op,
+        Op::Relu
+            | Op::LeakyRelu
+            | Op::Abs
+            | Op::Clamp
+            | Op::Elu
+            | Op::Softplus
+            | Op::Maximum
+            | Op::Minimum
+            | Op::Max
+            | Op::Min
+            | Op::MaxPool2d
+            | Op::L1Loss
+            | Op::Embedding
+    )
+}
+
+/// Where an op is not differentiable everywhere, which smooth piece its
+/// inputs are on: one number per element (relu, leaky_relu, abs, elu,
+/// clamp, softplus), per output element (maximum and minimum: the sign of
+/// a − b; l1_loss: of prediction − target), per lane (max, min: the first
+/// extremum's position plus one) or per window (max_pool2d). 0 means on a
+/// kink (at relu's 0, at a bound of clamp, at a tie, at a lookup of
+/// embedding's padding row, whose zero gradient is a convention). `None` for smooth ops
+/// (elu with α = 1 is smooth). Two states that differ mean a change of the
+/// inputs crossed a kink.
 pub fn kink_state(op: Op, inputs: &[&Value], attrs: &Attrs) -> Option<Vec<i64>> {
+    let per_element = |x: &Value| {
+        let values = x.to_f64();
+        values
+            .iter()
+            .map(|&v| activation::unary_kink(op, v, attrs))
+            .collect()
+    };
     match op {
-        Op::Relu | Op::LeakyRelu | Op::Abs => Some(
-            inputs[0]
-                .to_f64()
-                .iter()
-                .map(|&x| {
-                    if x > 0.0 {
-                        1
-                    } else if x < 0.0 {
-                        -1
-                    } else {
-                        0
-                    }
+        Op::Relu | Op::LeakyRelu | Op::Abs | Op::Clamp | Op::Softplus => {
+            Some(per_element(inputs[0]))
+        }
+        Op::Elu if activation::elu_has_kink(attrs) => Some(per_element(inputs[0])),
+        Op::Maximum | Op::Minimum | Op::L1Loss => {
+            let (a, b) = (inputs[0], inputs[1]);
+            let shape = broadcast_shapes(a.shape(), b.shape())?;
+            let (ea, eb) = (a.elements(), b.elements());
+            let signs = broadcast_source_indices(a.shape(), &shape)
+                .into_iter()
+                .zip(broadcast_source_indices(b.shape(), &shape))
+                .map(|(i, j)| {
+                    let d = ea.get(i) - eb.get(j);
+                    i64::from(d > 0.0) - i64::from(d < 0.0) + 2 * i64::from(d.is_nan())
                 })
-                .collect(),
-        ),
+                .collect();
+            Some(signs)
+        }
         Op::Max => Some(reduce::max_kink_state(inputs[0], attrs)),
+        Op::Min => Some(reduce::min_kink_state(inputs[0], attrs)),
+        Op::MaxPool2d => Some(pool::max_kink_state(inputs[0], attrs)),
+        // The padding row's zero gradient is a convention, not a derivative:
+        // a lookup of it counts as a kink, so a difference check can say why
+        // it disagrees there.
+        Op::Embedding => attrs
+            .padding_idx
+            .map(|_| index::padding_state(inputs, attrs)),
         _ => None,
     }
 }
 
 /// True when a [`kink_state`] puts some element exactly on a kink.
 pub fn on_kink(state: &[i64]) -> bool {
-    state.iter().any(|&side| side <= 0)
+    state.contains(&0)
+}
+
+/// Why an op's input values or attributes do not fit it, beyond their shapes.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Misfit {
+    /// What is wrong, naming the input and the element.
+    pub message: String,
+    /// What to do.
+    pub hint: &'static str,
+}
+
+/// Checks what shapes cannot: index tensors hold whole numbers within the
+/// axis they index, conditions hold 0 or 1, and attributes that only make
+/// sense in a range are in it. Loading and recording both call this after
+/// the shapes fit.
+pub fn check_inputs(op: Op, inputs: &[&Value], attrs: &Attrs) -> Result<(), Misfit> {
+    const INDEX: &str = "index tensors hold whole numbers within the axis they index (traces/FORMAT.md, \"Index tensors and conditions\")";
+    let misfit = |hint: &'static str| move |message: String| Misfit { message, hint };
+    match op {
+        Op::Gather => index::check_gather(inputs, attrs).map_err(misfit(INDEX)),
+        Op::Embedding => index::check_embedding(inputs).map_err(misfit(INDEX)),
+        Op::NllLoss => losses::check_nll(inputs, attrs).map_err(misfit(
+            "targets are class indices within the classes, or ignore_index",
+        )),
+        Op::Where => index::check_condition(inputs[0])
+            .map_err(misfit("a condition holds 0 (take b) or 1 (take a)")),
+        Op::Clamp => {
+            let bounds = [attrs.min, attrs.max];
+            if bounds.iter().all(Option::is_none) {
+                Err(misfit("add attrs: (min: ..), (max: ..) or both")(
+                    "clamp needs min, max or both".to_string(),
+                ))
+            } else if bounds.iter().flatten().any(|b| b.is_nan()) {
+                Err(misfit("give numbers (±inf for no bound)")(
+                    "clamp bounds must not be NaN".to_string(),
+                ))
+            } else {
+                Ok(())
+            }
+        }
+        Op::Softplus => {
+            let beta = attrs.beta.unwrap_or(1.0);
+            if beta > 0.0 && beta.is_finite() && !attrs.threshold.is_some_and(f64::is_nan) {
+                Ok(())
+            } else {
+                Err(misfit("PyTorch's defaults are beta 1, threshold 20")(
+                    format!(
+                        "softplus needs a finite beta > 0 and a threshold that is a number, got beta {beta}"
+                    ),
+                ))
+            }
+        }
+        Op::Elu if attrs.alpha.is_some_and(|alpha| !alpha.is_finite()) => {
+            Err(misfit("PyTorch's default is alpha 1")(
+                "elu needs a finite alpha".to_string(),
+            ))
+        }
+        _ => Ok(()),
+    }
 }
 
 /// `adjoint ⊙ partial` (both of the output's shape, or a one-element partial),
@@ -903,6 +1397,38 @@ mod tests {
                 row.name
             );
         }
+    }
+
+    #[test]
+    fn kink_states_mark_the_kinks_and_ties() {
+        let x = Value::from_parts(vec![5], vec![-2.0, -1.0, 0.0, 1.0, 3.0]);
+        let clamp = Attrs {
+            min: Some(-1.0),
+            max: Some(1.0),
+            ..Attrs::default()
+        };
+        assert_eq!(
+            kink_state(Op::Clamp, &[&x], &clamp),
+            Some(vec![-1, 0, 1, 0, 2])
+        );
+        assert_eq!(
+            kink_state(Op::Relu, &[&x], &Attrs::default()),
+            Some(vec![-1, -1, 0, 1, 1])
+        );
+        let y = Value::from_parts(vec![5], vec![0.0, -1.0, 0.0, 2.0, 3.0]);
+        let ties = kink_state(Op::Maximum, &[&x, &y], &Attrs::default()).unwrap();
+        assert_eq!(ties, vec![-1, 0, 0, -1, 0]);
+        assert!(on_kink(&ties));
+        // Negative is a side, not a kink: relu below 0 is smooth there.
+        assert!(!on_kink(&[-1, 1, 2]));
+        // elu with α = 1 is smooth; with α ≠ 1 its slope jumps at 0.
+        assert_eq!(kink_state(Op::Elu, &[&x], &Attrs::default()), None);
+        let alpha = Attrs {
+            alpha: Some(0.5),
+            ..Attrs::default()
+        };
+        assert!(on_kink(&kink_state(Op::Elu, &[&x], &alpha).unwrap()));
+        assert_eq!(kink_state(Op::Gelu, &[&x], &Attrs::default()), None);
     }
 
     #[test]

@@ -1,5 +1,5 @@
-//! Reductions and normalisations along an axis: sum, mean, max, softmax,
-//! log_softmax and logsumexp.
+//! Reductions and normalisations along an axis: sum, mean, max, min,
+//! softmax, log_softmax and logsumexp.
 
 use super::{Attrs, JvpArgs, Precision, StructuredRule, VjpArgs};
 use crate::dtype::Dtype;
@@ -27,6 +27,13 @@ pub static MAX: StructuredRule = StructuredRule {
     vjp: max_vjp,
     jvp: max_jvp,
 };
+/// Minimum along `axis`; the first minimum receives the adjoint.
+pub static MIN: StructuredRule = StructuredRule {
+    shape: reduced_shape,
+    forward: min_forward,
+    vjp: min_vjp,
+    jvp: min_jvp,
+};
 /// Softmax along `axis` (default −1).
 pub static SOFTMAX: StructuredRule = StructuredRule {
     shape: same_shape_with_axis,
@@ -52,14 +59,14 @@ pub static LOGSUMEXP: StructuredRule = StructuredRule {
 /// The lanes a reduction runs along: `outer × inner` lanes of `length`
 /// elements each, `stride` apart.
 #[derive(Clone, Copy)]
-struct Lanes {
+pub(super) struct Lanes {
     outer: usize,
     length: usize,
     inner: usize,
 }
 
 impl Lanes {
-    fn of(shape: &[usize], axis: Option<usize>) -> Lanes {
+    pub(super) fn of(shape: &[usize], axis: Option<usize>) -> Lanes {
         match axis {
             None => Lanes {
                 outer: 1,
@@ -77,12 +84,12 @@ impl Lanes {
         }
     }
 
-    fn count(self) -> usize {
+    pub(super) fn count(self) -> usize {
         self.outer * self.inner
     }
 
     /// Flat indices of the elements of lane `lane`.
-    fn indices(self, lane: usize) -> impl Iterator<Item = usize> {
+    pub(super) fn indices(self, lane: usize) -> impl Iterator<Item = usize> {
         let (o, i) = (lane / self.inner, lane % self.inner);
         let base = o * self.length * self.inner + i;
         (0..self.length).map(move |k| base + k * self.inner)
@@ -99,11 +106,11 @@ fn axis_of(attrs: &Attrs, rank: usize, default: Option<i64>) -> Result<Option<us
     }
 }
 
-fn checked_axis(attrs: &Attrs, rank: usize, default: Option<i64>) -> Option<usize> {
+pub(super) fn checked_axis(attrs: &Attrs, rank: usize, default: Option<i64>) -> Option<usize> {
     axis_of(attrs, rank, default).expect("axis checked by the validator")
 }
 
-fn reduced_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String> {
+pub(super) fn reduced_shape(inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, String> {
     let input = inputs[0];
     match axis_of(attrs, input.len(), None)? {
         None => Ok(Vec::new()),
@@ -223,6 +230,39 @@ fn max_vjp(args: &VjpArgs) -> Value {
         let (_, winner) = first_max(lane.iter().map(|&index| x.get(index)));
         if k == winner { adjoint } else { 0.0 }
     })
+}
+
+/// NaN-propagating minimum and the position of its first occurrence.
+fn first_min(values: impl Iterator<Item = f64>) -> (f64, usize) {
+    let (best, position) = first_max(values.map(|x| -x));
+    (-best, position)
+}
+
+fn min_forward(inputs: &[&Value], attrs: &Attrs, p: Precision) -> Value {
+    reduce_lanes(inputs[0], attrs, p, |lane| first_min(lane).0)
+}
+
+fn min_vjp(args: &VjpArgs) -> Value {
+    let x = args.inputs[0].elements();
+    spread(args, None, |adjoint, k, lane| {
+        let (_, winner) = first_min(lane.iter().map(|&index| x.get(index)));
+        if k == winner { adjoint } else { 0.0 }
+    })
+}
+
+/// The tangent of the first minimum of each lane.
+fn min_jvp(args: &JvpArgs) -> Value {
+    let (x, tangent) = (args.inputs[0], args.tangents[0]);
+    let lanes = Lanes::of(x.shape(), checked_axis(args.attrs, x.shape().len(), None));
+    let (xs, ts) = (x.elements(), tangent.elements());
+    let data = (0..lanes.count())
+        .map(|lane| {
+            let indices: Vec<usize> = lanes.indices(lane).collect();
+            let (_, winner) = first_min(indices.iter().map(|&i| xs.get(i)));
+            ts.get(indices[winner])
+        })
+        .collect();
+    Value::from_parts_in(args.precision.dtype, args.output.shape().to_vec(), data)
 }
 
 /// Softmax of one lane, stabilised by subtracting the lane maximum.
@@ -441,17 +481,29 @@ fn logsumexp_jvp(args: &JvpArgs) -> Value {
     })
 }
 
-/// Per lane: the first maximum's position plus one, negated when tied.
+/// Per lane: the first maximum's position plus one, or 0 when tied (on a kink).
 pub(super) fn max_kink_state(x: &Value, attrs: &Attrs) -> Vec<i64> {
+    extremum_kink_state(x, attrs, false)
+}
+
+/// Per lane: the first minimum's position plus one, or 0 when tied.
+pub(super) fn min_kink_state(x: &Value, attrs: &Attrs) -> Vec<i64> {
+    extremum_kink_state(x, attrs, true)
+}
+
+fn extremum_kink_state(x: &Value, attrs: &Attrs, smallest: bool) -> Vec<i64> {
     let lanes = Lanes::of(x.shape(), checked_axis(attrs, x.shape().len(), None));
     let xs = x.elements();
     (0..lanes.count())
         .map(|lane| {
             let values: Vec<f64> = lanes.indices(lane).map(|i| xs.get(i)).collect();
-            let (best, winner) = first_max(values.iter().copied());
+            let (best, winner) = if smallest {
+                first_min(values.iter().copied())
+            } else {
+                first_max(values.iter().copied())
+            };
             let tied = values.iter().filter(|&&v| v == best).count() > 1;
-            let position = winner as i64 + 1;
-            if tied { -position } else { position }
+            if tied { 0 } else { winner as i64 + 1 }
         })
         .collect()
 }

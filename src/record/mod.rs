@@ -290,6 +290,22 @@ impl Tape {
         )
     }
 
+    /// Records an index tensor (the indices of gather or embedding, the
+    /// targets of nll_loss): an input holding whole numbers, stored in f64
+    /// whatever the tape's dtype (f16 holds whole numbers exactly only up to
+    /// 2048). The ops that read it check its range; the ops' own dtype does
+    /// not follow it.
+    #[track_caller]
+    pub fn indices(&mut self, name: &str, value: impl Into<Value>) -> Var {
+        self.leaf(
+            Op::Input,
+            name,
+            value.into(),
+            Dtype::F64,
+            Location::caller(),
+        )
+    }
+
     /// Records a catalog op, computing its value with the op table.
     #[track_caller]
     pub fn apply(&mut self, op: Op, inputs: &[Var], attrs: Attrs) -> Result<Var, RecordError> {
@@ -335,10 +351,14 @@ impl Tape {
         let values: Vec<&Value> = inputs.iter().map(|input| &self.values[input.0]).collect();
         let shapes: Vec<&[usize]> = values.iter().map(|value| value.shape()).collect();
         ops::infer_shape(op, &shapes, &attrs).map_err(error)?;
-        // Mixed inputs compute in their promoted dtype, as frameworks do.
+        ops::check_inputs(op, &values, &attrs).map_err(|misfit| error(misfit.message))?;
+        // Mixed inputs compute in their promoted dtype, as frameworks do;
+        // index tensors and conditions do not take part.
         let dtype = inputs
             .iter()
-            .map(|input| self.dtypes[input.0])
+            .enumerate()
+            .filter(|(slot, _)| !spec.discrete.contains(slot))
+            .map(|(_, input)| self.dtypes[input.0])
             .reduce(Dtype::promote)
             .unwrap_or(self.dtype);
         let value = ops::forward(op, &values, &attrs, self.precision(dtype));

@@ -21,10 +21,24 @@ impl Trace {
             }
             value
         };
+        // Index tensors and conditions hold whole numbers that rounding could
+        // move (f16 holds them exactly only up to 2048): they stay as recorded.
+        let mut exact = vec![false; self.nodes.len()];
+        for node in &self.nodes {
+            for &slot in node.op.spec().discrete {
+                if let Some(&input) = node.inputs.get(slot) {
+                    exact[input] = true;
+                }
+            }
+        }
         let nodes = self
             .nodes
             .iter()
-            .map(|node| {
+            .enumerate()
+            .map(|(position, node)| {
+                if exact[position] {
+                    return node.with_value(node.value.clone());
+                }
                 let mut retyped = node.with_value(round(&node.value));
                 retyped.dtype = dtype;
                 for partial in retyped.partials.iter_mut().flatten() {

@@ -463,7 +463,12 @@ fn check_node(
             )
             .kind("shape"),
         ),
-        Ok(_) => {}
+        Ok(_) => {
+            check_index_rounding(&id, &raw, &inputs, spec.discrete, context.rounded, problems);
+            if let Err(misfit) = ops::check_inputs(op, &input_values, &raw.attrs) {
+                problems.push(Problem::at_node(&id, misfit.message, misfit.hint).kind("bad index"));
+            }
+        }
     }
     if let Some(reported) = &reported
         && reported.shape() != value.shape()
@@ -525,6 +530,38 @@ fn check_node(
         partials,
         reported,
     })
+}
+
+/// An index tensor or condition whose numbers its dtype rounded on load no
+/// longer says which element it meant (3001 in f16 is 3000): refused.
+fn check_index_rounding(
+    id: &str,
+    raw: &NodeFile,
+    inputs: &[usize],
+    discrete: &[usize],
+    rounded: &[Rounding],
+    problems: &mut Vec<Problem>,
+) {
+    for &slot in discrete {
+        let Some(&input) = inputs.get(slot) else {
+            continue;
+        };
+        // Roundings are noted in recording order, so a search finds the input's.
+        if let Ok(at) = rounded.binary_search_by_key(&input, |rounding| rounding.node) {
+            let rounding = rounded[at];
+            problems.push(
+                Problem::at_node(
+                    id,
+                    format!(
+                        "index input '{}' was rounded into its dtype on load: element {} was written {} but holds {}",
+                        raw.inputs[slot], rounding.index, rounding.written, rounding.stored
+                    ),
+                    "give the index node a dtype that holds its whole numbers exactly (dtype: f32 or f64)",
+                )
+                .kind("bad index"),
+            );
+        }
+    }
 }
 
 fn check_custom_partials(id: &str, raw: &NodeFile, problems: &mut Vec<Problem>) {

@@ -256,7 +256,7 @@ fn kink_state<'v>(
     value_of: impl Fn(usize) -> &'v Value,
 ) -> Option<Vec<i64>> {
     let recorded = trace.node(node);
-    if !matches!(recorded.op, Op::Relu | Op::LeakyRelu | Op::Abs | Op::Max) {
+    if !ops::has_kinks(recorded.op) {
         return None;
     }
     let inputs: Vec<&Value> = recorded

@@ -113,6 +113,15 @@ impl Accumulator {
         }
     }
 
+    /// The results so far, in the accumulation type (f16 and bf16
+    /// accumulation hold rounded f64s).
+    pub fn elements(&self) -> Elements<'_> {
+        match &self.data {
+            AccData::F32(v) => Elements::F32(v),
+            AccData::F64(v) => Elements::F64(v),
+        }
+    }
+
     /// The results rounded once into `dtype`.
     pub fn finish(self, dtype: Dtype) -> Buffer {
         match self.data {

@@ -7,6 +7,7 @@
 //! compare sweeps bit for bit).
 
 pub mod gemm;
+pub mod im2col;
 pub mod map;
 
 /// Elements below which work stays on the calling thread: splitting costs
