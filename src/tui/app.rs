@@ -182,7 +182,7 @@ impl<'t> App<'t> {
         }
     }
 
-    /// A pane's context.
+    /// A pane's context, its rows left at 0 for the caller that knows them (drawing does).
     pub(super) fn ctx(&self, pane: PaneId) -> Ctx<'_, 't> {
         ctx_of(
             &self.session,
@@ -191,6 +191,7 @@ impl<'t> App<'t> {
             &self.layout,
             self.running.as_ref(),
             pane,
+            0,
         )
     }
 
@@ -299,6 +300,8 @@ impl<'t> App<'t> {
     /// Hands `action` to pane `pane`; its messages wait in the outbox.
     fn send_to_pane(&mut self, pane: PaneId, action: Action) {
         let at = pane.number() - 1;
+        let rows = layout::pane_area(&self.layout, pane)
+            .map_or(0, |area| area.height.saturating_sub(2) as usize);
         let ctx = ctx_of(
             &self.session,
             &self.themes[self.theme_at],
@@ -306,6 +309,7 @@ impl<'t> App<'t> {
             &self.layout,
             self.running.as_ref(),
             pane,
+            rows,
         );
         self.panes[at].handle(action, &ctx, &mut self.outbox);
     }
@@ -364,7 +368,16 @@ impl<'t> App<'t> {
 
     /// Lets every pane catch up with the session and the layout.
     fn sync_panes(&mut self) {
+        // One arrangement for all panes: each pane's rows inside its border, 0 when not shown.
+        let shown = match layout::arrange(&self.layout) {
+            layout::Screen::Panes { panes, .. } => panes,
+            layout::Screen::TooSmall => Vec::new(),
+        };
         for (at, spec) in panes::specs().iter().enumerate() {
+            let rows = shown
+                .iter()
+                .find(|(pane, _)| *pane == spec.id)
+                .map_or(0, |(_, area)| area.height.saturating_sub(2) as usize);
             let ctx = ctx_of(
                 &self.session,
                 &self.themes[self.theme_at],
@@ -372,6 +385,7 @@ impl<'t> App<'t> {
                 &self.layout,
                 self.running.as_ref(),
                 spec.id,
+                rows,
             );
             self.panes[at].sync(&ctx, &mut self.outbox);
         }
@@ -587,6 +601,7 @@ fn ctx_of<'a, 't>(
     layout: &'a LayoutState,
     work: Option<&'a Running>,
     pane: PaneId,
+    rows: usize,
 ) -> Ctx<'a, 't> {
     Ctx {
         session,
@@ -594,8 +609,7 @@ fn ctx_of<'a, 't>(
         keys,
         pane,
         focused: layout.focus == pane,
-        rows: layout::pane_area(layout, pane)
-            .map_or(0, |area| area.height.saturating_sub(2) as usize),
+        rows,
         work,
     }
 }

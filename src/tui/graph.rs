@@ -19,7 +19,7 @@ use crate::trace::Trace;
 pub const WHOLE: usize = 40;
 /// A neighbourhood holds at most this many nodes.
 const MOST: usize = 32;
-/// Longest label before ids are shortened.
+/// Label length assumed for an empty node list.
 const LONGEST: usize = 16;
 /// Columns between two boxes of a layer.
 const GAP: usize = 2;
@@ -304,7 +304,12 @@ fn lay_out(
     }
     order_layers(&mut rows, &chains);
     // Box labels, shortened until the widest layer fits.
-    let mut longest = LONGEST;
+    // Whole ids where they fit, else shorter, down to a few characters.
+    let mut longest = nodes
+        .iter()
+        .map(|&node| trace.node(node).id.chars().count())
+        .max()
+        .unwrap_or(LONGEST);
     let names = loop {
         let names = labels(trace, nodes, longest);
         let widest = rows
@@ -332,6 +337,32 @@ fn lay_out(
             anchor.insert((layer, item), x + w / 2);
         }
     }
+    // Where each edge arrives at its input's box: the edges into one box
+    // spread over its width, in the order of where they come from, so each
+    // has an arrowhead of its own.
+    let mut ports: HashMap<usize, usize> = HashMap::new();
+    for (layer, placed) in placed_x.iter().enumerate() {
+        for &(item, x, w) in placed {
+            let Item::Node(node) = item else { continue };
+            let mut arriving: Vec<(usize, usize)> = chains
+                .iter()
+                .enumerate()
+                .filter(|(at, chain)| edges[*at].1 == node && chain.len() >= 2)
+                .map(|(at, chain)| (anchor[&(layer - 1, chain[chain.len() - 2])], at))
+                .collect();
+            arriving.sort_unstable();
+            let inner = w.saturating_sub(2).max(1);
+            let count = arriving.len();
+            for (k, &(_, at)) in arriving.iter().enumerate() {
+                let offset = if count <= 1 {
+                    w / 2
+                } else {
+                    1 + k * inner / count + inner / (2 * count)
+                };
+                ports.insert(at, x + offset.min(w - 1));
+            }
+        }
+    }
     let segments = |layer: usize| -> Vec<(usize, usize, usize)> {
         // (edge, upper x, lower x) for every edge segment from `layer` to the next.
         let mut found = Vec::new();
@@ -341,7 +372,11 @@ fn lay_out(
             if layer >= start && layer + 1 < start + chain.len() {
                 let offset = layer - start;
                 let upper = anchor[&(layer, chain[offset])];
-                let lower = anchor[&(layer + 1, chain[offset + 1])];
+                let lower = if offset + 2 == chain.len() {
+                    ports[&at]
+                } else {
+                    anchor[&(layer + 1, chain[offset + 1])]
+                };
                 found.push((at, upper, lower));
             }
         }
@@ -799,6 +834,20 @@ mod tests {
                 assert_eq!(a.0.abs_diff(b.0) + a.1.abs_diff(b.1), 1, "{:?}", arrow.path);
             }
         }
+        // Each arrow has a head of its own.
+        let mut heads: Vec<(usize, usize)> = drawing
+            .arrows
+            .iter()
+            .map(|arrow| *arrow.path.last().unwrap())
+            .collect();
+        heads.sort_unstable();
+        heads.dedup();
+        assert_eq!(
+            heads.len(),
+            drawing.arrows.len(),
+            "{}",
+            drawing.rows().join("\n")
+        );
         // Every arrowhead drawn is one of the arrows, above a box.
         let rows = drawing.rows();
         for (y, row) in rows.iter().enumerate() {

@@ -159,15 +159,16 @@ fn status_line(app: &App, area: Rect, buf: &mut Buffer) {
         } else {
             String::new()
         };
-        let stage = if stage.is_empty() {
+        let what = running.job.describe();
+        // The stage, where it says more than the job does.
+        let stage = if stage.is_empty() || what.contains(stage.as_str()) {
             String::new()
         } else {
             format!(" ({stage})")
         };
         spans.push(Span::styled(
             format!(
-                " ⟳ {}{stage}{done} {seconds:.1} s, {} cancels │",
-                running.job.describe(),
+                " ⟳ {what}{stage}{done} {seconds:.1} s, {} cancels │",
                 app.keymap().label_for("cancel", app.focus())
             ),
             theme.current,

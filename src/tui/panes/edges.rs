@@ -285,10 +285,11 @@ fn edge_label(ctx: &Ctx, consumer: usize, input: usize) -> Option<String> {
         Side::Input => consumer == selected && edge.node == input,
         Side::Consumer => input == selected && edge.node == consumer,
     })?;
-    let partial = if edge.partial.chars().count() <= 10 {
-        edge.partial.clone()
-    } else {
-        "…".to_string()
+    // Short: a number in six digits, a long description cut.
+    let partial = match edge.partial.parse::<f64>() {
+        Ok(x) => compact(x),
+        Err(_) if edge.partial.chars().count() <= 10 => edge.partial.clone(),
+        Err(_) => "…".to_string(),
     };
     Some(format!("∂{partial}"))
 }

@@ -154,7 +154,12 @@ fn adjoint_lines<'a>(ctx: &Ctx, node: NodeIx, scroll: usize, area: Rect) -> Vec<
         ]));
     }
     if node.step(trace).is_some() {
-        if pending.is_empty() {
+        if pending.is_empty() && received.is_empty() && node.index() == trace.output() {
+            lines.push(Line::styled(
+                "complete: the seed is its whole adjoint",
+                theme.done,
+            ));
+        } else if pending.is_empty() {
             lines.push(Line::styled(
                 format!(
                     "complete: {} contribution(s), the adjoint is final",

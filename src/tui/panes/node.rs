@@ -494,3 +494,49 @@ fn elements<'a>(ctx: &Ctx, node: NodeIx, scroll: usize, room: usize) -> Vec<Line
     }
     lines
 }
+
+#[cfg(test)]
+mod tests {
+    use crate::dtype::Dtype;
+    use crate::record::Tape;
+    use crate::tui::action::Action;
+    use crate::tui::message::Msg;
+    use crate::tui::panes::tests::{Fixture, assert_lines};
+
+    #[test]
+    fn a_multiply_says_its_rule_then_what_it_sent() {
+        // y = w·x at w = 3, x = 0.5: ∂y/∂w = x and ∂y/∂x = w (closed form).
+        let mut tape = Tape::new("product", Dtype::F64);
+        let w = tape.param("w", 3.0);
+        let x = tape.input("x", 0.5);
+        let y = tape.mul(w, x);
+        let y = tape.rename(y, "y");
+        let mut fixture = Fixture::new(tape.finish(y));
+        fixture.app.update(Action::Step);
+        let y = fixture.app.session().find("y").unwrap();
+        fixture.app.apply(Msg::Select(y));
+        let buffer = fixture.render_own("Node", 60, 10);
+        let site = format!(
+            "{:<60}",
+            format!(
+                "site     {}",
+                fixture.app.session().trace().node(2).site.clone().unwrap()
+            )
+        );
+        assert_lines(
+            &buffer,
+            [
+                "node     y  mul  in (no group)                              ",
+                "state    ✓ done at step 1                                   ",
+                site.as_str(),
+                "shape    scalar f64   attrs —                               ",
+                "value    1.5                                                ",
+                "adjoint  1  (final)                                         ",
+                "rule     mul: each input receives adjoint × the other input ",
+                "∂ in 0   ← w  0.5   1 × 0.5 = 0.5 to w                      ",
+                "∂ in 1   ← x  3   1 × 3 = 3 to x                            ",
+                "                                                            ",
+            ],
+        );
+    }
+}
