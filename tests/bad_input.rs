@@ -292,3 +292,22 @@ fn deep_nesting_is_explained_without_library_internals() {
         assert!(!message.contains(internal), "{message}");
     }
 }
+
+#[test]
+fn text_from_the_file_cannot_break_an_error_across_lines() {
+    // Found by the JSON fuzzer: serde quoted an unknown key holding a
+    // newline, and the one-line error became two. Ids are quoted too, and
+    // an escape character would reach the terminal.
+    let json = "{\"f\\n_x\": 1}";
+    let message = rejected(json, Encoding::Json).to_string();
+    assert_eq!(message.lines().count(), 1, "{message}");
+    assert!(message.contains("unknown field `f\\n_x`"), "{message}");
+    let ron = "(format: 1, title: \"t\", dtype: f64, output: \"a\", nodes: [(id: \"a\\n\\u{1b}[2J\", op: \"neg\", inputs: [\"q\"], value: 1.0)])";
+    let message = rejected(ron, Encoding::Ron).to_string();
+    assert_eq!(message.lines().count(), 2, "{message}");
+    assert!(!message.contains('\u{1b}'), "{message}");
+    assert!(
+        message.contains("node 'a\\n\\u{1b}[2J': unknown input id 'q'"),
+        "{message}"
+    );
+}

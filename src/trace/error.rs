@@ -61,6 +61,27 @@ impl Problem {
     }
 }
 
+/// `text` with every control character written as an escape (`\n`,
+/// `\u{1b}`), so that text from a file (an id, a key the parser quotes)
+/// can neither break an error across lines nor send escape sequences to the
+/// terminal.
+pub fn one_line(text: &str) -> std::borrow::Cow<'_, str> {
+    if !text.chars().any(char::is_control) {
+        return std::borrow::Cow::Borrowed(text);
+    }
+    let mut out = String::with_capacity(text.len() + 8);
+    for c in text.chars() {
+        match c {
+            '\n' => out.push_str("\\n"),
+            '\r' => out.push_str("\\r"),
+            '\t' => out.push_str("\\t"),
+            c if c.is_control() => out.push_str(&format!("\\u{{{:x}}}", c as u32)),
+            c => out.push(c),
+        }
+    }
+    std::borrow::Cow::Owned(out)
+}
+
 /// How many problems an invalid trace reports in full; the rest are counted
 /// by kind, so a file with a million bad nodes still gets a short message.
 pub const PROBLEMS_SHOWN: usize = 20;
@@ -179,8 +200,8 @@ fn render_problems(path: &std::path::Path, problems: &[Problem]) -> String {
         .iter()
         .take(PROBLEMS_SHOWN)
         .map(|problem| match problem.position {
-            Some(_) => format!("{}:{problem}", path.display()),
-            None => format!("{}: {problem}", path.display()),
+            Some(_) => format!("{}:{}", path.display(), one_line(&problem.to_string())),
+            None => format!("{}: {}", path.display(), one_line(&problem.to_string())),
         })
         .collect();
     let rest = &problems[problems.len().min(PROBLEMS_SHOWN)..];

@@ -1,7 +1,7 @@
 //! Reading and writing trace files: choosing the encoding, parsing RON or
 //! JSON into the schema types, and attaching file positions to problems.
 
-use super::error::{LoadError, Problem};
+use super::error::{LoadError, Problem, one_line};
 use super::model::Trace;
 use super::overflow;
 use super::positions;
@@ -176,7 +176,8 @@ pub(crate) fn syntax_error(path: &Path, error: SyntaxError) -> LoadError {
         path: path.to_path_buf(),
         line: error.line,
         column: error.column,
-        message: error.message,
+        // The parser quotes the file: keep the error on one line.
+        message: one_line(&error.message).into_owned(),
     }
 }
 

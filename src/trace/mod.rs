@@ -16,7 +16,7 @@ mod text;
 mod validate;
 
 pub(crate) use compact::{Compact, StepKind};
-pub use error::{LoadError, Problem, SaveError};
+pub use error::{LoadError, Problem, SaveError, one_line};
 pub use load::{Encoding, SyntaxError, load, load_str, load_with, parse, to_text};
 pub use model::{Node, Partial, Rounding, Trace};
 pub use progress::{Progress, Silent};

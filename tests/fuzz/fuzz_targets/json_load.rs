@@ -1,0 +1,8 @@
+//! Fuzz target: `harness::json_load` on each input.
+
+#![no_main]
+
+#[path = "../harness.rs"]
+mod harness;
+
+libfuzzer_sys::fuzz_target!(|data: &[u8]| harness::json_load(data));

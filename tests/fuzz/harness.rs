@@ -1,0 +1,123 @@
+//! What each fuzz target does with its input, shared by the fuzz targets
+//! (`tests/fuzz/fuzz_targets/`, run with cargo-fuzz on nightly) and by
+//! `tests/fuzz_regressions.rs`, which replays every input that once failed
+//! on stable as part of `cargo test`. Each function panics when a property
+//! of Ebb fails; a rejected input is not a failure.
+
+#![allow(dead_code)]
+
+use ebb::diagnose::{Settings, diagnose};
+use ebb::report::Report;
+use ebb::sweep::{LedgerMode, Sweep};
+use ebb::trace::{Encoding, LoadError, TraceFile, load_str, parse, to_text};
+use std::path::Path;
+
+/// Loads RON text: never a panic; a rejection is one short error naming the
+/// file; what parses writes back to text that reads again the same.
+pub fn ron_load(data: &[u8]) {
+    load_text(data, Encoding::Ron, "fuzz.ron");
+}
+
+/// [`ron_load`] for JSON.
+pub fn json_load(data: &[u8]) {
+    load_text(data, Encoding::Json, "fuzz.json");
+}
+
+fn load_text(data: &[u8], encoding: Encoding, name: &str) {
+    let Ok(text) = std::str::from_utf8(data) else {
+        return;
+    };
+    if let Ok(file) = parse(text, encoding) {
+        round_trips(&file, encoding);
+    }
+    match load_str(text, encoding, Path::new(name)) {
+        Ok(trace) => assert!(trace.output() < trace.nodes().len()),
+        Err(error) => check_error(&error, name),
+    }
+}
+
+/// A rejection is at most 21 lines (20 problems and a count), each naming
+/// the file.
+fn check_error(error: &LoadError, name: &str) {
+    let message = error.to_string();
+    assert!(!message.is_empty());
+    let lines: Vec<&str> = message.lines().collect();
+    assert!(lines.len() <= 21, "{} lines", lines.len());
+    for line in lines {
+        assert!(line.starts_with(name), "a line without the file: {line}");
+    }
+}
+
+/// Writing a parsed file and reading it back gives the same text, in both
+/// encodings and across them: nothing is lost, NaN and ±inf included.
+fn round_trips(file: &TraceFile, encoding: Encoding) {
+    let text = to_text(file, encoding);
+    let again = parse(&text, encoding)
+        .unwrap_or_else(|error| panic!("Ebb cannot read what it wrote: {error:?}\n{text}"));
+    assert_eq!(
+        to_text(&again, encoding),
+        text,
+        "a second round trip differs"
+    );
+    let other = match encoding {
+        Encoding::Ron => Encoding::Json,
+        Encoding::Json => Encoding::Ron,
+    };
+    let crossed = to_text(file, other);
+    let back = parse(&crossed, other)
+        .unwrap_or_else(|error| panic!("Ebb cannot read its {other:?}: {error:?}\n{crossed}"));
+    assert_eq!(
+        to_text(&back, encoding),
+        text,
+        "the other encoding loses something"
+    );
+}
+
+/// Loads a trace (JSON if it starts with `{`, else RON), then what
+/// `ebb check` does: sweep, diagnose, report in text and JSON; then undoes
+/// every step and sweeps again, which must give the same bits.
+pub fn pipeline(data: &[u8]) {
+    let Ok(text) = std::str::from_utf8(data) else {
+        return;
+    };
+    let encoding = Encoding::sniff(text);
+    let Ok(trace) = load_str(text, encoding, Path::new("fuzz")) else {
+        return;
+    };
+    let settings = Settings::default();
+    let own = settings.swept_trace(&trace);
+    let mut plain = Sweep::new(&own, LedgerMode::Off);
+    plain.run_to_end();
+    let diagnosis = diagnose(&trace, &settings);
+    let report = Report::new("fuzz", &plain).with_diagnosis(&trace, &diagnosis);
+    assert!(!report.to_text().is_empty());
+    assert!(!report.to_json().is_empty());
+
+    let mut sweep = Sweep::new(&trace, LedgerMode::On);
+    let start = adjoint_bits(&sweep);
+    sweep.run_to_end();
+    let end = adjoint_bits(&sweep);
+    let flags = sweep.flags().len();
+    assert_eq!(end, adjoint_bits(&plain), "ledger on and off agree");
+    while sweep.back() {}
+    assert_eq!(sweep.cursor(), 0);
+    assert_eq!(adjoint_bits(&sweep), start, "undo returns to the seed");
+    sweep.run_to_end();
+    assert_eq!(
+        adjoint_bits(&sweep),
+        end,
+        "a second sweep gives the same bits"
+    );
+    assert_eq!(sweep.flags().len(), flags);
+}
+
+/// Every node's adjoint as bits (`None` before its first contribution).
+fn adjoint_bits(sweep: &Sweep) -> Vec<Option<Vec<u64>>> {
+    (0..sweep.trace().nodes().len())
+        .map(|node| {
+            sweep
+                .adjoint(node)
+                .map(|value| value.to_f64().iter().map(|x| x.to_bits()).collect())
+        })
+        .collect()
+}
