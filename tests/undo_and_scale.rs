@@ -139,6 +139,78 @@ fn step_then_back_restores_adjoints_flags_and_ledger_bit_exactly() {
     );
 }
 
+/// A deeper network with branches (a residual add and a value used twice),
+/// so its ledger holds tensor befores that a small budget cannot keep.
+fn branching_trace(seed: u64) -> Trace {
+    let mut rng = Rng::new(seed);
+    let mut tape = Tape::new("budget network", Dtype::F32);
+    let mut h = tape.input("x", random_tensor(&mut rng, &[4, 6], -1.0, 1.0));
+    for layer in 0..6 {
+        let w = tape.param(
+            &format!("w{layer}"),
+            random_tensor(&mut rng, &[6, 6], -0.8, 0.8),
+        );
+        let product = tape.matmul(h, w);
+        let squashed = tape.tanh(product);
+        let doubled = tape.mul(squashed, squashed);
+        let residual = tape.add(h, doubled);
+        h = tape.add(residual, squashed);
+    }
+    let loss = tape.apply(Op::Sum, &[h], Attrs::default()).unwrap();
+    checked(tape.finish(loss))
+}
+
+// Beyond its memory budget the ledger keeps checkpoints and undo replays
+// from them: random walks of steps and undos, and seeks, must give the same
+// bits as a ledger with no bound at every point (common practice: a
+// recompute-from-checkpoint scheme is exact when every step is deterministic).
+#[test]
+fn a_ledger_beyond_its_budget_undoes_to_the_same_bits() {
+    let mut rng = Rng::new(2024);
+    for seed in 1..=3 {
+        let trace = branching_trace(seed);
+        for budget in [0, 400, 2_000] {
+            let mut bounded = Sweep::with_budget(&trace, budget);
+            let mut unbounded = Sweep::with_budget(&trace, usize::MAX);
+            for _ in 0..60 {
+                match rng.below(4) {
+                    0 | 1 => {
+                        let k = rng.below(12);
+                        bounded.run_steps(k);
+                        unbounded.run_steps(k);
+                    }
+                    2 => {
+                        for _ in 0..rng.below(10) {
+                            assert_eq!(bounded.back(), unbounded.back());
+                        }
+                    }
+                    _ => {
+                        let to = rng.below(trace.sweep_order().len() + 1);
+                        bounded.seek(to);
+                        unbounded.seek(to);
+                    }
+                }
+                assert_eq!(
+                    snapshot(&bounded),
+                    snapshot(&unbounded),
+                    "seed {seed} budget {budget}"
+                );
+            }
+            bounded.run_to_end();
+            unbounded.run_to_end();
+            assert_eq!(snapshot(&bounded), snapshot(&unbounded));
+            let (spilled, _) = bounded.ledger_usage().unwrap();
+            if budget == 0 {
+                assert!(
+                    spilled,
+                    "a zero budget keeps checkpoints from the first tensor before"
+                );
+            }
+            assert!(!unbounded.ledger_usage().unwrap().0);
+        }
+    }
+}
+
 #[test]
 fn back_at_the_start_does_nothing() {
     let trace = checked(ebb::demos::teaching());

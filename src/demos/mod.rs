@@ -6,6 +6,7 @@
 pub mod exploding;
 mod medium;
 mod nan_hunt;
+pub mod networks;
 mod rng;
 mod underflow;
 mod vanishing;

@@ -955,7 +955,7 @@ fn zip_broadcast(
     f: impl Fn(f64, f64) -> f64 + Sync,
 ) -> Value {
     let len = numel(shape);
-    let direct = |v: &Value| v.shape() == shape || v.len() == 1;
+    let direct = |v: &Value| kernels::map::repeats_into(v.shape(), shape);
     if direct(a) && direct(b) {
         let buffer = kernels::map::ternary(
             len,
@@ -1025,7 +1025,7 @@ fn binary_partial(
     partial: fn(f64, f64, f64) -> f64,
 ) -> Value {
     let shape = output.shape();
-    let direct = |v: &Value| v.shape() == shape || v.len() == 1;
+    let direct = |v: &Value| kernels::map::repeats_into(v.shape(), shape);
     if direct(a) && direct(b) {
         let buffer = kernels::map::ternary(
             output.len(),
@@ -1105,22 +1105,27 @@ pub fn vjp(op: Op, args: &VjpArgs) -> Value {
                 return Value::Scalar(p.round(gs * p.round(partial(*x0, *x1, *z))));
             }
             let shape = y.shape();
-            let direct = |v: &Value| v.shape() == shape || v.len() == 1;
+            if let Some(constant) = constant_partial(op, args.slot) {
+                // add and sub: the product with ±1 is exact, so the
+                // contribution is the adjoint itself, or its negation.
+                let product = if constant == 1.0 {
+                    g.clone()
+                } else {
+                    let mut negated = g.clone();
+                    negated.map_in_place(|x| -x);
+                    negated
+                };
+                return reduce_to_shape(&product, target_shape, p);
+            }
+            let direct = |v: &Value| kernels::map::repeats_into(v.shape(), shape);
             if direct(a) && direct(b) && g.shape() == shape {
                 // Partial and product in one pass over the output's shape.
-                let (ea, eb, ey) = (a.elements(), b.elements(), y.elements());
-                let product = kernels::map::build(p.dtype, y.len(), |start, out| {
-                    let mut wide = [[0.0f64; kernels::CHUNK]; 3];
-                    let [wa, wb, wy] = &mut wide;
-                    let n = out.len();
-                    kernels::map::widen(ea, start, &mut wa[..n]);
-                    kernels::map::widen(eb, start, &mut wb[..n]);
-                    kernels::map::widen(ey, start, &mut wy[..n]);
-                    kernels::map::widen(g.elements(), start, out);
-                    for k in 0..n {
-                        out[k] = p.round(out[k] * p.round(partial(wa[k], wb[k], wy[k])));
-                    }
-                });
+                let product = kernels::map::quaternary(
+                    y.len(),
+                    [g.elements(), a.elements(), b.elements(), y.elements()],
+                    p.dtype,
+                    |gk, ak, bk, yk| p.round(gk * p.round(partial(ak, bk, yk))),
+                );
                 let product = Value::from_buffer(shape.to_vec(), product);
                 return reduce_to_shape(&product, target_shape, p);
             }
@@ -1128,6 +1133,17 @@ pub fn vjp(op: Op, args: &VjpArgs) -> Value {
             scale_and_reduce(g, &partial, target_shape, p)
         }
         Rule::Structured(rule) => (rule.vjp)(args).stored_as(p.dtype),
+    }
+}
+
+/// The partial of a binary op that is the same constant everywhere (add's
+/// and sub's ±1), so its vector-Jacobian product needs no multiply. Checked
+/// against the op table's own partials in the tests below.
+fn constant_partial(op: Op, slot: usize) -> Option<f64> {
+    match (op, slot) {
+        (Op::Add, _) | (Op::Sub, 0) => Some(1.0),
+        (Op::Sub, 1) => Some(-1.0),
+        _ => None,
     }
 }
 
@@ -1436,6 +1452,25 @@ mod tests {
         assert_eq!(Op::closest_name("mull"), Some("mul"));
         assert_eq!(Op::closest_name("softmx"), Some("softmax"));
         assert_eq!(Op::closest_name("completely_new"), None);
+    }
+
+    #[test]
+    fn constant_partials_are_the_op_tables_own() {
+        for op in [Op::Add, Op::Sub] {
+            let Rule::Binary(rule) = &op.spec().rule else {
+                panic!("{} is binary", op.name())
+            };
+            for slot in 0..2 {
+                for (a, b) in [(0.5, -3.0), (1e30, 2.0), (-0.0, 7.0)] {
+                    let y = (rule.value)(a, b);
+                    assert_eq!(
+                        constant_partial(op, slot),
+                        Some((rule.partials[slot])(a, b, y))
+                    );
+                }
+            }
+        }
+        assert_eq!(constant_partial(Op::Mul, 0), None);
     }
 
     #[test]

@@ -56,7 +56,7 @@ impl Flag {
         value: &Value,
     ) -> Option<Flag> {
         let (element, bad) = value.first_non_finite()?;
-        let count = value.to_f64().iter().filter(|x| !x.is_finite()).count();
+        let count = value.elements().count_non_finite();
         Some(Flag {
             step,
             node,

@@ -1,12 +1,19 @@
 //! The ledger: every contribution in the order it was made, so a branch
 //! point's adjoint can be watched filling up. It doubles as the undo log.
 //!
-//! It is cheap enough to keep on for a million-node trace because a scalar
-//! contribution stores one number, the adjoint its receiver held before.
-//! Everything else is derived: which edge (the trace fixes each step's edges),
-//! the value added (the consumer's adjoint is final once its step runs, and
-//! pulling it back again through the same partial with the same rounding gives
-//! the same bits) and the sum after. Tensor contributions are stored whole.
+//! It is cheap enough to keep on for a million-node trace, and for a network
+//! at real size, because a contribution stores only what its receiver held
+//! before: one number for a scalar, a shared reference for a tensor (nothing
+//! for a first contribution). Everything else is derived: which edge (the
+//! trace fixes each step's edges), the value added (the consumer's adjoint is
+//! final once its step runs, and pulling it back again through the same
+//! partial with the same rounding gives the same bits) and the sum after.
+//!
+//! Tensor befores are kept while they fit a memory budget. Beyond it the
+//! ledger keeps a checkpoint of every adjoint every [`INTERVAL`] steps
+//! instead (tensors shared, not copied), and undo restores the nearest
+//! checkpoint and replays forward: the same bits, since every step is
+//! deterministic.
 
 use super::Sweep;
 use super::scalar::Rounding;
@@ -32,34 +39,79 @@ pub struct Contribution {
     pub after: Value,
 }
 
-/// A contribution of a general (tensor, structured or recorded-partial) step, kept whole.
+/// The default most bytes of tensor befores a ledger keeps (512 MiB).
+pub const DEFAULT_BUDGET: usize = 512 << 20;
+
+/// Steps between checkpoints once the budget is spent: each undo beyond the
+/// budget replays at most this many steps.
+pub const INTERVAL: usize = 16;
+
+/// What a general (tensor, structured or recorded-partial) step's edge held
+/// before its contribution.
 #[derive(Debug, Clone, PartialEq)]
 pub(super) struct Stored {
     /// The edge's index in the trace's sweep-order edge list.
     pub edge: usize,
-    pub value: Value,
+    /// The receiver's adjoint before (`None`: its first contribution).
     pub before: Option<Value>,
-    pub after: Value,
+}
+
+/// Every adjoint just before step `step`.
+#[derive(Debug, Clone, PartialEq)]
+pub(super) struct Checkpoint {
+    pub step: usize,
+    pub scalar: Vec<f64>,
+    pub tensor: Vec<Option<Value>>,
 }
 
 /// What the sweep writes as it goes.
-#[derive(Debug, Clone, Default, PartialEq)]
+#[derive(Debug, Clone, PartialEq)]
 pub(super) struct Store {
     /// For every edge done, in sweep order, the scalar adjoint its receiver
     /// held before the contribution (NaN, unused, on edges of general steps).
     pub held: Vec<f64>,
-    /// The contributions of general steps, in order.
+    /// What the receivers of general steps' edges held, in order, for the
+    /// steps before `spill`.
     pub general: Vec<Stored>,
+    /// Bytes of tensor elements `general` holds.
+    pub bytes: usize,
+    /// Most bytes `general` may hold.
+    pub budget: usize,
+    /// The first step done after the budget was spent: from here on the
+    /// ledger keeps checkpoints, not befores.
+    pub spill: Option<usize>,
+    /// Checkpoints at `spill`, `spill + INTERVAL`, ..., in order.
+    pub checkpoints: Vec<Checkpoint>,
 }
 
 impl Store {
     /// Room for every edge of the sweep, reserved once: the trace fixes how
     /// many contributions a full sweep makes.
-    pub(super) fn with_capacity(edges: usize) -> Store {
+    pub(super) fn with_capacity(edges: usize, budget: usize) -> Store {
         Store {
             held: Vec::with_capacity(edges),
             general: Vec::new(),
+            bytes: 0,
+            budget,
+            spill: None,
+            checkpoints: Vec::new(),
         }
+    }
+
+    /// True when `step`'s befores were not kept.
+    pub(super) fn spilled(&self, step: usize) -> bool {
+        self.spill.is_some_and(|spill| step >= spill)
+    }
+
+    /// Bytes of tensor elements the ledger holds: befores, and checkpointed
+    /// tensors (counted as if unshared, so this is an upper bound).
+    pub fn held_bytes(&self) -> usize {
+        self.bytes
+            + self
+                .checkpoints
+                .iter()
+                .map(|checkpoint| checkpoint.scalar.len() * 8)
+                .sum::<usize>()
     }
 }
 
@@ -154,20 +206,35 @@ impl<'s, 't> Ledger<'s, 't> {
         let slot = edge - compact.edges_of(step).start;
         let input = compact.edge_input[edge] as usize;
         if compact.kind[step] == StepKind::General {
-            let index = self
-                .store
-                .general
-                .binary_search_by_key(&edge, |stored| stored.edge)
-                .expect("every edge of a general step done is stored");
-            let stored = &self.store.general[index];
+            let before = if self.store.spilled(step) {
+                self.sweep.spilled_before(self.store, step, slot)
+            } else {
+                let index = self
+                    .store
+                    .general
+                    .binary_search_by_key(&edge, |stored| stored.edge)
+                    .expect("every edge of a general step done before the budget is stored");
+                self.store.general[index].before.clone()
+            };
+            let adjoint = self
+                .sweep
+                .adjoint(consumer)
+                .expect("a step's node holds its adjoint");
+            let formed = super::pullback::form(
+                self.sweep.trace(),
+                consumer,
+                slot,
+                &adjoint,
+                before.as_ref(),
+            );
             return Contribution {
                 step,
                 consumer,
                 input,
                 slot,
-                value: stored.value.clone(),
-                before: stored.before.clone(),
-                after: stored.after.clone(),
+                value: formed.contribution,
+                before,
+                after: formed.after,
             };
         }
         let adjoint = self.sweep.scalar_adjoints[consumer];

@@ -8,13 +8,12 @@ mod pullback;
 mod scalar;
 
 pub use flags::{Flag, FlagKind};
-pub use ledger::{Contribution, Ledger};
-pub use pullback::{Pulled, accumulate, pull_back, push_forward};
+pub use ledger::{Contribution, DEFAULT_BUDGET, INTERVAL, Ledger};
+pub use pullback::{Pulled, accumulate, bad_partial, pull_back, push_forward};
 
-use crate::dtype::Subnormals;
 use crate::tensor::Value;
 use crate::trace::{StepKind, Trace};
-use ledger::{Store, Stored};
+use ledger::{Checkpoint, Store, Stored};
 use std::borrow::Cow;
 
 /// Whether the sweep keeps its ledger.
@@ -53,7 +52,19 @@ pub struct Sweep<'t> {
 
 impl<'t> Sweep<'t> {
     /// A sweep at its start: only the output holds an adjoint, the seed.
+    /// With the ledger on, tensor befores are kept up to [`DEFAULT_BUDGET`]
+    /// bytes (see [`Sweep::with_budget`]).
     pub fn new(trace: &'t Trace, mode: LedgerMode) -> Sweep<'t> {
+        Sweep::start(trace, mode, DEFAULT_BUDGET)
+    }
+
+    /// A sweep with its ledger on, keeping at most `budget` bytes of tensor
+    /// befores; beyond that it keeps checkpoints and undo replays from them.
+    pub fn with_budget(trace: &'t Trace, budget: usize) -> Sweep<'t> {
+        Sweep::start(trace, LedgerMode::On, budget)
+    }
+
+    fn start(trace: &'t Trace, mode: LedgerMode, budget: usize) -> Sweep<'t> {
         let mut scalar_adjoints = vec![-0.0; trace.nodes().len()];
         // Only tensor nodes use their slot: an all-scalar trace needs none.
         let has_tensors = !trace.compact().is_scalar.iter().all(|&scalar| scalar);
@@ -70,7 +81,7 @@ impl<'t> Sweep<'t> {
             seed => tensor_adjoints[trace.output()] = Some(seed.clone()),
         }
         let ledger = (mode == LedgerMode::On)
-            .then(|| Store::with_capacity(trace.compact().edge_input.len()));
+            .then(|| Store::with_capacity(trace.compact().edge_input.len(), budget));
         let flags: Vec<Flag> =
             Flag::for_value(0, trace.output(), FlagKind::NonFiniteAdjoint, trace.seed())
                 .into_iter()
@@ -226,54 +237,68 @@ impl<'t> Sweep<'t> {
         let compact = trace.compact();
         let node = trace.sweep_order()[step];
         let recorded = trace.node(node);
-        if let Some(flag) = Flag::for_value(step, node, FlagKind::NonFiniteValue, &recorded.value) {
+        if !compact.value_finite.is_finite(node, &recorded.value)
+            && let Some(flag) =
+                Flag::for_value(step, node, FlagKind::NonFiniteValue, &recorded.value)
+        {
             self.flags.push(flag);
         }
+        let keep = self.prepare_log(step);
         let adjoint = self
             .take_slot(node)
             .expect("a node's consumers are swept before it, so it holds an adjoint");
-        let flush = trace.subnormals() == Subnormals::Flush;
         let first_edge = compact.edges_of(step).start;
         for (slot, &input) in recorded.inputs.iter().enumerate() {
-            // The contribution is formed in the node's precision and lives,
-            // like the input's adjoint, in the input's dtype.
-            let dtype = trace.node_dtype(input);
-            let mut pulled = pull_back(trace, node, slot, &adjoint);
-            pulled.contribution = pulled.contribution.stored_as(dtype);
-            if flush {
-                pulled.contribution.map_in_place(|x| dtype.flush(x));
-            }
-            if let Some(bad) = pulled.bad_partial {
-                self.flags.push(Flag::partial(step, node, slot, bad));
-            }
             // An input met earlier in this step (x·x) has received already.
             let received =
                 compact.has_received(input, step) || recorded.inputs[..slot].contains(&input);
             let held = self.take_slot(input);
             let before = if received { held } else { None };
-            let mut after = accumulate(before.as_ref(), &pulled.contribution, dtype);
-            if flush {
-                after.map_in_place(|x| dtype.flush(x));
+            let formed = pullback::form(trace, node, slot, &adjoint, before.as_ref());
+            if let Some(bad) = formed.bad_partial {
+                self.flags.push(Flag::partial(step, node, slot, bad));
             }
-            if before.as_ref().is_none_or(Value::is_finite) {
+            if !formed.after_finite && before.as_ref().is_none_or(Value::is_finite) {
                 self.flags
-                    .extend(Flag::adjoint(step, node, slot, input, &after));
+                    .extend(Flag::adjoint(step, node, slot, input, &formed.after));
             }
-            if self.ledger.is_none() {
-                self.put_slot(input, Some(after));
-                continue;
+            self.put_slot(input, Some(formed.after));
+            if let Some(store) = self.ledger.as_mut() {
+                store.held.push(f64::NAN);
+                if keep {
+                    store.bytes += before.as_ref().map_or(0, Value::bytes);
+                    store.general.push(Stored {
+                        edge: first_edge + slot,
+                        before,
+                    });
+                }
             }
-            self.put_slot(input, Some(after.clone()));
-            let store = self.ledger.as_mut().expect("checked above");
-            store.held.push(f64::NAN);
-            store.general.push(Stored {
-                edge: first_edge + slot,
-                value: pulled.contribution,
-                before,
-                after,
-            });
         }
         self.put_slot(node, Some(adjoint));
+    }
+
+    /// Before a general step with the ledger on: whether its befores fit the
+    /// budget; once they do not, a checkpoint every [`INTERVAL`] steps.
+    fn prepare_log(&mut self, step: usize) -> bool {
+        let Some(store) = self.ledger.as_mut() else {
+            return false;
+        };
+        if store.spill.is_none() && store.bytes > store.budget {
+            store.spill = Some(step);
+        }
+        let Some(spill) = store.spill else {
+            return true;
+        };
+        let due = (step - spill).is_multiple_of(INTERVAL)
+            && store.checkpoints.last().is_none_or(|last| last.step < step);
+        if due {
+            store.checkpoints.push(Checkpoint {
+                step,
+                scalar: self.scalar_adjoints.clone(),
+                tensor: self.tensor_adjoints.clone(),
+            });
+        }
+        false
     }
 
     /// Undoes the last step bit-exactly. Returns false at the start.
@@ -287,6 +312,14 @@ impl<'t> Sweep<'t> {
             self.run_steps(target);
             return true;
         };
+        if store.spilled(target) {
+            self.ledger = Some(store);
+            self.replay_to(target);
+            return true;
+        }
+        // Below the budget again: what was spilled is no longer done.
+        store.spill = None;
+        store.checkpoints.clear();
         let compact = self.trace.compact();
         let edges = compact.edges_of(target);
         // Newest first, so an input met twice in the step (x·x) ends with
@@ -298,6 +331,7 @@ impl<'t> Sweep<'t> {
                 .is_some_and(|stored| stored.edge >= edges.start)
             {
                 let stored = store.general.pop().expect("checked above");
+                store.bytes -= stored.before.as_ref().map_or(0, Value::bytes);
                 self.put_slot(compact.edge_input[stored.edge] as usize, stored.before);
             }
         } else {
@@ -308,22 +342,101 @@ impl<'t> Sweep<'t> {
         store.held.truncate(edges.start);
         self.ledger = Some(store);
         self.cursor = target;
-        while self.flags.len() > self.seed_flags
-            && self.flags.last().is_some_and(|flag| flag.step >= target)
-        {
-            self.flags.pop();
-        }
+        self.drop_flags_from(target);
         true
     }
 
-    /// Returns to the start, keeping the ledger mode.
-    pub fn restart(&mut self) {
-        let mode = if self.ledger.is_some() {
-            LedgerMode::On
-        } else {
-            LedgerMode::Off
+    /// Drops the flags raised at step `step` or later (the seed's stay).
+    fn drop_flags_from(&mut self, step: usize) {
+        while self.flags.len() > self.seed_flags
+            && self.flags.last().is_some_and(|flag| flag.step >= step)
+        {
+            self.flags.pop();
+        }
+    }
+
+    /// Goes back to `target` (in the spilled part of the sweep) by restoring
+    /// the last checkpoint at or before it and replaying forward.
+    fn replay_to(&mut self, target: usize) {
+        let store = self
+            .ledger
+            .as_mut()
+            .expect("replays happen with the ledger on");
+        let at = store
+            .checkpoints
+            .partition_point(|checkpoint| checkpoint.step <= target);
+        let checkpoint = store.checkpoints[at - 1].clone();
+        store.checkpoints.truncate(at);
+        let first_edge = self.trace.compact().edge_start[checkpoint.step] as usize;
+        store.held.truncate(first_edge);
+        self.scalar_adjoints = checkpoint.scalar;
+        self.tensor_adjoints = checkpoint.tensor;
+        self.cursor = checkpoint.step;
+        self.drop_flags_from(checkpoint.step);
+        self.run_until(target);
+    }
+
+    /// What input `slot` of step `step` (a spilled general step, done) held
+    /// before its contribution: replayed on a scratch copy from the last
+    /// checkpoint at or before the step.
+    pub(in crate::sweep) fn spilled_before(
+        &self,
+        store: &Store,
+        step: usize,
+        slot: usize,
+    ) -> Option<Value> {
+        let at = store
+            .checkpoints
+            .partition_point(|checkpoint| checkpoint.step <= step);
+        let checkpoint = &store.checkpoints[at - 1];
+        let mut scratch = Sweep {
+            trace: self.trace,
+            cursor: checkpoint.step,
+            scalar_adjoints: checkpoint.scalar.clone(),
+            tensor_adjoints: checkpoint.tensor.clone(),
+            ledger: None,
+            flags: Vec::new(),
+            seed_flags: 0,
         };
-        *self = Sweep::new(self.trace, mode);
+        scratch.run_until(step);
+        let trace = self.trace;
+        let node = trace.sweep_order()[step];
+        let inputs = &trace.node(node).inputs;
+        let input = inputs[slot];
+        let adjoint = scratch
+            .adjoint(node)
+            .expect("a step's node holds its adjoint")
+            .into_owned();
+        let mut held = trace
+            .compact()
+            .has_received(input, step)
+            .then(|| scratch.adjoint(input).map(std::borrow::Cow::into_owned))
+            .flatten();
+        for (earlier, _) in inputs[..slot]
+            .iter()
+            .enumerate()
+            .filter(|&(_, &other)| other == input)
+        {
+            held = Some(pullback::form(trace, node, earlier, &adjoint, held.as_ref()).after);
+        }
+        held
+    }
+
+    /// Returns to the start, keeping the ledger mode and budget.
+    pub fn restart(&mut self) {
+        let budget = self.ledger.as_ref().map(|store| store.budget);
+        *self = match budget {
+            Some(budget) => Sweep::with_budget(self.trace, budget),
+            None => Sweep::new(self.trace, LedgerMode::Off),
+        };
+    }
+
+    /// Whether the ledger has spent its budget and keeps checkpoints, and
+    /// the bytes of tensors it holds (an upper bound).
+    pub fn ledger_usage(&self) -> Option<(bool, usize)> {
+        self.ledger
+            .as_ref()
+            .map(|store| (store.spill.is_some(), store.held_bytes()))
     }
 
     /// Takes up to `count` steps; returns how many were taken.
@@ -362,12 +475,21 @@ impl<'t> Sweep<'t> {
     /// Goes back or forward to exactly `cursor` steps done.
     pub fn seek(&mut self, cursor: usize) {
         let cursor = cursor.min(self.len());
-        if self.ledger.is_some() {
-            while self.cursor > cursor {
-                self.back();
+        match &self.ledger {
+            Some(store) if self.cursor > cursor => {
+                // Beyond the budget, one replay to the spill point (or the
+                // target) instead of one per step.
+                if let Some(spill) = store.spill
+                    && self.cursor > spill
+                {
+                    self.replay_to(cursor.max(spill));
+                }
+                while self.cursor > cursor {
+                    self.back();
+                }
             }
-        } else if self.cursor > cursor {
-            self.restart();
+            None if self.cursor > cursor => self.restart(),
+            _ => {}
         }
         self.run_steps(cursor - self.cursor);
     }

@@ -12,6 +12,9 @@ pub struct Pulled {
     pub contribution: Value,
     /// The first non-finite entry of the edge's local partial, if any.
     pub bad_partial: Option<f64>,
+    /// True when the partial was not formed (an elementwise op's fused
+    /// product), so `bad_partial` is unknown; see [`bad_partial`].
+    pub unchecked: bool,
 }
 
 /// Pulls `adjoint` (the adjoint of `node`) back along input edge `slot`.
@@ -23,10 +26,12 @@ pub fn pull_back(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pu
         Some(Partial::Scalar(s)) => Pulled {
             contribution: ops::scale_and_reduce(adjoint, &Value::Scalar(*s), input_shape, dtype),
             bad_partial: (!s.is_finite()).then_some(*s),
+            unchecked: false,
         },
         Some(Partial::Diagonal(diagonal)) => Pulled {
             contribution: ops::scale_and_reduce(adjoint, diagonal, input_shape, dtype),
             bad_partial: diagonal.first_non_finite().map(|(_, x)| x),
+            unchecked: false,
         },
         Some(Partial::Jacobian { rows, cols, data }) => Pulled {
             contribution: jacobian_transpose_product(
@@ -38,6 +43,7 @@ pub fn pull_back(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pu
                 dtype,
             ),
             bad_partial: data.iter().copied().find(|x| !x.is_finite()),
+            unchecked: false,
         },
         None => derived(trace, node, slot, adjoint),
     }
@@ -65,28 +71,12 @@ fn jacobian_transpose_product(
 
 /// The contribution from the op's own rule.
 fn derived(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
-    let precision = trace.precision(node);
-    let dtype = precision.dtype;
     let recorded = trace.node(node);
     let inputs: Vec<&Value> = recorded
         .inputs
         .iter()
         .map(|&input| &trace.node(input).value)
         .collect();
-    if let Some(partial) = ops::elementwise_partial(
-        recorded.op,
-        slot,
-        &inputs,
-        &recorded.value,
-        &recorded.attrs,
-        dtype,
-    ) {
-        let input_shape = inputs[slot].shape();
-        return Pulled {
-            contribution: ops::scale_and_reduce(adjoint, &partial, input_shape, precision),
-            bad_partial: partial.first_non_finite().map(|(_, x)| x),
-        };
-    }
     let args = VjpArgs {
         slot,
         inputs: &inputs,
@@ -95,10 +85,88 @@ fn derived(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
         attrs: &recorded.attrs,
         precision: trace.precision(node),
     };
-    // A structured op's partials are its recorded forward values, checked as values.
+    // An elementwise op's contribution is formed without storing its
+    // partial; see `bad_partial`. A structured op's partials are its
+    // recorded forward values, checked as values.
     Pulled {
         contribution: ops::vjp(recorded.op, &args),
         bad_partial: None,
+        unchecked: recorded.op.is_elementwise(),
+    }
+}
+
+/// The first non-finite entry of the derived partial on `node`'s edge
+/// `slot`, formed only when asked: a non-finite partial always leaves a
+/// non-finite contribution (∞·0 and NaN·x are NaN, ∞·x is ∞), so the sweep
+/// asks only when a contribution is not finite.
+pub fn bad_partial(trace: &Trace, node: usize, slot: usize) -> Option<f64> {
+    let recorded = trace.node(node);
+    let inputs: Vec<&Value> = recorded
+        .inputs
+        .iter()
+        .map(|&input| &trace.node(input).value)
+        .collect();
+    ops::elementwise_partial(
+        recorded.op,
+        slot,
+        &inputs,
+        &recorded.value,
+        &recorded.attrs,
+        trace.node_dtype(node),
+    )
+    .and_then(|partial| partial.first_non_finite().map(|(_, x)| x))
+}
+
+/// One contribution of a general step as the sweep makes it: `node`'s
+/// adjoint pulled back along edge `slot`, stored in the input's dtype
+/// (flushed when the trace flushes), and added to what the input held.
+/// The sweep and the ledger's re-derived entries both go through here, so
+/// they agree bit for bit.
+pub(crate) struct Formed {
+    /// The value added.
+    pub contribution: Value,
+    /// The input's adjoint after.
+    pub after: Value,
+    /// Whether `after` is finite.
+    pub after_finite: bool,
+    /// The first non-finite entry of the edge's partial, if any.
+    pub bad_partial: Option<f64>,
+}
+
+pub(crate) fn form(
+    trace: &Trace,
+    node: usize,
+    slot: usize,
+    adjoint: &Value,
+    before: Option<&Value>,
+) -> Formed {
+    let input = trace.node(node).inputs[slot];
+    let dtype = trace.node_dtype(input);
+    let flush = trace.subnormals() == crate::dtype::Subnormals::Flush;
+    let pulled = pull_back(trace, node, slot, adjoint);
+    let mut contribution = pulled.contribution.stored_as(dtype);
+    if flush {
+        contribution.map_in_place(|x| dtype.flush(x));
+    }
+    let mut after = accumulate(before, &contribution, dtype);
+    if flush {
+        after.map_in_place(|x| dtype.flush(x));
+    }
+    let after_finite = after.is_finite();
+    // A finite sum of a finite `before` and the contribution means a finite
+    // contribution, and so a finite partial: only otherwise is it looked at.
+    let bad_partial = match pulled.bad_partial {
+        Some(bad) => Some(bad),
+        None if pulled.unchecked && !after_finite && !contribution.is_finite() => {
+            bad_partial(trace, node, slot)
+        }
+        None => None,
+    };
+    Formed {
+        contribution,
+        after,
+        after_finite,
+        bad_partial,
     }
 }
 
@@ -108,6 +176,7 @@ fn derived(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pulled {
 /// would turn −0 into +0).
 pub fn accumulate(before: Option<&Value>, contribution: &Value, dtype: Dtype) -> Value {
     match (before, contribution) {
+        // Shares the contribution's elements: tensors are never changed in place.
         (None, _) => contribution.clone().stored_as(dtype),
         (Some(Value::Scalar(a)), Value::Scalar(c)) => Value::Scalar(dtype.round(a + c)),
         (Some(before), _) => Value::from_buffer(

@@ -21,6 +21,8 @@ pub trait Float: Copy + Send + Sync + PartialEq + std::fmt::Debug + 'static {
     fn view(elements: Elements<'_>) -> Option<&[Self]>;
     /// Owned elements of this type as a buffer.
     fn buffer(data: Vec<Self>) -> Buffer;
+    /// Neither NaN nor infinite (branch-free, so scans vectorise).
+    fn finite(self) -> bool;
 }
 
 impl Float for f64 {
@@ -43,6 +45,10 @@ impl Float for f64 {
     fn from_f64(x: f64) -> f64 {
         x
     }
+    #[inline]
+    fn finite(self) -> bool {
+        self.is_finite()
+    }
 }
 
 impl Float for f32 {
@@ -64,6 +70,10 @@ impl Float for f32 {
     #[inline]
     fn from_f64(x: f64) -> f32 {
         x as f32
+    }
+    #[inline]
+    fn finite(self) -> bool {
+        self.is_finite()
     }
 }
 
@@ -89,6 +99,11 @@ impl Float for f16 {
         // every representable input, and one rounding (never two) otherwise.
         f16::from_f64(Dtype::F16.round(x))
     }
+    #[inline]
+    fn finite(self) -> bool {
+        // binary16: the exponent field all ones is infinity or NaN.
+        self.to_bits() & 0x7c00 != 0x7c00
+    }
 }
 
 impl Float for bf16 {
@@ -110,6 +125,10 @@ impl Float for bf16 {
     #[inline]
     fn from_f64(x: f64) -> bf16 {
         bf16::from_f64(Dtype::Bf16.round(x))
+    }
+    #[inline]
+    fn finite(self) -> bool {
+        self.to_bits() & 0x7f80 != 0x7f80
     }
 }
 
@@ -184,6 +203,28 @@ impl<'a> Elements<'a> {
             Elements::F64(s) => Some(s),
             _ => None,
         }
+    }
+
+    /// The first element that is NaN or infinite, with its index. Scans in
+    /// branch-free blocks, so a finite tensor costs about a memory read.
+    pub fn first_non_finite(&self) -> Option<(usize, f64)> {
+        fn scan<T: Float>(s: &[T]) -> Option<(usize, f64)> {
+            const BLOCK: usize = 1024;
+            for (block, chunk) in s.chunks(BLOCK).enumerate() {
+                if chunk.iter().fold(true, |ok, x| ok & x.finite()) {
+                    continue;
+                }
+                let at = chunk.iter().position(|x| !x.finite())?;
+                return Some((block * BLOCK + at, chunk[at].to_f64()));
+            }
+            None
+        }
+        with_elements!(self, s => scan(s))
+    }
+
+    /// How many elements are NaN or infinite.
+    pub fn count_non_finite(&self) -> usize {
+        with_elements!(self, s => s.iter().filter(|x| !x.finite()).count())
     }
 
     /// Size in bytes.

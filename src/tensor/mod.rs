@@ -155,7 +155,7 @@ impl Value {
         if shape.is_empty() {
             Value::Scalar(buffer.elements().get(0))
         } else {
-            Value::Tensor(Box::new(Tensor::new(shape, Storage::Owned(buffer))))
+            Value::Tensor(Box::new(Tensor::new(shape, Storage::owned(buffer))))
         }
     }
 
@@ -227,7 +227,7 @@ impl Value {
             Value::Scalar(x) => Value::Scalar(dtype.round(x)),
             Value::Tensor(t) if t.elements().dtype() != dtype => {
                 let buffer = Buffer::converted(t.elements(), dtype);
-                Value::Tensor(Box::new(Tensor::new(t.shape, Storage::Owned(buffer))))
+                Value::Tensor(Box::new(Tensor::new(t.shape, Storage::owned(buffer))))
             }
             other => other,
         }
@@ -320,11 +320,10 @@ impl Value {
 
     /// The first non-finite element, if any, with its flat index.
     pub fn first_non_finite(&self) -> Option<(usize, f64)> {
-        crate::with_elements!(self.elements(), s => s
-            .iter()
-            .map(|x| x.to_f64())
-            .enumerate()
-            .find(|(_, x)| !x.is_finite()))
+        match self {
+            Value::Scalar(x) => (!x.is_finite()).then_some((0, *x)),
+            Value::Tensor(t) => t.elements().first_non_finite(),
+        }
     }
 
     /// Euclidean norm of all elements, computed in f64 with scaling so that it

@@ -79,15 +79,24 @@ impl Mapped {
 }
 
 /// A tensor's elements.
+///
+/// Owned elements are shared: values are never changed in place but through
+/// [`Storage::make_owned`], which copies when another value shares them. So
+/// a contribution that is its consumer's adjoint unchanged (an add's), a
+/// ledger entry or a reshape costs no copy.
 #[derive(Clone)]
 pub(crate) enum Storage {
     /// Elements in memory.
-    Owned(Buffer),
+    Owned(Arc<Buffer>),
     /// Elements in a mapped sidecar.
     Mapped(Mapped),
 }
 
 impl Storage {
+    pub(crate) fn owned(buffer: Buffer) -> Storage {
+        Storage::Owned(Arc::new(buffer))
+    }
+
     pub(crate) fn elements(&self) -> Elements<'_> {
         match self {
             Storage::Owned(buffer) => buffer.elements(),
@@ -95,13 +104,14 @@ impl Storage {
         }
     }
 
-    /// Makes the elements owned (copying a mapped range) and returns them.
+    /// Makes the elements owned and unshared (copying a mapped range, or
+    /// elements another value shares) and returns them.
     pub(crate) fn make_owned(&mut self) -> &mut Buffer {
         if let Storage::Mapped(mapped) = self {
-            *self = Storage::Owned(Buffer::converted(mapped.elements(), mapped.dtype));
+            *self = Storage::owned(Buffer::converted(mapped.elements(), mapped.dtype));
         }
         match self {
-            Storage::Owned(buffer) => buffer,
+            Storage::Owned(buffer) => Arc::make_mut(buffer),
             Storage::Mapped(_) => unreachable!("converted above"),
         }
     }

@@ -44,6 +44,50 @@ pub(crate) struct Compact {
     /// contribution exactly when that step is done, so the sweep need not
     /// mark it.
     pub first_contribution: Vec<u32>,
+    /// Whether each node's forward value is finite, learnt on first need:
+    /// values never change, so every sweep after the first skips the scan.
+    pub value_finite: FiniteCache,
+}
+
+/// Per node: 0 not yet known, 1 finite, 2 holds NaN or ±inf.
+#[derive(Debug, Default)]
+pub(crate) struct FiniteCache(Vec<std::sync::atomic::AtomicU8>);
+
+impl Clone for FiniteCache {
+    fn clone(&self) -> FiniteCache {
+        use std::sync::atomic::{AtomicU8, Ordering};
+        FiniteCache(
+            self.0
+                .iter()
+                .map(|state| AtomicU8::new(state.load(Ordering::Relaxed)))
+                .collect(),
+        )
+    }
+}
+
+impl FiniteCache {
+    fn new(nodes: usize) -> FiniteCache {
+        FiniteCache(
+            (0..nodes)
+                .map(|_| std::sync::atomic::AtomicU8::new(0))
+                .collect(),
+        )
+    }
+
+    /// Whether `value` (node `node`'s forward value) is finite, scanning it
+    /// only the first time.
+    pub(crate) fn is_finite(&self, node: usize, value: &Value) -> bool {
+        use std::sync::atomic::Ordering;
+        match self.0[node].load(Ordering::Relaxed) {
+            1 => true,
+            2 => false,
+            _ => {
+                let finite = value.is_finite();
+                self.0[node].store(if finite { 1 } else { 2 }, Ordering::Relaxed);
+                finite
+            }
+        }
+    }
 }
 
 impl Compact {
@@ -67,6 +111,7 @@ impl Compact {
             edge_input: Vec::with_capacity(edges),
             edge_partial: Vec::with_capacity(edges),
             first_contribution: vec![UNREACHED; nodes.len()],
+            value_finite: FiniteCache::new(nodes.len()),
         };
         compact.edge_start.push(0);
         for (step, &index) in order.iter().enumerate() {

@@ -10,20 +10,60 @@ use crate::dtype::Dtype;
 use crate::tensor::{Buffer, Elements, Float};
 use rayon::prelude::*;
 
-/// Widens elements `start..start + out.len()` of `elements` into `out`; a
-/// one-element input is broadcast.
+/// Widens elements `start..start + out.len()` of `elements` into `out`. An
+/// input shorter than the range repeats with its own length as the period:
+/// a one-element input, or one broadcast over leading axes (a bias of shape
+/// `[n]` against `[m, n]`), which is how row-major broadcasting over leading
+/// axes reads. Callers use short inputs only for such broadcasts.
 #[inline]
 pub fn widen(elements: Elements<'_>, start: usize, out: &mut [f64]) {
-    if elements.len() == 1 {
+    let (len, period) = (out.len(), elements.len());
+    if period == 1 {
         out.fill(elements.get(0));
         return;
     }
-    let len = out.len();
     crate::with_elements!(elements, s => {
-        for (slot, x) in out.iter_mut().zip(&s[start..start + len]) {
-            *slot = x.to_f64();
+        if start + len <= period {
+            for (slot, x) in out.iter_mut().zip(&s[start..start + len]) {
+                *slot = x.to_f64();
+            }
+        } else {
+            let mut at = start % period;
+            for slot in out.iter_mut() {
+                *slot = s[at].to_f64();
+                at += 1;
+                if at == period {
+                    at = 0;
+                }
+            }
         }
     })
+}
+
+/// True when a value of `shape` broadcasts into `out` by repeating whole:
+/// one element, the same shape, or the trailing axes of `out` (leading ones
+/// of `shape` aside). [`widen`] reads such inputs directly.
+pub fn repeats_into(shape: &[usize], out: &[usize]) -> bool {
+    let kept = &shape[shape.iter().take_while(|&&d| d == 1).count()..];
+    crate::tensor::numel(shape) == 1 || out.ends_with(kept)
+}
+
+thread_local! {
+    /// Widening buffers of [`CHUNK`] f64s, kept per thread and reused.
+    static SCRATCH: std::cell::RefCell<Vec<Vec<f64>>> = const { std::cell::RefCell::new(Vec::new()) };
+}
+
+/// Runs `body` with a buffer of [`CHUNK`] f64s from this thread's spares
+/// (allocated once per thread; nested uses take further buffers), so the
+/// kernels neither allocate nor zero-fill per chunk.
+#[inline]
+pub fn with_scratch<R>(body: impl FnOnce(&mut [f64]) -> R) -> R {
+    let mut buffer = SCRATCH
+        .with(|spares| spares.borrow_mut().pop())
+        .unwrap_or_else(|| vec![0.0; CHUNK]);
+    let result = body(&mut buffer);
+    SCRATCH.with(|spares| spares.borrow_mut().push(buffer));
+    result
 }
 
 /// A buffer of `len` elements of `dtype` whose chunk starting at `start` is
@@ -33,12 +73,13 @@ pub fn build(dtype: Dtype, len: usize, fill: impl Fn(usize, &mut [f64]) + Sync) 
     fn typed<T: Float>(len: usize, fill: &(impl Fn(usize, &mut [f64]) + Sync)) -> Vec<T> {
         let mut out = vec![T::from_f64(0.0); len];
         let work = |(index, chunk): (usize, &mut [T])| {
-            let mut wide = [0.0f64; CHUNK];
-            let wide = &mut wide[..chunk.len()];
-            fill(index * CHUNK, wide);
-            for (slot, &x) in chunk.iter_mut().zip(wide.iter()) {
-                *slot = T::from_f64(x);
-            }
+            with_scratch(|wide| {
+                let wide = &mut wide[..chunk.len()];
+                fill(index * CHUNK, wide);
+                for (slot, &x) in chunk.iter_mut().zip(wide.iter()) {
+                    *slot = T::from_f64(x);
+                }
+            })
         };
         if len >= PARALLEL_THRESHOLD {
             out.par_chunks_mut(CHUNK).enumerate().for_each(work);
@@ -63,8 +104,8 @@ pub fn unary(x: Elements<'_>, dtype: Dtype, f: impl Fn(f64) -> f64 + Sync) -> Bu
     })
 }
 
-/// `f(a, b, c)` for every element of three equally long inputs (a
-/// one-element input is broadcast), stored in `dtype`.
+/// `f(a, b, c)` for every element of three inputs of `len` elements (a
+/// shorter input repeats, see [`widen`]), stored in `dtype`.
 pub fn ternary(
     len: usize,
     [a, b, c]: [Elements<'_>; 3],
@@ -72,15 +113,45 @@ pub fn ternary(
     f: impl Fn(f64, f64, f64) -> f64 + Sync,
 ) -> Buffer {
     build(dtype, len, |start, out| {
-        let mut wide_b = [0.0f64; CHUNK];
-        let mut wide_c = [0.0f64; CHUNK];
-        let (wide_b, wide_c) = (&mut wide_b[..out.len()], &mut wide_c[..out.len()]);
-        widen(a, start, out);
-        widen(b, start, wide_b);
-        widen(c, start, wide_c);
-        for ((v, &y), &z) in out.iter_mut().zip(wide_b.iter()).zip(wide_c.iter()) {
-            *v = f(*v, y, z);
-        }
+        with_scratch(|wide_b| {
+            with_scratch(|wide_c| {
+                let n = out.len();
+                let (wide_b, wide_c) = (&mut wide_b[..n], &mut wide_c[..n]);
+                widen(a, start, out);
+                widen(b, start, wide_b);
+                widen(c, start, wide_c);
+                for ((v, &y), &z) in out.iter_mut().zip(wide_b.iter()).zip(wide_c.iter()) {
+                    *v = f(*v, y, z);
+                }
+            })
+        })
+    })
+}
+
+/// `f(a, b, c, d)` for every element of four inputs of `len` elements (a
+/// shorter input repeats, see [`widen`]), stored in `dtype`.
+pub fn quaternary(
+    len: usize,
+    [a, b, c, d]: [Elements<'_>; 4],
+    dtype: Dtype,
+    f: impl Fn(f64, f64, f64, f64) -> f64 + Sync,
+) -> Buffer {
+    build(dtype, len, |start, out| {
+        with_scratch(|wide_b| {
+            with_scratch(|wide_c| {
+                with_scratch(|wide_d| {
+                    let n = out.len();
+                    let (wb, wc, wd) = (&mut wide_b[..n], &mut wide_c[..n], &mut wide_d[..n]);
+                    widen(a, start, out);
+                    widen(b, start, wb);
+                    widen(c, start, wc);
+                    widen(d, start, wd);
+                    for k in 0..n {
+                        out[k] = f(out[k], wb[k], wc[k], wd[k]);
+                    }
+                })
+            })
+        })
     })
 }
 
@@ -88,13 +159,14 @@ pub fn ternary(
 /// an adjoint takes in one more contribution.
 pub fn add(before: Elements<'_>, contribution: Elements<'_>, dtype: Dtype) -> Buffer {
     build(dtype, before.len(), |start, out| {
-        let mut wide = [0.0f64; CHUNK];
-        let wide = &mut wide[..out.len()];
-        widen(before, start, out);
-        widen(contribution, start, wide);
-        for (v, &c) in out.iter_mut().zip(wide.iter()) {
-            *v = dtype.round(*v + c);
-        }
+        with_scratch(|wide| {
+            let wide = &mut wide[..out.len()];
+            widen(before, start, out);
+            widen(contribution, start, wide);
+            for (v, &c) in out.iter_mut().zip(wide.iter()) {
+                *v = dtype.round(*v + c);
+            }
+        })
     })
 }
 
@@ -109,22 +181,23 @@ pub fn sum_rows(
     dtype: Dtype,
 ) -> Buffer {
     build(dtype, cols, |start, out| {
-        let mut row = [0.0f64; CHUNK];
-        let row = &mut row[..out.len()];
-        for r in 0..rows {
-            widen(data, r * cols + start, row);
-            if r == 0 {
-                out.copy_from_slice(row);
-            } else {
-                for (v, &x) in out.iter_mut().zip(row.iter()) {
-                    *v = accumulate.round(*v + x);
+        with_scratch(|row| {
+            let row = &mut row[..out.len()];
+            if rows == 0 {
+                out.fill(0.0);
+            }
+            for r in 0..rows {
+                widen(data, r * cols + start, row);
+                if r == 0 {
+                    out.copy_from_slice(row);
+                } else {
+                    for (v, &x) in out.iter_mut().zip(row.iter()) {
+                        *v = accumulate.round(*v + x);
+                    }
                 }
             }
-        }
-        if rows == 0 {
-            out.fill(0.0);
-        }
-        out.iter_mut().for_each(|v| *v = dtype.round(*v));
+            out.iter_mut().for_each(|v| *v = dtype.round(*v));
+        })
     })
 }
 
