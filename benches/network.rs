@@ -230,8 +230,8 @@ fn main() {
             None => "—".to_string(),
         };
         println!(
-            "  {:<34} {:>10} {:>10}  {}",
-            "", "min", "median", "min / PyTorch backward min"
+            "  {:<34} {:>10} {:>10}  min / PyTorch backward min",
+            "", "min", "median"
         );
         for (what, (min, median)) in [
             ("full sweep, ledger off", (off_min, off_median)),
