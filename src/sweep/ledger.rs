@@ -2,14 +2,17 @@
 //! point's adjoint can be watched filling up. It doubles as the undo log.
 //!
 //! It is cheap enough to keep on for a million-node trace, and for a network
-//! at real size, because a contribution stores only what its receiver held
-//! before: one number for a scalar, a shared reference for a tensor (nothing
-//! for a first contribution). Everything else is derived: which edge (the
-//! trace fixes each step's edges), the value added (the consumer's adjoint is
+//! at real size. A scalar contribution stores one number, the adjoint its
+//! receiver held before; everything else is derived: which edge (the trace
+//! fixes each step's edges), the value added (the consumer's adjoint is
 //! final once its step runs, and pulling it back again through the same
-//! partial with the same rounding gives the same bits) and the sum after.
+//! partial with the same rounding gives the same bits) and the sum after. A
+//! tensor contribution keeps the value, the before and the after as shared
+//! references to the elements the sweep made anyway (a first contribution is
+//! its own after; an after is the next contribution's before), so only a
+//! branch point's sums cost memory.
 //!
-//! Tensor befores are kept while they fit a memory budget. Beyond it the
+//! Tensor entries are kept while they fit a memory budget. Beyond it the
 //! ledger keeps a checkpoint of every adjoint every [`INTERVAL`] steps
 //! instead (tensors shared, not copied), and undo restores the nearest
 //! checkpoint and replays forward: the same bits, since every step is
@@ -46,14 +49,16 @@ pub const DEFAULT_BUDGET: usize = 512 << 20;
 /// budget replays at most this many steps.
 pub const INTERVAL: usize = 16;
 
-/// What a general (tensor, structured or recorded-partial) step's edge held
-/// before its contribution.
+/// A contribution of a general (tensor, structured or recorded-partial)
+/// step, its elements shared with the sweep's.
 #[derive(Debug, Clone, PartialEq)]
 pub(super) struct Stored {
     /// The edge's index in the trace's sweep-order edge list.
     pub edge: usize,
+    pub value: Value,
     /// The receiver's adjoint before (`None`: its first contribution).
     pub before: Option<Value>,
+    pub after: Value,
 }
 
 /// Every adjoint just before step `step`.
@@ -70,10 +75,10 @@ pub(super) struct Store {
     /// For every edge done, in sweep order, the scalar adjoint its receiver
     /// held before the contribution (NaN, unused, on edges of general steps).
     pub held: Vec<f64>,
-    /// What the receivers of general steps' edges held, in order, for the
-    /// steps before `spill`.
+    /// The contributions of general steps, in order, for the steps before `spill`.
     pub general: Vec<Stored>,
-    /// Bytes of tensor elements `general` holds.
+    /// Bytes of tensor elements `general` holds that the sweep no longer
+    /// does: the befores, and the values that are not their own after.
     pub bytes: usize,
     /// Most bytes `general` may hold.
     pub budget: usize,
@@ -206,16 +211,25 @@ impl<'s, 't> Ledger<'s, 't> {
         let slot = edge - compact.edges_of(step).start;
         let input = compact.edge_input[edge] as usize;
         if compact.kind[step] == StepKind::General {
-            let before = if self.store.spilled(step) {
-                self.sweep.spilled_before(self.store, step, slot)
-            } else {
+            if !self.store.spilled(step) {
                 let index = self
                     .store
                     .general
                     .binary_search_by_key(&edge, |stored| stored.edge)
                     .expect("every edge of a general step done before the budget is stored");
-                self.store.general[index].before.clone()
-            };
+                let stored = &self.store.general[index];
+                return Contribution {
+                    step,
+                    consumer,
+                    input,
+                    slot,
+                    value: stored.value.clone(),
+                    before: stored.before.clone(),
+                    after: stored.after.clone(),
+                };
+            }
+            // Beyond the budget: re-derived through the sweep's own code.
+            let before = self.sweep.spilled_before(self.store, step, slot);
             let adjoint = self
                 .sweep
                 .adjoint(consumer)

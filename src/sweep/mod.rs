@@ -16,6 +16,16 @@ use crate::trace::{StepKind, Trace};
 use ledger::{Checkpoint, Store, Stored};
 use std::borrow::Cow;
 
+/// Bytes a ledger entry holds that the sweep itself no longer does: the
+/// before, and the value unless it is the first contribution (then it is the
+/// after, which the input's adjoint holds).
+fn stored_bytes(before: &Option<Value>, value: &Value) -> usize {
+    match before {
+        Some(before) => before.bytes() + value.bytes(),
+        None => 0,
+    }
+}
+
 /// Whether the sweep keeps its ledger.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum LedgerMode {
@@ -262,17 +272,19 @@ impl<'t> Sweep<'t> {
                 self.flags
                     .extend(Flag::adjoint(step, node, slot, input, &formed.after));
             }
-            self.put_slot(input, Some(formed.after));
             if let Some(store) = self.ledger.as_mut() {
                 store.held.push(f64::NAN);
                 if keep {
-                    store.bytes += before.as_ref().map_or(0, Value::bytes);
+                    store.bytes += stored_bytes(&before, &formed.contribution);
                     store.general.push(Stored {
                         edge: first_edge + slot,
+                        value: formed.contribution,
                         before,
+                        after: formed.after.clone(),
                     });
                 }
             }
+            self.put_slot(input, Some(formed.after));
         }
         self.put_slot(node, Some(adjoint));
     }
@@ -331,7 +343,7 @@ impl<'t> Sweep<'t> {
                 .is_some_and(|stored| stored.edge >= edges.start)
             {
                 let stored = store.general.pop().expect("checked above");
-                store.bytes -= stored.before.as_ref().map_or(0, Value::bytes);
+                store.bytes -= stored_bytes(&stored.before, &stored.value);
                 self.put_slot(compact.edge_input[stored.edge] as usize, stored.before);
             }
         } else {
