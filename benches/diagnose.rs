@@ -71,3 +71,16 @@ fn diagnose_network(bencher: divan::Bencher) {
     let settings = Settings::default();
     bencher.bench(|| diagnose(&trace, &settings).findings.len());
 }
+
+/// The forward consistency check alone: every node recomputed with the op table.
+#[divan::bench(args = [10_000, 100_000])]
+fn forward_check_chain(bencher: divan::Bencher, length: usize) {
+    let trace = chain(length);
+    bencher.bench(|| ebb::diagnose::check_forward(&trace, 1.0).checked);
+}
+
+#[divan::bench]
+fn forward_check_network(bencher: divan::Bencher) {
+    let trace = network();
+    bencher.bench(|| ebb::diagnose::check_forward(&trace, 1.0).checked);
+}

@@ -14,10 +14,13 @@
 //! field; `class`, `origin` and `diagnosis` are absent when no diagnosis ran.
 
 pub mod diagnosis;
+pub mod fit;
+pub mod gradients;
 
 pub use diagnosis::DiagnosisReport;
+pub use gradients::{Gradients, GradientsError};
 
-use crate::diagnose::Diagnosis;
+use crate::diagnose::{Diagnosis, Rule};
 use crate::format::{compact, shape as show};
 use crate::sweep::{Flag, FlagKind, Sweep};
 use crate::trace::{Num, Trace};
@@ -46,6 +49,12 @@ pub struct Report {
     pub flags: Vec<FlagEntry>,
     /// True when nothing was flagged.
     pub clean: bool,
+    /// Whether the check fails (exit status 1): something was flagged, or
+    /// with `fail_on`, a finding of one of those rules.
+    pub failed: bool,
+    /// The rules that fail the check when given (`--fail-on`); absent: any.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub fail_on: Option<Vec<&'static str>>,
     /// The diagnosis, when one was made.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub diagnosis: Option<DiagnosisReport>,
@@ -118,6 +127,15 @@ impl Gradient {
     pub fn non_finite_text(&self) -> String {
         crate::stats::non_finite_text(self.nan, self.pos_inf, self.neg_inf)
     }
+}
+
+/// How the text report is laid out.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct TextOptions {
+    /// Fit chains and paths into this many columns, keeping both ends.
+    pub width: Option<usize>,
+    /// Only the diagnosis and the gradient table.
+    pub brief: bool,
 }
 
 /// A node whose numbers were rounded into its dtype on load.
@@ -273,6 +291,8 @@ impl Report {
             gradients,
             rounded_on_load: RoundingEntry::all(trace),
             clean: flags.is_empty(),
+            failed: !flags.is_empty(),
+            fail_on: None,
             flags,
             diagnosis: None,
             sweep_flags: sweep.flags().to_vec(),
@@ -294,6 +314,7 @@ impl Report {
             }
         }
         self.clean = self.clean && diagnosis.is_clean();
+        self.failed = !self.clean;
         self.diagnosis = Some(DiagnosisReport::new(trace, diagnosis));
         self
     }
@@ -306,10 +327,19 @@ impl Report {
     /// The report as text: the short diagnosis first, then the counts,
     /// gradients and flags, then the diagnosis's details.
     pub fn to_text(&self) -> String {
+        self.to_text_with(&TextOptions::default())
+    }
+
+    /// The report as text, laid out by `options`.
+    pub fn to_text_with(&self, options: &TextOptions) -> String {
         let mut out = String::new();
         if let Some(diagnosis) = &self.diagnosis {
-            out.push_str(&diagnosis.summary_text(&self.trace.dtype));
+            out.push_str(&diagnosis.summary_text_fit(options.width));
             out.push('\n');
+        }
+        if options.brief {
+            out.push_str(&self.gradients_text());
+            return out;
         }
         let c = &self.counts;
         out.push_str(&format!(
@@ -343,9 +373,30 @@ impl Report {
         out.push_str(&self.gradients_text());
         out.push_str(&self.flags_text());
         if let Some(diagnosis) = &self.diagnosis {
-            out.push_str(&diagnosis.details_text());
+            out.push_str(&diagnosis.details_text_fit(options.width));
         }
         out
+    }
+
+    /// Sets which rules fail the check (`fail_on`, and `failed` from it):
+    /// `None` for any rule or flag; otherwise only findings of these rules
+    /// (a sweep flag counts as `non_finite`).
+    pub fn with_fail_on(mut self, rules: Option<&[Rule]>) -> Report {
+        self.failed = match rules {
+            None => !self.clean,
+            Some(rules) => {
+                let flagged = rules.contains(&Rule::NonFinite) && !self.flags.is_empty();
+                flagged
+                    || self.diagnosis.as_ref().is_some_and(|diagnosis| {
+                        diagnosis
+                            .findings
+                            .iter()
+                            .any(|finding| rules.contains(&finding.rule))
+                    })
+            }
+        };
+        self.fail_on = rules.map(|rules| rules.iter().map(|rule| rule.name()).collect());
+        self
     }
 
     fn gradients_text(&self) -> String {

@@ -4,6 +4,26 @@
 use clap::{Parser, Subcommand};
 use std::path::PathBuf;
 
+/// Every trace form a command reads, for each command's help.
+pub const TRACE_FORMS: &str = "The trace: .ron or .json (text, tensors inline or in the .safetensors sidecar its header names), or .tape (a RON header whose tensors live in NAME.safetensors beside it).";
+
+/// A rule name for `--fail-on`, or `any` / `none`.
+fn rule_name(text: &str) -> Result<String, String> {
+    let text = text.trim();
+    if text == "any" || text == "none" || ebb::diagnose::Rule::from_name(text).is_some() {
+        Ok(text.to_string())
+    } else {
+        let names: Vec<&str> = ebb::diagnose::Rule::ALL
+            .iter()
+            .map(|rule| rule.name())
+            .collect();
+        Err(format!(
+            "no rule is called `{text}` (rules: {}; or any, none)",
+            names.join(", ")
+        ))
+    }
+}
+
 /// Step the reverse sweep of a recorded trace and find where a bad gradient was born.
 #[derive(Debug, Parser)]
 #[command(name = "ebb", version, about, long_about = None, after_help = "Examples:\n  ebb                           step the built-in demo trace in the view (its report when not a terminal)\n  ebb open traces/teaching.ron  step a trace in the full-screen view\n  ebb check traces/teaching.ron report gradients and flags\n  ebb sweep traces/teaching.ron list every step of the sweep")]
@@ -29,7 +49,7 @@ pub enum Command {
         after_help = "Examples:\n  ebb open traces/teaching.ron\n  ebb open run.json --theme colorblind\n  ebb open run.json --theme my-theme.ron\n  ebb open run.json --keys my-keys.ron\n\nKeys: ? in the view lists them all."
     )]
     Open {
-        /// The trace file (.ron or .json).
+        #[arg(help = TRACE_FORMS)]
         trace: PathBuf,
         /// A shipped theme (dark, light, contrast, colorblind) or a path to a .ron theme.
         #[arg(long, value_name = "NAME|PATH")]
@@ -46,16 +66,28 @@ pub enum Command {
     },
     /// Load a trace, sweep it to the end, report gradients and flags.
     ///
-    /// Exit status: 0 when nothing is flagged, 1 when something is, 2 on bad input.
+    /// Exit status: 0 when nothing is flagged, 1 when something is (with --fail-on: when a
+    /// finding of one of those rules is), 2 on bad input.
     #[command(
-        after_help = "Examples:\n  ebb check traces/teaching.ron\n  ebb check run-1234.json --json | jq '.diagnosis.first_origin'\n  ebb check run.ron --rules rules.ron --set gain_above=50 --set 'replay=[f16, bf16]'"
+        after_help = "Examples:\n  ebb check traces/teaching.ron\n  ebb check run-1234.json --json | jq '.diagnosis.first_origin'\n  ebb check run.ron --rules rules.ron --set gain_above=50 --set 'replay=[f16, bf16]'\n  ebb check run.tape --brief --fail-on non_finite,overflow,exploding"
     )]
     Check {
-        /// The trace file (.ron, .json or .tape).
+        #[arg(help = TRACE_FORMS)]
         trace: PathBuf,
         /// Print the report as JSON (stable field names, for CI scripts).
         #[arg(long)]
         json: bool,
+        /// Print only the diagnosis and the gradient table.
+        #[arg(long)]
+        brief: bool,
+        /// Rules whose findings make the exit status 1, comma-separated (default: any rule or
+        /// flag; `none`: never). A sweep flag counts as non_finite.
+        #[arg(long, value_name = "RULE,…", value_delimiter = ',', value_parser = rule_name)]
+        fail_on: Vec<String>,
+        /// Fit chains and paths into this many columns, keeping both ends (default: the
+        /// terminal's width, or $COLUMNS; 0: no limit).
+        #[arg(long, value_name = "N")]
+        width: Option<usize>,
         /// A RON settings file with rule thresholds and replay options, e.g. `(gain_above: 50.0, subnormals: flush)`.
         #[arg(long, value_name = "FILE")]
         rules: Option<PathBuf>,
@@ -67,25 +99,54 @@ pub enum Command {
         set: Vec<String>,
     },
     /// Print the sweep step by step: each node, its adjoint, each contribution.
+    ///
+    /// Tensors show their shape, norm and four entries: the first four, or those around the
+    /// first NaN or infinity, which is named with its index. Exit status: 0 when the sweep
+    /// raises no flag, 1 when it does, 2 on bad input.
     #[command(
-        after_help = "Examples:\n  ebb sweep traces/teaching.ron\n  ebb sweep big.json --steps 20"
+        after_help = "Examples:\n  ebb sweep traces/teaching.ron\n  ebb sweep big.json --steps 20\n  ebb sweep run.tape --from 120 --steps 5\n  ebb sweep run.tape --node layer3.w --json"
     )]
     Sweep {
-        /// The trace file (.ron, .json or .tape).
+        #[arg(help = TRACE_FORMS)]
         trace: PathBuf,
-        /// Stop after this many steps.
+        /// List at most this many steps.
         #[arg(long, value_name = "N")]
         steps: Option<usize>,
+        /// Start listing at this step (1-based); the steps before it run unlisted.
+        #[arg(long, value_name = "STEP", value_parser = clap::value_parser!(u64).range(1..))]
+        from: Option<u64>,
+        /// List only the steps that process node ID or send it a contribution.
+        #[arg(long, value_name = "ID")]
+        node: Option<String>,
+        /// Print the steps as JSON.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Print every parameter's gradient in full precision, as JSON or into a safetensors file.
+    ///
+    /// Each gradient is the parameter's adjoint after the whole sweep, in the parameter's dtype;
+    /// a parameter that does not reach the output gets zeros. Exit status: 0, or 2 on bad input.
+    #[command(
+        after_help = "Examples:\n  ebb gradients traces/teaching.ron\n  ebb gradients run.tape -o grads.safetensors\n  ebb gradients run.json | jq '.params[] | select(.id == \"fc1.weight\") | .data[:4]'"
+    )]
+    Gradients {
+        #[arg(help = TRACE_FORMS)]
+        trace: PathBuf,
+        /// Write them to FILE instead: .safetensors (one tensor per parameter, named by its id,
+        /// in its dtype) or .json. Written to a temporary file first, then renamed.
+        #[arg(short = 'o', long = "output", value_name = "FILE")]
+        output: Option<PathBuf>,
     },
     /// Look for a wrong derivative: recorded partials against the op table,
     /// finite differences, reported gradients and the tangent sweep.
     ///
-    /// Exit status: 0 when every check agrees, 1 when a mismatch is found, 2 on bad input.
+    /// Exit status: 0 when every check agrees and every number is finite, 1 when a mismatch
+    /// is found or a check cannot judge (NaN or infinite numbers), 2 on bad input.
     #[command(
         after_help = "Examples:\n  ebb verify traces/teaching.ron\n  ebb verify layer.json --samples 32 --tolerance 1e-6 --json"
     )]
     Verify {
-        /// The trace file (.ron or .json).
+        #[arg(help = TRACE_FORMS)]
         trace: PathBuf,
         /// Print the result as JSON.
         #[arg(long)]
@@ -111,7 +172,7 @@ pub enum Command {
         after_help = "Examples:\n  ebb convert run.json run.tape    run.tape + run.safetensors\n  ebb convert run.tape run.ron     back to text"
     )]
     Convert {
-        /// The trace to read (.ron, .json or .tape).
+        #[arg(help = TRACE_FORMS)]
         input: PathBuf,
         /// Where to write; the extension picks the form.
         output: PathBuf,

@@ -2,18 +2,18 @@
 //! Nothing here computes; exit codes are chosen in `main`.
 
 mod args;
+mod check;
 mod convert;
+mod gradients;
+mod listing;
 mod progress;
 
 pub use args::{Cli, Command};
 
 use anyhow::{Context, Result};
 use clap::CommandFactory;
-use ebb::diagnose::{Settings, diagnose};
-use ebb::listing::list_steps;
+use ebb::diagnose::Settings;
 use ebb::ops::CATALOG;
-use ebb::report::Report;
-use ebb::sweep::{LedgerMode, Sweep};
 use ebb::trace::{self, Encoding, LoadError, Trace};
 use ebb::tui::{self, KeyMap, Theme, ViewError};
 use ebb::verify::{Direction, VerifyOptions, verify};
@@ -47,7 +47,13 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
             Look::of(cli.theme.as_deref(), cli.keys.as_deref())?,
             Settings::default(),
         ),
-        None => check(DEMO_NAME, &load_demo()?, false, &Settings::default(), out),
+        None => check::check(
+            DEMO_NAME,
+            &load_demo()?,
+            &check::CheckOptions::default(),
+            &Settings::default(),
+            out,
+        ),
         Some(Command::Open {
             trace,
             theme,
@@ -62,22 +68,48 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
         Some(Command::Check {
             trace,
             json,
+            brief,
+            fail_on,
+            width,
             rules,
             set,
         }) => {
             let settings = settings(rules.as_deref(), &set)?;
-            check(
+            let options = check::CheckOptions {
+                json,
+                brief,
+                fail_on: check::fail_on(&fail_on),
+                width: check::width(width),
+            };
+            check::check(
                 &trace.display().to_string(),
                 &load(&trace)?,
-                json,
+                &options,
                 &settings,
                 out,
             )
         }
-        Some(Command::Sweep { trace, steps }) => {
+        Some(Command::Sweep {
+            trace,
+            steps,
+            from,
+            node,
+            json,
+        }) => {
             let loaded = load(&trace)?;
             warn_rounded(&trace, &loaded);
-            sweep(&loaded, steps, out)
+            let options = listing::SweepOptions {
+                steps,
+                from: from.map(|step| step as usize),
+                node,
+                json,
+            };
+            listing::sweep(&loaded, &options, out)
+        }
+        Some(Command::Gradients { trace, output }) => {
+            let loaded = load(&trace)?;
+            warn_rounded(&trace, &loaded);
+            gradients::gradients(&trace, &loaded, output.as_deref(), out)
         }
         Some(Command::Verify {
             trace,
@@ -194,44 +226,6 @@ fn settings(rules: Option<&Path>, set: &[String]) -> Result<Settings> {
         settings.apply(text)?;
     }
     Ok(settings)
-}
-
-fn check(
-    path: &str,
-    trace: &Trace,
-    json: bool,
-    settings: &Settings,
-    out: &mut dyn Write,
-) -> Result<Outcome> {
-    let own = settings.swept_trace(trace);
-    let mut sweep = Sweep::new(&own, LedgerMode::Off);
-    sweep.run_to_end();
-    let diagnosis = diagnose(trace, settings);
-    let report = Report::new(path, &sweep).with_diagnosis(trace, &diagnosis);
-    let text = if json {
-        report.to_json() + "\n"
-    } else {
-        report.to_text()
-    };
-    out.write_all(text.as_bytes())
-        .context("writing the report")?;
-    Ok(if report.clean {
-        Outcome::Clean
-    } else {
-        Outcome::Flagged
-    })
-}
-
-fn sweep(trace: &Trace, steps: Option<usize>, out: &mut dyn Write) -> Result<Outcome> {
-    let mut sweep = Sweep::new(trace, LedgerMode::On);
-    let text = list_steps(&mut sweep, steps.unwrap_or(usize::MAX));
-    out.write_all(text.as_bytes())
-        .context("writing the sweep")?;
-    Ok(if sweep.flags().is_empty() {
-        Outcome::Clean
-    } else {
-        Outcome::Flagged
-    })
 }
 
 /// `NODE` or `NODE:K`: the unit vector of one leaf element.

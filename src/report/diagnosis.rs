@@ -781,13 +781,22 @@ impl DiagnosisReport {
     /// naming the cause, the origin's chains, the advice.
     pub fn summary_text(&self, dtype: &str) -> String {
         let _ = dtype;
+        self.summary_text_fit(None)
+    }
+
+    /// [`DiagnosisReport::summary_text`] with chains fitted into `width` columns.
+    pub fn summary_text_fit(&self, width: Option<usize>) -> String {
         let mut out = String::new();
         let _ = writeln!(out, "diagnosis  {}", self.headline);
         match &self.first_origin {
             Some(origin) => {
                 let _ = writeln!(out, "           {}", origin.explanation);
                 for reached in origin.reached.iter().take(3) {
-                    let _ = writeln!(out, "  chain    {}", chain_text(reached));
+                    let _ = writeln!(
+                        out,
+                        "  chain    {}",
+                        chain_text(reached, width.map(|w| w.saturating_sub(11)))
+                    );
                     if let Some(birth) = self
                         .nan_births
                         .iter()
@@ -848,6 +857,11 @@ impl DiagnosisReport {
 
     /// The details printed after the gradients and flags.
     pub fn details_text(&self) -> String {
+        self.details_text_fit(None)
+    }
+
+    /// [`DiagnosisReport::details_text`] with chains and paths fitted into `width` columns.
+    pub fn details_text_fit(&self, width: Option<usize>) -> String {
         let mut out = String::new();
         out.push_str(&self.findings_text());
         if self.origins.len() > 1 {
@@ -859,11 +873,15 @@ impl DiagnosisReport {
                     origin.letter, origin.step, origin.node, origin.op, origin.explanation
                 );
                 for reached in &origin.reached {
-                    let _ = writeln!(out, "      {}", chain_text(reached));
+                    let _ = writeln!(
+                        out,
+                        "      {}",
+                        chain_text(reached, width.map(|w| w.saturating_sub(6)))
+                    );
                 }
             }
         }
-        out.push_str(&self.paths_text());
+        out.push_str(&self.paths_text(width));
         out.push_str(&self.groups_text());
         out.push_str(&self.forward_text());
         out.push_str(&self.replay_text());
@@ -930,19 +948,19 @@ impl DiagnosisReport {
         out
     }
 
-    fn paths_text(&self) -> String {
+    fn paths_text(&self, width: Option<usize>) -> String {
         if self.dominant_paths.is_empty() {
             return String::new();
         }
         let mut out = String::from("dominant paths  (product of per-hop gains, output first)\n");
         for path in &self.dominant_paths {
-            let _ = write!(
-                out,
+            let head = format!(
                 "  {:<12} gain {:<10} ",
                 path.param,
                 crate::format::power_of_ten(path.log10_gain.0)
             );
-            let _ = writeln!(out, "{}", hops_text(path));
+            let room = width.map(|w| w.saturating_sub(head.chars().count()));
+            let _ = writeln!(out, "{head}{}", hops_text(path, room));
         }
         out
     }
@@ -1151,17 +1169,17 @@ fn measure_name(measure: Measure) -> &'static str {
 }
 
 /// A path as `out → a ×g → b ×g …`, with runs of three or more hops of
-/// the same gain folded into one.
-fn hops_text(path: &PathEntry) -> String {
-    let mut parts: Vec<String> = path
+/// the same gain folded into one, fitted into `width` characters.
+fn hops_text(path: &PathEntry, width: Option<usize>) -> String {
+    let mut pieces: Vec<(String, usize)> = path
         .hops
         .first()
-        .map(|hop| vec![hop.from.clone()])
+        .map(|hop| vec![(hop.from.clone(), 0)])
         .unwrap_or_default();
     let mut k = 0;
     while k < path.hops.len() {
         if path.omitted > 0 && k == CHAIN_LIMIT / 2 {
-            parts.push(format!("… {} hops …", path.omitted));
+            pieces.push((format!(" → … {} hops …", path.omitted), path.omitted));
         }
         let gain = compact(path.hops[k].gain.0);
         // A run may not span the gap where hops were left out.
@@ -1177,45 +1195,47 @@ fn hops_text(path: &PathEntry) -> String {
             .min(limit)
             .max(1);
         if run >= 3 {
-            parts.push(format!(
-                "{} … {} ({run} hops ×{gain} each)",
-                path.hops[k].to,
-                path.hops[k + run - 1].to
+            pieces.push((
+                format!(
+                    " → {} … {} ({run} hops ×{gain} each)",
+                    path.hops[k].to,
+                    path.hops[k + run - 1].to
+                ),
+                run,
             ));
         } else {
-            parts.extend(
+            pieces.extend(
                 path.hops[k..k + run]
                     .iter()
-                    .map(|hop| format!("{} ×{}", hop.to, compact(hop.gain.0))),
+                    .map(|hop| (format!(" → {} ×{}", hop.to, compact(hop.gain.0)), 1)),
             );
         }
         k += run;
     }
-    parts.join(" → ")
+    super::fit::fit(&pieces, width, |hops| format!(" → … {hops} hops …"))
 }
 
 /// A chain as `'a' ⇒ 'b' → 'c' → 'd'`: `⇒` where the non-finite forward
-/// value feeds a consumer, `→` where the adjoint flows to an input.
-fn chain_text(reached: &ChainEntry) -> String {
-    let mut out = String::new();
+/// value feeds a consumer, `→` where the adjoint flows to an input; fitted
+/// into `width` characters with its note.
+fn chain_text(reached: &ChainEntry, width: Option<usize>) -> String {
+    let mut pieces: Vec<(String, usize)> = Vec::new();
     for (k, id) in reached.chain.iter().enumerate() {
-        if k > 0 {
-            // Position in the whole chain of the hop that ends at this node.
-            let hop = if reached.omitted > 0 && k >= CHAIN_LIMIT / 2 {
-                k + reached.omitted
-            } else {
-                k
-            };
-            out.push_str(if hop <= reached.forward {
-                " ⇒ "
-            } else {
-                " → "
-            });
-        }
         if reached.omitted > 0 && k == CHAIN_LIMIT / 2 {
-            out.push_str(&format!("… {} nodes … → ", reached.omitted));
+            pieces.push((format!(" → … {} nodes …", reached.omitted), reached.omitted));
         }
-        out.push_str(&format!("'{id}'"));
+        // Position in the whole chain of the hop that ends at this node.
+        let hop = if reached.omitted > 0 && k >= CHAIN_LIMIT / 2 {
+            k + reached.omitted
+        } else {
+            k
+        };
+        let arrow = match k {
+            0 => "",
+            _ if hop <= reached.forward => " ⇒ ",
+            _ => " → ",
+        };
+        pieces.push((format!("{arrow}'{id}'"), 1));
     }
     let hops = reached.length.saturating_sub(1);
     let forward = if reached.forward > 0 {
@@ -1230,9 +1250,12 @@ fn chain_text(reached: &ChainEntry) -> String {
     } else {
         String::new()
     };
-    format!(
-        "{out}  ({hops} {} to '{}'{forward})",
+    let note = format!(
+        "  ({hops} {} to '{}'{forward})",
         if hops == 1 { "hop" } else { "hops" },
         reached.param
-    )
+    );
+    let room = width.map(|width| width.saturating_sub(note.chars().count()));
+    let out = super::fit::fit(&pieces, room, |nodes| format!(" → … {nodes} nodes …"));
+    format!("{out}{note}")
 }

@@ -11,7 +11,7 @@ mod progress;
 mod retype;
 pub mod schema;
 pub mod sidecar;
-mod store;
+pub(crate) mod store;
 mod text;
 mod validate;
 
