@@ -160,8 +160,10 @@ fn status_line(app: &App, area: Rect, buf: &mut Buffer) {
             String::new()
         };
         let what = running.job.describe();
-        // The stage, where it says more than the job does.
-        let stage = if stage.is_empty() || what.contains(stage.as_str()) {
+        // The stage, where it says more than the job does ("diagnosis" in
+        // "diagnosing" does not).
+        let same = |a: &str, b: &str| a.chars().take(6).eq(b.chars().take(6));
+        let stage = if stage.is_empty() || same(&what, &stage) {
             String::new()
         } else {
             format!(" ({stage})")

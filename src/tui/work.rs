@@ -8,7 +8,7 @@
 use super::diagnosis::Diagnosed;
 use super::precision::Traces;
 use crate::control::{Cancelled, Control};
-use crate::diagnose::{Settings, diagnose};
+use crate::diagnose::{Settings, diagnose_with};
 use crate::dtype::Dtype;
 use crate::trace::Trace;
 use crate::verify::{Verification, VerifyOptions, verify_with};
@@ -202,7 +202,7 @@ impl Task {
                     // replays belong to the recorded trace's diagnosis.
                     settings.replay.clear();
                 }
-                let diagnosis = diagnose(trace, &settings);
+                let diagnosis = diagnose_with(trace, &settings, control)?;
                 Outcome::Diagnosed(Box::new(Diagnosed::new(diagnosis)))
             }
             Job::Retype(dtype) => {
@@ -223,7 +223,7 @@ impl Task {
             }
             Job::Survey => Outcome::Surveyed(Survey::of(traces.recorded(), control)?),
         };
-        // Work the library cannot interrupt yet still honours a cancel at its end.
+        // A cancel that comes after the last check inside still drops the result.
         control.check()?;
         Ok(outcome)
     }

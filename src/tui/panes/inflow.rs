@@ -89,7 +89,9 @@ fn adjoint_lines<'a>(ctx: &Ctx, node: NodeIx, scroll: usize, area: Rect) -> Vec<
         .map(|ledger| ledger.received(node.index()))
         .unwrap_or_default();
     let pending = session.sweep().pending_consumers(node.index());
-    let text = |value: &Value| value_text(value, dtype, 24);
+    // Exact numbers where two of them fit beside the ids, else six digits.
+    let room = width.saturating_sub(4 + 1 + 14 + 1 + 3 + 1 + 1) / 2;
+    let text = |value: &Value| value_text(value, dtype, room.max(12));
     let values: Vec<(String, String)> = received
         .iter()
         .map(|entry| (text(&entry.value), text(&entry.after)))

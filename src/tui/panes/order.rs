@@ -131,37 +131,45 @@ fn draw_reverse(ctx: &Ctx, first: usize, area: Rect, buf: &mut Buffer) {
     let width = area.width as usize;
     let rows = area.height as usize - 1;
     let shown: Vec<usize> = (first..order.len().min(first + rows)).collect();
-    let adjoint_text = |node: usize| {
+    // Each adjoint exactly, and in six digits for when the exact one does not fit.
+    let adjoint_text = |node: usize, exact: bool| {
         let value = tally.signed(node)?;
-        Some(if trace.node(node).value.shape().is_empty() {
+        Some(if !trace.node(node).value.shape().is_empty() {
+            format!("‖·‖ {}", compact(value))
+        } else if exact {
             readable(value, trace.node_dtype(node))
         } else {
-            format!("‖·‖ {}", compact(value))
+            compact(value)
         })
     };
-    let texts: Vec<Option<String>> = shown
-        .iter()
-        .map(|&rank| adjoint_text(order[rank]))
-        .collect();
-    // Columns as wide as what is on screen, within what the pane allows.
-    let step_width = order.len().to_string().len();
-    let number_width = texts
-        .iter()
-        .flatten()
-        .map(|text| text.chars().count())
-        .max()
-        .unwrap_or(1)
-        .max("adjoint".len())
-        .min(24);
-    let bar_width = if width >= 48 { 8 } else { 4 };
+    let widest = |exact: bool| {
+        shown
+            .iter()
+            .filter_map(|&rank| adjoint_text(order[rank], exact))
+            .map(|text| text.chars().count())
+            .max()
+            .unwrap_or(1)
+            .max("adjoint".len())
+    };
     let longest =
         |of: &dyn Fn(usize) -> usize| shown.iter().map(|&rank| of(order[rank])).max().unwrap_or(0);
-    let fixed = 2 + step_width + 1 + number_width + 1 + bar_width + 1 + 3;
-    let room = width.saturating_sub(fixed);
-    let id_width = longest(&|node| trace.node(node).id.chars().count())
-        .max(4)
-        .min(room.max(4));
+    // Columns as wide as what is on screen: the ids first, whole where they
+    // fit; then the adjoints, exact where they fit, else in six digits; then
+    // op and group with what is left.
+    let step_width = order.len().to_string().len();
+    let bar_width = if width >= 48 { 8 } else { 4 };
+    let room = width.saturating_sub(2 + step_width + 1 + 1 + bar_width + 1 + 3);
+    let (exact_width, short_width) = (widest(true), widest(false));
+    let longest_id = longest(&|node| trace.node(node).id.chars().count()).max(4);
+    let id_width = longest_id.min(room.saturating_sub(short_width + 1).max(4));
     let room = room.saturating_sub(id_width + 1);
+    let exact = exact_width <= room;
+    let number_width = if exact { exact_width } else { short_width };
+    let texts: Vec<Option<String>> = shown
+        .iter()
+        .map(|&rank| adjoint_text(order[rank], exact))
+        .collect();
+    let room = room.saturating_sub(number_width);
     let op_width = longest(&|node| trace.node(node).op_name.chars().count()).max(2);
     let op_width = if room > op_width { op_width } else { 0 };
     let room = room.saturating_sub(op_width + usize::from(op_width > 0));
