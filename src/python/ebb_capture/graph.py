@@ -1,0 +1,68 @@
+"""The nodes of a recording, in recording order, and how they get their ids."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import torch
+
+# A node's value: a tensor (kept by reference, copied before anything writes
+# to it), or a Python number for scalar constants.
+Value = torch.Tensor | float
+
+
+@dataclass
+class Node:
+    """One Ebb node as it will be written."""
+
+    id: str
+    op: str
+    inputs: list[str]
+    value: Value
+    dtype: str
+    group: str = ""
+    site: str | None = None
+    attrs: dict[str, Any] = field(default_factory=dict)
+    # One entry per input edge for custom ops: {"jacobian": ndarray} or {"diag": ndarray}.
+    partials: list[dict[str, Any]] | None = None
+    reported: torch.Tensor | None = None
+    index: int = -1  # position in recording order
+
+    @property
+    def shape(self) -> tuple[int, ...]:
+        return tuple(self.value.shape) if isinstance(self.value, torch.Tensor) else ()
+
+
+class Graph:
+    """Nodes in recording order with unique, readable ids.
+
+    An id is the node's group and op (``encoder/layers.0/matmul``); a second
+    node of the same op in the same group gets ``#2``, and so on.
+    """
+
+    def __init__(self) -> None:
+        self.nodes: list[Node] = []
+        self.by_id: dict[str, Node] = {}
+        self._taken: dict[str, int] = {}
+
+    def fresh_id(self, base: str) -> str:
+        """An unused id built from `base`."""
+        count = self._taken.get(base, 0)
+        while True:
+            count += 1
+            candidate = base if count == 1 else f"{base}#{count}"
+            if candidate not in self.by_id:
+                self._taken[base] = count
+                return candidate
+
+    def add(self, node: Node) -> Node:
+        if node.id in self.by_id:
+            raise AssertionError(f"duplicate node id {node.id!r}")
+        node.index = len(self.nodes)
+        self.nodes.append(node)
+        self.by_id[node.id] = node
+        return node
+
+    def __len__(self) -> int:
+        return len(self.nodes)

@@ -1,0 +1,50 @@
+"""Matrix products onto Ebb's matmul; fused ATen ops split into their parts
+(addmm is a matmul, then an add of the bias)."""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import torch
+
+from . import Call, handles
+
+if TYPE_CHECKING:
+    from ..recorder import Recorder
+
+aten = torch.ops.aten
+
+
+@handles(aten.mm.default, aten.bmm.default)
+def matmul(r: "Recorder", c: Call) -> list[str | None]:
+    return [r.op("matmul", [c["self"], c["mat2"]], c.outs[0])]
+
+
+def _plus_bias(r: "Recorder", c: Call, product: str, product_value: torch.Tensor) -> str:
+    """beta · bias + alpha · product, as separate nodes where beta or alpha is not 1."""
+    out = c.outs[0]
+    alpha, beta = c["alpha"], c["beta"]
+    if alpha != 1:
+        product_value = r.compute(lambda: product_value * alpha)
+        product = r.op("mul", [product, alpha], product_value)
+    if beta == 0:
+        return r.alias_value(product, out)
+    bias: torch.Tensor | str = c["self"]
+    if beta != 1:
+        bias_value = r.compute(lambda: c["self"] * beta)
+        bias = r.op("mul", [c["self"], beta], bias_value)
+    return r.op("add", [bias, product], out)
+
+
+@handles(aten.addmm.default)
+def addmm(r: "Recorder", c: Call) -> list[str | None]:
+    value = r.compute(lambda: torch.mm(c["mat1"], c["mat2"]))
+    product = r.op("matmul", [c["mat1"], c["mat2"]], value)
+    return [_plus_bias(r, c, product, value)]
+
+
+@handles(aten.baddbmm.default)
+def baddbmm(r: "Recorder", c: Call) -> list[str | None]:
+    value = r.compute(lambda: torch.bmm(c["batch1"], c["batch2"]))
+    product = r.op("matmul", [c["batch1"], c["batch2"]], value)
+    return [_plus_bias(r, c, product, value)]
