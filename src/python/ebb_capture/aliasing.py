@@ -78,10 +78,10 @@ def overlaps(a: Geometry, b: Geometry) -> bool:
     wb = torch.stack([sb, sb + b.itemsize], 1)
     # Two byte ranges [x0, x1) and [y0, y1) meet when x0 < y1 and y0 < x1.
     order_b = torch.argsort(wb[:, 0])
-    starts_b = wb[order_b, 0]
-    ends_b = wb[order_b, 1]
+    starts_b = wb[order_b, 0].contiguous()
+    ends_b = wb[order_b, 1].contiguous()
     # For each range of a, the ranges of b that start before it ends.
-    idx = torch.searchsorted(starts_b, wa[:, 1], right=False)
+    idx = torch.searchsorted(starts_b, wa[:, 1].contiguous(), right=False)
     # Among them, the one with the largest end (prefix maximum of ends).
     prefix_max = torch.cummax(ends_b, 0).values
     has = idx > 0
@@ -97,7 +97,7 @@ class Write:
 
     seq: int
     geometry: Geometry
-    node: str
+    node: str | None
 
 
 class AliasTracker:
@@ -105,32 +105,45 @@ class AliasTracker:
 
     def __init__(self) -> None:
         self.seq = 0
-        # storage → holders of recorded tensors in it: (geometry, replace-callback key)
-        self._held: dict[int, dict[int, tuple[Geometry, Callable[[], None]]]] = {}
+        # storage → holder number → (the tensor held, its geometry, how to replace it)
+        self._held: dict[int, dict[int, tuple[torch.Tensor, Geometry, Callable[[torch.Tensor], None]]]] = {}
         self._writes: dict[int, list[Write]] = {}
         self._next_holder = 0
 
-    def hold(self, t: torch.Tensor, copy_out: Callable[[], None]) -> int:
-        """Registers a recorded tensor; `copy_out` replaces it by a copy."""
+    def hold(self, t: torch.Tensor, replace: Callable[[torch.Tensor], None]) -> None:
+        """Registers a recorded tensor; `replace` swaps in a stand-in for it
+        (a copy before its elements change, an alias before its shape does)."""
         key = storage_key(t)
         self._next_holder += 1
-        self._held.setdefault(key, {})[self._next_holder] = (Geometry.of(t), copy_out)
-        return self._next_holder
+        self._held.setdefault(key, {})[self._next_holder] = (t, Geometry.of(t), replace)
 
     def before_write(self, target: torch.Tensor) -> None:
         """Copies every recorded value that a write into `target` would change."""
-        key = storage_key(target)
-        holders = self._held.get(key)
+        holders = self._held.get(storage_key(target))
         if not holders:
             return
         geometry = Geometry.of(target)
-        doomed = [h for h, (g, _) in holders.items() if overlaps(g, geometry)]
+        doomed = [h for h, (_, g, _) in holders.items() if overlaps(g, geometry)]
         for h in doomed:
-            _, copy_out = holders.pop(h)
-            copy_out()
+            held, _, replace = holders.pop(h)
+            replace(held.clone())
 
-    def log_write(self, target: torch.Tensor, node: str) -> int:
-        """Records that `target` now holds `node`'s value; returns its seq."""
+    def before_reshape(self, target: torch.Tensor) -> None:
+        """An in-place view op (transpose_) is about to change `target`'s shape
+        and strides: recorded values that are that very tensor object get an
+        alias with the old shape (same memory, still held)."""
+        holders = self._held.get(storage_key(target))
+        if not holders:
+            return
+        for h in [h for h, (t, _, _) in holders.items() if t is target]:
+            held, geometry, replace = holders.pop(h)
+            stand_in = held.as_strided(geometry.size, geometry.stride, geometry.offset)
+            replace(stand_in)
+            self.hold(stand_in, replace)
+
+    def log_write(self, target: torch.Tensor, node: str | None) -> int:
+        """Records that `target` now holds `node`'s value (None: a value with
+        no derivative); returns the write's number."""
         self.seq += 1
         self._writes.setdefault(storage_key(target), []).append(Write(self.seq, Geometry.of(target), node))
         return self.seq

@@ -27,6 +27,10 @@ class Node:
     # One entry per input edge for custom ops: {"jacobian": ndarray} or {"diag": ndarray}.
     partials: list[dict[str, Any]] | None = None
     reported: torch.Tensor | None = None
+    # A node split out of a fused op has no tensor of its own in PyTorch;
+    # when its gradient equals another node's (the addmm product's is the
+    # addmm output's), that node's reported gradient is reported for it too.
+    reported_from: str | None = None
     index: int = -1  # position in recording order
 
     @property

@@ -118,6 +118,10 @@ def written_tensors(func: OpOverload, args: tuple[Any, ...], kwargs: dict[str, A
     return written
 
 
+class _Abort(Exception):
+    """A decomposition reached an op below ATen (a prim): give it up."""
+
+
 class _Mode(TorchDispatchMode):
     def __init__(self, recorder: "Recorder") -> None:
         super().__init__()
@@ -203,6 +207,8 @@ class Recorder:
             if tracking and written:
                 self._note_unrecorded_writes(written)
             return out
+        if self._decomposing and func.namespace == "prims":
+            raise _Abort(str(func))
         self._frame = None
         self._site = None
         self._group = None
@@ -259,17 +265,24 @@ class Recorder:
 
     def _record(self, func: OpOverload, args: tuple[Any, ...], kwargs: dict[str, Any], written: list[torch.Tensor]) -> Any:
         # Values as they were before an in-place write, bound to their nodes,
-        # stand in for the written tensors when the op is mapped.
+        # stand in for the written tensors when the op is mapped. An in-place
+        # view (transpose_) changes only the tensor's shape and strides: the
+        # tensor as it was is a view of the same memory.
+        reshapes_only = torch.Tag.inplace_view in func.tags
         before: dict[int, torch.Tensor] = {}
         for t in written:
             if id(t) in before:
                 continue
-            old = t.clone()
+            old = t.as_strided(t.shape, t.stride(), t.storage_offset()) if reshapes_only else t.clone()
             if self.is_live(t):
                 self.bind(old, self.node(t))
             else:
                 self._make_const(old)
             before[id(t)] = old
+        if reshapes_only:
+            for t in written:
+                self.alias.before_reshape(t)
+            written = []  # no element changes: nothing to copy or log
         for t in written:
             self.alias.before_write(t)
         out = func(*args, **kwargs)
@@ -328,7 +341,7 @@ class Recorder:
             except Unmapped:
                 self._rollback(mark)
         functional = self.functional(call.func)
-        if functional is not call.func and functional_of(call.func) is None:
+        if functional is call.func and written_tensors(call.func, call.args, call.kwargs):
             raise self.error(f"{call.func} writes in place and has no out-of-place form to record", "compute it out of place")
         nodes = self._decompose(functional, call)
         if nodes is not None:
@@ -467,11 +480,11 @@ class Recorder:
         if isinstance(node.value, torch.Tensor):
             value = node.value
 
-            def copy_out() -> None:
+            def replace(stand_in: torch.Tensor) -> None:
                 if node.value is value:
-                    node.value = value.clone()
+                    node.value = stand_in
 
-            self.alias.hold(value, copy_out)
+            self.alias.hold(value, replace)
 
     def _new(self, op: str, inputs: list[str], value: torch.Tensor | float, dtype: str, base: str | None = None, **attrs: Any) -> str:
         group = self.group
@@ -521,6 +534,33 @@ class Recorder:
         return self.operand(x, out)
 
     def alias_value(self, node: str, out: torch.Tensor) -> str:
+        return node
+
+    def report_as(self, node: str, other: str) -> None:
+        """`node`'s gradient is `other`'s (an add's operand of the same shape)."""
+        self.graph.by_id[node].reported_from = other
+
+    def value_of(self, node: str) -> torch.Tensor | float:
+        return self.graph.by_id[node].value
+
+    def set_value(self, node: str, value: torch.Tensor) -> None:
+        """Gives a node the value the real kernel computed (same shape)."""
+        recorded = self.graph.by_id[node]
+        recorded.value = value
+        self._hold(recorded)
+
+    def selection(self, x: torch.Tensor, out: torch.Tensor, where: torch.Tensor, name: str) -> str:
+        """`out[i] = x.flatten()[where[i]]`: a custom op with a 0/1 Jacobian."""
+        entries = out.numel() * x.numel()
+        if entries > self.jacobian_limit:
+            raise self.error(
+                f"{self._op_name} picks {out.numel()} of {x.numel()} elements, a {entries}-entry Jacobian until Ebb's catalog has it (limit {self.jacobian_limit})",
+                "record a smaller block with record(..., module=...) or raise jacobian_limit",
+            )
+        jacobian = torch.zeros(out.numel(), x.numel(), dtype=torch.float64)
+        jacobian[torch.arange(out.numel()), where] = 1.0
+        node = self.op(f"custom.{name}", [x], out)
+        self.graph.by_id[node].partials = [{"jacobian": jacobian}]
         return node
 
     def cast(self, x: torch.Tensor | str, value: torch.Tensor) -> str:
@@ -698,11 +738,11 @@ class Recorder:
     def _got_grad(self, node: str, grad: torch.Tensor) -> None:
         self.reported[node] = grad
 
-        def copy_out() -> None:
+        def replace(stand_in: torch.Tensor) -> None:
             if self.reported.get(node) is grad:
-                self.reported[node] = grad.clone()
+                self.reported[node] = stand_in
 
-        self.alias.hold(grad, copy_out)
+        self.alias.hold(grad, replace)
 
     def output(self, t: torch.Tensor) -> None:
         self.flush_hooks()

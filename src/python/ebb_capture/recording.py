@@ -81,6 +81,8 @@ class Recording:
         output, seed = self._output()
         for node in rec.graph.nodes:
             grad = rec.reported.get(node.id)
+            if grad is None and node.reported_from is not None:
+                grad = rec.reported.get(node.reported_from)
             if grad is not None and isinstance(node.value, torch.Tensor) and tuple(grad.shape) == node.shape:
                 node.reported = grad if grad.dtype == node.value.dtype else grad.to(node.value.dtype)
         nodes = rec.graph.nodes if self.keep_unreached else _reaching(rec.graph.nodes, output)

@@ -34,8 +34,7 @@ class ModuleStack:
         self._names: dict[int, str] = {}
         if model is not None:
             for name, module in model.named_modules():
-                if name:
-                    self._names[id(module)] = group_path(name)
+                self._names[id(module)] = group_path(name)
         self._stack: list[tuple[nn.Module, str]] = []
         self._on_exit = on_exit
         self._handles: list[RemovableHandle] = []
@@ -55,6 +54,8 @@ class ModuleStack:
     def _enter(self, module: nn.Module, args: object) -> None:
         name = self._names.get(id(module))
         if name is None:
+            # A module outside the model (a loss module, one built on the
+            # fly) is named by its class, under the module that called it.
             parent = self._stack[-1][1] if self._stack else ""
             own = type(module).__name__
             name = f"{parent}/{own}" if parent else own

@@ -11,7 +11,6 @@ import torch
 
 _TORCH_DIR = os.path.dirname(torch.__file__) + os.sep
 _PACKAGE_DIR = os.path.dirname(__file__) + os.sep
-_FUNCTION_PY = os.path.join(_TORCH_DIR, "autograd", "function.py")
 
 
 def _is_library(filename: str) -> bool:
@@ -40,14 +39,24 @@ def site_of(frame: FrameType | None) -> str | None:
 
 def custom_function() -> str | None:
     """The name of the custom ``torch.autograd.Function`` whose forward is
-    running, if any: found as the ``apply`` frame of torch's function.py."""
+    running, if any: a ``forward`` frame whose first argument is the
+    Function's context (or, for Functions without one, whose class is a
+    Function)."""
     frame = sys._getframe(1)
     while frame is not None:
         code = frame.f_code
-        if code.co_name == "apply" and code.co_filename == _FUNCTION_PY:
-            cls = frame.f_locals.get("cls")
-            if isinstance(cls, type):
-                return cls.__name__
+        if code.co_name == "forward" and not _is_library(code.co_filename):
+            if code.co_argcount >= 1:
+                first = frame.f_locals.get(code.co_varnames[0])
+                owner = getattr(type(first), "_forward_cls", None)
+                if isinstance(owner, type):
+                    return owner.__name__
+            qualname = getattr(code, "co_qualname", "")
+            parts = qualname.split(".")
+            if len(parts) >= 2:
+                owner = frame.f_globals.get(parts[-2])
+                if isinstance(owner, type) and issubclass(owner, torch.autograd.Function):
+                    return owner.__name__
         frame = frame.f_back
     return None
 

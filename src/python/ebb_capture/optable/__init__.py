@@ -69,8 +69,27 @@ def handles(*ops: OpOverload) -> Callable[[Handler], Handler]:
     return register
 
 
+def _inplace_views() -> dict[OpOverload, OpOverload]:
+    aten = torch.ops.aten
+    return {
+        aten.t_.default: aten.t.default,
+        aten.transpose_.default: aten.transpose.int,
+        aten.unsqueeze_.default: aten.unsqueeze.default,
+        aten.squeeze_.default: aten.squeeze.default,
+        aten.squeeze_.dim: aten.squeeze.dim,
+        aten.squeeze_.dims: aten.squeeze.dims,
+        aten.as_strided_.default: aten.as_strided.default,
+    }
+
+
+_INPLACE_VIEWS = _inplace_views()
+
+
 def functional_of(func: OpOverload) -> OpOverload | None:
-    """The out-of-place overload of an in-place (``add_``) or ``out=`` op."""
+    """The out-of-place overload of an in-place (``add_``, ``transpose_``)
+    or ``out=`` op."""
+    if func in _INPLACE_VIEWS:
+        return _INPLACE_VIEWS[func]
     packet_name = func._schema.name.split("::")[-1]
     overload = func._overloadname
     aten = torch.ops.aten
@@ -98,4 +117,4 @@ def lookup(func: OpOverload) -> Handler | None:
 
 
 # Register every handler.
-from . import elementwise, linalg, losses, reduce, shape  # noqa: E402,F401
+from . import elementwise, linalg, losses, reduce, shape, views  # noqa: E402,F401

@@ -33,7 +33,10 @@ def _plus_bias(r: "Recorder", c: Call, product: str, product_value: torch.Tensor
     if beta != 1:
         bias_value = r.compute(lambda: c["self"] * beta)
         bias = r.op("mul", [c["self"], beta], bias_value)
-    return r.op("add", [bias, product], out)
+    total = r.op("add", [bias, product], out)
+    if product_value.shape == out.shape:
+        r.report_as(product, total)
+    return total
 
 
 @handles(aten.addmm.default)

@@ -34,8 +34,11 @@ def _chain(
     keepdim: bool,
     out: torch.Tensor,
     reduce: Callable[[torch.Tensor, int], torch.Tensor],
+    start: str | None = None,
 ) -> str:
-    node: torch.Tensor | str = x
+    """Reduces `x` (held by node `start`, or bound to a node) over `axes`
+    (highest first), one node per axis; the last node's value is `out`."""
+    node: torch.Tensor | str = x if start is None else start
     value = x
     for i, axis in enumerate(axes):
         last = i == len(axes) - 1
@@ -122,3 +125,57 @@ def logsumexp(r: "Recorder", c: Call) -> list[str | None]:
     if axes is None or len(axes) != 1:
         raise Unmapped("logsumexp over several axes")
     return [r.op("logsumexp", [x], out, axis=axes[0], keepdims=bool(c["keepdim"]))]
+
+
+def _variance(r: "Recorder", x: torch.Tensor, dims: object, correction: float, keepdim: bool, var_out: torch.Tensor) -> tuple[str, str]:
+    """Variance as mean, centre, square, sum, divide: returns the variance
+    node and the keepdims mean node."""
+    axes = _axes(dims, x.dim()) or list(range(x.dim() - 1, -1, -1))
+    count = 1
+    for a in axes:
+        count *= x.shape[a]
+    mean_value = r.compute(lambda: x.mean(dim=axes, keepdim=True))
+    mean = _chain(r, "mean", x, axes, True, mean_value, lambda v, a: v.mean(a, keepdim=True))
+    centred_value = r.compute(lambda: x - mean_value)
+    centred = r.op("sub", [x, mean], centred_value)
+    squares_value = r.compute(lambda: centred_value * centred_value)
+    squares = r.op("mul", [centred, centred], squares_value)
+    total_value = r.compute(lambda: squares_value.sum(dim=axes, keepdim=keepdim))
+    total = _chain(r, "sum", squares_value, axes, keepdim, total_value, lambda v, a: v.sum(a, keepdim=keepdim), start=squares)
+    variance = r.op("div", [total, max(count - correction, 0)], var_out)
+    return variance, mean
+
+
+def _correction(c: Call) -> float:
+    if "correction" in c.a and c.a["correction"] is not None:
+        return float(c.a["correction"])
+    if "unbiased" in c.a and c.a["unbiased"] is not None:
+        return 1.0 if c.a["unbiased"] else 0.0
+    return 1.0
+
+
+@handles(aten.var_mean.correction, aten.var_mean.dim, aten.var_mean.default)
+def var_mean(r: "Recorder", c: Call) -> list[str | None]:
+    x, var_out, mean_out = c["self"], c.outs[0], c.outs[1]
+    keepdim = bool(c.a.get("keepdim") or False)
+    variance, mean = _variance(r, x, c.a.get("dim"), _correction(c), keepdim, var_out)
+    if tuple(mean_out.shape) != tuple(r.value_of(mean).shape):
+        mean = r.op("reshape", [mean], mean_out, shape=list(mean_out.shape))
+    else:
+        r.set_value(mean, mean_out)
+    return [variance, mean]
+
+
+@handles(aten.var.correction, aten.var.dim, aten.var.default)
+def var(r: "Recorder", c: Call) -> list[str | None]:
+    x, out = c["self"], c.outs[0]
+    variance, _ = _variance(r, x, c.a.get("dim"), _correction(c), bool(c.a.get("keepdim") or False), out)
+    return [variance]
+
+
+@handles(aten.std.correction, aten.std.dim, aten.std.default)
+def std(r: "Recorder", c: Call) -> list[str | None]:
+    x, out = c["self"], c.outs[0]
+    var_value = r.compute(lambda: out * out)
+    variance, _ = _variance(r, x, c.a.get("dim"), _correction(c), bool(c.a.get("keepdim") or False), var_value)
+    return [r.op("sqrt", [variance], out)]

@@ -81,7 +81,7 @@ def copy(r: "Recorder", c: Call) -> list[str | None]:
     return [r.same(c["self"], c.outs[0])]
 
 
-@handles(aten._to_copy.default)
+@handles(aten._to_copy.default, aten.to.dtype, aten.to.dtype_layout, aten.to.device, aten.to.other)
 def to_copy(r: "Recorder", c: Call) -> list[str | None]:
     x, out = c["self"], c.outs[0]
     if out.dtype == x.dtype:
