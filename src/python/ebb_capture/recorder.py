@@ -319,10 +319,9 @@ class Recorder:
             self.bind(tensor, node)
             done.add(id(tensor))
             recorded = self.graph.by_id[node]
-            if recorded.op not in ("param", "input", "const") and node not in self._hooked:
-                self._hooked.add(node)
-                if self.gradients == "all":
-                    self._pending.append((tensor, node))
+            # Tensors made inside a decomposition never get a backward node.
+            if self.gradients == "all" and not self._decomposing and recorded.op not in ("param", "input", "const") and node not in self._hooked:
+                self._pending.append((tensor, node))
         # Written tensors that are not outputs (running statistics) now hold
         # values the step does not differentiate.
         for t in written:
@@ -646,12 +645,9 @@ class Recorder:
         return ebb_dtype(t.dtype) if is_float(t) else "f64"
 
     def _watch_leaf(self, t: torch.Tensor, node: str, always: bool) -> None:
-        if self.gradients == "none" or not t.requires_grad:
+        if self.gradients == "none" or (not always and self.gradients != "all"):
             return
-        if not always and self.gradients != "all":
-            return
-        self._hooked.add(node)
-        self._handles.append(t.register_hook(partial(self._got_grad, node)))
+        self._watch(t, node)
 
     def _reconcile(self, t: torch.Tensor, b: Binding, writes: list[Write]) -> str:
         """`t`'s node after in-place writes into its memory made elsewhere."""
@@ -732,8 +728,14 @@ class Recorder:
             return
         pending, self._pending = self._pending, []
         for t, node in pending:
-            if t.requires_grad:
-                self._handles.append(t.register_hook(partial(self._got_grad, node)))
+            self._watch(t, node)
+
+    def _watch(self, t: torch.Tensor, node: str) -> None:
+        """Keeps the gradient PyTorch computes for `t` as `node`'s."""
+        if node in self._hooked or not t.requires_grad:
+            return
+        self._hooked.add(node)
+        self._handles.append(t.register_hook(partial(self._got_grad, node)))
 
     def _got_grad(self, node: str, grad: torch.Tensor) -> None:
         self.reported[node] = grad
@@ -759,9 +761,7 @@ class Recorder:
                 "pass the loss computed inside the `with` block",
             )
         self.output_node = self.node(t)
-        if t.requires_grad and self.gradients != "none" and self.output_node not in self._hooked:
-            self._hooked.add(self.output_node)
-            self._handles.append(t.register_hook(partial(self._got_grad, self.output_node)))
+        self._watch(t, self.output_node)
         self.active = False
 
     def _module_done(self, module: nn.Module, output: object) -> None:
@@ -772,6 +772,4 @@ class Recorder:
             if isinstance(t, torch.Tensor) and is_float(t) and self.is_live(t):
                 node = self.node(t)
                 self.scope_outputs.append((t, node))
-                if t.requires_grad and node not in self._hooked:
-                    self._hooked.add(node)
-                    self._handles.append(t.register_hook(partial(self._got_grad, node)))
+                self._watch(t, node)

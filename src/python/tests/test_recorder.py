@@ -1,0 +1,344 @@
+"""The recorder's own behaviour: what becomes a node, views and in-place
+writes, constants, scope, reported gradients, errors and the files written."""
+
+from __future__ import annotations
+
+import json
+import os
+from pathlib import Path
+
+import numpy as np
+import pytest
+import torch
+from safetensors.numpy import load_file
+from torch import nn
+
+import ebb_capture
+from conftest import TOLERANCE, relative_error
+
+
+def nodes_of(trace: Path) -> dict[str, dict]:
+    return {n["id"]: n for n in json.loads(trace.read_text())["nodes"]}
+
+
+def sidecar_of(trace: Path) -> dict[str, np.ndarray]:
+    header = json.loads(trace.read_text())
+    return load_file(str(trace.parent / header["sidecar"]))
+
+
+def test_linear_is_split_into_transpose_matmul_and_add(tmp_path):
+    torch.manual_seed(1)
+    layer = nn.Linear(3, 2)
+    x = torch.randn(4, 3)
+    path = tmp_path / "linear.tape"
+    with ebb_capture.record(path, model=layer) as rec:
+        rec.output(layer(x).sum())
+    nodes = nodes_of(path)
+    assert [n["op"] for n in nodes.values()] == ["param", "transpose", "input", "matmul", "param", "add", "sum"]
+    assert nodes["transpose"]["inputs"] == ["weight"] and nodes["transpose"]["attrs"] == {"perm": [1, 0]}
+    assert nodes["matmul"]["inputs"] == ["x", "transpose"]
+    assert nodes["add"]["inputs"] == ["bias", "matmul"]
+    values = sidecar_of(path)
+    # The split product carries x·Wᵀ, the add x·Wᵀ + b as the layer computed it.
+    np.testing.assert_array_equal(values["matmul"], (x @ layer.weight.t()).detach().numpy())
+    np.testing.assert_array_equal(values["add"], layer(x).detach().numpy())
+
+
+def test_groups_are_module_paths_and_sites_are_the_users_lines(tmp_path):
+    class Inner(nn.Module):
+        def __init__(self):
+            super().__init__()
+            self.proj = nn.Linear(2, 2)
+
+        def forward(self, x):
+            return torch.tanh(self.proj(x))  # the site of the tanh
+
+    class Outer(nn.Module):
+        def __init__(self):
+            super().__init__()
+            self.layers = nn.ModuleList([Inner(), Inner()])
+
+        def forward(self, x):
+            for layer in self.layers:
+                x = layer(x)
+            return x
+
+    model = Outer()
+    path = tmp_path / "groups.tape"
+    with ebb_capture.record(path, model=model) as rec:
+        rec.output(model(torch.randn(1, 2)).sum())
+    nodes = nodes_of(path)
+    tanh_line = Inner.forward.__code__.co_firstlineno + 1
+    assert nodes["layers.1/tanh"]["group"] == "layers.1"
+    assert nodes["layers.1/tanh"]["site"] == f"test_recorder.py:{tanh_line}"
+    assert nodes["layers.0/proj/matmul"]["group"] == "layers.0/proj"
+    assert "layers.1.proj.weight" in nodes
+
+
+def test_dropout_mask_is_a_constant_as_drawn(tmp_path):
+    torch.manual_seed(2)
+    drop = nn.Dropout(0.5)
+    x = torch.ones(64)
+    path = tmp_path / "dropout.tape"
+    with ebb_capture.record(path, model=drop) as rec:
+        y = drop(x)
+        rec.output(y.sum())
+    nodes = nodes_of(path)
+    values = sidecar_of(path)
+    masks = [i for i, n in nodes.items() if n["op"] == "const" and i in values and values[i].shape == (64,)]
+    assert len(masks) == 1
+    # y = x · mask: the recorded constant is exactly what the step used.
+    np.testing.assert_array_equal(values[masks[0]], y.detach().numpy())
+    assert set(np.unique(values[masks[0]])) <= {0.0, 2.0}
+
+
+def test_no_grad_and_detach_are_constants(tmp_path):
+    w = nn.Parameter(torch.tensor([1.0, 2.0]))
+    path = tmp_path / "consts.tape"
+    with ebb_capture.record(path) as rec:
+        with torch.no_grad():
+            scale = (w * 3).sum()
+        frozen = w.detach() * 2
+        rec.output((w * scale).sum() + (w * frozen).sum())
+    nodes = nodes_of(path)
+    ops = sorted(n["op"] for n in nodes.values())
+    # w·scale and w·frozen: scale and frozen are constants, not ops on w.
+    assert ops.count("mul") == 2 and ops.count("param") == 1
+    muls = [n for n in nodes.values() if n["op"] == "mul"]
+    for mul in muls:
+        other = [i for i in mul["inputs"] if nodes[i]["op"] != "param"]
+        assert len(other) == 1 and nodes[other[0]]["op"] == "const"
+
+
+def test_reported_gradients_of_params_and_intermediates(tmp_path):
+    torch.manual_seed(3)
+    model = nn.Sequential(nn.Linear(3, 4), nn.Sigmoid())
+    x = torch.randn(2, 3)
+    path = tmp_path / "reported.tape"
+    kept = {}
+    with ebb_capture.record(path, model=model) as rec:
+        hidden = model[0](x)
+        hidden.register_hook(lambda g: kept.setdefault("hidden", g))
+        loss = model[1](hidden).pow(2).sum()
+        rec.output(loss)
+        loss.backward()
+    nodes = nodes_of(path)
+    values = sidecar_of(path)
+    assert nodes["0.weight"]["reported"]["tensor"] == "grad/0.weight"
+    np.testing.assert_array_equal(values["grad/0.weight"], model[0].weight.grad.numpy())
+    np.testing.assert_array_equal(values["grad/0/add"], kept["hidden"].numpy())
+    # The product inside the split linear reports the linear's gradient.
+    np.testing.assert_array_equal(values["grad/0/matmul"], kept["hidden"].numpy())
+
+
+def test_without_backward_no_gradients_are_reported(tmp_path):
+    layer = nn.Linear(2, 1)
+    path = tmp_path / "forward.tape"
+    with ebb_capture.record(path, model=layer) as rec:
+        rec.output(layer(torch.ones(1, 2)).sum())
+    assert not any("reported" in n for n in nodes_of(path).values())
+    assert "seed" not in json.loads(path.read_text())
+
+
+def test_in_place_writes_through_views(ebb, tmp_path):
+    torch.manual_seed(4)
+
+    class Mixer(nn.Module):
+        def __init__(self):
+            super().__init__()
+            self.lin = nn.Linear(4, 6)
+
+        def forward(self, x):
+            g = self.lin(x) * 1.0
+            g[:, 4].mul_(2.0)  # select, then in place
+            g[:, :2].add_(g[:, 2:4])  # slice, in place, reading another slice
+            t = g.t()  # a view of the written base
+            z = torch.zeros(3, 2)
+            z[:, 0] = g[:, 5]  # copy into a view of a constant
+            w = g.clone()
+            w.relu_()
+            return (t * t).sum() + w.sum() + (z * z).sum()
+
+    model = Mixer()
+    x = torch.randn(3, 4)
+    path = tmp_path / "views.tape"
+    with ebb_capture.record(path, model=model) as rec:
+        loss = model(x)
+        rec.output(loss)
+        loss.backward()
+    ours = ebb.gradients(path)
+    for name, p in model.named_parameters():
+        assert relative_error(ours[name], p.grad.double().numpy()) <= TOLERANCE[torch.float32]
+    status, result = ebb.verify(path)
+    assert status == 0, result["suspects"]
+
+
+def test_scope_to_a_submodule(ebb, tmp_path):
+    torch.manual_seed(5)
+
+    class Block(nn.Module):
+        def __init__(self):
+            super().__init__()
+            self.lin = nn.Linear(6, 6)
+            self.norm = nn.LayerNorm(6)
+
+        def forward(self, x):
+            return self.norm(torch.tanh(self.lin(x)) + x)
+
+    class Net(nn.Module):
+        def __init__(self):
+            super().__init__()
+            self.embed = nn.Linear(3, 6)
+            self.block = Block()
+            self.head = nn.Linear(6, 2)
+
+        def forward(self, x):
+            return self.head(self.block(self.embed(x)))
+
+    net = Net()
+    x, y = torch.randn(5, 3), torch.randn(5, 2)
+    path = tmp_path / "block.tape"
+    with ebb_capture.record(path, model=net, module=net.block) as rec:
+        loss = nn.functional.mse_loss(net(x), y)
+        rec.output(loss)
+        loss.backward()
+    header = json.loads(path.read_text())
+    nodes = nodes_of(path)
+    params = {i for i, n in nodes.items() if n["op"] == "param"}
+    assert params == {"block.lin.weight", "block.lin.bias", "block.norm.weight", "block.norm.bias"}
+    inputs = [n for n in nodes.values() if n["op"] == "input"]
+    assert len(inputs) == 1 and inputs[0]["value"]["shape"] == [5, 6]  # the block's input is a leaf
+    assert header["seed"]["shape"] == [5, 6]  # the gradient PyTorch sent into the block's output
+    ours = ebb.gradients(path)
+    for name in params:
+        p = dict(net.named_parameters())[name]
+        assert relative_error(ours[name], p.grad.double().numpy()) <= TOLERANCE[torch.float32]
+
+
+def test_scope_called_twice_sums_both_calls(ebb, tmp_path):
+    torch.manual_seed(6)
+    shared = nn.Linear(3, 3)
+
+    class Twice(nn.Module):
+        def __init__(self):
+            super().__init__()
+            self.shared = shared
+
+        def forward(self, x):
+            return self.shared(torch.relu(self.shared(x)))
+
+    model = Twice()
+    path = tmp_path / "twice.tape"
+    with ebb_capture.record(path, model=model, module=model.shared) as rec:
+        loss = model(torch.randn(4, 3)).pow(2).sum()
+        rec.output(loss)
+        loss.backward()
+    ours = ebb.gradients(path)
+    for name, p in model.named_parameters():
+        assert relative_error(ours[name], p.grad.double().numpy()) <= TOLERANCE[torch.float32]
+
+
+def test_error_for_an_op_too_big_for_a_jacobian_names_op_and_line(tmp_path):
+    path = tmp_path / "big.tape"
+    x = torch.randn(64, 64, requires_grad=True)
+    with pytest.raises(ebb_capture.CaptureError) as raised:
+        with ebb_capture.record(path, jacobian_limit=100) as rec:
+            y = torch.linalg.slogdet(x).logabsdet  # no mapping; a 4096-entry Jacobian
+            rec.output(y)
+    message = str(raised.value)
+    assert "linalg" in message and f"test_recorder.py:" in message and "jacobian_limit" in message
+    assert "\n" not in message
+    assert not path.exists()
+    assert list(tmp_path.iterdir()) == []  # no temporary file left behind
+
+
+def test_nothing_written_when_the_step_raises(tmp_path):
+    path = tmp_path / "failed.tape"
+    with pytest.raises(ZeroDivisionError):
+        with ebb_capture.record(path) as rec:
+            w = nn.Parameter(torch.ones(2))
+            rec.output((w * 2).sum())
+            1 / 0
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_a_failed_write_keeps_the_previous_trace(tmp_path, monkeypatch):
+    path = tmp_path / "keep.tape"
+    w = nn.Parameter(torch.ones(2))
+    with ebb_capture.record(path) as rec:
+        rec.output((w * 2).sum())
+    before = path.read_bytes(), (tmp_path / "keep.safetensors").read_bytes() if (tmp_path / "keep.safetensors").exists() else None
+
+    import ebb_capture.writer as writer
+
+    def broken(*args, **kwargs):
+        raise OSError("disk full")
+
+    monkeypatch.setattr(writer, "_bytes", broken)
+    with pytest.raises(OSError):
+        with ebb_capture.record(path) as rec:
+            rec.output((w * torch.arange(2.0)).sum())
+    assert path.read_bytes() == before[0]
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(["keep.tape"] + (["keep.safetensors"] if before[1] else []))
+
+
+def test_output_must_come_from_the_step(tmp_path):
+    outside = torch.ones(())
+    with pytest.raises(ebb_capture.CaptureError, match="rec.output"):
+        with ebb_capture.record(tmp_path / "x.tape") as rec:
+            rec.output(outside)
+
+
+def test_missing_output_is_an_error(tmp_path):
+    with pytest.raises(ebb_capture.CaptureError, match=r"call rec.output\(loss\)"):
+        with ebb_capture.record(tmp_path / "x.tape"):
+            nn.Parameter(torch.ones(2)).sum()
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_sidecar_is_valid_safetensors_with_dtypes_and_alignment(tmp_path):
+    torch.manual_seed(7)
+    model = nn.Sequential(nn.Embedding(5, 4), nn.Linear(4, 2)).to(torch.float64)
+    tokens = torch.tensor([[0, 3], [4, 4]])
+    path = tmp_path / "typed.tape"
+    with ebb_capture.record(path, model=model) as rec:
+        loss = model(tokens).sum()
+        rec.output(loss)
+        loss.backward()
+    raw = (tmp_path / "typed.safetensors").read_bytes()
+    n = int.from_bytes(raw[:8], "little")
+    assert n % 8 == 0
+    header = json.loads(raw[8 : 8 + n])
+    for name, entry in header.items():
+        if name == "__metadata__":
+            continue
+        width = {"F64": 8, "F32": 4, "I64": 8, "I32": 4, "F16": 2, "BF16": 2, "BOOL": 1}[entry["dtype"]]
+        assert entry["data_offsets"][0] % width == 0, name
+    values = sidecar_of(path)
+    np.testing.assert_array_equal(values["0.weight"], model[0].weight.detach().numpy())
+    assert values["0.weight"].dtype == np.float64
+    index_nodes = [i for i, node in nodes_of(path).items() if node["op"] == "const" and i in values and values[i].dtype == np.int64]
+    assert index_nodes, "the token indices are stored as I64"
+
+
+def test_non_finite_scalars_are_written_as_strings(tmp_path):
+    w = nn.Parameter(torch.tensor(0.0))
+    path = tmp_path / "inf.tape"
+    with ebb_capture.record(path) as rec:
+        rec.output(torch.log(w))
+    text = path.read_text()
+    assert '"value": "-inf"' in text
+    json.loads(text)  # still strict JSON
+
+
+def test_readme_example_runs_as_written(tmp_path, monkeypatch):
+    """README's "Recording from PyTorch" example, as written there."""
+    readme = (Path(__file__).resolve().parents[3] / "README.md").read_text()
+    section = readme.split("## Recording from PyTorch", 1)[1]
+    code = section.split("```python", 1)[1].split("```", 1)[0]
+    monkeypatch.chdir(tmp_path)
+    exec(compile(code, "README.md", "exec"), {})
+    assert (tmp_path / "step.tape").is_file() and (tmp_path / "step.safetensors").is_file()
+    header = json.loads((tmp_path / "step.tape").read_text())
+    assert header["title"] == "epoch 3, batch 41"
+    assert any("reported" in n for n in header["nodes"])
