@@ -73,6 +73,29 @@ _NONDIFF_PACKETS = {
     aten.random_,
     aten._local_scalar_dense,
 }
+# Ops that only draw random numbers (their outputs are constants as drawn).
+_RANDOM_GENERATORS = {
+    aten.bernoulli,
+    aten.bernoulli_,
+    aten.rand,
+    aten.rand_like,
+    aten.randn,
+    aten.randn_like,
+    aten.randint,
+    aten.randint_like,
+    aten.randperm,
+    aten.normal,
+    aten.normal_,
+    aten.uniform,
+    aten.uniform_,
+    aten.exponential_,
+    aten.random_,
+    aten.multinomial,
+    aten.poisson,
+    aten.cauchy_,
+    aten.geometric_,
+    aten.log_normal_,
+}
 _NONDIFF_OVERLOADS = {aten.div.Tensor_mode, aten.div.Scalar_mode, aten.div_.Tensor_mode, aten.div_.Scalar_mode}
 
 # Default for the largest custom-op Jacobian, in entries, over all its edges.
@@ -221,7 +244,14 @@ class Recorder:
         """Whether the op is recorded (rather than folded into constants)."""
         if func.overloadpacket in _NONDIFF_PACKETS or func in _NONDIFF_OVERLOADS:
             return False
-        if torch.Tag.nondeterministic_seeded in func.tags and lookup(func) is None:
+        if torch.Tag.nondeterministic_seeded in func.tags and lookup(func) is None and not self._deterministic_here(func, args, kwargs):
+            if func.overloadpacket in _RANDOM_GENERATORS:
+                return False  # fresh random numbers: constants, as drawn
+            if any(self.is_live(t) for t in tree_flatten((args, kwargs))[0] if isinstance(t, torch.Tensor)):
+                raise self.error(
+                    f"{func} draws random numbers inside an op with a derivative, which cannot be recorded as it ran",
+                    "record the step in eval() mode or with that op's random part off, or draw the randomness separately (a mask multiplied in)",
+                )
             return False
         self._function = None
         if not torch.is_grad_enabled():
@@ -231,6 +261,15 @@ class Recorder:
             if self._function is None:
                 return False
         return any(self.is_live(t) for t in tree_flatten((args, kwargs))[0] if isinstance(t, torch.Tensor))
+
+    @staticmethod
+    def _deterministic_here(func: OpOverload, args: tuple[Any, ...], kwargs: dict[str, Any]) -> bool:
+        """A random op whose probability argument is 0 draws nothing."""
+        for i, arg in enumerate(func._schema.arguments):
+            if arg.name in ("dropout_p", "p"):
+                value = args[i] if i < len(args) and not arg.kwarg_only else kwargs.get(arg.name, arg.default_value)
+                return isinstance(value, (int, float)) and value == 0
+        return False
 
     def _fold(self, func: OpOverload, args: tuple[Any, ...], kwargs: dict[str, Any], written: list[torch.Tensor]) -> Any:
         for t in written:

@@ -9,6 +9,7 @@ from typing import Any
 
 import torch
 from torch import nn
+from torch.nn.attention import SDPBackend, sdpa_kernel
 
 from .dtypes import ebb_dtype
 from .errors import CaptureError
@@ -48,6 +49,9 @@ class Recording:
         # as one op with no derivative formula we could record; with them
         # off, PyTorch runs the cell's own ops, which we record.
         self._flags.enter_context(_fused_kernels_off())
+        # Fused attention kernels hide their softmax and dropout mask; the
+        # math path runs them as ops we record.
+        self._flags.enter_context(sdpa_kernel([SDPBackend.MATH]))
         try:
             self._recorder.open()
         except BaseException:
