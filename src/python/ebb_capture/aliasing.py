@@ -1,18 +1,14 @@
-"""Tensors that share memory: keeping recorded values safe from later
-in-place writes (copy on write), and knowing which tensors a write changed.
+"""Tensors that share memory: which tensors an in-place write changed.
 
-PyTorch views and in-place ops share storage. A recorded node keeps its
-forward value by reference; before any op writes into a storage, every
-recorded value that overlaps the written elements is copied, so the trace
-holds the values as they were when computed. Writes are logged per storage,
-so a tensor read later can tell whether an in-place op on another view of
-its memory changed it since it was bound to its node.
+PyTorch views and in-place ops share storage. Writes are logged per
+storage, so a tensor read later can tell whether an in-place op on another
+view of its memory changed it since it was bound to its node. (Recorded
+values cannot change: each is stored as soon as its op is recorded.)
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Callable
 
 import torch
 
@@ -101,45 +97,11 @@ class Write:
 
 
 class AliasTracker:
-    """Recorded values and reported gradients by storage, and the write log."""
+    """The log of in-place writes, by storage."""
 
     def __init__(self) -> None:
         self.seq = 0
-        # storage → holder number → (the tensor held, its geometry, how to replace it)
-        self._held: dict[int, dict[int, tuple[torch.Tensor, Geometry, Callable[[torch.Tensor], None]]]] = {}
         self._writes: dict[int, list[Write]] = {}
-        self._next_holder = 0
-
-    def hold(self, t: torch.Tensor, replace: Callable[[torch.Tensor], None]) -> None:
-        """Registers a recorded tensor; `replace` swaps in a stand-in for it
-        (a copy before its elements change, an alias before its shape does)."""
-        key = storage_key(t)
-        self._next_holder += 1
-        self._held.setdefault(key, {})[self._next_holder] = (t, Geometry.of(t), replace)
-
-    def before_write(self, target: torch.Tensor) -> None:
-        """Copies every recorded value that a write into `target` would change."""
-        holders = self._held.get(storage_key(target))
-        if not holders:
-            return
-        geometry = Geometry.of(target)
-        doomed = [h for h, (_, g, _) in holders.items() if overlaps(g, geometry)]
-        for h in doomed:
-            held, _, replace = holders.pop(h)
-            replace(held.clone())
-
-    def before_reshape(self, target: torch.Tensor) -> None:
-        """An in-place view op (transpose_) is about to change `target`'s shape
-        and strides: recorded values that are that very tensor object get an
-        alias with the old shape (same memory, still held)."""
-        holders = self._held.get(storage_key(target))
-        if not holders:
-            return
-        for h in [h for h, (t, _, _) in holders.items() if t is target]:
-            held, geometry, replace = holders.pop(h)
-            stand_in = held.as_strided(geometry.size, geometry.stride, geometry.offset)
-            replace(stand_in)
-            self.hold(stand_in, replace)
 
     def log_write(self, target: torch.Tensor, node: str | None) -> int:
         """Records that `target` now holds `node`'s value (None: a value with

@@ -7,9 +7,11 @@ from typing import Any
 
 import torch
 
-# A node's value: a tensor (kept by reference, copied before anything writes
-# to it), or a Python number for scalar constants.
-Value = torch.Tensor | float
+from .spill import Stored
+
+# A node's value: a tensor while its op is being recorded, then stored in a
+# spill file (`Stored`); scalars are Python numbers, written inline.
+Value = torch.Tensor | Stored | float
 
 
 @dataclass
@@ -26,7 +28,7 @@ class Node:
     attrs: dict[str, Any] = field(default_factory=dict)
     # One entry per input edge for custom ops: {"jacobian": ndarray} or {"diag": ndarray}.
     partials: list[dict[str, Any]] | None = None
-    reported: torch.Tensor | None = None
+    reported: Stored | float | None = None
     # A node split out of a fused op has no tensor of its own in PyTorch;
     # when its gradient equals another node's (the addmm product's is the
     # addmm output's), that node's reported gradient is reported for it too.
@@ -35,7 +37,14 @@ class Node:
 
     @property
     def shape(self) -> tuple[int, ...]:
-        return tuple(self.value.shape) if isinstance(self.value, torch.Tensor) else ()
+        return tuple(self.value.shape) if isinstance(self.value, (torch.Tensor, Stored)) else ()
+
+    @property
+    def numel(self) -> int:
+        n = 1
+        for s in self.shape:
+            n *= s
+        return n
 
 
 class Graph:

@@ -46,7 +46,7 @@ def fill_partials(item: Deferred) -> None:
 
 def _diagonal(item: Deferred, flat: list[Any], spec: Any, positions: list[int], inputs: list[torch.Tensor]) -> None:
     (_, node), = item.outputs
-    shape = node.value.shape
+    shape = node.shape
     partials = []
     for j, position in enumerate(positions):
         with torch.enable_grad():
@@ -78,5 +78,5 @@ def _dense(item: Deferred, flat: list[Any], spec: Any, positions: list[int], inp
     except Exception:
         jac = torch.autograd.functional.jacobian(f, leaves)
     for k, (_, node) in enumerate(item.outputs):
-        rows = node.value.numel() if isinstance(node.value, torch.Tensor) else 1
+        rows = node.numel
         node.partials = [{"jacobian": jac[k][j].detach().reshape(rows, max(x.numel(), 1))} for j, x in enumerate(leaves)]

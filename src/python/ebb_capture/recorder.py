@@ -33,6 +33,7 @@ from .errors import CaptureError
 from .graph import Graph, Node
 from .optable import Call, Unmapped, functional_of, lookup
 from .scopes import ModuleStack, buffer_names, parameter_names
+from .spill import Spill, Stored
 
 aten = torch.ops.aten
 
@@ -97,6 +98,8 @@ _RANDOM_GENERATORS = {
     aten.log_normal_,
 }
 _NONDIFF_OVERLOADS = {aten.div.Tensor_mode, aten.div.Scalar_mode, aten.div_.Tensor_mode, aten.div_.Scalar_mode}
+
+_TORCH_DTYPE = {"f64": torch.float64, "f32": torch.float32, "f16": torch.float16, "bf16": torch.bfloat16}
 
 # Default for the largest custom-op Jacobian, in entries, over all its edges.
 JACOBIAN_LIMIT = 1 << 18
@@ -163,6 +166,7 @@ class Recorder:
         module: nn.Module | None,
         gradients: str,
         jacobian_limit: int,
+        spill: Spill,
     ) -> None:
         if gradients not in ("all", "params", "none"):
             raise ValueError("gradients must be 'all', 'params' or 'none'")
@@ -171,6 +175,8 @@ class Recorder:
         self.gradients = gradients
         self.jacobian_limit = jacobian_limit
         self.graph = Graph()
+        self.spill = spill
+        self._unsealed: list[Node] = []
         self.alias = AliasTracker()
         # Both keyed by id(tensor); an entry goes when its tensor dies, so a
         # new tensor at a reused address is never mistaken for an old one.
@@ -182,7 +188,7 @@ class Recorder:
         self.stack = ModuleStack(names_from, on_exit=self._module_done)
         self.mode = _Mode(self)
         self.active = False
-        self.reported: dict[str, torch.Tensor] = {}
+        self.reported: dict[str, Stored | float] = {}
         self._hooked: set[str] = set()
         self._pending: list[tuple[torch.Tensor, str]] = []
         self._handles: list[Any] = []
@@ -224,8 +230,6 @@ class Recorder:
         # named, outside backward; ops are recorded only inside the scope.
         tracking = self.active and torch._C._current_autograd_node() is None
         if not tracking or (self.module is not None and not self.stack.inside(self.module)):
-            for t in written:
-                self.alias.before_write(t)
             out = func(*args, **kwargs)
             if tracking and written:
                 self._note_unrecorded_writes(written)
@@ -238,7 +242,11 @@ class Recorder:
         self._op_name = str(func)
         if not self._differentiable(func, args, kwargs):
             return self._fold(func, args, kwargs, written)
-        return self._record(func, args, kwargs, written)
+        out = self._record(func, args, kwargs, written)
+        if not self._decomposing:
+            self.seal()
+            self._frame = None  # a frame keeps its locals alive
+        return out
 
     def _differentiable(self, func: OpOverload, args: tuple[Any, ...], kwargs: dict[str, Any]) -> bool:
         """Whether the op is recorded (rather than folded into constants)."""
@@ -272,8 +280,6 @@ class Recorder:
         return False
 
     def _fold(self, func: OpOverload, args: tuple[Any, ...], kwargs: dict[str, Any], written: list[torch.Tensor]) -> Any:
-        for t in written:
-            self.alias.before_write(t)
         out = func(*args, **kwargs)
         written_ids = {id(t) for t in written}
         for o in tree_flatten(out)[0]:
@@ -319,11 +325,7 @@ class Recorder:
                 self._make_const(old)
             before[id(t)] = old
         if reshapes_only:
-            for t in written:
-                self.alias.before_reshape(t)
-            written = []  # no element changes: nothing to copy or log
-        for t in written:
-            self.alias.before_write(t)
+            written = []  # no element changes: nothing to log
         out = func(*args, **kwargs)
         outs = [o for o in tree_flatten(out)[0] if isinstance(o, torch.Tensor)]
         if not any(is_float(o) for o in outs):
@@ -393,6 +395,7 @@ class Recorder:
         for node in self.graph.nodes[mark:]:
             del self.graph.by_id[node.id]
         del self.graph.nodes[mark:]
+        self._unsealed = [n for n in self._unsealed if n.id in self.graph.by_id]
         for key in [k for k, b in self.bindings.items() if b.node not in self.graph.by_id]:
             del self.bindings[key]
         self._pending = [(t, n) for t, n in self._pending if n in self.graph.by_id]
@@ -442,7 +445,6 @@ class Recorder:
             # computed, so consumers read exactly what the step read.
             if node.index >= mark and node.shape == tuple(real.shape) and part.dtype == real.dtype:
                 node.value = real
-                self._hold(node)
             elif part.dtype != real.dtype or tuple(part.shape) != tuple(real.shape):
                 self._rollback(mark)
                 return None
@@ -514,15 +516,15 @@ class Recorder:
         with torch.no_grad():
             return fn()
 
-    def _hold(self, node: Node) -> None:
-        if isinstance(node.value, torch.Tensor):
+    def seal(self) -> None:
+        """Stores the values of the nodes recorded since the last call: each
+        tensor goes to the spill file now, so nothing written in place later
+        can change it, and nothing stays in memory."""
+        unsealed, self._unsealed = self._unsealed, []
+        for node in unsealed:
             value = node.value
-
-            def replace(stand_in: torch.Tensor) -> None:
-                if node.value is value:
-                    node.value = stand_in
-
-            self.alias.hold(value, replace)
+            if isinstance(value, torch.Tensor):
+                node.value = float(value.item()) if value.dim() == 0 else self.spill.put(node.id, value)
 
     def _new(self, op: str, inputs: list[str], value: torch.Tensor | float, dtype: str, base: str | None = None, **attrs: Any) -> str:
         group = self.group
@@ -539,7 +541,7 @@ class Recorder:
             attrs=attrs,
         )
         self.graph.add(node)
-        self._hold(node)
+        self._unsealed.append(node)
         return node.id
 
     def op(self, op: str, inputs: Iterable[torch.Tensor | str | float | int], value: torch.Tensor, **attrs: Any) -> str:
@@ -578,14 +580,16 @@ class Recorder:
         """`node`'s gradient is `other`'s (an add's operand of the same shape)."""
         self.graph.by_id[node].reported_from = other
 
-    def value_of(self, node: str) -> torch.Tensor | float:
-        return self.graph.by_id[node].value
+    def shape_of(self, node: str) -> tuple[int, ...]:
+        return self.graph.by_id[node].shape
 
     def set_value(self, node: str, value: torch.Tensor) -> None:
-        """Gives a node the value the real kernel computed (same shape)."""
+        """Gives a node recorded in this op the value the real kernel
+        computed (same shape)."""
         recorded = self.graph.by_id[node]
+        if not isinstance(recorded.value, torch.Tensor) or recorded.value.shape != value.shape:
+            raise AssertionError(f"{node}: only a value recorded in this op can be replaced, by one of its shape")
         recorded.value = value
-        self._hold(recorded)
 
     def selection(self, x: torch.Tensor, out: torch.Tensor, where: torch.Tensor, name: str) -> str:
         """`out[i] = x.flatten()[where[i]]`: a custom op with a 0/1 Jacobian."""
@@ -740,15 +744,14 @@ class Recorder:
             rows = (source == k).nonzero().flatten()
             if rows.numel() and w.node is not None:
                 groups.append((w.node, rows, position[rows]))
-        entries = sum(n * self.graph.by_id[g[0]].value.numel() for g in groups if isinstance(self.graph.by_id[g[0]].value, torch.Tensor))
+        entries = sum(n * self.graph.by_id[g[0]].numel for g in groups)
         if entries > self.jacobian_limit:
             raise self.error(
                 f"a tensor read after in-place writes into part of it through another view needs a {entries}-entry selection (limit {self.jacobian_limit})",
                 "write the step out of place (torch.cat, torch.where) or raise jacobian_limit",
             )
         for node, rows, columns in groups:
-            src = self.graph.by_id[node]
-            width = src.value.numel() if isinstance(src.value, torch.Tensor) else 1
+            width = self.graph.by_id[node].numel
             jacobian = torch.zeros(n, width, dtype=torch.float64)
             jacobian[rows, columns] = 1.0
             inputs.append(node)
@@ -777,13 +780,14 @@ class Recorder:
         self._handles.append(t.register_hook(partial(self._got_grad, node)))
 
     def _got_grad(self, node: str, grad: torch.Tensor) -> None:
-        self.reported[node] = grad
-
-        def replace(stand_in: torch.Tensor) -> None:
-            if self.reported.get(node) is grad:
-                self.reported[node] = stand_in
-
-        self.alias.hold(grad, replace)
+        """Stores the gradient PyTorch computed for `node`'s tensor."""
+        recorded = self.graph.by_id.get(node)
+        if recorded is None or tuple(grad.shape) != recorded.shape:
+            return
+        dtype = _TORCH_DTYPE.get(recorded.dtype)
+        if dtype is not None and grad.dtype != dtype and grad.is_floating_point():
+            grad = grad.to(dtype)
+        self.reported[node] = float(grad.item()) if grad.dim() == 0 else self.spill.put(f"grad/{node}", grad)
 
     def output(self, t: torch.Tensor) -> None:
         self.flush_hooks()
@@ -800,6 +804,7 @@ class Recorder:
                 "pass the loss computed inside the `with` block",
             )
         self.output_node = self.node(t)
+        self.seal()
         self._watch(t, self.output_node)
         self.active = False
 
@@ -810,5 +815,6 @@ class Recorder:
         for t in tree_flatten(output)[0]:
             if isinstance(t, torch.Tensor) and is_float(t) and self.is_live(t):
                 node = self.node(t)
+                self.seal()
                 self.scope_outputs.append((t, node))
                 self._watch(t, node)

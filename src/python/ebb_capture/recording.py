@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import contextlib
 import os
+import time
 from collections import Counter
+from pathlib import Path
 from typing import Any
 
 import torch
@@ -16,6 +18,7 @@ from .errors import CaptureError
 from .graph import Node
 from .jacobians import fill_partials
 from .recorder import JACOBIAN_LIMIT, Recorder
+from .spill import Spill, Stored
 from .writer import Header, write_trace
 
 
@@ -40,9 +43,15 @@ class Recording:
         self.title = title
         self.description = description
         self.keep_unreached = keep_unreached
-        self._recorder = Recorder(model, module, gradients, jacobian_limit)
+        target = Path(self.path)
+        self._spill = Spill(target.parent if str(target.parent) else Path("."), target.name)
+        self._recorder = Recorder(model, module, gradients, jacobian_limit, self._spill)
         self._flags = contextlib.ExitStack()
         self.nodes: list[Node] = []
+        # Seconds spent storing tensors while the step ran, finishing the
+        # trace (partials of custom ops, gradients attached, nodes pruned) and
+        # writing its two files.
+        self.seconds: dict[str, float] = {}
 
     def __enter__(self) -> "Recording":
         # The CPU's fused recurrent kernels (oneDNN) run a whole LSTM layer
@@ -68,33 +77,45 @@ class Recording:
 
     def __exit__(self, exc_type: Any, exc: Any, tb: Any) -> bool:
         try:
-            self._recorder.close()
+            try:
+                self._recorder.close()
+            finally:
+                self._flags.close()
+            if exc_type is None:
+                self._finish()
         finally:
-            self._flags.close()
-        if exc_type is not None:
-            return False  # nothing is written for a step that failed
-        self._finish()
-        return False
+            self._spill.close()
+        return False  # nothing is written for a step that failed
 
     # ----------------------------------------------------------- finishing
 
     def _finish(self) -> None:
+        start = time.perf_counter()
         rec = self._recorder
         for item in rec.deferred:
             fill_partials(item)
         output, seed = self._output()
-        for node in rec.graph.nodes:
-            grad = rec.reported.get(node.id)
-            if grad is None and node.reported_from is not None:
-                grad = rec.reported.get(node.reported_from)
-            if grad is not None and isinstance(node.value, torch.Tensor) and tuple(grad.shape) == node.shape:
-                node.reported = grad if grad.dtype == node.value.dtype else grad.to(node.value.dtype)
+        rec.seal()
+        if rec.gradients != "none":
+            for node in rec.graph.nodes:
+                grad = rec.reported.get(node.id)
+                if grad is None and node.reported_from is not None:
+                    source = rec.graph.by_id[node.reported_from]
+                    if source.dtype == node.dtype and source.shape == node.shape:
+                        grad = rec.reported.get(node.reported_from)
+                node.reported = grad
         nodes = rec.graph.nodes if self.keep_unreached else _reaching(rec.graph.nodes, output)
         dtype = _default_dtype(nodes)
         title = self.title or _default_title(self.model, self.module)
         header = Header(title=title, description=self.description, dtype=dtype, output=output, seed=seed)
         self.nodes = nodes
-        write_trace(self.path, header, nodes)
+        written = time.perf_counter()
+        write_trace(self.path, header, nodes, self._spill)
+        self.seconds = {
+            "store": self._spill.seconds,
+            "finish": written - start,
+            "write": time.perf_counter() - written,
+        }
 
     def _output(self) -> tuple[str, torch.Tensor | float | None]:
         """The output node and its seed: the gradient that reached it when
@@ -129,10 +150,14 @@ class Recording:
         total: str | None = None
         total_value: torch.Tensor | None = None
         for tensor, node in outs:
-            value = rec.graph.by_id[node].value
-            assert isinstance(value, torch.Tensor)
+            value = tensor.detach()
             grad = rec.reported.get(node)
-            weight = grad.to(value.dtype) if grad is not None else torch.ones_like(value)
+            if isinstance(grad, Stored):
+                weight = self._spill.read(grad).to(value.dtype)
+            elif grad is not None:
+                weight = torch.full_like(value, grad)
+            else:
+                weight = torch.ones_like(value)
             product = rec.op("mul", [node, rec.const(weight, "output_gradient")], value * weight)
             inner = (value * weight).sum()
             term = rec.op("sum", [product], inner)
@@ -177,13 +202,11 @@ def _fused_kernels_off() -> Any:
         torch._C._set_mkldnn_enabled(before)
 
 
-def _seed(grad: torch.Tensor | None) -> torch.Tensor | float | None:
-    if grad is None:
-        return None
-    if grad.dim() == 0:
-        value = float(grad.item())
-        return None if value == 1.0 else value
-    return grad
+def _seed(grad: Stored | float | None) -> Stored | float | None:
+    """The seed: the output's gradient, unless it is Ebb's default of 1."""
+    if grad is None or isinstance(grad, Stored):
+        return grad
+    return None if grad == 1.0 else grad
 
 
 def _reaching(nodes: list[Node], output: str) -> list[Node]:
@@ -201,13 +224,15 @@ def _reaching(nodes: list[Node], output: str) -> list[Node]:
 
 
 def _default_dtype(nodes: list[Node]) -> str:
-    counts = Counter(n.dtype for n in nodes if n.op != "const")
-    if not counts:
-        return "f32"
-    best = max(counts.values())
-    for preferred in ("f32", "f64", "bf16", "f16"):
-        if counts.get(preferred) == best:
-            return preferred
+    """The header's dtype: the parameters' (an autocast step keeps f32
+    weights), else the most common among the nodes."""
+    for pool in ([n for n in nodes if n.op == "param"], [n for n in nodes if n.op != "const"]):
+        counts = Counter(n.dtype for n in pool)
+        if counts:
+            best = max(counts.values())
+            for preferred in ("f32", "f64", "bf16", "f16"):
+                if counts.get(preferred) == best:
+                    return preferred
     return "f32"
 
 

@@ -117,4 +117,4 @@ def lookup(func: OpOverload) -> Handler | None:
 
 
 # Register every handler.
-from . import elementwise, linalg, losses, reduce, shape, views  # noqa: E402,F401
+from . import axes, elementwise, linalg, losses, reduce, shape, views  # noqa: E402,F401

@@ -159,7 +159,7 @@ def var_mean(r: "Recorder", c: Call) -> list[str | None]:
     x, var_out, mean_out = c["self"], c.outs[0], c.outs[1]
     keepdim = bool(c.a.get("keepdim") or False)
     variance, mean = _variance(r, x, c.a.get("dim"), _correction(c), keepdim, var_out)
-    if tuple(mean_out.shape) != tuple(r.value_of(mean).shape):
+    if tuple(mean_out.shape) != r.shape_of(mean):
         mean = r.op("reshape", [mean], mean_out, shape=list(mean_out.shape))
     else:
         r.set_value(mean, mean_out)

@@ -1,9 +1,7 @@
-"""Views that pick elements of their input (select, slice, split, unbind,
-as_strided, diagonal): each output element is found in the input's memory,
-so the map from input to output is read off the storage, never guessed.
-
-Until Ebb's catalog has slice, select and gather, the picked elements are
-recorded as a custom op whose partial is a 0/1 Jacobian."""
+"""Views that pick elements of their input in no simple pattern (as_strided,
+diagonal): each output element is found in the input's memory, so the map
+from input to output is read off the storage, never guessed. The picked
+elements are recorded as a custom op whose partial is a 0/1 Jacobian."""
 
 from __future__ import annotations
 
@@ -55,11 +53,5 @@ def _each(name: str):  # type: ignore[no-untyped-def]
     return handler
 
 
-handles(aten.select.int)(_each("select"))
-handles(aten.slice.Tensor)(_each("slice"))
-handles(aten.narrow.default)(_each("slice"))
 handles(aten.as_strided.default)(_each("as_strided"))
 handles(aten.diagonal.default)(_each("diagonal"))
-handles(aten.unbind.int)(_each("select"))
-handles(aten.split.Tensor, aten.split_with_sizes.default, aten.unsafe_split.Tensor, aten.unsafe_split_with_sizes.default)(_each("slice"))
-handles(aten.chunk.default, aten.unsafe_chunk.default, aten.tensor_split.sections, aten.tensor_split.indices)(_each("slice"))
