@@ -182,3 +182,44 @@ def stack(r: "Recorder", c: Call) -> list[str | None]:
         parts.append(r.op("reshape", [t], lifted, shape=list(lifted.shape)))
         values.append(lifted)
     return [join(r, parts, values, axis, out)]
+
+
+@handles(aten.constant_pad_nd.default)
+def constant_pad(r: "Recorder", c: Call) -> list[str | None]:
+    """Constant padding, one axis at a time from the last: a matmul with a
+    0/1 matrix placing the axis in the middle of a longer one, plus a
+    constant holding the padding value around it (an add, so a −∞ padding
+    value meets no multiplication)."""
+    x, out = c["self"], c.outs[0]
+    pads = list(c["pad"])
+    value = float(c["value"])
+    node: torch.Tensor | str = x
+    current = x
+    for k in range(len(pads) // 2):
+        axis = x.dim() - 1 - k
+        before, after = pads[2 * k], pads[2 * k + 1]
+        if before == 0 and after == 0:
+            continue
+        if before < 0 or after < 0:
+            raise Unmapped("cropping")
+        n = current.shape[axis]
+        width = n + before + after
+        matrix = torch.zeros(n, width, dtype=x.dtype)
+        matrix[torch.arange(n), torch.arange(before, before + n)] = 1
+        moved_node, moved, back = _to_last(r, node, current, axis)
+        product = r.compute(lambda: moved @ matrix)
+        placed = r.op("matmul", [moved_node, r.const(matrix, "place")], product)
+        border = torch.full((width,), value, dtype=x.dtype)
+        border[before : before + n] = 0
+        padded_value = r.compute(lambda: product + border)
+        padded = r.op("add", [placed, r.const(border, "padding")], padded_value)
+        if back is None:
+            current = padded_value.reshape([*current.shape[:axis], width, *current.shape[axis + 1 :]])
+            node = padded if tuple(padded_value.shape) == tuple(current.shape) else r.op("reshape", [padded], current, shape=list(current.shape))
+        else:
+            current = r.compute(lambda: padded_value.permute(back))
+            node = r.op("transpose", [padded], current, perm=back)
+    if isinstance(node, torch.Tensor):
+        return [r.same(x, out)]
+    r.set_value(node, out)
+    return [node]

@@ -68,3 +68,17 @@ def native_dropout(r: "Recorder", c: Call) -> list[str | None]:
     scale = 0.0 if p >= 1 else 1.0 / (1.0 - p)
     factor = (mask.to(torch.float64) * scale).to(x.dtype)
     return [r.op("mul", [x, r.const(factor, "dropout_mask")], out), None]
+
+
+@handles(aten.embedding.default)
+def embedding(r: "Recorder", c: Call) -> list[str | None]:
+    """Rows of the table: a matmul of a constant one-hot matrix of the
+    indices with the table (exact: each output element is one product with
+    1 plus zeros). The gradient of a repeated index accumulates."""
+    table, indices, out = c["weight"], c["indices"], c.outs[0]
+    rows = table.shape[0]
+    flat = indices.reshape(-1).to(torch.int64)
+    one_hot = torch.zeros(flat.numel(), rows, dtype=table.dtype)
+    one_hot[torch.arange(flat.numel()), flat] = 1
+    one_hot = one_hot.reshape(*indices.shape, rows)
+    return [r.op("matmul", [r.const(one_hot, "one_hot"), table], out)]
