@@ -31,7 +31,7 @@ from .aliasing import AliasTracker, Geometry, Write, overlaps
 from .dtypes import EBB_NAME, ebb_dtype, is_float, opmath
 from .errors import CaptureError
 from .graph import Graph, Node
-from .optable import Call, Unmapped, functional_of, lookup
+from .optable import Call, Unmapped, catalog, functional_of, lookup
 from .scopes import ModuleStack, buffer_names, parameter_names
 from .spill import Spill, Stored
 
@@ -507,6 +507,11 @@ class Recorder:
     def error(self, what: str, todo: str) -> CaptureError:
         where = f" at {self.site}" if self.site else ""
         return CaptureError(f"ebb_capture: {what}{where}; {todo}")
+
+    @staticmethod
+    def has(op: str) -> bool:
+        """Whether Ebb's catalog has `op` (else handlers write a stand-in)."""
+        return catalog.has(op)
 
     def functional(self, func: OpOverload) -> OpOverload:
         return functional_of(func) or func
