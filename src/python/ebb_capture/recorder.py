@@ -31,7 +31,7 @@ from .aliasing import AliasTracker, Geometry, Write, overlaps
 from .dtypes import EBB_NAME, ebb_dtype, is_float, opmath
 from .errors import CaptureError
 from .graph import Graph, Node
-from .optable import Call, Unmapped, catalog, functional_of, lookup
+from .optable import Call, Later, Unmapped, catalog, functional_of, lookup
 from .scopes import ModuleStack, buffer_names, parameter_names
 from .spill import Spill, Stored
 
@@ -100,6 +100,10 @@ _RANDOM_GENERATORS = {
 _NONDIFF_OVERLOADS = {aten.div.Tensor_mode, aten.div.Scalar_mode, aten.div_.Tensor_mode, aten.div_.Scalar_mode}
 
 _TORCH_DTYPE = {"f64": torch.float64, "f32": torch.float32, "f16": torch.float16, "bf16": torch.bfloat16}
+_HALF = (torch.float16, torch.bfloat16)
+# Pointwise ops whose partials are exact in f16 and bf16 (1, −1, 0 or an
+# operand), so that one rounding of the contribution is all there is.
+_EXACT_IN_HALF = {"add", "sub", "rsub", "neg", "mul", "relu", "abs", "where", "maximum", "minimum", "clamp", "clamp_min", "clamp_max", "hardtanh", "threshold", "masked_fill", "copy", "_to_copy", "to", "clone"}
 
 # Default for the largest custom-op Jacobian, in entries, over all its edges.
 JACOBIAN_LIMIT = 1 << 18
@@ -182,6 +186,7 @@ class Recorder:
         # new tensor at a reused address is never mistaken for an old one.
         self.bindings: dict[int, Binding] = {}
         self.consts: dict[int, tuple[weakref.ref, int]] = {}
+        self._later: dict[int, tuple[weakref.ref, Later]] = {}
         names_from = model if model is not None else module
         self.params = parameter_names(names_from)
         self.buffers = buffer_names(names_from)
@@ -339,16 +344,59 @@ class Recorder:
         else:
             call_args, call_kwargs = args, kwargs
         call = Call(func, call_args, call_kwargs, out)
-        nodes = self.map_call(call)
+        nodes = self._map_in_opmath(call) if self._computes_in_opmath(call) else self.map_call(call)
         self._bind_outputs(call, nodes, written)
         return out
 
-    def _bind_outputs(self, call: Call, nodes: list[str | None], written: list[torch.Tensor]) -> None:
+    def _computes_in_opmath(self, call: Call) -> bool:
+        """A pointwise op on f16/bf16 tensors whose partials are not exact in
+        that format: PyTorch's kernels compute it in f32 and round once, so it
+        is recorded that way (cast, the op in f32, cast back)."""
+        if torch.Tag.pointwise not in call.func.tags:
+            return False
+        if not call.outs or not all(o.dtype in _HALF for o in call.outs):
+            return False
+        name = self.functional(call.func)._schema.name.split("::")[-1]
+        return name not in _EXACT_IN_HALF
+
+    def _map_in_opmath(self, call: Call) -> list[str | Later | None]:
+        func = self.functional(call.func)
+        casts: dict[int, torch.Tensor] = {}
+
+        def widen(x: Any) -> Any:
+            if not isinstance(x, torch.Tensor) or x.dtype not in _HALF:
+                return x
+            if id(x) not in casts:
+                wide = x.to(torch.float32)
+                if self.is_live(x):
+                    self.bind(wide, self.op("cast", [x], wide))
+                else:
+                    self._make_const(wide)
+                casts[id(x)] = wide
+            return casts[id(x)]
+
+        args, kwargs = tree_map(widen, call.args), tree_map(widen, call.kwargs)
+        out = self.compute(lambda: func(*args, **kwargs))
+        wide_call = Call(func, args, kwargs, out)
+        nodes = self.map_call(wide_call)
+        narrowed: list[str | Later | None] = []
+        for wide, real, node in zip(wide_call.outs, call.outs, nodes):
+            narrowed.append(self.op("cast", [node], real) if isinstance(node, str) else None)
+        return narrowed
+
+    def _bind_outputs(self, call: Call, nodes: list[str | Later | None], written: list[torch.Tensor]) -> None:
         if len(nodes) != len(call.outs):
             raise AssertionError(f"{call.func}: {len(nodes)} nodes for {len(call.outs)} outputs")
         written_ids = {id(t) for t in written}
         done: set[int] = set()
         for tensor, node in zip(call.outs, nodes):
+            if isinstance(node, Later):
+                self.bindings.pop(id(tensor), None)
+                key = id(tensor)
+                ref = weakref.ref(tensor, lambda r, key=key: self._later.pop(key, None))
+                self._later[key] = (ref, node)
+                done.add(key)
+                continue
             if node is None or not is_float(tensor):
                 self._make_const(tensor)
                 if id(tensor) in written_ids:
@@ -371,7 +419,7 @@ class Recorder:
 
     # ------------------------------------------------------------ mapping
 
-    def map_call(self, call: Call) -> list[str | None]:
+    def map_call(self, call: Call) -> list[str | Later | None]:
         """Handler, else decomposition, else a custom op with its Jacobian."""
         handler = lookup(call.func)
         if handler is not None:
@@ -508,11 +556,6 @@ class Recorder:
         where = f" at {self.site}" if self.site else ""
         return CaptureError(f"ebb_capture: {what}{where}; {todo}")
 
-    @staticmethod
-    def has(op: str) -> bool:
-        """Whether Ebb's catalog has `op` (else handlers write a stand-in)."""
-        return catalog.has(op)
-
     def functional(self, func: OpOverload) -> OpOverload:
         return functional_of(func) or func
 
@@ -532,6 +575,8 @@ class Recorder:
                 node.value = float(value.item()) if value.dim() == 0 else self.spill.put(node.id, value)
 
     def _new(self, op: str, inputs: list[str], value: torch.Tensor | float, dtype: str, base: str | None = None, **attrs: Any) -> str:
+        if not catalog.known(op):
+            raise AssertionError(f"{op!r} is not in Ebb's catalog")
         group = self.group
         if base is None:
             base = f"{group}/{op}" if group else op
@@ -585,6 +630,39 @@ class Recorder:
         """`node`'s gradient is `other`'s (an add's operand of the same shape)."""
         self.graph.by_id[node].reported_from = other
 
+    def later(self, tensor: torch.Tensor, make: Callable[[], str]) -> Later:
+        """`tensor`'s nodes are made by `make` if and when a later op reads it."""
+        return Later(make)
+
+    def reduce_to(self, op: str, x: torch.Tensor, axes: list[int], out: torch.Tensor, source: str | None = None, **attrs: Any) -> str:
+        """Reduces `x` (held by node `source`, else its bound node) over
+        `axes` with keepdims, the result `out` (its shape may drop the
+        reduced axes: then it is reshaped). Several axes that are not all of
+        them are moved last and merged into one first."""
+        x_node: torch.Tensor | str = x if source is None else source
+        rank = x.dim()
+        axes = sorted(a % rank for a in axes)
+        kept = [1 if d in axes else n for d, n in enumerate(x.shape)]
+        if len(axes) == rank:
+            value = self.compute(lambda: out.reshape(()))
+            node = self.op(op, [x_node], value, **attrs)
+        elif len(axes) == 1:
+            value = self.compute(lambda: out.reshape(kept))
+            node = self.op(op, [x_node], value, axis=axes[0], keepdims=True, **attrs)
+        else:
+            others = [d for d in range(rank) if d not in axes]
+            moved = self.compute(lambda: x.permute(others + axes))
+            node = self.op("transpose", [x_node], moved, perm=others + axes)
+            merged = self.compute(lambda: moved.reshape([x.shape[d] for d in others] + [-1]))
+            node = self.op("reshape", [node], merged, shape=list(merged.shape))
+            value = self.compute(lambda: out.reshape([x.shape[d] for d in others] + [1]))
+            node = self.op(op, [node], value, axis=len(others), keepdims=True, **attrs)
+        if tuple(value.shape) != tuple(out.shape):
+            node = self.op("reshape", [node], out, shape=list(out.shape))
+        else:
+            self.set_value(node, out)
+        return node
+
     def shape_of(self, node: str) -> tuple[int, ...]:
         return self.graph.by_id[node].shape
 
@@ -615,10 +693,8 @@ class Recorder:
         return self.op("cast", [x], value)
 
     def broadcast(self, x: torch.Tensor | str, out: torch.Tensor) -> str:
-        """`x` broadcast to `out`'s shape: an add of zeros of that shape (the
-        add's derivative sums the broadcast axes back)."""
-        zeros = torch.zeros(out.shape, dtype=out.dtype)
-        return self.op("add", [x, self.const(zeros, "zeros")], out)
+        """`x` broadcast to `out`'s shape."""
+        return self.op("broadcast_to", [x], out, shape=list(out.shape))
 
     # ------------------------------------------------------------ bindings
 
@@ -637,6 +713,8 @@ class Recorder:
         b = self.bindings.get(id(t))
         if b is not None:
             return not b.const or self._written_live(t, b.seq)
+        if id(t) in self._later:
+            return True
         entry = self.consts.get(id(t))
         if entry is not None:
             return self._written_live(t, entry[1])
@@ -653,6 +731,11 @@ class Recorder:
         """The node holding `t`'s current value (a new leaf if `t` is new)."""
         b = self.bindings.get(id(t))
         if b is None:
+            later = self._later.pop(id(t), None)
+            if later is not None:
+                node = later[1].make()
+                self.bind(t, node)
+                return node
             return self._leaf(t)
         writes = self.alias.writes_since(t, b.seq)
         if writes:
@@ -670,7 +753,7 @@ class Recorder:
             name, _ = self.buffers[id(t)]
             node = self._new("const", [], t, self._leaf_dtype(t), base=name)
         elif id(t) in self.consts or not is_float(t):
-            base = "index" if not is_float(t) else "const"
+            base = "const" if is_float(t) else "mask" if t.dtype == torch.bool else "index"
             node = self._new("const", [], t, self._leaf_dtype(t), base=f"{group}/{base}" if group else base)
         elif t.requires_grad and t.is_leaf:
             name = sites.local_name(self.frame, t) or "param"

@@ -37,9 +37,15 @@ def test_demos_are_small():
             assert path.stat().st_size < 2 * 1024 * 1024, path
 
 
+def consistent(report: dict) -> None:
+    """Every node's value is what its op gives from its recorded inputs."""
+    assert not [f for f in report["diagnosis"]["findings"] if f["rule"] == "forward_mismatch"]
+
+
 def test_recurrent_demo_explodes(ebb):
     status, report = ebb.check(REPO / "traces" / "recorded_rnn_exploding.tape")
     assert status == 1
+    consistent(report)
     exploding = {f["node"] for f in report["diagnosis"]["findings"] if f["rule"] == "exploding"}
     assert "cell.weight_hh_l0" in exploding
     norms = {g["id"]: g["norm"] for g in report["gradients"]}
@@ -52,9 +58,12 @@ def test_f16_demo_flushes_small_gradients_to_zero(ebb):
     trace = REPO / "traces" / "recorded_f16_underflow.tape"
     header = json.loads(trace.read_text())
     assert header["dtype"] == "f32"
-    assert {n.get("dtype") for n in header["nodes"] if n["op"] == "matmul"} == {"f16"}
+    nodes = {n["id"]: n for n in header["nodes"]}
+    matmuls = [n for n in nodes.values() if n["op"] == "matmul"]
+    assert matmuls and all(nodes[i].get("dtype") == "f16" for n in matmuls for i in n["inputs"])
     status, report = ebb.check(trace)
     assert status == 1
+    consistent(report)
     rules = {f["rule"] for f in report["diagnosis"]["findings"]}
     assert "underflow" in rules
     scale = report["diagnosis"]["loss_scale"]

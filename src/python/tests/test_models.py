@@ -38,12 +38,25 @@ def agree(ebb, trace: Path, theirs: dict[str, np.ndarray], dtype: torch.dtype, s
 
 
 def clean_check(ebb, trace: Path) -> dict:
-    """`ebb check` read and swept the whole trace, and nothing was non-finite."""
+    """`ebb check` read and swept the whole trace, nothing was non-finite,
+    and every node's recorded value is what its op gives from its recorded
+    inputs (Ebb's forward-consistency rule)."""
     status, report = ebb.check(trace)
     assert status in (0, 1)
     assert report["counts"]["swept"] == report["counts"]["nodes"]
     assert not [f for f in report["flags"] if f["kind"].startswith("non_finite")]
+    mismatches = [f for f in report["diagnosis"]["findings"] if f["rule"] == "forward_mismatch" and not _kernel_error(f)]
+    assert not mismatches, json.dumps(mismatches, indent=1)
     return report
+
+
+def _kernel_error(finding: dict) -> bool:
+    """PyTorch's f32 GELU kernel computes 0.5·x·(1 + erf(x/√2)), which cancels
+    for x below about −3: its value there is off by up to a few times 1e-7
+    (tens of units in the last place of the small result), beyond the
+    tolerance Ebb's forward-consistency rule allows a faithful library. The
+    trace records that value as PyTorch computed it; only this is excused."""
+    return finding["op"] == "gelu" and finding["value"] < 1e-6
 
 
 def clean_verify(ebb, trace: Path) -> dict:
@@ -225,8 +238,13 @@ def test_bf16_autocast(ebb, capture):
     assert header["dtype"] == "f32"
     casts = [n for n in nodes.values() if n["op"] == "cast"]
     assert {n.get("dtype", "f32") for n in casts} == {"bf16", "f32"}
+    # Each linear layer's product: bf16 inputs, kept in the kernel's f32
+    # accumulator, rounded once into bf16 with the bias.
     matmuls = [n for n in nodes.values() if n["op"] == "matmul"]
-    assert matmuls and all(n["dtype"] == "bf16" for n in matmuls)
+    assert matmuls and all(n.get("dtype", "f32") == "f32" for n in matmuls)
+    assert all(nodes[i].get("dtype") == "bf16" for n in matmuls for i in n["inputs"])
+    adds = [n for n in nodes.values() if n["op"] == "add" and any(i in {m["id"] for m in matmuls} for i in n["inputs"])]
+    assert len(adds) == 2 and all(n["dtype"] == "bf16" for n in adds)
     clean_check(ebb, trace)
     clean_verify(ebb, trace)
     agree(ebb, trace, theirs, torch.float32)

@@ -403,3 +403,12 @@ def test_a_big_sidecar_is_finished_in_place(tmp_path, monkeypatch):
     np.testing.assert_array_equal(values["weight"], model.weight.detach().numpy())
     np.testing.assert_array_equal(values["add"], out.detach().numpy())
     assert sorted(p.name for p in tmp_path.iterdir()) == ["big.safetensors", "big.tape"]
+
+
+def test_every_op_the_package_writes_is_in_ebbs_catalog(ebb):
+    from ebb_capture.optable import catalog
+
+    listed = ebb.run("ops")
+    assert listed.returncode == 0
+    ops = {line.split()[0] for line in listed.stdout.splitlines()[1:] if line.strip()}
+    assert catalog.PRESENT <= ops, catalog.PRESENT - ops

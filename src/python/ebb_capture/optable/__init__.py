@@ -53,7 +53,15 @@ class Call:
         return self.a[name]
 
 
-Handler = Callable[["Recorder", Call], list[str | None]]
+class Later:
+    """An output whose nodes are made only if a later op reads it (the
+    statistics a normalisation returns for its own backward)."""
+
+    def __init__(self, make: Callable[[], str]) -> None:
+        self.make = make
+
+
+Handler = Callable[["Recorder", Call], list["str | Later | None"]]
 
 HANDLERS: dict[OpOverload, Handler] = {}
 
@@ -117,4 +125,4 @@ def lookup(func: OpOverload) -> Handler | None:
 
 
 # Register every handler.
-from . import axes, elementwise, linalg, losses, reduce, shape, views  # noqa: E402,F401
+from . import axes, elementwise, linalg, losses, nn, reduce, shape, views  # noqa: E402,F401

@@ -39,15 +39,25 @@ def _plus_bias(r: "Recorder", c: Call, product: str, product_value: torch.Tensor
     return total
 
 
+def _product(r: "Recorder", a: torch.Tensor, b: torch.Tensor, multiply) -> tuple[str, torch.Tensor]:  # type: ignore[no-untyped-def]
+    """The product inside a fused multiply-add. In f16 and bf16 the kernel
+    keeps it in its f32 accumulator and rounds only the sum with the bias:
+    so the product node is f32 (Ebb accumulates a matmul in f32 and rounds
+    into the node's dtype), and the add rounds once into the half format."""
+    if a.dtype in (torch.float16, torch.bfloat16):
+        value = r.compute(lambda: multiply(a.float(), b.float()))
+    else:
+        value = r.compute(lambda: multiply(a, b))
+    return r.op("matmul", [a, b], value), value
+
+
 @handles(aten.addmm.default)
 def addmm(r: "Recorder", c: Call) -> list[str | None]:
-    value = r.compute(lambda: torch.mm(c["mat1"], c["mat2"]))
-    product = r.op("matmul", [c["mat1"], c["mat2"]], value)
+    product, value = _product(r, c["mat1"], c["mat2"], torch.mm)
     return [_plus_bias(r, c, product, value)]
 
 
 @handles(aten.baddbmm.default)
 def baddbmm(r: "Recorder", c: Call) -> list[str | None]:
-    value = r.compute(lambda: torch.bmm(c["batch1"], c["batch2"]))
-    product = r.op("matmul", [c["batch1"], c["batch2"]], value)
+    product, value = _product(r, c["batch1"], c["batch2"], torch.bmm)
     return [_plus_bias(r, c, product, value)]

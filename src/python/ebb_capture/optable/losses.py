@@ -25,15 +25,22 @@ def mse_loss(r: "Recorder", c: Call) -> list[str | None]:
     return [r.op("mse", [x, target], out)]
 
 
+_REDUCTION = {0: "none", 1: "mean", 2: "sum"}
+
+
 @handles(aten.nll_loss_forward.default)
 def nll_loss(r: "Recorder", c: Call) -> list[str | None]:
-    """−Σᵢ wᵢ · logp[i, yᵢ] / W as a multiply by a constant matrix M with
-    M[i, yᵢ] = w[yᵢ] / W (W = Σᵢ w[yᵢ] for the mean, 1 for the sum; ignored
-    rows are zero), a sum over the classes and a negation."""
+    """The catalog's nll_loss; with class weights, −Σᵢ wᵢ · logp[i, yᵢ] / W
+    as a multiply by a constant matrix M with M[i, yᵢ] = w[yᵢ] / W (W = Σᵢ
+    w[yᵢ] for the mean, 1 for the sum; ignored rows are zero), a sum over
+    the classes and a negation."""
     logp, target, weight, out = c["self"], c["target"], c["weight"], c.outs[0]
     reduction, ignore = c["reduction"], c["ignore_index"]
     if logp.dim() not in (1, 2):
         raise Unmapped("nll_loss over spatial axes")
+    if weight is None:
+        node = r.op("nll_loss", [logp, target], out, reduction=_REDUCTION[reduction], ignore_index=int(ignore))
+        return [node, None]
     logp2 = logp if logp.dim() == 2 else logp.unsqueeze(0)
     target1 = target.reshape(-1).to(torch.int64)
     n, classes = logp2.shape
@@ -72,13 +79,45 @@ def native_dropout(r: "Recorder", c: Call) -> list[str | None]:
 
 @handles(aten.embedding.default)
 def embedding(r: "Recorder", c: Call) -> list[str | None]:
-    """Rows of the table: a matmul of a constant one-hot matrix of the
-    indices with the table (exact: each output element is one product with
-    1 plus zeros). The gradient of a repeated index accumulates."""
-    table, indices, out = c["weight"], c["indices"], c.outs[0]
-    rows = table.shape[0]
-    flat = indices.reshape(-1).to(torch.int64)
-    one_hot = torch.zeros(flat.numel(), rows, dtype=table.dtype)
-    one_hot[torch.arange(flat.numel()), flat] = 1
-    one_hot = one_hot.reshape(*indices.shape, rows)
-    return [r.op("matmul", [r.const(one_hot, "one_hot"), table], out)]
+    """Rows of the table by index; a repeated index accumulates."""
+    if c["scale_grad_by_freq"]:
+        raise Unmapped("scale_grad_by_freq")
+    attrs = {"padding_idx": int(c["padding_idx"])} if c["padding_idx"] != -1 else {}
+    return [r.op("embedding", [c["weight"], c["indices"]], c.outs[0], **attrs)]
+
+
+def _same_shapes(c: Call) -> None:
+    if tuple(c["self"].shape) != tuple(c["target"].shape):
+        raise Unmapped("prediction and target of different shapes")
+
+
+@handles(aten.binary_cross_entropy_with_logits.default)
+def bce_with_logits(r: "Recorder", c: Call) -> list[str | None]:
+    if c["weight"] is not None or c["pos_weight"] is not None:
+        raise Unmapped("weighted binary cross-entropy")
+    _same_shapes(c)
+    return [r.op("bce_with_logits", [c["self"], c["target"]], c.outs[0], reduction=_REDUCTION[c["reduction"]])]
+
+
+@handles(aten.huber_loss.default)
+def huber(r: "Recorder", c: Call) -> list[str | None]:
+    _same_shapes(c)
+    return [r.op("huber", [c["self"], c["target"]], c.outs[0], delta=float(c["delta"]), reduction=_REDUCTION[c["reduction"]])]
+
+
+@handles(aten.smooth_l1_loss.default)
+def smooth_l1(r: "Recorder", c: Call) -> list[str | None]:
+    """Smooth L1 with β = 1 is Huber with δ = 1; with β = 0 it is L1."""
+    _same_shapes(c)
+    reduction = _REDUCTION[c["reduction"]]
+    if c["beta"] == 1:
+        return [r.op("huber", [c["self"], c["target"]], c.outs[0], delta=1.0, reduction=reduction)]
+    if c["beta"] == 0:
+        return [r.op("l1_loss", [c["self"], c["target"]], c.outs[0], reduction=reduction)]
+    raise Unmapped("smooth L1 with β other than 0 or 1")
+
+
+@handles(aten.l1_loss.default)
+def l1_loss(r: "Recorder", c: Call) -> list[str | None]:
+    _same_shapes(c)
+    return [r.op("l1_loss", [c["self"], c["target"]], c.outs[0], reduction=_REDUCTION[c["reduction"]])]

@@ -1,5 +1,7 @@
-"""Reductions and softmax: Ebb reduces over one axis (or everything) per
-node, so a reduction over several axes becomes a chain of nodes."""
+"""Reductions, softmax and gathers. Ebb's reductions take one axis (or
+every element), so a reduction over several axes becomes a chain of nodes
+(sum, mean, max, min, prod) or, for variance, the axes moved last and
+merged into one."""
 
 from __future__ import annotations
 
@@ -34,11 +36,10 @@ def _chain(
     keepdim: bool,
     out: torch.Tensor,
     reduce: Callable[[torch.Tensor, int], torch.Tensor],
-    start: str | None = None,
 ) -> str:
-    """Reduces `x` (held by node `start`, or bound to a node) over `axes`
-    (highest first), one node per axis; the last node's value is `out`."""
-    node: torch.Tensor | str = x if start is None else start
+    """Reduces `x` over `axes` (highest first), one node per axis; the last
+    node's value is `out`."""
+    node: torch.Tensor | str = x
     value = x
     for i, axis in enumerate(axes):
         last = i == len(axes) - 1
@@ -51,7 +52,7 @@ def _reduction(op: str, reduce: Callable[[torch.Tensor, int, bool], torch.Tensor
     def handler(r: "Recorder", c: Call) -> list[str | None]:
         x, out = c["self"], c.outs[0]
         if c.a.get("dtype") is not None and c.a["dtype"] != x.dtype:
-            raise Unmapped("reduction into another dtype")
+            raise Unmapped("a reduction into another dtype")
         axes = _axes(c.a.get("dim"), x.dim())
         keepdim = bool(c.a.get("keepdim") or False)
         if axes is None and keepdim and x.dim() > 0:
@@ -67,34 +68,59 @@ def _reduction(op: str, reduce: Callable[[torch.Tensor, int, bool], torch.Tensor
 
 handles(aten.sum.default, aten.sum.dim_IntList)(_reduction("sum", lambda v, a, k: v.sum(a, keepdim=k)))
 handles(aten.mean.default, aten.mean.dim)(_reduction("mean", lambda v, a, k: v.mean(a, keepdim=k)))
+handles(aten.prod.default, aten.prod.dim_int)(_reduction("prod", lambda v, a, k: v.prod(a, keepdim=k)))
 
 
-@handles(aten.amax.default)
-def amax(r: "Recorder", c: Call) -> list[str | None]:
-    x, out = c["self"], c.outs[0]
-    axes = _axes(c["dim"], x.dim()) or list(range(x.dim() - 1, -1, -1))
-    keepdim = bool(c["keepdim"])
-    if not axes:
-        return [r.same(x, out)]
-    return [_chain(r, "max", x, axes, keepdim, out, lambda v, a: v.amax(a, keepdim=keepdim))]
+def _extreme(op: str, method: str) -> Callable[["Recorder", Call], list[str | None]]:
+    """max/min over axes (amax, amin): a chain of single-axis nodes."""
+
+    def handler(r: "Recorder", c: Call) -> list[str | None]:
+        x, out = c["self"], c.outs[0]
+        axes = _axes(c["dim"], x.dim()) or list(range(x.dim() - 1, -1, -1))
+        keepdim = bool(c["keepdim"])
+        if not axes:
+            return [r.same(x, out)]
+        return [_chain(r, op, x, axes, keepdim, out, lambda v, a: getattr(v, method)(a, keepdim=keepdim))]
+
+    return handler
 
 
-@handles(aten.max.dim)
-def max_dim(r: "Recorder", c: Call) -> list[str | None]:
-    x, values = c["self"], c.outs[0]
-    if x.dim() == 0:
-        return [r.same(x, values), None]
-    return [r.op("max", [x], values, axis=c["dim"] % x.dim(), keepdims=bool(c["keepdim"])), None]
+handles(aten.amax.default)(_extreme("max", "amax"))
+handles(aten.amin.default)(_extreme("min", "amin"))
 
 
-@handles(aten.max.default)
-def max_all(r: "Recorder", c: Call) -> list[str | None]:
-    x, out = c["self"], c.outs[0]
-    if x.dim() == 0:
-        return [r.same(x, out)]
-    flat = r.compute(lambda: x.reshape(-1))
-    node = r.op("reshape", [x], flat, shape=[x.numel()]) if x.dim() != 1 else r.node(x)
-    return [r.op("max", [node], out, axis=0, keepdims=False)]
+def _along(op: str) -> Callable[["Recorder", Call], list[str | None]]:
+    """max.dim / min.dim: values along one axis; the indices carry no derivative."""
+
+    def handler(r: "Recorder", c: Call) -> list[str | None]:
+        x, values = c["self"], c.outs[0]
+        if x.dim() == 0:
+            return [r.same(x, values), None]
+        return [r.op(op, [x], values, axis=c["dim"] % x.dim(), keepdims=bool(c["keepdim"])), None]
+
+    return handler
+
+
+handles(aten.max.dim)(_along("max"))
+handles(aten.min.dim)(_along("min"))
+
+
+def _overall(op: str) -> Callable[["Recorder", Call], list[str | None]]:
+    """max() / min() of every element: flattened, then along its one axis."""
+
+    def handler(r: "Recorder", c: Call) -> list[str | None]:
+        x, out = c["self"], c.outs[0]
+        if x.dim() == 0:
+            return [r.same(x, out)]
+        flat = r.compute(lambda: x.reshape(-1))
+        node = r.op("reshape", [x], flat, shape=[x.numel()]) if x.dim() != 1 else r.node(x)
+        return [r.op(op, [node], out, axis=0, keepdims=False)]
+
+    return handler
+
+
+handles(aten.max.default)(_overall("max"))
+handles(aten.min.default)(_overall("min"))
 
 
 def _softmax_like(op: str) -> Callable[["Recorder", Call], list[str | None]]:
@@ -127,55 +153,61 @@ def logsumexp(r: "Recorder", c: Call) -> list[str | None]:
     return [r.op("logsumexp", [x], out, axis=axes[0], keepdims=bool(c["keepdim"]))]
 
 
-def _variance(r: "Recorder", x: torch.Tensor, dims: object, correction: float, keepdim: bool, var_out: torch.Tensor) -> tuple[str, str]:
-    """Variance as mean, centre, square, sum, divide: returns the variance
-    node and the keepdims mean node."""
-    axes = _axes(dims, x.dim()) or list(range(x.dim() - 1, -1, -1))
-    count = 1
-    for a in axes:
-        count *= x.shape[a]
-    mean_value = r.compute(lambda: x.mean(dim=axes, keepdim=True))
-    mean = _chain(r, "mean", x, axes, True, mean_value, lambda v, a: v.mean(a, keepdim=True))
-    centred_value = r.compute(lambda: x - mean_value)
-    centred = r.op("sub", [x, mean], centred_value)
-    squares_value = r.compute(lambda: centred_value * centred_value)
-    squares = r.op("mul", [centred, centred], squares_value)
-    total_value = r.compute(lambda: squares_value.sum(dim=axes, keepdim=keepdim))
-    total = _chain(r, "sum", squares_value, axes, keepdim, total_value, lambda v, a: v.sum(a, keepdim=keepdim), start=squares)
-    variance = r.op("div", [total, max(count - correction, 0)], var_out)
-    return variance, mean
+@handles(aten.cumsum.default)
+def cumsum(r: "Recorder", c: Call) -> list[str | None]:
+    x, out = c["self"], c.outs[0]
+    if out.dtype != x.dtype:
+        raise Unmapped("a running sum into another dtype")
+    return [r.op("cumsum", [x], out, axis=c["dim"] % max(x.dim(), 1))]
 
 
 def _correction(c: Call) -> float:
-    if "correction" in c.a and c.a["correction"] is not None:
+    if c.a.get("correction") is not None:
         return float(c.a["correction"])
-    if "unbiased" in c.a and c.a["unbiased"] is not None:
+    if c.a.get("unbiased") is not None:
         return 1.0 if c.a["unbiased"] else 0.0
     return 1.0
 
 
-@handles(aten.var_mean.correction, aten.var_mean.dim, aten.var_mean.default)
-def var_mean(r: "Recorder", c: Call) -> list[str | None]:
-    x, var_out, mean_out = c["self"], c.outs[0], c.outs[1]
-    keepdim = bool(c.a.get("keepdim") or False)
-    variance, mean = _variance(r, x, c.a.get("dim"), _correction(c), keepdim, var_out)
-    if tuple(mean_out.shape) != r.shape_of(mean):
-        mean = r.op("reshape", [mean], mean_out, shape=list(mean_out.shape))
-    else:
-        r.set_value(mean, mean_out)
-    return [variance, mean]
+def _spread(op: str, c: Call, r: "Recorder", out: torch.Tensor) -> str:
+    """var or std over the call's axes (all of them when none are given)."""
+    x = c["self"]
+    axes = _axes(c.a.get("dim"), x.dim()) or list(range(x.dim()))
+    return r.reduce_to(op, x, axes, out, correction=_correction(c))
 
 
 @handles(aten.var.correction, aten.var.dim, aten.var.default)
 def var(r: "Recorder", c: Call) -> list[str | None]:
-    x, out = c["self"], c.outs[0]
-    variance, _ = _variance(r, x, c.a.get("dim"), _correction(c), bool(c.a.get("keepdim") or False), out)
-    return [variance]
+    return [_spread("var", c, r, c.outs[0])]
 
 
 @handles(aten.std.correction, aten.std.dim, aten.std.default)
 def std(r: "Recorder", c: Call) -> list[str | None]:
-    x, out = c["self"], c.outs[0]
-    var_value = r.compute(lambda: out * out)
-    variance, _ = _variance(r, x, c.a.get("dim"), _correction(c), bool(c.a.get("keepdim") or False), var_value)
-    return [r.op("sqrt", [variance], out)]
+    return [_spread("std", c, r, c.outs[0])]
+
+
+@handles(aten.var_mean.correction, aten.var_mean.dim, aten.var_mean.default)
+def var_mean(r: "Recorder", c: Call) -> list[str | None]:
+    x = c["self"]
+    axes = _axes(c.a.get("dim"), x.dim()) or list(range(x.dim()))
+    return [_spread("var", c, r, c.outs[0]), r.reduce_to("mean", x, axes, c.outs[1])]
+
+
+@handles(aten.gather.default)
+def gather(r: "Recorder", c: Call) -> list[str | None]:
+    x = c["self"]
+    return [r.op("gather", [x, c["index"]], c.outs[0], axis=c["dim"] % max(x.dim(), 1))]
+
+
+@handles(aten.index_select.default)
+def index_select(r: "Recorder", c: Call) -> list[str | None]:
+    """The same positions along one axis for every lane: a gather whose
+    indices are those positions, broadcast to the output's shape."""
+    x, index, out = c["self"], c["index"], c.outs[0]
+    axis = c["dim"] % max(x.dim(), 1)
+    if x.dim() == 0:
+        return [r.same(x, out)]
+    shape = [1] * x.dim()
+    shape[axis] = -1
+    spread = index.reshape(shape).expand(out.shape).contiguous()
+    return [r.op("gather", [x, spread], out, axis=axis)]

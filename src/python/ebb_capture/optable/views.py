@@ -55,16 +55,3 @@ def _each(name: str):  # type: ignore[no-untyped-def]
 
 handles(aten.as_strided.default)(_each("as_strided"))
 handles(aten.diagonal.default)(_each("diagonal"))
-
-
-@handles(aten.max_pool2d_with_indices.default)
-def max_pool2d(r: "Recorder", c: Call) -> list[str | None]:
-    """Each output element is the input element PyTorch's kernel chose (its
-    returned indices, ties included): a pick of those elements, recorded as
-    a custom op with a 0/1 Jacobian until the catalog has max_pool2d."""
-    x, out, indices = c["self"], c.outs[0], c.outs[1]
-    planes = x.shape[-2] * x.shape[-1]
-    lead = x.numel() // planes if planes else 0
-    base = (torch.arange(lead, dtype=torch.int64) * planes).reshape(*x.shape[:-2], 1, 1)
-    where = (indices.to(torch.int64) + base).reshape(-1)
-    return [r.selection(x, out, where, "max_pool2d"), None]
