@@ -20,6 +20,24 @@ pub fn relative_error(a: f64, b: f64) -> f64 {
     }
 }
 
+/// [`relative_error`] with a floor: |a − b| / max(|a| + |b|, `scale`). A
+/// gradient computed twice in finite precision (by Ebb's sweep and by the
+/// framework, summing in different orders) differs by rounding noise of the
+/// size of the tensor's large entries times the unit roundoff; an entry
+/// whose true value is 0 (the key bias of attention, whose softmax does not
+/// change when a constant is added to every score) is all noise, and its
+/// plain relative error is 1. Measured against the tensor's scale (its
+/// largest entry), the noise is tiny while a wrong entry of any size that
+/// matters still scores near 1. Non-finite values as in [`relative_error`].
+pub fn scaled_error(a: f64, b: f64, scale: f64) -> f64 {
+    match (a.is_finite(), b.is_finite()) {
+        (true, true) if a == b => 0.0,
+        (true, true) => (a - b).abs() / (a.abs() + b.abs()).max(scale),
+        (false, false) => f64::NAN,
+        _ => 1.0,
+    }
+}
+
 /// Whether `a` and `b` are not shown to agree within `tolerance`: they
 /// disagree, or they cannot be compared because both are non-finite.
 pub fn differs(a: f64, b: f64, tolerance: f64) -> bool {
@@ -134,6 +152,42 @@ impl Worst {
             })
     }
 
+    /// As [`Worst::of`], with each element's error measured by
+    /// [`scaled_error`] against the largest finite magnitude in either slice.
+    pub fn of_scaled(actual: &[f64], expected: &[f64]) -> Option<Worst> {
+        let scale = actual
+            .iter()
+            .chain(expected)
+            .filter(|x| x.is_finite())
+            .fold(0.0f64, |m, x| m.max(x.abs()));
+        let mut worst = Worst::of(actual, expected)?;
+        let errors = actual
+            .iter()
+            .zip(expected)
+            .map(|(&a, &e)| scaled_error(a, e, scale));
+        let (element, relative) = errors.enumerate().fold(
+            (worst.element, f64::NEG_INFINITY),
+            |(best, worst_error), (i, error)| {
+                let severity = if error.is_nan() { f64::INFINITY } else { error };
+                if severity > worst_error {
+                    (i, severity)
+                } else {
+                    (best, worst_error)
+                }
+            },
+        );
+        worst.element = element;
+        worst.actual = actual[element];
+        worst.expected = expected[element];
+        worst.absolute = (worst.actual - worst.expected).abs();
+        worst.relative = if relative.is_infinite() {
+            f64::NAN
+        } else {
+            relative
+        };
+        Some(worst)
+    }
+
     /// The band of the worst element.
     pub fn band(&self) -> Band {
         Band::of(self.relative)
@@ -162,6 +216,29 @@ mod tests {
         assert_eq!(Band::of(1e-5), Band::Acceptable);
         assert_eq!(Band::of(1e-9), Band::Good);
         assert_eq!(Band::of(f64::NAN), Band::NotFinite);
+    }
+
+    #[test]
+    fn scaled_error_forgives_noise_around_zero_but_not_a_wrong_entry() {
+        // Rounding noise in an entry whose true value is 0, beside entries
+        // of 1e-5: the plain relative error is 1, against the scale ~1e-13.
+        let sweep = [2.0e-5, 1.5e-18, -1.0e-5];
+        let reported = [2.0e-5, -6.5e-19, -1.0e-5];
+        assert_eq!(Worst::of(&sweep, &reported).unwrap().relative, 1.0);
+        let scaled = Worst::of_scaled(&sweep, &reported).unwrap();
+        assert!(scaled.relative < 1e-12, "{scaled:?}");
+        // A sign error in the smallest entry that matters still scores ~1.
+        let wrong = [2.0e-5, 3.0e-6, -1.0e-5];
+        let right = [2.0e-5, -3.0e-6, -1.0e-5];
+        let worst = Worst::of_scaled(&wrong, &right).unwrap();
+        assert_eq!(worst.element, 1);
+        assert!(worst.relative > 0.29, "{worst:?}");
+        assert!(
+            Worst::of_scaled(&[1.0, f64::NAN], &[1.0, f64::NAN])
+                .unwrap()
+                .relative
+                .is_nan()
+        );
     }
 
     // IEEE 754-2019 §5.11: NaN is unordered with everything, itself included,
