@@ -12,9 +12,10 @@ use std::path::Path;
 type Target = fn(&[u8]);
 
 /// The harness function of each fuzz target, by the target's name.
-const TARGETS: [(&str, Target); 3] = [
+const TARGETS: [(&str, Target); 4] = [
     ("ron_load", harness::ron_load),
     ("json_load", harness::json_load),
+    ("sidecar_load", harness::sidecar_load),
     ("pipeline", harness::pipeline),
 ];
 
@@ -71,4 +72,19 @@ fn the_seed_traces_pass_every_target() {
         seeds += 1;
     }
     assert!(seeds >= 6, "{seeds} demo traces");
+}
+
+#[test]
+fn the_sidecar_seed_passes_its_target() {
+    // The sidecar of tests/fuzz/sidecar_seed.ron, written as `tests/fuzz/run`
+    // writes the target's seed; it must load and go through the pipeline.
+    let seed = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fuzz/sidecar_seed.ron");
+    let file = ebb::trace::read_file(&seed, &mut ebb::trace::Silent).expect("the seed reads");
+    let dir = tempfile::tempdir().expect("a temporary directory");
+    ebb::trace::save(&file, &dir.path().join("seed.tape")).expect("the seed saves");
+    let sidecar = std::fs::read(dir.path().join("seed.safetensors")).expect("its sidecar");
+    let trace = harness::load_sidecar(&sidecar)
+        .unwrap_or_else(|error| panic!("the seed loads with the harness's header: {error}"));
+    assert_eq!(trace.nodes().len(), 4);
+    harness::sidecar_load(&sidecar);
 }

@@ -314,7 +314,7 @@ fn a_truncated_or_extended_sidecar_is_refused_before_anything_is_read() {
     std::fs::remove_file(&sidecar).unwrap();
     assert!(sidecar_error(&header).contains("cannot open its sidecar"));
     std::fs::create_dir(&sidecar).unwrap();
-    assert!(sidecar_error(&header).contains("is not a regular file"));
+    assert!(sidecar_error(&header).contains("is a directory, not a regular file"));
 }
 
 /// Rewrites the first occurrence of `from` in the header.

@@ -49,6 +49,24 @@ fn remove_temporaries_on_signals() -> Result<()> {
     Ok(())
 }
 
+/// An error if any file to be written is one that is read.
+fn refuse_overwriting(reads: &[PathBuf], writes: &[PathBuf]) -> Result<()> {
+    for written in writes {
+        let clash = reads
+            .iter()
+            .find(|read| resolved(read).is_some_and(|read| Some(read) == resolved(written)));
+        if let Some(read) = clash {
+            let what = if read == &reads[0] { "" } else { "'s sidecar" };
+            bail!(
+                "{}: would overwrite the input{what} {} (hint: ebb never writes to a trace it reads; choose another output name)",
+                written.display(),
+                read.display()
+            );
+        }
+    }
+    Ok(())
+}
+
 /// Runs the conversion and reports it on `out`.
 pub fn convert(input: &Path, output: &Path, out: &mut dyn Write) -> Result<Outcome> {
     let Some(target) = Format::from_path(output) else {
@@ -58,21 +76,15 @@ pub fn convert(input: &Path, output: &Path, out: &mut dyn Write) -> Result<Outco
         );
     };
     let source = Format::from_path(input);
+    // Refused early by name; the files the input's header names are known
+    // only once it is read, and are checked again then.
     let reads = source.map_or_else(|| vec![input.to_path_buf()], |format| format.files(input));
-    for written in target.files(output) {
-        let clash = reads
-            .iter()
-            .find(|read| resolved(read).is_some_and(|read| Some(read) == resolved(&written)));
-        if let Some(read) = clash {
-            bail!(
-                "{}: would overwrite the input {} (hint: ebb never writes to a trace it reads; choose another output name)",
-                written.display(),
-                read.display()
-            );
-        }
-    }
+    refuse_overwriting(&reads, &target.files(output))?;
     remove_temporaries_on_signals()?;
-    let file = trace::read_file(input, progress::for_trace(input).as_mut()).map_err(BadInput)?;
+    super::bus::guard(input)?;
+    let (file, reads) =
+        trace::read_file_from(input, progress::for_trace(input).as_mut()).map_err(BadInput)?;
+    refuse_overwriting(&reads, &target.files(output))?;
     let nodes = file.nodes.len();
     trace::validate(file.clone()).map_err(|problems| {
         BadInput(LoadError::Invalid {
@@ -80,6 +92,8 @@ pub fn convert(input: &Path, output: &Path, out: &mut dyn Write) -> Result<Outco
             problems,
         })
     })?;
+    // A mapped sidecar changed while it was read would give a mixed output.
+    trace::check_sidecars_unchanged().map_err(BadInput)?;
     trace::save_with(&file, output, progress::for_trace(input).as_mut())?;
     let written: Vec<String> = target
         .files(output)

@@ -2,6 +2,7 @@
 //! Nothing here computes; exit codes are chosen in `main`.
 
 mod args;
+mod bus;
 mod check;
 mod convert;
 mod gradients;
@@ -38,8 +39,16 @@ pub enum Outcome {
 #[error(transparent)]
 pub struct BadInput(#[from] pub LoadError);
 
-/// Runs a parsed command line, writing to `out`.
+/// Runs a parsed command line, writing to `out`. Nothing written to `out`
+/// counts if a sidecar the command read was changed meanwhile: the error
+/// says so instead.
 pub fn run(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
+    let outcome = dispatch(cli, out)?;
+    trace::check_sidecars_unchanged().map_err(BadInput)?;
+    Ok(outcome)
+}
+
+fn dispatch(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
     match cli.command {
         None if std::io::stdout().is_terminal() => view(
             load_demo()?,
@@ -186,6 +195,7 @@ fn view_error(error: ViewError) -> anyhow::Error {
 }
 
 fn load(path: &Path) -> Result<Trace> {
+    bus::guard(path)?;
     trace::load_with(path, progress::for_trace(path).as_mut())
         .map_err(|error| BadInput(error).into())
 }

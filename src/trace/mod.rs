@@ -11,6 +11,7 @@ mod progress;
 mod retype;
 pub mod schema;
 pub mod sidecar;
+mod sidecar_file;
 pub(crate) mod store;
 mod text;
 mod validate;
@@ -23,6 +24,7 @@ pub use progress::{Progress, Silent};
 pub use schema::{
     FORMAT_VERSION, NodeFile, NodeId, Num, PartialRepr, READABLE_VERSIONS, TraceFile, ValueRepr,
 };
-pub use store::{Format, abandon_saves, read_file, save, save_with};
+pub use sidecar_file::{COPY_LIMIT, HOLE_LIMIT, check_unchanged as check_sidecars_unchanged};
+pub use store::{Format, abandon_saves, read_file, read_file_from, save, save_with};
 pub use text::TEXT_LIMIT;
 pub use validate::validate;

@@ -74,33 +74,9 @@ impl Sidecar {
                 "a sidecar lives beside its trace; name it without directories",
             )
         })?;
-        let file = std::fs::File::open(&path).map_err(|error| {
-            fail(
-                format!("cannot open its sidecar {}: {error}", path.display()),
-                "keep the .safetensors sidecar beside its trace",
-            )
-        })?;
-        let metadata = file.metadata().map_err(|error| {
-            fail(
-                format!("cannot read its sidecar {}: {error}", path.display()),
-                "check the file is readable",
-            )
-        })?;
-        if !metadata.is_file() {
-            return Err(fail(
-                format!("its sidecar {} is not a regular file", path.display()),
-                "the sidecar must be the .safetensors file written with the trace",
-            ));
-        }
-        // SAFETY: the file is opened read-only and the mapping is never
-        // written. A file truncated or rewritten by another process while
-        // mapped is the caveat of every memory map (traces/FORMAT.md).
-        let map = unsafe { Mmap::map(&file) }.map_err(|error| {
-            fail(
-                format!("cannot map its sidecar {}: {error}", path.display()),
-                "check the file is readable",
-            )
-        })?;
+        // Links, special files and holes are refused; small files copied,
+        // big ones mapped and watched for change (see `sidecar_file`).
+        let map = super::sidecar_file::open(trace, &path)?;
         let parsed = SafeTensors::deserialize(&map).map_err(|error| {
             fail(
                 format!("{name} is not a valid safetensors file: {error}"),
@@ -122,7 +98,7 @@ impl Sidecar {
             })
             .collect();
         Ok(Sidecar {
-            map: Arc::new(map),
+            map,
             entries,
             name: name.to_string(),
         })

@@ -88,15 +88,30 @@ pub fn save_with(
 /// Reads a trace in any form into the schema types with every tensor's data
 /// inline (a sidecar is read in full). Not validated.
 pub fn read_file(path: &Path, progress: &mut dyn Progress) -> Result<TraceFile, LoadError> {
+    read_file_from(path, progress).map(|(file, _)| file)
+}
+
+/// [`read_file`], also returning every file it read: the trace and the
+/// sidecar its header names, if any (so a writer can refuse to replace one).
+pub fn read_file_from(
+    path: &Path,
+    progress: &mut dyn Progress,
+) -> Result<(TraceFile, Vec<PathBuf>), LoadError> {
     let text =
         progress::read_text(path, progress).map_err(|error| LoadError::reading(path, error))?;
     let encoding = Encoding::from_path(path).unwrap_or_else(|| Encoding::sniff(&text));
     progress.stage("parsing", None);
     let mut file = parse(&text, encoding).map_err(|error| syntax_error(path, error))?;
     drop(text);
+    let mut sources = vec![path.to_path_buf()];
+    if let Some(name) = &file.sidecar
+        && let Ok(sidecar) = sidecar::resolve_name(path, name)
+    {
+        sources.push(sidecar);
+    }
     progress.stage("reading sidecar", None);
     sidecar::inline(&mut file, path)?;
-    Ok(file)
+    Ok((file, sources))
 }
 
 /// Writes through `write` into a temporary file beside `path`, then renames

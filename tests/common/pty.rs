@@ -28,6 +28,18 @@ impl Screen {
 
     /// Runs `ebb ARGS` in a `cols`×`rows` terminal, in directory `cwd`.
     pub fn open_in(rows: u16, cols: u16, args: &[&str], cwd: &Path) -> Screen {
+        Screen::open_with(rows, cols, args, cwd, &[])
+    }
+
+    /// Runs `ebb ARGS` in a `cols`×`rows` terminal, in directory `cwd`,
+    /// with the environment variables `env` set.
+    pub fn open_with(
+        rows: u16,
+        cols: u16,
+        args: &[&str],
+        cwd: &Path,
+        env: &[(&str, &str)],
+    ) -> Screen {
         let pair = NativePtySystem::default()
             .openpty(PtySize {
                 rows,
@@ -41,6 +53,9 @@ impl Screen {
         command.cwd(cwd);
         command.env("TERM", "xterm-256color");
         command.env_remove("NO_COLOR");
+        for (key, value) in env {
+            command.env(key, value);
+        }
         let child = pair.slave.spawn_command(command).unwrap();
         drop(pair.slave);
         let parser = Arc::new(Mutex::new(vt100::Parser::new(

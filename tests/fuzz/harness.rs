@@ -9,8 +9,8 @@
 use ebb::diagnose::{Settings, diagnose};
 use ebb::report::Report;
 use ebb::sweep::{LedgerMode, Sweep};
-use ebb::trace::{Encoding, LoadError, TraceFile, load_str, parse, to_text};
-use std::path::Path;
+use ebb::trace::{Encoding, LoadError, Trace, TraceFile, load_str, parse, to_text};
+use std::path::{Path, PathBuf};
 
 /// Loads RON text: never a panic; a rejection is one short error naming the
 /// file; what parses writes back to text that reads again the same.
@@ -84,16 +84,62 @@ pub fn pipeline(data: &[u8]) {
     let Ok(trace) = load_str(text, encoding, Path::new("fuzz")) else {
         return;
     };
+    check_pipeline(&trace);
+}
+
+/// The trace the sidecar target reads: three tensors and a scalar loss.
+/// `tests/fuzz/run` writes its seed, the sidecar of the same trace with
+/// data inline (`tests/fuzz/sidecar_seed.ron`).
+const SIDECAR_HEADER: &str = r#"(format: 2, title: "fuzz", dtype: f32, sidecar: "t.safetensors", output: "loss", nodes: [
+  (id: "a", op: "param", value: (tensor: "value/a")),
+  (id: "b", op: "input", value: (tensor: "value/b")),
+  (id: "y", op: "mul", inputs: ["a", "b"], value: (tensor: "value/y")),
+  (id: "loss", op: "sum", inputs: ["y"], value: 0.5),
+])"#;
+
+/// Loads a fixed trace whose safetensors sidecar is the input: never a
+/// panic; a rejection is one short error naming the trace; what loads goes
+/// through the whole pipeline.
+pub fn sidecar_load(data: &[u8]) {
+    match load_sidecar(data) {
+        Ok(trace) => check_pipeline(&trace),
+        Err(error) => check_error(&error, &sidecar_dir().join("t.tape").display().to_string()),
+    }
+    ebb::trace::check_sidecars_unchanged().expect("nothing changed the sidecar");
+}
+
+/// The fixed trace loaded with `data` as its sidecar.
+pub fn load_sidecar(data: &[u8]) -> Result<Trace, LoadError> {
+    let dir = sidecar_dir();
+    std::fs::write(dir.join("t.safetensors"), data).expect("the sidecar writes");
+    ebb::trace::load(&dir.join("t.tape"))
+}
+
+/// A directory of this thread holding the fixed header `t.tape` (threads:
+/// `cargo test` replays inputs in parallel).
+fn sidecar_dir() -> PathBuf {
+    thread_local! {
+        static DIR: tempfile::TempDir = {
+            let dir = tempfile::tempdir().expect("a temporary directory");
+            std::fs::write(dir.path().join("t.tape"), SIDECAR_HEADER).expect("the header writes");
+            dir
+        };
+    }
+    DIR.with(|dir| dir.path().to_path_buf())
+}
+
+/// What `ebb check` does with a loaded trace, then undo and sweep again.
+fn check_pipeline(trace: &Trace) {
     let settings = Settings::default();
-    let own = settings.swept_trace(&trace);
+    let own = settings.swept_trace(trace);
     let mut plain = Sweep::new(&own, LedgerMode::Off);
     plain.run_to_end();
-    let diagnosis = diagnose(&trace, &settings);
-    let report = Report::new("fuzz", &plain).with_diagnosis(&trace, &diagnosis);
+    let diagnosis = diagnose(trace, &settings);
+    let report = Report::new("fuzz", &plain).with_diagnosis(trace, &diagnosis);
     assert!(!report.to_text().is_empty());
     assert!(!report.to_json().is_empty());
 
-    let mut sweep = Sweep::new(&trace, LedgerMode::On);
+    let mut sweep = Sweep::new(trace, LedgerMode::On);
     let start = adjoint_bits(&sweep);
     sweep.run_to_end();
     let end = adjoint_bits(&sweep);
