@@ -10,11 +10,14 @@ and 1 bytes); the sidecar lays them out widest first, so every tensor starts
 at a multiple of its element size, as a memory map wants.
 
 Each temporary file starts with a hole (no disk space) reserved for the
-safetensors header. For a big sidecar the widest file becomes the sidecar
-itself: its header is written into the hole (padded with spaces) and the
-narrower files are appended, so the bulk of the data is written once. A
-small sidecar, or one whose header outgrows the hole, is assembled by
-copying the entries into a new file.
+safetensors header. For a big sidecar the file holding the most bytes (the
+*lead*, f32 in an f32 step) becomes the sidecar itself: the entries of
+wider elements (an int64 batch of labels) go at the end of the hole, the
+header before them (padded with spaces), and the narrower files are
+appended after the lead's data, so the bulk of the data is written once and
+every tensor still starts at a multiple of its element size. A small
+sidecar, or one whose header and wider entries outgrow the hole, is
+assembled by copying the entries into a new file.
 """
 
 from __future__ import annotations
@@ -124,36 +127,50 @@ class Spill:
     def sidecar(self, entries: Iterable[Stored]) -> str:
         """A complete safetensors file holding at least `entries`, at a
         temporary path in the directory (the caller renames it). Everything
-        written to the widest spill file stays in the sidecar (entries of
-        pruned nodes included: the data must be contiguous); of the
-        narrower files, only `entries`."""
+        written to the lead spill file stays in the sidecar (entries of
+        pruned nodes included: the data must be contiguous); of the other
+        files, only `entries`."""
         wanted = {e.serial: e for e in entries}
-        widths = sorted(self._files, reverse=True)
-        if not widths:
+        if not self._files:
             raise AssertionError("no tensor was stored")
-        lead = widths[0]
-        order = sorted((e for e in self._everything if e.width == lead), key=lambda e: e.serial)
-        order += sorted((e for e in wanted.values() if e.width != lead), key=lambda e: (-e.width, e.serial))
+        lead = max(self._files, key=lambda w: (self._sizes[w], w))
+        kept = sorted((e for e in self._everything if e.width == lead), key=lambda e: e.serial)
+        wider = sorted((e for e in wanted.values() if e.width > lead), key=lambda e: (-e.width, e.serial))
+        narrower = sorted((e for e in wanted.values() if e.width < lead), key=lambda e: (-e.width, e.serial))
+        # The data section starts where the wider entries do, so that they
+        # end exactly where the lead's data begins (at RESERVED).
+        before = sum(e.nbytes for e in wider)
+        start = RESERVED - before
+        order = wider + kept + narrower
         header = _header(order)
-        path, f = self._files[lead]
         data = sum(e.nbytes for e in order)
+        aligned = not wider or start % wider[0].width == 0
         # The hole is padded with spaces: worth it only for big sidecars.
-        if len(header) + 8 > RESERVED or RESERVED > data // 100:
+        if not aligned or len(header) + 8 > start or RESERVED > data // 100:
             return self._assemble(sorted(wanted.values(), key=lambda e: (-e.width, e.serial)))
+        path, f = self._files[lead]
         f.flush()
-        # The header fills the hole exactly: safetensors allows trailing spaces.
-        header += b" " * (RESERVED - 8 - len(header))
+        # The header fills the hole up to the wider entries: safetensors
+        # allows trailing spaces.
+        header += b" " * (start - 8 - len(header))
         os.pwrite(f.fileno(), struct.pack("<Q", len(header)) + header, 0)
+        f.seek(start)
+        f.flush()
+        for e in wider:
+            self._copy_entry(e, f.fileno())
         f.seek(RESERVED + self._sizes[lead])
         f.flush()
-        for e in order:
-            if e.width != lead:
-                source = self._files[e.width][1]
-                source.flush()
-                _copy(source.fileno(), f.fileno(), RESERVED + e.offset, e.nbytes)
+        for e in narrower:
+            self._copy_entry(e, f.fileno())
         f.close()
         del self._files[lead]
         return path
+
+    def _copy_entry(self, e: Stored, target: int) -> None:
+        """Appends `e`'s bytes at `target`'s position."""
+        source = self._files[e.width][1]
+        source.flush()
+        _copy(source.fileno(), target, RESERVED + e.offset, e.nbytes)
 
     def _assemble(self, order: list[Stored]) -> str:
         header = _header(order)

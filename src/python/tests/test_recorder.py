@@ -405,6 +405,42 @@ def test_a_big_sidecar_is_finished_in_place(tmp_path, monkeypatch):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["big.safetensors", "big.tape"]
 
 
+def test_a_big_sidecar_keeps_its_bulk_in_place_when_a_wider_tensor_is_stored(ebb, tmp_path, monkeypatch):
+    """An f32 step with int64 labels: the f32 spill file is the sidecar, the
+    labels sit between the header and the f32 data, each tensor at a
+    multiple of its element size, and Ebb reads every value back."""
+    import ebb_capture.spill as spill
+
+    monkeypatch.setattr(spill, "RESERVED", 8192)
+    torch.manual_seed(19)
+    model = nn.Linear(4096, 5)
+    x = torch.randn(40, 4096)
+    labels = torch.tensor([0, 4, 1, 3, 2] * 8)
+    path = tmp_path / "labels.tape"
+    with ebb_capture.record(path, model=model) as rec:
+        logits = model(x)
+        loss = nn.functional.cross_entropy(logits, labels)
+        rec.output(loss)
+        loss.backward()
+    raw = (tmp_path / "labels.safetensors").read_bytes()
+    n = int.from_bytes(raw[:8], "little")
+    entries = json.loads(raw[8 : 8 + n])
+    assert 8 + n == 8192 - labels.numel() * 8  # the header and the labels fill the hole
+    widths = {"F64": 8, "F32": 4, "I64": 8}
+    for name, entry in entries.items():
+        assert (8 + n + entry["data_offsets"][0]) % widths[entry["dtype"]] == 0, name
+    assert {e["dtype"] for e in entries.values()} == {"F32", "I64"}
+    values = sidecar_of(path)
+    index = [v for v in values.values() if v.dtype == np.int64]
+    assert len(index) == 1
+    np.testing.assert_array_equal(index[0], labels.numpy())
+    np.testing.assert_array_equal(values["weight"], model.weight.detach().numpy())
+    np.testing.assert_array_equal(values["grad/weight"], model.weight.grad.numpy())
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["labels.safetensors", "labels.tape"]
+    status, result = ebb.verify(path)
+    assert status == 0, result["suspects"]
+
+
 def test_every_op_the_package_writes_is_in_ebbs_catalog(ebb):
     from ebb_capture.optable import catalog
 
