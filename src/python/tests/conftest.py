@@ -60,6 +60,15 @@ class Ebb:
             pytest.fail(f"ebb verify could not read {trace}: {done.stderr.strip()}")
         return done.returncode, json.loads(done.stdout)
 
+    def gradients(self, trace: Path) -> dict[str, np.ndarray]:
+        """Every parameter's gradient as Ebb's sweep computes it, in full,
+        from `ebb gradients TRACE -o FILE.safetensors` (widened to f64)."""
+        out = trace.with_name(trace.stem + ".gradients.safetensors")
+        done = self.run("gradients", trace, "-o", out)
+        if done.returncode != 0:
+            pytest.fail(f"ebb gradients {trace} exited with {done.returncode}: {done.stderr.strip()}")
+        return {name: array.astype(np.float64) for name, array in load_file(str(out)).items()}
+
     def agreement(self, trace: Path) -> dict[str, float]:
         """For every node carrying a gradient PyTorch reported: the worst
         entry's relative error between it and Ebb's sweep, each entry measured

@@ -25,13 +25,18 @@ DTYPES = [pytest.param(torch.float32, id="f32"), pytest.param(torch.float64, id=
 
 def agree(ebb, trace: Path, theirs: dict[str, np.ndarray], dtype: torch.dtype, skip: set[str] = frozenset()) -> dict[str, float]:
     """Asserts that every parameter's gradient as Ebb's sweep computes it
-    agrees with PyTorch's (stored in the trace as the parameter's reported
-    gradient, which the recorder takes from the same backward as p.grad);
-    returns the relative errors."""
-    errors = ebb.agreement(trace)
-    missing = set(theirs) - set(errors) - set(skip)
-    assert not missing, f"no reported gradient compared for {missing}"
-    compared = {name: errors[name] for name in theirs if name not in skip}
+    (read in full with `ebb gradients -o FILE.safetensors`) agrees with
+    PyTorch's `p.grad`: ‖ours − theirs‖ / ‖theirs‖ within the run's
+    tolerance, element by element in shape and value. Returns the errors."""
+    ours = ebb.gradients(trace)
+    missing = set(theirs) - set(ours) - set(skip)
+    assert not missing, f"ebb gradients has no gradient for {missing}"
+    compared = {}
+    for name in theirs:
+        if name in skip:
+            continue
+        assert ours[name].shape == theirs[name].shape, name
+        compared[name] = relative_error(ours[name], theirs[name])
     worst = max(compared, key=compared.get)
     assert compared[worst] <= TOLERANCE[dtype], f"{worst}: relative error {compared[worst]:.3e} > {TOLERANCE[dtype]:.0e} ({compared})"
     return compared
@@ -211,13 +216,16 @@ def test_custom_function_with_wrong_backward(ebb, capture, dtype):
     for check in result["finite_differences"]:
         assert check["band"] in ("good", "acceptable", "unresolved"), check
     # The same model with a correct backward: PyTorch's sense gradients
-    # then have the opposite sign.
+    # then have the opposite sign, and are the ones Ebb computed.
     model.clip = RightClip
     model.zero_grad(set_to_none=True)
     nn.functional.mse_loss(model(rooms), power).backward()
+    ours = ebb.gradients(trace)
     for name in ("sense.weight", "sense.bias"):
         right = dict(model.named_parameters())[name].grad.to(torch.float64).numpy()
         assert relative_error(-theirs[name], right) <= TOLERANCE[dtype]
+        assert relative_error(ours[name], right) <= TOLERANCE[dtype]
+        assert relative_error(ours[name], theirs[name]) > 1.5  # ours ≈ −theirs: ‖2·theirs‖ / ‖theirs‖ = 2
 
 
 # 7. A bf16 autocast step of a seed-germination model: f32 weights, bf16 matmuls.
