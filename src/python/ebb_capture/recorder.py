@@ -867,10 +867,12 @@ class Recorder:
         self._hooked.add(node)
         self._handles.append(t.register_hook(partial(self._got_grad, node)))
 
-    def _got_grad(self, node: str, grad: torch.Tensor) -> None:
+    def _got_grad(self, node: str, grad: torch.Tensor | None) -> None:
         """Stores the gradient PyTorch computed for `node`'s tensor."""
         recorded = self.graph.by_id.get(node)
-        if recorded is None or tuple(grad.shape) != recorded.shape:
+        # An output of a multi-output op that the loss does not use (slogdet's
+        # sign, unbind's other rows) gets no gradient: its hook sees None.
+        if grad is None or recorded is None or tuple(grad.shape) != recorded.shape:
             return
         dtype = _TORCH_DTYPE.get(recorded.dtype)
         if dtype is not None and grad.dtype != dtype and grad.is_floating_point():

@@ -441,6 +441,98 @@ def test_a_big_sidecar_keeps_its_bulk_in_place_when_a_wider_tensor_is_stored(ebb
     assert status == 0, result["suspects"]
 
 
+def _gradients_agree(ebb, path: Path, params: dict[str, torch.Tensor], tolerance: float) -> None:
+    """Ebb's gradient of each named leaf (`ebb gradients`) against PyTorch's."""
+    ours = ebb.gradients(path)
+    for name, p in params.items():
+        assert relative_error(ours[name], p.grad.to(torch.float64).numpy()) <= tolerance, name
+
+
+def test_an_op_without_a_mapping_is_recorded_through_its_decomposition(ebb, tmp_path):
+    """Mish and hard swish have no entry in the op table: PyTorch's own
+    decomposition tables give x·tanh(softplus(x)) and x·clamp(x + 3, 0, 6)/6,
+    recorded as catalog ops (no custom op), with the gradients PyTorch got."""
+    torch.manual_seed(20)
+    w = nn.Parameter(torch.randn(6, dtype=torch.float64))
+    x = torch.randn(4, 6, dtype=torch.float64) * 4
+    path = tmp_path / "decomposed.tape"
+    with ebb_capture.record(path) as rec:
+        loss = nn.functional.mish(x * w).sum() + nn.functional.hardswish(x * w).pow(2).sum()
+        rec.output(loss)
+        loss.backward()
+    ops = {n["op"] for n in nodes_of(path).values()}
+    assert {"softplus", "tanh", "clamp"} <= ops
+    assert not [op for op in ops if op.startswith("custom.")]
+    _gradients_agree(ebb, path, {"w": w}, TOLERANCE[torch.float64])
+    status, result = ebb.verify(path)
+    assert status == 0, result["suspects"]
+
+
+def test_a_small_op_without_mapping_or_decomposition_gets_its_jacobian(ebb, tmp_path):
+    """A sort, a top-k and a log-determinant have neither: each becomes a
+    custom op whose partials come from autograd; Ebb's sweep through them
+    gives PyTorch's gradients, and outputs the loss does not use (the
+    determinant's sign, top-k's indices) are no trouble."""
+    torch.manual_seed(21)
+    w = nn.Parameter(torch.randn(4, 4, dtype=torch.float64))
+    x = torch.randn(4, 4, dtype=torch.float64)
+    path = tmp_path / "custom.tape"
+    with ebb_capture.record(path) as rec:
+        m = x * w
+        loss = (
+            torch.sort(m, dim=1).values.pow(2).mul(torch.arange(4.0, dtype=torch.float64)).sum()
+            + torch.topk(m, 2, dim=0).values.sum()
+            + torch.linalg.slogdet(m + 3 * torch.eye(4, dtype=torch.float64)).logabsdet
+        )
+        rec.output(loss)
+        loss.backward()
+    nodes = nodes_of(path)
+    custom = {n["op"] for n in nodes.values() if n["op"].startswith("custom.")}
+    assert {"custom.sort", "custom.topk", "custom._linalg_slogdet"} <= custom
+    for n in nodes.values():
+        if n["op"].startswith("custom."):
+            assert len(n["partials"]) == len(n["inputs"])
+    _gradients_agree(ebb, path, {"w": w}, TOLERANCE[torch.float64])
+    status, result = ebb.verify(path)
+    assert status == 0, result["suspects"]
+
+
+def test_unused_outputs_of_a_multi_output_op(ebb, tmp_path):
+    """unbind gives four rows; the loss reads two, so PyTorch sends no
+    gradient into the others (their hooks see None)."""
+    w = nn.Parameter(torch.arange(1.0, 13.0).reshape(4, 3))
+    path = tmp_path / "unbind.tape"
+    with ebb_capture.record(path) as rec:
+        rows = (w * 2).unbind(0)
+        loss = (rows[0] * rows[2]).sum()
+        rec.output(loss)
+        loss.backward()
+    ours = ebb.gradients(path)
+    # ∂/∂w of Σ 4·w₀·w₂: 4·w₂ in row 0, 4·w₀ in row 2, zeros elsewhere.
+    expected = np.zeros((4, 3))
+    expected[0] = 4 * np.arange(7.0, 10.0)
+    expected[2] = 4 * np.arange(1.0, 4.0)
+    np.testing.assert_array_equal(ours["w"], expected)
+    np.testing.assert_array_equal(w.grad.numpy(), expected)
+
+
+def test_a_random_op_with_a_derivative_is_a_clear_error(tmp_path):
+    """rrelu in training mode draws its slopes inside an op with a
+    derivative: nothing faithful can be recorded, so the recording stops
+    with one line naming the op, the user's line and what to do."""
+    w = nn.Parameter(torch.randn(5))
+    path = tmp_path / "rrelu.tape"
+    with pytest.raises(ebb_capture.CaptureError) as raised:
+        with ebb_capture.record(path) as rec:
+            y = nn.functional.rrelu(w - 0.5, training=True)  # the line named
+            rec.output(y.sum())
+    line = test_a_random_op_with_a_derivative_is_a_clear_error.__code__.co_firstlineno + 8
+    message = str(raised.value)
+    assert "rrelu_with_noise" in message and f"test_recorder.py:{line};" in message and "eval()" in message
+    assert "\n" not in message
+    assert list(tmp_path.iterdir()) == []
+
+
 def test_every_op_the_package_writes_is_in_ebbs_catalog(ebb):
     from ebb_capture.optable import catalog
 
