@@ -34,7 +34,7 @@ def ebb_bin() -> Path:
             pytest.fail(f"EBB_BIN={given} is not a file")
         return path
     subprocess.run(["cargo", "build", "--release", "--quiet", "--bin", "ebb"], cwd=REPO, check=True)
-    return REPO / "target" / "release" / "ebb"
+    return Path(os.environ.get("CARGO_TARGET_DIR") or REPO / "target") / "release" / "ebb"
 
 
 @dataclass
