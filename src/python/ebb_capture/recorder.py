@@ -196,6 +196,9 @@ class Recorder:
         self.reported: dict[str, Stored | float] = {}
         self._hooked: set[str] = set()
         self._pending: list[tuple[torch.Tensor, str]] = []
+        # Outputs of ops on tensors that require grad, to be checked once
+        # autograd has wrapped them (see `_settle_differentiability`).
+        self._unsettled: list[tuple[weakref.ref, str | None]] = []
         self._handles: list[Any] = []
         self.deferred: list[Deferred] = []
         self._decomposing: set[OpOverload] = set()
@@ -346,6 +349,13 @@ class Recorder:
         call = Call(func, call_args, call_kwargs, out)
         nodes = self._map_in_opmath(call) if self._computes_in_opmath(call) else self.map_call(call)
         self._bind_outputs(call, nodes, written)
+        if not self._decomposing and self._function is None and torch.is_grad_enabled():
+            if any(isinstance(t, torch.Tensor) and t.requires_grad for t in tree_flatten((args, kwargs))[0]):
+                for tensor, node in zip(call.outs, nodes):
+                    if isinstance(node, str):
+                        self._unsettled.append((weakref.ref(tensor), node))
+                    elif isinstance(node, Later):
+                        self._unsettled.append((weakref.ref(tensor), None))
         return out
 
     def _computes_in_opmath(self, call: Call) -> bool:
@@ -854,11 +864,31 @@ class Recorder:
     def flush_hooks(self) -> None:
         """Hooks on the outputs of earlier ops, now that autograd has
         attached their backward nodes."""
+        if self._unsettled:
+            self._settle_differentiability()
         if not self._pending:
             return
         pending, self._pending = self._pending, []
         for t, node in pending:
             self._watch(t, node)
+
+    def _settle_differentiability(self) -> None:
+        """Outputs that PyTorch's autograd left without a gradient although
+        an input required one (layer norm's and batch norm's saved mean and
+        reciprocal deviation) are constants to its backward; they become
+        constants here too, so that a trace's gradients are the step's."""
+        unsettled, self._unsettled = self._unsettled, []
+        for ref, node in unsettled:
+            t = ref()
+            if t is None or t.requires_grad:
+                continue
+            if node is None:
+                self._later.pop(id(t), None)
+                self._make_const(t)
+                continue
+            b = self.bindings.get(id(t))
+            if b is not None and b.node == node and not b.const:
+                self._make_const(t)
 
     def _watch(self, t: torch.Tensor, node: str) -> None:
         """Keeps the gradient PyTorch computes for `t` as `node`'s."""

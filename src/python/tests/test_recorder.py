@@ -516,6 +516,31 @@ def test_unused_outputs_of_a_multi_output_op(ebb, tmp_path):
     np.testing.assert_array_equal(w.grad.numpy(), expected)
 
 
+def test_outputs_autograd_does_not_differentiate_are_constants(ebb, tmp_path):
+    """Layer norm's mean and reciprocal deviation are outputs PyTorch's
+    autograd gives no gradient (constants to its backward, although their
+    inputs require one): read by the loss, they are constants in the trace
+    too, so the trace's gradients are the step's."""
+    torch.manual_seed(22)
+    w = nn.Parameter(torch.randn(6, dtype=torch.float64))
+    x = torch.randn(4, 6, dtype=torch.float64)
+    weights = torch.randn(4, 6, dtype=torch.float64)
+    path = tmp_path / "stats.tape"
+    with ebb_capture.record(path) as rec:
+        out, mean, rstd = torch.native_layer_norm(x * w, [6], None, None, 1e-5)
+        loss = (out * weights).sum() + (mean * mean).sum() + rstd.sum()
+        rec.output(loss)
+        loss.backward()
+    ops = [n["op"] for n in nodes_of(path).values()]
+    assert "layer_norm" in ops and not {"mean", "var", "rsqrt"} & set(ops)
+    # Only the normalised output carries w's gradient: the statistics' terms
+    # are constants to PyTorch's backward.
+    assert not np.allclose(w.grad.numpy(), 0)
+    _gradients_agree(ebb, path, {"w": w}, TOLERANCE[torch.float64])
+    status, result = ebb.verify(path)
+    assert status == 0, result["suspects"]
+
+
 def test_a_random_op_with_a_derivative_is_a_clear_error(tmp_path):
     """rrelu in training mode draws its slopes inside an op with a
     derivative: nothing faithful can be recorded, so the recording stops
