@@ -503,3 +503,51 @@ fn verification_reports_progress_and_stops_when_cancelled() {
     );
     assert_eq!(result.err(), Some(Cancelled));
 }
+
+/// L = Σ w·c in `dtype`, so ∂L/∂w = c exactly; the framework reports
+/// `reported` for w.
+fn weighted_sum_reporting(dtype: Dtype, reported: Vec<f64>) -> ebb::trace::Trace {
+    let mut tape = Tape::new("reported in a half format", dtype);
+    let w = tape.param("w", Value::from_parts(vec![3], vec![0.25, 0.5, -1.0]));
+    let c = tape.constant("c", Value::from_parts(vec![3], vec![1.5, -0.75, 2.0]));
+    let product = tape.mul(w, c);
+    let loss = tape.apply(Op::Sum, &[product], Attrs::default()).unwrap();
+    let mut file = tape.finish(loss);
+    file.nodes[0].reported = Some(ValueRepr::Tensor {
+        shape: vec![3],
+        data: reported,
+    });
+    checked(file)
+}
+
+#[test]
+fn reported_gradients_in_a_half_format_are_judged_at_its_rounding() {
+    // One entry a bfloat16 unit in the last place off (1.5 + 2⁻⁷, the next
+    // bfloat16 above 1.5: 8 significand bits, Intel, "BFLOAT16 – Hardware
+    // Numerics Definition", 2018): a framework's kernel rounding the other
+    // way. Relative to the tensor's scale that is 2⁻⁷ / 3.0078 ≈ 2.6e-3,
+    // below four bf16 unit roundoffs (4·2⁻⁸ ≈ 1.6e-2) but far above the
+    // default 1e-4.
+    let one_ulp_off = vec![1.5 + 2f64.powi(-7), -0.75, 2.0];
+    let half = weighted_sum_reporting(Dtype::Bf16, one_ulp_off.clone());
+    let verification = verify(&half, &VerifyOptions::default());
+    assert!(
+        verification.suspects.is_empty(),
+        "{}",
+        verification.to_text(&half)
+    );
+    let compared = &verification.reported[0];
+    assert_eq!(compared.tolerance, 4.0 * 2f64.powi(-8));
+    assert!((compared.worst.relative - 2f64.powi(-7) / (3.0 + 2f64.powi(-7))).abs() < 1e-12);
+    assert!(verification.to_text(&half).contains("0 disagree (within"));
+    // The same numbers in an f32 trace disagree: f32 rounds 2¹⁶ times finer.
+    let single = weighted_sum_reporting(Dtype::F32, one_ulp_off);
+    let verification = verify(&single, &VerifyOptions::default());
+    assert_eq!(verification.reported[0].tolerance, 1e-4);
+    assert_eq!(verification.walk.as_ref().map(|w| w.param), Some(0));
+    // A wrong sign is far beyond the half format's rounding.
+    let wrong = weighted_sum_reporting(Dtype::Bf16, vec![-1.5, 0.75, -2.0]);
+    let verification = verify(&wrong, &VerifyOptions::default());
+    assert_eq!(verification.walk.as_ref().map(|w| w.param), Some(0));
+    assert!(!verification.suspects.is_empty());
+}

@@ -173,11 +173,7 @@ impl Verification {
                 "reported no node carries a gradient reported by the original framework\n",
             );
         } else {
-            let disagreeing = self
-                .reported
-                .iter()
-                .filter(|c| c.worst.relative > self.tolerance)
-                .count();
+            let disagreeing = self.reported.iter().filter(|c| c.disagrees()).count();
             let cannot = self
                 .reported
                 .iter()
@@ -188,8 +184,21 @@ impl Verification {
             } else {
                 String::new()
             };
+            let raised = self
+                .reported
+                .iter()
+                .map(|c| c.tolerance)
+                .fold(self.tolerance, f64::max);
+            let raised = if raised > self.tolerance {
+                format!(
+                    " (within {}: the trace computes in a half format, which rounds no finer)",
+                    compact(raised)
+                )
+            } else {
+                String::new()
+            };
             out.push_str(&format!(
-                "reported {} reported gradients compared, {disagreeing} disagree{cannot}\n",
+                "reported {} reported gradients compared, {disagreeing} disagree{cannot}{raised}\n",
                 self.reported.len()
             ));
         }
@@ -259,6 +268,7 @@ impl Verification {
             "reported": self.reported.iter().map(|c| json!({
                 "node": id(c.node), "element": c.worst.element, "sweep": Num(c.worst.actual),
                 "reported": Num(c.worst.expected), "relative": Num(c.worst.relative),
+                "tolerance": Num(c.tolerance),
             })).collect::<Vec<_>>(),
             "walk": self.walk.as_ref().map(|w| json!({
                 "param": id(w.param), "path": w.path.iter().map(|&n| id(n)).collect::<Vec<_>>(),
