@@ -131,6 +131,33 @@ def test_reported_gradients_of_params_and_intermediates(tmp_path):
     assert nodes["0/matmul"]["reported"]["tensor"] == "grad/0/add"
 
 
+@pytest.mark.parametrize("kept", ["params", "none"])
+def test_gradients_option_keeps_fewer(ebb, tmp_path, kept):
+    """gradients="params" keeps only the parameters' reported gradients
+    (PyTorch's p.grad, exactly); "none" keeps none."""
+    torch.manual_seed(25)
+    model = nn.Sequential(nn.Linear(3, 4), nn.Tanh(), nn.Linear(4, 1))
+    x = torch.randn(6, 3)
+    path = tmp_path / f"{kept}.tape"
+    with ebb_capture.record(path, model=model, gradients=kept) as rec:
+        loss = model(x).pow(2).mean()
+        rec.output(loss)
+        loss.backward()
+    nodes = nodes_of(path)
+    carrying = {i for i, n in nodes.items() if "reported" in n}
+    names = {name for name, _ in model.named_parameters()}
+    if kept == "none":
+        assert carrying == set()
+        return
+    # The output keeps the gradient that reached it too: it is the seed.
+    assert carrying == names | {json.loads(path.read_text())["output"]}
+    values = sidecar_of(path)
+    for name, p in model.named_parameters():
+        np.testing.assert_array_equal(values[nodes[name]["reported"]["tensor"]], p.grad.numpy())
+    status, result = ebb.verify(path)
+    assert status == 0 and len(result["reported"]) == len(names) + 1
+
+
 def test_without_backward_no_gradients_are_reported(tmp_path):
     layer = nn.Linear(2, 1)
     path = tmp_path / "forward.tape"
