@@ -524,6 +524,36 @@ def test_a_small_op_without_mapping_or_decomposition_gets_its_jacobian(ebb, tmp_
     assert status == 0, result["suspects"]
 
 
+def test_advanced_indexing_is_a_gather(ebb, tmp_path):
+    """x[i], x[:, i], x[i, :, j] (apart: PyTorch puts the index axes first),
+    x[..., i] with a 2-D index, negative and repeated picks, nearest
+    upsampling and a flip: all recorded as catalog ops (a gather along the indexed
+    axes merged into one), no custom op; repeated picks add their adjoints."""
+    torch.manual_seed(26)
+    w = nn.Parameter(torch.randn(4, 5, 6, dtype=torch.float64))
+    i = torch.tensor([3, -1, 0, 3])
+    j = torch.tensor([[1, 5], [5, 0]])
+    image = nn.Upsample(scale_factor=2, mode="nearest")
+    weights = [torch.randn(s, dtype=torch.float64) for s in [(4, 5, 6), (4, 4, 6), (4, 5), (4, 5, 2, 2), (1, 4, 10, 12), (4, 5, 6)]]
+    path = tmp_path / "index.tape"
+    with ebb_capture.record(path) as rec:
+        y = w * 1.5
+        picks = [y[i], y[:, i], y[i, :, i], y[..., j], image(y.unsqueeze(0)), y.flip([0, 2])]
+        loss = sum((p * k).sum() for p, k in zip(picks, weights))
+        rec.output(loss)
+        loss.backward()
+    nodes = nodes_of(path)
+    assert not [n for n in nodes.values() if n["op"].startswith("custom.")]
+    assert sum(n["op"] == "gather" for n in nodes.values()) >= 4
+    _gradients_agree(ebb, path, {"w": w}, TOLERANCE[torch.float64])
+    status, result = ebb.verify(path)
+    assert status == 0, result["suspects"]
+    # Each pick's recorded value is PyTorch's, and Ebb's gather recomputes it.
+    status, report = ebb.check(path)
+    assert report["diagnosis"]["forward"]["checked"] == len(nodes) - sum(n["op"] in ("param", "input", "const") for n in nodes.values())
+    assert not [f for f in report["diagnosis"]["findings"] if f["rule"] == "forward_mismatch"]
+
+
 def test_unused_outputs_of_a_multi_output_op(ebb, tmp_path):
     """unbind gives four rows; the loss reads two, so PyTorch sends no
     gradient into the others (their hooks see None)."""

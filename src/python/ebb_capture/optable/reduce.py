@@ -211,3 +211,74 @@ def index_select(r: "Recorder", c: Call) -> list[str | None]:
     shape[axis] = -1
     spread = index.reshape(shape).expand(out.shape).contiguous()
     return [r.op("gather", [x, spread], out, axis=axis)]
+
+
+@handles(aten.index.Tensor)
+def index(r: "Recorder", c: Call) -> list[str | None]:
+    """Advanced indexing, ``x[i, :, j]`` (nearest and bilinear upsampling
+    index this way too): the indexed axes moved to the front and merged
+    into one, the picked rows gathered along it (a gather's adjoint adds
+    repeated picks), then the result reshaped and its axes put where
+    PyTorch puts them."""
+    x, out = c["self"], c.outs[0]
+    given = list(c["indices"])
+    if any(i is not None and i.dtype == torch.bool for i in given):
+        raise Unmapped("boolean masks select a data-dependent number of elements")
+    given += [None] * (x.dim() - len(given))
+    axes = [d for d, i in enumerate(given) if i is not None]
+    if not axes or x.dim() == 0:
+        raise Unmapped("nothing indexed")
+    rest = [d for d in range(x.dim()) if d not in axes]
+    picked = torch.broadcast_tensors(*[given[d] for d in axes])
+    sizes = [x.shape[d] for d in axes]
+    flat = torch.zeros(picked[0].shape, dtype=torch.int64)
+    for i, n in zip(picked, sizes):
+        flat = flat * n + torch.remainder(i.to(torch.int64), n)
+    rows = flat.numel()
+    width = 1
+    for d in rest:
+        width *= x.shape[d]
+    node: torch.Tensor | str = x
+    moved = x
+    if axes + rest != list(range(x.dim())):
+        moved = r.compute(lambda: x.permute(axes + rest))
+        node = r.op("transpose", [x], moved, perm=axes + rest)
+    merged = r.compute(lambda: moved.reshape(-1, width))
+    node = r.op("reshape", [node], merged, shape=[merged.shape[0], width])
+    spread = flat.reshape(rows, 1).expand(rows, width).contiguous()
+    gathered = r.compute(lambda: torch.gather(merged, 0, spread))
+    node = r.op("gather", [node, spread], gathered, axis=0)
+    # PyTorch puts the broadcast index axes where the indexed axes were when
+    # those are adjacent, else first.
+    batch = list(flat.shape)
+    kept = [x.shape[d] for d in rest]
+    adjacent = axes == list(range(axes[0], axes[-1] + 1))
+    lead = axes[0] if adjacent else 0
+    shaped = r.compute(lambda: gathered.reshape(batch + kept))
+    if lead == 0:
+        return [r.op("reshape", [node], out, shape=list(out.shape))]
+    node = r.op("reshape", [node], shaped, shape=batch + kept)
+    # Axes now: batch…, rest…; wanted: rest[:lead]…, batch…, rest[lead:]….
+    nb = len(batch)
+    perm = [nb + k for k in range(lead)] + list(range(nb)) + [nb + k for k in range(lead, len(kept))]
+    return [r.op("transpose", [node], out, perm=perm)]
+
+
+@handles(aten.flip.default)
+def flip(r: "Recorder", c: Call) -> list[str | None]:
+    """Reversal along each named axis: a gather with the reversed positions
+    along that axis."""
+    x, out = c["self"], c.outs[0]
+    dims = sorted({d % max(x.dim(), 1) for d in c["dims"]})
+    if x.dim() == 0 or not dims:
+        return [r.same(x, out)]
+    node: torch.Tensor | str = x
+    value = x
+    for k, axis in enumerate(dims):
+        shape = [1] * x.dim()
+        shape[axis] = -1
+        reversed_positions = torch.arange(x.shape[axis] - 1, -1, -1).reshape(shape).expand(x.shape).contiguous()
+        last = k == len(dims) - 1
+        value = out if last else r.compute(lambda v=value, a=axis: torch.flip(v, [a]))
+        node = r.op("gather", [node, reversed_positions], value, axis=axis)
+    return [node]
