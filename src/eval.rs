@@ -85,8 +85,8 @@ fn linearised(trace: &Trace, node: usize, values: &[Value], dtype: Dtype) -> Val
     let shape = recorded.value.shape();
     let mut total = recorded.value.clone();
     for (slot, &input) in recorded.inputs.iter().enumerate() {
-        let partial = recorded.partials[slot]
-            .as_ref()
+        let partial = recorded
+            .partial(slot)
             .expect("custom ops carry every partial");
         let before = &trace.node(input).value;
         let delta = Value::from_parts(

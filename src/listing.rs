@@ -252,7 +252,7 @@ pub fn select_steps(sweep: &mut Sweep, selection: &Selection) -> Listing {
         steps.push(StepEntry {
             step: step + 1,
             node: recorded.id.clone(),
-            op: recorded.op_name.clone(),
+            op: recorded.op_name.to_string(),
             group: recorded.group.clone(),
             adjoint: sweep
                 .adjoint(node)

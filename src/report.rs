@@ -502,7 +502,7 @@ fn flag_entry(trace: &Trace, flag: &Flag, first: bool) -> FlagEntry {
     FlagEntry {
         step: flag.step + 1,
         node: node.id.clone(),
-        op: node.op_name.clone(),
+        op: node.op_name.to_string(),
         kind: flag.kind,
         value: Num(flag.value),
         element: flag.element,

@@ -168,7 +168,7 @@ fn wrong_partial_disagrees_with_the_reference_only_upstream_of_the_gate() {
     let trace = open("wrong_partial.ron");
     let sweep = swept(&trace);
     let gate = trace.find("gated").unwrap();
-    assert_eq!(trace.node(gate).op_name, demos::GATE);
+    assert_eq!(&*trace.node(gate).op_name, demos::GATE);
     let disagrees = |id: &str| {
         let node = trace.find(id).unwrap();
         let reported = trace

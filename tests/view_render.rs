@@ -325,7 +325,7 @@ fn flags_show_symbol_node_and_kind_and_jump_to_it() {
     let log = trace
         .nodes()
         .iter()
-        .find(|node| node.op_name == "log")
+        .find(|node| &*node.op_name == "log")
         .unwrap()
         .id
         .clone();

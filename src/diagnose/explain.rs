@@ -18,7 +18,7 @@ pub(super) fn seed(trace: &Trace, bad: f64) -> String {
 pub(super) fn origin(trace: &Trace, origin: &Origin) -> String {
     let node = trace.node(origin.node);
     let id = &node.id;
-    let op = node.op_name.as_str();
+    let op = node.op_name.as_ref();
     let max = compact(trace.dtype().limits().max_finite());
     let dtype = trace.dtype();
     let operand = |k: usize| {
@@ -91,7 +91,7 @@ pub(super) fn origin(trace: &Trace, origin: &Origin) -> String {
 fn forward(trace: &Trace, origin: &Origin) -> String {
     let node = trace.node(origin.node);
     let id = &node.id;
-    let op = node.op_name.as_str();
+    let op = node.op_name.as_ref();
     let result = compact(origin.result);
     let max = compact(trace.dtype().limits().max_finite());
     let dtype = trace.dtype();

@@ -237,7 +237,7 @@ impl RootCauses {
 /// elementwise: recorded, or derived from the op table.
 pub(super) fn edge_partial(trace: &Trace, node: usize, slot: usize) -> Option<Value> {
     let recorded = trace.node(node);
-    match &recorded.partials[slot] {
+    match recorded.partial(slot) {
         Some(Partial::Scalar(s)) => Some(Value::Scalar(*s)),
         Some(Partial::Diagonal(diagonal)) => Some(diagonal.clone()),
         Some(Partial::Jacobian { .. }) => None,

@@ -93,8 +93,8 @@ impl Repeat {
 /// What a hop joins, for finding periods: the ops at both ends and the slot.
 fn signature(trace: &Trace, from: usize, to: usize, slot: usize) -> (&str, &str, usize) {
     (
-        trace.node(from).op_name.as_str(),
-        trace.node(to).op_name.as_str(),
+        trace.node(from).op_name.as_ref(),
+        trace.node(to).op_name.as_ref(),
         slot,
     )
 }

@@ -193,3 +193,92 @@ impl Attrs {
         *self == Attrs::default()
     }
 }
+
+/// A node's [`Attrs`], kept out of line: a node without attributes (most
+/// nodes of a big trace) holds one null pointer instead of the few hundred
+/// bytes of an [`Attrs`], in the parsed file and in every copy of a trace.
+/// Reads go through [`Deref`](std::ops::Deref) (an absent set reads as the
+/// empty one); a write through [`DerefMut`](std::ops::DerefMut) allocates.
+/// Serialised as the [`Attrs`] it holds.
+#[derive(Clone, Default)]
+pub struct BoxedAttrs(Option<Box<Attrs>>);
+
+impl PartialEq for BoxedAttrs {
+    fn eq(&self, other: &BoxedAttrs) -> bool {
+        **self == **other
+    }
+}
+
+/// The attributes of a node that has none.
+static NO_ATTRS: std::sync::LazyLock<Attrs> = std::sync::LazyLock::new(Attrs::default);
+
+impl BoxedAttrs {
+    /// True when no attribute is set.
+    pub fn is_empty(&self) -> bool {
+        self.0.as_deref().is_none_or(Attrs::is_empty)
+    }
+}
+
+impl From<Attrs> for BoxedAttrs {
+    fn from(attrs: Attrs) -> BoxedAttrs {
+        BoxedAttrs((!attrs.is_empty()).then(|| Box::new(attrs)))
+    }
+}
+
+impl std::ops::Deref for BoxedAttrs {
+    type Target = Attrs;
+    fn deref(&self) -> &Attrs {
+        self.0.as_deref().unwrap_or(&NO_ATTRS)
+    }
+}
+
+impl std::ops::DerefMut for BoxedAttrs {
+    fn deref_mut(&mut self) -> &mut Attrs {
+        self.0.get_or_insert_with(Box::default)
+    }
+}
+
+impl std::fmt::Debug for BoxedAttrs {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        std::fmt::Debug::fmt(&**self, f)
+    }
+}
+
+impl Serialize for BoxedAttrs {
+    fn serialize<S: serde::Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        (**self).serialize(serializer)
+    }
+}
+
+impl<'de> Deserialize<'de> for BoxedAttrs {
+    fn deserialize<D: serde::Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
+        Attrs::deserialize(deserializer).map(BoxedAttrs::from)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn boxed_attributes_hold_nothing_when_empty() {
+        assert!(std::mem::size_of::<BoxedAttrs>() <= 8);
+        let empty = BoxedAttrs::from(Attrs::default());
+        assert!(empty.0.is_none() && empty.is_empty());
+        assert_eq!(empty.exponent, None);
+        // A write allocates; a set emptied again equals an empty one.
+        let mut set = BoxedAttrs::from(Attrs::default());
+        set.exponent = Some(2.0);
+        assert!(!set.is_empty());
+        assert_eq!(set.exponent, Some(2.0));
+        assert_eq!(
+            BoxedAttrs::from(Attrs {
+                exponent: Some(2.0),
+                ..Attrs::default()
+            }),
+            set
+        );
+        set.exponent = None;
+        assert_eq!(set, empty);
+    }
+}

@@ -21,7 +21,7 @@ mod reduce;
 mod scan;
 mod shape;
 
-pub use attrs::{Approximate, AttrName, Attrs, Reduction};
+pub use attrs::{Approximate, AttrName, Attrs, BoxedAttrs, Reduction};
 pub use precision::Precision;
 
 use crate::dtype::Dtype;

@@ -198,7 +198,7 @@ impl Tape {
             group: self.scopes.join("/"),
             site: Some(site(location)),
             value: value_repr(&value),
-            attrs,
+            attrs: attrs.into(),
             partials,
             reported: None,
         });

@@ -469,7 +469,7 @@ fn finding_entry(trace: &Trace, finding: &Finding) -> FindingEntry {
     FindingEntry {
         rule: finding.rule,
         node: node.id.clone(),
-        op: node.op_name.clone(),
+        op: node.op_name.to_string(),
         step: finding.step + 1,
         site,
         slot,
@@ -512,7 +512,7 @@ fn origin_entry(
         letter: origin.class.letter(),
         title: origin.class.title(),
         node: id(origin.node),
-        op: trace.node(origin.node).op_name.clone(),
+        op: trace.node(origin.node).op_name.to_string(),
         step: origin.step + 1,
         first_adjoint: id(origin.first_adjoint),
         first_adjoint_step: origin.first_adjoint_step + 1,
@@ -618,7 +618,7 @@ impl DiagnosisReport {
                 .iter()
                 .map(|m| MismatchEntry {
                     node: id(m.node),
-                    op: trace.node(m.node).op_name.clone(),
+                    op: trace.node(m.node).op_name.to_string(),
                     step: m.step + 1,
                     element: m.element,
                     recorded: Num(m.recorded),
@@ -633,7 +633,7 @@ impl DiagnosisReport {
             .iter()
             .map(|found| SaturationEntry {
                 node: id(found.node),
-                op: trace.node(found.node).op_name.clone(),
+                op: trace.node(found.node).op_name.to_string(),
                 step: found.step + 1,
                 saturated: found.saturated,
                 units: found.units,
@@ -706,7 +706,7 @@ impl DiagnosisReport {
                     Factor::Activation { op } => ("activation", op.name().to_string(), None, false),
                     Factor::Weight { param, shared } => (
                         "weight",
-                        trace.node(repeat.factor_nodes.0).op_name.clone(),
+                        trace.node(repeat.factor_nodes.0).op_name.to_string(),
                         Some(id(param)),
                         shared,
                     ),

@@ -22,7 +22,7 @@ pub fn pull_back(trace: &Trace, node: usize, slot: usize, adjoint: &Value) -> Pu
     let dtype = trace.precision(node);
     let recorded = &trace.node(node);
     let input_shape = trace.node(recorded.inputs[slot]).value.shape();
-    match &recorded.partials[slot] {
+    match recorded.partial(slot) {
         Some(Partial::Scalar(s)) => Pulled {
             contribution: ops::scale_and_reduce(adjoint, &Value::Scalar(*s), input_shape, dtype),
             bad_partial: (!s.is_finite()).then_some(*s),

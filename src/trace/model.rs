@@ -3,7 +3,7 @@
 //! output. Only the validator builds one, so every invariant below holds.
 
 use crate::dtype::{Dtype, Subnormals};
-use crate::ops::{Attrs, Op};
+use crate::ops::{BoxedAttrs, Op};
 use crate::tensor::Value;
 use petgraph::Direction;
 use petgraph::graph::{DiGraph, NodeIndex};
@@ -36,8 +36,9 @@ pub struct Node {
     pub id: String,
     /// The op; `Op::Custom` for names outside the catalog.
     pub op: Op,
-    /// The op's name as written (the custom name for custom ops).
-    pub op_name: String,
+    /// The op's name as written (the custom name for custom ops), shared
+    /// by every node that writes it.
+    pub op_name: Arc<str>,
     /// The dtype the value and adjoint are stored in: the node's own, or the
     /// header's default.
     pub dtype: Dtype,
@@ -45,16 +46,25 @@ pub struct Node {
     pub inputs: Vec<usize>,
     /// Scope path, possibly empty.
     pub group: String,
-    /// Recording site, `file:line`.
-    pub site: Option<String>,
+    /// Recording site, `file:line`, shared by every node recorded there.
+    pub site: Option<Arc<str>>,
     /// Forward value.
     pub value: Value,
-    /// Attributes.
-    pub attrs: Attrs,
-    /// Recorded partial per input edge, `None` where the op's rule applies.
+    /// Attributes (out of line: most nodes have none).
+    pub attrs: BoxedAttrs,
+    /// Recorded partial per input edge, `None` where the op's rule applies;
+    /// empty when no edge has one (most nodes: a list of `None`s costs a
+    /// hundred bytes a node). Read one edge's with [`Node::partial`].
     pub partials: Vec<Option<Partial>>,
     /// The gradient the original framework reported.
     pub reported: Option<Value>,
+}
+
+impl Node {
+    /// The partial recorded on input edge `slot`, if any.
+    pub fn partial(&self, slot: usize) -> Option<&Partial> {
+        self.partials.get(slot).and_then(Option::as_ref)
+    }
 }
 
 /// A node whose recorded numbers were rounded into its dtype on load.
@@ -88,9 +98,10 @@ pub struct Trace {
     /// Shared by every re-typed copy: ids never change.
     pub(super) index: Arc<HashMap<String, usize>>,
     /// Edges run from input to consumer; edge weight is the input slot.
-    pub(super) graph: DiGraph<(), u32>,
-    pub(super) order: Vec<usize>,
-    pub(super) rank: Vec<u32>,
+    /// Shared, with the order and ranks, by every re-typed copy.
+    pub(super) graph: Arc<DiGraph<(), u32>>,
+    pub(super) order: Arc<Vec<usize>>,
+    pub(super) rank: Arc<Vec<u32>>,
     pub(super) compact: super::compact::Compact,
 }
 

@@ -8,7 +8,7 @@
 //! on reading.
 
 use crate::dtype::Dtype;
-use crate::ops::Attrs;
+use crate::ops::BoxedAttrs;
 use serde::de::{self, Deserializer, MapAccess, SeqAccess, Visitor};
 use serde::ser::{SerializeMap, SerializeStruct, Serializer};
 use serde::{Deserialize, Serialize};
@@ -74,8 +74,8 @@ pub struct NodeFile {
     /// The forward value.
     pub value: ValueRepr,
     /// Op attributes.
-    #[serde(default, skip_serializing_if = "Attrs::is_empty")]
-    pub attrs: Attrs,
+    #[serde(default, skip_serializing_if = "BoxedAttrs::is_empty")]
+    pub attrs: BoxedAttrs,
     /// Recorded partials, one per input edge (absent entries are derived).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub partials: Vec<PartialRepr>,

@@ -8,9 +8,9 @@ use std::io::{self, Read};
 use std::path::Path;
 
 /// The most bytes Ebb reads as a text trace (4 GiB). A text trace of a
-/// million scalar nodes is about 200 MB; anything near this limit should be
-/// keep its tensors in a safetensors sidecar. Endless inputs (devices, pipes that keep writing)
-/// stop here instead of exhausting memory.
+/// million scalar nodes is about 200 MB; anything near this limit should
+/// keep its tensors in a safetensors sidecar. Endless inputs (devices, pipes
+/// that keep writing) stop here instead of exhausting memory.
 pub const TEXT_LIMIT: u64 = 1 << 32;
 
 /// Why a file's bytes are not a text trace. Travels inside an
@@ -25,15 +25,15 @@ pub(crate) enum NotText {
         column: usize,
         what: String,
     },
-    /// More than [`TEXT_LIMIT`] bytes.
-    TooLong,
+    /// More than this many bytes ([`TEXT_LIMIT`]).
+    TooLong(u64),
 }
 
 impl std::fmt::Display for NotText {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         match self {
             NotText::Bytes { what, byte, .. } => write!(f, "not text: {what} at byte {byte}"),
-            NotText::TooLong => write!(f, "longer than {TEXT_LIMIT} bytes"),
+            NotText::TooLong(limit) => write!(f, "longer than {limit} bytes"),
         }
     }
 }
@@ -62,9 +62,9 @@ impl LoadError {
                 byte: *byte,
                 what: what.clone(),
             },
-            Some(NotText::TooLong) => LoadError::TooLong {
+            Some(NotText::TooLong(limit)) => LoadError::TooLong {
                 path,
-                limit: TEXT_LIMIT,
+                limit: *limit,
             },
             None => LoadError::Io { path, error },
         }
@@ -75,6 +75,13 @@ impl LoadError {
 /// at the first NUL byte, at the first byte that cannot be UTF-8, and past
 /// [`TEXT_LIMIT`] bytes.
 pub(crate) fn read_text(path: &Path, progress: &mut dyn Progress) -> io::Result<String> {
+    read_text_within(path, TEXT_LIMIT, progress)
+}
+
+/// [`read_text`] with another limit. Memory is allocated as the bytes
+/// arrive (up to the length the file claims, never past `limit`), so an
+/// endless input costs at most `limit` bytes.
+fn read_text_within(path: &Path, limit: u64, progress: &mut dyn Progress) -> io::Result<String> {
     let mut file = std::fs::File::open(path)?;
     let meta = file.metadata()?;
     if meta.is_dir() {
@@ -82,8 +89,14 @@ pub(crate) fn read_text(path: &Path, progress: &mut dyn Progress) -> io::Result<
     }
     let total = meta.len();
     progress.stage("reading", Some(total));
-    let mut bytes = Vec::with_capacity(usize::try_from(total.min(TEXT_LIMIT)).unwrap_or(0));
-    let mut chunk = vec![0u8; 1 << 20];
+    let mut bytes = Vec::with_capacity(usize::try_from(total.min(limit)).unwrap_or(0));
+    // Chunks of up to 1 MiB, no bigger than the file needs: a small file
+    // (the fuzzers read millions) does not pay for zeroing a large buffer.
+    let chunk_len = match total {
+        0 => 1 << 16,
+        total => usize::try_from(total + 1).map_or(1 << 20, |len| len.clamp(1 << 12, 1 << 20)),
+    };
+    let mut chunk = vec![0u8; chunk_len];
     // Bytes before this offset are known to be UTF-8 without NUL.
     let mut checked = 0;
     loop {
@@ -93,8 +106,11 @@ pub(crate) fn read_text(path: &Path, progress: &mut dyn Progress) -> io::Result<
             Err(error) if error.kind() == io::ErrorKind::Interrupted => continue,
             Err(error) => return Err(error),
         };
-        if (bytes.len() + read) as u64 > TEXT_LIMIT {
-            return Err(io::Error::new(io::ErrorKind::InvalidData, NotText::TooLong));
+        if (bytes.len() + read) as u64 > limit {
+            return Err(io::Error::new(
+                io::ErrorKind::InvalidData,
+                NotText::TooLong(limit),
+            ));
         }
         bytes.extend_from_slice(&chunk[..read]);
         checked = check_text(&bytes, checked, false)?;
@@ -198,6 +214,47 @@ mod tests {
         std::fs::write(&path, &text).unwrap();
         let read = read_text(&path, &mut super::super::progress::Silent).unwrap();
         assert_eq!(read, text);
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn an_endless_text_input_stops_at_the_limit() {
+        // A pipe that never ends (a program printing for ever): refused once
+        // the limit is passed, with the limit named, instead of reading
+        // until memory runs out. The writer sees the pipe closed.
+        let dir = tempfile::tempdir().unwrap();
+        let fifo = dir.path().join("endless.ron");
+        let name = std::ffi::CString::new(fifo.to_str().unwrap()).unwrap();
+        // SAFETY: a valid C string naming a path in our temporary directory.
+        assert_eq!(unsafe { libc::mkfifo(name.as_ptr(), 0o600) }, 0);
+        let writer = {
+            let fifo = fifo.clone();
+            std::thread::spawn(move || {
+                use std::io::Write;
+                let mut pipe = std::fs::OpenOptions::new().write(true).open(fifo)?;
+                let chunk = "(nodes: [".repeat(1 << 12);
+                let mut written = 0u64;
+                loop {
+                    match pipe.write_all(chunk.as_bytes()) {
+                        Ok(()) => written += chunk.len() as u64,
+                        Err(error) => return Ok::<_, io::Error>((written, error.kind())),
+                    }
+                }
+            })
+        };
+        let limit = 4 << 20;
+        let error =
+            read_text_within(&fifo, limit, &mut super::super::progress::Silent).unwrap_err();
+        let message = LoadError::reading(&fifo, error).to_string();
+        assert!(
+            message.ends_with(&format!(
+                "endless.ron: the trace is longer than {limit} bytes, the most Ebb reads as text (hint: is this the right file? store big tensors in a safetensors sidecar, see traces/FORMAT.md)"
+            )),
+            "{message}"
+        );
+        let (written, ended) = writer.join().unwrap().unwrap();
+        assert_eq!(ended, io::ErrorKind::BrokenPipe);
+        assert!(written >= limit, "{written} bytes written");
     }
 
     #[test]

@@ -13,6 +13,7 @@ use petgraph::graph::{DiGraph, NodeIndex};
 use petgraph::visit::{Bfs, Reversed};
 use std::collections::HashMap;
 use std::collections::hash_map::Entry;
+use std::sync::Arc;
 
 impl TryFrom<TraceFile> for Trace {
     type Error = Vec<Problem>;
@@ -53,6 +54,7 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
     }
     let default_dtype = file.dtype;
     let mut rounded = Vec::new();
+    let mut names = Names::default();
     let index = index_ids(&file.nodes, &mut problems);
     let mut nodes: Vec<Option<Node>> = Vec::with_capacity(file.nodes.len());
     // Every resolvable edge, forward ones included, so a cycle can be named.
@@ -73,6 +75,7 @@ pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace,
                 position,
                 default_dtype,
                 rounded: &mut rounded,
+                names: &mut names,
             };
             check_node(raw, inputs, &nodes, &mut problems, resolve, context)
         });
@@ -322,6 +325,23 @@ struct NodeContext<'a> {
     position: usize,
     default_dtype: Dtype,
     rounded: &'a mut Vec<Rounding>,
+    names: &'a mut Names,
+}
+
+/// One shared copy of each op name and recording site: a trace repeats a
+/// few of each over millions of nodes.
+#[derive(Default)]
+struct Names(std::collections::HashSet<Arc<str>>);
+
+impl Names {
+    fn shared(&mut self, name: String) -> Arc<str> {
+        if let Some(known) = self.0.get(name.as_str()) {
+            return known.clone();
+        }
+        let name: Arc<str> = name.into();
+        self.0.insert(name.clone());
+        name
+    }
 }
 
 /// Checks one node whose inputs resolved; `earlier` holds the checked nodes
@@ -507,6 +527,10 @@ fn check_node(
     if problems.len() > before {
         return None;
     }
+    // Most nodes record no partial: they keep no list (see `Node::partial`).
+    if partials.iter().all(Option::is_none) {
+        partials = Vec::new();
+    }
     if let Some((index, written, stored, count)) = first_rounded {
         context.rounded.push(Rounding {
             node: context.position,
@@ -516,15 +540,14 @@ fn check_node(
             count,
         });
     }
-    let op_name = raw.op;
     Some(Node {
         id,
         op,
-        op_name,
+        op_name: context.names.shared(raw.op),
         dtype,
         inputs,
         group: raw.group,
-        site: raw.site,
+        site: raw.site.map(|site| context.names.shared(site)),
         value,
         attrs: raw.attrs,
         partials,
@@ -736,10 +759,10 @@ fn build(
         nodes,
         output,
         seed,
-        index: std::sync::Arc::new(index),
-        graph,
-        order,
-        rank,
+        index: Arc::new(index),
+        graph: Arc::new(graph),
+        order: Arc::new(order),
+        rank: Arc::new(rank),
         compact,
     }
 }

@@ -58,7 +58,7 @@ pub fn edges(trace: &Trace, node: usize) -> Vec<EdgeRow> {
 pub fn partial_text(trace: &Trace, consumer: usize, slot: usize) -> String {
     let recorded = trace.node(consumer);
     let dtype = trace.node_dtype(consumer);
-    match &recorded.partials[slot] {
+    match recorded.partial(slot) {
         Some(Partial::Scalar(s)) => return readable(*s, dtype),
         Some(Partial::Diagonal(diagonal)) => return value_text(diagonal, dtype, "diagonal"),
         Some(Partial::Jacobian { rows, cols, data }) => {

@@ -120,7 +120,7 @@ fn prefix_range(trace: &Trace, by_id: &[usize], prefix: &str) -> std::ops::Range
 /// it, or its op is named by it.
 pub fn matches(trace: &Trace, node: usize, query: &str) -> bool {
     let recorded = trace.node(node);
-    recorded.id.contains(query) || recorded.op_name == query || recorded.group.contains(query)
+    recorded.id.contains(query) || &*recorded.op_name == query || recorded.group.contains(query)
 }
 
 #[cfg(test)]

@@ -113,7 +113,7 @@ impl Atom {
             }),
             Atom::At(node) => moment.next == Some(*node),
             Atom::Group(prefix) => next.is_some_and(|node| node.group.starts_with(prefix.as_str())),
-            Atom::Op(name) => next.is_some_and(|node| node.op_name == *name),
+            Atom::Op(name) => next.is_some_and(|node| &*node.op_name == name.as_str()),
             Atom::NonFinite => moment.non_finite,
         }
     }

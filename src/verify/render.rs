@@ -244,11 +244,11 @@ impl Verification {
                 NotFinite::Tangent => json!({"check": "tangent"}),
             }).collect::<Vec<_>>(),
             "custom": self.custom.iter().map(|&n| json!({
-                "node": id(n), "op": trace.node(n).op_name,
+                "node": id(n), "op": &*trace.node(n).op_name,
                 "judged_by_reported": self.custom_judged_by_reported(trace, n),
             })).collect::<Vec<_>>(),
             "suspects": self.suspects.iter().map(|s| json!({
-                "node": id(s.node), "op": trace.node(s.node).op_name, "evidence": s.evidence,
+                "node": id(s.node), "op": &*trace.node(s.node).op_name, "evidence": s.evidence,
                 "relative": Num(s.relative), "band": s.band, "detail": s.detail,
             })).collect::<Vec<_>>(),
             "partials": self.partials.iter().map(|c| json!({

@@ -146,7 +146,7 @@ impl<'t> TangentSweep<'t> {
             // Recorded partials are what the reverse sweep uses, so the tangent uses them too.
             let mut total = Value::filled(recorded.value.shape(), 0.0);
             for (slot, tangent) in tangents.iter().enumerate() {
-                let term = match &recorded.partials[slot] {
+                let term = match recorded.partial(slot) {
                     Some(partial) => push_forward(partial, tangent, recorded.value.shape(), dtype),
                     None => self.single_edge(node, slot, tangent),
                 };

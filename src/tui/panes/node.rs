@@ -157,8 +157,9 @@ fn place<'a>(ctx: &Ctx, node: NodeIx) -> Vec<Line<'a>> {
             "site",
             recorded
                 .site
-                .clone()
-                .unwrap_or_else(|| "(not recorded)".to_string()),
+                .as_deref()
+                .unwrap_or("(not recorded)")
+                .to_string(),
             theme.muted,
             theme.text,
         ),
