@@ -263,3 +263,45 @@ fn convert_never_replaces_the_sidecar_its_input_names() {
         String::from_utf8_lossy(&output.stderr)
     );
 }
+
+#[test]
+fn convert_never_writes_through_a_link_to_what_it_reads() {
+    // An output sidecar that is a symbolic link to the input's sidecar is
+    // refused; an output that is a hard link to the input is replaced as a
+    // name, so the input keeps its bytes.
+    let dir = tempfile::tempdir().unwrap();
+    let (trace, sidecar) = trace_with_sidecar(dir.path(), 16, true);
+    let header = std::fs::read(&trace).unwrap();
+    let data = std::fs::read(&sidecar).unwrap();
+    let out = dir.path().join("out.tape");
+    std::os::unix::fs::symlink(&sidecar, dir.path().join("out.safetensors")).unwrap();
+    let output = ebb(&["convert", trace.to_str().unwrap(), out.to_str().unwrap()]);
+    assert_refused(&output, "would overwrite the input's sidecar");
+    assert!(
+        std::fs::read(&sidecar).unwrap() == data,
+        "the sidecar is untouched"
+    );
+
+    let text = dir.path().join("t.json");
+    let output = ebb(&["convert", trace.to_str().unwrap(), text.to_str().unwrap()]);
+    assert_eq!(output.status.code(), Some(0));
+    let text_bytes = std::fs::read(&text).unwrap();
+    let linked = dir.path().join("linked.ron");
+    std::fs::hard_link(&text, &linked).unwrap();
+    let output = ebb(&["convert", text.to_str().unwrap(), linked.to_str().unwrap()]);
+    assert_eq!(
+        output.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
+    assert!(
+        std::fs::read(&text).unwrap() == text_bytes,
+        "the input keeps its bytes"
+    );
+    assert!(std::fs::read(&trace).unwrap() == header);
+    assert!(
+        std::fs::read_to_string(&linked).unwrap().starts_with('('),
+        "RON at the output"
+    );
+}
