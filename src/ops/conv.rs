@@ -14,12 +14,14 @@
 //! o = ⌊(i + 2p − d(k − 1) − 1)/s⌋ + 1 (Dumoulin & Visin, "A guide to
 //! convolution arithmetic for deep learning", 2016, §5.1, relationship 15).
 
+use super::kernels::arith::{Arith, Fix};
 use super::kernels::gemm::{Accumulator, Layout, Operands};
 use super::kernels::im2col::{Column, Window, col2im, im2col};
 use super::{Attrs, JvpArgs, Precision, StructuredRule, VjpArgs, add_rounded};
 use crate::dtype::Dtype;
 use crate::format::shape as show;
 use crate::tensor::{Buffer, Value, elements_as};
+use rayon::prelude::*;
 use std::borrow::Cow;
 
 /// Convolution over one spatial axis: x [N, C, L], w [O, C/groups, K].
@@ -382,19 +384,31 @@ fn weight_contribution<T: Acc>(conv: &Conv, args: &VjpArgs) -> Buffer {
 
 /// b̄ₒ = Σ over images and positions of Ḡ.
 fn bias_contribution(conv: &Conv, args: &VjpArgs) -> Value {
+    let buffer = crate::in_accumulation_type!(args.precision, bias_sums(conv, args));
+    Value::from_buffer(vec![conv.out_channels], buffer)
+}
+
+/// Each channel's sum in the accumulation type, image by image and position
+/// by position; channels split over threads.
+fn bias_sums<T: Arith>(conv: &Conv, args: &VjpArgs) -> Buffer {
     let p = args.precision;
-    let g = args.adjoint.to_f64();
+    let fix = Fix::of::<T>(p.accumulate);
+    let g = elements_as::<T>(args.adjoint.elements());
     let positions = conv.window.positions();
-    let data = (0..conv.out_channels)
+    let sums: Vec<T> = (0..conv.out_channels)
+        .into_par_iter()
         .map(|channel| {
-            let terms = (0..conv.batch).flat_map(|image| {
+            let mut total: Option<T> = None;
+            for image in 0..conv.batch {
                 let start = (image * conv.out_channels + channel) * positions;
-                g[start..start + positions].iter().copied()
-            });
-            p.round(p.sum(terms))
+                for &v in &g[start..start + positions] {
+                    total = Some(total.map_or(v, |s| fix.at(s + v)));
+                }
+            }
+            total.unwrap_or_default()
         })
         .collect();
-    Value::from_parts_in(p.dtype, vec![conv.out_channels], data)
+    Buffer::converted(T::buffer(sums).elements(), p.dtype)
 }
 
 /// Bilinear in x and w, affine in the bias: ẏ = conv(ẋ, w) + ḃ + conv(x, ẇ).

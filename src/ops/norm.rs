@@ -14,10 +14,12 @@
 //! layer normalisation, Ba, Kiros & Hinton, "Layer Normalization", 2016);
 //! rms_norm drops the mean: x̂ = x r, r = 1/√(mean(x²) + ε), x̄ = r (ĝ − x̂ mean(ĝ x̂)).
 
+use super::kernels::arith::{Arith, Fix};
 use super::{Attrs, JvpArgs, Precision, StructuredRule, VjpArgs};
 use crate::format::shape as show;
-use crate::tensor::{Value, numel, resolve_axis};
+use crate::tensor::{Buffer, Value, elements_as, numel, resolve_axis};
 use rayon::prelude::*;
+use std::borrow::Cow;
 
 /// Normalisation over the axes from `axis` (default −1) to the last.
 pub static LAYER_NORM: StructuredRule = StructuredRule {
@@ -81,25 +83,19 @@ impl Kind {
     }
 }
 
-/// How the elements of x fall into lanes and onto the weight's elements.
+/// How the elements of x fall into lanes: x is cut into `planes` contiguous
+/// planes of `size` elements; each plane belongs to one lane, and every
+/// element of a lane uses the weight element its plane (or, for the trailing
+/// kind, its place in the plane) says.
 #[derive(Clone, Copy)]
-enum Lanes {
-    /// Contiguous lanes of `length`; element k of a lane uses weight k.
-    Trailing { lanes: usize, length: usize },
-    /// One lane per channel of x [N, C, S…]: `batch` samples of `spatial`.
-    Channels {
-        batch: usize,
-        channels: usize,
-        spatial: usize,
-    },
-    /// One contiguous lane per (sample, group), each `per_group` channels of
-    /// `spatial` elements.
-    Groups {
-        lanes: usize,
-        groups: usize,
-        per_group: usize,
-        spatial: usize,
-    },
+struct Lanes {
+    kind: Kind,
+    planes: usize,
+    size: usize,
+    /// Channels of x [N, C, …] (batch and group norm).
+    channels: usize,
+    /// Groups per sample (group norm).
+    groups: usize,
 }
 
 impl Lanes {
@@ -107,70 +103,77 @@ impl Lanes {
         match kind {
             Kind::Layer | Kind::Rms => {
                 let axis = trailing_axis(shape, attrs).expect("axis checked by the validator");
-                let length = numel(&shape[axis..]);
-                Lanes::Trailing {
-                    lanes: numel(shape) / length.max(1),
-                    length,
+                let size = numel(&shape[axis..]);
+                Lanes {
+                    kind,
+                    planes: numel(&shape[..axis]),
+                    size,
+                    channels: 1,
+                    groups: 1,
                 }
             }
-            Kind::Batch => Lanes::Channels {
-                batch: shape[0],
+            Kind::Batch | Kind::Group => Lanes {
+                kind,
+                planes: shape[0] * shape[1],
+                size: numel(&shape[2..]),
                 channels: shape[1],
-                spatial: numel(&shape[2..]),
+                groups: attrs.groups.unwrap_or(1).max(1),
             },
-            Kind::Group => {
-                let groups = attrs.groups.unwrap_or(1).max(1);
-                Lanes::Groups {
-                    lanes: shape[0] * groups,
-                    groups,
-                    per_group: shape[1] / groups,
-                    spatial: numel(&shape[2..]),
-                }
-            }
         }
     }
 
     fn count(self) -> usize {
-        match self {
-            Lanes::Trailing { lanes, .. } | Lanes::Groups { lanes, .. } => lanes,
-            Lanes::Channels { channels, .. } => channels,
+        match self.kind {
+            Kind::Layer | Kind::Rms => self.planes,
+            Kind::Batch => self.channels,
+            Kind::Group => self.planes / self.channels * self.groups,
         }
     }
 
+    /// Elements per lane.
     fn length(self) -> usize {
-        match self {
-            Lanes::Trailing { length, .. } => length,
-            Lanes::Channels { batch, spatial, .. } => batch * spatial,
-            Lanes::Groups {
-                per_group, spatial, ..
-            } => per_group * spatial,
+        self.size * self.planes / self.count().max(1)
+    }
+
+    /// The lane plane `plane` belongs to.
+    #[inline]
+    fn lane_of(self, plane: usize) -> usize {
+        match self.kind {
+            Kind::Layer | Kind::Rms => plane,
+            Kind::Batch => plane % self.channels,
+            Kind::Group => {
+                let per_group = self.channels / self.groups;
+                plane / self.channels * self.groups + plane % self.channels / per_group
+            }
         }
     }
 
-    /// Flat index of element k of `lane`.
+    /// The planes of `lane`, in order.
+    fn planes_of(self, lane: usize) -> impl Iterator<Item = usize> {
+        let (first, step, count) = match self.kind {
+            Kind::Layer | Kind::Rms => (lane, 1, 1),
+            Kind::Batch => (lane, self.channels, self.planes / self.channels),
+            Kind::Group => {
+                let per_group = self.channels / self.groups;
+                (lane * per_group, 1, per_group)
+            }
+        };
+        (0..count).map(move |k| first + k * step)
+    }
+
+    /// The weight element of element k of plane `plane`.
     #[inline]
-    fn element(self, lane: usize, k: usize) -> usize {
-        match self {
-            Lanes::Channels {
-                channels, spatial, ..
-            } => (k / spatial * channels + lane) * spatial + k % spatial,
-            _ => lane * self.length() + k,
+    fn weight(self, plane: usize, k: usize) -> usize {
+        match self.kind {
+            Kind::Layer | Kind::Rms => k,
+            Kind::Batch | Kind::Group => plane % self.channels,
         }
     }
 
-    /// The weight element that element k of `lane` uses.
-    #[inline]
-    fn weight(self, lane: usize, k: usize) -> usize {
-        match self {
-            Lanes::Trailing { .. } => k,
-            Lanes::Channels { .. } => lane,
-            Lanes::Groups {
-                groups,
-                per_group,
-                spatial,
-                ..
-            } => (lane % groups) * per_group + k / spatial,
-        }
+    /// The elements of `lane`, plane by plane, as slices of `data`.
+    fn slices(self, data: &[f64], lane: usize) -> impl Iterator<Item = &[f64]> {
+        self.planes_of(lane)
+            .map(move |plane| &data[plane * self.size..(plane + 1) * self.size])
     }
 }
 
@@ -239,55 +242,36 @@ fn shape(kind: Kind, inputs: &[&[usize]], attrs: &Attrs) -> Result<Vec<usize>, S
     Ok(x.to_vec())
 }
 
-/// One lane's statistics in the accumulation dtype: the mean (0 for
-/// rms_norm) and r = 1/√(σ² + ε).
-fn statistics(kind: Kind, p: Precision, lane: &[f64], eps: f64) -> (f64, f64) {
-    let n = lane.len() as f64;
-    let mean = if kind.centred() {
-        p.acc(p.sum(lane.iter().copied()) / n)
-    } else {
-        0.0
-    };
-    let squares = lane.iter().map(|&x| {
-        let d = p.acc(x - mean);
-        p.acc(d * d)
-    });
-    let variance = p.acc(p.sum(squares) / n);
-    (mean, p.acc(1.0 / p.acc(p.acc(variance + eps).sqrt())))
-}
-
-/// The normalised values x̂ of every lane, in lane order, with each lane's r.
-struct Normalised {
-    lanes: Lanes,
-    /// x̂, lane by lane (element k of lane l at l · length + k).
-    hat: Vec<f64>,
-    /// r per lane.
-    rstd: Vec<f64>,
-}
-
-fn normalise(kind: Kind, x: &Value, attrs: &Attrs, p: Precision) -> Normalised {
-    let lanes = Lanes::of(kind, x.shape(), attrs);
-    let (count, length) = (lanes.count(), lanes.length());
-    let values = x.to_f64();
-    let eps = kind.eps(attrs);
-    let mut hat = vec![0.0; count * length];
-    let mut rstd = vec![0.0; count];
-    // Lanes are independent: split over them, never along a sum.
-    hat.par_chunks_mut(length.max(1))
-        .zip(rstd.par_iter_mut())
-        .enumerate()
-        .with_min_len(lane_batch(length))
-        .for_each(|(lane, (out, r))| {
-            let lane_values: Vec<f64> = (0..length)
-                .map(|k| values[lanes.element(lane, k)])
-                .collect();
-            let (mean, inverse) = statistics(kind, p, &lane_values, eps);
-            *r = inverse;
-            for (slot, &v) in out.iter_mut().zip(&lane_values) {
-                *slot = p.acc(p.acc(v - mean) * inverse);
+/// Per lane, in the accumulation dtype: the mean (0 for rms_norm) and
+/// r = 1/√(σ² + ε), split over lanes. Sums run in the lane's element order.
+fn statistics(kind: Kind, lanes: Lanes, x: &[f64], eps: f64, p: Precision) -> Vec<(f64, f64)> {
+    let n = lanes.length() as f64;
+    (0..lanes.count())
+        .into_par_iter()
+        .with_min_len(lane_batch(lanes.length()))
+        .map(|lane| {
+            let mut mean = 0.0;
+            if kind.centred() {
+                let mut sum: Option<f64> = None;
+                for slice in lanes.slices(x, lane) {
+                    for &v in slice {
+                        sum = Some(sum.map_or(v, |s| p.acc(s + v)));
+                    }
+                }
+                mean = p.acc(sum.unwrap_or(0.0) / n);
             }
-        });
-    Normalised { lanes, hat, rstd }
+            let mut squares: Option<f64> = None;
+            for slice in lanes.slices(x, lane) {
+                for &v in slice {
+                    let d = p.acc(v - mean);
+                    let square = p.acc(d * d);
+                    squares = Some(squares.map_or(square, |s| p.acc(s + square)));
+                }
+            }
+            let variance = p.acc(squares.unwrap_or(0.0) / n);
+            (mean, p.acc(1.0 / p.acc(p.acc(variance + eps).sqrt())))
+        })
+        .collect()
 }
 
 /// Lanes per task, so that a task holds at least a few thousand elements.
@@ -295,132 +279,277 @@ fn lane_batch(length: usize) -> usize {
     (4096 / length.max(1)).max(1)
 }
 
-/// An optional input, widened.
-type Widened<'a> = Option<std::borrow::Cow<'a, [f64]>>;
-
 /// The optional weight and bias, widened.
-fn affine<'a>(inputs: &'a [&'a Value]) -> (Widened<'a>, Widened<'a>) {
-    (
-        inputs.get(1).map(|w| w.to_f64()),
-        inputs.get(2).map(|b| b.to_f64()),
-    )
+fn affine(inputs: &[&Value]) -> [Option<Vec<f64>>; 2] {
+    [1, 2].map(|slot| inputs.get(slot).map(|v| v.to_f64().into_owned()))
+}
+
+/// x̂ of element `v` of a lane with statistics (mean, r).
+#[inline]
+fn hat(p: Precision, v: f64, (mean, r): (f64, f64)) -> f64 {
+    p.acc(p.acc(v - mean) * r)
+}
+
+/// Fills every plane of an output of x's shape, in parallel:
+/// `each(plane, lane, slot)` writes one plane.
+fn per_plane(lanes: Lanes, each: impl Fn(usize, usize, &mut [f64]) + Sync) -> Vec<f64> {
+    let mut out = vec![0.0; lanes.planes * lanes.size];
+    out.par_chunks_mut(lanes.size.max(1))
+        .enumerate()
+        .with_min_len(lane_batch(lanes.size))
+        .for_each(|(plane, slot)| each(plane, lanes.lane_of(plane), slot));
+    out
 }
 
 fn forward(kind: Kind, inputs: &[&Value], attrs: &Attrs, p: Precision) -> Value {
-    let x = inputs[0];
-    let normalised = normalise(kind, x, attrs, p);
-    let (weight, bias) = affine(inputs);
-    let lanes = normalised.lanes;
-    let length = lanes.length();
-    let mut out = vec![0.0; x.len()];
-    for (lane, hats) in normalised.hat.chunks(length.max(1)).enumerate() {
-        for (k, &h) in hats.iter().enumerate() {
-            let j = lanes.weight(lane, k);
-            let scaled = weight.as_ref().map_or(h, |w| p.acc(h * w[j]));
-            let shifted = bias.as_ref().map_or(scaled, |b| p.acc(scaled + b[j]));
-            out[lanes.element(lane, k)] = p.round(shifted);
-        }
+    let buffer = crate::in_accumulation_type!(p, forward_in(kind, inputs, attrs, p));
+    Value::from_buffer(inputs[0].shape().to_vec(), buffer)
+}
+
+/// Per lane, carried in `T`: the mean (0 for rms_norm) and r = 1/√(σ² + ε),
+/// each sum in the lane's element order, split over lanes.
+fn lane_statistics<T: Arith>(kind: Kind, lanes: Lanes, x: &[T], eps: f64, fix: Fix) -> Vec<(T, T)> {
+    let n = T::from_f64(lanes.length() as f64);
+    let (eps, one) = (T::from_f64(eps), T::from_f64(1.0));
+    (0..lanes.count())
+        .into_par_iter()
+        .with_min_len(lane_batch(lanes.length()))
+        .map(|lane| {
+            let planes = || {
+                lanes
+                    .planes_of(lane)
+                    .map(|plane| &x[plane * lanes.size..(plane + 1) * lanes.size])
+            };
+            let mut mean = T::default();
+            if kind.centred() {
+                let mut total = Running::default();
+                for slice in planes() {
+                    for &v in slice {
+                        total.add(fix, v);
+                    }
+                }
+                mean = fix.at(total.total / n);
+            }
+            let mut squares = Running::default();
+            for slice in planes() {
+                for &v in slice {
+                    let d = fix.at(v - mean);
+                    squares.add(fix, fix.at(d * d));
+                }
+            }
+            let variance = fix.at(squares.total / n);
+            (mean, fix.at(one / fix.at(fix.at(variance + eps).sqrt())))
+        })
+        .collect()
+}
+
+/// A running sum, each addition rounded; the first term taken as is (so
+/// that a lone −0 survives, as a framework's sum keeps it).
+#[derive(Default, Clone, Copy)]
+struct Running<T> {
+    total: T,
+    started: bool,
+}
+
+impl<T: Arith> Running<T> {
+    #[inline(always)]
+    fn add(&mut self, fix: Fix, v: T) {
+        self.total = if self.started {
+            fix.at(self.total + v)
+        } else {
+            v
+        };
+        self.started = true;
     }
-    Value::from_parts_in(p.dtype, x.shape().to_vec(), out)
+}
+
+/// A sequential sum, each addition rounded; the first term as is.
+#[inline]
+fn sum<T: Arith>(fix: Fix, mut values: impl Iterator<Item = T>) -> T {
+    let Some(mut total) = values.next() else {
+        return T::default();
+    };
+    for v in values {
+        total = fix.at(total + v);
+    }
+    total
+}
+
+/// The optional weight and bias in the accumulation type.
+fn affine_in<'a, T: Arith>(inputs: &[&'a Value]) -> [Option<Cow<'a, [T]>>; 2] {
+    [1, 2].map(|slot| inputs.get(slot).map(|v| elements_as::<T>(v.elements())))
+}
+
+fn forward_in<T: Arith>(kind: Kind, inputs: &[&Value], attrs: &Attrs, p: Precision) -> Buffer {
+    let fix = Fix::of::<T>(p.accumulate);
+    let lanes = Lanes::of(kind, inputs[0].shape(), attrs);
+    let x = elements_as::<T>(inputs[0].elements());
+    let stats = lane_statistics(kind, lanes, &x, kind.eps(attrs), fix);
+    let [weight, bias] = affine_in::<T>(inputs);
+    let mut out = vec![T::default(); x.len()];
+    out.par_chunks_mut(lanes.size.max(1))
+        .enumerate()
+        .with_min_len(lane_batch(lanes.size))
+        .for_each(|(plane, slot)| {
+            let (mean, r) = stats[lanes.lane_of(plane)];
+            let source = &x[plane * lanes.size..(plane + 1) * lanes.size];
+            for (k, (y, &v)) in slot.iter_mut().zip(source).enumerate() {
+                let h = fix.at(fix.at(v - mean) * r);
+                let j = lanes.weight(plane, k);
+                let scaled = weight.as_ref().map_or(h, |w| fix.at(h * w[j]));
+                *y = bias.as_ref().map_or(scaled, |b| fix.at(scaled + b[j]));
+            }
+        });
+    Buffer::converted(T::buffer(out).elements(), p.dtype)
 }
 
 /// The contribution to x, the weight or the bias.
 fn vjp(kind: Kind, args: &VjpArgs) -> Value {
-    let (x, p) = (args.inputs[0], args.precision);
-    let normalised = normalise(kind, x, args.attrs, p);
-    let lanes = normalised.lanes;
-    let length = lanes.length();
-    let g = args.adjoint.to_f64();
-    if args.slot > 0 {
-        // Σ ȳ x̂ (weight) or Σ ȳ (bias) over the elements that use each parameter.
-        let target = args.inputs[args.slot];
-        let mut sums: Vec<Option<f64>> = vec![None; target.len()];
-        for (lane, hats) in normalised.hat.chunks(length.max(1)).enumerate() {
-            for (k, &h) in hats.iter().enumerate() {
-                let gi = g[lanes.element(lane, k)];
-                let term = if args.slot == 1 { p.acc(gi * h) } else { gi };
-                let slot = &mut sums[lanes.weight(lane, k)];
-                *slot = Some(slot.map_or(term, |s| p.acc(s + term)));
-            }
-        }
-        let data = sums
-            .into_iter()
-            .map(|s| p.round(s.unwrap_or(0.0)))
-            .collect();
-        return Value::from_parts_in(p.dtype, target.shape().to_vec(), data);
+    let buffer = crate::in_accumulation_type!(args.precision, vjp_in(kind, args));
+    Value::from_buffer(args.inputs[args.slot].shape().to_vec(), buffer)
+}
+
+fn vjp_in<T: Arith>(kind: Kind, args: &VjpArgs) -> Buffer {
+    let p = args.precision;
+    let fix = Fix::of::<T>(p.accumulate);
+    let lanes = Lanes::of(kind, args.inputs[0].shape(), args.attrs);
+    let g = elements_as::<T>(args.adjoint.elements());
+    let done = |out: Vec<T>| Buffer::converted(T::buffer(out).elements(), p.dtype);
+    if args.slot == 2 {
+        return done(weight_sums(lanes, args.inputs[2].len(), fix, |i, _| g[i]));
     }
-    let (weight, _) = affine(args.inputs);
-    let n = length as f64;
-    let mut out = vec![0.0; x.len()];
-    let rows: Vec<Vec<(usize, f64)>> = normalised
-        .hat
-        .par_chunks(length.max(1))
-        .enumerate()
-        .with_min_len(lane_batch(length))
-        .map(|(lane, hats)| {
-            let ghat: Vec<f64> = (0..length)
-                .map(|k| {
-                    let gi = g[lanes.element(lane, k)];
-                    weight
-                        .as_ref()
-                        .map_or(gi, |w| p.acc(gi * w[lanes.weight(lane, k)]))
-                })
-                .collect();
+    let x = elements_as::<T>(args.inputs[0].elements());
+    let stats = lane_statistics(kind, lanes, &x, kind.eps(args.attrs), fix);
+    let hat = |i: usize, (mean, r): (T, T)| fix.at(fix.at(x[i] - mean) * r);
+    if args.slot == 1 {
+        return done(weight_sums(lanes, args.inputs[1].len(), fix, |i, lane| {
+            fix.at(g[i] * hat(i, stats[lane]))
+        }));
+    }
+    let [weight, _] = affine_in::<T>(args.inputs);
+    let ghat = |i: usize, j: usize| weight.as_ref().map_or(g[i], |w| fix.at(g[i] * w[j]));
+    let n = T::from_f64(lanes.length() as f64);
+    // Per lane: mean(ĝ) and mean(ĝ x̂), both sums in the lane's element order.
+    let means: Vec<(T, T)> = (0..lanes.count())
+        .into_par_iter()
+        .with_min_len(lane_batch(lanes.length()))
+        .map(|lane| {
+            let (mut sum_g, mut sum_gh) = (Running::default(), Running::default());
+            for plane in lanes.planes_of(lane) {
+                for k in 0..lanes.size {
+                    let i = plane * lanes.size + k;
+                    let gh = ghat(i, lanes.weight(plane, k));
+                    sum_g.add(fix, gh);
+                    sum_gh.add(fix, fix.at(gh * hat(i, stats[lane])));
+                }
+            }
             let mean_g = if kind.centred() {
-                p.acc(p.sum(ghat.iter().copied()) / n)
+                fix.at(sum_g.total / n)
             } else {
-                0.0
+                T::default()
             };
-            let mean_gh = p.acc(p.sum(ghat.iter().zip(hats).map(|(&a, &h)| p.acc(a * h))) / n);
-            let r = normalised.rstd[lane];
-            (0..length)
-                .map(|k| {
-                    let inner = p.acc(p.acc(ghat[k] - mean_g) - p.acc(hats[k] * mean_gh));
-                    (lanes.element(lane, k), p.round(p.acc(r * inner)))
-                })
-                .collect()
+            (mean_g, fix.at(sum_gh.total / n))
         })
         .collect();
-    for (index, value) in rows.into_iter().flatten() {
-        out[index] = value;
+    let mut out = vec![T::default(); x.len()];
+    out.par_chunks_mut(lanes.size.max(1))
+        .enumerate()
+        .with_min_len(lane_batch(lanes.size))
+        .for_each(|(plane, slot)| {
+            let lane = lanes.lane_of(plane);
+            let (mean_g, mean_gh) = means[lane];
+            let r = stats[lane].1;
+            for (k, y) in slot.iter_mut().enumerate() {
+                let i = plane * lanes.size + k;
+                let h = hat(i, stats[lane]);
+                let inner =
+                    fix.at(fix.at(ghat(i, lanes.weight(plane, k)) - mean_g) - fix.at(h * mean_gh));
+                *y = fix.at(r * inner);
+            }
+        });
+    done(out)
+}
+
+/// Σ of `term(element, lane)` over the elements that use each weight
+/// element, carried in `T`, in order of the planes.
+fn weight_sums<T: Arith>(
+    lanes: Lanes,
+    len: usize,
+    fix: Fix,
+    term: impl Fn(usize, usize) -> T + Sync,
+) -> Vec<T> {
+    match lanes.kind {
+        // Weight element k is element k of every plane: split over k.
+        Kind::Layer | Kind::Rms => (0..len)
+            .into_par_iter()
+            .with_min_len(64)
+            .map(|k| {
+                sum(
+                    fix,
+                    (0..lanes.planes).map(|plane| term(plane * lanes.size + k, plane)),
+                )
+            })
+            .collect(),
+        // Weight element c is every element of the planes of channel c.
+        Kind::Batch | Kind::Group => (0..len)
+            .into_par_iter()
+            .map(|channel| {
+                let term = &term;
+                let planes = (channel..lanes.planes).step_by(lanes.channels);
+                let elements = planes.flat_map(|plane| {
+                    let lane = lanes.lane_of(plane);
+                    (plane * lanes.size..(plane + 1) * lanes.size).map(move |i| term(i, lane))
+                });
+                sum(fix, elements)
+            })
+            .collect(),
     }
-    Value::from_parts_in(p.dtype, x.shape().to_vec(), out)
 }
 
 /// ẏ = w ẋ̂ + ẇ x̂ + ḃ, with ẋ̂ = r (ẋ − mean(ẋ) − x̂ mean(x̂ ẋ)).
 fn jvp(kind: Kind, args: &JvpArgs) -> Value {
     let (x, p) = (args.inputs[0], args.precision);
-    let normalised = normalise(kind, x, args.attrs, p);
-    let lanes = normalised.lanes;
-    let length = lanes.length();
-    let n = length as f64;
-    let (weight, _) = affine(args.inputs);
+    let lanes = Lanes::of(kind, x.shape(), args.attrs);
+    let values = x.to_f64();
     let t = args.tangents[0].to_f64();
+    let stats = statistics(kind, lanes, &values, kind.eps(args.attrs), p);
+    let [weight, _] = affine(args.inputs);
     let weight_tangent = args.tangents.get(1).map(|v| v.to_f64());
     let bias_tangent = args.tangents.get(2).map(|v| v.to_f64());
-    let mut out = vec![0.0; x.len()];
-    for (lane, hats) in normalised.hat.chunks(length.max(1)).enumerate() {
-        let ts: Vec<f64> = (0..length).map(|k| t[lanes.element(lane, k)]).collect();
-        let mean_t = if kind.centred() {
-            p.acc(p.sum(ts.iter().copied()) / n)
-        } else {
-            0.0
-        };
-        let mean_ht = p.acc(p.sum(ts.iter().zip(hats).map(|(&a, &h)| p.acc(a * h))) / n);
-        let r = normalised.rstd[lane];
-        for k in 0..length {
-            let j = lanes.weight(lane, k);
-            let hat_dot = p.acc(r * p.acc(p.acc(ts[k] - mean_t) - p.acc(hats[k] * mean_ht)));
+    let n = lanes.length() as f64;
+    let means: Vec<(f64, f64)> = (0..lanes.count())
+        .map(|lane| {
+            let mean_t = if kind.centred() {
+                p.acc(p.sum(lanes.slices(&t, lane).flatten().copied()) / n)
+            } else {
+                0.0
+            };
+            let products = lanes
+                .slices(&t, lane)
+                .flatten()
+                .zip(lanes.slices(&values, lane).flatten())
+                .map(|(&ti, &v)| p.acc(ti * hat(p, v, stats[lane])));
+            (mean_t, p.acc(p.sum(products) / n))
+        })
+        .collect();
+    let out = per_plane(lanes, |plane, lane, slot| {
+        let (mean_t, mean_ht) = means[lane];
+        let r = stats[lane].1;
+        for (k, y) in slot.iter_mut().enumerate() {
+            let i = plane * lanes.size + k;
+            let j = lanes.weight(plane, k);
+            let h = hat(p, values[i], stats[lane]);
+            let hat_dot = p.acc(r * p.acc(p.acc(t[i] - mean_t) - p.acc(h * mean_ht)));
             let mut total = weight.as_ref().map_or(hat_dot, |w| p.acc(w[j] * hat_dot));
             if let Some(wt) = &weight_tangent {
-                total = p.acc(total + p.acc(wt[j] * hats[k]));
+                total = p.acc(total + p.acc(wt[j] * h));
             }
             if let Some(bt) = &bias_tangent {
                 total = p.acc(total + bt[j]);
             }
-            out[lanes.element(lane, k)] = p.round(total);
+            *y = p.round(total);
         }
-    }
+    });
     Value::from_parts_in(p.dtype, x.shape().to_vec(), out)
 }
 

@@ -5,10 +5,11 @@
 //! is split over them; overlapping windows add up in a fixed order.
 
 use super::conv::{output_size, spatial};
+use super::kernels::arith::{Arith, Fix};
 use super::kernels::im2col::Window;
 use super::{Attrs, JvpArgs, Precision, StructuredRule, VjpArgs};
 use crate::format::shape as show;
-use crate::tensor::Value;
+use crate::tensor::{Buffer, Value, elements_as};
 use rayon::prelude::*;
 
 /// Maximum over each window.
@@ -86,25 +87,35 @@ fn taps(window: &Window, oy: usize, ox: usize) -> impl Iterator<Item = usize> + 
     })
 }
 
-/// The in-plane index of each window's first maximum (NaN wins, as it propagates).
-fn winners(window: &Window, plane: &[f64]) -> Vec<usize> {
-    let mut out = Vec::with_capacity(window.positions());
+/// The in-plane index of each window's first maximum (NaN wins, as it
+/// propagates), written into `out` (one per output position).
+fn winners_into<T: Arith>(window: &Window, plane: &[T], out: &mut [usize]) {
+    #[allow(clippy::eq_op)]
+    let is_nan = |v: T| v != v;
     for oy in 0..window.out_h {
         for ox in 0..window.out_w {
-            let mut best: Option<(f64, usize)> = None;
-            for index in taps(window, oy, ox) {
-                let v = plane[index];
-                let better = match best {
-                    None => true,
-                    Some((b, _)) => !b.is_nan() && (v > b || v.is_nan()),
-                };
-                if better {
-                    best = Some((v, index));
+            let mut best = T::default();
+            let mut winner = usize::MAX;
+            for i in 0..window.kh {
+                let Some(y) = window.row(oy, i) else { continue };
+                for j in 0..window.kw {
+                    let Some(x) = window.col(ox, j) else { continue };
+                    let index = y * window.in_w + x;
+                    let v = plane[index];
+                    if winner == usize::MAX || (!is_nan(best) && (v > best || is_nan(v))) {
+                        best = v;
+                        winner = index;
+                    }
                 }
             }
-            out.push(best.map_or(0, |(_, index)| index));
+            out[oy * window.out_w + ox] = if winner == usize::MAX { 0 } else { winner };
         }
     }
+}
+
+fn winners(window: &Window, plane: &[f64]) -> Vec<usize> {
+    let mut out = vec![0; window.positions()];
+    winners_into(window, plane, &mut out);
     out
 }
 
@@ -172,22 +183,49 @@ fn scatter(
     Value::from_parts_in(p.dtype, x.shape().to_vec(), out)
 }
 
-/// Each window's first maximum receives the window's adjoint.
+/// Each window's first maximum receives the window's adjoint (windows
+/// that overlap add up in order of the output positions).
 fn max_vjp(args: &VjpArgs) -> Value {
+    let buffer = crate::in_accumulation_type!(args.precision, max_vjp_in(args));
+    Value::from_buffer(args.inputs[0].shape().to_vec(), buffer)
+}
+
+fn max_vjp_in<T: Arith>(args: &VjpArgs) -> Buffer {
     let (window, _) = checked(true, args.inputs[0], args.attrs);
-    scatter(args, &window, |plane, position, send| {
-        let (oy, ox) = (position / window.out_w, position % window.out_w);
-        let mut best: Option<(f64, usize)> = None;
-        for index in taps(&window, oy, ox) {
-            let v = plane[index];
-            if best.is_none_or(|(b, _)| !b.is_nan() && (v > b || v.is_nan())) {
-                best = Some((v, index));
+    let p = args.precision;
+    let fix = Fix::of::<T>(p.accumulate);
+    let values = elements_as::<T>(args.inputs[0].elements());
+    let g = elements_as::<T>(args.adjoint.elements());
+    let (plane_len, positions) = (window.plane(), window.positions());
+    let span = |k: usize, d: usize| d * (k - 1) + 1;
+    let overlapping = window.stride.0 < span(window.kh, window.dilation.0)
+        || window.stride.1 < span(window.kw, window.dilation.1);
+    let mut out = vec![T::default(); values.len()];
+    out.par_chunks_mut(plane_len.max(1))
+        .enumerate()
+        .for_each(|(plane, slot)| {
+            let input = &values[plane * plane_len..(plane + 1) * plane_len];
+            let adjoint = &g[plane * positions..(plane + 1) * positions];
+            let mut won = vec![0; positions];
+            winners_into(&window, input, &mut won);
+            if overlapping {
+                let mut touched = vec![false; plane_len];
+                for (&index, &a) in won.iter().zip(adjoint) {
+                    slot[index] = if touched[index] {
+                        fix.at(slot[index] + a)
+                    } else {
+                        a
+                    };
+                    touched[index] = true;
+                }
+            } else {
+                // Windows apart: each element wins at most once.
+                for (&index, &a) in won.iter().zip(adjoint) {
+                    slot[index] = a;
+                }
             }
-        }
-        if let Some((_, index)) = best {
-            send(index, 1.0);
-        }
-    })
+        });
+    Buffer::converted(T::buffer(out).elements(), p.dtype)
 }
 
 fn max_jvp(args: &JvpArgs) -> Value {
