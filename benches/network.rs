@@ -12,6 +12,11 @@
 //! found: `$EBB_PYTHON`, then `~/.cache/ebb-venv/bin/python`, then `python3`.
 //!
 //! `cargo bench --bench network [-- NAME ...] [--repeats N]`
+//!
+//! `cargo bench --bench network -- ops [--repeats N]` instead times the
+//! structured ops alone at the networks' sizes in f32 (forward, then each
+//! input's vector-Jacobian product; minimum over the repeats), to weigh a
+//! change to a kernel before and after.
 
 use ebb::demos::networks::Network;
 use ebb::diagnose::{Settings, diagnose};
@@ -168,6 +173,119 @@ fn peer(python: &Path, network: Network, threads: usize, repeats: usize) -> Opti
     ))
 }
 
+/// The structured ops of the CNN and the transformer stack at their sizes:
+/// forward and each vector-Jacobian product, minimum of `repeats` runs.
+fn ops_alone(repeats: usize) {
+    use ebb::ops::{self, Attrs, Op, Precision, VjpArgs};
+    use ebb::tensor::Value;
+    let p = Precision::of(Dtype::F32);
+    let mut state = 0x5eed_u64;
+    let mut filled = |shape: &[usize]| {
+        let data = (0..shape.iter().product())
+            .map(|_| {
+                state = state
+                    .wrapping_mul(6364136223846793005)
+                    .wrapping_add(1442695040888963407);
+                (state >> 11) as f64 / (1u64 << 53) as f64 * 2.0 - 1.0
+            })
+            .collect();
+        Value::from_parts(shape.to_vec(), data).stored_as(Dtype::F32)
+    };
+    let attrs = |padding: Option<usize>, kernel: Option<usize>| Attrs {
+        padding: padding.map(|p| vec![p]),
+        kernel: kernel.map(|k| vec![k]),
+        stride: kernel.map(|k| vec![k]),
+        ..Attrs::default()
+    };
+    let conv = attrs(Some(1), None);
+    let pool = attrs(None, Some(2));
+    let plain = Attrs::default();
+    let cases: Vec<(&str, Op, Vec<Value>, &Attrs)> = vec![
+        (
+            "conv2d 3→32 on 32×3×32×32",
+            Op::Conv2d,
+            vec![
+                filled(&[32, 3, 32, 32]),
+                filled(&[32, 3, 3, 3]),
+                filled(&[32]),
+            ],
+            &conv,
+        ),
+        (
+            "conv2d 32→64 on 32×32×16×16",
+            Op::Conv2d,
+            vec![
+                filled(&[32, 32, 16, 16]),
+                filled(&[64, 32, 3, 3]),
+                filled(&[64]),
+            ],
+            &conv,
+        ),
+        (
+            "conv2d 64→128 on 32×64×8×8",
+            Op::Conv2d,
+            vec![
+                filled(&[32, 64, 8, 8]),
+                filled(&[128, 64, 3, 3]),
+                filled(&[128]),
+            ],
+            &conv,
+        ),
+        (
+            "batch_norm 32×32×32×32",
+            Op::BatchNorm,
+            vec![filled(&[32, 32, 32, 32]), filled(&[32]), filled(&[32])],
+            &plain,
+        ),
+        (
+            "batch_norm 32×64×16×16",
+            Op::BatchNorm,
+            vec![filled(&[32, 64, 16, 16]), filled(&[64]), filled(&[64])],
+            &plain,
+        ),
+        (
+            "max_pool2d 2 on 32×32×32×32",
+            Op::MaxPool2d,
+            vec![filled(&[32, 32, 32, 32])],
+            &pool,
+        ),
+        (
+            "layer_norm 8×128×256",
+            Op::LayerNorm,
+            vec![filled(&[8, 128, 256]), filled(&[256]), filled(&[256])],
+            &plain,
+        ),
+    ];
+    println!(
+        "{:<32} {:>12}  vector-Jacobian products by input (min of {repeats})",
+        "op", "forward"
+    );
+    for (label, op, inputs, attrs) in &cases {
+        let inputs: Vec<&Value> = inputs.iter().collect();
+        let output = ops::forward(*op, &inputs, attrs, p);
+        let (forward, _) = timed(repeats, || {
+            std::hint::black_box(ops::forward(*op, &inputs, attrs, p));
+        });
+        let products: Vec<String> = (0..inputs.len())
+            .map(|slot| {
+                let args = VjpArgs {
+                    slot,
+                    inputs: &inputs,
+                    output: &output,
+                    adjoint: &output,
+                    attrs,
+                    precision: p,
+                };
+                let (min, _) = timed(repeats, || {
+                    std::hint::black_box(ops::vjp(*op, &args));
+                });
+                ms(min)
+            })
+            .collect();
+        println!("{label:<32} {:>12}  {}", ms(forward), products.join(" / "));
+    }
+}
+
 fn main() {
     let args: Vec<String> = std::env::args().collect();
     if let Some(at) = args.iter().position(|arg| arg == "--memory-child") {
@@ -178,6 +296,9 @@ fn main() {
         .position(|arg| arg == "--repeats")
         .and_then(|at| args.get(at + 1)?.parse().ok())
         .unwrap_or(10);
+    if args.iter().any(|arg| arg == "ops") {
+        return ops_alone(repeats);
+    }
     // Arguments naming networks choose them (cargo adds `--bench` of its own).
     let named: Vec<Network> = Network::ALL
         .into_iter()
@@ -208,6 +329,20 @@ fn main() {
             trace.nodes().len(),
             bytes as f64 / 1e6
         );
+        // The sweep must run clean and the recorded values must be the op
+        // table's own: a bench of a broken trace would time the wrong thing.
+        let mut sweep = Sweep::new(&trace, LedgerMode::Off);
+        sweep.run_to_end();
+        let forward_start = Instant::now();
+        let forward = ebb::diagnose::check_forward(&trace, 1.0);
+        println!(
+            "  sweep flags: {}; forward consistency: {} nodes recomputed, {} beyond tolerance ({})",
+            sweep.flags().len(),
+            forward.checked,
+            forward.mismatches.len(),
+            ms(forward_start.elapsed())
+        );
+        drop(sweep);
         let (off_min, off_median) = timed(repeats, || {
             let mut sweep = Sweep::new(&trace, LedgerMode::Off);
             sweep.run_to_end();

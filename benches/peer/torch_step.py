@@ -6,7 +6,7 @@ weights; timing does not depend on them), runs forward and backward
 the minimum and median seconds of the forward pass and of `loss.backward()`.
 
 Run by the benchmark when a Python with torch is found; by hand:
-    python benches/peer/torch_step.py --threads 2 --repeats 20 mlp deep_tanh
+    python benches/peer/torch_step.py --threads 2 --repeats 20 mlp deep_tanh cnn transformer_stack
 """
 
 from __future__ import annotations
@@ -44,7 +44,95 @@ def deep_tanh() -> tuple[nn.Module, Callable[[torch.Tensor], torch.Tensor], torc
     return model, lambda out: nn.functional.mse_loss(out, target), x
 
 
-NETWORKS = {"mlp": mlp, "deep_tanh": deep_tanh}
+class Cnn(nn.Module):
+    """Three 3x3 convolutions (32, 64, 128 channels, padding 1), batch
+    normalisation (training mode), ReLU and 2x2 max pooling after the first
+    two, ReLU after the third, global average pooling, a linear head."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.conv1 = nn.Conv2d(3, 32, 3, padding=1)
+        self.bn1 = nn.BatchNorm2d(32)
+        self.conv2 = nn.Conv2d(32, 64, 3, padding=1)
+        self.bn2 = nn.BatchNorm2d(64)
+        self.conv3 = nn.Conv2d(64, 128, 3, padding=1)
+        self.head = nn.Linear(128, 10)
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        f = nn.functional
+        x = f.max_pool2d(f.relu(self.bn1(self.conv1(x))), 2)
+        x = f.max_pool2d(f.relu(self.bn2(self.conv2(x))), 2)
+        x = f.relu(self.conv3(x))
+        return self.head(x.mean(dim=(2, 3)))
+
+
+def cnn() -> tuple[nn.Module, Callable[[torch.Tensor], torch.Tensor], torch.Tensor]:
+    model = Cnn().train()
+    x = torch.randn(32, 3, 32, 32)
+    targets = torch.randint(0, 10, (32,))
+    f = nn.functional
+    return model, lambda out: f.nll_loss(f.log_softmax(out, dim=-1), targets), x
+
+
+class Block(nn.Module):
+    """A pre-norm transformer block written out as the Rust recorder writes
+    it: x + attention(layer_norm(x)), then x + ff(layer_norm(x)), attention
+    as softmax(Q K^T / sqrt(d_head)) V (no fused kernel), exact GELU."""
+
+    def __init__(self, width: int, heads: int, hidden: int) -> None:
+        super().__init__()
+        self.heads = heads
+        self.ln1 = nn.LayerNorm(width)
+        self.q = nn.Linear(width, width)
+        self.k = nn.Linear(width, width)
+        self.v = nn.Linear(width, width)
+        self.o = nn.Linear(width, width)
+        self.ln2 = nn.LayerNorm(width)
+        self.up = nn.Linear(width, hidden)
+        self.down = nn.Linear(hidden, width)
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        batch, tokens, width = x.shape
+        head = width // self.heads
+        a = self.ln1(x)
+
+        def split(t: torch.Tensor) -> torch.Tensor:
+            return t.view(batch, tokens, self.heads, head).transpose(1, 2)
+
+        q, k, v = split(self.q(a)), split(self.k(a)), split(self.v(a))
+        weights = torch.softmax(q @ k.transpose(-2, -1) * head**-0.5, dim=-1)
+        mixed = (weights @ v).transpose(1, 2).reshape(batch, tokens, width)
+        x = x + self.o(mixed)
+        return x + self.down(nn.functional.gelu(self.up(self.ln2(x))))
+
+
+class TransformerStack(nn.Module):
+    """Four blocks (width 256, 4 heads, feed-forward 1024), a final layer
+    norm, the mean over the sequence and a linear head onto 10 classes."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.blocks = nn.Sequential(*[Block(256, 4, 1024) for _ in range(4)])
+        self.ln = nn.LayerNorm(256)
+        self.head = nn.Linear(256, 10)
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        return self.head(self.ln(self.blocks(x)).mean(dim=1))
+
+
+def transformer_stack() -> tuple[nn.Module, Callable[[torch.Tensor], torch.Tensor], torch.Tensor]:
+    model = TransformerStack()
+    x = torch.randn(8, 128, 256)
+    targets = torch.randint(0, 10, (8,))
+    return model, lambda out: nn.functional.cross_entropy(out, targets), x
+
+
+NETWORKS = {
+    "mlp": mlp,
+    "deep_tanh": deep_tanh,
+    "cnn": cnn,
+    "transformer_stack": transformer_stack,
+}
 
 
 def time_network(name: str, repeats: int) -> dict[str, object]:

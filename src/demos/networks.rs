@@ -16,17 +16,34 @@ pub enum Network {
     Mlp,
     /// 32 tanh layers of 256 units on a batch of 64, mean-squared-error loss.
     DeepTanh,
+    /// A small image classifier: batch 32 of 3×32×32 through three 3×3
+    /// convolutions (32, 64, 128 channels), batch normalisation and 2×2 max
+    /// pooling after the first two, global average pooling, a linear head
+    /// onto 10 classes, log-softmax and nll_loss.
+    Cnn,
+    /// Four pre-norm transformer blocks (width 256, 4 heads, feed-forward
+    /// 1024 with exact GELU) on 8 sequences of 128 token vectors, a final
+    /// layer norm, the mean over the sequence, a linear head onto 10
+    /// classes and cross-entropy.
+    TransformerStack,
 }
 
 impl Network {
     /// Every network, in the order the benchmark reports them.
-    pub const ALL: [Network; 2] = [Network::Mlp, Network::DeepTanh];
+    pub const ALL: [Network; 4] = [
+        Network::Mlp,
+        Network::DeepTanh,
+        Network::Cnn,
+        Network::TransformerStack,
+    ];
 
     /// The name the benchmark and the peer script use.
     pub fn name(self) -> &'static str {
         match self {
             Network::Mlp => "mlp",
             Network::DeepTanh => "deep_tanh",
+            Network::Cnn => "cnn",
+            Network::TransformerStack => "transformer_stack",
         }
     }
 
@@ -35,6 +52,27 @@ impl Network {
         match self {
             Network::Mlp => mlp(256, &[784, 1024, 1024, 10], dtype),
             Network::DeepTanh => deep_tanh(64, 256, 32, dtype),
+            Network::Cnn => cnn(
+                Images {
+                    batch: 32,
+                    side: 32,
+                    channels: [32, 64, 128],
+                    classes: 10,
+                },
+                dtype,
+            ),
+            Network::TransformerStack => transformer_stack(
+                Blocks {
+                    batch: 8,
+                    tokens: 128,
+                    width: 256,
+                    heads: 4,
+                    hidden: 1024,
+                    layers: 4,
+                    classes: 10,
+                },
+                dtype,
+            ),
         }
     }
 }
@@ -127,9 +165,208 @@ pub fn deep_tanh(batch: usize, width: usize, depth: usize, dtype: Dtype) -> Trac
     tape.finish(loss)
 }
 
+/// The shape of [`cnn`]'s step.
+#[derive(Debug, Clone, Copy)]
+pub struct Images {
+    /// Images per batch.
+    pub batch: usize,
+    /// Height and width of each 3-channel image (a multiple of 4).
+    pub side: usize,
+    /// Output channels of the three convolutions.
+    pub channels: [usize; 3],
+    /// Classes of the head.
+    pub classes: usize,
+}
+
+/// A convolution's weight [out, in, k, k], uniform in ±√(6/(fan_in +
+/// fan_out)) with the fans counted over the kernel's taps, and its bias [out].
+fn conv_params(
+    tape: &mut Tape,
+    rng: &mut SplitMix64,
+    name: &str,
+    (inputs, outputs): (usize, usize),
+    kernel: usize,
+) -> (Var, Var) {
+    let taps = kernel * kernel;
+    let limit = glorot_limit(inputs * taps, outputs * taps);
+    let w = tape.param(
+        &format!("{name}.w"),
+        Value::from_parts(
+            vec![outputs, inputs, kernel, kernel],
+            rng.fill(outputs * inputs * taps, limit),
+        ),
+    );
+    let b = tape.param(
+        &format!("{name}.b"),
+        Value::from_parts(vec![outputs], rng.fill(outputs, 0.1)),
+    );
+    (w, b)
+}
+
+/// A normalisation's weight (ones, slightly perturbed so that its gradient
+/// check is not at a special point) and bias (small), each [width].
+fn norm_params(tape: &mut Tape, rng: &mut SplitMix64, name: &str, width: usize) -> (Var, Var) {
+    let ones: Vec<f64> = rng.fill(width, 0.1).iter().map(|v| 1.0 + v).collect();
+    let w = tape.param(&format!("{name}.w"), Value::from_parts(vec![width], ones));
+    let b = tape.param(
+        &format!("{name}.b"),
+        Value::from_parts(vec![width], rng.fill(width, 0.1)),
+    );
+    (w, b)
+}
+
+/// A small image classifier's training step on invented data (random
+/// images, random labels): conv 3×3 (padding 1) → batch norm (training
+/// mode) → ReLU → 2×2 max pool, twice; conv 3×3 → ReLU; the mean over the
+/// remaining (side/4)² positions; a linear head; log-softmax and the mean
+/// nll_loss, which together are cross-entropy.
+pub fn cnn(shape: Images, dtype: Dtype) -> TraceFile {
+    let Images {
+        batch,
+        side,
+        channels,
+        classes,
+    } = shape;
+    let mut rng = SplitMix64::new(0x636e_6e02);
+    let mut tape = Tape::new("cnn step", dtype);
+    tape.describe(
+        "A small image classifier: three 3x3 convolutions with batch normalisation, ReLU and max pooling, global average pooling and a linear head, on random images.",
+    );
+    let mut h = tape.input(
+        "images",
+        Value::from_parts(
+            vec![batch, 3, side, side],
+            rng.fill(batch * 3 * side * side, 1.0),
+        ),
+    );
+    let mut width = 3;
+    for (layer, &out) in channels.iter().enumerate() {
+        let name = format!("conv{}", layer + 1);
+        h = tape.scoped(&name, |tape| {
+            let (w, b) = conv_params(tape, &mut rng, &name, (width, out), 3);
+            let y = tape.conv2d(h, w, Some(b), 1, 1);
+            if layer + 1 == channels.len() {
+                return tape.relu(y);
+            }
+            let (gamma, beta) = norm_params(tape, &mut rng, &format!("{name}.bn"), out);
+            let y = tape.batch_norm(y, Some(gamma), Some(beta), 1e-5);
+            let y = tape.relu(y);
+            tape.max_pool2d(y, 2, 2)
+        });
+        width = out;
+    }
+    let positions = (side / 4) * (side / 4);
+    let flat = tape.reshape(h, &[batch, width, positions]);
+    let pooled = tape.mean_axis(flat, -1, false);
+    let logits = tape.scoped("head", |tape| {
+        dense(tape, &mut rng, pooled, width, classes, "head")
+    });
+    let log_probs = tape.log_softmax(logits, -1);
+    let labels: Vec<f64> = (0..batch).map(|_| rng.below(classes) as f64).collect();
+    let labels = tape.indices("labels", Value::from_parts(vec![batch], labels));
+    let loss = tape.nll_loss(log_probs, labels);
+    tape.finish(loss)
+}
+
+/// The shape of [`transformer_stack`]'s step.
+#[derive(Debug, Clone, Copy)]
+pub struct Blocks {
+    /// Sequences per batch.
+    pub batch: usize,
+    /// Tokens per sequence.
+    pub tokens: usize,
+    /// Model width.
+    pub width: usize,
+    /// Attention heads (each `width / heads` wide).
+    pub heads: usize,
+    /// Width of the feed-forward layer.
+    pub hidden: usize,
+    /// Blocks.
+    pub layers: usize,
+    /// Classes of the head.
+    pub classes: usize,
+}
+
+/// A layer normalisation over the last axis with its weight and bias.
+fn normed(tape: &mut Tape, rng: &mut SplitMix64, x: Var, width: usize, name: &str) -> Var {
+    let (w, b) = norm_params(tape, rng, name, width);
+    tape.layer_norm(x, Some(w), Some(b), 1e-5)
+}
+
+/// Pre-norm transformer blocks classifying invented sequences (random token
+/// vectors, random labels). Each block is x + attention(layer_norm(x)), then
+/// x + ff(layer_norm(x)) with ff = linear → GELU (exact, x Φ(x)) → linear.
+/// Attention is multi-head softmax(Q Kᵀ / √d_head) V with Q, K, V and output
+/// projections, heads split by reshape and permute. After the blocks: a
+/// layer norm, the mean over the sequence, a linear head and cross-entropy.
+pub fn transformer_stack(shape: Blocks, dtype: Dtype) -> TraceFile {
+    let Blocks {
+        batch,
+        tokens,
+        width,
+        heads,
+        hidden,
+        layers,
+        classes,
+    } = shape;
+    let head = width / heads;
+    let mut rng = SplitMix64::new(0x7472_616e_0002);
+    let mut tape = Tape::new("transformer stack step", dtype);
+    tape.describe(
+        "Pre-norm transformer blocks (multi-head attention, a GELU feed-forward layer, layer norms, residuals) classifying random token sequences.",
+    );
+    let mut h = tape.input(
+        "tokens",
+        Value::from_parts(
+            vec![batch, tokens, width],
+            rng.fill(batch * tokens * width, 1.0),
+        ),
+    );
+    let scale = tape.constant("scale", 1.0 / (head as f64).sqrt());
+    for layer in 0..layers {
+        let name = format!("block{}", layer + 1);
+        h = tape.scoped(&name, |tape| {
+            let a = normed(tape, &mut rng, h, width, &format!("{name}.ln1"));
+            let mut split = |tape: &mut Tape, what: &str| {
+                let projected = dense(tape, &mut rng, a, width, width, &format!("{name}.{what}"));
+                let parted = tape.reshape(projected, &[batch, tokens, heads, head]);
+                tape.permute(parted, &[0, 2, 1, 3])
+            };
+            let q = split(tape, "q");
+            let k = split(tape, "k");
+            let v = split(tape, "v");
+            let kt = tape.transpose(k);
+            let scores = tape.matmul(q, kt);
+            let scores = tape.mul(scores, scale);
+            let weights = tape.softmax(scores, -1);
+            let mixed = tape.matmul(weights, v);
+            let joined = tape.permute(mixed, &[0, 2, 1, 3]);
+            let joined = tape.reshape(joined, &[batch, tokens, width]);
+            let attended = dense(tape, &mut rng, joined, width, width, &format!("{name}.o"));
+            let h = tape.add(h, attended);
+            let m = normed(tape, &mut rng, h, width, &format!("{name}.ln2"));
+            let up = dense(tape, &mut rng, m, width, hidden, &format!("{name}.up"));
+            let up = tape.gelu(up);
+            let down = dense(tape, &mut rng, up, hidden, width, &format!("{name}.down"));
+            tape.add(h, down)
+        });
+    }
+    let logits = tape.scoped("head", |tape| {
+        let normed = normed(tape, &mut rng, h, width, "head.ln");
+        let pooled = tape.mean_axis(normed, 1, false);
+        dense(tape, &mut rng, pooled, width, classes, "head")
+    });
+    let labels: Vec<usize> = (0..batch).map(|_| rng.below(classes)).collect();
+    let loss = tape.cross_entropy(logits, &labels);
+    tape.finish(loss)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::diagnose::check_forward;
+    use crate::eval::reevaluate;
+    use crate::sweep::{LedgerMode, Sweep};
     use crate::trace::Trace;
 
     #[test]
@@ -140,5 +377,109 @@ mod tests {
         assert_eq!(trace.node(w).value.storage_dtype(), Dtype::F32);
         let trace = Trace::try_from(deep_tanh(2, 3, 4, Dtype::F64)).unwrap();
         assert_eq!(trace.params().count(), 8);
+    }
+
+    fn small_cnn(dtype: Dtype) -> TraceFile {
+        let shape = Images {
+            batch: 4,
+            side: 8,
+            channels: [3, 4, 5],
+            classes: 3,
+        };
+        cnn(shape, dtype)
+    }
+
+    fn small_stack(dtype: Dtype) -> TraceFile {
+        let shape = Blocks {
+            batch: 2,
+            tokens: 5,
+            width: 8,
+            heads: 2,
+            hidden: 16,
+            layers: 2,
+            classes: 3,
+        };
+        transformer_stack(shape, dtype)
+    }
+
+    /// The sweep raises no flag and every node's recorded value is what its
+    /// forward rule gives.
+    fn sweeps_cleanly(trace: &Trace) -> Sweep<'_> {
+        let mut sweep = Sweep::new(trace, LedgerMode::Off);
+        sweep.run_to_end();
+        assert!(sweep.flags().is_empty(), "flags: {:?}", sweep.flags());
+        let forward = check_forward(trace, 1.0);
+        assert!(forward.checked > 0);
+        assert!(forward.mismatches.is_empty(), "{:?}", forward.mismatches);
+        sweep
+    }
+
+    /// Sampled entries of every parameter's adjoint against central
+    /// differences of the loss, re-evaluated through the op table in f64.
+    /// Step h = ε^(1/3)·max(|x|, 1), which balances truncation error O(h²)
+    /// against rounding error O(ε/h) (Press, Teukolsky, Vetterling &
+    /// Flannery, "Numerical Recipes", 3rd ed., 2007, §5.7, eq. 5.7.8);
+    /// agreement to about ε^(2/3) is expected, 1e-7 allowed for curvature.
+    fn gradients_match_central_differences(file: TraceFile) {
+        let trace = Trace::try_from(file).unwrap();
+        let sweep = sweeps_cleanly(&trace);
+        let mut rng = SplitMix64::new(0xfd);
+        let mut checked = 0;
+        for param in trace.params() {
+            let value = &trace.node(param).value;
+            let adjoint = sweep.adjoint(param).expect("every parameter is reached");
+            for _ in 0..3 {
+                let k = rng.below(value.len());
+                let x = value.get(k);
+                let h = f64::EPSILON.cbrt() * x.abs().max(1.0);
+                let loss = |shift: f64| {
+                    let mut moved = value.clone();
+                    moved.set(k, x + shift);
+                    let values = reevaluate(&trace, &[(param, moved)], Dtype::F64).unwrap();
+                    values[trace.output()].as_scalar().unwrap()
+                };
+                let central = (loss(h) - loss(-h)) / (2.0 * h);
+                let reverse = adjoint.get(k);
+                assert!(
+                    (central - reverse).abs() <= 1e-7 * reverse.abs().max(1.0),
+                    "{} entry {k}: reverse {reverse}, central difference {central}",
+                    trace.node(param).id
+                );
+                assert!(reverse != 0.0 || central.abs() < 1e-9);
+                checked += 1;
+            }
+        }
+        assert!(checked >= 30, "only {checked} entries checked");
+    }
+
+    #[test]
+    fn cnn_gradients_match_central_differences() {
+        gradients_match_central_differences(small_cnn(Dtype::F64));
+    }
+
+    #[test]
+    fn transformer_stack_gradients_match_central_differences() {
+        gradients_match_central_differences(small_stack(Dtype::F64));
+    }
+
+    #[test]
+    fn small_instances_sweep_cleanly_in_f32() {
+        for file in [small_cnn(Dtype::F32), small_stack(Dtype::F32)] {
+            let trace = Trace::try_from(file).unwrap();
+            sweeps_cleanly(&trace);
+        }
+    }
+
+    #[test]
+    fn the_benchmark_networks_have_the_sizes_asked_for() {
+        let trace = Trace::try_from(Network::Cnn.record(Dtype::F32)).unwrap();
+        let w = trace.find("conv3.w").unwrap();
+        assert_eq!(trace.node(w).value.shape(), &[128, 64, 3, 3]);
+        let head = trace.find("head.w").unwrap();
+        assert_eq!(trace.node(head).value.shape(), &[128, 10]);
+        let trace = Trace::try_from(small_stack(Dtype::F32)).unwrap();
+        // Per block: two norms (w, b), five dense layers (w, b); then the
+        // final norm and the head.
+        assert_eq!(trace.params().count(), 2 * (4 + 12) + 4);
     }
 }
