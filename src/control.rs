@@ -40,6 +40,11 @@ impl<'a> Control<'a> {
         }
     }
 
+    /// The cancel flag, for a control of sub-work that reports its own way.
+    pub fn cancel(&self) -> Option<&'a AtomicBool> {
+        self.cancel
+    }
+
     /// True once cancellation has been asked for.
     pub fn is_cancelled(&self) -> bool {
         self.cancel.is_some_and(|flag| flag.load(Ordering::Relaxed))

@@ -8,6 +8,24 @@ use std::path::PathBuf;
 pub const TRACE_FORMS: &str = "The trace: .ron or .json (text, tensors inline or in the .safetensors sidecar its header names), or .tape (a RON header whose tensors live in NAME.safetensors beside it).";
 
 /// A rule name for `--fail-on`, or `any` / `none`.
+/// A size in bytes: a whole number with an optional K, M or G (powers of 1024).
+fn byte_size(text: &str) -> Result<usize, String> {
+    let text = text.trim();
+    let (digits, shift) = match text.char_indices().last() {
+        Some((at, 'K' | 'k')) => (&text[..at], 10),
+        Some((at, 'M' | 'm')) => (&text[..at], 20),
+        Some((at, 'G' | 'g')) => (&text[..at], 30),
+        _ => (text, 0),
+    };
+    digits
+        .parse::<usize>()
+        .ok()
+        .and_then(|n| n.checked_mul(1usize << shift))
+        .ok_or_else(|| {
+            format!("`{text}` is not a size (write bytes, or a number with K, M or G, e.g. 256M)")
+        })
+}
+
 fn rule_name(text: &str) -> Result<String, String> {
     let text = text.trim();
     if text == "any" || text == "none" || ebb::diagnose::Rule::from_name(text).is_some() {
@@ -63,6 +81,11 @@ pub enum Command {
         /// Override one diagnosis setting, as for `ebb check --set`; repeatable.
         #[arg(long = "set", value_name = "NAME=VALUE")]
         set: Vec<String>,
+        /// Bytes of tensor contributions each sweep's ledger keeps for stepping back, e.g. 256M
+        /// or 4G (default 512M). Beyond them it keeps checkpoints every 16 steps and steps back by
+        /// replaying from the nearest one: the same numbers, more time.
+        #[arg(long, value_name = "SIZE", value_parser = byte_size)]
+        ledger_budget: Option<usize>,
     },
     /// Load a trace, sweep it to the end, report gradients and flags.
     ///
@@ -94,9 +117,15 @@ pub enum Command {
         /// Override one setting, written as in a settings file; repeatable. Names: overflow_band,
         /// vanishing_below, exploding_above, vanishing_vs_seed, exploding_vs_seed, vanishing_vs_median,
         /// exploding_vs_median, gain_above, gain_below, subnormals, replay, lost_fraction, clip_norm,
-        /// forward_slack, saturated_below, saturated_fraction, dead_fraction, activation_growth, off.
+        /// forward_slack, saturated_below, saturated_fraction, dead_fraction, activation_growth,
+        /// ledger_budget, off.
         #[arg(long = "set", value_name = "NAME=VALUE")]
         set: Vec<String>,
+        /// Bytes of tensor contributions each sweep's ledger keeps for stepping back, e.g. 256M
+        /// or 4G (default 512M). Beyond them it keeps checkpoints every 16 steps and steps back by
+        /// replaying from the nearest one: the same numbers, more time.
+        #[arg(long, value_name = "SIZE", value_parser = byte_size)]
+        ledger_budget: Option<usize>,
     },
     /// Print the sweep step by step: each node, its adjoint, each contribution.
     ///
@@ -121,6 +150,11 @@ pub enum Command {
         /// Print the steps as JSON.
         #[arg(long)]
         json: bool,
+        /// Bytes of tensor contributions each sweep's ledger keeps for stepping back, e.g. 256M
+        /// or 4G (default 512M). Beyond them it keeps checkpoints every 16 steps and steps back by
+        /// replaying from the nearest one: the same numbers, more time.
+        #[arg(long, value_name = "SIZE", value_parser = byte_size)]
+        ledger_budget: Option<usize>,
     },
     /// Print every parameter's gradient in full precision, as JSON or into a safetensors file.
     ///

@@ -3,7 +3,8 @@
 
 use super::Outcome;
 use anyhow::{Context, Result};
-use ebb::diagnose::{Rule, Settings, diagnose};
+use ebb::control::Control;
+use ebb::diagnose::{Rule, Settings, diagnose_with};
 use ebb::report::{Report, TextOptions};
 use ebb::sweep::{LedgerMode, Sweep};
 use ebb::trace::Trace;
@@ -63,7 +64,12 @@ pub fn check(
     let own = settings.swept_trace(trace);
     let mut sweep = Sweep::new(&own, LedgerMode::Off);
     sweep.run_to_end();
-    let diagnosis = diagnose(trace, settings);
+    let diagnosis = {
+        let bar = super::progress::WorkBar::new();
+        let report = |stage: &str, fraction: f64| bar.report(stage, fraction);
+        diagnose_with(trace, settings, &Control::new(Some(&report), None))
+            .expect("nothing cancels the diagnosis")
+    };
     let report = Report::new(path, &sweep)
         .with_diagnosis(trace, &diagnosis)
         .with_fail_on(options.fail_on.as_deref());

@@ -3,7 +3,7 @@
 use super::Outcome;
 use anyhow::{Context, Result};
 use ebb::listing::{Selection, select_steps};
-use ebb::sweep::{LedgerMode, Sweep};
+use ebb::sweep::Sweep;
 use ebb::trace::Trace;
 use std::io::Write;
 
@@ -18,6 +18,8 @@ pub struct SweepOptions {
     pub node: Option<String>,
     /// JSON instead of text.
     pub json: bool,
+    /// Bytes of tensor contributions the ledger keeps.
+    pub ledger_budget: usize,
 }
 
 /// Lists the sweep of `trace`; flagged when the steps run raised a flag.
@@ -45,7 +47,7 @@ pub fn sweep(trace: &Trace, options: &SweepOptions, out: &mut dyn Write) -> Resu
         node,
         steps: options.steps.unwrap_or(usize::MAX),
     };
-    let mut sweep = Sweep::new(trace, LedgerMode::On);
+    let mut sweep = Sweep::with_budget(trace, options.ledger_budget);
     let listing = select_steps(&mut sweep, &selection);
     let text = if options.json {
         serde_json::to_string_pretty(&listing).expect("a listing always serialises") + "\n"

@@ -13,11 +13,12 @@ pub use args::{Cli, Command};
 
 use anyhow::{Context, Result};
 use clap::CommandFactory;
+use ebb::control::Control;
 use ebb::diagnose::Settings;
 use ebb::ops::CATALOG;
 use ebb::trace::{self, Encoding, LoadError, Trace};
 use ebb::tui::{self, KeyMap, Theme, ViewError};
-use ebb::verify::{Direction, VerifyOptions, verify};
+use ebb::verify::{Direction, VerifyOptions, verify_with};
 use std::io::{IsTerminal, Write};
 use std::path::Path;
 
@@ -69,10 +70,11 @@ fn dispatch(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
             keys,
             rules,
             set,
+            ledger_budget,
         }) => open(
             &trace,
             Look::of(theme.as_deref(), keys.as_deref())?,
-            settings(rules.as_deref(), &set)?,
+            settings(rules.as_deref(), &set, ledger_budget)?,
         ),
         Some(Command::Check {
             trace,
@@ -82,8 +84,9 @@ fn dispatch(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
             width,
             rules,
             set,
+            ledger_budget,
         }) => {
-            let settings = settings(rules.as_deref(), &set)?;
+            let settings = settings(rules.as_deref(), &set, ledger_budget)?;
             let options = check::CheckOptions {
                 json,
                 brief,
@@ -104,6 +107,7 @@ fn dispatch(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
             from,
             node,
             json,
+            ledger_budget,
         }) => {
             let loaded = load(&trace)?;
             warn_rounded(&trace, &loaded);
@@ -112,6 +116,7 @@ fn dispatch(cli: Cli, out: &mut dyn Write) -> Result<Outcome> {
                 from: from.map(|step| step as usize),
                 node,
                 json,
+                ledger_budget: ledger_budget.unwrap_or(ebb::sweep::DEFAULT_BUDGET),
             };
             listing::sweep(&loaded, &options, out)
         }
@@ -226,14 +231,22 @@ pub fn load_demo() -> Result<Trace> {
         .map_err(|error| BadInput(error).into())
 }
 
-/// The settings: defaults, then the file, then each `--set` in order.
-fn settings(rules: Option<&Path>, set: &[String]) -> Result<Settings> {
+/// The settings: defaults, then the file, then each `--set` in order, then
+/// `--ledger-budget`.
+fn settings(
+    rules: Option<&Path>,
+    set: &[String],
+    ledger_budget: Option<usize>,
+) -> Result<Settings> {
     let mut settings = match rules {
         Some(path) => Settings::load(path)?,
         None => Settings::default(),
     };
     for text in set {
         settings.apply(text)?;
+    }
+    if let Some(budget) = ledger_budget {
+        settings.ledger_budget = budget;
     }
     Ok(settings)
 }
@@ -270,7 +283,12 @@ fn verify_command(
     json: bool,
     out: &mut dyn Write,
 ) -> Result<Outcome> {
-    let verification = verify(trace, options);
+    let verification = {
+        let bar = progress::WorkBar::new();
+        let report = |stage: &str, fraction: f64| bar.report(stage, fraction);
+        verify_with(trace, options, &Control::new(Some(&report), None))
+            .expect("nothing cancels the verification")
+    };
     let text = if json {
         verification.to_json(trace) + "\n"
     } else {

@@ -71,3 +71,57 @@ pub fn for_trace(path: &Path) -> Box<dyn Progress> {
         ProgressDrawTarget::stderr(),
     )))
 }
+
+/// Work shorter than this finishes before a bar would help; longer work
+/// shows one from here on.
+const SHOW_AFTER: Duration = Duration::from_secs(1);
+
+/// A bar for long library work (a diagnosis, a verification), fed by a
+/// [`ebb::control::Control`]'s progress callback: drawn on stderr only when
+/// it is a terminal, and only once the work has run for [`SHOW_AFTER`].
+pub struct WorkBar {
+    bar: ProgressBar,
+    start: std::time::Instant,
+    terminal: bool,
+    shown: std::sync::atomic::AtomicBool,
+}
+
+impl WorkBar {
+    /// A bar, hidden until the work has run for a second.
+    pub fn new() -> WorkBar {
+        let bar = ProgressBar::with_draw_target(Some(1000), ProgressDrawTarget::hidden());
+        bar.set_style(
+            ProgressStyle::with_template("{msg:>14} [{bar:30}] {percent:>3}% {elapsed}")
+                .expect("a valid template")
+                .progress_chars("=> "),
+        );
+        WorkBar {
+            bar,
+            start: std::time::Instant::now(),
+            terminal: std::io::stderr().is_terminal(),
+            shown: std::sync::atomic::AtomicBool::new(false),
+        }
+    }
+
+    /// The progress callback: `fraction` (0 to 1) of `stage` done.
+    pub fn report(&self, stage: &str, fraction: f64) {
+        use std::sync::atomic::Ordering;
+        if self.terminal
+            && !self.shown.load(Ordering::Relaxed)
+            && self.start.elapsed() >= SHOW_AFTER
+            && !self.shown.swap(true, Ordering::Relaxed)
+        {
+            self.bar.set_draw_target(ProgressDrawTarget::stderr());
+        }
+        self.bar.set_message(stage.to_string());
+        self.bar
+            .set_position((fraction.clamp(0.0, 1.0) * 1000.0) as u64);
+    }
+}
+
+impl Drop for WorkBar {
+    /// Nothing of the bar stays on the terminal once the work is done.
+    fn drop(&mut self) {
+        self.bar.finish_and_clear();
+    }
+}

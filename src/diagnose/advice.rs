@@ -31,12 +31,20 @@ pub struct LossScale {
 /// The advice for adjoint entries `entries` (non-finite and zero entries are
 /// skipped); `None` when no entry is non-zero and finite.
 pub fn loss_scale(entries: &[f64], subnormals: Subnormals) -> Option<LossScale> {
-    let magnitudes: Vec<f64> = entries
-        .iter()
-        .map(|x| x.abs())
-        .filter(|x| x.is_finite() && *x > 0.0)
-        .collect();
-    let max_abs = magnitudes.iter().copied().fold(0.0f64, f64::max);
+    loss_scale_of(&[entries], subnormals)
+}
+
+/// [`loss_scale`] over entries held in several slices (every adjoint of a
+/// sweep), read in place.
+pub fn loss_scale_of(chunks: &[&[f64]], subnormals: Subnormals) -> Option<LossScale> {
+    let entries = || {
+        chunks
+            .iter()
+            .flat_map(|chunk| chunk.iter())
+            .map(|x| x.abs())
+            .filter(|x| x.is_finite() && *x > 0.0)
+    };
+    let (max_abs, nonzero) = entries().fold((0.0f64, 0usize), |(max, n), x| (max.max(x), n + 1));
     if max_abs == 0.0 {
         return None;
     }
@@ -51,21 +59,35 @@ pub fn loss_scale(entries: &[f64], subnormals: Subnormals) -> Option<LossScale> 
         exponent += 1;
     }
     let scale = scale_of(exponent);
-    let underflowing = |s: f64| {
-        magnitudes
-            .iter()
-            .filter(|&&x| Dtype::F16.round_with(s * x, subnormals) == 0.0)
-            .count() as f64
-            / magnitudes.len() as f64
-    };
+    // Rounding is monotone, so "rounds to zero in f16" is "below the smallest
+    // magnitude that does not": one comparison an entry.
+    let least = least_surviving(Dtype::F16, subnormals);
+    let underflowing =
+        |s: f64| entries().filter(|&x| s * x < least).count() as f64 / nonzero as f64;
     Some(LossScale {
         max_abs,
         exponent,
         scale,
-        nonzero: magnitudes.len(),
+        nonzero,
         underflow_unscaled: underflowing(1.0),
         underflow_scaled: underflowing(scale),
     })
+}
+
+/// The smallest positive f64 that `dtype` (with `subnormals`) does not round
+/// to zero, found by bisection over the bit patterns of positive numbers,
+/// which are ordered as the numbers are.
+fn least_surviving(dtype: Dtype, subnormals: Subnormals) -> f64 {
+    let (mut zero, mut survives) = (0u64, 1f64.to_bits());
+    while survives - zero > 1 {
+        let middle = zero + (survives - zero) / 2;
+        if dtype.round_with(f64::from_bits(middle), subnormals) == 0.0 {
+            zero = middle;
+        } else {
+            survives = middle;
+        }
+    }
+    f64::from_bits(survives)
 }
 
 /// What norm clipping at a threshold would do to the gradient.
@@ -135,4 +157,24 @@ pub struct Advice {
     pub node: Option<usize>,
     /// What to do, in one or two sentences.
     pub text: String,
+}
+
+#[cfg(test)]
+mod tests {
+    use super::least_surviving;
+    use crate::dtype::{Dtype, Subnormals};
+
+    /// IEEE 754-2019 binary16 (§3.6, Table 3.5): the smallest subnormal is
+    /// 2^-24, and round to nearest, ties to even sends exactly half of it,
+    /// 2^-25, to zero. Flushing subnormal results, the smallest survivor is
+    /// the one that rounds up to the smallest normal 2^-14: the midpoint
+    /// between it and the largest subnormal 2^-14 − 2^-24, a tie won by the
+    /// even 2^-14.
+    #[test]
+    fn the_least_surviving_f16_magnitudes() {
+        let keep = least_surviving(Dtype::F16, Subnormals::Keep);
+        assert_eq!(keep, f64::from_bits(2f64.powi(-25).to_bits() + 1));
+        let flush = least_surviving(Dtype::F16, Subnormals::Flush);
+        assert_eq!(flush, 2f64.powi(-14) - 2f64.powi(-25));
+    }
 }

@@ -34,7 +34,7 @@ pub mod replay;
 pub mod rules;
 pub mod settings;
 
-pub use advice::{Advice, ClipPreview, LossScale, Topic, loss_scale};
+pub use advice::{Advice, ClipPreview, LossScale, Topic, loss_scale, loss_scale_of};
 pub use forward::{ForwardCheck, Mismatch, check_forward};
 pub use groups::{GroupNorm, group_norms};
 pub use health::{DeadUnits, Saturation, activation_spread, dead_units, saturation};
@@ -48,11 +48,12 @@ pub use settings::{Settings, SettingsError};
 use crate::control::{Cancelled, Control};
 use crate::dtype::{Dtype, Subnormals};
 use crate::format::compact;
-use crate::sweep::{LedgerMode, Sweep};
+use crate::sweep::Sweep;
 use crate::trace::Trace;
 use origin::RootCauses;
 
 /// Findings and root causes of one sweep.
+#[derive(Clone)]
 struct SweepAnalysis {
     pub findings: Vec<Finding>,
     pub causes: RootCauses,
@@ -298,34 +299,48 @@ pub fn diagnose_with(
     settings: &Settings,
     control: &Control,
 ) -> Result<Diagnosis, Cancelled> {
-    let stages = 4.0 + settings.replay.len() as f64;
+    let stages = 5.0;
     let progress = |done: f64| control.progress("diagnosis", done / stages);
     progress(0.0);
     let own = settings.swept_trace(trace);
-    let mut sweep = Sweep::new(&own, LedgerMode::On);
-    sweep.run_to_end();
-    control.check()?;
+    let mut sweep = Sweep::with_budget(&own, settings.ledger_budget);
+    // A sub-stage's fraction of the sweep, as a fraction of the whole.
+    let within = |stage: f64| {
+        move |_: &str, done: f64| control.progress("diagnosis", (stage + done) / stages)
+    };
+    let own_progress = within(0.0);
+    sweep.run_to_end_with(
+        &Control::new(Some(&own_progress), control.cancel()),
+        "sweep",
+    )?;
     progress(1.0);
     let is_reference = trace.dtype() == Dtype::F64 && settings.subnormals == Subnormals::Keep;
     let reference_trace;
     let mut reference_sweep = None;
     if !is_reference {
         reference_trace = trace.retyped(Dtype::F64, Subnormals::Keep);
-        let mut reference = Sweep::new(&reference_trace, LedgerMode::On);
-        reference.run_to_end();
+        let mut reference = Sweep::with_budget(&reference_trace, settings.ledger_budget);
+        let reference_progress = within(1.0);
+        reference.run_to_end_with(
+            &Control::new(Some(&reference_progress), control.cancel()),
+            "sweep",
+        )?;
         reference_sweep = Some(reference);
     }
-    control.check()?;
     progress(2.0);
     let reference = reference_sweep.as_ref().unwrap_or(&sweep);
-    let SweepAnalysis {
-        mut findings,
-        causes,
-    } = analyse(&sweep, reference_sweep.as_ref(), settings);
-    let reference_findings = match &reference_sweep {
-        Some(reference) => analyse(reference, None, settings).findings,
-        None => findings.clone(),
+    // The two analyses are independent: one on each core.
+    let (own_analysis, reference_analysis) = match &reference_sweep {
+        Some(reference) => {
+            let (own, theirs) = rayon::join(
+                || analyse(&sweep, Some(reference), settings),
+                || analyse(reference, None, settings),
+            );
+            (own, Some(theirs))
+        }
+        None => (analyse(&sweep, None, settings), None),
     };
+    let reference_analysis = reference_analysis.unwrap_or_else(|| own_analysis.clone());
     control.check()?;
     progress(3.0);
     let gains = edge_gains(&sweep);
@@ -333,29 +348,27 @@ pub fn diagnose_with(
     let groups = group_norms(&sweep);
     control.check()?;
     let health = forward_health(trace, settings, &groups);
+    let mut findings = own_analysis.findings.clone();
     findings.extend(health.findings);
     findings.sort_by_key(|finding| (finding.step, finding.rule));
+    let causes = own_analysis.causes.clone();
     control.check()?;
     progress(4.0);
-    let mut replays: Vec<ReplayRun> = Vec::with_capacity(settings.replay.len());
-    for &dtype in &settings.replay {
-        replays.push(replay(
-            trace,
-            dtype,
-            settings,
-            reference,
-            &reference_findings,
-        ));
-        control.check()?;
-        progress(4.0 + replays.len() as f64);
-    }
-    let entries: Vec<f64> = trace
+    let replays = replays(
+        trace,
+        settings,
+        (&sweep, &own_analysis),
+        (reference, &reference_analysis),
+        &Control::new(Some(&within(4.0)), control.cancel()),
+    )?;
+    let adjoints: Vec<_> = trace
         .sweep_order()
         .iter()
         .filter_map(|&node| reference.adjoint(node))
-        .flat_map(|adjoint| adjoint.to_f64().to_vec())
         .collect();
-    let loss_scale = loss_scale(&entries, settings.subnormals);
+    let entries: Vec<_> = adjoints.iter().map(|adjoint| adjoint.to_f64()).collect();
+    let entries: Vec<&[f64]> = entries.iter().map(|entries| &entries[..]).collect();
+    let loss_scale = loss_scale_of(&entries, settings.subnormals);
     let gradient_values: Vec<_> = trace
         .params()
         .filter_map(|param| sweep.adjoint(param))
@@ -399,6 +412,76 @@ pub fn diagnose_with(
     diagnosis.headline = headline(trace, &diagnosis);
     control.progress("diagnosis", 1.0);
     Ok(diagnosis)
+}
+
+/// The precision replays the settings ask for, in their order. A replay
+/// that equals a sweep already made takes it and its analysis: the f64 one
+/// with gradual underflow is the reference, and the trace's own dtype, when
+/// every node already has it, is the sweep just made. The others run in
+/// parallel, one per core.
+fn replays(
+    trace: &Trace,
+    settings: &Settings,
+    (own, own_analysis): (&Sweep, &SweepAnalysis),
+    (reference, reference_analysis): (&Sweep, &SweepAnalysis),
+    control: &Control,
+) -> Result<Vec<ReplayRun>, Cancelled> {
+    use rayon::prelude::*;
+    let reuses = |dtype: Dtype| {
+        if dtype == Dtype::F64 && settings.subnormals == Subnormals::Keep {
+            Some((reference, reference_analysis))
+        } else if own.trace().is_already(dtype, settings.subnormals) {
+            Some((own, own_analysis))
+        } else {
+            None
+        }
+    };
+    let total = settings.replay.len().max(1) as f64;
+    // Reported under the lock, so fractions from two threads arrive in order.
+    let done = std::sync::Mutex::new(0usize);
+    let finished = || {
+        let mut count = done
+            .lock()
+            .unwrap_or_else(std::sync::PoisonError::into_inner);
+        *count += 1;
+        control.progress("replay", *count as f64 / total);
+    };
+    settings
+        .replay
+        .par_iter()
+        .map(|&dtype| {
+            control.check()?;
+            let run = match reuses(dtype) {
+                Some((sweep, analysis)) => replay::compared(
+                    trace,
+                    dtype,
+                    settings,
+                    sweep,
+                    analysis.clone(),
+                    reference,
+                    &reference_analysis.findings,
+                ),
+                None => {
+                    let retyped = trace.retyped(dtype, settings.subnormals);
+                    let mut sweep = Sweep::with_budget(&retyped, settings.ledger_budget);
+                    // Only cancellation: two sweeps at once have no one fraction to report.
+                    sweep.run_to_end_with(&Control::new(None, control.cancel()), "replay")?;
+                    let analysis = analyse(&sweep, Some(reference), settings);
+                    replay::compared(
+                        trace,
+                        dtype,
+                        settings,
+                        &sweep,
+                        analysis,
+                        reference,
+                        &reference_analysis.findings,
+                    )
+                }
+            };
+            finished();
+            Ok(run)
+        })
+        .collect()
 }
 
 /// The forward checks and the findings of their rules.

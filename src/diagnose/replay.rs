@@ -5,7 +5,7 @@ use super::rules::{Finding, Rule};
 use super::settings::Settings;
 use super::{SweepAnalysis, analyse};
 use crate::dtype::{Dtype, Subnormals};
-use crate::sweep::{LedgerMode, Sweep};
+use crate::sweep::Sweep;
 use crate::tensor::Value;
 use crate::trace::Trace;
 use serde::Serialize;
@@ -49,8 +49,12 @@ pub struct ReplayGradient {
 /// One dtype's replay.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ReplayRun {
-    /// The dtype swept in.
+    /// The dtype swept in: every value, partial and adjoint is stored in it.
     pub dtype: Dtype,
+    /// The dtype matmul, convolution and reduction sums accumulate in before
+    /// one rounding into `dtype` (the default for `dtype`; see FORMAT.md's
+    /// precision model).
+    pub accumulate: Dtype,
     /// Whether subnormal results were kept.
     pub subnormals: Subnormals,
     /// The rules' findings in this dtype that the f64 reference sweep does not
@@ -118,18 +122,46 @@ pub fn replay(
     reference: &Sweep,
     reference_findings: &[Finding],
 ) -> ReplayRun {
-    let retyped;
-    let mut own = None;
     // The f64 replay with gradual underflow is the reference itself.
-    let sweep = if dtype == Dtype::F64 && settings.subnormals == Subnormals::Keep {
-        reference
-    } else {
-        retyped = trace.retyped(dtype, settings.subnormals);
-        let mut sweep = Sweep::new(&retyped, LedgerMode::On);
-        sweep.run_to_end();
-        own.insert(sweep)
-    };
-    let SweepAnalysis { findings, causes } = analyse(sweep, Some(reference), settings);
+    if dtype == Dtype::F64 && settings.subnormals == Subnormals::Keep {
+        let analysis = analyse(reference, Some(reference), settings);
+        return compared(
+            trace,
+            dtype,
+            settings,
+            reference,
+            analysis,
+            reference,
+            reference_findings,
+        );
+    }
+    let retyped = trace.retyped(dtype, settings.subnormals);
+    let mut sweep = Sweep::with_budget(&retyped, settings.ledger_budget);
+    sweep.run_to_end();
+    let analysis = analyse(&sweep, Some(reference), settings);
+    compared(
+        trace,
+        dtype,
+        settings,
+        &sweep,
+        analysis,
+        reference,
+        reference_findings,
+    )
+}
+
+/// The replay in `dtype` from its finished `sweep` and that sweep's
+/// `analysis` against the f64 `reference`.
+pub(super) fn compared(
+    trace: &Trace,
+    dtype: Dtype,
+    settings: &Settings,
+    sweep: &Sweep,
+    analysis: SweepAnalysis,
+    reference: &Sweep,
+    reference_findings: &[Finding],
+) -> ReplayRun {
+    let SweepAnalysis { findings, causes } = analysis;
     let shared: HashSet<_> = reference_findings.iter().map(key).collect();
     let findings_total = findings.len();
     let findings: Vec<Finding> = findings
@@ -142,14 +174,11 @@ pub fn replay(
         .filter_map(|param| {
             let here = sweep.adjoint(param)?;
             let there = reference.adjoint(param)?;
-            let scale = there
-                .to_f64()
+            let (here_data, there_data) = (here.to_f64(), there.to_f64());
+            let scale = there_data.iter().fold(0.0f64, |acc, x| acc.max(x.abs()));
+            let error = here_data
                 .iter()
-                .fold(0.0f64, |acc, x| acc.max(x.abs()));
-            let error = here
-                .to_f64()
-                .iter()
-                .zip(there.to_f64().iter())
+                .zip(there_data.iter())
                 .fold(0.0f64, |acc, (a, b)| acc.max((a - b).abs()));
             let relative_error = if scale > 0.0 { error / scale } else { error };
             Some(ReplayGradient {
@@ -162,6 +191,7 @@ pub fn replay(
         .collect();
     ReplayRun {
         dtype,
+        accumulate: dtype.default_accumulate(),
         subnormals: settings.subnormals,
         findings,
         findings_total,

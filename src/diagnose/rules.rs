@@ -9,7 +9,7 @@ use super::origin::OriginClass;
 use super::settings::Settings;
 use crate::dtype::Dtype;
 use crate::sweep::{FlagKind, Sweep};
-use crate::tensor::{Value, l2_norm};
+use crate::tensor::{Survey, Value, l2_norm};
 use serde::{Deserialize, Serialize};
 
 /// A flag rule.
@@ -407,10 +407,27 @@ impl<'a> Collector<'a> {
 
     /// Magnitude rules for a value: overflow beyond the largest finite value,
     /// the warning band, and subnormals; non-finite numbers when `non_finite`.
-    fn magnitudes(&mut self, node: usize, step: usize, site: Site, data: &[f64], non_finite: bool) {
+    /// The survey says which rules can fire; only those scan element by element.
+    fn magnitudes(
+        &mut self,
+        node: usize,
+        step: usize,
+        site: Site,
+        value: &Value,
+        survey: &Survey,
+        non_finite: bool,
+    ) {
         let limits = self.dtype.limits();
         let max = limits.max_finite();
-        if non_finite && let Some(hit) = first_where(data, |_, x| !x.is_finite()) {
+        let band = max / self.settings.overflow_band;
+        let scan_non_finite = non_finite && survey.non_finite > 0;
+        let scan_large = survey.max_abs > band;
+        let scan_subnormal = survey.min_abs < limits.min_normal();
+        if !(scan_non_finite || scan_large || scan_subnormal) {
+            return;
+        }
+        let data = value.to_f64();
+        if scan_non_finite && let Some(hit) = first_where(&data, |_, x| !x.is_finite()) {
             self.push(
                 Rule::NonFinite,
                 node,
@@ -421,24 +438,25 @@ impl<'a> Collector<'a> {
                 max,
             );
         }
-        if let Some(hit) = first_where(data, |_, x| x.is_finite() && x.abs() > max) {
-            self.push(Rule::Overflow, node, step, site, Measure::Element, hit, max);
+        if scan_large {
+            if let Some(hit) = first_where(&data, |_, x| x.is_finite() && x.abs() > max) {
+                self.push(Rule::Overflow, node, step, site, Measure::Element, hit, max);
+            }
+            if let Some(hit) = first_where(&data, |_, x| {
+                x.is_finite() && x.abs() > band && x.abs() <= max
+            }) {
+                self.push(
+                    Rule::NearOverflow,
+                    node,
+                    step,
+                    site,
+                    Measure::Element,
+                    hit,
+                    band,
+                );
+            }
         }
-        let band = max / self.settings.overflow_band;
-        if let Some(hit) = first_where(data, |_, x| {
-            x.is_finite() && x.abs() > band && x.abs() <= max
-        }) {
-            self.push(
-                Rule::NearOverflow,
-                node,
-                step,
-                site,
-                Measure::Element,
-                hit,
-                band,
-            );
-        }
-        if let Some(hit) = first_where(data, |_, x| self.dtype.is_subnormal(x)) {
+        if scan_subnormal && let Some(hit) = first_where(&data, |_, x| self.dtype.is_subnormal(x)) {
             self.push(
                 Rule::Underflow,
                 node,
@@ -448,6 +466,34 @@ impl<'a> Collector<'a> {
                 hit,
                 limits.min_normal(),
             );
+        }
+    }
+
+    /// The comparisons with the reference sweep's number at the same site:
+    /// elements flushed to zero here, and (when `overflow`) elements infinite
+    /// here but finite there. Only a value with zeros or non-finite elements
+    /// (as its survey says) can have either, so only those are widened.
+    #[allow(clippy::too_many_arguments)]
+    fn against(
+        &mut self,
+        node: usize,
+        step: usize,
+        site: Site,
+        value: &Value,
+        survey: &Survey,
+        reference: &Value,
+        overflow: bool,
+    ) {
+        let scan_overflow = overflow && survey.non_finite > 0;
+        if survey.zeros == 0 && !scan_overflow {
+            return;
+        }
+        let (data, reference) = (value.to_f64(), reference.to_f64());
+        if survey.zeros > 0 {
+            self.flushed(node, step, site, &data, &reference);
+        }
+        if scan_overflow {
+            self.overflowed(node, step, site, &data, &reference);
         }
     }
 
@@ -527,22 +573,17 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
         .map(|reference| reference.entries());
     for (step, &node) in trace.sweep_order().iter().enumerate() {
         let recorded = trace.node(node);
-        collector.magnitudes(node, step, Site::Value, &recorded.value.to_f64(), true);
+        let survey = recorded.value.survey();
+        collector.magnitudes(node, step, Site::Value, &recorded.value, &survey, true);
         if let Some(reference) = input.reference {
-            let reference_value = reference.trace().node(node).value.to_f64();
-            collector.flushed(
+            collector.against(
                 node,
                 step,
                 Site::Value,
-                &recorded.value.to_f64(),
-                &reference_value,
-            );
-            collector.overflowed(
-                node,
-                step,
-                Site::Value,
-                &recorded.value.to_f64(),
-                &reference_value,
+                &recorded.value,
+                &survey,
+                &reference.trace().node(node).value,
+                true,
             );
         }
         while let Some(flag) = partial_flags.next_if(|flag| flag.step == step) {
@@ -570,20 +611,27 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
                 slot: entry.slot,
                 to: entry.input,
             };
-            let data = entry.value.to_f64();
+            let survey = entry.value.survey();
             // A non-finite contribution is flagged where it is born, not at every edge it passes on.
-            collector.magnitudes(node, step, site, &data, adjoint_finite);
+            collector.magnitudes(node, step, site, &entry.value, &survey, adjoint_finite);
             if let Some(reference_entry) = &reference_entry {
-                let reference_value = reference_entry.value.to_f64();
-                collector.flushed(node, step, site, &data, &reference_value);
-                if adjoint_finite {
-                    collector.overflowed(node, step, site, &data, &reference_value);
-                }
+                collector.against(
+                    node,
+                    step,
+                    site,
+                    &entry.value,
+                    &survey,
+                    &reference_entry.value,
+                    adjoint_finite,
+                );
             }
             let before_finite = entry.before.as_ref().is_none_or(Value::is_finite);
             // The first non-finite element of a sum that was finite before: found once, used twice.
             let became_non_finite = before_finite
-                .then(|| first_where(&entry.after.to_f64(), |_, x| !x.is_finite()))
+                .then(|| {
+                    let (element, x) = entry.after.first_non_finite()?;
+                    Some((element, x, entry.after.survey().non_finite))
+                })
                 .flatten();
             if let Some(hit) = became_non_finite
                 && entry.value.is_finite()
@@ -617,9 +665,12 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
         }
         // Final adjoint of this node (it is final once the node is processed).
         if let Some(adjoint) = sweep.adjoint(node) {
-            let data = adjoint.to_f64();
+            let survey = adjoint.survey();
             let limits = trace.dtype().limits();
-            if let Some(hit) = first_where(&data, |_, x| trace.dtype().is_subnormal(x)) {
+            if survey.min_abs < limits.min_normal()
+                && let Some(hit) =
+                    first_where(&adjoint.to_f64(), |_, x| trace.dtype().is_subnormal(x))
+            {
                 collector.push(
                     Rule::Underflow,
                     node,
@@ -634,7 +685,15 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
                 .reference
                 .and_then(|reference| reference.adjoint(node))
             {
-                collector.flushed(node, step, Site::Adjoint, &data, &reference.to_f64());
+                collector.against(
+                    node,
+                    step,
+                    Site::Adjoint,
+                    &adjoint,
+                    &survey,
+                    &reference,
+                    false,
+                );
             }
         }
         gain(&mut collector, node, step, adjoint_norms[node], &outgoing);

@@ -102,6 +102,9 @@ macro_rules! settings {
 }
 
 settings! {
+    /// Bytes of tensor contributions each sweep's ledger keeps; beyond them it
+    /// keeps checkpoints every few steps and re-derives the rest on request.
+    ledger_budget: usize = crate::sweep::DEFAULT_BUDGET,
     /// Warn when a finite magnitude exceeds the dtype's largest finite value divided by this factor.
     overflow_band: f64 = 16.0,
     /// A parameter gradient whose L2 norm is below this is vanishing.

@@ -395,8 +395,10 @@ pub struct ReplayGradientEntry {
 /// One replay.
 #[derive(Debug, Clone, Serialize)]
 pub struct ReplayEntry {
-    /// The dtype.
+    /// The dtype every value, partial and adjoint is stored in.
     pub dtype: crate::dtype::Dtype,
+    /// The dtype matmul, convolution and reduction sums accumulate in.
+    pub accumulate: crate::dtype::Dtype,
     /// Kept or flushed subnormals.
     pub subnormals: crate::dtype::Subnormals,
     /// Findings in this dtype that f64 does not have.
@@ -667,6 +669,7 @@ impl DiagnosisReport {
             .iter()
             .map(|run| ReplayEntry {
                 dtype: run.dtype,
+                accumulate: run.accumulate,
                 subnormals: run.subnormals,
                 findings: run.findings.len(),
                 findings_total: run.findings_total,
@@ -1078,8 +1081,9 @@ impl DiagnosisReport {
         if self.replay.is_empty() {
             return String::new();
         }
-        let mut out =
-            String::from("precision replay  (the same step swept in each dtype, against f64)\n");
+        let mut out = String::from(
+            "precision replay  (the same step stored in each dtype, its sums accumulated in the second, against f64)\n",
+        );
         let first = |finding: &Option<FindingEntry>| {
             finding.as_ref().map_or("—".to_string(), |f| {
                 format!("'{}' step {}", f.node, f.step)
@@ -1087,8 +1091,8 @@ impl DiagnosisReport {
         };
         let _ = writeln!(
             out,
-            "  {:<6} {:<26} {:<26} {:<26} gradient norms",
-            "dtype", "first overflow", "first underflow", "first lost contribution"
+            "  {:<10} {:<26} {:<26} {:<26} gradient norms",
+            "dtypes", "first overflow", "first underflow", "first lost contribution"
         );
         for run in &self.replay {
             let lost = run.first_lost.as_ref().map_or("—".to_string(), |lost| {
@@ -1106,8 +1110,8 @@ impl DiagnosisReport {
             let more = if run.gradients.len() > 4 { ", …" } else { "" };
             let _ = writeln!(
                 out,
-                "  {:<6} {:<26} {:<26} {:<26} {}{more}",
-                run.dtype.name(),
+                "  {:<10} {:<26} {:<26} {:<26} {}{more}",
+                format!("{}/{}", run.dtype.name(), run.accumulate.name()),
                 first(&run.first_overflow),
                 first(&run.first_underflow),
                 lost,

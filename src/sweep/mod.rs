@@ -11,6 +11,7 @@ pub use flags::{Flag, FlagKind};
 pub use ledger::{Contribution, DEFAULT_BUDGET, INTERVAL, Ledger};
 pub use pullback::{Pulled, accumulate, bad_partial, pull_back, push_forward};
 
+use crate::control::{Cancelled, Control};
 use crate::tensor::Value;
 use crate::trace::{StepKind, Trace};
 use ledger::{Checkpoint, Store, Stored};
@@ -482,6 +483,23 @@ impl<'t> Sweep<'t> {
         let start = self.cursor;
         self.run_until(self.len());
         self.cursor - start
+    }
+
+    /// Runs every remaining step, reporting the fraction of steps done as
+    /// `stage` and stopping between steps when `control` is cancelled (the
+    /// sweep then stands where it stopped). Returns the number of steps taken.
+    pub fn run_to_end_with(&mut self, control: &Control, stage: &str) -> Result<usize, Cancelled> {
+        let (start, len) = (self.cursor, self.len());
+        // Chunks of a thousandth of the sweep (at least one step), so a long
+        // scalar chain keeps its fast path and a tensor step is never waited on
+        // for longer than itself.
+        let chunk = (len / 1000).max(1);
+        while self.cursor < len {
+            control.check()?;
+            self.run_until(self.cursor.saturating_add(chunk));
+            control.progress(stage, self.cursor as f64 / len as f64);
+        }
+        Ok(self.cursor - start)
     }
 
     /// Goes back or forward to exactly `cursor` steps done.

@@ -4,9 +4,11 @@
 
 mod float;
 mod storage;
+mod survey;
 
 pub use float::{Buffer, Elements, Float, convert, elements_as, narrow};
 pub use storage::Mapped;
+pub use survey::Survey;
 
 use crate::dtype::Dtype;
 use crate::stats::Summary;
@@ -326,17 +328,22 @@ impl Value {
         }
     }
 
-    /// Euclidean norm of all elements, computed in f64 with scaling so that it
-    /// does not overflow for large finite entries.
+    /// Euclidean norm of all elements, computed in f64 so that it neither
+    /// overflows nor underflows for finite entries (see [`survey::l2_norm_of`]).
     pub fn l2_norm(&self) -> f64 {
         match self {
-            // One element: the scaled sum is |x| exactly (NaN and ±inf included).
+            // One element: the norm is |x| exactly (NaN and ±inf included).
             Value::Scalar(x) => x.abs(),
-            Value::Tensor(t) => {
-                let mut norm = NormAccumulator::default();
-                t.elements().for_each(|x| norm.push(x));
-                norm.finish()
-            }
+            Value::Tensor(t) => survey::l2_norm_of(t.elements()),
+        }
+    }
+
+    /// Non-finite count and finite magnitude bounds, in one pass over the
+    /// elements in their own dtype.
+    pub fn survey(&self) -> Survey {
+        match self {
+            Value::Scalar(x) => Survey::of_scalar(*x),
+            Value::Tensor(t) => Survey::of(t.elements()),
         }
     }
 

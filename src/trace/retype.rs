@@ -14,6 +14,7 @@ impl Trace {
     /// forward pass would store for a value it computed exactly. The graph,
     /// ids and sweep order are shared unchanged.
     pub fn retyped(&self, dtype: Dtype, subnormals: Subnormals) -> Trace {
+        let exact = self.exact_nodes();
         let round = |value: &Value| {
             let mut value = value.clone().stored_as(dtype);
             if subnormals == Subnormals::Flush {
@@ -21,16 +22,6 @@ impl Trace {
             }
             value
         };
-        // Index tensors and conditions hold whole numbers that rounding could
-        // move (f16 holds them exactly only up to 2048): they stay as recorded.
-        let mut exact = vec![false; self.nodes.len()];
-        for node in &self.nodes {
-            for &slot in node.op.spec().discrete {
-                if let Some(&input) = node.inputs.get(slot) {
-                    exact[input] = true;
-                }
-            }
-        }
         let nodes = self
             .nodes
             .iter()
@@ -55,6 +46,42 @@ impl Trace {
             .collect();
         let accumulate = dtype.default_accumulate();
         self.with_nodes(nodes, (dtype, accumulate), subnormals, round(&self.seed))
+    }
+
+    /// Index tensors and conditions hold whole numbers that rounding could
+    /// move (f16 holds them exactly only up to 2048): re-typing leaves them
+    /// as recorded. True at each node that is one.
+    fn exact_nodes(&self) -> Vec<bool> {
+        let mut exact = vec![false; self.nodes.len()];
+        for node in &self.nodes {
+            for &slot in node.op.spec().discrete {
+                if let Some(&input) = node.inputs.get(slot) {
+                    exact[input] = true;
+                }
+            }
+        }
+        exact
+    }
+
+    /// True when [`Trace::retyped`] into `dtype` with `subnormals` would give
+    /// this trace's own arithmetic back: every node it rounds is already of
+    /// `dtype`, sums already accumulate in `dtype`'s default, and subnormal
+    /// results are already treated so. A sweep of this trace is then the
+    /// sweep of the re-typed one (values and partials are held rounded into
+    /// their node's dtype), and need not be made twice.
+    pub fn is_already(&self, dtype: Dtype, subnormals: Subnormals) -> bool {
+        if self.subnormals != subnormals
+            || self.dtype != dtype
+            || self.accumulate != dtype.default_accumulate()
+        {
+            return false;
+        }
+        let exact = self.exact_nodes();
+        self.nodes
+            .iter()
+            .zip(&exact)
+            .all(|(node, &exact)| exact || node.dtype == dtype)
+            && self.seed.clone().stored_as(dtype) == self.seed
     }
 
     /// A copy with every node's forward value replaced, one per node in

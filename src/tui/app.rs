@@ -107,6 +107,7 @@ impl<'t> App<'t> {
 
     /// Diagnoses with these thresholds (`ebb open --rules/--set`) instead of the defaults.
     pub fn with_settings(mut self, settings: Settings) -> App<'t> {
+        self.session.set_ledger_budget(settings.ledger_budget);
         self.settings = settings;
         self
     }

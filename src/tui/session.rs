@@ -17,7 +17,7 @@ use super::watch::{Condition, Moment};
 use super::work::{Survey, Verified};
 use crate::dtype::Dtype;
 use crate::stats::Summary;
-use crate::sweep::{LedgerMode, Sweep};
+use crate::sweep::{DEFAULT_BUDGET, Sweep};
 use crate::tensor::Value;
 use crate::trace::Trace;
 use std::cell::OnceCell;
@@ -61,13 +61,26 @@ pub struct Session<'t> {
     detail: Detail,
     value_summaries: HashMap<NodeIx, Summary>,
     by_id: OnceCell<Vec<usize>>,
+    /// Bytes of tensor contributions each sweep's ledger keeps.
+    ledger_budget: usize,
 }
 
 impl<'t> Session<'t> {
+    /// Sweeps from here on keep at most `budget` bytes of tensor
+    /// contributions in their ledgers (see [`Sweep::with_budget`]); the sweep
+    /// in use starts again under it, at the same step.
+    pub fn set_ledger_budget(&mut self, budget: usize) {
+        self.ledger_budget = budget;
+        let cursor = self.sweep.cursor();
+        self.sweep = Sweep::with_budget(self.trace, budget);
+        self.tally = Tally::new(&self.sweep);
+        self.seek(StepIx::new(cursor));
+    }
+
     /// A fresh sweep over the recorded trace, the output selected.
     pub fn new(traces: &'t Arc<Traces>) -> Session<'t> {
         let trace = traces.recorded();
-        let sweep = Sweep::new(trace, LedgerMode::On);
+        let sweep = Sweep::with_budget(trace, DEFAULT_BUDGET);
         let tally = Tally::new(&sweep);
         let mut session = Session {
             traces,
@@ -86,6 +99,7 @@ impl<'t> Session<'t> {
             detail: Detail::default(),
             value_summaries: HashMap::new(),
             by_id: OnceCell::new(),
+            ledger_budget: DEFAULT_BUDGET,
         };
         session.refresh();
         session
@@ -575,13 +589,14 @@ impl<'t> Session<'t> {
         let left_forward = self.forward.take().is_some();
         let cursor = self.sweep.cursor();
         self.trace = self.traces.get(dtype);
-        self.sweep = Sweep::new(self.trace, LedgerMode::On);
+        self.sweep = Sweep::with_budget(self.trace, self.ledger_budget);
         self.tally = Tally::new(&self.sweep);
         self.value_summaries.clear();
         self.detail = Detail::default();
         self.by_id = OnceCell::new();
         let recorded = self.recorded();
-        self.compare = (dtype != recorded.dtype()).then(|| Sweep::new(recorded, LedgerMode::On));
+        self.compare =
+            (dtype != recorded.dtype()).then(|| Sweep::with_budget(recorded, self.ledger_budget));
         self.seek(StepIx::new(cursor));
         let note = if left_forward {
             "; forward mode ended ({key:toggle_forward} starts it again)"
@@ -603,7 +618,8 @@ impl<'t> Session<'t> {
             .and_then(|diagnosed| diagnosed.diagnosis.replay_in(dtype))
         else {
             return format!(
-                "swept in {dtype} (recorded {recorded}); {{key:diagnose}} diagnoses it"
+                "swept in {dtype}, sums accumulated in {} (recorded {recorded}); {{key:diagnose}} diagnoses it",
+                self.trace.accumulate()
             );
         };
         let id = |node: usize| self.trace.node(node).id.as_str();
@@ -616,7 +632,8 @@ impl<'t> Session<'t> {
             format!("'{}' step {}", id(lost.node), lost.step + 1)
         });
         format!(
-            "{dtype} vs f64: first overflow {} · underflow {} · lost contribution {lost}",
+            "{dtype} (sums in {}) vs f64: first overflow {} · underflow {} · lost contribution {lost}",
+            run.accumulate,
             at(run.first_overflow()),
             at(run.first_underflow())
         )

@@ -124,8 +124,9 @@ fn status_line(app: &App, area: Rect, buf: &mut Buffer) {
         trace.dtype().to_string()
     } else {
         format!(
-            "{} (recorded {})",
+            "{}, sums in {} (recorded {})",
             trace.dtype(),
+            trace.accumulate(),
             session.recorded().dtype()
         )
     };
