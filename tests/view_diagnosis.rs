@@ -412,8 +412,8 @@ fn toggling_exploding_into_f16_reports_where_it_first_overflows() {
     let buf = draw(&mut app, 200, 50);
     let status = rows(&buf).pop().unwrap();
     assert!(
-        status.contains("f16 (recorded f32)")
-            && status.contains("f16 vs f64: first overflow 'loss' step 1"),
+        status.contains("f16, sums in f32 (recorded f32)")
+            && status.contains("f16 (sums in f32) vs f64: first overflow 'loss' step 1"),
         "{status}"
     );
     app.update(Action::Step);
