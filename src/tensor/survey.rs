@@ -132,10 +132,17 @@ survey_loop!(
 );
 survey_loop!(survey_f32_plain, f32, i32, 0x7fff_ffff, 0x7f80_0000);
 
-/// Compiles `$plain` (an `#[inline(always)]` function of one slice) a second
-/// time for AVX2 and picks it at run time where the processor has it.
+/// Compiles `$plain` (an `#[inline(always)]` function of one slice) again for
+/// AVX-512 (whose 64-bit integer minima the f64 survey needs) and for AVX2,
+/// and picks the widest the processor has at run time.
 macro_rules! dispatched {
-    ($name:ident, $wide:ident, $plain:ident, $t:ty, $out:ty) => {
+    ($name:ident, $widest:ident, $wide:ident, $plain:ident, $t:ty, $out:ty) => {
+        #[cfg(target_arch = "x86_64")]
+        #[target_feature(enable = "avx512f,avx512vl,avx2")]
+        fn $widest(s: &[$t]) -> $out {
+            $plain(s)
+        }
+
         #[cfg(target_arch = "x86_64")]
         #[target_feature(enable = "avx2")]
         fn $wide(s: &[$t]) -> $out {
@@ -144,19 +151,55 @@ macro_rules! dispatched {
 
         fn $name(s: &[$t]) -> $out {
             #[cfg(target_arch = "x86_64")]
-            if std::arch::is_x86_feature_detected!("avx2") {
-                // SAFETY: the processor has just been found to support AVX2.
-                return unsafe { $wide(s) };
+            {
+                if std::arch::is_x86_feature_detected!("avx512f")
+                    && std::arch::is_x86_feature_detected!("avx512vl")
+                {
+                    // SAFETY: the processor has just been found to support these.
+                    return unsafe { $widest(s) };
+                }
+                if std::arch::is_x86_feature_detected!("avx2") {
+                    // SAFETY: the processor has just been found to support AVX2.
+                    return unsafe { $wide(s) };
+                }
             }
             $plain(s)
         }
     };
 }
 
-dispatched!(survey_f64, survey_f64_avx2, survey_f64_plain, f64, Survey);
-dispatched!(survey_f32, survey_f32_avx2, survey_f32_plain, f32, Survey);
-dispatched!(squares_f32, squares_f32_avx2, squares_f32_plain, f32, f64);
-dispatched!(squares_f64, squares_f64_avx2, squares_f64_plain, f64, f64);
+dispatched!(
+    survey_f64,
+    survey_f64_avx512,
+    survey_f64_avx2,
+    survey_f64_plain,
+    f64,
+    Survey
+);
+dispatched!(
+    survey_f32,
+    survey_f32_avx512,
+    survey_f32_avx2,
+    survey_f32_plain,
+    f32,
+    Survey
+);
+dispatched!(
+    squares_f32,
+    squares_f32_avx512,
+    squares_f32_avx2,
+    squares_f32_plain,
+    f32,
+    f64
+);
+dispatched!(
+    squares_f64,
+    squares_f64_avx512,
+    squares_f64_avx2,
+    squares_f64_plain,
+    f64,
+    f64
+);
 
 /// Sums of squares this far inside f64's range cannot overflow, and squares
 /// lost to underflow below it are negligible against the largest one.
