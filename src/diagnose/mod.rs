@@ -461,22 +461,14 @@ fn replays(
                     reference,
                     &reference_analysis.findings,
                 ),
-                None => {
-                    let retyped = trace.retyped(dtype, settings.subnormals);
-                    let mut sweep = Sweep::with_budget(&retyped, settings.ledger_budget);
-                    // Only cancellation: two sweeps at once have no one fraction to report.
-                    sweep.run_to_end_with(&Control::new(None, control.cancel()), "replay")?;
-                    let analysis = analyse(&sweep, Some(reference), settings);
-                    replay::compared(
-                        trace,
-                        dtype,
-                        settings,
-                        &sweep,
-                        analysis,
-                        reference,
-                        &reference_analysis.findings,
-                    )
-                }
+                // Only cancellation: two sweeps at once have no one fraction to report.
+                None => replay::swept_anew(
+                    trace,
+                    dtype,
+                    settings,
+                    (reference, &reference_analysis.findings),
+                    &Control::new(None, control.cancel()),
+                )?,
             };
             finished();
             Ok(run)

@@ -4,6 +4,7 @@
 use super::rules::{Finding, Rule};
 use super::settings::Settings;
 use super::{SweepAnalysis, analyse};
+use crate::control::{Cancelled, Control};
 use crate::dtype::{Dtype, Subnormals};
 use crate::sweep::Sweep;
 use crate::tensor::Value;
@@ -135,11 +136,31 @@ pub fn replay(
             reference_findings,
         );
     }
+    swept_anew(
+        trace,
+        dtype,
+        settings,
+        (reference, reference_findings),
+        &Control::NONE,
+    )
+    .expect("Control::NONE never cancels")
+}
+
+/// The replay in `dtype` from a sweep of its own: `trace` re-typed, swept
+/// with a ledger (stopping when `control` is cancelled), analysed and
+/// compared with the f64 `reference` and its findings.
+pub(super) fn swept_anew(
+    trace: &Trace,
+    dtype: Dtype,
+    settings: &Settings,
+    (reference, reference_findings): (&Sweep, &[Finding]),
+    control: &Control,
+) -> Result<ReplayRun, Cancelled> {
     let retyped = trace.retyped(dtype, settings.subnormals);
     let mut sweep = Sweep::with_budget(&retyped, settings.ledger_budget);
-    sweep.run_to_end();
+    sweep.run_to_end_with(control, "replay")?;
     let analysis = analyse(&sweep, Some(reference), settings);
-    compared(
+    Ok(compared(
         trace,
         dtype,
         settings,
@@ -147,7 +168,7 @@ pub fn replay(
         analysis,
         reference,
         reference_findings,
-    )
+    ))
 }
 
 /// The replay in `dtype` from its finished `sweep` and that sweep's
