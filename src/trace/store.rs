@@ -207,11 +207,23 @@ pub(crate) fn stage_path(
         error,
     };
     let staged = stage(path, |_| Ok(()))?;
-    let temp = staged.0.as_ref().expect("just staged").path().to_path_buf();
-    write(&temp).map_err(io)?;
-    std::fs::File::open(&temp)
-        .and_then(|file| file.sync_all())
-        .map_err(io)?;
+    let file = staged.0.as_ref().expect("just staged");
+    // The writer opens the file by name. If it did so by the temporary
+    // file's own name, a signal arriving between `abandon_saves` removing
+    // that name and the process ending could see the writer create it
+    // again, left behind for good (seen in tests/convert_signals.rs under
+    // load). On Linux it gets the open file's /proc/self/fd link instead,
+    // which reaches the same file while it has a name and can never give it
+    // one back.
+    #[cfg(target_os = "linux")]
+    let target = {
+        use std::os::fd::AsRawFd;
+        std::path::PathBuf::from(format!("/proc/self/fd/{}", file.as_file().as_raw_fd()))
+    };
+    #[cfg(not(target_os = "linux"))]
+    let target = file.path().to_path_buf();
+    write(&target).map_err(io)?;
+    file.as_file().sync_all().map_err(io)?;
     Ok(staged)
 }
 
@@ -242,6 +254,29 @@ mod tests {
             .collect();
         names.sort();
         names
+    }
+
+    #[cfg(target_os = "linux")]
+    #[test]
+    fn a_writer_by_name_cannot_bring_back_an_abandoned_temporary_file() {
+        let dir = tempfile::tempdir().unwrap();
+        let target = dir.path().join("t.safetensors");
+        let staged = stage_path(&target, |path| {
+            // What an abandon does between staging and the writer's open:
+            // the temporary file's name (the link's target) is removed.
+            let name = std::fs::read_link(path)?;
+            assert!(name.starts_with(dir.path()), "{}", name.display());
+            std::fs::remove_file(&name)?;
+            std::fs::File::create(path)?.write_all(b"data")
+        });
+        assert!(staged.is_ok());
+        assert!(temporaries(dir.path()).is_empty(), "no name came back");
+        drop(staged);
+        // Without an abandon the writer's bytes are what is committed.
+        let staged = stage_path(&target, |path| std::fs::write(path, b"data")).unwrap();
+        commit(staged, &target).unwrap();
+        assert_eq!(std::fs::read(&target).unwrap(), b"data");
+        assert!(temporaries(dir.path()).is_empty());
     }
 
     #[test]
