@@ -446,35 +446,42 @@ fn replays(
         *count += 1;
         control.progress("replay", *count as f64 / total);
     };
-    settings
-        .replay
-        .par_iter()
-        .map(|&dtype| {
-            control.check()?;
-            let run = match reuses(dtype) {
-                Some((sweep, analysis)) => replay::compared(
-                    trace,
-                    dtype,
-                    settings,
-                    sweep,
-                    analysis.clone(),
-                    reference,
-                    &reference_analysis.findings,
-                ),
-                // Only cancellation: two sweeps at once have no one fraction to report.
-                None => replay::swept_anew(
-                    trace,
-                    dtype,
-                    settings,
-                    (reference, &reference_analysis.findings),
-                    &Control::new(None, control.cancel()),
-                )?,
-            };
-            finished();
-            Ok(run)
-        })
-        .collect()
+    let one = |&dtype: &Dtype| -> Result<ReplayRun, Cancelled> {
+        control.check()?;
+        let run = match reuses(dtype) {
+            Some((sweep, analysis)) => replay::compared(
+                trace,
+                dtype,
+                settings,
+                sweep,
+                analysis.clone(),
+                reference,
+                &reference_analysis.findings,
+            ),
+            // Only cancellation: two sweeps at once have no one fraction to report.
+            None => replay::swept_anew(
+                trace,
+                dtype,
+                settings,
+                (reference, &reference_analysis.findings),
+                &Control::new(None, control.cancel()),
+            )?,
+        };
+        finished();
+        Ok(run)
+    };
+    // Each replay sweeps a re-typed copy of the trace: two at once double
+    // that memory, which on a long chain is most of the peak. Big traces
+    // replay one at a time.
+    if trace.nodes().len() <= PARALLEL_REPLAY_NODES {
+        settings.replay.par_iter().map(one).collect()
+    } else {
+        settings.replay.iter().map(one).collect()
+    }
 }
+
+/// Traces up to this many nodes replay in parallel.
+const PARALLEL_REPLAY_NODES: usize = 100_000;
 
 /// The forward checks and the findings of their rules.
 struct ForwardHealth {
