@@ -361,13 +361,23 @@ pub fn diagnose_with(
         (reference, &reference_analysis),
         &Control::new(Some(&within(4.0)), control.cancel()),
     )?;
-    let adjoints: Vec<_> = trace
+    // Scalar adjoints gathered into one array (a million-node chain must not
+    // cost a million small vectors); tensor adjoints read in place.
+    let (mut scalars, mut tensors) = (Vec::new(), Vec::new());
+    for adjoint in trace
         .sweep_order()
         .iter()
         .filter_map(|&node| reference.adjoint(node))
+    {
+        match adjoint.as_ref() {
+            crate::tensor::Value::Scalar(x) => scalars.push(*x),
+            crate::tensor::Value::Tensor(_) => tensors.push(adjoint),
+        }
+    }
+    let widened: Vec<_> = tensors.iter().map(|adjoint| adjoint.to_f64()).collect();
+    let entries: Vec<&[f64]> = std::iter::once(&scalars[..])
+        .chain(widened.iter().map(|entries| &entries[..]))
         .collect();
-    let entries: Vec<_> = adjoints.iter().map(|adjoint| adjoint.to_f64()).collect();
-    let entries: Vec<&[f64]> = entries.iter().map(|entries| &entries[..]).collect();
     let loss_scale = loss_scale_of(&entries, settings.subnormals);
     let gradient_values: Vec<_> = trace
         .params()
