@@ -53,7 +53,6 @@ use crate::trace::Trace;
 use origin::RootCauses;
 
 /// Findings and root causes of one sweep.
-#[derive(Clone)]
 struct SweepAnalysis {
     pub findings: Vec<Finding>,
     pub causes: RootCauses,
@@ -340,7 +339,7 @@ pub fn diagnose_with(
         }
         None => (analyse(&sweep, None, settings), None),
     };
-    let reference_analysis = reference_analysis.unwrap_or_else(|| own_analysis.clone());
+    let reference_analysis = reference_analysis.as_ref().unwrap_or(&own_analysis);
     control.check()?;
     progress(3.0);
     let gains = edge_gains(&sweep);
@@ -348,19 +347,22 @@ pub fn diagnose_with(
     let groups = group_norms(&sweep);
     control.check()?;
     let health = forward_health(trace, settings, &groups);
-    let mut findings = own_analysis.findings.clone();
-    findings.extend(health.findings);
-    findings.sort_by_key(|finding| (finding.step, finding.rule));
-    let causes = own_analysis.causes.clone();
     control.check()?;
     progress(4.0);
     let replays = replays(
         trace,
         settings,
         (&sweep, &own_analysis),
-        (reference, &reference_analysis),
+        (reference, reference_analysis),
         &Control::new(Some(&within(4.0)), control.cancel()),
     )?;
+    // Moved, not copied: on a long chain the causes hold arrays per node.
+    let SweepAnalysis {
+        mut findings,
+        causes,
+    } = own_analysis;
+    findings.extend(health.findings);
+    findings.sort_by_key(|finding| (finding.step, finding.rule));
     // Scalar adjoints gathered into one array (a million-node chain must not
     // cost a million small vectors); tensor adjoints read in place.
     let (mut scalars, mut tensors) = (Vec::new(), Vec::new());
@@ -464,7 +466,7 @@ fn replays(
                 dtype,
                 settings,
                 sweep,
-                analysis.clone(),
+                analysis,
                 reference,
                 &reference_analysis.findings,
             ),

@@ -131,7 +131,7 @@ pub fn replay(
             dtype,
             settings,
             reference,
-            analysis,
+            &analysis,
             reference,
             reference_findings,
         );
@@ -165,7 +165,7 @@ pub(super) fn swept_anew(
         dtype,
         settings,
         &sweep,
-        analysis,
+        &analysis,
         reference,
         reference_findings,
     ))
@@ -178,16 +178,17 @@ pub(super) fn compared(
     dtype: Dtype,
     settings: &Settings,
     sweep: &Sweep,
-    analysis: SweepAnalysis,
+    analysis: &SweepAnalysis,
     reference: &Sweep,
     reference_findings: &[Finding],
 ) -> ReplayRun {
-    let SweepAnalysis { findings, causes } = analysis;
     let shared: HashSet<_> = reference_findings.iter().map(key).collect();
-    let findings_total = findings.len();
-    let findings: Vec<Finding> = findings
-        .into_iter()
+    let findings_total = analysis.findings.len();
+    let findings: Vec<Finding> = analysis
+        .findings
+        .iter()
         .filter(|finding| !shared.contains(&key(finding)))
+        .cloned()
         .collect();
     let (lost, lost_total) = lost_contributions(sweep, settings.lost_fraction);
     let gradients = trace
@@ -216,7 +217,7 @@ pub(super) fn compared(
         subnormals: settings.subnormals,
         findings,
         findings_total,
-        origins: causes.origins,
+        origins: analysis.causes.origins.clone(),
         lost,
         lost_total,
         gradients,
