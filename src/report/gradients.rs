@@ -5,11 +5,9 @@
 
 use crate::dtype::Dtype;
 use crate::sweep::Sweep;
-use crate::tensor::Buffer;
+use crate::trace::sidecar::Outgoing;
 use crate::trace::{Num, Trace};
-use safetensors::tensor::{Dtype as StDtype, View};
 use serde::Serialize;
-use std::borrow::Cow;
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
@@ -122,19 +120,13 @@ impl Gradients {
                 id: twice.id.clone(),
             });
         }
-        let tensors: Vec<(String, Tensor)> = self
+        let tensors: Vec<(String, Outgoing)> = self
             .params
             .iter()
             .map(|param| {
                 let data: Vec<f64> = param.data.iter().map(|x| x.0).collect();
-                (
-                    param.id.clone(),
-                    Tensor {
-                        dtype: st_dtype(param.dtype),
-                        shape: param.shape.clone(),
-                        bytes: encode(data, param.dtype),
-                    },
-                )
+                let tensor = Outgoing::new(param.dtype, param.shape.clone(), &data);
+                (param.id.clone(), tensor)
             })
             .collect();
         let unreached: Vec<&str> = self
@@ -173,46 +165,5 @@ fn io_error(path: &Path, error: crate::trace::SaveError) -> GradientsError {
             path: path.to_path_buf(),
             error: std::io::Error::other(other.to_string()),
         },
-    }
-}
-
-/// A tensor on its way into the file.
-struct Tensor {
-    dtype: StDtype,
-    shape: Vec<usize>,
-    bytes: Vec<u8>,
-}
-
-impl View for &Tensor {
-    fn dtype(&self) -> StDtype {
-        self.dtype
-    }
-    fn shape(&self) -> &[usize] {
-        &self.shape
-    }
-    fn data(&self) -> Cow<'_, [u8]> {
-        Cow::Borrowed(&self.bytes)
-    }
-    fn data_len(&self) -> usize {
-        self.bytes.len()
-    }
-}
-
-fn st_dtype(dtype: Dtype) -> StDtype {
-    match dtype {
-        Dtype::F64 => StDtype::F64,
-        Dtype::F32 => StDtype::F32,
-        Dtype::F16 => StDtype::F16,
-        Dtype::Bf16 => StDtype::BF16,
-    }
-}
-
-/// Values of `dtype` (exactly representable in it) as little-endian bytes.
-fn encode(data: Vec<f64>, dtype: Dtype) -> Vec<u8> {
-    match Buffer::from_vec(dtype, data) {
-        Buffer::F64(v) => v.iter().flat_map(|x| x.to_le_bytes()).collect(),
-        Buffer::F32(v) => v.iter().flat_map(|x| x.to_le_bytes()).collect(),
-        Buffer::F16(v) => v.iter().flat_map(|x| x.to_le_bytes()).collect(),
-        Buffer::Bf16(v) => v.iter().flat_map(|x| x.to_le_bytes()).collect(),
     }
 }

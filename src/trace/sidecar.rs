@@ -226,10 +226,21 @@ fn decode_integers(bytes: &[u8], dtype: StDtype) -> Option<Vec<i64>> {
 }
 
 /// One tensor to write: its dtype, shape and little-endian bytes.
-struct Outgoing {
+pub(crate) struct Outgoing {
     dtype: StDtype,
     shape: Vec<usize>,
     bytes: Vec<u8>,
+}
+
+impl Outgoing {
+    /// `data` of `shape`, rounded into `dtype`, ready for a safetensors file.
+    pub(crate) fn new(dtype: Dtype, shape: Vec<usize>, data: &[f64]) -> Outgoing {
+        Outgoing {
+            dtype: st_dtype(dtype),
+            shape,
+            bytes: encode(data, dtype),
+        }
+    }
 }
 
 impl View for &Outgoing {
@@ -265,14 +276,7 @@ fn split(file: &TraceFile, sidecar: &str) -> (TraceFile, Vec<(String, Outgoing)>
     let mut take = |value: &ValueRepr, name: String, dtype: Dtype| -> ValueRepr {
         match value {
             ValueRepr::Tensor { shape, data } if !shape.is_empty() => {
-                out.push((
-                    name.clone(),
-                    Outgoing {
-                        dtype: st_dtype(dtype),
-                        shape: shape.clone(),
-                        bytes: encode(data, dtype),
-                    },
-                ));
+                out.push((name.clone(), Outgoing::new(dtype, shape.clone(), data)));
                 ValueRepr::Sidecar {
                     tensor: name,
                     shape: None,
