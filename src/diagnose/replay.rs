@@ -7,7 +7,7 @@ use super::{SweepAnalysis, analyse};
 use crate::control::{Cancelled, Control};
 use crate::dtype::{Dtype, Subnormals};
 use crate::sweep::Sweep;
-use crate::tensor::Value;
+use crate::tensor::{Value, scan};
 use crate::trace::Trace;
 use serde::Serialize;
 use std::collections::HashSet;
@@ -196,12 +196,14 @@ pub(super) fn compared(
         .filter_map(|param| {
             let here = sweep.adjoint(param)?;
             let there = reference.adjoint(param)?;
-            let (here_data, there_data) = (here.to_f64(), there.to_f64());
-            let scale = there_data.iter().fold(0.0f64, |acc, x| acc.max(x.abs()));
-            let error = here_data
-                .iter()
-                .zip(there_data.iter())
-                .fold(0.0f64, |acc, (a, b)| acc.max((a - b).abs()));
+            // Pairwise in blocks: a widened copy of each gradient cost more than the comparison.
+            let (mut scale, mut error) = (0.0f64, 0.0f64);
+            if here.len() == there.len() {
+                scan::scan_pairs(here.elements(), there.elements(), |_, a, b| {
+                    scale = scale.max(b.abs());
+                    error = error.max((a - b).abs());
+                });
+            }
             let relative_error = if scale > 0.0 { error / scale } else { error };
             Some(ReplayGradient {
                 param,
@@ -269,13 +271,31 @@ fn lost_element(
     after: &Value,
     fraction: f64,
 ) -> Option<(usize, f64)> {
-    let (b, c, a) = (before.to_f64(), contribution.to_f64(), after.to_f64());
-    (0..a.len()).find_map(|k| {
-        let (b, c, a) = (b[k.min(b.len() - 1)], c[k.min(c.len() - 1)], a[k]);
+    let loss = |b: f64, c: f64, a: f64| {
         if c == 0.0 || !(b.is_finite() && c.is_finite() && a.is_finite()) {
             return None;
         }
         let lost = ((a - b) - c).abs() / c.abs();
-        (lost >= fraction).then_some((k, lost.min(1.0)))
+        (lost >= fraction).then_some(lost.min(1.0))
+    };
+    if before.len() == after.len() && contribution.len() == after.len() {
+        // The common case, in blocks: no widened copy of three tensors per entry.
+        let mut first = None;
+        scan::scan_triples(
+            before.elements(),
+            contribution.elements(),
+            after.elements(),
+            |k, b, c, a| {
+                if first.is_none() {
+                    first = loss(b, c, a).map(|lost| (k, lost));
+                }
+            },
+        );
+        return first;
+    }
+    // A one-element sum or contribution against a tensor: index it as one.
+    let (b, c, a) = (before.to_f64(), contribution.to_f64(), after.to_f64());
+    (0..a.len()).find_map(|k| {
+        loss(b[k.min(b.len() - 1)], c[k.min(c.len() - 1)], a[k]).map(|lost| (k, lost))
     })
 }

@@ -9,7 +9,8 @@ use super::origin::OriginClass;
 use super::settings::Settings;
 use crate::dtype::Dtype;
 use crate::sweep::{FlagKind, Sweep};
-use crate::tensor::{Survey, Value, l2_norm};
+use crate::tensor::scan::{self, Select};
+use crate::tensor::{Elements, Survey, Value, l2_norm};
 use serde::{Deserialize, Serialize};
 
 /// A flag rule.
@@ -331,19 +332,6 @@ pub(super) struct RuleInput<'a, 's> {
     pub settings: &'a Settings,
 }
 
-/// The first element of `data` for which `bad` holds, and how many do.
-fn first_where(data: &[f64], bad: impl Fn(usize, f64) -> bool) -> Option<(usize, f64, usize)> {
-    let mut first = None;
-    let mut count = 0;
-    for (index, &x) in data.iter().enumerate() {
-        if bad(index, x) {
-            count += 1;
-            first.get_or_insert((index, x));
-        }
-    }
-    first.map(|(index, x)| (index, x, count))
-}
-
 /// Collects findings for one sweep, one per node and rule.
 pub(super) struct Collector<'a> {
     pub settings: &'a Settings,
@@ -426,8 +414,8 @@ impl<'a> Collector<'a> {
         if !(scan_non_finite || scan_large || scan_subnormal) {
             return;
         }
-        let data = value.to_f64();
-        if scan_non_finite && let Some(hit) = first_where(&data, |_, x| !x.is_finite()) {
+        let elements = value.elements();
+        if scan_non_finite && let Some(hit) = scan::first_where(elements, |_, x| !x.is_finite()) {
             self.push(
                 Rule::NonFinite,
                 node,
@@ -439,10 +427,10 @@ impl<'a> Collector<'a> {
             );
         }
         if scan_large {
-            if let Some(hit) = first_where(&data, |_, x| x.is_finite() && x.abs() > max) {
+            if let Some(hit) = scan::first_where(elements, |_, x| x.is_finite() && x.abs() > max) {
                 self.push(Rule::Overflow, node, step, site, Measure::Element, hit, max);
             }
-            if let Some(hit) = first_where(&data, |_, x| {
+            if let Some(hit) = scan::first_where(elements, |_, x| {
                 x.is_finite() && x.abs() > band && x.abs() <= max
             }) {
                 self.push(
@@ -456,7 +444,7 @@ impl<'a> Collector<'a> {
                 );
             }
         }
-        if scan_subnormal && let Some(hit) = first_where(&data, |_, x| self.dtype.is_subnormal(x)) {
+        if scan_subnormal && let Some(hit) = scan::first_subnormal(elements, self.dtype) {
             self.push(
                 Rule::Underflow,
                 node,
@@ -488,12 +476,15 @@ impl<'a> Collector<'a> {
         if survey.zeros == 0 && !scan_overflow {
             return;
         }
-        let (data, reference) = (value.to_f64(), reference.to_f64());
+        if value.len() != reference.len() {
+            return;
+        }
+        let (data, reference) = (value.elements(), reference.elements());
         if survey.zeros > 0 {
-            self.flushed(node, step, site, &data, &reference);
+            self.flushed(node, step, site, data, reference);
         }
         if scan_overflow {
-            self.overflowed(node, step, site, &data, &reference);
+            self.overflowed(node, step, site, data, reference);
         }
     }
 
@@ -503,16 +494,14 @@ impl<'a> Collector<'a> {
         node: usize,
         step: usize,
         site: Site,
-        data: &[f64],
-        reference: &[f64],
+        data: Elements<'_>,
+        reference: Elements<'_>,
     ) {
-        if data.len() != reference.len() {
-            return;
-        }
-        if let Some((element, _, count)) = first_where(data, |index, x| {
-            x.is_infinite() && reference[index].is_finite()
-        }) {
-            let hit = (element, reference[element], count);
+        if let Some(hit) =
+            scan::first_selected_pair_where(data, reference, Select::NonFinite, |x, y| {
+                x.is_infinite() && y.is_finite()
+            })
+        {
             self.push(
                 Rule::Overflow,
                 node,
@@ -526,14 +515,15 @@ impl<'a> Collector<'a> {
     }
 
     /// Elements that are zero here but not in the reference.
-    fn flushed(&mut self, node: usize, step: usize, site: Site, data: &[f64], reference: &[f64]) {
-        if data.len() != reference.len() {
-            return;
-        }
-        if let Some((element, _, count)) = first_where(data, |index, x| {
-            x == 0.0 && reference[index] != 0.0 && reference[index].is_finite()
-        }) {
-            let hit = (element, reference[element], count);
+    fn flushed(
+        &mut self,
+        node: usize,
+        step: usize,
+        site: Site,
+        data: Elements<'_>,
+        reference: Elements<'_>,
+    ) {
+        if let Some(hit) = scan::first_flushed(data, reference) {
             self.push(
                 Rule::Underflow,
                 node,
@@ -668,8 +658,7 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
             let survey = adjoint.survey();
             let limits = trace.dtype().limits();
             if survey.min_abs < limits.min_normal()
-                && let Some(hit) =
-                    first_where(&adjoint.to_f64(), |_, x| trace.dtype().is_subnormal(x))
+                && let Some(hit) = scan::first_subnormal(adjoint.elements(), trace.dtype())
             {
                 collector.push(
                     Rule::Underflow,

@@ -2,6 +2,7 @@
 //! conversions between them and the `f64` the op rules compute in.
 
 use crate::dtype::Dtype;
+use half::slice::HalfFloatSliceExt;
 use half::{bf16, f16};
 
 /// An element type of tensor storage.
@@ -23,6 +24,29 @@ pub trait Float: Copy + Send + Sync + PartialEq + std::fmt::Debug + 'static {
     fn buffer(data: Vec<Self>) -> Buffer;
     /// Neither NaN nor infinite (branch-free, so scans vectorise).
     fn finite(self) -> bool;
+    /// Zero of either sign (on the bits where that is cheaper).
+    fn is_zero(self) -> bool;
+    /// Non-zero and below this type's smallest normal magnitude, on the bits.
+    fn is_subnormal(self) -> bool;
+    /// The elements as f32s in place, when they are f32s.
+    fn as_f32(_: &[Self]) -> Option<&[f32]> {
+        None
+    }
+    /// f32s converted into this type, each rounded once to nearest, ties to
+    /// even: the same numbers as through f64 (an f32 is exact there), by the
+    /// processor's own conversion where it has one.
+    fn from_f32_slice(data: &[f32]) -> Vec<Self> {
+        data.iter().map(|&x| Self::from_f64(f64::from(x))).collect()
+    }
+    /// [`Float::from_f32_slice`] taking the vector (kept as it is for f32).
+    fn from_f32_vec(data: Vec<f32>) -> Vec<Self> {
+        Self::from_f32_slice(&data)
+    }
+    /// The elements widened exactly into f32s by the processor's own
+    /// conversion, for the half-precision types (every f16 and bf16 is an f32).
+    fn widened_to_f32(_: &[Self]) -> Option<Vec<f32>> {
+        None
+    }
 }
 
 impl Float for f64 {
@@ -48,6 +72,15 @@ impl Float for f64 {
     #[inline]
     fn finite(self) -> bool {
         self.is_finite()
+    }
+    #[inline]
+    fn is_zero(self) -> bool {
+        self == 0.0
+    }
+    #[inline]
+    fn is_subnormal(self) -> bool {
+        let bits = self.to_bits() & 0x7fff_ffff_ffff_ffff;
+        bits != 0 && bits < 0x0010_0000_0000_0000
     }
 }
 
@@ -75,6 +108,24 @@ impl Float for f32 {
     fn finite(self) -> bool {
         self.is_finite()
     }
+    #[inline]
+    fn is_zero(self) -> bool {
+        self == 0.0
+    }
+    #[inline]
+    fn is_subnormal(self) -> bool {
+        let bits = self.to_bits() & 0x7fff_ffff;
+        bits != 0 && bits < 0x0080_0000
+    }
+    fn as_f32(s: &[f32]) -> Option<&[f32]> {
+        Some(s)
+    }
+    fn from_f32_slice(data: &[f32]) -> Vec<f32> {
+        data.to_vec()
+    }
+    fn from_f32_vec(data: Vec<f32>) -> Vec<f32> {
+        data
+    }
 }
 
 impl Float for f16 {
@@ -95,14 +146,32 @@ impl Float for f16 {
     }
     #[inline]
     fn from_f64(x: f64) -> f16 {
-        // Through the engine's own correctly rounded conversion: exact for
-        // every representable input, and one rounding (never two) otherwise.
-        f16::from_f64(Dtype::F16.round(x))
+        // Through f32 rounded to odd: one correct rounding, never two (see
+        // `dtype::to_f32_odd`), by the processor's conversion where it has one.
+        f16::from_f32(crate::dtype::to_f32_odd(x))
     }
     #[inline]
     fn finite(self) -> bool {
         // binary16: the exponent field all ones is infinity or NaN.
         self.to_bits() & 0x7c00 != 0x7c00
+    }
+    #[inline]
+    fn is_zero(self) -> bool {
+        self.to_bits() & 0x7fff == 0
+    }
+    #[inline]
+    fn is_subnormal(self) -> bool {
+        // binary16: a zero exponent field below 2^-14.
+        let bits = self.to_bits() & 0x7fff;
+        bits != 0 && bits < 0x0400
+    }
+    fn from_f32_slice(data: &[f32]) -> Vec<f16> {
+        let mut out = vec![f16::ZERO; data.len()];
+        out.convert_from_f32_slice(data);
+        out
+    }
+    fn widened_to_f32(data: &[f16]) -> Option<Vec<f32>> {
+        Some(data.to_f32_vec())
     }
 }
 
@@ -124,11 +193,29 @@ impl Float for bf16 {
     }
     #[inline]
     fn from_f64(x: f64) -> bf16 {
-        bf16::from_f64(Dtype::Bf16.round(x))
+        bf16::from_f32(crate::dtype::to_f32_odd(x))
     }
     #[inline]
     fn finite(self) -> bool {
         self.to_bits() & 0x7f80 != 0x7f80
+    }
+    #[inline]
+    fn is_zero(self) -> bool {
+        self.to_bits() & 0x7fff == 0
+    }
+    #[inline]
+    fn is_subnormal(self) -> bool {
+        // bfloat16: f32's exponent field, so a zero one below 2^-126.
+        let bits = self.to_bits() & 0x7fff;
+        bits != 0 && bits < 0x0080
+    }
+    fn from_f32_slice(data: &[f32]) -> Vec<bf16> {
+        let mut out = vec![bf16::ZERO; data.len()];
+        out.convert_from_f32_slice(data);
+        out
+    }
+    fn widened_to_f32(data: &[bf16]) -> Option<Vec<f32>> {
+        Some(data.to_f32_vec())
     }
 }
 
@@ -337,14 +424,99 @@ pub fn narrow<T: Float>(data: &[f64]) -> Vec<T> {
     data.iter().map(|&x| T::from_f64(x)).collect()
 }
 
-/// Elements of one type converted into another through f64.
+/// Elements of one type converted into another: the numbers are those of
+/// the way through f64 (exact widening, then one rounding), taken by the
+/// vectorised f32 conversions where the source is f32.
 pub fn convert<S: Float, T: Float>(data: &[S]) -> Vec<T> {
+    if let Some(singles) = S::as_f32(data) {
+        return T::from_f32_slice(singles);
+    }
+    if let Some(singles) = S::widened_to_f32(data) {
+        return T::from_f32_vec(singles);
+    }
     data.iter().map(|x| T::from_f64(x.to_f64())).collect()
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The vectorised f32 conversions give the numbers of the engine's own
+    /// rounding through f64 (tested against IEEE 754-2019 binary16 and Intel's
+    /// bfloat16 in `dtype`), bit for bit: a sweep of bit patterns covering
+    /// every exponent, plus each f16 and bf16 rounding boundary and its
+    /// neighbours (ties go to even), subnormals, overflow and NaN.
+    #[test]
+    fn f32_conversions_round_as_the_way_through_f64() {
+        let mut singles: Vec<f32> = (0..=u32::MAX).step_by(4093).map(f32::from_bits).collect();
+        for bits in 0..=u16::MAX {
+            // The midpoint above each f16 and each bf16, and its neighbours.
+            let half = f16::from_bits(bits).to_f32();
+            let next = f16::from_bits(bits.wrapping_add(1)).to_f32();
+            let brain = bf16::from_bits(bits).to_f32();
+            let brain_next = bf16::from_bits(bits.wrapping_add(1)).to_f32();
+            for middle in [
+                (half + next) / 2.0,
+                f32::from_bits(brain.to_bits() | 0x8000),
+                brain_next,
+            ] {
+                for delta in [-1i64, 0, 1] {
+                    let bits = (i64::from(middle.to_bits()) + delta).clamp(0, i64::from(u32::MAX));
+                    singles.push(f32::from_bits(bits as u32));
+                }
+            }
+        }
+        singles.extend([65519.996, 65520.0, f32::MAX, f32::INFINITY, -0.0, f32::NAN]);
+        let through_f64 = |x: f32| <f16 as Float>::from_f64(f64::from(x));
+        let fast: Vec<f16> = convert(&singles);
+        for (&x, y) in singles.iter().zip(&fast) {
+            let expected = through_f64(x);
+            assert!(
+                y.to_bits() == expected.to_bits() || (y.is_nan() && expected.is_nan()),
+                "f16 of {x:e} ({:#x}): {:#x} against {:#x}",
+                x.to_bits(),
+                y.to_bits(),
+                expected.to_bits()
+            );
+        }
+        let fast: Vec<bf16> = convert(&singles);
+        for (&x, y) in singles.iter().zip(&fast) {
+            let expected = <bf16 as Float>::from_f64(f64::from(x));
+            assert!(
+                y.to_bits() == expected.to_bits() || (y.is_nan() && expected.is_nan()),
+                "bf16 of {x:e} ({:#x}): {:#x} against {:#x}",
+                x.to_bits(),
+                y.to_bits(),
+                expected.to_bits()
+            );
+        }
+    }
+
+    /// Every f16 and every bf16 (all 2^16 patterns each) converted into every
+    /// other type agrees with the way through f64, bit for bit (NaN as NaN).
+    #[test]
+    fn half_conversions_agree_with_the_way_through_f64() {
+        fn check<S: Float, T: Float>(data: &[S]) {
+            let fast: Vec<T> = convert(data);
+            for (x, y) in data.iter().zip(&fast) {
+                let expected = T::from_f64(x.to_f64());
+                let (y, expected) = (y.to_f64(), expected.to_f64());
+                assert!(
+                    y.to_bits() == expected.to_bits() || (y.is_nan() && expected.is_nan()),
+                    "{x:?} into {:?}: {y:e} against {expected:e}",
+                    T::DTYPE
+                );
+            }
+        }
+        let halves: Vec<f16> = (0..=u16::MAX).map(f16::from_bits).collect();
+        let brains: Vec<bf16> = (0..=u16::MAX).map(bf16::from_bits).collect();
+        check::<f16, f64>(&halves);
+        check::<f16, f32>(&halves);
+        check::<f16, bf16>(&halves);
+        check::<bf16, f64>(&brains);
+        check::<bf16, f32>(&brains);
+        check::<bf16, f16>(&brains);
+    }
 
     #[test]
     fn conversions_are_exact_for_representable_values_and_round_otherwise() {

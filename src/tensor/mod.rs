@@ -3,6 +3,7 @@
 //! axes) the op rules share.
 
 mod float;
+pub mod scan;
 mod storage;
 mod survey;
 
