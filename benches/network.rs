@@ -348,11 +348,11 @@ fn main() {
         drop(sweep);
         let diagnosis = diagnose(&trace, &Settings::default());
         println!("  ebb check: {}", diagnosis.headline);
-        // `ebb verify` with two sampled entries per parameter: every
+        // `ebb verify` with one sampled entry per parameter: every
         // finite difference re-evaluates the whole network in f64.
         let verify_start = Instant::now();
         let options = ebb::verify::VerifyOptions {
-            samples: 2,
+            samples: 1,
             ..Default::default()
         };
         let verification = ebb::verify::verify(&trace, &options);
