@@ -331,18 +331,38 @@ fn main() {
         );
         // The sweep must run clean and the recorded values must be the op
         // table's own: a bench of a broken trace would time the wrong thing.
+        // A causal mask's −inf is noted, not flagged (`sweep::masked`).
         let mut sweep = Sweep::new(&trace, LedgerMode::Off);
         sweep.run_to_end();
+        let masking = ebb::sweep::Masking::of(&sweep);
         let forward_start = Instant::now();
         let forward = ebb::diagnose::check_forward(&trace, 1.0);
         println!(
-            "  sweep flags: {}; forward consistency: {} nodes recomputed, {} beyond tolerance ({})",
-            sweep.flags().len(),
+            "  sweep flags: {} ({} masked nodes noted); forward consistency: {} nodes recomputed, {} beyond tolerance ({})",
+            masking.unexplained(sweep.flags()).len(),
+            masking.masked.len(),
             forward.checked,
             forward.mismatches.len(),
             ms(forward_start.elapsed())
         );
         drop(sweep);
+        let diagnosis = diagnose(&trace, &Settings::default());
+        println!("  ebb check: {}", diagnosis.headline);
+        // `ebb verify` with one sampled entry per parameter: every
+        // finite difference re-evaluates the whole network in f64.
+        let verify_start = Instant::now();
+        let options = ebb::verify::VerifyOptions {
+            samples: 1,
+            ..Default::default()
+        };
+        let verification = ebb::verify::verify(&trace, &options);
+        println!(
+            "  ebb verify: {} ({} parameters by central differences, tangent relative error {:.1e}; {})",
+            verification.verdict().name(),
+            verification.differences.len(),
+            verification.tangent.map_or(f64::NAN, |t| t.relative),
+            ms(verify_start.elapsed())
+        );
         let (off_min, off_median) = timed(repeats, || {
             let mut sweep = Sweep::new(&trace, LedgerMode::Off);
             sweep.run_to_end();

@@ -22,7 +22,7 @@ pub use gradients::{Gradients, GradientsError};
 
 use crate::diagnose::{Diagnosis, Rule};
 use crate::format::{compact, shape as show};
-use crate::sweep::{Flag, FlagKind, Sweep};
+use crate::sweep::{Flag, FlagKind, Masking, Sweep};
 use crate::trace::{Num, Trace};
 use serde::Serialize;
 
@@ -45,8 +45,13 @@ pub struct Report {
     /// absent when there are none.
     #[serde(skip_serializing_if = "Vec::is_empty")]
     pub rounded_on_load: Vec<RoundingEntry>,
-    /// Flags in sweep order; the first is marked.
+    /// Flags in sweep order; the first is marked. A mask's absorbed −inf is
+    /// not flagged (`sweep::masked`): it is listed in `masked`.
     pub flags: Vec<FlagEntry>,
+    /// Nodes holding −inf on purpose (an attention mask) that later ops
+    /// absorb: noted, not flagged; absent when there are none.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub masked: Vec<MaskedEntry>,
     /// True when nothing was flagged.
     pub clean: bool,
     /// Whether the check fails (exit status 1): something was flagged, or
@@ -61,6 +66,19 @@ pub struct Report {
     /// The sweep's flags by node index, to place the origin among them.
     #[serde(skip)]
     sweep_flags: Vec<Flag>,
+}
+
+/// A node whose −inf is an absorbed mask.
+#[derive(Debug, Clone, Serialize)]
+pub struct MaskedEntry {
+    /// The node's id.
+    pub node: String,
+    /// Its sweep step (0-based).
+    pub step: usize,
+    /// Elements that are −inf.
+    pub count: usize,
+    /// The nodes with finite values that absorb it.
+    pub absorbed_by: Vec<String>,
 }
 
 /// The trace's header.
@@ -267,11 +285,27 @@ impl Report {
                 }
             })
             .collect();
-        let flags: Vec<FlagEntry> = sweep
-            .flags()
+        let masking = Masking::of(sweep);
+        let sweep_flags: Vec<Flag> = masking
+            .unexplained(sweep.flags())
+            .into_iter()
+            .cloned()
+            .collect();
+        let flags: Vec<FlagEntry> = sweep_flags
             .iter()
             .enumerate()
             .map(|(k, flag)| flag_entry(trace, flag, k == 0))
+            .collect();
+        let id = |node: usize| trace.node(node).id.clone();
+        let masked = masking
+            .masked
+            .iter()
+            .map(|masked| MaskedEntry {
+                node: id(masked.node),
+                step: masked.step,
+                count: masked.count,
+                absorbed_by: masked.absorbed_by.iter().map(|&node| id(node)).collect(),
+            })
             .collect();
         Report {
             report: REPORT_VERSION,
@@ -294,8 +328,9 @@ impl Report {
             failed: !flags.is_empty(),
             fail_on: None,
             flags,
+            masked,
             diagnosis: None,
-            sweep_flags: sweep.flags().to_vec(),
+            sweep_flags,
         }
     }
 
@@ -435,8 +470,35 @@ impl Report {
     }
 
     fn flags_text(&self) -> String {
+        let mut out = self.flags_only_text();
+        for masked in &self.masked {
+            out.push_str(&format!(
+                "masked   '{}' holds −inf in {} {} (a mask), absorbed by {}: not a fault\n",
+                masked.node,
+                masked.count,
+                if masked.count == 1 {
+                    "element"
+                } else {
+                    "elements"
+                },
+                masked
+                    .absorbed_by
+                    .iter()
+                    .map(|id| format!("'{id}'"))
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ));
+        }
+        out
+    }
+
+    fn flags_only_text(&self) -> String {
         if self.flags.is_empty() {
-            return "flags    none: every value, partial and adjoint is finite\n".to_string();
+            return if self.masked.is_empty() {
+                "flags    none: every value, partial and adjoint is finite\n".to_string()
+            } else {
+                "flags    none: every partial and adjoint is finite, and every −inf value is a mask that is absorbed\n".to_string()
+            };
         }
         let marked = self.flags.iter().any(|flag| flag.origin == Some(true));
         let mut out = format!(

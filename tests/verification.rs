@@ -344,6 +344,33 @@ fn kinks_are_named_when_a_step_crosses_them() {
     assert!(suspect.detail.contains("kinks at"), "{}", suspect.detail);
 }
 
+// A ReLU unit 2e-6 below its kink: the step h = ε^(1/3) ≈ 6.06e-6 crosses
+// it, and the difference picks up (h − 2e-6)/(2h) ≈ 0.33 of the other
+// piece; h/16 ≈ 3.8e-7 stays on one side. f(w) = w² + relu(w − 1 − 2e-6)
+// has f'(1) = 2 (closed form).
+#[test]
+fn a_step_that_crosses_a_kink_near_the_point_is_retried_shorter() {
+    let mut tape = Tape::new("near a kink", Dtype::F64);
+    let w = tape.param("w", 1.0);
+    let square = tape.mul(w, w);
+    let shift = tape.constant("shift", 1.0 + 2e-6);
+    let pre = tape.sub(w, shift);
+    let unit = tape.relu(pre);
+    let loss = tape.add(square, unit);
+    let trace = checked(tape.finish(loss));
+    let verification = verify(&trace, &VerifyOptions::default());
+    let check = &verification.differences[0];
+    let entry = check.entries[0];
+    assert!(
+        entry.step < 1e-6,
+        "the shorter step was used: {}",
+        entry.step
+    );
+    assert!((entry.central - 2.0).abs() < 1e-6, "{}", entry.central);
+    assert!(check.kinks.is_empty());
+    assert!(verification.agrees(), "{}", verification.to_text(&trace));
+}
+
 #[test]
 fn the_wrong_partial_demo_names_exactly_its_custom_node() {
     let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("traces/wrong_partial.ron");

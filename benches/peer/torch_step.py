@@ -45,31 +45,30 @@ def deep_tanh() -> tuple[nn.Module, Callable[[torch.Tensor], torch.Tensor], torc
 
 
 class Cnn(nn.Module):
-    """Three 3x3 convolutions (32, 64, 128 channels, padding 1), batch
-    normalisation (training mode), ReLU and 2x2 max pooling after the first
-    two, ReLU after the third, global average pooling, a linear head."""
+    """Two 3x3 convolutions (32 and 64 channels, padding 1, no bias: batch
+    normalisation cancels it), each followed by
+    batch normalisation (training mode), ReLU and 2x2 max pooling, then a
+    linear head on the flattened 64x8x8 features."""
 
     def __init__(self) -> None:
         super().__init__()
-        self.conv1 = nn.Conv2d(3, 32, 3, padding=1)
+        self.conv1 = nn.Conv2d(3, 32, 3, padding=1, bias=False)
         self.bn1 = nn.BatchNorm2d(32)
-        self.conv2 = nn.Conv2d(32, 64, 3, padding=1)
+        self.conv2 = nn.Conv2d(32, 64, 3, padding=1, bias=False)
         self.bn2 = nn.BatchNorm2d(64)
-        self.conv3 = nn.Conv2d(64, 128, 3, padding=1)
-        self.head = nn.Linear(128, 10)
+        self.head = nn.Linear(64 * 8 * 8, 10)
 
     def forward(self, x: torch.Tensor) -> torch.Tensor:
         f = nn.functional
         x = f.max_pool2d(f.relu(self.bn1(self.conv1(x))), 2)
         x = f.max_pool2d(f.relu(self.bn2(self.conv2(x))), 2)
-        x = f.relu(self.conv3(x))
-        return self.head(x.mean(dim=(2, 3)))
+        return self.head(x.flatten(1))
 
 
 def cnn() -> tuple[nn.Module, Callable[[torch.Tensor], torch.Tensor], torch.Tensor]:
     model = Cnn().train()
-    x = torch.randn(32, 3, 32, 32)
-    targets = torch.randint(0, 10, (32,))
+    x = torch.randn(64, 3, 32, 32)
+    targets = torch.randint(0, 10, (64,))
     f = nn.functional
     return model, lambda out: f.nll_loss(f.log_softmax(out, dim=-1), targets), x
 
@@ -77,14 +76,17 @@ def cnn() -> tuple[nn.Module, Callable[[torch.Tensor], torch.Tensor], torch.Tens
 class Block(nn.Module):
     """A pre-norm transformer block written out as the Rust recorder writes
     it: x + attention(layer_norm(x)), then x + ff(layer_norm(x)), attention
-    as softmax(Q K^T / sqrt(d_head)) V (no fused kernel), exact GELU."""
+    as softmax(Q K^T / sqrt(d_head) + M) V with M the causal mask (0 on and
+    below the diagonal, -inf above it), no fused kernel, exact GELU."""
 
     def __init__(self, width: int, heads: int, hidden: int) -> None:
         super().__init__()
         self.heads = heads
         self.ln1 = nn.LayerNorm(width)
         self.q = nn.Linear(width, width)
-        self.k = nn.Linear(width, width)
+        # No key bias: it adds the same q.b to every score of a row, which
+        # softmax cancels (the Rust recording leaves it out too).
+        self.k = nn.Linear(width, width, bias=False)
         self.v = nn.Linear(width, width)
         self.o = nn.Linear(width, width)
         self.ln2 = nn.LayerNorm(width)
@@ -100,7 +102,8 @@ class Block(nn.Module):
             return t.view(batch, tokens, self.heads, head).transpose(1, 2)
 
         q, k, v = split(self.q(a)), split(self.k(a)), split(self.v(a))
-        weights = torch.softmax(q @ k.transpose(-2, -1) * head**-0.5, dim=-1)
+        mask = torch.full((tokens, tokens), float("-inf")).triu(1)
+        weights = torch.softmax(q @ k.transpose(-2, -1) * head**-0.5 + mask, dim=-1)
         mixed = (weights @ v).transpose(1, 2).reshape(batch, tokens, width)
         x = x + self.o(mixed)
         return x + self.down(nn.functional.gelu(self.up(self.ln2(x))))

@@ -98,6 +98,12 @@ fn forward(trace: &Trace, origin: &Origin) -> String {
     let inputs = &origin.operands;
     let x = inputs.first().copied().unwrap_or(f64::NAN);
     let y = inputs.get(1).copied().unwrap_or(f64::NAN);
+    if origin.leak {
+        return format!(
+            "the forward value of '{id}' ({op}) is {result}: {}",
+            leak(trace, origin.node)
+        );
+    }
     let what = match node.op {
         Op::Input | Op::Param | Op::Const => {
             return format!(
@@ -150,6 +156,32 @@ fn forward(trace: &Trace, origin: &Origin) -> String {
         }
     };
     format!("the forward value of '{id}' ({op}) is {result}: {what}")
+}
+
+/// Why a mask's −inf came out of `node` as a fault: a fully masked row of a
+/// softmax, or an op that does not absorb −inf.
+fn leak(trace: &Trace, node: usize) -> String {
+    let recorded = trace.node(node);
+    // The mask's source: follow the non-finite inputs back to a leaf.
+    let mut source = node;
+    while let Some(&input) = trace
+        .node(source)
+        .inputs
+        .iter()
+        .find(|&&input| !trace.node(input).value.is_finite())
+    {
+        source = input;
+    }
+    let mask = &trace.node(source).id;
+    if matches!(recorded.op, Op::Softmax | Op::LogSoftmax) {
+        return format!(
+            "every element of one of its rows is masked with −inf (from '{mask}'), and softmax of a row that is all −inf is 0/0 = NaN (so is PyTorch's): leave at least one place of each row unmasked, such as the diagonal of a causal mask"
+        );
+    }
+    format!(
+        "the −inf of the mask '{mask}' reaches it, and {} does not absorb it the way softmax does: apply the mask to the scores before softmax",
+        recorded.op_name
+    )
 }
 
 #[cfg(test)]

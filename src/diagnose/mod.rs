@@ -48,7 +48,7 @@ pub use settings::{Settings, SettingsError};
 use crate::control::{Cancelled, Control};
 use crate::dtype::{Dtype, Subnormals};
 use crate::format::compact;
-use crate::sweep::Sweep;
+use crate::sweep::{Masked, Masking, Sweep};
 use crate::trace::Trace;
 use origin::RootCauses;
 
@@ -56,6 +56,8 @@ use origin::RootCauses;
 struct SweepAnalysis {
     pub findings: Vec<Finding>,
     pub causes: RootCauses,
+    /// Absorbed masks: −inf that is not a fault (`sweep::masked`).
+    pub masking: Masking,
 }
 
 /// Runs the rules and the root-cause search over a finished sweep, and ties them together:
@@ -66,7 +68,18 @@ fn analyse(sweep: &Sweep, reference: Option<&Sweep>, settings: &Settings) -> Swe
         reference,
         settings,
     });
-    let causes = origin::trace_back(sweep);
+    let masking = Masking::of(sweep);
+    // A masked node's −inf value is a fact, not a fault: its value findings
+    // go (an adjoint or partial finding at it would keep it unmasked).
+    findings.retain(|finding| {
+        !(matches!(finding.rule, Rule::NonFinite | Rule::Overflow)
+            && masking.is_masked(finding.node)
+            && finding
+                .measures
+                .iter()
+                .all(|measured| measured.site == Site::Value))
+    });
+    let causes = origin::trace_back(sweep, &masking);
     for finding in &mut findings {
         if finding.rule == Rule::NonFinite
             && finding
@@ -114,7 +127,11 @@ fn analyse(sweep: &Sweep, reference: Option<&Sweep>, settings: &Settings) -> Swe
         }
         findings.sort_by_key(|finding| (finding.step, finding.rule));
     }
-    SweepAnalysis { findings, causes }
+    SweepAnalysis {
+        findings,
+        causes,
+        masking,
+    }
 }
 
 /// The whole diagnosis of one trace.
@@ -153,6 +170,10 @@ pub struct Diagnosis {
     /// ReLU nodes with units dead for the whole batch, in sweep order
     /// (flagged when the fraction reaches `dead_fraction`).
     pub dead: Vec<DeadUnits>,
+    /// Masks: nodes whose −inf values were recorded on purpose and absorbed
+    /// (softmax of masked attention scores), in sweep order. They are noted,
+    /// not flagged (`sweep::masked` has the policy).
+    pub masked: Vec<Masked>,
     /// The group whose activation RMS is furthest from the input side's:
     /// (index into `groups`, ratio, index of the group nearest the inputs).
     pub activation_spread: Option<(usize, f64, usize)>,
@@ -360,6 +381,7 @@ pub fn diagnose_with(
     let SweepAnalysis {
         mut findings,
         causes,
+        masking,
     } = own_analysis;
     findings.extend(health.findings);
     findings.sort_by_key(|finding| (finding.step, finding.rule));
@@ -416,6 +438,7 @@ pub fn diagnose_with(
         saturation: health.saturation,
         dead: health.dead,
         activation_spread: health.spread,
+        masked: masking.masked,
         headline: String::new(),
         causes,
     };
@@ -766,7 +789,14 @@ fn headline(trace: &Trace, diagnosis: &Diagnosis) -> String {
         );
     }
     if diagnosis.findings.is_empty() {
-        return format!("clean: no rule fired in {}", diagnosis.dtype);
+        return match diagnosis.masked.len() {
+            0 => format!("clean: no rule fired in {}", diagnosis.dtype),
+            n => format!(
+                "clean: no rule fired in {}; {n} masked {} hold −inf that later ops absorb (a mask)",
+                diagnosis.dtype,
+                if n == 1 { "node" } else { "nodes" }
+            ),
+        };
     }
     let rules: std::collections::BTreeSet<&str> = diagnosis
         .findings
@@ -1028,6 +1058,14 @@ fn origin_advice(trace: &Trace, origin: &Origin) -> String {
     let id = &node.id;
     let x = origin.operands.first().copied().unwrap_or(f64::NAN);
     match origin.class {
+        OriginClass::NonFiniteValue if origin.leak => match node.op {
+            Op::Softmax | Op::LogSoftmax => format!(
+                "A row of '{id}' is masked entirely: leave at least one place of every row unmasked (the diagonal of a causal mask), or fill with a large finite negative number instead of −inf."
+            ),
+            _ => format!(
+                "A mask's −inf reaches '{id}', which does not absorb it: add the mask to the scores before softmax, not after."
+            ),
+        },
         OriginClass::NonFiniteValue => match node.op {
             Op::Input | Op::Param | Op::Const => {
                 format!(

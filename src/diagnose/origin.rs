@@ -5,7 +5,7 @@
 
 use super::explain;
 use crate::ops;
-use crate::sweep::{FlagKind, Sweep};
+use crate::sweep::{FlagKind, Masking, Sweep};
 use crate::tensor::{Value, broadcast_source_indices};
 use crate::trace::{Partial, Trace};
 use serde::Serialize;
@@ -83,6 +83,9 @@ pub struct Origin {
     pub explanation: String,
     /// The parameters whose gradient it made non-finite, in recording order.
     pub reached: Vec<usize>,
+    /// For a non-finite value (a): its non-finite inputs are all a mask's
+    /// −inf (`sweep::masked`), which this node let through instead of absorbing.
+    pub leak: bool,
 }
 
 /// Where an infinite adjoint turned into NaN downstream of its origin.
@@ -280,13 +283,18 @@ fn first_non_finite_input(trace: &Trace, node: usize) -> Option<usize> {
 }
 
 /// Follows non-finite forward values from `node` back to the first node whose
-/// inputs are all finite.
-fn forward_origin(trace: &Trace, node: usize) -> usize {
+/// inputs are all finite, or to the node where a mask's −inf leaked (its
+/// non-finite inputs all carry a mask, which is not a fault in itself: the
+/// fault is the op that let it through). The second part says which.
+fn forward_origin(trace: &Trace, node: usize, masking: &Masking) -> (usize, bool) {
     let mut cursor = node;
     while let Some(input) = first_non_finite_input(trace, cursor) {
+        if masking.leaked_at(trace, cursor) {
+            return (cursor, true);
+        }
         cursor = input;
     }
-    cursor
+    (cursor, false)
 }
 
 /// The input elements that produced element `index` of an elementwise node.
@@ -309,7 +317,7 @@ fn input_elements(trace: &Trace, node: usize, index: usize) -> Vec<f64> {
 }
 
 /// Finds the root cause of every non-finite adjoint of a finished sweep with its ledger.
-pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
+pub(super) fn trace_back(sweep: &Sweep, masking: &Masking) -> RootCauses {
     let trace = sweep.trace();
     let ledger = sweep.ledger().expect("root causes need the ledger");
     let mut causes = vec![Cause::Finite; trace.nodes().len()];
@@ -343,6 +351,7 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
             result: bad,
             explanation,
             reached: Vec::new(),
+            leak: false,
         };
         causes[output] = Cause::Origin {
             index: add_origin(origin, &mut origins),
@@ -376,8 +385,10 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
             result,
             explanation: String::new(),
             reached: Vec::new(),
+            leak: false,
         };
         let origin_is_sum = entry.value.is_finite();
+        let mut leaked = false;
         if origin_is_sum {
             // Finite before, finite contribution, non-finite sum: overflow at a branch.
             let before = entry
@@ -402,7 +413,8 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
             let partial_element = partial.as_ref().map(|partial| element(partial, index));
             let g = element(&adjoint, index);
             if forward_bad {
-                let born = forward_origin(trace, u);
+                let (born, leak) = forward_origin(trace, u, masking);
+                leaked = leak;
                 origin.class = OriginClass::NonFiniteValue;
                 origin.node = born;
                 let bad_index = trace
@@ -447,6 +459,7 @@ pub(super) fn trace_back(sweep: &Sweep) -> RootCauses {
         origin.step = trace
             .sweep_rank(origin.node)
             .expect("an origin reaches the output");
+        origin.leak = leaked;
         origin.explanation = explain::origin(trace, &origin);
         causes[x] = Cause::Origin {
             index: add_origin(origin, &mut origins),

@@ -4,11 +4,13 @@
 
 mod flags;
 mod ledger;
+pub mod masked;
 mod pullback;
 mod scalar;
 
 pub use flags::{Flag, FlagKind};
 pub use ledger::{Contribution, DEFAULT_BUDGET, INTERVAL, Ledger};
+pub use masked::{Masked, Masking};
 pub use pullback::{Pulled, accumulate, bad_partial, pull_back, push_forward};
 
 use crate::control::{Cancelled, Control};

@@ -6,7 +6,10 @@
 //! re-evaluation runs in f64 whatever the trace's dtype), the step that
 //! balances truncation and rounding error for central differences (Press,
 //! Teukolsky, Vetterling & Flannery, "Numerical Recipes", 3rd ed., CUP 2007,
-//! §5.7).
+//! §5.7). A step whose two evaluations lie on different sides of a kink is
+//! retried at h/16 and h/256 (the rounding floor, 10·ε·|f|/h, grows to
+//! match); when all three cross (a kink at the point itself), the first
+//! step's difference is kept and the kink is listed.
 
 use super::compare::{Band, relative_error};
 use crate::control::{Cancelled, Control};
@@ -213,19 +216,49 @@ pub fn check_finite_differences_with(
             seed ^ (param as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15),
         ) {
             let x = value.get(element);
-            let step = f64::EPSILON.cbrt() * x.abs().max(1.0);
             let evaluate = |shift: f64| {
                 let mut moved = value.clone();
                 moved.set(element, x + shift);
                 reevaluate(trace, &[(param, moved)], Dtype::F64)
                     .expect("a parameter keeps its shape")
             };
-            let (plus, minus) = (evaluate(step), evaluate(-step));
-            for &node in &on_path {
-                if !kinks.contains(&node) && crossed_kink(trace, node, &plus, &minus) {
-                    kinks.push(node);
+            // A step that crosses a kink (a ReLU unit or a max-pool winner
+            // changing sides) differences two pieces of the function, not a
+            // derivative. In a large network some unit is near its kink, and
+            // the number crossed shrinks with the step, so a crossing step is
+            // retried 16 and 256 times shorter before the kink is blamed.
+            // A kink at the point itself is crossed by every step: then the
+            // first step's difference, the least rounded, is the one reported.
+            let base = f64::EPSILON.cbrt() * x.abs().max(1.0);
+            let mut first = None;
+            let mut chosen = None;
+            for step in [base, base / 16.0, base / 256.0] {
+                let (plus, minus) = (evaluate(step), evaluate(-step));
+                let crossed: Vec<usize> = on_path
+                    .iter()
+                    .copied()
+                    .filter(|&node| crossed_kink(trace, node, &plus, &minus))
+                    .collect();
+                if crossed.is_empty() {
+                    chosen = Some((step, plus, minus));
+                    break;
+                }
+                if first.is_none() {
+                    first = Some((step, plus, minus, crossed));
                 }
             }
+            let (step, plus, minus) = match chosen {
+                Some(chosen) => chosen,
+                None => {
+                    let (step, plus, minus, crossed) = first.expect("a step was tried");
+                    for node in crossed {
+                        if !kinks.contains(&node) {
+                            kinks.push(node);
+                        }
+                    }
+                    (step, plus, minus)
+                }
+            };
             let (above, below) = (objective(&plus, trace), objective(&minus, trace));
             let central = (above - below) / (2.0 * step);
             let floor = 10.0 * f64::EPSILON * above.abs().max(below.abs()) / step;

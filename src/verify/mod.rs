@@ -160,8 +160,12 @@ pub struct Verification {
     /// Ranked suspects, worst first.
     pub suspects: Vec<Suspect>,
     /// Flags the reverse sweep raised: where values are NaN or infinite, the
-    /// checks compare non-finite numbers and cannot judge a derivative.
+    /// checks compare non-finite numbers and cannot judge a derivative. A
+    /// mask's absorbed −inf (`sweep::masked`) is not counted: the checks
+    /// judge every derivative around it.
     pub sweep_flags: usize,
+    /// Nodes whose −inf is an absorbed mask, in sweep order.
+    pub masked: Vec<usize>,
     /// The dtype finite differences and the tangent sweep ran in.
     pub derivatives_in: Dtype,
     /// Checks that could not be made because their numbers are not finite.
@@ -256,7 +260,9 @@ pub fn verify_with(
             relative: relative_error(tangent, reverse),
         }
     });
-    let sweep_flags = sweep.flags().len();
+    let masking = crate::sweep::Masking::of(&sweep);
+    let sweep_flags = masking.unexplained(sweep.flags()).len();
+    let masked = masking.masked.iter().map(|masked| masked.node).collect();
     let not_finite = not_finite(&partials, &differences, &reported, tangent.as_ref());
     let custom = trace
         .sweep_order()
@@ -275,6 +281,7 @@ pub fn verify_with(
         tangent,
         suspects: Vec::new(),
         sweep_flags,
+        masked,
         derivatives_in: exact.dtype(),
         not_finite,
         custom,

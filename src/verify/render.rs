@@ -83,6 +83,17 @@ impl Verification {
                 }
             }
         }
+        if !self.masked.is_empty() {
+            let names: Vec<String> = self
+                .masked
+                .iter()
+                .map(|&n| format!("'{}'", id(n)))
+                .collect();
+            out.push_str(&format!(
+                "masked   {} hold −inf on purpose (a mask) that later ops absorb: every derivative around them is finite and judged\n",
+                names.join(", ")
+            ));
+        }
         let cannot = self
             .partials
             .iter()
@@ -237,6 +248,7 @@ impl Verification {
             "agrees": self.agrees(),
             "verdict": self.verdict().name(),
             "sweep_flags": self.sweep_flags,
+            "masked": self.masked.iter().map(|&n| id(n)).collect::<Vec<_>>(),
             "not_finite": self.not_finite.iter().map(|n| match *n {
                 NotFinite::Partial { node, slot } => json!({"check": "partial", "node": id(node), "slot": slot}),
                 NotFinite::FiniteDifference { param, entries } => json!({"check": "finite_difference", "param": id(param), "entries": entries}),

@@ -119,6 +119,30 @@ def test_transformer_encoder_layer(ebb, capture, dtype):
     agree(ebb, trace, theirs, dtype)
 
 
+# 3b. The same beehive layer reading causally: each hour attends to itself and
+# the hours before it, through the additive mask PyTorch builds (−inf above
+# the diagonal). Softmax absorbs the −inf, so the check notes the mask instead
+# of flagging it, and verify judges every derivative around it.
+@pytest.mark.parametrize("dtype", [pytest.param(torch.float32, id="f32")])
+def test_transformer_encoder_layer_with_a_causal_mask(ebb, capture, dtype):
+    torch.manual_seed(14)
+    model = nn.TransformerEncoderLayer(16, 2, 32, dropout=0.0, batch_first=True).to(dtype)
+    readings = torch.randn(2, 5, 16, dtype=dtype)
+    following = torch.randn(2, 5, 16, dtype=dtype)
+    mask = nn.Transformer.generate_square_subsequent_mask(5, dtype=dtype)
+    assert torch.isneginf(mask).sum() == 10  # 5·4/2 places above the diagonal
+    step = lambda m: nn.functional.mse_loss(m(readings, src_mask=mask, is_causal=True), following)  # noqa: E731
+    trace, theirs = capture(model, step, "causal beehive")
+    report = clean_check(ebb, trace)
+    assert not [f for f in report["diagnosis"]["findings"] if f["rule"] == "non_finite"]
+    assert report["masked"], "the mask is noted"
+    assert all(entry["absorbed_by"] for entry in report["masked"])
+    result = clean_verify(ebb, trace)
+    assert result["verdict"] == "agrees"
+    assert result["masked"]
+    agree(ebb, trace, theirs, dtype)
+
+
 class TideModel(nn.Module):
     """Tide height in the next hour from 20 hours of gauge readings."""
 
