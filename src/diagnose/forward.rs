@@ -28,7 +28,7 @@
 //! setting.
 
 use crate::ops::{self, Op};
-use crate::tensor::Value;
+use crate::tensor::{Value, scan};
 use crate::trace::Trace;
 use serde::Serialize;
 
@@ -75,13 +75,8 @@ pub struct ForwardCheck {
 
 /// Terms summed per output element, and a bound on the sum of their magnitudes.
 fn sum_size(op: Op, inputs: &[&Value], output: &Value) -> (f64, f64) {
-    let max_abs = |value: &Value| {
-        value
-            .to_f64()
-            .iter()
-            .filter(|x| x.is_finite())
-            .fold(0.0f64, |acc, x| acc.max(x.abs()))
-    };
+    // The largest finite magnitude, from one vectorised pass in the value's own dtype.
+    let max_abs = |value: &Value| value.survey().max_abs;
     if op.is_elementwise() {
         return (0.0, 0.0);
     }
@@ -137,29 +132,37 @@ pub fn check_forward(trace: &Trace, slack: f64) -> ForwardCheck {
         let relative = 8.0 * unit(precision.dtype);
         let absolute = 4.0 * n * unit(precision.accumulate) * terms;
         let floor = precision.dtype.limits().min_subnormal();
-        let (got, want) = (recorded.value.to_f64(), recomputed.to_f64());
-        let mut worst: Option<(usize, f64)> = None;
+        let mut worst: Option<(usize, f64, f64, f64)> = None;
         let mut count = 0;
-        for (element, (&a, &b)) in got.iter().zip(want.iter()).enumerate() {
+        let mut compare = |element: usize, a: f64, b: f64| {
             let excess = if a.is_nan() && b.is_nan() || (a.is_infinite() && a == b) {
-                continue;
+                return;
             } else if !(a.is_finite() && b.is_finite()) {
                 f64::INFINITY
             } else {
                 let tolerance = slack * (relative * b.abs() + absolute) + floor;
                 let error = (a - b).abs();
                 if error <= tolerance {
-                    continue;
+                    return;
                 }
                 error / tolerance
             };
             count += 1;
-            if worst.is_none_or(|(_, most)| excess > most) {
-                worst = Some((element, excess));
+            if worst.is_none_or(|(_, most, _, _)| excess > most) {
+                worst = Some((element, excess, a, b));
+            }
+        };
+        let (got, want) = (recorded.value.elements(), recomputed.elements());
+        if got.len() == want.len() {
+            // In blocks, without a widened copy of either tensor.
+            scan::scan_pairs(got, want, compare);
+        } else {
+            let (got, want) = (got.to_vec_f64(), want.to_vec_f64());
+            for (element, (&a, &b)) in got.iter().zip(want.iter()).enumerate() {
+                compare(element, a, b);
             }
         }
-        if let Some((element, _)) = worst {
-            let (a, b) = (got[element], want[element]);
+        if let Some((element, _, a, b)) = worst {
             check.mismatches.push(Mismatch {
                 node,
                 step,

@@ -367,16 +367,23 @@ pub fn diagnose_with(
     let paths = dominant_paths(&sweep, &gains);
     let groups = group_norms(&sweep);
     control.check()?;
-    let health = forward_health(trace, settings, &groups);
-    control.check()?;
     progress(4.0);
-    let replays = replays(
-        trace,
-        settings,
-        (&sweep, &own_analysis),
-        (reference, reference_analysis),
-        &Control::new(Some(&within(4.0)), control.cancel()),
-    )?;
+    // The forward check recomputes every node: it runs beside the replays,
+    // whose two sweeps of unequal length leave a core idle otherwise.
+    let (health, replays) = rayon::join(
+        || forward_health(trace, settings, &groups),
+        || {
+            replays(
+                trace,
+                settings,
+                (&sweep, &own_analysis),
+                (reference, reference_analysis),
+                &Control::new(Some(&within(4.0)), control.cancel()),
+            )
+        },
+    );
+    let replays = replays?;
+    control.check()?;
     // Moved, not copied: on a long chain the causes hold arrays per node.
     let SweepAnalysis {
         mut findings,

@@ -358,7 +358,14 @@ pub(super) fn trace_back(sweep: &Sweep, masking: &Masking) -> RootCauses {
             via: output,
         };
     }
-    for entry in ledger.entries() {
+    // Every entry the loop acts on made a finite sum non-finite, which the
+    // sweep flagged: without such a flag there is nothing to walk (and each
+    // entry's test scans a whole tensor).
+    let any_turned = sweep
+        .flags()
+        .iter()
+        .any(|flag| flag.kind == FlagKind::NonFiniteAdjoint && flag.from.is_some());
+    for entry in ledger.entries().filter(|_| any_turned) {
         if causes[entry.input] != Cause::Finite
             || entry.after.is_finite()
             || !entry.before.as_ref().is_none_or(Value::is_finite)

@@ -557,6 +557,10 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
     let adjoint_norms: Vec<f64> = (0..trace.nodes().len())
         .map(|node| sweep.adjoint(node).map_or(0.0, |adjoint| adjoint.l2_norm()))
         .collect();
+    let any_turned = sweep
+        .flags()
+        .iter()
+        .any(|flag| flag.kind == FlagKind::NonFiniteAdjoint && flag.from.is_some());
     let mut entries = ledger.entries().peekable();
     let mut reference_entries = reference_ledger
         .as_ref()
@@ -615,9 +619,11 @@ pub(super) fn evaluate(input: &RuleInput) -> Vec<Finding> {
                     adjoint_finite,
                 );
             }
-            let before_finite = entry.before.as_ref().is_none_or(Value::is_finite);
+            // The sweep flagged every sum that turned non-finite: without such a
+            // flag no `after` needs a scan.
+            let may_turn = any_turned && entry.before.as_ref().is_none_or(Value::is_finite);
             // The first non-finite element of a sum that was finite before: found once, used twice.
-            let became_non_finite = before_finite
+            let became_non_finite = may_turn
                 .then(|| {
                     let (element, x) = entry.after.first_non_finite()?;
                     Some((element, x, entry.after.survey().non_finite))
