@@ -22,7 +22,11 @@
 //! summed per output element for reductions (0 for elementwise ops); T is
 //! n·max|a|·max|b| for a matmul, n·max|x| for a sum, max|x| for a mean and
 //! max over inputs and output for the other structured ops (softmax,
-//! logsumexp, cross-entropy, mean squared error, …). The bound is loose on
+//! logsumexp, cross-entropy, mean squared error, …). Add and subtract count
+//! as n = 1 with T the sum of their inputs' largest magnitudes, because an
+//! exporter may have fused them into the product before (one rounding of
+//! a·b + c where the trace records round(a·b) and its sum with c: the two
+//! differ by up to an ulp of a·b, however small a·b + c is). The bound is loose on
 //! purpose: it passes every legitimate reordering and catches values that
 //! are wrong, not merely rounded differently. `slack` is the `forward_slack`
 //! setting.
@@ -77,6 +81,15 @@ pub struct ForwardCheck {
 fn sum_size(op: Op, inputs: &[&Value], output: &Value) -> (f64, f64) {
     // The largest finite magnitude, from one vectorised pass in the value's own dtype.
     let max_abs = |value: &Value| value.survey().max_abs;
+    if matches!(op, Op::Add | Op::Sub) {
+        // An exporter may fuse the add into the product before it (PyTorch's
+        // addmm adds the bias in the GEMM's accumulator and rounds once):
+        // the recorded sum then differs from the sum of the recorded, rounded
+        // product by up to an ulp of the product, which cancellation can
+        // make far larger than an ulp of the sum. One term of the inputs'
+        // size covers it (common practice for fused multiply-add).
+        return (1.0, inputs.iter().map(|input| max_abs(input)).sum());
+    }
     if op.is_elementwise() {
         return (0.0, 0.0);
     }
@@ -195,6 +208,40 @@ mod tests {
             );
             assert!(check.checked > 0, "{name}");
         }
+    }
+
+    // A bias added inside the product's accumulator (one rounding of a·b + c,
+    // here f64::mul_add, IEEE 754-2019 §5.4.1 fusedMultiplyAdd) against the
+    // recorded, rounded product plus the bias: with a·b = 1 − 2^-54 (exact for
+    // a = fl(1/3), b = 3) and c = −1, the fused result is −2^-54 while
+    // fl(a·b) + c = 0. That must pass; a sum off by 1e-9 must not.
+    #[test]
+    fn an_add_fused_into_the_product_passes_and_a_wrong_one_does_not() {
+        let (a, b, c) = (1.0f64 / 3.0, 3.0f64, -1.0f64);
+        assert_eq!(a * b, 1.0);
+        assert_eq!(a.mul_add(b, c), -(2f64.powi(-54)));
+        let record = |sum: f64| {
+            let mut tape = Tape::new("fused", Dtype::F64);
+            let x = tape.input("x", Value::from_parts(vec![1, 1], vec![a]));
+            let w = tape.param("w", Value::from_parts(vec![1, 1], vec![b]));
+            let bias = tape.param("bias", Value::from_parts(vec![1, 1], vec![c]));
+            let product = tape.matmul(x, w);
+            let biased = tape.add(product, bias);
+            let mut file = tape.finish(biased);
+            file.nodes[4].value = crate::trace::ValueRepr::Tensor {
+                shape: vec![1, 1],
+                data: vec![sum],
+            };
+            Trace::try_from(file).unwrap()
+        };
+        assert!(
+            check_forward(&record(a.mul_add(b, c)), 1.0)
+                .mismatches
+                .is_empty()
+        );
+        let wrong = check_forward(&record(1e-9), 1.0);
+        assert_eq!(wrong.mismatches.len(), 1);
+        assert_eq!(wrong.mismatches[0].node, 4);
     }
 
     // Summation order: the same f32 dot product summed forwards and
