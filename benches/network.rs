@@ -8,8 +8,11 @@
 //! peak memory of a process that loads the trace and sweeps it with the
 //! ledger on, against the trace's tensor bytes. The peer is
 //! `benches/peer/torch_step.py` (forward and `loss.backward()` of the same
-//! network), run with the same thread count when a Python with torch is
-//! found: `$EBB_PYTHON`, then `~/.cache/ebb-venv/bin/python`, then `python3`.
+//! network), run with the same thread count and again with one thread, the
+//! faster of the two kept (PyTorch's OpenMP threads wait on each other when
+//! another process holds a core, and one thread was then up to twenty times
+//! faster than two: the peer is taken at its best), when a Python with torch
+//! is found: `$EBB_PYTHON`, then `~/.cache/ebb-venv/bin/python`, then `python3`.
 //!
 //! `cargo bench --bench network [-- NAME ...] [--repeats N]`
 //!
@@ -377,9 +380,14 @@ fn main() {
         });
         let frame = first_frame(&path, trace.title());
         let (peak, tensor_bytes) = peak_memory(&path);
-        let peer = python
-            .as_ref()
-            .and_then(|python| peer(python, network, threads, repeats));
+        let peer = python.as_ref().and_then(|python| {
+            let both = peer(python, network, threads, repeats);
+            let one = peer(python, network, 1, repeats);
+            match (both, one) {
+                (Some(both), Some(one)) => Some((both.0.min(one.0), both.1.min(one.1))),
+                (both, one) => both.or(one),
+            }
+        });
         let ratio = |d: Duration| match peer {
             Some((_, backward)) => format!("{:.2}x", d.as_secs_f64() / backward),
             None => "—".to_string(),
