@@ -101,31 +101,55 @@ const SIDECAR_HEADER: &str = r#"(format: 2, title: "fuzz", dtype: f32, sidecar: 
 /// panic; a rejection is one short error naming the trace; what loads goes
 /// through the whole pipeline.
 pub fn sidecar_load(data: &[u8]) {
-    match load_sidecar(data) {
-        Ok(trace) => check_pipeline(&trace),
-        Err(error) => check_error(&error, &sidecar_dir().join("t.tape").display().to_string()),
-    }
-    ebb::trace::check_sidecars_unchanged().expect("nothing changed the sidecar");
+    SIDECAR.with(|place| {
+        match place.load(data) {
+            Ok(trace) => check_pipeline(&trace),
+            Err(error) => check_error(&error, &place.label),
+        }
+        ebb::trace::check_sidecars_unchanged().expect("nothing changed the sidecar");
+    });
 }
 
 /// The fixed trace loaded with `data` as its sidecar.
 pub fn load_sidecar(data: &[u8]) -> Result<Trace, LoadError> {
-    let dir = sidecar_dir();
-    std::fs::write(dir.join("t.safetensors"), data).expect("the sidecar writes");
-    ebb::trace::load(&dir.join("t.tape"))
+    SIDECAR.with(|place| place.load(data))
 }
 
-/// A directory of this thread holding the fixed header `t.tape` (threads:
-/// `cargo test` replays inputs in parallel).
-fn sidecar_dir() -> PathBuf {
-    thread_local! {
-        static DIR: tempfile::TempDir = {
-            let dir = tempfile::tempdir().expect("a temporary directory");
-            std::fs::write(dir.path().join("t.tape"), SIDECAR_HEADER).expect("the header writes");
-            dir
-        };
+/// Where this thread's sidecar target works: a temporary directory (under
+/// TMPDIR: `tests/fuzz/run` puts it on tmpfs) holding the fixed header
+/// `t.tape`, written once, and the sidecar `t.safetensors`, rewritten for
+/// every input. One per thread: `cargo test` replays inputs in parallel.
+struct SidecarPlace {
+    _dir: tempfile::TempDir,
+    tape: PathBuf,
+    sidecar: PathBuf,
+    /// The trace's path as errors name it.
+    label: String,
+}
+
+impl SidecarPlace {
+    fn new() -> SidecarPlace {
+        let dir = tempfile::tempdir().expect("a temporary directory");
+        let tape = dir.path().join("t.tape");
+        std::fs::write(&tape, SIDECAR_HEADER).expect("the header writes");
+        SidecarPlace {
+            sidecar: dir.path().join("t.safetensors"),
+            label: tape.display().to_string(),
+            tape,
+            _dir: dir,
+        }
     }
-    DIR.with(|dir| dir.path().to_path_buf())
+
+    /// Writes `data` as the sidecar, a real file, so the loader's file
+    /// checks run on it; then loads the trace from its path.
+    fn load(&self, data: &[u8]) -> Result<Trace, LoadError> {
+        std::fs::write(&self.sidecar, data).expect("the sidecar writes");
+        ebb::trace::load(&self.tape)
+    }
+}
+
+thread_local! {
+    static SIDECAR: SidecarPlace = SidecarPlace::new();
 }
 
 /// What `ebb check` does with a loaded trace, then undo and sweep again.
