@@ -13,6 +13,7 @@ pub mod schema;
 pub mod sidecar;
 mod sidecar_file;
 pub(crate) mod store;
+mod stream;
 mod text;
 mod validate;
 

@@ -9,7 +9,9 @@
 use ebb::diagnose::{Settings, diagnose};
 use ebb::report::Report;
 use ebb::sweep::{LedgerMode, Sweep};
-use ebb::trace::{Encoding, LoadError, Trace, TraceFile, load_str, parse, to_text};
+use ebb::trace::{
+    Encoding, LoadError, SyntaxError, Trace, TraceFile, load_str, one_line, parse, to_text,
+};
 use std::path::{Path, PathBuf};
 
 /// Loads RON text: never a panic; a rejection is one short error naming the
@@ -27,13 +29,44 @@ fn load_text(data: &[u8], encoding: Encoding, name: &str) {
     let Ok(text) = std::str::from_utf8(data) else {
         return;
     };
-    if let Ok(file) = parse(text, encoding) {
-        round_trips(&file, encoding);
+    let parsed = parse(text, encoding);
+    if let Ok(file) = &parsed {
+        round_trips(file, encoding);
     }
-    match load_str(text, encoding, Path::new(name)) {
+    let loaded = load_str(text, encoding, Path::new(name));
+    same_syntax_error(&parsed, &loaded);
+    match loaded {
         Ok(trace) => assert!(trace.output() < trace.nodes().len()),
         Err(error) => check_error(&error, name),
     }
+}
+
+/// The loader reads node by node (src/trace/stream.rs) with a reader of its
+/// own for the file's fields; `parse` reads the whole file with the types'
+/// derived readers. Both must find the same syntax errors, at the same line
+/// and column, with the same message.
+fn same_syntax_error(parsed: &Result<TraceFile, SyntaxError>, loaded: &Result<Trace, LoadError>) {
+    let streamed = match loaded {
+        Err(LoadError::Syntax {
+            line,
+            column,
+            message,
+            ..
+        }) => Some((*line, *column, message.clone())),
+        _ => None,
+    };
+    // The loader keeps an error on one line; compare what it prints.
+    let whole = parsed.as_ref().err().map(|error| {
+        (
+            error.line,
+            error.column,
+            one_line(&error.message).into_owned(),
+        )
+    });
+    assert_eq!(
+        streamed, whole,
+        "the node-by-node reader and the whole parse disagree"
+    );
 }
 
 /// A rejection is at most 21 lines (20 problems and a count), each naming
