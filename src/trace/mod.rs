@@ -3,6 +3,7 @@
 
 pub(crate) mod compact;
 mod error;
+mod ids;
 mod load;
 mod model;
 mod overflow;

@@ -2,6 +2,7 @@
 //! problem instead of stopping at the first.
 
 use super::error::Problem;
+use super::ids::IdIndex;
 use super::model::Rounding;
 use super::model::{Node, Partial, Trace, UNREACHED};
 use super::schema::{NodeFile, NodeId, PartialRepr, READABLE_VERSIONS, TraceFile, ValueRepr};
@@ -12,7 +13,6 @@ use crate::tensor::{Value, broadcast_shapes, numel};
 use petgraph::graph::{DiGraph, NodeIndex};
 use petgraph::visit::{Bfs, Reversed};
 use std::collections::HashMap;
-use std::collections::hash_map::Entry;
 use std::sync::Arc;
 
 impl TryFrom<TraceFile> for Trace {
@@ -88,9 +88,11 @@ pub(crate) struct Checker {
     rounded: Vec<Rounding>,
     names: Names,
     /// Each id's first node.
-    index: HashMap<String, usize>,
+    index: IdIndex,
     /// Checked nodes; `None` where a node has problems.
     nodes: Vec<Option<Node>>,
+    /// The ids of the nodes that are `None` (a checked node keeps its own).
+    failed_ids: HashMap<usize, String>,
     /// Nodes with an input that named no earlier node when they arrived (an
     /// unknown id, or a node recorded later: only the end can tell which),
     /// with their inputs as written and the earlier ones resolved.
@@ -103,8 +105,20 @@ pub(crate) struct Checker {
 /// A node whose inputs are resolved at the end.
 struct Waiting {
     position: usize,
-    id: String,
     inputs: Vec<NodeId>,
+}
+
+/// The id of the node at `position`: from the checked node, else from the
+/// ids of nodes with problems.
+fn id_at<'a>(
+    nodes: &'a [Option<Node>],
+    failed_ids: &'a HashMap<usize, String>,
+    position: usize,
+) -> &'a str {
+    match nodes.get(position) {
+        Some(Some(node)) => &node.id,
+        _ => failed_ids.get(&position).map_or("", |id| id.as_str()),
+    }
 }
 
 impl Checker {
@@ -115,8 +129,9 @@ impl Checker {
             problems: Vec::new(),
             rounded: Vec::new(),
             names: Names::default(),
-            index: HashMap::new(),
+            index: IdIndex::new(),
             nodes: Vec::new(),
+            failed_ids: HashMap::new(),
             waiting: Vec::new(),
             loose_edges: Vec::new(),
         }
@@ -126,29 +141,34 @@ impl Checker {
     pub(crate) fn push(&mut self, mut raw: NodeFile, resolve: Resolver) {
         let position = self.nodes.len();
         let before = self.problems.len();
-        // One lookup per node, so a file of a million duplicates is still linear.
-        match self.index.entry(raw.id.0.clone()) {
-            Entry::Vacant(slot) => {
-                slot.insert(position);
-            }
-            Entry::Occupied(first) => self.problems.push(
-                Problem::at_node(
-                    &raw.id.0,
-                    format!(
-                        "duplicate id (node #{position} repeats the id of node #{})",
-                        first.get()
-                    ),
-                    "give every node a unique id",
-                )
-                .kind("duplicate id"),
-            ),
-        }
+        let mut id = std::mem::take(&mut raw.id.0);
         let mut inputs = Vec::with_capacity(raw.inputs.len());
         let mut resolved = true;
-        for input in &raw.inputs {
-            match self.index.get(&input.0) {
-                Some(&source) if source < position => inputs.push(source),
-                _ => resolved = false,
+        {
+            let (nodes, failed_ids, current) = (&self.nodes, &self.failed_ids, id.as_str());
+            let id_of = |at: usize| {
+                if at == position {
+                    current
+                } else {
+                    id_at(nodes, failed_ids, at)
+                }
+            };
+            // One lookup per node, so a file of a million duplicates is still linear.
+            if let Err(first) = self.index.insert(current, position, id_of) {
+                self.problems.push(
+                    Problem::at_node(
+                        current,
+                        format!("duplicate id (node #{position} repeats the id of node #{first})"),
+                        "give every node a unique id",
+                    )
+                    .kind("duplicate id"),
+                );
+            }
+            for input in &raw.inputs {
+                match self.index.get(&input.0, id_of) {
+                    Some(source) if source < position => inputs.push(source),
+                    _ => resolved = false,
+                }
             }
         }
         let checked = if resolved {
@@ -160,6 +180,7 @@ impl Checker {
             };
             let checked = check_node(
                 raw,
+                &mut id,
                 &mut inputs,
                 &self.nodes,
                 &mut self.problems,
@@ -174,11 +195,13 @@ impl Checker {
         } else {
             self.waiting.push(Waiting {
                 position,
-                id: std::mem::take(&mut raw.id.0),
                 inputs: std::mem::take(&mut raw.inputs),
             });
             None
         };
+        if checked.is_none() {
+            self.failed_ids.insert(position, id);
+        }
         // Every problem of this node knows where the node is, for its line and column.
         for problem in &mut self.problems[before..] {
             problem.index = problem.index.or(Some(position));
@@ -198,10 +221,12 @@ impl Checker {
             rounded,
             index,
             nodes,
+            failed_ids,
             waiting,
             loose_edges,
             ..
         } = self;
+        let id_of = |at: usize| id_at(&nodes, &failed_ids, at);
         let mut problems = Vec::new();
         if !READABLE_VERSIONS.contains(&header.format) {
             problems.push(
@@ -221,13 +246,13 @@ impl Checker {
         for node in &waiting {
             resolve_inputs(
                 node,
-                &index,
+                (&index, &id_of),
                 &mut problems,
                 &mut late_edges,
                 &mut forward_edges,
             );
         }
-        let output = resolve_output(&header.output, &index, &mut problems);
+        let output = resolve_output(&header.output, (&index, &id_of), &mut problems);
         if forward_edges {
             let mut edges = late_edges;
             edges.extend(loose_edges);
@@ -236,7 +261,7 @@ impl Checker {
                     edges.extend(node.inputs.iter().map(|&source| (source, position)));
                 }
             }
-            report_cycles(&nodes, &index, &edges, &mut problems);
+            report_cycles(nodes.len(), &id_of, &edges, &mut problems);
         }
         if !problems.is_empty() {
             // Problems of the trace as a whole first, then by node (stable:
@@ -297,21 +322,22 @@ impl Checker {
 /// so cycles can be named.
 fn resolve_inputs(
     node: &Waiting,
-    index: &HashMap<String, usize>,
+    (index, id_of): Ids,
     problems: &mut Vec<Problem>,
     edges: &mut Vec<(usize, usize)>,
     forward_edges: &mut bool,
 ) {
     let position = node.position;
+    let id = id_of(position);
     for input in &node.inputs {
-        let source = index.get(&input.0).copied();
+        let source = index.get(&input.0, id_of);
         if let Some(source) = source {
             edges.push((source, position));
         }
         match source {
             None => problems.push(
                 Problem::at_node(
-                    &node.id,
+                    id,
                     format!("unknown input id '{input}'"),
                     "every input must be the id of a node in this trace",
                 )
@@ -327,7 +353,7 @@ fn resolve_inputs(
                 };
                 problems.push(
                     Problem::at_node(
-                        &node.id,
+                        id,
                         format!("input refers forward to {what}"),
                         "list nodes in recording order: each node after all of its inputs",
                     )
@@ -340,11 +366,10 @@ fn resolve_inputs(
     }
 }
 
-fn resolve_output(
-    id: &str,
-    index: &HashMap<String, usize>,
-    problems: &mut Vec<Problem>,
-) -> Option<usize> {
+/// The index of a trace's ids, and the id at each position.
+type Ids<'a, 'b> = (&'a IdIndex, &'a dyn Fn(usize) -> &'b str);
+
+fn resolve_output(id: &str, (index, id_of): Ids, problems: &mut Vec<Problem>) -> Option<usize> {
     if id.is_empty() {
         problems.push(
             Problem::general(
@@ -355,7 +380,7 @@ fn resolve_output(
         );
         return None;
     }
-    let found = index.get(id).copied();
+    let found = index.get(id, id_of);
     if found.is_none() {
         problems.push(
             Problem::general(
@@ -473,13 +498,14 @@ impl Names {
 /// when it checks; with problems they are left for the caller.
 fn check_node(
     mut raw: NodeFile,
+    id_slot: &mut String,
     inputs: &mut Vec<usize>,
     earlier: &[Option<Node>],
     problems: &mut Vec<Problem>,
     resolve: Resolver,
     context: NodeContext,
 ) -> Option<Node> {
-    let id = std::mem::take(&mut raw.id.0);
+    let id = id_slot.as_str();
     let before = problems.len();
     let dtype = raw.dtype.unwrap_or(context.default_dtype);
     let mut first_rounded = None;
@@ -493,7 +519,7 @@ fn check_node(
         };
         problems.push(
             Problem::at_node(
-                &id,
+                id,
                 format!("{} takes {}, got {}", raw.op, spec.arity, inputs.len()),
                 hint,
             )
@@ -501,13 +527,13 @@ fn check_node(
         );
     }
     if op == Op::Custom {
-        check_custom_partials(&id, &raw, problems);
+        check_custom_partials(id, &raw, problems);
     }
     for attr in spec.required {
         if !attr.is_set(&raw.attrs) {
             problems.push(
                 Problem::at_node(
-                    &id,
+                    id,
                     format!("{} needs the attribute `{}`", raw.op, attr.as_str()),
                     format!("add attrs: ({}: ..)", attr.as_str()),
                 )
@@ -518,7 +544,7 @@ fn check_node(
     if let Some(Err(message)) = raw.attrs.shape.as_deref().map(checked_numel) {
         problems.push(
             Problem::at_node(
-                &id,
+                id,
                 format!("attribute `shape`: {message}"),
                 "give the target shape of the reshape",
             )
@@ -528,7 +554,7 @@ fn check_node(
     if raw.partials.len() > raw.inputs.len() {
         problems.push(
             Problem::at_node(
-                &id,
+                id,
                 format!(
                     "{} partials recorded for {} input edges",
                     raw.partials.len(),
@@ -549,7 +575,7 @@ fn check_node(
         Err(message) => {
             problems.push(
                 Problem::at_node(
-                    &id,
+                    id,
                     format!("value: {message}"),
                     "the data length must equal the product of the shape",
                 )
@@ -566,7 +592,7 @@ fn check_node(
         .unwrap_or_else(|message| {
             problems.push(
                 Problem::at_node(
-                    &id,
+                    id,
                     format!("reported gradient: {message}"),
                     "the data length must equal the product of the shape",
                 )
@@ -588,16 +614,12 @@ fn check_node(
     let input_shapes: Vec<&[usize]> = input_values.iter().map(|value| value.shape()).collect();
     match ops::infer_shape(op, &input_shapes, &raw.attrs) {
         Err(message) => problems.push(
-            Problem::at_node(
-                &id,
-                message,
-                "check the shapes of the inputs against the op",
-            )
-            .kind("shape"),
+            Problem::at_node(id, message, "check the shapes of the inputs against the op")
+                .kind("shape"),
         ),
         Ok(Some(expected)) if expected != value.shape() => problems.push(
             Problem::at_node(
-                &id,
+                id,
                 format!(
                     "recorded value has shape {} but {} of these inputs gives {}",
                     show(value.shape()),
@@ -609,9 +631,9 @@ fn check_node(
             .kind("shape"),
         ),
         Ok(_) => {
-            check_index_rounding(&id, &raw, inputs, spec.discrete, context.rounded, problems);
+            check_index_rounding(id, &raw, inputs, spec.discrete, context.rounded, problems);
             if let Err(misfit) = ops::check_inputs(op, &input_values, &raw.attrs) {
-                problems.push(Problem::at_node(&id, misfit.message, misfit.hint).kind("bad index"));
+                problems.push(Problem::at_node(id, misfit.message, misfit.hint).kind("bad index"));
             }
         }
     }
@@ -620,7 +642,7 @@ fn check_node(
     {
         problems.push(
             Problem::at_node(
-                &id,
+                id,
                 format!(
                     "reported gradient has shape {} but the value has shape {}",
                     show(reported.shape()),
@@ -638,7 +660,7 @@ fn check_node(
             Ok(partial) => partials.push(partial),
             Err(message) => problems.push(
                 Problem::at_node(
-                    &id,
+                    id,
                     format!(
                         "partial on edge {slot} (from '{}'): {message}",
                         raw.inputs[slot]
@@ -666,7 +688,7 @@ fn check_node(
         });
     }
     Some(Node {
-        id,
+        id: std::mem::take(id_slot),
         op,
         op_name: context.names.shared(raw.op),
         dtype,
@@ -780,22 +802,18 @@ fn check_partial(
 
 /// Names each cycle among the edges, found as strongly connected components
 /// with petgraph (Kosaraju's algorithm, iterative).
-fn report_cycles(
-    nodes: &[Option<Node>],
-    index: &HashMap<String, usize>,
+fn report_cycles<'a>(
+    nodes: usize,
+    id_of: &dyn Fn(usize) -> &'a str,
     edges: &[(usize, usize)],
     problems: &mut Vec<Problem>,
 ) {
-    let mut graph = DiGraph::<(), ()>::with_capacity(nodes.len(), edges.len());
-    for _ in nodes {
+    let mut graph = DiGraph::<(), ()>::with_capacity(nodes, edges.len());
+    for _ in 0..nodes {
         graph.add_node(());
     }
     for &(source, target) in edges {
         graph.add_edge(NodeIndex::new(source), NodeIndex::new(target), ());
-    }
-    let mut ids = vec![""; nodes.len()];
-    for (id, &position) in index {
-        ids[position] = id;
     }
     for component in petgraph::algo::kosaraju_scc(&graph) {
         let looped = component.len() > 1 || graph.contains_edge(component[0], component[0]);
@@ -807,14 +825,14 @@ fn report_cycles(
         let mut names: Vec<String> = members
             .iter()
             .take(6)
-            .map(|&node| format!("'{}'", ids[node]))
+            .map(|&node| format!("'{}'", id_of(node)))
             .collect();
         if members.len() > 6 {
             names.push(format!("and {} more", members.len() - 6));
         }
         problems.push(
             Problem::at_node(
-                ids[members[0]],
+                id_of(members[0]),
                 format!("cycle through {}", names.join(", ")),
                 "a trace records one forward pass: no node may depend on itself",
             )
@@ -837,7 +855,7 @@ fn build(
     nodes: Vec<Node>,
     output: usize,
     seed: Value,
-    index: HashMap<String, usize>,
+    index: IdIndex,
     rounded: Vec<Rounding>,
 ) -> Trace {
     let Header {
