@@ -119,6 +119,16 @@ fn stages(path: &Path) {
     let mut sweep = Sweep::new(&own, LedgerMode::Off);
     sweep.run_to_end();
     mark("swept (ledger off)");
+    {
+        // What one replay of the diagnosis holds besides the trace (printed
+        // "now"; both are dropped before the diagnosis runs).
+        use ebb::dtype::Subnormals;
+        let copy = trace.retyped(Dtype::F32, Subnormals::Keep);
+        mark("  + a re-typed copy (f32)");
+        let mut replay = Sweep::with_budget(&copy, settings.ledger_budget);
+        replay.run_to_end();
+        mark("  + its sweep with the ledger");
+    }
     let diagnosis = diagnose(&trace, &settings);
     mark("diagnosed");
     let report = Report::new("chain", &sweep).with_diagnosis(&trace, &diagnosis);

@@ -7,11 +7,10 @@ use super::overflow;
 use super::positions;
 use super::progress::{self, Progress, Silent};
 use super::schema::TraceFile;
-use super::sidecar::Sidecar;
-use super::validate::validate_with;
-use crate::dtype::Dtype;
+use super::stream::{self, Source, Streamed};
 use serde::Serialize;
-use serde::de::DeserializeOwned;
+use serde::de::{DeserializeOwned, DeserializeSeed};
+use std::marker::PhantomData;
 use std::path::Path;
 
 /// The two text encodings of the schema.
@@ -70,24 +69,49 @@ pub(crate) fn parse_as<T: DeserializeOwned>(
     text: &str,
     encoding: Encoding,
 ) -> Result<T, SyntaxError> {
-    match encoding {
-        Encoding::Ron => ron_options().from_str(text).map_err(|error| SyntaxError {
-            line: error.span.start.line,
-            column: error.span.start.col,
-            message: match error.code {
-                ron::Error::ExceededRecursionLimit => TOO_DEEP.to_string(),
-                code => code.to_string(),
-            },
-        }),
-        Encoding::Json => match serde_json::from_str(text).map_err(json_error) {
-            Err(error) if error.message == "number out of range" => {
-                match overflow::widen_overflowing_numbers(text) {
-                    Some(widened) => serde_json::from_str(&widened).map_err(json_error),
-                    None => Err(error),
-                }
+    match parse_seed(text, encoding, PhantomData::<T>) {
+        Err(error) if overflowed(&error, encoding) => {
+            match overflow::widen_overflowing_numbers(text) {
+                Some(widened) => parse_seed(&widened, encoding, PhantomData::<T>),
+                None => Err(error),
             }
-            parsed => parsed,
-        },
+        }
+        parsed => parsed,
+    }
+}
+
+/// A JSON number too large for an f64, which JSON's parser refuses and
+/// RON's reads as infinity: the text is read again with such numbers
+/// written as strings, so both read it alike (`overflow`).
+fn overflowed(error: &SyntaxError, encoding: Encoding) -> bool {
+    encoding == Encoding::Json && error.message == "number out of range"
+}
+
+/// One parse of `text` through `seed`, with the options and error
+/// positions of [`parse`] (no second reading of overflowing numbers).
+fn parse_seed<'de, S: DeserializeSeed<'de>>(
+    text: &'de str,
+    encoding: Encoding,
+    seed: S,
+) -> Result<S::Value, SyntaxError> {
+    match encoding {
+        Encoding::Ron => ron_options()
+            .from_str_seed(text, seed)
+            .map_err(|error| SyntaxError {
+                line: error.span.start.line,
+                column: error.span.start.col,
+                message: match error.code {
+                    ron::Error::ExceededRecursionLimit => TOO_DEEP.to_string(),
+                    code => code.to_string(),
+                },
+            }),
+        Encoding::Json => {
+            // What serde_json::from_str does, with a seed.
+            let mut deserializer = serde_json::Deserializer::from_str(text);
+            seed.deserialize(&mut deserializer)
+                .and_then(|value| deserializer.end().map(|()| value))
+                .map_err(json_error)
+        }
     }
 }
 
@@ -151,23 +175,47 @@ fn load_str_with(
     progress: &mut dyn Progress,
 ) -> Result<Trace, LoadError> {
     progress.stage("parsing", None);
-    let file = parse(text, encoding).map_err(|error| syntax_error(path, error))?;
-    let sidecar = match &file.sidecar {
-        Some(name) => {
-            progress.stage("opening sidecar", None);
-            Some(Sidecar::open(path, name)?)
+    let streamed =
+        stream_text(text, encoding, path, progress).map_err(|error| syntax_error(path, error))?;
+    let checked = match streamed {
+        Streamed::Checked(stream) => {
+            progress.stage("checking", None);
+            stream.finish()
         }
-        None => None,
+        Streamed::Whole(file) => stream::check_whole(*file, path, progress),
     };
-    progress.stage("checking", None);
-    let resolve = |tensor: &str, shape: Option<&[usize]>, dtype: Dtype| match &sidecar {
-        Some(sidecar) => sidecar.value(tensor, shape, dtype),
-        None => Err(NO_SIDECAR.to_string()),
-    };
-    validate_with(file, &resolve).map_err(|problems| placed(text, path, problems))
+    checked.map_err(|failed| match failed {
+        Ok(problems) => placed(text, path, problems),
+        Err(error) => error,
+    })
 }
 
-const NO_SIDECAR: &str =
+/// Parses `text`, checking each node as it is read (`stream`).
+fn stream_text(
+    text: &str,
+    encoding: Encoding,
+    path: &Path,
+    progress: &mut dyn Progress,
+) -> Result<Streamed, SyntaxError> {
+    let mut once = |text: &str| {
+        let source = Source {
+            path,
+            progress: &mut *progress,
+        };
+        parse_seed(text, encoding, stream::Seed(source))
+    };
+    match once(text) {
+        Err(error) if overflowed(&error, encoding) => {
+            match overflow::widen_overflowing_numbers(text) {
+                Some(widened) => once(&widened),
+                None => Err(error),
+            }
+        }
+        parsed => parsed,
+    }
+}
+
+pub(crate) const NO_SIDECAR: &str =
     "refers to a sidecar tensor, but the trace names no `sidecar` file in its header";
 
 /// A syntax error of the file at `path`.

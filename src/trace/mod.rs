@@ -3,6 +3,7 @@
 
 pub(crate) mod compact;
 mod error;
+mod ids;
 mod load;
 mod model;
 mod overflow;
@@ -13,6 +14,7 @@ pub mod schema;
 pub mod sidecar;
 mod sidecar_file;
 pub(crate) mod store;
+mod stream;
 mod text;
 mod validate;
 

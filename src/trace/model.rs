@@ -8,7 +8,6 @@ use crate::tensor::Value;
 use petgraph::Direction;
 use petgraph::graph::{DiGraph, NodeIndex};
 use petgraph::visit::EdgeRef;
-use std::collections::HashMap;
 use std::sync::Arc;
 
 /// A recorded partial on one edge, checked against the edge's shapes.
@@ -96,7 +95,7 @@ pub struct Trace {
     pub(super) output: usize,
     pub(super) seed: Value,
     /// Shared by every re-typed copy: ids never change.
-    pub(super) index: Arc<HashMap<String, usize>>,
+    pub(super) index: Arc<super::ids::IdIndex>,
     /// Edges run from input to consumer; edge weight is the input slot.
     /// Shared, with the order and ranks, by every re-typed copy.
     pub(super) graph: Arc<DiGraph<(), u32>>,
@@ -189,7 +188,7 @@ impl Trace {
 
     /// The index of a node id.
     pub fn find(&self, id: &str) -> Option<usize> {
-        self.index.get(id).copied()
+        self.index.get(id, |at| self.nodes[at].id.as_str())
     }
 
     /// The petgraph graph: one graph node per trace node (same index), edges

@@ -202,29 +202,61 @@ pub(crate) fn stage_path(
     path: &Path,
     write: impl FnOnce(&Path) -> std::io::Result<()>,
 ) -> Result<Staged, SaveError> {
+    stage_path_via(path, write, Path::new(PROC_FD))
+}
+
+/// Where Linux lists this process's open files, one link per descriptor.
+const PROC_FD: &str = "/proc/self/fd";
+
+/// [`stage_path`], looking for the descriptor links in `fd_dir` (tests
+/// name a directory without them, as on a system without /proc).
+fn stage_path_via(
+    path: &Path,
+    write: impl FnOnce(&Path) -> std::io::Result<()>,
+    fd_dir: &Path,
+) -> Result<Staged, SaveError> {
     let io = |error| SaveError::Io {
         path: path.to_path_buf(),
         error,
     };
     let staged = stage(path, |_| Ok(()))?;
     let file = staged.0.as_ref().expect("just staged");
-    // The writer opens the file by name. If it did so by the temporary
-    // file's own name, a signal arriving between `abandon_saves` removing
-    // that name and the process ending could see the writer create it
-    // again, left behind for good (seen in tests/convert_signals.rs under
-    // load). On Linux it gets the open file's /proc/self/fd link instead,
-    // which reaches the same file while it has a name and can never give it
-    // one back.
-    #[cfg(target_os = "linux")]
-    let target = {
-        use std::os::fd::AsRawFd;
-        std::path::PathBuf::from(format!("/proc/self/fd/{}", file.as_file().as_raw_fd()))
-    };
-    #[cfg(not(target_os = "linux"))]
-    let target = file.path().to_path_buf();
+    let target = writer_target(file, fd_dir);
     write(&target).map_err(io)?;
     file.as_file().sync_all().map_err(io)?;
     Ok(staged)
+}
+
+/// The path a writer opens to write the staged `file`.
+///
+/// If the writer opened it by the temporary file's own name, a signal
+/// arriving between `abandon_saves` removing that name and the process
+/// ending could see the writer create it again, left behind for good (seen
+/// in tests/convert_signals.rs under load). So where it can, the writer
+/// gets the open file's link in `/proc/self/fd`, which reaches the same
+/// file while it has a name and can never give it one back. The link is
+/// used only when it leads to this very file (same device and inode): when
+/// /proc is not mounted or not readable (a minimal container, a chroot, a
+/// hardened system), or on other systems, the writer gets the temporary
+/// file's name, and a signal in that narrow window can leave one
+/// `.ebb-*.tmp` file behind, which is never mistaken for output.
+fn writer_target(file: &tempfile::NamedTempFile, fd_dir: &Path) -> PathBuf {
+    #[cfg(target_os = "linux")]
+    {
+        use std::os::fd::AsRawFd;
+        use std::os::unix::fs::MetadataExt;
+        let link = fd_dir.join(file.as_file().as_raw_fd().to_string());
+        let same =
+            |a: &std::fs::Metadata, b: &std::fs::Metadata| a.dev() == b.dev() && a.ino() == b.ino();
+        if let (Ok(through), Ok(own)) = (std::fs::metadata(&link), file.as_file().metadata())
+            && same(&through, &own)
+        {
+            return link;
+        }
+    }
+    #[cfg(not(target_os = "linux"))]
+    let _ = fd_dir;
+    file.path().to_path_buf()
 }
 
 /// Renames a staged file over `path`.
@@ -277,6 +309,44 @@ mod tests {
         commit(staged, &target).unwrap();
         assert_eq!(std::fs::read(&target).unwrap(), b"data");
         assert!(temporaries(dir.path()).is_empty());
+    }
+
+    #[cfg(target_os = "linux")]
+    #[test]
+    fn without_proc_the_writer_gets_the_temporary_files_name() {
+        let dir = tempfile::tempdir().unwrap();
+        let target = dir.path().join("t.safetensors");
+        // /proc not mounted: no descriptor links where they are looked for.
+        let missing = dir.path().join("no-proc");
+        let mut given = None;
+        let staged = stage_path_via(
+            &target,
+            |path| {
+                given = Some(path.to_path_buf());
+                std::fs::write(path, b"data")
+            },
+            &missing,
+        )
+        .unwrap();
+        let temp = staged.0.as_ref().unwrap().path().to_path_buf();
+        assert_eq!(given.as_deref(), Some(temp.as_path()));
+        commit(staged, &target).unwrap();
+        assert_eq!(std::fs::read(&target).unwrap(), b"data");
+        assert!(temporaries(dir.path()).is_empty());
+
+        // A /proc whose link leads elsewhere (a stale or foreign mount) is
+        // not trusted either: the writer must not write into another file.
+        let fake = dir.path().join("fake-proc");
+        std::fs::create_dir(&fake).unwrap();
+        let other = dir.path().join("other");
+        std::fs::write(&other, b"keep").unwrap();
+        for fd in 0..1024 {
+            std::os::unix::fs::symlink(&other, fake.join(fd.to_string())).unwrap();
+        }
+        let staged = stage_path_via(&target, |path| std::fs::write(path, b"new"), &fake).unwrap();
+        commit(staged, &target).unwrap();
+        assert_eq!(std::fs::read(&target).unwrap(), b"new");
+        assert_eq!(std::fs::read(&other).unwrap(), b"keep");
     }
 
     #[test]

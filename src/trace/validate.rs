@@ -2,9 +2,10 @@
 //! problem instead of stopping at the first.
 
 use super::error::Problem;
+use super::ids::IdIndex;
 use super::model::Rounding;
 use super::model::{Node, Partial, Trace, UNREACHED};
-use super::schema::{NodeFile, PartialRepr, READABLE_VERSIONS, TraceFile, ValueRepr};
+use super::schema::{NodeFile, NodeId, PartialRepr, READABLE_VERSIONS, TraceFile, ValueRepr};
 use crate::dtype::Dtype;
 use crate::format::shape as show;
 use crate::ops::{self, Op};
@@ -12,7 +13,6 @@ use crate::tensor::{Value, broadcast_shapes, numel};
 use petgraph::graph::{DiGraph, NodeIndex};
 use petgraph::visit::{Bfs, Reversed};
 use std::collections::HashMap;
-use std::collections::hash_map::Entry;
 use std::sync::Arc;
 
 impl TryFrom<TraceFile> for Trace {
@@ -39,160 +39,312 @@ pub fn validate(file: TraceFile) -> Result<Trace, Vec<Problem>> {
 
 /// [`validate`], resolving sidecar references with `resolve`.
 pub(crate) fn validate_with(file: TraceFile, resolve: Resolver) -> Result<Trace, Vec<Problem>> {
-    let mut problems = Vec::new();
-    if !READABLE_VERSIONS.contains(&file.format) {
-        problems.push(
-            Problem::general(
-                format!(
-                    "unsupported format version {} (this build reads versions {READABLE_VERSIONS:?})",
-                    file.format
-                ),
-                "re-record the trace, or convert it with a matching release of ebb",
-            )
-            .kind("format version"),
-        );
-    }
-    let default_dtype = file.dtype;
-    let mut rounded = Vec::new();
-    let mut names = Names::default();
-    let index = index_ids(&file.nodes, &mut problems);
-    let mut nodes: Vec<Option<Node>> = Vec::with_capacity(file.nodes.len());
-    // Every resolvable edge, forward ones included, so a cycle can be named.
-    let mut edges = Vec::new();
-    let mut forward_edges = false;
-    for (position, raw) in file.nodes.into_iter().enumerate() {
-        let inputs = resolve_inputs(
-            &raw,
-            position,
-            &index,
-            &mut problems,
-            &mut edges,
-            &mut forward_edges,
-        );
-        let before = problems.len();
-        let checked = inputs.and_then(|inputs| {
-            let context = NodeContext {
-                position,
-                default_dtype,
-                rounded: &mut rounded,
-                names: &mut names,
-            };
-            check_node(raw, inputs, &nodes, &mut problems, resolve, context)
-        });
-        // Every problem of this node knows where the node is, for its line and column.
-        for problem in &mut problems[before..] {
-            problem.index = problem.index.or(Some(position));
-        }
-        nodes.push(checked);
-    }
-    let output = resolve_output(&file.output.0, &index, &mut problems);
-    if forward_edges {
-        report_cycles(&nodes, &index, &edges, &mut problems);
-    }
-    if !problems.is_empty() {
-        return Err(problems);
-    }
-    let nodes: Vec<Node> = nodes
-        .into_iter()
-        .map(|node| node.expect("a node without problems is checked"))
-        .collect();
-    let output = output.expect("output resolved");
-    let output_dtype = nodes[output].dtype;
-    let seed = match file.seed {
-        None => Value::filled(nodes[output].value.shape(), 1.0).stored_as(output_dtype),
-        Some(raw) => match checked_value(raw, resolve, output_dtype, &mut None) {
-            Ok(seed) if seed.shape() == nodes[output].value.shape() => seed,
-            Ok(seed) => {
-                return Err(vec![Problem::general(
-                    format!(
-                        "seed has shape {} but output '{}' has shape {}",
-                        show(seed.shape()),
-                        nodes[output].id,
-                        show(nodes[output].value.shape())
-                    ),
-                    "give a seed of the output's shape, or omit it for ones",
-                )]);
-            }
-            Err(message) => {
-                return Err(vec![Problem::general(
-                    format!("seed: {message}"),
-                    "fix the seed's shape or data",
-                )]);
-            }
-        },
-    };
-    Ok(build(
-        Header {
-            title: file.title,
-            description: file.description,
-            dtype: file.dtype,
-            accumulate: file
-                .accumulate
-                .unwrap_or_else(|| file.dtype.default_accumulate()),
-        },
-        nodes,
+    let TraceFile {
+        format,
+        title,
+        description,
+        dtype,
+        accumulate,
+        sidecar: _,
         output,
         seed,
-        index,
-        rounded,
-    ))
+        nodes,
+    } = file;
+    let mut checker = Checker::new(dtype);
+    for node in nodes {
+        checker.push(node, resolve);
+    }
+    let header = HeaderFile {
+        format,
+        title,
+        description,
+        dtype,
+        accumulate,
+        output: output.0,
+        seed,
+    };
+    checker.finish(header, resolve)
 }
 
-/// Maps each id to its node's place, naming every repeated id (one lookup
-/// per node, so a file of a million duplicates is still linear).
-fn index_ids(nodes: &[NodeFile], problems: &mut Vec<Problem>) -> HashMap<String, usize> {
-    let mut index = HashMap::with_capacity(nodes.len());
-    for (position, node) in nodes.iter().enumerate() {
-        match index.entry(node.id.0.clone()) {
-            Entry::Vacant(slot) => {
-                slot.insert(position);
-            }
-            Entry::Occupied(first) => problems.push(
-                Problem::at_node(
-                    &node.id.0,
-                    format!(
-                        "duplicate id (node #{position} repeats the id of node #{})",
-                        first.get()
-                    ),
-                    "give every node a unique id",
-                )
-                .kind("duplicate id")
-                .at(position),
-            ),
+/// What a trace file says besides its nodes, as written.
+pub(crate) struct HeaderFile {
+    pub format: u32,
+    pub title: String,
+    pub description: String,
+    pub dtype: Dtype,
+    pub accumulate: Option<Dtype>,
+    pub output: String,
+    pub seed: Option<ValueRepr>,
+}
+
+/// Checks a trace's nodes one at a time, in file order, so a loader can
+/// hand each node over as soon as it is parsed and never hold the whole
+/// parsed file (`stream`); [`validate`] hands over a parsed file's nodes
+/// the same way. Every problem is collected, and the result and its
+/// problems are the same whichever way the nodes arrive.
+pub(crate) struct Checker {
+    default_dtype: Dtype,
+    problems: Vec<Problem>,
+    rounded: Vec<Rounding>,
+    names: Names,
+    /// Each id's first node.
+    index: IdIndex,
+    /// Checked nodes; `None` where a node has problems.
+    nodes: Vec<Option<Node>>,
+    /// The ids of the nodes that are `None` (a checked node keeps its own).
+    failed_ids: HashMap<usize, String>,
+    /// Nodes with an input that named no earlier node when they arrived (an
+    /// unknown id, or a node recorded later: only the end can tell which),
+    /// with their inputs as written and the earlier ones resolved.
+    waiting: Vec<Waiting>,
+    /// The inputs of nodes with problems, as edges (input, node), so cycles
+    /// through them can still be named; the checked nodes keep their own.
+    loose_edges: Vec<(usize, usize)>,
+}
+
+/// A node whose inputs are resolved at the end.
+struct Waiting {
+    position: usize,
+    inputs: Vec<NodeId>,
+}
+
+/// The id of the node at `position`: from the checked node, else from the
+/// ids of nodes with problems.
+fn id_at<'a>(
+    nodes: &'a [Option<Node>],
+    failed_ids: &'a HashMap<usize, String>,
+    position: usize,
+) -> &'a str {
+    match nodes.get(position) {
+        Some(Some(node)) => &node.id,
+        _ => failed_ids.get(&position).map_or("", |id| id.as_str()),
+    }
+}
+
+impl Checker {
+    /// A checker for a trace whose header dtype is `default_dtype`.
+    pub(crate) fn new(default_dtype: Dtype) -> Checker {
+        Checker {
+            default_dtype,
+            problems: Vec::new(),
+            rounded: Vec::new(),
+            names: Names::default(),
+            index: IdIndex::new(),
+            nodes: Vec::new(),
+            failed_ids: HashMap::new(),
+            waiting: Vec::new(),
+            loose_edges: Vec::new(),
         }
     }
-    index
+
+    /// Checks the next node in file order.
+    pub(crate) fn push(&mut self, mut raw: NodeFile, resolve: Resolver) {
+        let position = self.nodes.len();
+        let before = self.problems.len();
+        let mut id = std::mem::take(&mut raw.id.0);
+        let mut inputs = Vec::with_capacity(raw.inputs.len());
+        let mut resolved = true;
+        {
+            let (nodes, failed_ids, current) = (&self.nodes, &self.failed_ids, id.as_str());
+            let id_of = |at: usize| {
+                if at == position {
+                    current
+                } else {
+                    id_at(nodes, failed_ids, at)
+                }
+            };
+            // One lookup per node, so a file of a million duplicates is still linear.
+            if let Err(first) = self.index.insert(current, position, id_of) {
+                self.problems.push(
+                    Problem::at_node(
+                        current,
+                        format!("duplicate id (node #{position} repeats the id of node #{first})"),
+                        "give every node a unique id",
+                    )
+                    .kind("duplicate id"),
+                );
+            }
+            for input in &raw.inputs {
+                match self.index.get(&input.0, id_of) {
+                    Some(source) if source < position => inputs.push(source),
+                    _ => resolved = false,
+                }
+            }
+        }
+        let checked = if resolved {
+            let context = NodeContext {
+                position,
+                default_dtype: self.default_dtype,
+                rounded: &mut self.rounded,
+                names: &mut self.names,
+            };
+            let checked = check_node(
+                raw,
+                &mut id,
+                &mut inputs,
+                &self.nodes,
+                &mut self.problems,
+                resolve,
+                context,
+            );
+            if checked.is_none() {
+                self.loose_edges
+                    .extend(inputs.iter().map(|&source| (source, position)));
+            }
+            checked
+        } else {
+            self.waiting.push(Waiting {
+                position,
+                inputs: std::mem::take(&mut raw.inputs),
+            });
+            None
+        };
+        if checked.is_none() {
+            self.failed_ids.insert(position, id);
+        }
+        // Every problem of this node knows where the node is, for its line and column.
+        for problem in &mut self.problems[before..] {
+            problem.index = problem.index.or(Some(position));
+        }
+        self.nodes.push(checked);
+    }
+
+    /// Checks the header against the nodes and builds the trace; on failure
+    /// returns every problem found, in file order.
+    pub(crate) fn finish(
+        self,
+        header: HeaderFile,
+        resolve: Resolver,
+    ) -> Result<Trace, Vec<Problem>> {
+        let Checker {
+            problems: node_problems,
+            rounded,
+            index,
+            nodes,
+            failed_ids,
+            waiting,
+            loose_edges,
+            ..
+        } = self;
+        let id_of = |at: usize| id_at(&nodes, &failed_ids, at);
+        let mut problems = Vec::new();
+        if !READABLE_VERSIONS.contains(&header.format) {
+            problems.push(
+                Problem::general(
+                    format!(
+                        "unsupported format version {} (this build reads versions {READABLE_VERSIONS:?})",
+                        header.format
+                    ),
+                    "re-record the trace, or convert it with a matching release of ebb",
+                )
+                .kind("format version"),
+            );
+        }
+        problems.extend(node_problems);
+        let mut forward_edges = false;
+        let mut late_edges = Vec::new();
+        for node in &waiting {
+            resolve_inputs(
+                node,
+                (&index, &id_of),
+                &mut problems,
+                &mut late_edges,
+                &mut forward_edges,
+            );
+        }
+        let output = resolve_output(&header.output, (&index, &id_of), &mut problems);
+        if forward_edges {
+            let mut edges = late_edges;
+            edges.extend(loose_edges);
+            for (position, node) in nodes.iter().enumerate() {
+                if let Some(node) = node {
+                    edges.extend(node.inputs.iter().map(|&source| (source, position)));
+                }
+            }
+            report_cycles(nodes.len(), &id_of, &edges, &mut problems);
+        }
+        if !problems.is_empty() {
+            // Problems of the trace as a whole first, then by node (stable:
+            // a node's own problems keep the order they were found in).
+            problems.sort_by_key(|problem| problem.index.map_or(0, |index| index + 1));
+            return Err(problems);
+        }
+        let nodes: Vec<Node> = nodes
+            .into_iter()
+            .map(|node| node.expect("a node without problems is checked"))
+            .collect();
+        let output = output.expect("output resolved");
+        let output_dtype = nodes[output].dtype;
+        let seed = match header.seed {
+            None => Value::filled(nodes[output].value.shape(), 1.0).stored_as(output_dtype),
+            Some(raw) => match checked_value(raw, resolve, output_dtype, &mut None) {
+                Ok(seed) if seed.shape() == nodes[output].value.shape() => seed,
+                Ok(seed) => {
+                    return Err(vec![Problem::general(
+                        format!(
+                            "seed has shape {} but output '{}' has shape {}",
+                            show(seed.shape()),
+                            nodes[output].id,
+                            show(nodes[output].value.shape())
+                        ),
+                        "give a seed of the output's shape, or omit it for ones",
+                    )]);
+                }
+                Err(message) => {
+                    return Err(vec![Problem::general(
+                        format!("seed: {message}"),
+                        "fix the seed's shape or data",
+                    )]);
+                }
+            },
+        };
+        Ok(build(
+            Header {
+                title: header.title,
+                description: header.description,
+                dtype: header.dtype,
+                accumulate: header
+                    .accumulate
+                    .unwrap_or_else(|| header.dtype.default_accumulate()),
+            },
+            nodes,
+            output,
+            seed,
+            index,
+            rounded,
+        ))
+    }
 }
 
+/// Resolves the inputs of a node that had to wait for the whole file: each
+/// is an unknown id, or refers forward (to a node recorded later, or to the
+/// node itself), or to an earlier node after all; the edges found are kept
+/// so cycles can be named.
 fn resolve_inputs(
-    node: &NodeFile,
-    position: usize,
-    index: &HashMap<String, usize>,
+    node: &Waiting,
+    (index, id_of): Ids,
     problems: &mut Vec<Problem>,
     edges: &mut Vec<(usize, usize)>,
     forward_edges: &mut bool,
-) -> Option<Vec<usize>> {
-    let mut inputs = Vec::with_capacity(node.inputs.len());
-    let mut ok = true;
+) {
+    let position = node.position;
+    let id = id_of(position);
     for input in &node.inputs {
-        let source = index.get(&input.0).copied();
+        let source = index.get(&input.0, id_of);
         if let Some(source) = source {
             edges.push((source, position));
         }
-        match source.as_ref() {
-            None => {
-                problems.push(
-                    Problem::at_node(
-                        &node.id.0,
-                        format!("unknown input id '{input}'"),
-                        "every input must be the id of a node in this trace",
-                    )
-                    .kind("unknown input id")
-                    .at(position),
-                );
-                ok = false;
-            }
-            Some(&source) if source >= position => {
+        match source {
+            None => problems.push(
+                Problem::at_node(
+                    id,
+                    format!("unknown input id '{input}'"),
+                    "every input must be the id of a node in this trace",
+                )
+                .kind("unknown input id")
+                .at(position),
+            ),
+            Some(source) if source >= position => {
                 *forward_edges = true;
                 let what = if source == position {
                     "itself".to_string()
@@ -201,26 +353,23 @@ fn resolve_inputs(
                 };
                 problems.push(
                     Problem::at_node(
-                        &node.id.0,
+                        id,
                         format!("input refers forward to {what}"),
                         "list nodes in recording order: each node after all of its inputs",
                     )
                     .kind("forward input")
                     .at(position),
                 );
-                ok = false;
             }
-            Some(&source) => inputs.push(source),
+            Some(_) => {}
         }
     }
-    ok.then_some(inputs)
 }
 
-fn resolve_output(
-    id: &str,
-    index: &HashMap<String, usize>,
-    problems: &mut Vec<Problem>,
-) -> Option<usize> {
+/// The index of a trace's ids, and the id at each position.
+type Ids<'a, 'b> = (&'a IdIndex, &'a dyn Fn(usize) -> &'b str);
+
+fn resolve_output(id: &str, (index, id_of): Ids, problems: &mut Vec<Problem>) -> Option<usize> {
     if id.is_empty() {
         problems.push(
             Problem::general(
@@ -231,7 +380,7 @@ fn resolve_output(
         );
         return None;
     }
-    let found = index.get(id).copied();
+    let found = index.get(id, id_of);
     if found.is_none() {
         problems.push(
             Problem::general(
@@ -345,16 +494,18 @@ impl Names {
 }
 
 /// Checks one node whose inputs resolved; `earlier` holds the checked nodes
-/// before it (`None` where those had problems).
+/// before it (`None` where those had problems). The node takes `inputs`
+/// when it checks; with problems they are left for the caller.
 fn check_node(
     mut raw: NodeFile,
-    inputs: Vec<usize>,
+    id_slot: &mut String,
+    inputs: &mut Vec<usize>,
     earlier: &[Option<Node>],
     problems: &mut Vec<Problem>,
     resolve: Resolver,
     context: NodeContext,
 ) -> Option<Node> {
-    let id = std::mem::take(&mut raw.id.0);
+    let id = id_slot.as_str();
     let before = problems.len();
     let dtype = raw.dtype.unwrap_or(context.default_dtype);
     let mut first_rounded = None;
@@ -368,7 +519,7 @@ fn check_node(
         };
         problems.push(
             Problem::at_node(
-                &id,
+                id,
                 format!("{} takes {}, got {}", raw.op, spec.arity, inputs.len()),
                 hint,
             )
@@ -376,13 +527,13 @@ fn check_node(
         );
     }
     if op == Op::Custom {
-        check_custom_partials(&id, &raw, problems);
+        check_custom_partials(id, &raw, problems);
     }
     for attr in spec.required {
         if !attr.is_set(&raw.attrs) {
             problems.push(
                 Problem::at_node(
-                    &id,
+                    id,
                     format!("{} needs the attribute `{}`", raw.op, attr.as_str()),
                     format!("add attrs: ({}: ..)", attr.as_str()),
                 )
@@ -393,7 +544,7 @@ fn check_node(
     if let Some(Err(message)) = raw.attrs.shape.as_deref().map(checked_numel) {
         problems.push(
             Problem::at_node(
-                &id,
+                id,
                 format!("attribute `shape`: {message}"),
                 "give the target shape of the reshape",
             )
@@ -403,7 +554,7 @@ fn check_node(
     if raw.partials.len() > raw.inputs.len() {
         problems.push(
             Problem::at_node(
-                &id,
+                id,
                 format!(
                     "{} partials recorded for {} input edges",
                     raw.partials.len(),
@@ -424,7 +575,7 @@ fn check_node(
         Err(message) => {
             problems.push(
                 Problem::at_node(
-                    &id,
+                    id,
                     format!("value: {message}"),
                     "the data length must equal the product of the shape",
                 )
@@ -441,7 +592,7 @@ fn check_node(
         .unwrap_or_else(|message| {
             problems.push(
                 Problem::at_node(
-                    &id,
+                    id,
                     format!("reported gradient: {message}"),
                     "the data length must equal the product of the shape",
                 )
@@ -463,16 +614,12 @@ fn check_node(
     let input_shapes: Vec<&[usize]> = input_values.iter().map(|value| value.shape()).collect();
     match ops::infer_shape(op, &input_shapes, &raw.attrs) {
         Err(message) => problems.push(
-            Problem::at_node(
-                &id,
-                message,
-                "check the shapes of the inputs against the op",
-            )
-            .kind("shape"),
+            Problem::at_node(id, message, "check the shapes of the inputs against the op")
+                .kind("shape"),
         ),
         Ok(Some(expected)) if expected != value.shape() => problems.push(
             Problem::at_node(
-                &id,
+                id,
                 format!(
                     "recorded value has shape {} but {} of these inputs gives {}",
                     show(value.shape()),
@@ -484,9 +631,9 @@ fn check_node(
             .kind("shape"),
         ),
         Ok(_) => {
-            check_index_rounding(&id, &raw, &inputs, spec.discrete, context.rounded, problems);
+            check_index_rounding(id, &raw, inputs, spec.discrete, context.rounded, problems);
             if let Err(misfit) = ops::check_inputs(op, &input_values, &raw.attrs) {
-                problems.push(Problem::at_node(&id, misfit.message, misfit.hint).kind("bad index"));
+                problems.push(Problem::at_node(id, misfit.message, misfit.hint).kind("bad index"));
             }
         }
     }
@@ -495,7 +642,7 @@ fn check_node(
     {
         problems.push(
             Problem::at_node(
-                &id,
+                id,
                 format!(
                     "reported gradient has shape {} but the value has shape {}",
                     show(reported.shape()),
@@ -513,7 +660,7 @@ fn check_node(
             Ok(partial) => partials.push(partial),
             Err(message) => problems.push(
                 Problem::at_node(
-                    &id,
+                    id,
                     format!(
                         "partial on edge {slot} (from '{}'): {message}",
                         raw.inputs[slot]
@@ -541,11 +688,11 @@ fn check_node(
         });
     }
     Some(Node {
-        id,
+        id: std::mem::take(id_slot),
         op,
         op_name: context.names.shared(raw.op),
         dtype,
-        inputs,
+        inputs: std::mem::take(inputs),
         group: raw.group,
         site: raw.site.map(|site| context.names.shared(site)),
         value,
@@ -655,22 +802,18 @@ fn check_partial(
 
 /// Names each cycle among the edges, found as strongly connected components
 /// with petgraph (Kosaraju's algorithm, iterative).
-fn report_cycles(
-    nodes: &[Option<Node>],
-    index: &HashMap<String, usize>,
+fn report_cycles<'a>(
+    nodes: usize,
+    id_of: &dyn Fn(usize) -> &'a str,
     edges: &[(usize, usize)],
     problems: &mut Vec<Problem>,
 ) {
-    let mut graph = DiGraph::<(), ()>::with_capacity(nodes.len(), edges.len());
-    for _ in nodes {
+    let mut graph = DiGraph::<(), ()>::with_capacity(nodes, edges.len());
+    for _ in 0..nodes {
         graph.add_node(());
     }
     for &(source, target) in edges {
         graph.add_edge(NodeIndex::new(source), NodeIndex::new(target), ());
-    }
-    let mut ids = vec![""; nodes.len()];
-    for (id, &position) in index {
-        ids[position] = id;
     }
     for component in petgraph::algo::kosaraju_scc(&graph) {
         let looped = component.len() > 1 || graph.contains_edge(component[0], component[0]);
@@ -682,14 +825,14 @@ fn report_cycles(
         let mut names: Vec<String> = members
             .iter()
             .take(6)
-            .map(|&node| format!("'{}'", ids[node]))
+            .map(|&node| format!("'{}'", id_of(node)))
             .collect();
         if members.len() > 6 {
             names.push(format!("and {} more", members.len() - 6));
         }
         problems.push(
             Problem::at_node(
-                ids[members[0]],
+                id_of(members[0]),
                 format!("cycle through {}", names.join(", ")),
                 "a trace records one forward pass: no node may depend on itself",
             )
@@ -712,7 +855,7 @@ fn build(
     nodes: Vec<Node>,
     output: usize,
     seed: Value,
-    index: HashMap<String, usize>,
+    index: IdIndex,
     rounded: Vec<Rounding>,
 ) -> Trace {
     let Header {

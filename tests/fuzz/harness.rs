@@ -9,7 +9,9 @@
 use ebb::diagnose::{Settings, diagnose};
 use ebb::report::Report;
 use ebb::sweep::{LedgerMode, Sweep};
-use ebb::trace::{Encoding, LoadError, Trace, TraceFile, load_str, parse, to_text};
+use ebb::trace::{
+    Encoding, LoadError, SyntaxError, Trace, TraceFile, load_str, one_line, parse, to_text,
+};
 use std::path::{Path, PathBuf};
 
 /// Loads RON text: never a panic; a rejection is one short error naming the
@@ -27,13 +29,44 @@ fn load_text(data: &[u8], encoding: Encoding, name: &str) {
     let Ok(text) = std::str::from_utf8(data) else {
         return;
     };
-    if let Ok(file) = parse(text, encoding) {
-        round_trips(&file, encoding);
+    let parsed = parse(text, encoding);
+    if let Ok(file) = &parsed {
+        round_trips(file, encoding);
     }
-    match load_str(text, encoding, Path::new(name)) {
+    let loaded = load_str(text, encoding, Path::new(name));
+    same_syntax_error(&parsed, &loaded);
+    match loaded {
         Ok(trace) => assert!(trace.output() < trace.nodes().len()),
         Err(error) => check_error(&error, name),
     }
+}
+
+/// The loader reads node by node (src/trace/stream.rs) with a reader of its
+/// own for the file's fields; `parse` reads the whole file with the types'
+/// derived readers. Both must find the same syntax errors, at the same line
+/// and column, with the same message.
+fn same_syntax_error(parsed: &Result<TraceFile, SyntaxError>, loaded: &Result<Trace, LoadError>) {
+    let streamed = match loaded {
+        Err(LoadError::Syntax {
+            line,
+            column,
+            message,
+            ..
+        }) => Some((*line, *column, message.clone())),
+        _ => None,
+    };
+    // The loader keeps an error on one line; compare what it prints.
+    let whole = parsed.as_ref().err().map(|error| {
+        (
+            error.line,
+            error.column,
+            one_line(&error.message).into_owned(),
+        )
+    });
+    assert_eq!(
+        streamed, whole,
+        "the node-by-node reader and the whole parse disagree"
+    );
 }
 
 /// A rejection is at most 21 lines (20 problems and a count), each naming
@@ -101,31 +134,55 @@ const SIDECAR_HEADER: &str = r#"(format: 2, title: "fuzz", dtype: f32, sidecar: 
 /// panic; a rejection is one short error naming the trace; what loads goes
 /// through the whole pipeline.
 pub fn sidecar_load(data: &[u8]) {
-    match load_sidecar(data) {
-        Ok(trace) => check_pipeline(&trace),
-        Err(error) => check_error(&error, &sidecar_dir().join("t.tape").display().to_string()),
-    }
-    ebb::trace::check_sidecars_unchanged().expect("nothing changed the sidecar");
+    SIDECAR.with(|place| {
+        match place.load(data) {
+            Ok(trace) => check_pipeline(&trace),
+            Err(error) => check_error(&error, &place.label),
+        }
+        ebb::trace::check_sidecars_unchanged().expect("nothing changed the sidecar");
+    });
 }
 
 /// The fixed trace loaded with `data` as its sidecar.
 pub fn load_sidecar(data: &[u8]) -> Result<Trace, LoadError> {
-    let dir = sidecar_dir();
-    std::fs::write(dir.join("t.safetensors"), data).expect("the sidecar writes");
-    ebb::trace::load(&dir.join("t.tape"))
+    SIDECAR.with(|place| place.load(data))
 }
 
-/// A directory of this thread holding the fixed header `t.tape` (threads:
-/// `cargo test` replays inputs in parallel).
-fn sidecar_dir() -> PathBuf {
-    thread_local! {
-        static DIR: tempfile::TempDir = {
-            let dir = tempfile::tempdir().expect("a temporary directory");
-            std::fs::write(dir.path().join("t.tape"), SIDECAR_HEADER).expect("the header writes");
-            dir
-        };
+/// Where this thread's sidecar target works: a temporary directory (under
+/// TMPDIR: `tests/fuzz/run` puts it on tmpfs) holding the fixed header
+/// `t.tape`, written once, and the sidecar `t.safetensors`, rewritten for
+/// every input. One per thread: `cargo test` replays inputs in parallel.
+struct SidecarPlace {
+    _dir: tempfile::TempDir,
+    tape: PathBuf,
+    sidecar: PathBuf,
+    /// The trace's path as errors name it.
+    label: String,
+}
+
+impl SidecarPlace {
+    fn new() -> SidecarPlace {
+        let dir = tempfile::tempdir().expect("a temporary directory");
+        let tape = dir.path().join("t.tape");
+        std::fs::write(&tape, SIDECAR_HEADER).expect("the header writes");
+        SidecarPlace {
+            sidecar: dir.path().join("t.safetensors"),
+            label: tape.display().to_string(),
+            tape,
+            _dir: dir,
+        }
     }
-    DIR.with(|dir| dir.path().to_path_buf())
+
+    /// Writes `data` as the sidecar, a real file, so the loader's file
+    /// checks run on it; then loads the trace from its path.
+    fn load(&self, data: &[u8]) -> Result<Trace, LoadError> {
+        std::fs::write(&self.sidecar, data).expect("the sidecar writes");
+        ebb::trace::load(&self.tape)
+    }
+}
+
+thread_local! {
+    static SIDECAR: SidecarPlace = SidecarPlace::new();
 }
 
 /// What `ebb check` does with a loaded trace, then undo and sweep again.
