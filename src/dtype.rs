@@ -235,7 +235,8 @@ pub(crate) fn to_f32_odd(x: f64) -> f32 {
 }
 
 /// Correctly rounded conversion of an f64 into a narrower binary format: the
-/// independent method the round-to-odd path is tested against.
+/// independent method the round-to-odd path and the vectorised conversions
+/// are tested against.
 ///
 /// Scaling by a power of two is exact, so `a · 2^-k` (k the ulp's exponent)
 /// is exact, and below 2^25 (the largest format here has 24 significant
@@ -243,7 +244,7 @@ pub(crate) fn to_f32_odd(x: f64) -> f32 {
 /// even, in IEEE 754's default rounding mode, the classic trick that needs no
 /// call to `rint`. The product back by the ulp is exact too.
 #[cfg(test)]
-fn round_to_format(x: f64, limits: FormatLimits) -> f64 {
+pub(crate) fn round_to_format(x: f64, limits: FormatLimits) -> f64 {
     if !x.is_finite() || x == 0.0 {
         return x;
     }
