@@ -168,7 +168,7 @@ pub fn check_forward(trace: &Trace, slack: f64) -> ForwardCheck {
         let (got, want) = (recorded.value.elements(), recomputed.elements());
         if got.len() == want.len() {
             // In blocks, without a widened copy of either tensor.
-            scan::scan_pairs(got, want, compare);
+            scan::scan_zip([got, want], |element, [a, b]| compare(element, a, b));
         } else {
             let (got, want) = (got.to_vec_f64(), want.to_vec_f64());
             for (element, (&a, &b)) in got.iter().zip(want.iter()).enumerate() {

@@ -199,7 +199,7 @@ pub(super) fn compared(
             // Pairwise in blocks: a widened copy of each gradient cost more than the comparison.
             let (mut scale, mut error) = (0.0f64, 0.0f64);
             if here.len() == there.len() {
-                scan::scan_pairs(here.elements(), there.elements(), |_, a, b| {
+                scan::scan_zip([here.elements(), there.elements()], |_, [a, b]| {
                     scale = scale.max(b.abs());
                     error = error.max((a - b).abs());
                 });
@@ -281,11 +281,9 @@ fn lost_element(
     if before.len() == after.len() && contribution.len() == after.len() {
         // The common case, in blocks: no widened copy of three tensors per entry.
         let mut first = None;
-        scan::scan_triples(
-            before.elements(),
-            contribution.elements(),
-            after.elements(),
-            |k, b, c, a| {
+        scan::scan_zip(
+            [before.elements(), contribution.elements(), after.elements()],
+            |k, [b, c, a]| {
                 if first.is_none() {
                     first = loss(b, c, a).map(|lost| (k, lost));
                 }

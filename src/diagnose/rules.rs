@@ -9,7 +9,7 @@ use super::origin::OriginClass;
 use super::settings::Settings;
 use crate::dtype::Dtype;
 use crate::sweep::{FlagKind, Sweep};
-use crate::tensor::scan::{self, Select};
+use crate::tensor::scan::{self, PairTest};
 use crate::tensor::{Elements, Survey, Value, l2_norm};
 use serde::{Deserialize, Serialize};
 
@@ -460,7 +460,7 @@ impl<'a> Collector<'a> {
     /// The comparisons with the reference sweep's number at the same site:
     /// elements flushed to zero here, and (when `overflow`) elements infinite
     /// here but finite there. Only a value with zeros or non-finite elements
-    /// (as its survey says) can have either, so only those are widened.
+    /// (as its survey says) can have either, so only those are scanned.
     #[allow(clippy::too_many_arguments)]
     fn against(
         &mut self,
@@ -481,58 +481,34 @@ impl<'a> Collector<'a> {
         }
         let (data, reference) = (value.elements(), reference.elements());
         if survey.zeros > 0 {
-            self.flushed(node, step, site, data, reference);
+            self.paired(node, step, site, (data, reference), PairTest::Flushed);
         }
         if scan_overflow {
-            self.overflowed(node, step, site, data, reference);
+            self.paired(node, step, site, (data, reference), PairTest::Overflowed);
         }
     }
 
-    /// Elements that are infinite here but finite in the reference: an overflow of this dtype.
-    fn overflowed(
+    /// A comparison with the reference: elements zero here but not there (an
+    /// underflow of this dtype), or infinite here but finite there (an overflow).
+    fn paired(
         &mut self,
         node: usize,
         step: usize,
         site: Site,
-        data: Elements<'_>,
-        reference: Elements<'_>,
+        (data, reference): (Elements<'_>, Elements<'_>),
+        test: PairTest,
     ) {
-        if let Some(hit) =
-            scan::first_selected_pair_where(data, reference, Select::NonFinite, |x, y| {
-                x.is_infinite() && y.is_finite()
-            })
-        {
-            self.push(
-                Rule::Overflow,
-                node,
-                step,
-                site,
-                Measure::Element,
-                hit,
-                self.dtype.limits().max_finite(),
-            );
-        }
-    }
-
-    /// Elements that are zero here but not in the reference.
-    fn flushed(
-        &mut self,
-        node: usize,
-        step: usize,
-        site: Site,
-        data: Elements<'_>,
-        reference: Elements<'_>,
-    ) {
-        if let Some(hit) = scan::first_flushed(data, reference) {
-            self.push(
+        let limits = self.dtype.limits();
+        let (rule, measure, threshold) = match test {
+            PairTest::Flushed => (
                 Rule::Underflow,
-                node,
-                step,
-                site,
                 Measure::FlushedToZero,
-                hit,
-                self.dtype.limits().min_subnormal(),
-            );
+                limits.min_subnormal(),
+            ),
+            PairTest::Overflowed => (Rule::Overflow, Measure::Element, limits.max_finite()),
+        };
+        if let Some(hit) = scan::first_pair(data, reference, test) {
+            self.push(rule, node, step, site, measure, hit, threshold);
         }
     }
 }

@@ -44,52 +44,28 @@ pub fn scan_each(elements: Elements<'_>, mut visit: impl FnMut(usize, f64)) {
     }
 }
 
-/// Calls `visit(index, x, y)` for the elements of `a` and `b` pairwise, in
-/// order, both widened exactly.
+/// Calls `visit(index, [x, y, …])` for the elements of `inputs` side by
+/// side, in order, each widened exactly, a block at a time.
 ///
 /// # Panics
-/// If the two differ in length (callers compare lengths first).
-pub fn scan_pairs(a: Elements<'_>, b: Elements<'_>, mut visit: impl FnMut(usize, f64, f64)) {
-    assert_eq!(a.len(), b.len(), "pairs need equally many elements");
-    let (mut left, mut right) = ([0f64; BLOCK], [0f64; BLOCK]);
-    let len = a.len();
-    let mut start = 0;
-    while start < len {
-        let width = BLOCK.min(len - start);
-        widen_block(a, start, &mut left[..width]);
-        widen_block(b, start, &mut right[..width]);
-        for offset in 0..width {
-            visit(start + offset, left[offset], right[offset]);
-        }
-        start += width;
-    }
-}
-
-/// Calls `visit(index, x, y, z)` for the elements of `a`, `b` and `c` side
-/// by side, in order, all widened exactly.
-///
-/// # Panics
-/// If the three differ in length (callers compare lengths first).
-pub fn scan_triples(
-    a: Elements<'_>,
-    b: Elements<'_>,
-    c: Elements<'_>,
-    mut visit: impl FnMut(usize, f64, f64, f64),
-) {
+/// If the inputs differ in length (callers compare lengths first).
+pub fn scan_zip<const N: usize>(inputs: [Elements<'_>; N], mut visit: impl FnMut(usize, [f64; N])) {
+    let len = inputs.first().map_or(0, Elements::len);
     assert!(
-        a.len() == b.len() && b.len() == c.len(),
-        "triples need equally many elements"
+        inputs.iter().all(|input| input.len() == len),
+        "zipped scans need equally many elements"
     );
-    let (mut first, mut second, mut third) = ([0f64; BLOCK], [0f64; BLOCK], [0f64; BLOCK]);
-    let len = a.len();
+    let mut blocks = [[0f64; BLOCK]; N];
     let mut start = 0;
     while start < len {
         let width = BLOCK.min(len - start);
-        widen_block(a, start, &mut first[..width]);
-        widen_block(b, start, &mut second[..width]);
-        widen_block(c, start, &mut third[..width]);
+        for (input, block) in inputs.iter().zip(blocks.iter_mut()) {
+            widen_block(*input, start, &mut block[..width]);
+        }
+        // One element from each of N blocks: an index, not an iterator, reads them.
+        #[allow(clippy::needless_range_loop)]
         for offset in 0..width {
-            visit(start + offset, first[offset], second[offset], third[offset]);
+            visit(start + offset, std::array::from_fn(|k| blocks[k][offset]));
         }
         start += width;
     }
@@ -112,24 +88,6 @@ pub fn first_where(
     first.map(|(index, x)| (index, x, count))
 }
 
-/// The first pair where `bad(x, y)` holds, with its index, its `y` and how
-/// many pairs it holds for.
-pub fn first_pair_where(
-    a: Elements<'_>,
-    b: Elements<'_>,
-    bad: impl Fn(f64, f64) -> bool,
-) -> Option<(usize, f64, usize)> {
-    let mut first = None;
-    let mut count = 0;
-    scan_pairs(a, b, |index, x, y| {
-        if bad(x, y) {
-            count += 1;
-            first.get_or_insert((index, y));
-        }
-    });
-    first.map(|(index, y)| (index, y, count))
-}
-
 /// The first element that is subnormal in `dtype`, with how many are: on
 /// the bits when the elements are stored in `dtype` (the usual case), else
 /// widened.
@@ -145,90 +103,56 @@ pub fn first_subnormal(elements: Elements<'_>, dtype: Dtype) -> Option<(usize, f
     crate::with_elements!(elements, s => typed(s))
 }
 
-/// The first element that is zero in `a` but non-zero and finite in `b`
-/// (flushed to zero here, against a reference), with `b`'s element and how
-/// many there are: counted branch-free a block at a time, so that the many
-/// zeros a ReLU leaves cost no mispredicted branch, and only a block with a
-/// hit is searched.
+/// What [`first_pair`] looks for: an element of the sweep under test
+/// against the reference's element at the same place.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum PairTest {
+    /// Zero here, non-zero and finite in the reference: flushed to zero.
+    Flushed,
+    /// Infinite here, finite in the reference: an overflow of this dtype.
+    Overflowed,
+}
+
+/// The first place where `test` holds between `a` and the reference `b`,
+/// with `b`'s element there and how many places it holds at. Tested on the
+/// typed bits and counted branch-free a block at a time, so the many zeros
+/// a ReLU leaves cost no mispredicted branch; only a block with a hit is
+/// searched.
 ///
 /// # Panics
 /// If the two differ in length (callers compare lengths first).
-pub fn first_flushed(a: Elements<'_>, b: Elements<'_>) -> Option<(usize, f64, usize)> {
+pub fn first_pair(a: Elements<'_>, b: Elements<'_>, test: PairTest) -> Option<(usize, f64, usize)> {
     assert_eq!(a.len(), b.len(), "pairs need equally many elements");
-    fn typed<T: Float, U: Float>(a: &[T], b: &[U]) -> Option<(usize, f64, usize)> {
-        let flushed = |(&x, &y): (&T, &U)| x.is_zero() & !y.is_zero() & y.finite();
+    fn typed<T: Float, U: Float>(a: &[T], b: &[U], test: PairTest) -> Option<(usize, f64, usize)> {
+        // The test is chosen outside the loop, so each loop is one plain predicate.
+        match test {
+            PairTest::Flushed => counted(a, b, |x, y| x.is_zero() & !y.is_zero() & y.finite()),
+            // Not finite and equal to itself: infinite, not NaN.
+            #[allow(clippy::eq_op)]
+            PairTest::Overflowed => counted(a, b, |x, y| !x.finite() & (x == x) & y.finite()),
+        }
+    }
+    fn counted<T: Float, U: Float>(
+        a: &[T],
+        b: &[U],
+        hit: impl Fn(T, U) -> bool,
+    ) -> Option<(usize, f64, usize)> {
+        let hit = |(&x, &y): (&T, &U)| hit(x, y);
         let (mut first, mut count) = (None, 0);
         for (block, (xs, ys)) in a.chunks(BLOCK).zip(b.chunks(BLOCK)).enumerate() {
-            let hits: usize = xs
-                .iter()
-                .zip(ys)
-                .map(|pair| usize::from(flushed(pair)))
-                .sum();
+            let hits: usize = xs.iter().zip(ys).map(|pair| usize::from(hit(pair))).sum();
             if hits > 0 && first.is_none() {
-                let at = xs.iter().zip(ys).position(flushed)?;
+                let at = xs.iter().zip(ys).position(hit)?;
                 first = Some((block * BLOCK + at, ys[at].to_f64()));
             }
             count += hits;
         }
         first.map(|(index, y)| (index, y, count))
     }
-    fn of_first<T: Float>(a: &[T], b: Elements<'_>) -> Option<(usize, f64, usize)> {
-        crate::with_elements!(b, b => typed(a, b))
+    fn of_first<T: Float>(a: &[T], b: Elements<'_>, test: PairTest) -> Option<(usize, f64, usize)> {
+        crate::with_elements!(b, b => typed(a, b, test))
     }
-    crate::with_elements!(a, a => of_first(a, b))
-}
-
-/// Which elements of the first operand a sparse pair scan looks at.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Select {
-    /// Zeros of either sign.
-    Zero,
-    /// NaN and infinities.
-    NonFinite,
-}
-
-/// [`first_pair_where`] for a test that can only hold where `a`'s element is
-/// `select`ed: the selection is made on the typed element (a bit test), and
-/// only selected pairs are widened and given to `bad`. Zeros are common
-/// (ReLU) and non-finite numbers rare, so most elements cost one test.
-///
-/// # Panics
-/// If the two differ in length (callers compare lengths first).
-pub fn first_selected_pair_where(
-    a: Elements<'_>,
-    b: Elements<'_>,
-    select: Select,
-    bad: impl Fn(f64, f64) -> bool,
-) -> Option<(usize, f64, usize)> {
-    assert_eq!(a.len(), b.len(), "pairs need equally many elements");
-    fn typed<T: Float, U: Float>(
-        a: &[T],
-        b: &[U],
-        selected: impl Fn(T) -> bool,
-        bad: &impl Fn(f64, f64) -> bool,
-    ) -> Option<(usize, f64, usize)> {
-        let mut first = None;
-        let mut count = 0;
-        for (index, (&x, &y)) in a.iter().zip(b).enumerate() {
-            if selected(x) && bad(x.to_f64(), y.to_f64()) {
-                count += 1;
-                first.get_or_insert((index, y.to_f64()));
-            }
-        }
-        first.map(|(index, y)| (index, y, count))
-    }
-    fn of_first<T: Float>(
-        a: &[T],
-        b: Elements<'_>,
-        select: Select,
-        bad: &impl Fn(f64, f64) -> bool,
-    ) -> Option<(usize, f64, usize)> {
-        crate::with_elements!(b, b => match select {
-            Select::Zero => typed(a, b, |x: T| x.is_zero(), bad),
-            Select::NonFinite => typed(a, b, |x: T| !x.finite(), bad),
-        })
-    }
-    crate::with_elements!(a, a => of_first(a, b, select, &bad))
+    crate::with_elements!(a, a => of_first(a, b, test))
 }
 
 #[cfg(test)]
@@ -294,23 +218,20 @@ mod tests {
                     (at, data[at], count)
                 });
             assert_eq!(
-                first_pair_where(elements, Elements::F64(&data), flushed),
+                first_pair(elements, Elements::F64(&data), PairTest::Flushed),
                 plain
             );
-            assert_eq!(
-                first_selected_pair_where(elements, Elements::F64(&data), Select::Zero, flushed),
-                plain
-            );
-            assert_eq!(first_flushed(elements, Elements::F64(&data)), plain);
         }
         assert_eq!(first_where(Elements::F32(&[]), |_, _| true), None);
         let f32s: Vec<f32> = data.iter().map(|&x| x as f32).collect();
         let mut seen = Vec::new();
-        scan_triples(
-            Elements::F64(&data),
-            Elements::F32(&f32s),
-            Elements::F16(&f16s),
-            |index, x, y, z| seen.push((index, x, y, z)),
+        scan_zip(
+            [
+                Elements::F64(&data),
+                Elements::F32(&f32s),
+                Elements::F16(&f16s),
+            ],
+            |index, [x, y, z]| seen.push((index, x, y, z)),
         );
         let expected: Vec<_> = (0..data.len())
             .map(|k| (k, data[k], f64::from(f32s[k]), f16s[k].to_f64()))
@@ -319,18 +240,12 @@ mod tests {
         // Infinite here, finite in the reference: what an overflow looks like.
         let here = [1.0f32, f32::INFINITY, f32::NAN, f32::NEG_INFINITY, 0.0];
         let there = [1.0, 1e39, 2.0, f64::NEG_INFINITY, -1e39];
-        let overflowed = |x: f64, y: f64| x.is_infinite() && y.is_finite();
         assert_eq!(
-            first_selected_pair_where(
+            first_pair(
                 Elements::F32(&here),
                 Elements::F64(&there),
-                Select::NonFinite,
-                overflowed
+                PairTest::Overflowed
             ),
-            Some((1, 1e39, 1))
-        );
-        assert_eq!(
-            first_pair_where(Elements::F32(&here), Elements::F64(&there), overflowed),
             Some((1, 1e39, 1))
         );
     }
